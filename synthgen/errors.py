@@ -1,0 +1,175 @@
+"""Errors that mean "the user gave bad input" and the checks that raise them.
+
+The command-line tool turns every :class:`UserError` into a one-line message on
+stderr and exit code 2; anything else is an unexpected failure (exit 1).
+Messages name the config key or file, the rule, and the value::
+
+    config key 'objects.size' must be [min, max] with 0 < min <= max (got [8, 4])
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+
+__all__ = [
+    "UserError",
+    "ConfigError",
+    "InputFileError",
+    "check_choice",
+    "check_number",
+    "check_range",
+]
+
+
+class UserError(Exception):
+    """Bad input from the user: a config, an option or a file (exit code 2)."""
+
+
+class ConfigError(UserError, ValueError):
+    """A config value breaks a rule.
+
+    Parameters
+    ----------
+    key : str
+        Dotted config key, e.g. ``"objects.size"``.
+    rule : str
+        What the value must be, phrased to follow the key
+        (``"must be a number in [0, 1]"``).
+    value : object
+        The offending value, shown with ``repr``.
+    """
+
+    def __init__(self, key: str, rule: str, value: object = None, *, hint: str = ""):
+        self.key = key
+        self.rule = rule
+        self.value = value
+        shown = _show(value)
+        msg = f"config key '{key}' {rule} (got {shown})"
+        if hint:
+            msg += f"; {hint}"
+        super().__init__(msg)
+
+
+class InputFileError(UserError):
+    """An input file is missing, unreadable or malformed.
+
+    The message names the file, what is wrong and, where there is one, the
+    record.
+    """
+
+    def __init__(self, path, problem: str):
+        self.path = str(path)
+        self.problem = problem
+        super().__init__(f"{path}: {problem}")
+
+
+def _show(value: object) -> str:
+    if isinstance(value, tuple):
+        value = list(value)
+    text = repr(value)
+    return text if len(text) <= 80 else text[:77] + "..."
+
+
+def _is_number(v: object) -> bool:
+    return isinstance(v, (int, float)) and not isinstance(v, bool)
+
+
+def check_number(
+    key: str,
+    value: object,
+    *,
+    lo: float | None = None,
+    hi: float | None = None,
+    lo_open: bool = False,
+    hi_open: bool = False,
+    integer: bool = False,
+) -> None:
+    """Raise :class:`ConfigError` unless ``value`` is a finite number in bounds.
+
+    Examples
+    --------
+    >>> check_number("canvas.width", 64, lo=1, integer=True)
+    >>> check_number("objects.min_visible", 1.5, lo=0, hi=1)
+    Traceback (most recent call last):
+    ...
+    synthgen.errors.ConfigError: config key 'objects.min_visible' must be a number in [0, 1] (got 1.5)
+    """
+    kind = "a whole number" if integer else "a number"
+    rule = f"must be {kind}{_bounds_text(lo, hi, lo_open, hi_open)}"
+    ok = _is_number(value) and math.isfinite(value)
+    if ok and integer and value != int(value):
+        ok = False
+    if ok and lo is not None and (value <= lo if lo_open else value < lo):
+        ok = False
+    if ok and hi is not None and (value >= hi if hi_open else value > hi):
+        ok = False
+    if not ok:
+        raise ConfigError(key, rule, value)
+
+
+def check_range(
+    key: str,
+    value: object,
+    *,
+    lo: float | None = None,
+    hi: float | None = None,
+    lo_open: bool = False,
+    integer: bool = False,
+) -> None:
+    """Raise :class:`ConfigError` unless ``value`` is ``(min, max)``, min <= max, in bounds.
+
+    Examples
+    --------
+    >>> check_range("objects.size", (8, 4), lo=0, lo_open=True)
+    Traceback (most recent call last):
+    ...
+    synthgen.errors.ConfigError: config key 'objects.size' must be [min, max] with 0 < min <= max (got [8, 4])
+    """
+    left = "" if lo is None else f"{_fmt(lo)} {'<' if lo_open else '<='} "
+    right = "" if hi is None else f" <= {_fmt(hi)}"
+    kind = " whole numbers" if integer else ""
+    rule = f"must be [min, max]{kind} with {left}min <= max{right}"
+    ok = isinstance(value, (tuple, list)) and len(value) == 2
+    if ok:
+        a, b = value
+        ok = _is_number(a) and _is_number(b) and math.isfinite(a) and math.isfinite(b) and a <= b
+        if ok and integer:
+            ok = a == int(a) and b == int(b)
+        if ok and lo is not None:
+            ok = a > lo if lo_open else a >= lo
+        if ok and hi is not None:
+            ok = b <= hi
+    if not ok:
+        raise ConfigError(key, rule, value)
+
+
+def check_choice(key: str, value: object, choices: Sequence[str]) -> None:
+    """Raise :class:`ConfigError` unless ``value`` is one of ``choices``.
+
+    The message suggests the closest choice when the value looks misspelt.
+    """
+    if isinstance(value, str) and value in choices:
+        return
+    hint = ""
+    if isinstance(value, str):
+        import difflib
+
+        close = difflib.get_close_matches(value, list(choices), n=1)
+        if close:
+            hint = f"did you mean '{close[0]}'?"
+    raise ConfigError(key, "must be one of " + ", ".join(choices), value, hint=hint)
+
+
+def _fmt(x: float) -> str:
+    return str(int(x)) if float(x).is_integer() else repr(float(x))
+
+
+def _bounds_text(lo, hi, lo_open, hi_open) -> str:
+    if lo is not None and hi is not None:
+        return f" in {'(' if lo_open else '['}{_fmt(lo)}, {_fmt(hi)}{')' if hi_open else ']'}"
+    if lo is not None:
+        return f" {'>' if lo_open else '>='} {_fmt(lo)}"
+    if hi is not None:
+        return f" {'<' if hi_open else '<='} {_fmt(hi)}"
+    return ""
