@@ -139,6 +139,112 @@ def make(
     )
 
 
+# config key of each DetectorSpec field -> the jitter option that sets it
+_JITTER_OPTIONS = {
+    "jitter.iou": "--iou",
+    "jitter.miss": "--miss",
+    "jitter.duplicates": "--duplicates",
+    "jitter.background": "--background",
+    "jitter.relabel": "--relabel",
+    "jitter.localization": "--localization",
+    "jitter.near_iou": "--near-iou",
+    "jitter.duplicate_iou": "--duplicate-iou",
+    "jitter.background_iou": "--background-iou",
+    "jitter.background_size": "--background-size",
+    "jitter.score_overlap": "--score-overlap",
+    "jitter.modes": "--modes",
+    "jitter.keep_inside": "--keep-inside",
+    "seed": "--seed",
+}
+
+
+def _option_error(exc) -> UserError:
+    """A ConfigError about a jitter setting, reworded to name the command-line option."""
+    value = list(exc.value) if isinstance(exc.value, tuple) else exc.value
+    text = f"option '{_JITTER_OPTIONS.get(exc.key, exc.key)}' {exc.rule} (got {value!r})"
+    for key, option in _JITTER_OPTIONS.items():
+        text = text.replace(f"'{key}'", f"'{option}'")
+    return UserError(text)
+
+
+def _pair(text: str, option: str) -> tuple[float, float]:
+    """Parse ``LO,HI`` (or one number V meaning ``V,V``)."""
+    parts = [p.strip() for p in text.split(",")]
+    try:
+        values = [float(p) for p in parts]
+    except ValueError:
+        values = []
+    if len(values) not in (1, 2):
+        raise UserError(f"option '{option}' must be LO,HI or one number (got {text!r})")
+    return (values[0], values[-1])
+
+
+@app.command()
+@reported
+def jitter(
+    dataset: Annotated[Path, typer.Argument(help="Dataset directory holding annotations.json.", show_default=False)],
+    out: Annotated[Path, typer.Option("--out", "-o", help="COCO results file to write (JSON array).")] = ...,
+    truth: Annotated[
+        Optional[Path],
+        typer.Option(help="Sidecar saying what each prediction is (default: OUT with .truth.json).", show_default=False),
+    ] = None,
+    seed: Annotated[int, typer.Option(help="Seed; the same seed gives the same files byte for byte.")] = 0,
+    iou: Annotated[str, typer.Option(help="IoU range LO,HI of each true positive with its ground truth.")] = "0.7,0.95",
+    miss: Annotated[float, typer.Option(help="Fraction of ground-truth boxes left undetected.")] = 0.0,
+    duplicates: Annotated[float, typer.Option(help="Fraction of ground-truth boxes given one extra duplicate.")] = 0.0,
+    background: Annotated[float, typer.Option(help="Mean number of background false positives per image.")] = 0.0,
+    relabel: Annotated[float, typer.Option(help="Fraction of ground-truth boxes detected with a wrong class.")] = 0.0,
+    localization: Annotated[
+        float, typer.Option(help="Fraction of ground-truth boxes whose only box is badly placed (see --near-iou).")
+    ] = 0.0,
+    near_iou: Annotated[str, typer.Option(help="IoU range LO,HI of a badly placed box with its ground truth.")] = "0.1,0.45",
+    duplicate_iou: Annotated[str, typer.Option(help="IoU range LO,HI of a duplicate with its ground truth.")] = "0.5,0.9",
+    background_iou: Annotated[
+        float, typer.Option(help="Background boxes have IoU below this with every ground-truth box.")
+    ] = 0.1,
+    background_size: Annotated[
+        str, typer.Option(help="Side LO,HI of background boxes as a fraction of the image's shorter side.")
+    ] = "0.05,0.3",
+    score_overlap: Annotated[
+        float, typer.Option(help="Overlap in [0, 1] of true-positive and other scores (0: true positives rank first).")
+    ] = 0.0,
+    modes: Annotated[
+        str, typer.Option(help="Directions of localization error, comma-separated: shift, grow, shrink, aspect, free.")
+    ] = "shift,grow,shrink,aspect,free",
+    keep_inside: Annotated[bool, typer.Option(help="Keep every predicted box inside its image.")] = True,
+) -> None:
+    """Simulate a detector on a dataset: COCO results plus a sidecar saying what each prediction is.
+
+    Prints a JSON summary of the counts on stdout.
+    """
+    import orjson
+
+    from synthgen.errors import ConfigError
+    from synthgen.jitter import DetectorSpec
+    from synthgen.jitter_coco import jitter_files
+
+    try:
+        spec = DetectorSpec(
+            miss=miss,
+            iou=_pair(iou, "--iou"),
+            modes=tuple(m.strip() for m in modes.split(",") if m.strip()),
+            localization=localization,
+            near_iou=_pair(near_iou, "--near-iou"),
+            duplicates=duplicates,
+            duplicate_iou=_pair(duplicate_iou, "--duplicate-iou"),
+            background=background,
+            background_iou=background_iou,
+            background_size=_pair(background_size, "--background-size"),
+            relabel=relabel,
+            score_overlap=score_overlap,
+            keep_inside=keep_inside,
+        )
+        summary = jitter_files(dataset, out, truth=truth, seed=seed, spec=spec)
+    except ConfigError as exc:
+        raise _option_error(exc) from None
+    typer.echo(orjson.dumps(summary, option=orjson.OPT_INDENT_2).decode())
+
+
 def main() -> None:
     """Entry point of the ``synthgen`` console script."""
     app(prog_name="synthgen")

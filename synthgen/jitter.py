@@ -1244,7 +1244,7 @@ class DetectorSpec:
         taken = self.miss + self.localization + self.relabel
         if taken > 1 + 1e-12:
             raise ConfigError(
-                "jitter.miss", "plus jitter.localization plus jitter.relabel must be at most 1", round(taken, 12)
+                "jitter.miss", "plus 'jitter.localization' plus 'jitter.relabel' must be at most 1", round(taken, 12)
             )
         if self.duplicates > 1 - taken + 1e-12:
             raise ConfigError(

@@ -273,7 +273,7 @@ def write_jitter_outputs(out, truth, predictions: list[dict], sidecar: dict) -> 
     out, truth = Path(out), Path(truth)
     _check_outputs(out, truth)
     pred_bytes = orjson.dumps(predictions)
-    truth_bytes = orjson.dumps(sidecar, option=orjson.OPT_INDENT_2)
+    truth_bytes = orjson.dumps(sidecar)
     write_bytes_atomic(truth, truth_bytes)
     write_bytes_atomic(out, pred_bytes)
 
