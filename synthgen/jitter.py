@@ -54,7 +54,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from synthgen.errors import check_number, check_range
+from synthgen.errors import ConfigError, check_number, check_range
 from synthgen.geometry import as_boxes, box_iou, boxes_valid
 
 __all__ = [
@@ -313,6 +313,15 @@ class Detections:
 # --------------------------------------------------------------------------- checks
 
 
+def _arg(check, name: str, value, **rule) -> None:
+    """Run a synthgen.errors check on a function argument; raise ValueError naming the argument."""
+    try:
+        check(name, value, **rule)
+    except ConfigError as exc:
+        shown = list(exc.value) if isinstance(exc.value, tuple) else exc.value
+        raise ValueError(f"'{name}' {exc.rule} (got {shown!r})") from None
+
+
 def _check_sources(b: np.ndarray, what: str = "boxes") -> None:
     if not boxes_valid(b).all():
         i = int(np.flatnonzero(~boxes_valid(b))[0])
@@ -374,10 +383,16 @@ def _sizes4(b: np.ndarray) -> np.ndarray:
     return np.stack([w, h, w, h], axis=1)  # (N, 4)
 
 
-def _ray_step(d: np.ndarray, t: np.ndarray) -> np.ndarray:
-    """Step ``s`` at which the unconstrained ray along ``d`` has IoU ``t``, shape (N,)."""
+def _shrink_rates(d: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """How fast the x- and y-overlap with the source shrink along ``d`` (units of w, h per step)."""
     ax = np.maximum(d[:, 0], 0) + np.maximum(-d[:, 2], 0)
     ay = np.maximum(d[:, 1], 0) + np.maximum(-d[:, 3], 0)
+    return ax, ay
+
+
+def _ray_step(d: np.ndarray, t: np.ndarray) -> np.ndarray:
+    """Step ``s`` at which the unconstrained ray along ``d`` has IoU ``t``, shape (N,)."""
+    ax, ay = _shrink_rates(d)
     gx = d[:, 2] - d[:, 0]
     gy = d[:, 3] - d[:, 1]
     qa = (1 + t) * ax * ay - t * gx * gy
@@ -421,6 +436,30 @@ def _bisect(b, dwh, t, cw, ch, s_hi) -> np.ndarray:
     return np.where(take_hi[:, None], p_hi, p_lo)
 
 
+def _bracket(b, d, wh, t, cw, ch) -> np.ndarray:
+    """A step at which the stopped path's IoU is <= ``t``; NaN where the path never gets that low."""
+    ax, ay = _shrink_rates(d)
+    cut = np.maximum(ax, ay)
+    s_hi = np.full(len(b), np.nan)
+    # Some edge moves into the source: the boxes stop overlapping (IoU 0) at this step,
+    # and such an edge never meets the border first.
+    cuts = cut > 0
+    s_hi[cuts] = 1 / cut[cuts]
+    # Pure growth without a canvas: IoU(s) <= 1 / (1 + s max(gx, gy)), which is < t here.
+    free = ~cuts & np.isinf(cw)
+    g = np.maximum(d[:, 2] - d[:, 0], d[:, 3] - d[:, 1])
+    s_hi[free] = 2 * (1 / t[free] - 1) / g[free]
+    # Pure growth on a canvas: the IoU bottoms out once the last moving edge meets the border.
+    held = np.flatnonzero(~cuts & ~free)
+    if held.size:
+        gap = np.stack([b[held, 0], b[held, 1], cw[held] - b[held, 2], ch[held] - b[held, 3]], axis=1)  # (K, 4)
+        speed = np.abs(d[held]) * wh[held]
+        s_end = np.where(speed > 0, gap / np.where(speed > 0, speed, 1.0), 0.0).max(axis=1)
+        floor = box_iou(b[held], _path(b[held], d[held] * wh[held], s_end, cw[held], ch[held]))
+        s_hi[held] = np.where(floor <= t[held], s_end, np.nan)
+    return s_hi
+
+
 def _solve(b, d, t, cw, ch):
     """Boxes along directions ``d`` at IoU ``t`` with their sources ``b``.
 
@@ -430,34 +469,18 @@ def _solve(b, d, t, cw, ch):
     wh = _sizes4(b)
     p = b + _ray_step(d, t)[:, None] * d * wh
     adjusted = _outside(p, cw, ch)
-    redo = adjusted | (np.abs(box_iou(b, p) - t) > IOU_TOLERANCE / 4)
-    if redo.any():
-        i = np.flatnonzero(redo)
-        bi, di, ti, cwi, chi = b[i], d[i].copy(), t[i], cw[i], ch[i]
-        ax = np.maximum(di[:, 0], 0) + np.maximum(-di[:, 2], 0)
-        ay = np.maximum(di[:, 1], 0) + np.maximum(-di[:, 3], 0)
-        inward = np.maximum(ax, ay) > 0
-        # Pure growth: the stopped path ends where the last moving edge meets the border.
-        gap = np.stack([bi[:, 0], bi[:, 1], cwi - bi[:, 2], chi - bi[:, 3]], axis=1)  # (K, 4)
-        rate = np.abs(di) * wh[i]
-        with np.errstate(divide="ignore", invalid="ignore"):
-            reach = np.where(rate > 0, gap / rate, 0.0)
-        s_end = np.where(np.isfinite(cwi) & np.isfinite(chi), reach.max(axis=1), np.inf)
-        # Without a canvas, IoU(s) <= 1 / (1 + s max(gx, gy)) < t at this step.
-        g = np.maximum(di[:, 2] - di[:, 0], di[:, 3] - di[:, 1])
-        with np.errstate(divide="ignore", invalid="ignore"):
-            s_free = 2 * (1 / ti - 1) / g
-        s_hi = np.where(inward, 1 / np.where(inward, np.maximum(ax, ay), 1.0), np.where(np.isinf(s_end), s_free, s_end))
-        floor = np.where(inward, 0.0, box_iou(bi, _path(bi, di * wh[i], np.where(np.isfinite(s_hi), s_hi, 0.0), cwi, chi)))
-        turn = ~inward & (floor > ti)
+    # Boxes the canvas stops, and (rarely) closed-form steps that lost precision, go to bisection.
+    redo = np.flatnonzero(adjusted | (np.abs(box_iou(b, p) - t) > IOU_TOLERANCE / 4))
+    if redo.size:
+        bi, di, ti, cwi, chi, whi = b[redo], d[redo].copy(), t[redo], cw[redo], ch[redo], wh[redo]
+        s_hi = _bracket(bi, di, whi, ti, cwi, chi)
+        turn = np.isnan(s_hi)
         if turn.any():
             # No step reaches the target: move every edge into the source instead.
             di[turn] = np.abs(di[turn]) * np.array([1.0, 1.0, -1.0, -1.0])
-            ax = np.abs(di[turn, 0]) + np.abs(di[turn, 2])
-            ay = np.abs(di[turn, 1]) + np.abs(di[turn, 3])
-            s_hi[turn] = 1 / np.maximum(ax, ay)
-        p[i] = _bisect(bi, di * wh[i], ti, cwi, chi, s_hi)
-        adjusted[i] |= turn
+            s_hi[turn] = _bracket(bi[turn], di[turn], whi[turn], ti[turn], cwi[turn], chi[turn])
+        p[redo] = _bisect(bi, di * whi, ti, cwi, chi, s_hi)
+        adjusted[redo] |= turn
     iou = box_iou(b, p)
     err = np.abs(iou - t)
     if n and err.max() > IOU_TOLERANCE:
@@ -666,7 +689,7 @@ def gaussian_edges(boxes, sigma: float, *, rng: np.random.Generator, canvas=None
     >>> r.boxes.tolist(), r.iou.tolist()
     ([[0.0, 0.0, 10.0, 20.0]], [1.0])
     """
-    check_number("sigma", sigma, lo=0)
+    _arg(check_number, "sigma", sigma, lo=0)
     b = as_boxes(boxes)
     _check_sources(b)
     wh = _sizes4(b)
@@ -698,8 +721,8 @@ def gaussian_center_size(
     -------
     Perturbed
     """
-    check_number("center", center, lo=0)
-    check_number("size", size, lo=0)
+    _arg(check_number, "center", center, lo=0)
+    _arg(check_number, "size", size, lo=0)
     b = as_boxes(boxes)
     _check_sources(b)
     cw, ch = _canvas_arrays(canvas, len(b))
@@ -741,8 +764,8 @@ def uniform_shift_scale(
     -------
     Perturbed
     """
-    check_number("shift", shift, lo=0)
-    check_number("scale", scale, lo=0, hi=1, hi_open=True)
+    _arg(check_number, "shift", shift, lo=0)
+    _arg(check_number, "scale", scale, lo=0, hi=1, hi_open=True)
     b = as_boxes(boxes)
     _check_sources(b)
     cw, ch = _canvas_arrays(canvas, len(b))
@@ -847,7 +870,7 @@ def _random_boxes(cw, ch, size, aspect, rng) -> np.ndarray:
 
 
 def _check_fraction_range(value, name: str, *, lo_open: bool = True) -> tuple[float, float]:
-    check_range(name, tuple(value), lo=0, lo_open=lo_open, hi=1)
+    _arg(check_range, name, tuple(value), lo=0, lo_open=lo_open, hi=1)
     return float(value[0]), float(value[1])
 
 
@@ -910,10 +933,10 @@ def background_boxes(
         When fewer than ``n`` boxes could be placed (the truth leaves no room).
     """
     t = as_boxes(truth)
-    check_number("n", n, lo=0, integer=True)
-    check_number("max_iou", max_iou, lo=0, lo_open=True, hi=1)
+    _arg(check_number, "n", n, lo=0, integer=True)
+    _arg(check_number, "max_iou", max_iou, lo=0, lo_open=True, hi=1)
     size = _check_fraction_range(size, "size")
-    check_range("aspect", tuple(aspect), lo=0, lo_open=True)
+    _arg(check_range, "aspect", tuple(aspect), lo=0, lo_open=True)
     cw, ch = _canvas_arrays(canvas, 1)
     boxes, _, other, short = _place_background(
         t, np.zeros(len(t), dtype=np.int64), np.array([n]), cw, ch, max_iou, size, aspect, rng
@@ -1030,7 +1053,7 @@ def relabel(labels, rate: float, classes, *, rng: np.random.Generator) -> Relabe
     >>> int(r.changed.sum()), bool(np.all((r.labels != r.original) == r.changed))
     (2, True)
     """
-    check_number("rate", rate, lo=0, hi=1)
+    _arg(check_number, "rate", rate, lo=0, hi=1)
     lab = np.asarray(labels, dtype=np.int64).reshape(-1)
     cls = np.unique(np.asarray(classes, dtype=np.int64).reshape(-1))
     if not np.isin(lab, cls).all():
@@ -1111,12 +1134,12 @@ def pad_with_noise(
     n = len(b)
     if lab.size != n:
         raise ValueError(f"'labels' must have one entry per box ({n}) (got {lab.size})")
-    check_number("length", length, lo=n, integer=True)
-    check_number("jittered", jittered, lo=0, hi=1)
+    _arg(check_number, "length", length, lo=n, integer=True)
+    _arg(check_number, "jittered", jittered, lo=0, hi=1)
     if np.any(lab == noise_label):
         raise ValueError(f"'noise_label' {noise_label} is also a true label")
     size = _check_fraction_range(size, "size")
-    check_range("aspect", tuple(aspect), lo=0, lo_open=True)
+    _arg(check_range, "aspect", tuple(aspect), lo=0, lo_open=True)
     m = int(length) - n
     k_jit = _count(jittered, m) if n else 0
     cw, ch = _canvas_arrays(canvas, max(n, 1))
@@ -1165,7 +1188,7 @@ def detection_scores(positive, overlap: float, *, rng: np.random.Generator) -> n
     >>> bool(s[0::2].min() > s[1::2].max())
     True
     """
-    check_number("overlap", overlap, lo=0, hi=1)
+    _arg(check_number, "overlap", overlap, lo=0, hi=1)
     pos = np.asarray(positive, dtype=bool).reshape(-1)
     width = 1.0 / (2.0 - overlap)
     u = rng.random(pos.size)  # [0, 1)
@@ -1227,7 +1250,7 @@ class DetectorSpec:
     keep_inside: bool = True
 
     def __post_init__(self):
-        from synthgen.errors import ConfigError, check_choice
+        from synthgen.errors import check_choice
 
         for key in ("miss", "localization", "duplicates", "relabel", "score_overlap"):
             check_number(f"jitter.{key}", getattr(self, key), lo=0, hi=1)
@@ -1349,7 +1372,8 @@ def simulate_detections(
     )
     if bg_img.size and cls.size == 0:
         raise ValueError("background boxes need at least one class ('classes' is empty)")
-    parts.append((bg, np.zeros(bg_img.size, dtype=np.int64), bg_img, "background", np.full(bg_img.size, -1), np.full(bg_img.size, np.nan), bg_other))
+    k_bg = bg_img.size
+    parts.append((bg, np.zeros(k_bg, dtype=np.int64), bg_img, "background", np.full(k_bg, -1), np.full(k_bg, np.nan), bg_other))
 
     boxes = np.concatenate([p[0] for p in parts]).reshape(-1, 4)
     out_lab = np.concatenate([p[1] for p in parts]).astype(np.int64)

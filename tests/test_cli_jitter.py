@@ -137,3 +137,16 @@ def test_missing_output_directory_exits_2(tmp_path):
     res = run("jitter", ds, "--out", tmp_path / "no" / "pred.json")
     assert res.exit_code == 2 and "directory does not exist" in res.stderr
     assert sorted(os.listdir(tmp_path)) == ["ds"]
+
+
+def test_option_defaults_are_the_library_defaults(tmp_path):
+    """Without options the command runs the library's default detector spec."""
+    import dataclasses
+
+    from synthgen.jitter import DetectorSpec
+
+    ds = dataset(tmp_path / "ds")
+    assert run("jitter", ds, "--out", tmp_path / "p.json").exit_code == 0
+    spec = json.loads((tmp_path / "p.truth.json").read_text())["spec"]
+    expected = {f.name: getattr(DetectorSpec(), f.name) for f in dataclasses.fields(DetectorSpec)}
+    assert spec == {k: list(v) if isinstance(v, tuple) else v for k, v in expected.items()}

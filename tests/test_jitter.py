@@ -423,7 +423,7 @@ def test_pad_with_noise_no_truth_is_all_random():
 
 def test_pad_with_noise_rejects_short_length_and_clashing_label():
     """The padded length must hold the true boxes, and the noise label must be new."""
-    with pytest.raises(ConfigError, match="'length'"):
+    with pytest.raises(ValueError, match="'length' must be a whole number >= 3"):
         pad_with_noise([[0, 0, 1, 1]] * 3, [1, 1, 1], 2, rng=np.random.default_rng(0), canvas=(5, 5), noise_label=0)
     with pytest.raises(ValueError, match="also a true label"):
         pad_with_noise([[0, 0, 1, 1]], [0], 2, rng=np.random.default_rng(0), canvas=(5, 5), noise_label=0)
@@ -588,3 +588,20 @@ def test_coco_recall_single_class_overall():
     total = len(truth)
     assert ev.eval["recall"][0, 0, 0, -1] == (total - len(det.missed)) / total
     assert len(det.missed) == 36  # floor(0.3 * 120 + 0.5)
+
+
+def test_every_function_accepts_empty_input():
+    """Empty box lists give empty results of the right shapes everywhere."""
+    rng = np.random.default_rng(0)
+    empty = np.zeros((0, 4))
+    assert gaussian_edges(empty, 0.1, rng=rng).boxes.shape == (0, 4)
+    assert gaussian_center_size(empty, 0.1, 0.1, rng=rng).boxes.shape == (0, 4)
+    assert uniform_shift_scale(empty, 0.1, 0.1, rng=rng, canvas=(8, 8)).boxes.shape == (0, 4)
+    assert duplicates(empty, (0.5, 0.6), rng=rng).boxes.shape == (0, 4)
+    assert duplicates([[0, 0, 4, 4]], (0.5, 0.6), rng=rng, counts=0).boxes.shape == (0, 4)
+    assert background_boxes(empty, 0, rng=rng, canvas=(8, 8)).boxes.shape == (0, 4)
+    assert near_misses([[0, 0, 4, 4]], [], (0.2, 0.3), rng=rng).boxes.shape == (0, 4)
+    assert relabel([], 0.5, [1, 2], rng=rng).labels.shape == (0,)
+    assert len(pad_with_noise(empty, [], 0, rng=rng, canvas=(8, 8), noise_label=0)) == 0
+    det = simulate_detections(empty, [], np.zeros((0, 2)), rng=rng, spec=DetectorSpec(miss=0.5, duplicates=0.5))
+    assert len(det) == 0 and det.missed.shape == (0,)
