@@ -1296,7 +1296,8 @@ def simulate_detections(
     labels : array_like of int, shape (N,)
         Their class labels.
     canvas : (width, height) or array_like of shape (M, 2)
-        Size of each image in pixels, indexed by ``image``.
+        Size of each image in pixels, indexed by ``image``; one pair applies
+        to every image.
     rng : numpy.random.Generator
     spec : DetectorSpec
         Error rates and ranges.
@@ -1324,7 +1325,8 @@ def simulate_detections(
         raise ValueError(f"'labels' must have one entry per box ({n}) (got {lab.size})")
     img = np.zeros(n, dtype=np.int64) if image is None else np.asarray(image, dtype=np.int64).reshape(-1)
     c = np.asarray(canvas, dtype=np.float64)
-    c = c.reshape(1, 2) if c.shape == (2,) else c
+    if c.shape == (2,):  # one size for every image
+        c = np.broadcast_to(c, (int(img.max()) + 1 if img.size else 1, 2))
     n_img = len(c)
     if img.size != n or (n and (img.min() < 0 or img.max() >= n_img)):
         raise ValueError(f"'image' must give each box an index in 0 .. {n_img - 1}")
