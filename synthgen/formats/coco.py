@@ -1,0 +1,283 @@
+"""COCO JSON: writer, reader and the ``[x, y, w, h]`` box conversions.
+
+Rule
+----
+* COCO's ``bbox`` is ``[x0, y0, x1 - x0, y1 - y0]`` in continuous image
+  coordinates (see :mod:`synthgen.geometry`), floats, measured from the
+  top-left corner of the image: ``[0, 0, 1, 1]`` is exactly the first pixel.
+  :func:`bbox_from_xyxy` and :func:`xyxy_from_bbox` are the only conversions.
+* Image ids and annotation ids start at 1 (an id of 0 never matches in the
+  reference evaluator); every annotation has ``iscrowd``.
+* synthgen writes each annotation's ``segmentation`` as compressed RLE
+  (:mod:`synthgen.formats.rle`, ``counts`` a str) of the visible region's
+  support, for every object, occluded or not: one rule, and the tight box of the
+  mask is the object's pixel box.  The reader also accepts polygon
+  segmentations written by other tools.
+* synthgen's own facts sit under the extra key ``"synthgen"`` of images and
+  annotations; readers that do not know it ignore it.
+
+Files are written atomically: to a temporary file in the same directory, flushed
+and fsync'ed, then renamed over the final name, so a crash never leaves a
+truncated file under the final name.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+import tempfile
+from collections.abc import Iterator
+from pathlib import Path
+
+import numpy as np
+import orjson
+
+from synthgen.errors import InputFileError
+from synthgen.geometry import as_boxes
+
+__all__ = [
+    "write_coco",
+    "read_coco",
+    "structure_problems",
+    "bbox_from_xyxy",
+    "xyxy_from_bbox",
+    "write_bytes_atomic",
+]
+
+
+def bbox_from_xyxy(boxes) -> list[list[float]]:
+    """COCO ``bbox`` lists from xyxy boxes.
+
+    Parameters
+    ----------
+    boxes : array_like of shape (N, 4)
+        Boxes ``(x0, y0, x1, y1)`` in pixels.
+
+    Returns
+    -------
+    list of N lists ``[x0, y0, x1 - x0, y1 - y0]`` of Python floats.
+
+    Examples
+    --------
+    >>> bbox_from_xyxy([[3, 2, 7, 5]])
+    [[3.0, 2.0, 4.0, 3.0]]
+    """
+    b = as_boxes(boxes)
+    out = np.empty_like(b)
+    out[:, :2] = b[:, :2]
+    out[:, 2:] = b[:, 2:] - b[:, :2]
+    return out.tolist()
+
+
+def xyxy_from_bbox(bboxes) -> np.ndarray:
+    """xyxy boxes from COCO ``bbox`` values.
+
+    Parameters
+    ----------
+    bboxes : array_like of shape (N, 4)
+        ``[x, y, w, h]`` rows in pixels.
+
+    Returns
+    -------
+    ndarray of float64, shape (N, 4)
+        ``(x, y, x + w, y + h)``.
+
+    Examples
+    --------
+    >>> xyxy_from_bbox([[3, 2, 4, 3]]).tolist()
+    [[3.0, 2.0, 7.0, 5.0]]
+    """
+    b = as_boxes(bboxes)
+    out = b.copy()
+    out[:, 2:] = b[:, :2] + b[:, 2:]
+    return out
+
+
+def write_bytes_atomic(path, data: bytes) -> None:
+    """Write ``data`` to ``path`` through a fsync'ed temporary file and a rename.
+
+    Parameters
+    ----------
+    path : str or Path
+        Final file name; its directory must exist.
+    data : bytes
+    """
+    path = Path(path)
+    fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
+    try:
+        with os.fdopen(fd, "wb") as f:
+            f.write(data)
+            f.flush()
+            os.fsync(f.fileno())
+        os.replace(tmp, path)
+    except BaseException:
+        try:
+            os.unlink(tmp)
+        except FileNotFoundError:
+            pass
+        raise
+    try:  # make the rename itself durable
+        dfd = os.open(path.parent, os.O_RDONLY)
+    except OSError:
+        return
+    try:
+        os.fsync(dfd)
+    except OSError:
+        pass
+    finally:
+        os.close(dfd)
+
+
+def write_coco(path, coco: dict, *, indent: bool = False) -> None:
+    """Write a COCO dict as JSON, atomically.
+
+    Parameters
+    ----------
+    path : str or Path
+        Output file, e.g. ``DIR/annotations.json``.
+    coco : dict
+        ``{"images": [...], "annotations": [...], "categories": [...], ...}``.
+        numpy scalars and arrays are written as JSON numbers and lists.
+    indent : bool
+        Indent by two spaces (larger files, easier to read).
+    """
+    option = orjson.OPT_SERIALIZE_NUMPY
+    if indent:
+        option |= orjson.OPT_INDENT_2
+    write_bytes_atomic(path, orjson.dumps(coco, option=option))
+
+
+def read_coco(path) -> dict:
+    """Read a COCO JSON file and check its structure.
+
+    Parameters
+    ----------
+    path : str or Path
+
+    Returns
+    -------
+    dict
+        The parsed file.
+
+    Raises
+    ------
+    synthgen.errors.InputFileError
+        When the file is missing, is not JSON, or breaks the structure of a
+        COCO file; the message names the file, the record and the rule.
+    """
+    path = Path(path)
+    try:
+        raw = path.read_bytes()
+    except OSError as e:
+        raise InputFileError(path, f"cannot be read ({e.strerror or e})") from None
+    try:
+        coco = orjson.loads(raw)
+    except orjson.JSONDecodeError as e:
+        raise InputFileError(path, f"is not valid JSON at line {e.lineno}, column {e.colno} ({e.msg})") from None
+    for record, rule, value in structure_problems(coco):
+        raise InputFileError(path, f"{record}: {rule} (got {_show(value)})")
+    return coco
+
+
+def _show(value: object) -> str:
+    text = repr(value)
+    return text if len(text) <= 60 else text[:57] + "..."
+
+
+def _is_int(v) -> bool:
+    return isinstance(v, int) and not isinstance(v, bool)
+
+
+def _is_num(v) -> bool:
+    return isinstance(v, (int, float)) and not isinstance(v, bool)
+
+
+def _name(kind: str, i: int, rec) -> str:
+    if isinstance(rec, dict) and "id" in rec:
+        return f"{kind}[{i}] (id {_show(rec['id'])})"
+    return f"{kind}[{i}]"
+
+
+def structure_problems(coco) -> Iterator[tuple[str, str, object]]:
+    """Ways in which ``coco`` is not shaped like a COCO file.
+
+    Only types and required keys are checked here; whether boxes lie inside
+    their images, ids are unique etc. is :mod:`synthgen.check`'s job.
+
+    Parameters
+    ----------
+    coco : object
+        A parsed JSON document.
+
+    Yields
+    ------
+    (record, rule, value)
+        ``record`` names the place (``"annotations[4] (id 5)"``), ``rule`` what
+        must hold, ``value`` what was found.
+    """
+    if not isinstance(coco, dict):
+        yield "top level", "must be a JSON object", type(coco).__name__
+        return
+    for key in ("images", "annotations", "categories"):
+        if not isinstance(coco.get(key), list):
+            yield "top level", f"'{key}' must be a list", coco.get(key, "<missing>")
+    images = coco.get("images") if isinstance(coco.get("images"), list) else []
+    for i, im in enumerate(images):
+        rec = _name("images", i, im)
+        if not isinstance(im, dict):
+            yield rec, "must be an object", im
+            continue
+        if not _is_int(im.get("id")):
+            yield rec, "'id' must be an integer", im.get("id", "<missing>")
+        if not isinstance(im.get("file_name"), str):
+            yield rec, "'file_name' must be a string", im.get("file_name", "<missing>")
+        for key in ("width", "height"):
+            if not _is_int(im.get(key)):
+                yield rec, f"'{key}' must be an integer", im.get(key, "<missing>")
+    anns = coco.get("annotations") if isinstance(coco.get("annotations"), list) else []
+    for i, a in enumerate(anns):
+        rec = _name("annotations", i, a)
+        if not isinstance(a, dict):
+            yield rec, "must be an object", a
+            continue
+        for key in ("id", "image_id", "category_id"):
+            if not _is_int(a.get(key)):
+                yield rec, f"'{key}' must be an integer", a.get(key, "<missing>")
+        bbox = a.get("bbox")
+        if not (isinstance(bbox, list) and len(bbox) == 4 and all(_is_num(v) for v in bbox)):
+            yield rec, "'bbox' must be a list of 4 numbers [x, y, w, h]", bbox if bbox is not None else "<missing>"
+        if "area" in a and not _is_num(a["area"]):
+            yield rec, "'area' must be a number", a["area"]
+        if "iscrowd" in a and a["iscrowd"] not in (0, 1):
+            yield rec, "'iscrowd' must be 0 or 1", a["iscrowd"]
+        seg = a.get("segmentation")
+        if seg is not None and not _segmentation_ok(seg):
+            yield rec, "'segmentation' must be a polygon list or an RLE {size: [h, w], counts}", seg
+    cats = coco.get("categories") if isinstance(coco.get("categories"), list) else []
+    for i, c in enumerate(cats):
+        rec = _name("categories", i, c)
+        if not isinstance(c, dict):
+            yield rec, "must be an object", c
+            continue
+        if not _is_int(c.get("id")):
+            yield rec, "'id' must be an integer", c.get("id", "<missing>")
+        if not isinstance(c.get("name"), str):
+            yield rec, "'name' must be a string", c.get("name", "<missing>")
+
+
+def _segmentation_ok(seg) -> bool:
+    if isinstance(seg, dict):
+        size = seg.get("size")
+        counts = seg.get("counts")
+        return (
+            isinstance(size, list)
+            and len(size) == 2
+            and all(_is_int(v) and v >= 0 for v in size)
+            and (isinstance(counts, str) or (isinstance(counts, list) and all(_is_int(v) for v in counts)))
+        )
+    if isinstance(seg, list):
+        return all(
+            isinstance(p, list) and len(p) % 2 == 0 and all(_is_num(v) and math.isfinite(v) for v in p)
+            for p in seg
+        )
+    return False
