@@ -139,6 +139,44 @@ def make(
     )
 
 
+@app.command()
+@reported
+def score(
+    dataset: Annotated[Path, typer.Argument(help="Dataset directory (reads its annotations.json) or a COCO JSON file.")],
+    predictions: Annotated[
+        Path, typer.Argument(help="COCO results JSON: an array of {image_id, category_id, bbox: [x, y, w, h], score}.")
+    ],
+    by: Annotated[
+        Optional[list[str]],
+        typer.Option(
+            "--by",
+            help="Also score per bin of a per-object fact: FACT (default bins) or FACT:E0,E1,... "
+            "(e.g. size:0,8,16,32,inf). Facts: area, size, visible_fraction, max_iou, neighbours, "
+            "contrast, kind, truncated, ... Repeatable.",
+        ),
+    ] = None,
+    json_out: Annotated[Optional[Path], typer.Option("--json", help="Write every metric to this JSON file.")] = None,
+    plot: Annotated[
+        Optional[Path],
+        typer.Option("--plot", help="Write a PNG of recall and AP per bin, one 480x360 px panel per --by fact, 3 per row."),
+    ] = None,
+) -> None:
+    """Score detections by the COCO box rules, overall, per category and per bin of a fact."""
+    from synthgen.report_score import plot_slices, print_report
+    from synthgen.score import score_files
+
+    if plot is not None and not by:
+        raise UserError("option '--plot' needs at least one --by FACT to plot")
+    evaluation, slices = score_files(dataset, predictions, by or ())
+    print_report(evaluation, slices)
+    if json_out is not None:
+        import orjson
+
+        json_out.write_bytes(orjson.dumps(evaluation.to_dict(slices), option=orjson.OPT_INDENT_2))
+    if plot is not None:
+        plot_slices(slices, plot, title=f"{predictions.name} on {dataset.name}")
+
+
 def main() -> None:
     """Entry point of the ``synthgen`` console script."""
     app(prog_name="synthgen")

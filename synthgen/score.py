@@ -76,6 +76,7 @@ __all__ = [
     "parse_slice_spec",
     "read_predictions",
     "read_ground_truth",
+    "score_files",
 ]
 
 #: IoU thresholds 0.50, 0.55, ..., 0.95, built exactly as the reference does
@@ -108,12 +109,12 @@ STAT_NAMES = (
     "AR_large",
 )
 
-#: Default bin edges per numeric fact (units: px for size, px^2 for area,
-#: degrees for rotation, fractions otherwise).  Numeric facts not listed get
-#: quintile edges of the ground truth's values.
+#: Default bin edges per numeric fact (degrees for rotation, fractions
+#: otherwise).  ``size`` (px) and ``area`` (px^2) default to powers of 2 and of
+#: 4 spanning the objects' values (:data:`GEOMETRIC_BASE`); numeric facts not
+#: listed get quintile edges of the objects' values.
+GEOMETRIC_BASE = {"size": 2.0, "area": 4.0}
 DEFAULT_EDGES: dict[str, tuple[float, ...]] = {
-    "area": (0.0, 16.0**2, 32.0**2, 64.0**2, 96.0**2, 128.0**2, math.inf),
-    "size": (0.0, 8.0, 16.0, 32.0, 64.0, 128.0, math.inf),
     "visible_fraction": (0.0, 0.25, 0.5, 0.75, 0.9, 1.0),
     "max_iou": (0.0, 0.1, 0.3, 0.5, 0.7, 1.0),
     "neighbours": (0.0, 1.0, 2.0, 4.0, 8.0, math.inf),
@@ -882,8 +883,9 @@ class Evaluation:
         edges : sequence of float, optional
             Increasing bin edges for a numeric fact: bins ``[e0, e1)``, ...,
             ``[e_{n-1}, e_n]`` (the last one closed); objects outside every
-            bin are in none.  Defaults to :data:`DEFAULT_EDGES` or, for other
-            numeric facts, quintiles of the values.  Categorical facts (strings,
+            bin are in none.  Defaults to :data:`DEFAULT_EDGES`, powers of 2
+            (size) or 4 (area) spanning the values, or, for other numeric
+            facts, quintiles of the values.  Categorical facts (strings,
             booleans) are binned by value and take no edges.
 
         Returns
@@ -961,6 +963,8 @@ class Evaluation:
             if fact in DEFAULT_EDGES:
                 return np.asarray(DEFAULT_EDGES[fact], dtype=np.float64)
             finite = values[np.isfinite(values)]
+            if fact in GEOMETRIC_BASE:
+                return _geometric_edges(finite, GEOMETRIC_BASE[fact])
             e = np.unique(np.quantile(finite, np.linspace(0, 1, 6)))
             return e if len(e) >= 2 else np.array([e[0], e[0]], dtype=np.float64)
         e = np.asarray(list(edges), dtype=np.float64)
@@ -1002,6 +1006,30 @@ def _xyxy(b: np.ndarray) -> np.ndarray:
     return np.concatenate([b[:, :2], b[:, :2] + b[:, 2:]], axis=1)
 
 
+def _geometric_edges(values: np.ndarray, base: float) -> np.ndarray:
+    """Powers of ``base`` spanning the positive values, with 0 first when some value is below the first power.
+
+    Examples
+    --------
+    >>> _geometric_edges(np.array([1.5, 3.0, 7.9]), 2.0).tolist()
+    [1.0, 2.0, 4.0, 8.0]
+    >>> _geometric_edges(np.array([0.0, 5.0]), 2.0).tolist()
+    [0.0, 4.0, 8.0]
+    """
+    positive = values[values > 0]
+    if positive.size == 0:
+        return np.array([0.0, 1.0])
+    lb = math.log(base)
+    k0 = math.floor(math.log(positive.min()) / lb)
+    k1 = max(math.ceil(math.log(positive.max()) / lb), k0 + 1)
+    e = base ** np.arange(k0, k1 + 1, dtype=np.float64)
+    while e[0] > positive.min():  # guard against rounding in the logarithms
+        e = np.r_[e[0] / base, e]
+    while e[-1] < positive.max():
+        e = np.r_[e, e[-1] * base]
+    return np.r_[0.0, e] if (values < e[0]).any() else e
+
+
 def _bin_masks(values: np.ndarray, e: np.ndarray) -> np.ndarray:
     """(A, N) membership of values in bins ``[e_i, e_{i+1})``, the last bin closed."""
     n_bins = len(e) - 1
@@ -1014,7 +1042,7 @@ def _bin_masks(values: np.ndarray, e: np.ndarray) -> np.ndarray:
 def _fmt_edge(x: float) -> str:
     if math.isinf(x):
         return "inf" if x > 0 else "-inf"
-    return f"{x:g}"
+    return f"{x:.4g}"
 
 
 def _bin_label(e: np.ndarray, i: int) -> str:
@@ -1147,3 +1175,29 @@ def parse_slice_spec(spec: str) -> tuple[str, tuple[float, ...] | None]:
     if len(edges) < 2 or any(math.isnan(x) for x in edges) or any(b <= a for a, b in zip(edges, edges[1:])):
         raise UserError(f"slice '{spec}': bin edges must be at least two strictly increasing numbers (got '{rest}')")
     return fact, edges
+
+
+def score_files(dataset, predictions, by: Sequence[str] = ()) -> tuple[Evaluation, dict[str, list[BinResult]]]:
+    """Score a predictions file against a dataset, with slices.
+
+    Parameters
+    ----------
+    dataset : path-like
+        Dataset directory or COCO JSON file (:func:`read_ground_truth`).
+    predictions : path-like
+        COCO results JSON (:func:`read_predictions`).
+    by : sequence of str
+        Slice specs ``FACT`` or ``FACT:E0,E1,...`` (:func:`parse_slice_spec`).
+
+    Returns
+    -------
+    (Evaluation, dict of fact -> list of BinResult)
+    """
+    gt, gt_path = read_ground_truth(dataset)
+    preds = read_predictions(predictions)
+    ev = evaluate(gt, preds, gt_name=str(gt_path), pred_name=str(predictions))
+    slices = {}
+    for spec in by:
+        fact, edges = parse_slice_spec(spec)
+        slices[fact] = ev.slice_by(fact, edges)
+    return ev, slices

@@ -1,0 +1,95 @@
+"""`synthgen score` as a user meets it: tables, JSON, figure, exit codes."""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+from PIL import Image
+from typer.testing import CliRunner
+
+from synthgen.cli import app
+
+
+def run(*args):
+    return CliRunner().invoke(app, [str(a) for a in args])
+
+
+def _predictions(ds, tmp_path, shift=0.0):
+    gt = json.loads((ds / "annotations.json").read_text())
+    preds = [{"image_id": a["image_id"], "category_id": a["category_id"],
+              "bbox": [a["bbox"][0] + shift * a["bbox"][2], *a["bbox"][1:]], "score": 0.9} for a in gt["annotations"]]
+    path = tmp_path / "pred.json"
+    path.write_text(json.dumps(preds))
+    return path, preds
+
+
+def test_score_prints_tables_and_writes_json(small_dataset, tmp_path):
+    """Ground truth fed back scores AP 1.0 in the table and in --json (REFERENCE.md: COCO-style AP)."""
+    ds, _ = small_dataset
+    pred, _ = _predictions(ds, tmp_path)
+    res = run("score", ds, pred, "--by", "size", "--by", "kind", "--json", tmp_path / "out.json")
+    assert res.exit_code == 0, res.output
+    assert "COCO box metrics" in res.stdout and "by kind" in res.stdout
+    out = json.loads((tmp_path / "out.json").read_text())
+    assert abs(out["stats"]["AP"] - 1.0) < 1e-9
+    assert sum(b["n_gt"] for b in out["slices"]["kind"]) == out["counts"]["ground_truth"]
+
+
+def test_score_plot_is_a_png_of_the_stated_size(small_dataset, tmp_path):
+    """--plot writes a PNG of 480x360 px per --by panel with a non-blank plot area."""
+    ds, _ = small_dataset
+    pred, _ = _predictions(ds, tmp_path, shift=0.2)
+    res = run("score", ds, pred, "--by", "size", "--by", "visible_fraction", "--by", "kind",
+              "--plot", tmp_path / "f.png")
+    assert res.exit_code == 0, res.output
+    with Image.open(tmp_path / "f.png") as im:
+        assert im.format == "PNG" and im.size == (1440, 360)
+        img = np.asarray(im.convert("RGB")).astype(int)
+    panel = img[40:-60, 60:460]
+    assert (panel.sum(axis=2) < 600).mean() > 0.002  # some non-white ink inside the axes
+    assert len(np.unique(panel.reshape(-1, 3), axis=0)) > 20
+
+
+def test_malformed_predictions_exit_2_naming_the_record(small_dataset, tmp_path):
+    """A prediction with a negative width exits 2 with one line naming the file and record."""
+    ds, _ = small_dataset
+    pred, preds = _predictions(ds, tmp_path)
+    preds[3]["bbox"][2] = -1.0
+    pred.write_text(json.dumps(preds))
+    res = run("score", ds, pred)
+    assert res.exit_code == 2
+    assert "pred.json: record 3: 'bbox' must be" in res.stderr and len(res.stderr.strip().splitlines()) == 1
+
+
+def test_predictions_not_a_list_exit_2(small_dataset, tmp_path):
+    """A JSON object instead of an array of records exits 2."""
+    ds, _ = small_dataset
+    (tmp_path / "p.json").write_text('{"image_id": 1}')
+    res = run("score", ds, tmp_path / "p.json")
+    assert res.exit_code == 2 and "must be a JSON array" in res.stderr
+
+
+def test_unknown_fact_and_bad_edges_exit_2(small_dataset, tmp_path):
+    """Slicing by a fact no object has, or by decreasing edges, exits 2."""
+    ds, _ = small_dataset
+    pred, _ = _predictions(ds, tmp_path)
+    res = run("score", ds, pred, "--by", "shininess")
+    assert res.exit_code == 2 and "'shininess' is not recorded" in res.stderr
+    res = run("score", ds, pred, "--by", "size:8,4")
+    assert res.exit_code == 2 and "strictly increasing" in res.stderr
+
+
+def test_plot_without_by_exits_2(small_dataset, tmp_path):
+    """--plot needs a --by fact."""
+    ds, _ = small_dataset
+    pred, _ = _predictions(ds, tmp_path)
+    res = run("score", ds, pred, "--plot", tmp_path / "f.png")
+    assert res.exit_code == 2 and not (tmp_path / "f.png").exists()
+
+
+def test_missing_predictions_file_exits_2(small_dataset, tmp_path):
+    """A predictions path that does not exist names the file."""
+    ds, _ = small_dataset
+    res = run("score", ds, tmp_path / "nope.json")
+    assert res.exit_code == 2 and "nope.json: cannot be read" in res.stderr
