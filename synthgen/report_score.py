@@ -11,13 +11,14 @@ from collections.abc import Mapping, Sequence
 from pathlib import Path
 
 from synthgen.errors import UserError
-from synthgen.score import STAT_NAMES, BinResult, Evaluation
+from synthgen.score import STAT_NAMES, BinResult, Evaluation, SweepPoint
 
 __all__ = [
     "PANEL_PX",
     "figure_size_px",
     "plot_slices",
     "plot_sweep",
+    "sweep_table",
     "stats_table",
     "category_table",
     "confusion_table",
@@ -125,41 +126,65 @@ def plot_slices(slices: Mapping[str, Sequence[BinResult]], path, *, title: str |
     return figure_size_px(len(facts))
 
 
-def plot_sweep(key: str, values: Sequence, evaluations: Sequence[Evaluation], path) -> tuple[int, int]:
-    """Write a PNG of AP, AP50, AP75 and AR100 across the values of a swept config key.
+def plot_sweep(points: Sequence[SweepPoint], path) -> tuple[int, int]:
+    """Write a PNG of AP, AP50, AP75 and AR100 across the subsets of a sweep.
 
     Parameters
     ----------
-    key : str
-        The varied config key (x-axis label).
-    values : sequence
-        Its value for each subset, in plotting order.
-    evaluations : sequence of Evaluation
-        One per subset, same order.
+    points : sequence of SweepPoint
+        As returned by :func:`synthgen.score.score_sweep`, in plotting order.
+        With one varied key of plain numbers the x-axis is that number;
+        otherwise each subset is a tick labelled with its varied values.
     path : path-like
 
     Returns
     -------
     (int, int)
-        Pixel size of the one-panel figure.
+        Pixel size of the one-panel figure, :data:`PANEL_PX`.
     """
+    if not points:
+        raise UserError("nothing to plot: the sweep has no subsets")
     fig, (ax,) = _new_figure(1)
-    numeric = all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in values)
-    x = list(values) if numeric else list(range(len(values)))
+    keys = list(dict.fromkeys(k for p in points for k in p.values))
+    xs = [p.values.get(keys[0]) for p in points] if len(keys) == 1 else []
+    numeric = bool(xs) and all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in xs)
+    x = xs if numeric else list(range(len(points)))
     for name, style in (("AP", "-o"), ("AP50", "-s"), ("AP75", "--s"), ("AR100", ":o")):
         i = STAT_NAMES.index(name)
-        ax.plot(x, [ev.stats[i] if ev.stats[i] >= 0 else math.nan for ev in evaluations], style, label=name)
+        ax.plot(x, [p.evaluation.stats[i] if p.evaluation.stats[i] >= 0 else math.nan for p in points], style, label=name)
     if not numeric:
         ax.set_xticks(x)
-        ax.set_xticklabels([str(v) for v in values], fontsize=8)
+        labels = [p.label or p.subset for p in points]
+        if len(keys) == 1:
+            labels = [lab.partition("=")[2] for lab in labels]
+        ax.set_xticklabels(labels, fontsize=8, rotation=30 if len(points) > 4 else 0)
     ax.set_ylim(0.0, 1.05)
-    ax.set_xlabel(key)
+    ax.set_xlabel(", ".join(keys) if keys else "subset")
     ax.set_ylabel("AP / AR")
-    ax.set_title(f"across {key}")
+    ax.set_title("across the sweep")
     ax.grid(True, alpha=0.3)
     ax.legend(fontsize=8)
     fig.savefig(Path(path), dpi=_DPI, format="png")
     return figure_size_px(1)
+
+
+def sweep_table(points: Sequence[SweepPoint]):
+    """A rich Table with one row per sweep subset."""
+    from rich.table import Table
+
+    table = Table(title="across the sweep")
+    for col in ("subset", "objects", "predictions", "AP", "AP50", "AP75", "AR100"):
+        table.add_column(col, justify="left" if col == "subset" else "right")
+    for p in points:
+        st = dict(zip(STAT_NAMES, p.evaluation.stats))
+        counts = p.evaluation.to_dict()["counts"]
+        table.add_row(
+            p.label or p.subset,
+            str(counts["ground_truth"]),
+            str(counts["predictions"]),
+            *(_num(st[n]) for n in ("AP", "AP50", "AP75", "AR100")),
+        )
+    return table
 
 
 # --------------------------------------------------------------------------- tables

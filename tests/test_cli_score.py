@@ -93,3 +93,49 @@ def test_missing_predictions_file_exits_2(small_dataset, tmp_path):
     ds, _ = small_dataset
     res = run("score", ds, tmp_path / "nope.json")
     assert res.exit_code == 2 and "nope.json: cannot be read" in res.stderr
+
+
+def test_pred_dir_scores_every_subset_of_a_sweep(small_dataset, tmp_path):
+    """--pred-dir scores each KEY=VALUE subset with its own results file, in value order, and plots one curve."""
+    import shutil
+
+    ds, _ = small_dataset
+    sweep = tmp_path / "sweep"
+    preds_dir = tmp_path / "preds"
+    preds_dir.mkdir()
+    gt = json.loads((ds / "annotations.json").read_text())
+    for shift in (0.0, 0.1, 0.3):  # IoU (1 - s) / (1 + s): 1.0, 0.818, 0.538 (REFERENCE.md: Geometry)
+        sub = sweep / f"jitter.shift={shift}"
+        shutil.copytree(ds, sub)
+        preds = [{"image_id": a["image_id"], "category_id": a["category_id"], "score": 0.9,
+                  "bbox": [a["bbox"][0] + shift * a["bbox"][2], *a["bbox"][1:]]} for a in gt["annotations"]]
+        (preds_dir / f"jitter.shift={shift}.json").write_text(json.dumps(preds))
+    res = run("score", sweep, "--pred-dir", preds_dir, "--json", tmp_path / "s.json", "--plot", tmp_path / "s.png")
+    assert res.exit_code == 0, res.output
+    out = json.loads((tmp_path / "s.json").read_text())["sweep"]
+    assert [p["values"]["jitter.shift"] for p in out] == [0.0, 0.1, 0.3]
+    ap50 = [p["stats"]["AP50"] for p in out]
+    assert abs(ap50[0] - 1) < 1e-9 and abs(ap50[2] - 1) < 1e-9  # every IoU >= 0.5
+    ap = [p["stats"]["AP"] for p in out]
+    assert ap[0] > ap[1] > ap[2]
+    with Image.open(tmp_path / "s.png") as im:
+        assert im.size == (480, 360)
+
+
+def test_pred_dir_missing_subset_file_exits_2(small_dataset, tmp_path):
+    """A sweep subset without its results file names the expected path."""
+    import shutil
+
+    ds, _ = small_dataset
+    shutil.copytree(ds, tmp_path / "sweep" / "objects.count=5")
+    (tmp_path / "preds").mkdir()
+    res = run("score", tmp_path / "sweep", "--pred-dir", tmp_path / "preds")
+    assert res.exit_code == 2 and "objects.count=5.json: predictions for sweep subset" in res.stderr
+
+
+def test_predictions_and_pred_dir_together_exit_2(small_dataset, tmp_path):
+    """Exactly one of PREDICTIONS and --pred-dir is needed."""
+    ds, _ = small_dataset
+    pred, _ = _predictions(ds, tmp_path)
+    assert run("score", ds, pred, "--pred-dir", tmp_path).exit_code == 2
+    assert run("score", ds).exit_code == 2

@@ -11,7 +11,7 @@ from rich.console import Console
 
 from synthgen.errors import UserError
 from synthgen.report_score import figure_size_px, plot_slices, plot_sweep, print_report
-from synthgen.score import evaluate
+from synthgen.score import SweepPoint, evaluate
 
 
 def _case():
@@ -60,8 +60,9 @@ def test_plot_without_slices_is_a_user_error(tmp_path):
 def test_sweep_figure(tmp_path):
     """The sweep figure is one 480x360 panel with drawn lines."""
     ev = _case()
+    points = [SweepPoint(f"objects.count={v}", {"objects.count": v}, ev, {}) for v in (4, 8, 16)]
     out = tmp_path / "sweep.png"
-    assert plot_sweep("objects.size", [4, 8, 16], [ev, ev, ev], out) == (480, 360)
+    assert plot_sweep(points, out) == (480, 360)
     with Image.open(out) as im:
         assert im.size == (480, 360)
     assert _plot_area_is_drawn(out, 1)
