@@ -50,6 +50,7 @@ each bin's objects are found and ranked.
 
 from __future__ import annotations
 
+import functools
 import math
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
@@ -598,40 +599,48 @@ def _match(pb: _Problem, gt_ignore: np.ndarray, crowd: np.ndarray) -> np.ndarray
     -------
     ndarray of int, shape (A, T, D)
         Index of the matched ground truth, or -1.
+
+    Notes
+    -----
+    A detection's choice among its free candidates with IoU >= t is the
+    maximum of one integer key per pair: ``counted * big + iou_rank * width +
+    position``, where ``iou_rank`` is the pair's IoU's rank among all distinct
+    IoUs and ``position`` its place in file order within the detection's
+    candidates (``width`` bounds it).  So an object that counts beats any
+    ignored one, then the higher IoU wins, then the later annotation, which is
+    the reference's order of preference.
     """
     n_a, n_g = gt_ignore.shape
     n_t = len(IOU_THRESHOLDS)
     n_d = len(pb.rec)
     matched = np.full((n_a, n_t, n_d), -1, dtype=np.int64)
+    if len(pb.p_det) == 0:
+        return matched
     taken = np.zeros((n_a, n_t, n_g), dtype=bool)
     thr = IOU_THRESHOLDS[None, :, None]
+    new_seg = np.r_[True, pb.p_det[1:] != pb.p_det[:-1]]
+    seg_first = np.flatnonzero(new_seg)
+    position = np.arange(len(pb.p_det)) - np.repeat(seg_first, np.diff(np.r_[seg_first, len(pb.p_det)]))
+    width = int(position.max()) + 1
+    iou_rank = np.unique(pb.p_iou, return_inverse=True)[1].reshape(-1)
+    big = (int(iou_rank.max()) + 1) * width
+    key_base = iou_rank * width + position  # (P,)
     for r in range(len(pb.rank_start) - 1):
         p0, p1 = pb.rank_start[r], pb.rank_start[r + 1]
         if p0 == p1:
             continue
         # Within one rank each image-category group has at most one detection,
         # so the detections of a rank are matched simultaneously.
-        pd = pb.p_det[p0:p1]
         pg = pb.p_gt[p0:p1]
-        piou = pb.p_iou[p0:p1]
-        starts = np.flatnonzero(np.r_[True, pd[1:] != pd[:-1]])
-        seg = np.cumsum(np.r_[False, pd[1:] != pd[:-1]])  # (P,) segment of each pair
-        ig = gt_ignore[:, pg][:, None, :]  # (A, 1, P)
-        free = ~taken[:, :, pg] | crowd[pg]  # (A, T, P)
-        eligible = free & (piou >= thr)  # (A, T, P)
-        counted = eligible & ~ig
-        has_counted = np.logical_or.reduceat(counted, starts, axis=2)  # (A, T, S)
-        # Objects that count win over ignored ones, whatever their IoU.
-        chosen = np.where(has_counted[:, :, seg], counted, eligible)
-        val = np.where(chosen, piou, -1.0)
-        best = np.maximum.reduceat(val, starts, axis=2)  # (A, T, S)
-        pick = chosen & (val == best[:, :, seg])
-        # Among equal IoUs the later ground truth (file order) wins.
-        last = np.maximum.reduceat(np.where(pick, np.arange(p1 - p0), -1), starts, axis=2)  # (A, T, S)
-        a_i, t_i, s_i = np.nonzero(last >= 0)
-        g_i = pg[last[a_i, t_i, s_i]]
+        starts = np.flatnonzero(new_seg[p0:p1])
+        eligible = (~taken[:, :, pg] | crowd[pg]) & (pb.p_iou[p0:p1] >= thr)  # (A, T, P)
+        key = key_base[p0:p1] + np.where(gt_ignore[:, pg], 0, big)[:, None, :]  # (A, 1, P)
+        best = np.maximum.reduceat(np.where(eligible, key, -1), starts, axis=2)  # (A, T, S)
+        a_i, t_i, s_i = np.nonzero(best >= 0)
+        pair = p0 + starts[s_i] + best[a_i, t_i, s_i] % width
+        g_i = pb.p_gt[pair]
         taken[a_i, t_i, g_i] = True
-        matched[a_i, t_i, pd[starts[s_i]]] = g_i
+        matched[a_i, t_i, pb.p_det[pair]] = g_i
     return matched
 
 
@@ -678,8 +687,9 @@ def _accumulate(
         for m, max_det in enumerate(max_dets):
             sel = seg[pb.rank[seg] < max_det]
             nd = len(sel)
-            tp = np.cumsum(tps_all[:, :, sel], axis=2).astype(float)  # (A, T, nd)
-            fp = np.cumsum(fps_all[:, :, sel], axis=2).astype(float)
+            # Counts stay exact integers in float64 (the reference casts int cumsums to float).
+            tp = np.cumsum(tps_all[:, :, sel], axis=2, dtype=np.float64)  # (A, T, nd)
+            fp = np.cumsum(fps_all[:, :, sel], axis=2, dtype=np.float64)
             for a in range(n_a):
                 if npig[k, a] == 0:
                     continue
@@ -781,7 +791,12 @@ class Evaluation:
         self.n_predictions = len(preds.score)
         self.n_unknown_category = int(np.count_nonzero(preds.cat < 0))
         self.per_category = self._per_category()
-        self.confusion = self._confusion(gt_ignore[0], det_out[0])
+        self._all_range = (gt_ignore[0], det_out[0])
+
+    @functools.cached_property
+    def confusion(self) -> Confusion:
+        """Detections by predicted class and the class of the object they hit (computed on first use)."""
+        return self._confusion(*self._all_range)
 
     # ---- summaries
 

@@ -12,7 +12,7 @@ import numpy as np
 EDGE_AREAS = (1024.0, 9216.0, 1023.999, 1024.001, 9215.999, 9216.001, 0.0)
 
 
-def random_case(rng: np.random.Generator, *, many: bool = False) -> tuple[dict, list]:
+def random_case(rng: np.random.Generator, *, many: bool = False, grid: bool = False) -> tuple[dict, list]:
     """A small random COCO ground truth and a results list built from it.
 
     Ground truth: 1-6 images (some empty), 0-12 objects each, categories 1-4
@@ -21,6 +21,9 @@ def random_case(rng: np.random.Generator, *, many: bool = False) -> tuple[dict, 
     the ground truth (some relabelled), duplicates, random boxes, a category 9
     not in the ground truth, scores on a coarse grid so that ties are common;
     with ``many`` one image gets more than 100 detections of one category.
+    About one object in ten has an identical twin; with ``grid`` boxes sit on a
+    coarse integer grid (some of zero width) and predictions snap to it, so
+    that equal IoUs and zero-size boxes are common.
     """
     n_img = int(rng.integers(1, 7))
     images = [{"id": int(i), "width": 300, "height": 300, "file_name": f"{i:06d}.png"}
@@ -37,19 +40,31 @@ def random_case(rng: np.random.Generator, *, many: bool = False) -> tuple[dict, 
             x, y = float(rng.uniform(0, 200)), float(rng.uniform(0, 200))
             u = rng.random()
             area = w * h if u < 0.5 else (float(rng.choice(EDGE_AREAS)) if u < 0.8 else float(w * h * rng.uniform(0.3, 1)))
+            if grid:  # coarse integer grid: equal IoUs between different objects are common
+                x, y = float(4 * rng.integers(0, 50)), float(4 * rng.integers(0, 50))
+                w, h = float(4 * rng.integers(0, 12)), float(4 * rng.integers(1, 12))
+                area = w * h if rng.random() < 0.7 else float(rng.choice(EDGE_AREAS))
             anns.append({"id": len(anns) + 1, "image_id": im["id"], "category_id": int(rng.integers(1, 4)),
                          "bbox": [x, y, w, h], "area": area, "iscrowd": int(rng.random() < 0.1)})
+            if rng.random() < 0.1:  # an identical twin, possibly with another area or crowd flag
+                twin = dict(anns[-1], id=len(anns) + 1, bbox=list(anns[-1]["bbox"]))
+                twin["area"] = float(rng.choice([twin["area"], *EDGE_AREAS]))
+                twin["iscrowd"] = int(rng.random() < 0.3)
+                anns.append(twin)
     gt = {"images": images, "annotations": anns, "categories": cats}
     preds = []
-    grid = np.round(np.linspace(0.05, 1.0, 20), 2) if rng.random() < 0.5 else np.array([0.3, 0.5, 0.9])
+    scores = np.round(np.linspace(0.05, 1.0, 20), 2) if rng.random() < 0.5 else np.array([0.3, 0.5, 0.9])
     for a in anns:
         for _ in range(int(rng.integers(0, 3))):
             x, y, w, h = a["bbox"]
             s = rng.uniform(0.7, 1.3, 2) if rng.random() < 0.8 else np.ones(2)
             d = rng.normal(0, 0.15 * max(w, h), 2) if rng.random() < 0.8 else np.zeros(2)
             cat = a["category_id"] if rng.random() < 0.85 else int(rng.integers(1, 4))
-            preds.append({"image_id": a["image_id"], "category_id": cat,
-                          "bbox": [x + d[0], y + d[1], w * s[0], h * s[1]], "score": float(rng.choice(grid))})
+            box = [x + d[0], y + d[1], w * s[0], h * s[1]]
+            if grid:
+                box = [float(4 * round(v / 4)) for v in box]
+            preds.append({"image_id": a["image_id"], "category_id": cat, "bbox": box,
+                          "score": float(rng.choice(scores))})
     for im in images:
         for _ in range(int(rng.integers(0, 8))):
             w, h = rng.uniform(1, 120, 2)
@@ -57,13 +72,13 @@ def random_case(rng: np.random.Generator, *, many: bool = False) -> tuple[dict, 
                 w, h = 32.0, 32.0  # detection area exactly 1024
             preds.append({"image_id": im["id"], "category_id": int(rng.choice([1, 2, 3, 4, 9])),
                           "bbox": [float(v) for v in (*rng.uniform(0, 250, 2), w, h)],
-                          "score": float(rng.choice(grid))})
+                          "score": float(rng.choice(scores))})
     if many and images:
         im = images[0]["id"]
         for _ in range(int(rng.integers(101, 140))):
             w, h = rng.uniform(5, 60, 2)
             preds.append({"image_id": im, "category_id": 1, "bbox": [float(v) for v in (*rng.uniform(0, 200, 2), w, h)],
-                          "score": float(rng.choice(grid))})
+                          "score": float(rng.choice(scores))})
     order = rng.permutation(len(preds))
     return gt, [preds[i] for i in order]
 
