@@ -244,6 +244,75 @@ def jitter(
         raise _option_error(exc) from None
     typer.echo(orjson.dumps(summary, option=orjson.OPT_INDENT_2).decode())
 
+@app.command()
+@reported
+def score(
+    dataset: Annotated[
+        Path,
+        typer.Argument(help="Dataset directory (reads its annotations.json), a COCO JSON file, or with --pred-dir a sweep directory."),
+    ],
+    predictions: Annotated[
+        Optional[Path],
+        typer.Argument(help="COCO results JSON: an array of records with image_id, category_id, bbox (x, y, width, height) and score.", show_default=False),
+    ] = None,
+    by: Annotated[
+        Optional[list[str]],
+        typer.Option(
+            "--by",
+            help="Also score per bin of a per-object fact: FACT (default bins) or FACT:E0,E1,... "
+            "(e.g. size:0,8,16,32,inf). Facts: area, size, visible_fraction, max_iou, neighbours, "
+            "contrast, kind, truncated, ... Repeatable.",
+        ),
+    ] = None,
+    json_out: Annotated[Optional[Path], typer.Option("--json", help="Write every metric to this JSON file.")] = None,
+    plot: Annotated[
+        Optional[Path],
+        typer.Option(
+            "--plot",
+            help="Write a PNG: recall and AP per bin, one 480x360 px panel per --by fact, 3 per row; "
+            "with --pred-dir one 480x360 px panel of AP and AR across the sweep.",
+        ),
+    ] = None,
+    pred_dir: Annotated[
+        Optional[Path],
+        typer.Option(
+            "--pred-dir",
+            help="Score a sweep: DATASET is the sweep directory and this directory holds one results file "
+            "per subset, at the subset's relative path plus .json (e.g. 'objects.size=[4, 8].json').",
+        ),
+    ] = None,
+) -> None:
+    """Score detections by the COCO box rules, overall, per category and per bin of a fact."""
+    import orjson
+    from rich.console import Console
+
+    from synthgen import report_score as rep
+    from synthgen.score import score_files, score_sweep
+
+    if (predictions is None) == (pred_dir is None):
+        raise UserError("give either a PREDICTIONS file or --pred-dir DIR for a sweep (got "
+                        + ("both" if predictions is not None else "neither") + ")")
+    if pred_dir is not None:
+        points = score_sweep(dataset, pred_dir, by or ())
+        console = Console()
+        console.print(rep.sweep_table(points))
+        for p in points:
+            for fact, bins in p.slices.items():
+                console.print(rep.slice_table(f"{fact}, {p.label or p.subset}", bins))
+        if json_out is not None:
+            json_out.write_bytes(orjson.dumps({"sweep": [p.to_dict() for p in points]}, option=orjson.OPT_INDENT_2))
+        if plot is not None:
+            rep.plot_sweep(points, plot)
+        return
+    if plot is not None and not by:
+        raise UserError("option '--plot' needs at least one --by FACT to plot")
+    evaluation, slices = score_files(dataset, predictions, by or ())
+    rep.print_report(evaluation, slices)
+    if json_out is not None:
+        json_out.write_bytes(orjson.dumps(evaluation.to_dict(slices), option=orjson.OPT_INDENT_2))
+    if plot is not None:
+        rep.plot_slices(slices, plot, title=f"{predictions.name} on {dataset.name}")
+
 
 def main() -> None:
     """Entry point of the ``synthgen`` console script."""
