@@ -116,3 +116,13 @@ def test_counts_string_round_trip():
     """string_to_counts inverts counts_to_string, including long and shrinking runs."""
     counts = [0, 5, 1_000_000, 3, 2, 70_000, 1, 1]
     assert rle.string_to_counts(rle.counts_to_string(counts)).tolist() == counts
+
+
+def test_loop_and_vectorized_string_paths_agree(monkeypatch):
+    """The short-input loop and the array path build the same counts string."""
+    rng = np.random.default_rng(9)
+    counts = rng.integers(0, 5000, 300).tolist()
+    loop = rle.counts_to_string(counts) if len(counts) <= rle._SMALL else rle._counts_to_string_small(counts)
+    monkeypatch.setattr(rle, "_SMALL", 0)
+    assert rle.counts_to_string(counts) == loop
+    assert rle.string_to_counts(loop).tolist() == counts
