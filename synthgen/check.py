@@ -25,6 +25,7 @@ objects as the COCO file.  The box conventions are those of
 
 from __future__ import annotations
 
+import json
 import math
 from collections import Counter
 from dataclasses import dataclass, field
@@ -195,8 +196,11 @@ class _Checker:
             self.add(path, "", "file must be readable", str(e))
             return None
         except orjson.JSONDecodeError as e:
-            self.add(path, f"line {e.lineno}, column {e.colno}", "file must be valid JSON", e.msg)
-            return None
+            try:  # NaN, Infinity and overflowing numbers: read on, so the values get named
+                coco = json.loads(path.read_bytes())
+            except ValueError:
+                self.add(path, f"line {e.lineno}, column {e.colno}", "file must be valid JSON", e.msg)
+                return None
         broken_top = False
         for record, rule, value in structure_problems(coco):
             self.add(path, record, rule, value)

@@ -224,7 +224,8 @@ def export(
     if seed is None:
         seed = _manifest_seed(dataset_dir) or 0
     out = Path(out) if out is not None else dataset_dir
-    formats = parse_formats(list(formats))
+    formats = list(formats)
+    formats = parse_formats(formats) if formats or not split else ()  # splits alone are fine
     if out.resolve() == dataset_dir.resolve():
         formats = tuple(f for f in formats if f != "coco")  # already there
     return write_formats(
