@@ -1,0 +1,352 @@
+"""The run schema: frozen spec dataclasses, built-in defaults, TOML loading and overrides.
+
+Every key has a built-in default, so an empty config is a valid config.  A
+section's spec lives beside the code that reads it (:class:`BackgroundSpec` in
+:mod:`synthgen.backgrounds`, :class:`DegradeSpec` in :mod:`synthgen.degrade`);
+this module assembles them into one :class:`Config` and is the only place that
+turns user text into specs.  Validation happens once, here, at the boundary:
+wrong types and unknown keys are caught by :func:`build`, and each spec's
+``__post_init__`` checks its own rules.  Every error is a
+:class:`~synthgen.errors.ConfigError` naming the dotted key, the rule and the
+value.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import difflib
+import math
+import re
+import tomllib
+import typing
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from synthgen.backgrounds import BackgroundSpec
+from synthgen.degrade import DegradeSpec
+from synthgen.errors import ConfigError, InputFileError, check_choice, check_number, check_range
+from synthgen.shapes import FILLS, KINDS
+
+__all__ = [
+    "CanvasSpec",
+    "ObjectSpec",
+    "RenderSpec",
+    "OutputSpec",
+    "Config",
+    "LAYOUTS",
+    "MAX_CANVAS_SIDE",
+    "build",
+    "load_config",
+    "parse_override",
+    "to_dict",
+]
+
+#: Largest accepted canvas side, in pixels (a 16384 x 16384 RGB canvas is 768 MiB).
+MAX_CANVAS_SIDE = 16384
+#: Largest accepted number of objects per image.
+MAX_OBJECTS = 100_000
+#: Largest accepted number of images in one run.
+MAX_IMAGES = 100_000_000
+
+LAYOUTS = ("scatter",)
+SIZE_LAWS = ("uniform", "log-uniform")
+BOX_KINDS = ("visible", "full")
+IMAGE_FORMATS = ("png", "jpeg")
+
+
+@dataclass(frozen=True, slots=True)
+class CanvasSpec:
+    """Image size in pixels (``[canvas]``)."""
+
+    width: int = 640
+    height: int = 480
+
+    def __post_init__(self):
+        check_number("canvas.width", self.width, lo=1, hi=MAX_CANVAS_SIDE, integer=True)
+        check_number("canvas.height", self.height, lo=1, hi=MAX_CANVAS_SIDE, integer=True)
+
+
+@dataclass(frozen=True, slots=True)
+class ObjectSpec:
+    """What objects each image holds and where they go (``[objects]``).
+
+    Sizes are the longer side of an object's unclipped exact box, in pixels.
+    """
+
+    count: tuple[int, int] = (3, 12)
+    size: tuple[float, float] = (12.0, 120.0)
+    size_law: str = "log-uniform"
+    aspect: tuple[float, float] = (0.5, 2.0)
+    rotate: bool = True
+    shapes: tuple[str, ...] = KINDS
+    layout: str = "scatter"
+    min_visible: float = 0.2
+    min_area: float = 1.0
+    min_contrast: float = 0.15
+    fills: tuple[str, ...] = FILLS
+    outline: float = 0.15
+    stroke: tuple[float, float] = (1.5, 4.0)
+    sides: tuple[int, int] = (3, 8)
+    inner: tuple[float, float] = (0.35, 0.65)
+    box: str = "visible"
+
+    def __post_init__(self):
+        check_range("objects.count", self.count, lo=0, hi=MAX_OBJECTS, integer=True)
+        check_range("objects.size", self.size, lo=0, lo_open=True, hi=4 * MAX_CANVAS_SIDE)
+        check_choice("objects.size_law", self.size_law, SIZE_LAWS)
+        check_range("objects.aspect", self.aspect, lo=0, lo_open=True)
+        if self.aspect[1] > 100 or self.aspect[0] < 0.01:
+            raise ConfigError("objects.aspect", "must lie within [0.01, 100]", self.aspect)
+        _check_names("objects.shapes", self.shapes, KINDS)
+        check_choice("objects.layout", self.layout, LAYOUTS)
+        check_number("objects.min_visible", self.min_visible, lo=0, hi=1)
+        check_number("objects.min_area", self.min_area, lo=0)
+        check_number("objects.min_contrast", self.min_contrast, lo=0, hi=1)
+        _check_names("objects.fills", self.fills, FILLS)
+        check_number("objects.outline", self.outline, lo=0, hi=1)
+        check_range("objects.stroke", self.stroke, lo=0, lo_open=True)
+        check_range("objects.sides", self.sides, lo=3, hi=64, integer=True)
+        check_range("objects.inner", self.inner, lo=0, lo_open=True, hi=0.95)
+        check_choice("objects.box", self.box, BOX_KINDS)
+
+
+@dataclass(frozen=True, slots=True)
+class RenderSpec:
+    """Anti-aliasing (``[render]``): sub-pixel samples per pixel side."""
+
+    samples: int = 4
+
+    def __post_init__(self):
+        check_number("render.samples", self.samples, lo=1, hi=16, integer=True)
+
+
+@dataclass(frozen=True, slots=True)
+class OutputSpec:
+    """How images are encoded (``[output]``)."""
+
+    image_format: str = "png"
+    png_level: int = 1
+    jpeg_quality: int = 90
+
+    def __post_init__(self):
+        check_choice("output.image_format", self.image_format, IMAGE_FORMATS)
+        check_number("output.png_level", self.png_level, lo=0, hi=9, integer=True)
+        check_number("output.jpeg_quality", self.jpeg_quality, lo=1, hi=100, integer=True)
+
+
+@dataclass(frozen=True, slots=True)
+class Config:
+    """One run: seed, number of images and every section."""
+
+    seed: int = 0
+    count: int = 8
+    canvas: CanvasSpec = field(default_factory=CanvasSpec)
+    background: BackgroundSpec = field(default_factory=BackgroundSpec)
+    objects: ObjectSpec = field(default_factory=ObjectSpec)
+    render: RenderSpec = field(default_factory=RenderSpec)
+    degrade: DegradeSpec = field(default_factory=DegradeSpec)
+    output: OutputSpec = field(default_factory=OutputSpec)
+
+    def __post_init__(self):
+        check_number("seed", self.seed, lo=0, hi=2**63 - 1, integer=True)
+        check_number("count", self.count, lo=1, hi=MAX_IMAGES, integer=True)
+
+
+def _check_names(key: str, names: tuple[str, ...], allowed: tuple[str, ...]) -> None:
+    if len(names) == 0:
+        raise ConfigError(key, "must name at least one of " + ", ".join(allowed), list(names))
+    for name in names:
+        check_choice(key, name, allowed)
+    if len(set(names)) != len(names):
+        raise ConfigError(key, "must not repeat a name", list(names))
+
+
+# --------------------------------------------------------------------------- building
+
+
+def build(cls: type, data: dict[str, Any], prefix: str = ""):
+    """Build spec ``cls`` from a nested dict of TOML values, checking types and keys.
+
+    Parameters
+    ----------
+    cls : dataclass type
+    data : dict
+        Values as TOML gives them (lists for ranges and name lists).
+    prefix : str
+        Dotted key of ``cls``'s section, for messages.
+
+    Raises
+    ------
+    ConfigError
+        For an unknown key (with a suggestion), a value of the wrong type, or a
+        value that breaks a spec's rule.
+
+    Examples
+    --------
+    >>> build(CanvasSpec, {"width": 320}).width
+    320
+    >>> build(CanvasSpec, {"widht": 320}, "canvas.")
+    Traceback (most recent call last):
+    ...
+    synthgen.errors.ConfigError: config key 'canvas.widht' is not a known key (got 320); did you mean 'canvas.width'?
+    """
+    if not isinstance(data, dict):
+        raise ConfigError(prefix.rstrip(".") or "<top>", "must be a table", data)
+    hints = typing.get_type_hints(cls)
+    names = [f.name for f in dataclasses.fields(cls)]
+    kwargs = {}
+    for key, value in data.items():
+        dotted = prefix + key
+        if key not in names:
+            close = difflib.get_close_matches(key, names, n=1)
+            hint = f"did you mean '{prefix}{close[0]}'?" if close else "known keys: " + ", ".join(names)
+            raise ConfigError(dotted, "is not a known key", value, hint=hint)
+        kwargs[key] = _convert(hints[key], value, dotted)
+    return cls(**kwargs)
+
+
+def _convert(tp, value, key: str):
+    if dataclasses.is_dataclass(tp):
+        return build(tp, value, key + ".")
+    if tp is bool:
+        if not isinstance(value, bool):
+            raise ConfigError(key, "must be true or false", value)
+        return value
+    if tp is int:
+        if isinstance(value, float) and value.is_integer():
+            value = int(value)
+        if not isinstance(value, int) or isinstance(value, bool):
+            raise ConfigError(key, "must be a whole number", value)
+        return value
+    if tp is float:
+        return _number(value, key)
+    if tp is str:
+        if not isinstance(value, str):
+            raise ConfigError(key, "must be a string", value)
+        return value
+    origin = typing.get_origin(tp)
+    args = typing.get_args(tp)
+    if origin is tuple and len(args) == 2 and args[1] is Ellipsis:
+        if isinstance(value, str):
+            value = [value]
+        if not isinstance(value, list) or not all(isinstance(v, str) for v in value):
+            raise ConfigError(key, "must be a list of names", value)
+        return tuple(value)
+    if origin is tuple and len(args) == 2:
+        # A [min, max] range; a single number v means [v, v].
+        if isinstance(value, (int, float)) and not isinstance(value, bool):
+            value = [value, value]
+        if not isinstance(value, list) or len(value) != 2:
+            raise ConfigError(key, "must be [min, max] or a single number", value)
+        return tuple(_convert(args[0], v, key) for v in value)
+    raise TypeError(f"unsupported field type {tp!r} for {key}")  # a programming error
+
+
+def _number(value, key: str) -> float:
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        raise ConfigError(key, "must be a number", value)
+    if not math.isfinite(value):
+        raise ConfigError(key, "must be a finite number", value)
+    return float(value)
+
+
+# --------------------------------------------------------------------------- TOML and overrides
+
+_KEY = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*(\.[A-Za-z_][A-Za-z0-9_]*)*$")
+_BARE = re.compile(r"^[A-Za-z_][A-Za-z0-9_.+-]*$")
+
+
+def parse_override(text: str) -> tuple[str, Any]:
+    """Parse one ``KEY=VALUE`` override; the value is a TOML value.
+
+    A bare word that is not valid TOML (``background.kind=noise``) is taken as
+    a string, so quotes are optional for names.
+
+    Examples
+    --------
+    >>> parse_override("objects.count=[5, 10]")
+    ('objects.count', [5, 10])
+    >>> parse_override("background.kind=checker")
+    ('background.kind', 'checker')
+    """
+    key, sep, raw = text.partition("=")
+    key = key.strip()
+    raw = raw.strip()
+    if not sep or not _KEY.match(key):
+        raise ConfigError("--set", "must look like KEY=VALUE with a dotted key such as canvas.width=320", text)
+    try:
+        value = tomllib.loads(f"v = {raw}")["v"]
+    except tomllib.TOMLDecodeError:
+        if _BARE.match(raw) and raw.lower() not in ("nan", "inf", "+inf", "-inf"):
+            value = raw
+        else:
+            raise ConfigError(key, "must be given a TOML value (a number, true/false, \"text\" or [a, b])", raw) from None
+    return key, value
+
+
+def _set_dotted(tree: dict, key: str, value) -> None:
+    parts = key.split(".")
+    node = tree
+    for i, part in enumerate(parts[:-1]):
+        child = node.setdefault(part, {})
+        if not isinstance(child, dict):
+            raise ConfigError(".".join(parts[: i + 1]), "is a value, not a table, so it has no sub-keys", child)
+        node = child
+    node[parts[-1]] = value
+
+
+def read_toml(path: Path) -> dict:
+    """Read a TOML config file; errors name the file."""
+    path = Path(path)
+    try:
+        raw = path.read_bytes()
+    except FileNotFoundError:
+        raise InputFileError(path, "config file does not exist") from None
+    except IsADirectoryError:
+        raise InputFileError(path, "is a directory, not a TOML config file") from None
+    except OSError as exc:
+        raise InputFileError(path, f"cannot be read ({exc.strerror})") from None
+    try:
+        text = raw.decode("utf-8")
+    except UnicodeDecodeError:
+        raise InputFileError(path, "is not a UTF-8 text file (expected a TOML config)") from None
+    try:
+        return tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise InputFileError(path, f"is not valid TOML: {exc}") from None
+
+
+def load_config(path: Path | None = None, overrides: list[str] | tuple[str, ...] = ()) -> Config:
+    """Resolve a run's config: built-in defaults, then the TOML file, then ``--set`` overrides.
+
+    Parameters
+    ----------
+    path : Path or None
+        TOML file; None uses the built-in defaults only.
+    overrides : sequence of str
+        ``KEY=VALUE`` strings applied in order after the file.
+
+    Examples
+    --------
+    >>> load_config(overrides=["canvas.width=320", "objects.count=[5, 10]"]).objects.count
+    (5, 10)
+    """
+    tree = read_toml(path) if path is not None else {}
+    for text in overrides:
+        key, value = parse_override(text)
+        _set_dotted(tree, key, value)
+    return build(Config, tree)
+
+
+def to_dict(spec) -> dict:
+    """A spec as plain JSON-able data (tuples become lists), e.g. for the manifest."""
+
+    def plain(v):
+        if dataclasses.is_dataclass(v):
+            return {f.name: plain(getattr(v, f.name)) for f in dataclasses.fields(v)}
+        if isinstance(v, tuple):
+            return [plain(x) for x in v]
+        return v
+
+    return plain(spec)

@@ -1,0 +1,70 @@
+"""The command line as a user meets it: exit codes, one-line errors, outputs."""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+
+import pytest
+from typer.testing import CliRunner
+
+from synthgen.cli import app
+
+SMALL = ["--count", "2", "--set", "canvas.width=48", "--set", "canvas.height=32", "--quiet"]
+
+
+def run(*args):
+    return CliRunner().invoke(app, list(args))
+
+
+def test_make_on_defaults_writes_a_dataset(tmp_path):
+    """`synthgen make --out DIR` writes images, annotations and a manifest, and one summary line."""
+    res = run("make", "--out", str(tmp_path / "d"), *SMALL)
+    assert res.exit_code == 0, res.output
+    assert (tmp_path / "d" / "manifest.json").exists()
+    assert json.loads((tmp_path / "d" / "annotations.json").read_text())["images"][1]["id"] == 2
+    assert res.stdout.startswith("wrote 2 images")
+
+
+@pytest.mark.parametrize(
+    ("args", "pattern"),
+    [
+        (["--set", "objects.sizes=[1,2]"], "config key 'objects.sizes' is not a known key"),
+        (["--set", "canvas.width=-3"], "config key 'canvas.width' must be a whole number in [1, 16384] (got -3)"),
+        (["--set", "objects.size=[9,3]"], "config key 'objects.size' must be [min, max]"),
+        (["--set", "nonsense"], "config key '--set' must look like KEY=VALUE"),
+        (["--count", "0"], "config key 'count' must be a whole number"),
+    ],
+)
+def test_bad_input_exits_2_with_one_line(tmp_path, args, pattern):
+    """Bad config values exit 2 with one line naming the key, and write nothing."""
+    res = run("make", "--out", str(tmp_path / "d"), "--quiet", *args)
+    assert res.exit_code == 2
+    assert pattern in res.stderr and len(res.stderr.strip().splitlines()) == 1
+    assert not (tmp_path / "d").exists()
+
+
+def test_missing_config_file_exits_2(tmp_path):
+    """A config path that does not exist names the file."""
+    res = run("make", str(tmp_path / "missing.toml"), "--out", str(tmp_path / "d"))
+    assert res.exit_code == 2 and "missing.toml: config file does not exist" in res.stderr
+
+
+def test_non_empty_output_exits_2(tmp_path):
+    """A non-empty output directory without --overwrite exits 2 and keeps its files."""
+    (tmp_path / "d").mkdir()
+    (tmp_path / "d" / "x").write_text("x")
+    res = run("make", "--out", str(tmp_path / "d"), *SMALL)
+    assert res.exit_code == 2 and "not empty" in res.stderr
+    assert [p.name for p in (tmp_path / "d").iterdir()] == ["x"]
+
+
+def test_console_entry_runs_as_a_module(tmp_path):
+    """`python -m synthgen make` works in a fresh process and prints no traceback on bad input."""
+    res = subprocess.run(
+        [sys.executable, "-m", "synthgen", "make", "--out", str(tmp_path / "d"), "--set", "canvas.height=0"],
+        capture_output=True, text=True,
+    )
+    assert res.returncode == 2
+    assert "Traceback" not in res.stderr and "canvas.height" in res.stderr

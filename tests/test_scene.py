@@ -1,0 +1,136 @@
+"""One scene: exact boxes, occlusion bookkeeping and per-object facts."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from synthgen.config import load_config
+from synthgen.geometry import mask_box
+from synthgen.scene import compose_shapes, image_rng, render_scene, visible_box
+from synthgen.shapes import Shape, coverage, exact_box
+
+
+@pytest.fixture()
+def cfg():
+    return load_config(overrides=["canvas.width=64", "canvas.height=48", "objects.min_visible=0", "objects.min_area=0"])
+
+
+def grey(cfg, value=128):
+    return np.full((cfg.canvas.height, cfg.canvas.width, 3), value, np.uint8)
+
+
+def test_same_index_same_pixels(small_config):
+    """Rendering image k twice gives identical arrays and facts."""
+    a, b = render_scene(small_config, 4), render_scene(small_config, 4)
+    assert np.array_equal(a.image, b.image) and a.facts == b.facts
+
+
+def test_different_indices_differ(small_config):
+    """Two images of a run are not the same picture."""
+    assert not np.array_equal(render_scene(small_config, 0).image, render_scene(small_config, 1).image)
+
+
+def test_image_streams_come_from_spawn_keys():
+    """Image k's generator is SeedSequence(seed, spawn_key=(k,)) (numpy.random docs: spawn keys)."""
+    expected = np.random.Generator(np.random.PCG64(np.random.SeedSequence(5, spawn_key=(3,)))).random(4)
+    assert np.array_equal(image_rng(5, 3).random(4), expected)
+
+
+def test_pixel_aligned_4x4_square(cfg):
+    """A 4x4 square on the pixel grid has area 16 and box width 4 (REFERENCE.md: COCO JSON, mask box)."""
+    scene = compose_shapes(grey(cfg), [Shape("rectangle", cx=10.0, cy=12.0, size=4.0)], cfg, rng=np.random.default_rng(0))
+    assert scene.boxes.tolist() == [[8.0, 10.0, 12.0, 14.0]]
+    assert scene.areas.tolist() == [16.0]
+    assert scene.facts[0]["pixel_box"] == [8.0, 10.0, 12.0, 14.0]
+
+
+def test_one_pixel_square_has_width_one(cfg):
+    """A one-pixel square's box is one pixel wide (common practice: half-open boxes)."""
+    scene = compose_shapes(grey(cfg), [Shape("rectangle", cx=5.5, cy=7.5, size=1.0)], cfg, rng=np.random.default_rng(0))
+    x0, y0, x1, y1 = scene.boxes[0]
+    assert (x1 - x0, y1 - y0, scene.areas[0]) == (1.0, 1.0, 1.0)
+
+
+def test_unoccluded_visible_box_is_exact_box(cfg):
+    """With nothing above it, an object's visible box is its exact box and it is fully visible."""
+    shape = Shape("ellipse", cx=30.3, cy=20.7, size=17.0, aspect=1.7, angle=33.0)
+    scene = compose_shapes(grey(cfg), [shape], cfg, rng=np.random.default_rng(0))
+    assert np.allclose(scene.boxes[0], exact_box(shape), atol=1e-12)
+    assert scene.facts[0]["visible_fraction"] == 1.0
+
+
+def test_border_cut_object_is_clipped_and_truncated(cfg):
+    """An object cut by the canvas edge gets the clipped box and the truncated flag."""
+    shape = Shape("rectangle", cx=2.0, cy=20.0, size=10.0)
+    scene = compose_shapes(grey(cfg), [shape], cfg, rng=np.random.default_rng(0))
+    assert scene.boxes[0].tolist() == [0.0, 15.0, 7.0, 25.0] and scene.facts[0]["truncated"] is True
+
+
+def test_occluded_fraction_matches_independent_sample_count(cfg):
+    """Visible fraction equals the share of the lower shape's samples not inside the upper shape.
+
+    The reference counts samples with the shapes' point test directly (no patches),
+    at the same sample positions (sample (i, j) of pixel (r, c) at c + (j + .5)/s).
+    """
+    low = Shape("ellipse", cx=30.0, cy=24.0, size=30.0, aspect=1.3, angle=10.0)
+    up = Shape("rectangle", cx=40.0, cy=24.0, size=16.0, aspect=0.8, angle=20.0)
+    scene = compose_shapes(grey(cfg), [low, up], cfg, rng=np.random.default_rng(0))
+    from synthgen.shapes import sample_inside
+
+    s = cfg.render.samples
+    ys, xs = np.mgrid[0 : cfg.canvas.height * s, 0 : cfg.canvas.width * s]
+    xs, ys = (xs + 0.5) / s, (ys + 0.5) / s
+    inside_low = sample_inside(low, xs, ys)
+    hidden = inside_low & sample_inside(up, xs, ys)
+    expected = 1.0 - hidden.sum() / inside_low.sum()
+    assert scene.facts[0]["visible_fraction"] == pytest.approx(expected, abs=1e-12)
+    assert scene.facts[1]["visible_fraction"] == 1.0
+    visible = inside_low & ~hidden
+    vb = mask_box(visible, scale=1.0 / s)
+    assert np.allclose(scene.boxes[0], visible_box(exact_box(low), vb))
+
+
+def test_hidden_object_is_dropped_and_counted():
+    """An object hidden below min_visible is not annotated; the drop is counted."""
+    cfg = load_config(overrides=["canvas.width=64", "canvas.height=48", "objects.min_visible=0.5"])
+    low = Shape("rectangle", cx=30.0, cy=24.0, size=10.0)
+    up = Shape("rectangle", cx=31.0, cy=24.0, size=12.0)
+    part = Shape("rectangle", cx=10.0, cy=10.0, size=10.0)  # box [5, 5, 15, 15]
+    over = Shape("rectangle", cx=14.0, cy=10.0, size=10.0)  # hides 6 of its 10 columns
+    scene = compose_shapes(grey(cfg), [low, up, part, over], cfg, rng=np.random.default_rng(0))
+    assert len(scene.boxes) == 2
+    assert scene.info["dropped"] == {"outside": 0, "hidden": 1, "min_visible": 1, "min_area": 0}
+
+
+def test_contrast_is_met_on_a_plain_background(cfg):
+    """Fill colours keep at least objects.min_contrast luma difference with the background."""
+    scene = compose_shapes(
+        grey(cfg), [Shape("star", cx=20.0 + 5 * i, cy=24.0, size=8.0) for i in range(5)], cfg,
+        rng=np.random.default_rng(3),
+    )
+    assert all(f["contrast"] >= cfg.objects.min_contrast - 1e-9 for f in scene.facts)
+
+
+def test_max_iou_and_neighbours_facts(cfg):
+    """max_iou is the largest box IoU with another annotated object (REFERENCE.md: Geometry, 1/7)."""
+    a = Shape("rectangle", cx=11.0, cy=11.0, size=2.0)  # box [10, 10, 12, 12]
+    b = Shape("rectangle", cx=12.0, cy=12.0, size=2.0)  # box [11, 11, 13, 13]
+    scene = compose_shapes(grey(cfg), [a, b], cfg, rng=np.random.default_rng(0))
+    # b hides a's lower-right pixel only, so a's visible box stays [10, 10, 12, 12]
+    assert scene.boxes[0].tolist() == [10.0, 10.0, 12.0, 12.0]
+    assert scene.facts[0]["max_iou"] == pytest.approx(1 / 7) == scene.facts[1]["max_iou"]
+    assert scene.facts[0]["neighbours"] == 1 and scene.facts[1]["neighbours"] == 1
+
+
+def test_masks_support_gives_the_pixel_box(small_config):
+    """Each mask patch's tight box is the object's pixel box."""
+    scene = render_scene(small_config, 2)
+    for (row0, col0, support), facts in zip(scene.masks, scene.facts):
+        assert mask_box(support, origin=(col0, row0)).tolist() == facts["pixel_box"]
+
+
+def test_coverage_patch_never_exceeds_canvas():
+    """A huge shape's patch is clipped to the canvas."""
+    cov = coverage(Shape("ellipse", cx=10.0, cy=10.0, size=500.0), 48, 64)
+    assert cov.values.shape == (48, 64)
