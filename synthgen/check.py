@@ -299,6 +299,8 @@ class _Checker:
         main_ids = {im.get("id"): im.get("file_name") for im in main["images"]} if main else None
         owner: dict[object, str] = {}
         for name, (path, coco) in parts.items():
+            if main is not None and coco["categories"] != main["categories"]:
+                self.add(path, "categories", "must be the categories of annotations.json", coco["categories"])
             for i, im in enumerate(coco["images"]):
                 key = im.get("file_name")
                 if key in owner:
@@ -452,7 +454,7 @@ class _Checker:
     # -- masks ---------------------------------------------------------------------
     def masks_png(self, d: Path) -> None:
         files = sorted(d.rglob("*.png"))
-        seen = set()
+        seen, n_obj = set(), 0
         for p in files:
             stem = p.relative_to(d).with_suffix("").as_posix()
             seen.add(stem)
@@ -461,6 +463,7 @@ class _Checker:
             except InputFileError as e:
                 self.add_error(e)
                 continue
+            n_obj += int(np.count_nonzero(np.bincount(ids.ravel())[1:])) if ids.size else 0
             if self.ref_objects is None or stem not in self.ref_objects:
                 self.compare("masks", p, stem, 0)
                 continue
@@ -471,7 +474,8 @@ class _Checker:
             if top > self.ref_objects[stem]:
                 self.add(p, "", f"instance ids must be at most the image's annotation count ({self.ref_objects[stem]})", top)
         self.missing("masks", seen, self.rel(d) + "/{stem}.png")
-        self.counts["masks"] = {"files": len(files), "images": len(files), "objects": 0}
+        # objects = instances with at least one pixel (one drawn over entirely has none)
+        self.counts["masks"] = {"files": len(files), "images": len(files), "objects": n_obj}
 
     def masks_rle(self, path: Path) -> None:
         try:

@@ -209,3 +209,16 @@ def test_problem_text_names_file_record_rule_and_value():
     """A Problem prints as 'file: record: rule (got value)'."""
     p = Problem("voc/000000.xml", "object[1] bndbox", "<ymax> must be a number", "2S")
     assert str(p) == "voc/000000.xml: object[1] bndbox: <ymax> must be a number (got '2S')"
+
+
+def test_split_files_must_not_share_images(tmp_path):
+    """An image listed in two split COCO files is reported."""
+    make_dataset(tmp_path)
+    export(tmp_path, [], split={"train": 2 / 3, "val": 1 / 3}, seed=1)
+    train = orjson.loads((tmp_path / "annotations.train.json").read_bytes())
+    val_path = tmp_path / "annotations.val.json"
+    val = orjson.loads(val_path.read_bytes())
+    val["images"].append(train["images"][0])
+    val_path.write_bytes(orjson.dumps(val))
+    (p,) = _only(check_dataset(tmp_path), "one split only")
+    assert p.file == "annotations.val.json"

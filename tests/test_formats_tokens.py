@@ -147,3 +147,25 @@ def test_reader_rejects_a_sequence_without_end_token(tmp_path):
     (tmp_path / "t.jsonl").write_bytes(orjson.dumps(line) + b"\n")
     with pytest.raises(InputFileError, match=r"t\.jsonl: line 1: must be 5 tokens per object"):
         tokens.read_tokens(tmp_path / "t.jsonl", tmp_path / "v.json")
+
+
+def test_noise_callable_with_a_padded_result(tmp_path):
+    """A callable noise hook returning boxes/is_noise/source rows labels each noise object by its source's category."""
+    from types import SimpleNamespace
+
+    coco = build_coco([(64, 48, [((1, 1, 5, 5), 1), ((10, 10, 20, 20), 3)])])
+    calls = []
+
+    def hook(k, boxes, cats, size):
+        calls.append((k, boxes.tolist(), cats.tolist(), size))
+        rows = np.vstack([boxes, [[2, 2, 6, 6], [30, 30, 40, 40]]])
+        return SimpleNamespace(
+            boxes=rows, is_noise=np.array([False, False, True, True]), source=np.array([0, 1, 1, -1])
+        )
+
+    tokens.write_tokens(coco, tmp_path / "t.jsonl", tmp_path / "v.json", n_bins=16, order="raster", noise=hook)
+    assert calls == [(0, [[1.0, 1.0, 5.0, 5.0], [10.0, 10.0, 20.0, 20.0]], [1, 3], (64, 48))]
+    line = tokens.read_tokens(tmp_path / "t.jsonl", tmp_path / "v.json")[0]
+    assert line["noise_labels"] == [3, -1]
+    assert line["is_noise"].tolist() == [False, False, True, True]
+    np.testing.assert_allclose(line["boxes"][2], [2, 1.5, 6, 7.5])  # bin centres: 4 px in x, 3 px in y

@@ -19,7 +19,7 @@ files are written to a temporary file and renamed.
 from __future__ import annotations
 
 import os
-from collections.abc import Iterable, Mapping
+from collections.abc import Callable, Iterable, Mapping
 from pathlib import Path
 
 import orjson
@@ -69,7 +69,7 @@ def write_formats(
     seed: int = 0,
     n_bins: int = 1000,
     order: str = "random",
-    noise: Mapping[int, tuple] | None = None,
+    noise: Mapping[int, object] | Callable | None = None,
     masks: str = "png",
 ) -> dict[str, int]:
     """Write the given formats of ``coco`` into ``out``.
@@ -93,8 +93,9 @@ def write_formats(
         The dataset's root seed (split assignment, random token order).
     n_bins, order : int, str
         Token options (see :mod:`synthgen.formats.tokens`).
-    noise : mapping, optional
-        Image id -> ``(boxes, labels)`` training noise objects for the tokens.
+    noise : mapping or callable, optional
+        Training noise objects for the tokens (see
+        :func:`synthgen.formats.tokens.write_tokens`).
     masks : {"png", "rle"}
         Instance-mask mode (see :mod:`synthgen.formats.masks`).
 
@@ -188,7 +189,7 @@ def export(
     seed: int | None = None,
     n_bins: int = 1000,
     order: str = "random",
-    noise: Mapping[int, tuple] | None = None,
+    noise: Mapping[int, object] | Callable | None = None,
     masks: str = "png",
 ) -> dict[str, int]:
     """Write formats of an existing dataset from its ``annotations.json``.

@@ -37,7 +37,7 @@ token ranges, bin count, image size, the quantization and dequantization rule.
 
 from __future__ import annotations
 
-from collections.abc import Mapping
+from collections.abc import Callable, Mapping
 from pathlib import Path
 
 import numpy as np
@@ -241,7 +241,7 @@ def write_tokens(
     n_bins: int = 1000,
     order: str = "random",
     seed: int = 0,
-    noise: Mapping[int, tuple] | None = None,
+    noise: Mapping[int, object] | Callable | None = None,
 ) -> int:
     """Write ``tokens.jsonl`` (one line per image) and its vocabulary file.
 
@@ -256,10 +256,19 @@ def write_tokens(
     order : {"random", "raster", "area", "distance"}
     seed : int
         Root seed for the ``random`` order (the dataset's seed).
-    noise : mapping, optional
-        Image id -> ``(boxes, labels)``: precomputed training noise objects,
-        boxes float (M, 4) xyxy in pixels and labels (M,) category ids (or -1)
-        recorded as ``noise_labels``; e.g. from the jitter module.
+    noise : mapping or callable, optional
+        Training noise objects per image, appended after the real objects.
+        Either a mapping image id -> noise, or a callable
+        ``noise(k, boxes, category_ids, (width, height)) -> noise`` called with
+        image index ``k`` and the image's annotated xyxy boxes and category ids
+        in annotation order (returning None for no noise).  A noise value is
+        ``(boxes, labels)`` -- boxes float (M, 4) xyxy in pixels, labels (M,)
+        ints recorded verbatim as ``noise_labels`` (e.g. the category id a noise
+        box was jittered from, -1 for a random box) -- or a result with
+        ``boxes``, ``is_noise`` and optionally ``source`` arrays (as the jitter
+        module's ``pad_with_noise`` returns, given the boxes in annotation
+        order): its noise rows are used and ``noise_labels`` is the category id
+        of each ``source`` box, -1 where ``source`` is -1.
 
     Returns
     -------
@@ -289,13 +298,12 @@ def write_tokens(
             k = image_index(im, pos)
             rng = np.random.Generator(np.random.PCG64(np.random.SeedSequence(seed, spawn_key=(k, ORDER_STREAM))))
         perm = object_order(xyxy, order, rng=rng)
-        nboxes, nlabels = None, []
-        if noise is not None and im["id"] in noise:
-            nboxes, labels = noise[im["id"]]
-            nboxes = as_boxes(nboxes)
-            nlabels = [int(v) for v in np.asarray(labels).reshape(-1)] if labels is not None else []
-            if nlabels and len(nlabels) != nboxes.shape[0]:
-                raise ValueError(f"image {im['id']}: {nboxes.shape[0]} noise boxes but {len(nlabels)} labels")
+        cat_ids = [a["category_id"] for a in anns]
+        if callable(noise):
+            value = noise(image_index(im, pos), xyxy, np.array(cat_ids, dtype=np.int64), (im["width"], im["height"]))
+        else:
+            value = None if noise is None else noise.get(im["id"])
+        nboxes, nlabels = _noise_objects(value, cat_ids, im["id"])
         tokens, weights = encode_objects(
             xyxy[perm],
             [class_token[anns[i]["category_id"]] for i in perm],
@@ -323,6 +331,25 @@ def write_tokens(
     vocab = vocabulary(cats, n_bins, size, order=order, seed=seed)
     Path(vocab_path).write_bytes(orjson.dumps(vocab, option=orjson.OPT_INDENT_2))
     return len(lines)
+
+
+def _noise_objects(value, cat_ids: list[int], image_id) -> tuple[np.ndarray | None, list[int]]:
+    """(boxes (M, 4), labels) of one image's noise value (see :func:`write_tokens`)."""
+    if value is None:
+        return None, []
+    if hasattr(value, "boxes") and hasattr(value, "is_noise"):
+        sel = np.asarray(value.is_noise, dtype=bool)
+        boxes = as_boxes(np.asarray(value.boxes)[sel])
+        source = getattr(value, "source", None)
+        src = np.full(int(sel.sum()), -1) if source is None else np.asarray(source)[sel]
+        labels = [cat_ids[s] if 0 <= s < len(cat_ids) else -1 for s in src.tolist()]
+        return boxes, labels
+    boxes, labels = value
+    boxes = as_boxes(boxes)
+    labels = [int(v) for v in np.asarray(labels).reshape(-1)] if labels is not None else []
+    if labels and len(labels) != boxes.shape[0]:
+        raise ValueError(f"image {image_id}: {boxes.shape[0]} noise boxes but {len(labels)} labels")
+    return boxes, labels
 
 
 def read_vocabulary(path) -> dict:
