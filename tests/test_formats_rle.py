@@ -126,3 +126,10 @@ def test_loop_and_vectorized_string_paths_agree(monkeypatch):
     monkeypatch.setattr(rle, "_SMALL", 0)
     assert rle.counts_to_string(counts) == loop
     assert rle.string_to_counts(loop).tolist() == counts
+
+
+@pytest.mark.parametrize("mask", _masks()[:20])
+def test_flat_indices_are_the_column_major_set_pixels(mask):
+    """flat_indices() lists the set pixels in column-major order (the order RLE runs follow)."""
+    # REFERENCE.md: COCO JSON -- RLE counts are column-major
+    assert rle.flat_indices(rle.encode(mask)).tolist() == np.flatnonzero(mask.ravel(order="F")).tolist()

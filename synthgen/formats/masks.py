@@ -78,10 +78,14 @@ def instance_id_image(annotations: list[dict], height: int, width: int) -> np.nd
     """
     if len(annotations) > _MAX_IDS:
         raise ValueError(f"an instance-id PNG holds at most {_MAX_IDS} annotations (got {len(annotations)})")
-    ids = np.zeros((height, width), dtype=np.uint16)
+    flat = np.zeros(width * height, dtype=np.uint16)  # column-major, as RLE runs are
     for i, a in enumerate(annotations, start=1):
-        ids[annotation_mask(a, height, width)] = i
-    return ids
+        seg = a.get("segmentation")
+        if isinstance(seg, dict) and list(seg.get("size", [])) == [height, width]:
+            flat[rle.flat_indices(seg)] = i  # cost grows with the mask, not the canvas
+        else:
+            flat[annotation_mask(a, height, width).ravel(order="F")] = i
+    return flat.reshape(width, height).T.copy()
 
 
 def write_instance_pngs(coco: dict, out_dir) -> int:
