@@ -19,12 +19,14 @@ give; boxes are finite, non-empty and inside their image (to 1e-6 px or 1e-6
 of the normalized side); ids are unique and positive; annotations refer to
 existing images and categories; class names and indices agree between
 formats; every format holds the same number of images and, per image, of
-objects as the COCO file.  The box conventions are those of
+objects as the COCO file; files listed in a synthgen ``manifest.json`` exist
+and match their sha256 digests.  The box conventions are those of
 :mod:`synthgen.formats`.
 """
 
 from __future__ import annotations
 
+import hashlib
 import json
 import math
 from collections import Counter
@@ -309,6 +311,29 @@ class _Checker:
                 if main_ids is not None and main_ids.get(im.get("id")) != key:
                     self.add(path, f"images[{i}] (id {im.get('id')!r})", "image must appear in annotations.json with the same id", key)
 
+    # -- manifest -----------------------------------------------------------------
+    def manifest(self, path: Path) -> None:
+        try:
+            doc = orjson.loads(path.read_bytes())
+        except orjson.JSONDecodeError as e:
+            self.add(path, f"line {e.lineno}, column {e.colno}", "file must be valid JSON", e.msg)
+            return
+        files = doc.get("files") if isinstance(doc, dict) else None
+        if not isinstance(files, dict):
+            return  # not a synthgen manifest: nothing to compare
+        for name, digest in sorted(files.items()):
+            target = self.root / name
+            if not target.is_file():
+                self.add(path, f"files[{name!r}]", "listed file must exist", name)
+                continue
+            h = hashlib.sha256()
+            with open(target, "rb") as f:
+                for block in iter(lambda: f.read(1 << 20), b""):
+                    h.update(block)
+            if h.hexdigest() != digest:
+                self.add(path, f"files[{name!r}]", "file must match its sha256 digest", name)
+        self.counts["manifest"] = {"files": len(files)}
+
     # -- object counts against the reference ------------------------------------------
     def compare(self, fmt: str, path: Path, stem: str, n_objects: int, size: tuple[int, int] | None = None) -> None:
         if self.ref_objects is None:
@@ -579,6 +604,8 @@ def check_dataset(path, *, decode_images: bool = True) -> CheckReport:
     elif (root / "masks.jsonl").is_file():
         formats.append("masks")
         ck.masks_rle(root / "masks.jsonl")
+    if formats and path.is_dir() and (root / "manifest.json").is_file():
+        ck.manifest(root / "manifest.json")
     if not formats:
         raise InputFileError(
             path, "holds no dataset format synthgen knows (annotations.json, voc/, yolo/, tokens.jsonl, masks/)"

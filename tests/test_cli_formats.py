@@ -120,3 +120,15 @@ def test_overwrite_removes_earlier_format_files(made, tmp_path):
     assert sorted(p.name for p in out.iterdir()) == ["annotations.json", "images", "manifest.json"]
     assert check_dataset(out).ok
     assert export(out, ["yolo"]) == {"yolo": 4}
+
+
+def test_check_finds_a_file_changed_after_make(made, tmp_path):
+    """A file whose bytes no longer match the manifest's sha256 is reported."""
+    bad = tmp_path / "bad"
+    shutil.copytree(made, bad)
+    path = bad / "yolo" / "000000.txt"
+    path.write_text(path.read_text() + "\n")  # same labels, different bytes
+    report = check_dataset(bad)
+    assert [(p.file, p.record, p.rule) for p in report.problems] == [
+        ("manifest.json", "files['yolo/000000.txt']", "file must match its sha256 digest")
+    ]
