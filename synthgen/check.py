@@ -31,7 +31,7 @@ import json
 import math
 from collections import Counter
 from dataclasses import dataclass, field
-from pathlib import Path
+from pathlib import Path, PurePosixPath
 
 import numpy as np
 import orjson
@@ -176,7 +176,7 @@ class _Checker:
                     if self.decode_images:
                         im.load()
                     self._sizes[path] = im.size
-            except (OSError, SyntaxError, ValueError) as e:
+            except (OSError, SyntaxError, ValueError, Image.DecompressionBombError) as e:
                 self._sizes[path] = None
                 self.add(path, "", "image must decode", str(e))
         return self._sizes[path]
@@ -232,6 +232,9 @@ class _Checker:
             size_of[im.get("id")] = (w, h)
             fn = im.get("file_name")
             if not isinstance(fn, str):
+                continue
+            if not _inside(fn):
+                self.add(path, record, "file_name must be a relative path inside the dataset", fn)
                 continue
             if files[fn] > 1:
                 self.add(path, record, "file_name must be unique", fn)
@@ -369,7 +372,7 @@ class _Checker:
             w, h = doc["width"], doc["height"]
             n = len(doc["names"])
             n_obj += n
-            img = self.find_image(doc["filename"])
+            img = self.find_image(doc["filename"]) if _inside(doc["filename"]) else None
             if img is None:
                 self.add(p, "filename", "image file must exist", doc["filename"])
             else:
@@ -529,6 +532,11 @@ def _is_int(v) -> bool:
 
 def _is_num(v) -> bool:
     return isinstance(v, (int, float)) and not isinstance(v, bool)
+
+
+def _inside(file_name: str) -> bool:
+    p = PurePosixPath(file_name.replace("\\", "/"))
+    return not p.is_absolute() and ".." not in p.parts
 
 
 def _sort_key(v):

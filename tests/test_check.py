@@ -222,3 +222,67 @@ def test_split_files_must_not_share_images(tmp_path):
     val_path.write_bytes(orjson.dumps(val))
     (p,) = _only(check_dataset(tmp_path), "one split only")
     assert p.file == "annotations.val.json"
+
+
+def _foreign_voc(root):
+    """A VOC layout as other tools write it: Annotations/*.xml beside JPEGImages/*.jpg, no COCO file."""
+    from PIL import Image
+
+    from synthgen.formats.voc import write_voc
+    from tests._formats_helpers import build_coco
+
+    coco = build_coco([(40, 30, [((3, 2, 7, 5), 1)]), (40, 30, [((0, 0, 40, 30), 2)])])
+    for im in coco["images"]:
+        im["file_name"] = im["file_name"].replace(".png", ".jpg")
+    (root / "JPEGImages").mkdir(parents=True)
+    for im in coco["images"]:
+        Image.new("RGB", (40, 30), (90, 120, 30)).save(root / "JPEGImages" / im["file_name"], quality=90)
+    write_voc(coco, root / "Annotations")
+
+
+def test_voc_from_another_tool_passes(tmp_path):
+    """A clean Annotations/ + JPEGImages/ layout passes."""
+    _foreign_voc(tmp_path)
+    report = check_dataset(tmp_path)
+    assert report.formats == ("voc",) and report.problems == ()
+
+
+def test_voc_from_another_tool_with_a_wrong_size(tmp_path):
+    """A VOC <size> that disagrees with its JPEG is reported."""
+    _foreign_voc(tmp_path)
+    path = tmp_path / "Annotations" / "000001.xml"
+    path.write_text(path.read_text().replace("<width>40</width>", "<width>41</width>"))
+    (p,) = _only(check_dataset(tmp_path), "must match the image")
+    assert (p.file, p.record, p.value) == ("Annotations/000001.xml", "size", (41, 30))
+
+
+def test_yolo_from_another_tool(tmp_path):
+    """labels/ + images/ + classes.txt is checked; a box past the right edge is reported with its line."""
+    from PIL import Image
+
+    (tmp_path / "images").mkdir()
+    (tmp_path / "labels").mkdir()
+    Image.new("RGB", (20, 10)).save(tmp_path / "images" / "a.png")
+    (tmp_path / "classes.txt").write_text("boat\nbuoy\n")
+    (tmp_path / "labels" / "a.txt").write_text("0 0.5 0.5 0.2 0.2\n1 0.95 0.5 0.2 0.2\n")
+    report = check_dataset(tmp_path)
+    assert report.formats == ("yolo",)
+    (p,) = report.problems
+    assert (p.file, p.record, p.rule) == ("labels/a.txt", "line 2", "box must lie inside the image (normalized [0, 1])")
+
+
+def test_image_that_does_not_decode(tmp_path):
+    """A truncated PNG is reported as not decoding."""
+    make_dataset(tmp_path)
+    path = tmp_path / "images" / "000000.png"
+    path.write_bytes(path.read_bytes()[:200])
+    (p,) = _only(check_dataset(tmp_path), "image must decode")
+    assert p.file == "images/000000.png"
+
+
+def test_file_name_outside_the_dataset(tmp_path):
+    """An image file_name that climbs out of the dataset is reported, not opened."""
+    make_dataset(tmp_path)
+    _edit_coco(tmp_path, lambda c: c["images"][0].update(file_name="../../etc/passwd"))
+    (p,) = _only(check_dataset(tmp_path), "relative path inside the dataset")
+    assert p.record == "images[0] (id 1)"

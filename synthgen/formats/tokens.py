@@ -368,6 +368,18 @@ def read_vocabulary(path) -> dict:
             raise bad_record(path, "top level", f"must have '{key}'", None)
     if not isinstance(vocab["n_bins"], int) or vocab["n_bins"] < 1:
         raise bad_record(path, "n_bins", "must be a positive whole number", vocab["n_bins"])
+    ranges = vocab["ranges"]
+    for key in ("noise", "end"):
+        r = ranges.get(key) if isinstance(ranges, dict) else None
+        if not (isinstance(r, list) and len(r) == 2 and all(isinstance(v, int) for v in r)):
+            raise bad_record(path, f"ranges.{key}", "must be [first, last] token ids", r)
+    classes = vocab["classes"]
+    ok = isinstance(classes, list) and all(
+        isinstance(c, dict) and isinstance(c.get("token"), int) and isinstance(c.get("category_id"), int)
+        for c in classes
+    )
+    if not ok:
+        raise bad_record(path, "classes", "must be a list of {token, category_id, name}", classes)
     return vocab
 
 

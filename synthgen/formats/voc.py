@@ -204,12 +204,12 @@ def read_voc(path) -> dict:
     if size is None:
         raise bad_record(path, "annotation", "must have <size>", None)
     dims = [_number(path, size, t, "size") for t in ("width", "height")]
-    depth = size.find("depth")
+    has_depth = size.find("depth") is not None and (size.find("depth").text or "").strip()
     out = {
         "filename": _text(path, root, "filename", "annotation"),
         "width": int(dims[0]),
         "height": int(dims[1]),
-        "depth": int(float(depth.text)) if depth is not None and depth.text else 3,
+        "depth": int(_number(path, size, "depth", "size")) if has_depth else 3,
     }
     names, boxes, flags = [], [], {"truncated": [], "occluded": [], "difficult": []}
     for i, obj in enumerate(root.findall("object")):
