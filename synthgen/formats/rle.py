@@ -65,21 +65,19 @@ def counts_to_string(counts) -> str:
     x = cnts.copy()
     if m > 3:
         x[3:] -= cnts[1:-2]  # delta against the count two places earlier
-    chars = np.zeros((m, _MAX_GROUPS), dtype=np.uint8)
-    active = np.zeros((m, _MAX_GROUPS), dtype=bool)
-    live = np.ones(m, dtype=bool)
-    for k in range(_MAX_GROUPS):
-        c = x & 0x1F
-        x = x >> 5  # arithmetic shift: negative deltas keep their sign
-        more = np.where(c & 0x10, x != -1, x != 0)
-        chars[:, k] = (c | (more.astype(np.int64) << 5)) + 48
-        active[:, k] = live
-        live = live & more
-        if not live.any():
-            break
-    else:
+    # Groups per value: the fewest 5-bit groups holding it as a signed number.
+    mag = np.where(x < 0, ~x, x)  # bits needed, less the sign bit
+    if mag.max() >= 1 << (5 * _MAX_GROUPS - 1):
         raise ValueError("RLE count too large to encode")
-    return chars[active].tobytes().decode("ascii")
+    bits = np.frexp(mag.astype(np.float64))[1] + 1  # bit length + sign bit (exact below 2**53)
+    groups = (bits + 4) // 5
+    first = np.cumsum(groups) - groups  # (m,) output position of each value's first group
+    total = int(groups.sum())
+    j = np.arange(total, dtype=np.int64) - np.repeat(first, groups)  # group index within its value
+    v = np.repeat(x, groups)
+    c = (v >> (5 * j)) & 0x1F  # arithmetic shift keeps the sign of negative deltas
+    c |= (j < np.repeat(groups, groups) - 1).astype(np.int64) << 5  # continuation bit
+    return (c + 48).astype(np.uint8).tobytes().decode("ascii")
 
 
 def _counts_to_string_small(cnts: list[int]) -> str:
