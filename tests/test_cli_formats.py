@@ -132,3 +132,10 @@ def test_check_finds_a_file_changed_after_make(made, tmp_path):
     assert [(p.file, p.record, p.rule) for p in report.problems] == [
         ("manifest.json", "files['yolo/000000.txt']", "file must match its sha256 digest")
     ]
+
+
+def test_check_quick_reads_headers_only(made):
+    """check --quick still checks sizes (from the headers) and exits 0 on a clean dataset."""
+    res = run("check", made, "--quick")
+    assert res.exit_code == 0, res.output
+    assert "coco 4 images" in res.stdout
