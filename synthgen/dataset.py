@@ -35,6 +35,7 @@ from synthgen.errors import UserError
 from synthgen.formats import rle
 from synthgen.formats.coco import bbox_from_xyxy, write_bytes_atomic, write_coco
 from synthgen.formats.export import parse_formats, write_formats
+from synthgen.formats.splits import check_fractions
 from synthgen.formats.images import EXTENSIONS, encode_image
 from synthgen.scene import Scene, category_id, render_scene
 
@@ -279,7 +280,9 @@ def make_dataset(
     """
     start = time.perf_counter()
     out = Path(out)
-    formats = parse_formats(formats)  # bad names fail before anything is written
+    formats = parse_formats(formats)  # bad names and fractions fail before anything is written
+    if split:
+        check_fractions(split)
     prepare_output(out, overwrite=overwrite)
     images_dir = out / "images"
     images_dir.mkdir(parents=True, exist_ok=True)
@@ -303,10 +306,11 @@ def make_dataset(
     extra = [f for f in formats if f != "coco"]
     if extra or split:
         write_formats(coco, out, extra, split=split, seed=config.seed)
-        for path in sorted(out.rglob("*")):
-            name = path.relative_to(out).as_posix()
-            if path.is_file() and name not in files and name != "manifest.json" and not name.startswith("images/"):
-                files[name] = hashlib.sha256(path.read_bytes()).hexdigest()
+        for pattern in FORMAT_ENTRIES:
+            for top in out.glob(pattern):
+                for path in sorted(top.rglob("*")) if top.is_dir() else [top]:
+                    if path.is_file():
+                        files[path.relative_to(out).as_posix()] = hashlib.sha256(path.read_bytes()).hexdigest()
     n_objects = len(coco["annotations"])
     manifest = {
         "tool": "synthgen",

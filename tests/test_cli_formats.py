@@ -139,3 +139,15 @@ def test_check_quick_reads_headers_only(made):
     res = run("check", made, "--quick")
     assert res.exit_code == 0, res.output
     assert "coco 4 images" in res.stdout
+
+
+def test_manifest_lists_format_files_but_not_foreign_ones(made, tmp_path):
+    """--overwrite with formats lists the new format files in the manifest, not a user's own file left in place."""
+    out = tmp_path / "d"
+    shutil.copytree(made, out)
+    (out / "notes.txt").write_text("mine")
+    res = run("make", "--out", out, *SMALL, "--overwrite", "--formats", "yolo")
+    assert res.exit_code == 0, res.output
+    files = json.loads((out / "manifest.json").read_text())["files"]
+    assert "yolo/labels.txt" in files and "notes.txt" not in files
+    assert not any(name.startswith("voc/") for name in files)

@@ -32,7 +32,7 @@ import numpy as np
 
 from synthgen.errors import ConfigError
 
-__all__ = ["SPLIT_STREAM", "parse_split", "assign_splits", "split_coco", "coco_split_name"]
+__all__ = ["SPLIT_STREAM", "parse_split", "check_fractions", "assign_splits", "split_coco", "coco_split_name"]
 
 # Spawn-key element of the stream that orders images for splitting.
 SPLIT_STREAM = 0x73706C
@@ -49,7 +49,8 @@ def coco_split_name(split: str) -> str:
     return f"annotations.{split}.json"
 
 
-def _check_fractions(fractions: dict[str, float], key: str) -> None:
+def check_fractions(fractions: dict[str, float], key: str = "split") -> None:
+    """Raise :class:`~synthgen.errors.ConfigError` unless ``fractions`` names splits whose fractions add up to 1."""
     if not fractions:
         raise ConfigError(key, "must name at least one split, e.g. train=0.8,val=0.2", fractions)
     for name, f in fractions.items():
@@ -82,7 +83,7 @@ def parse_split(text: str, *, key: str = "--split") -> dict[str, float]:
             out[name] = float(value)
         except ValueError:
             raise ConfigError(key, f"fraction of split '{name}' must be a number", value.strip()) from None
-    _check_fractions(out, key)
+    check_fractions(out, key)
     return out
 
 
@@ -118,7 +119,7 @@ def assign_splits(n_images: int, fractions: dict[str, float], *, seed: int) -> l
     >>> s.count("train"), s.count("val")
     (8, 2)
     """
-    _check_fractions(fractions, "split")
+    check_fractions(fractions, "split")
     names = list(fractions)
     sizes = _sizes(n_images, [fractions[k] for k in names])
     rng = np.random.Generator(np.random.PCG64(np.random.SeedSequence(seed, spawn_key=(SPLIT_STREAM,))))
