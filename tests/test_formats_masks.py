@@ -8,8 +8,6 @@ from pycocotools import mask as cocomask
 from synthgen.formats import masks, rle
 from tests._formats_helpers import build_coco
 
-# pycocotools 2.0.x decode trips numpy 2's __array__(copy=...) deprecation; not ours to fix.
-pytestmark = pytest.mark.filterwarnings("ignore:__array__ implementation doesn't accept a copy keyword:DeprecationWarning")
 
 IMAGES = [(40, 30, [((3, 2, 7, 5), 1), ((5, 3, 20, 25), 2), ((0, 0, 40, 1), 3)]), (40, 30, [])]
 

@@ -9,8 +9,6 @@ from pycocotools import mask as cocomask
 
 from synthgen.formats import rle
 
-# pycocotools 2.0.x decode trips numpy 2's __array__(copy=...) deprecation; not ours to fix.
-pytestmark = pytest.mark.filterwarnings("ignore:__array__ implementation doesn't accept a copy keyword:DeprecationWarning")
 
 
 def _reference(mask: np.ndarray) -> dict:
