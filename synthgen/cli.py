@@ -11,6 +11,7 @@ import functools
 import os
 import sys
 import traceback
+from enum import Enum
 from pathlib import Path
 from typing import Annotated, Optional
 
@@ -108,6 +109,25 @@ SetOpt = Annotated[
 ]
 
 
+# -- options shared by make and export (formats and splits) ------------------------
+FormatsOpt = Annotated[
+    str,
+    typer.Option(
+        "--formats", help="Comma-separated formats: coco, voc, yolo, tokens, masks (COCO JSON is always written by make)."
+    ),
+]
+SplitOpt = Annotated[
+    Optional[str],
+    typer.Option("--split", help="Split the images, e.g. train=0.8,val=0.1,test=0.1 (one COCO file per split)."),
+]
+
+
+def _formats_and_split(formats: str, split: str | None):
+    from synthgen.formats import parse_formats, parse_split
+
+    return parse_formats(formats), (parse_split(split) if split else None)
+
+
 @app.command()
 @reported
 def make(
@@ -119,6 +139,8 @@ def make(
     overwrite: Annotated[bool, typer.Option("--overwrite", help="Replace the dataset in a non-empty output directory.")] = False,
     workers: Annotated[Optional[int], typer.Option(help="Processes to render with (default: usable cores).", min=1)] = None,
     quiet: Annotated[bool, typer.Option("--quiet", "-q", help="No progress bar.")] = False,
+    formats: FormatsOpt = "coco",
+    split: SplitOpt = None,
 ) -> None:
     """Render a dataset: images, COCO JSON annotations and a manifest."""
     from synthgen.config import load_config
@@ -130,9 +152,12 @@ def make(
     if seed is not None:
         overrides.append(f"seed={seed}")
     cfg = load_config(config, overrides)
+    format_names, fractions = _formats_and_split(formats, split)
     bar, advance = _progress(cfg.count, quiet, "rendering")
     with bar:
-        summary = make_dataset(cfg, out, overwrite=overwrite, workers=workers, progress=advance)
+        summary = make_dataset(
+            cfg, out, overwrite=overwrite, workers=workers, progress=advance, formats=format_names, split=fractions
+        )
     typer.echo(
         f"wrote {summary.images} images, {summary.objects} objects to {summary.out} "
         f"in {summary.seconds:.2f} s ({summary.images_per_second:.1f} images/s)"
@@ -177,6 +202,19 @@ def _pair(text: str, option: str) -> tuple[float, float]:
     if len(values) not in (1, 2):
         raise UserError(f"option '{option}' must be LO,HI or one number (got {text!r})")
     return (values[0], values[-1])
+
+
+# -- check and export -----------------------------------------------------------------
+class TokenOrder(str, Enum):
+    random = "random"
+    raster = "raster"
+    area = "area"
+    distance = "distance"
+
+
+class MaskMode(str, Enum):
+    png = "png"
+    rle = "rle"
 
 
 @app.command()
@@ -312,6 +350,50 @@ def score(
         json_out.write_bytes(orjson.dumps(evaluation.to_dict(slices), option=orjson.OPT_INDENT_2))
     if plot is not None:
         rep.plot_slices(slices, plot, title=f"{predictions.name} on {dataset.name}")
+
+
+@app.command()
+@reported
+def check(
+    dataset: Annotated[Path, typer.Argument(help="Dataset directory, or a COCO JSON file.", show_default=False)],
+    quick: Annotated[
+        bool, typer.Option("--quick", help="Read only image headers for their sizes; do not decode the pixels.")
+    ] = False,
+) -> None:
+    """Validate a dataset in COCO, VOC, YOLO, token or mask format (exit 0 clean, 1 problems, 2 unusable)."""
+    from synthgen.check import check_dataset
+
+    report = check_dataset(dataset, decode_images=not quick)
+    for problem in report.problems:
+        typer.echo(str(problem))
+    typer.echo(report.summary())
+    if not report.ok:
+        raise typer.Exit(1)
+
+
+@app.command()
+@reported
+def export(
+    dataset: Annotated[Path, typer.Argument(help="Dataset directory written by make.", show_default=False)],
+    formats: FormatsOpt = "voc,yolo",
+    out: Annotated[Optional[Path], typer.Option("--out", "-o", help="Output directory (default: the dataset).")] = None,
+    split: SplitOpt = None,
+    seed: Annotated[
+        Optional[int], typer.Option(help="Seed for splits and random token order (default: the manifest's).")
+    ] = None,
+    bins: Annotated[int, typer.Option("--bins", help="Token bins per axis.")] = 1000,
+    order: Annotated[TokenOrder, typer.Option(help="Object order in token sequences.")] = TokenOrder.random,
+    masks: Annotated[MaskMode, typer.Option(help="Instance masks as id PNGs or per-object RLE lines.")] = MaskMode.png,
+) -> None:
+    """Write further formats (and splits) of an existing dataset, without re-rendering."""
+    from synthgen.formats import export as export_formats
+
+    format_names, fractions = _formats_and_split(formats, split)
+    done = export_formats(
+        dataset, format_names, out=out, split=fractions, seed=seed, n_bins=bins, order=order.value, masks=masks.value
+    )
+    written = ", ".join(f"{k} ({n} images)" for k, n in done.items()) or "nothing new"
+    typer.echo(f"wrote {written} to {out if out is not None else dataset}")
 
 
 def main() -> None:
