@@ -41,3 +41,15 @@ def test_my_ap50_matches_the_known_answer(case):
     """Exact, shifted and partly missed predictions: AP50 equals the closed-form value."""
     gt, preds, expected = case
     assert my_ap50(gt, preds) == pytest.approx(expected["AP50"], abs=1e-12)
+
+
+@pytest.mark.synth(images=6, count=(2, 5), seed=2, detector={"miss": 0.25, "iou": (0.6, 0.9)})
+def test_my_ap50_sees_every_miss(synth_predictions):
+    """A simulated detector that misses a quarter of the objects: recall, hence AP50, drops accordingly."""
+    coco, preds, truth = synth_predictions
+    missed = set(truth["missed"])
+    assert len(missed) == round(0.25 * len(coco["annotations"]))
+    kinds = {p["kind"] for p in truth["predictions"]}
+    assert kinds == {"true_positive"}
+    # all found objects are matched at IoU >= 0.6 and nothing else is predicted: AP50 < 1 exactly when something is missed
+    assert (my_ap50(coco, preds) < 1.0) == bool(missed)

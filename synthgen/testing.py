@@ -406,7 +406,7 @@ if pytest is not None:
     def pytest_configure(config):
         config.addinivalue_line(
             "markers",
-            "synth(width=, height=, count=, size=, layout=, seed=, images=, overrides=, formats=): "
+            "synth(width=, height=, count=, size=, layout=, seed=, images=, overrides=, formats=, detector=): "
             "settings for the synthgen fixtures synth_scene, synth_dataset and synth_predictions",
         )
 
@@ -421,7 +421,36 @@ if pytest is not None:
         opts = _options(request)
         index = opts.pop("index", 0)
         opts.pop("formats", None)
+        opts.pop("detector", None)
         return small_scene(index, **opts)
+
+    @pytest.fixture
+    def synth_predictions(request, tmp_path):
+        """Simulated detections for a small dataset, with what each one is.
+
+        Returns ``(coco, predictions, truth)``: the dataset's COCO dict, a COCO
+        results list, and the truth sidecar (``truth["predictions"][i]["kind"]``
+        is ``true_positive``, ``duplicate``, ``localization``, ``wrong_class`` or
+        ``background``; ``truth["missed"]`` lists missed annotation ids).  The
+        detector is set with ``detector={...}`` (fields of
+        :class:`synthgen.jitter.DetectorSpec`, e.g. ``{"miss": 0.2, "iou": (0.5, 0.9)}``)
+        in the ``synth`` marker or the indirect parameter; the default makes
+        only true positives at IoU 0.7-0.95.
+        """
+        from synthgen.jitter import DetectorSpec
+        from synthgen.jitter_coco import jitter_dataset
+
+        opts = _options(request)
+        detector = dict(opts.pop("detector", {}))
+        opts.pop("formats", None)
+        opts.pop("index", None)
+        path = small_dataset(tmp_path / "synth", **opts)
+        import json
+
+        coco = json.loads((path / "annotations.json").read_text())
+        spec = DetectorSpec(**{k: tuple(v) if isinstance(v, list) else v for k, v in detector.items()})
+        predictions, truth, _ = jitter_dataset(coco, seed=opts.get("seed", 0), spec=spec)
+        return coco, predictions, truth
 
     @pytest.fixture
     def synth_dataset(request, tmp_path):
@@ -429,4 +458,5 @@ if pytest is not None:
         opts = _options(request)
         formats = tuple(opts.pop("formats", ("coco",)))
         opts.pop("index", None)
+        opts.pop("detector", None)
         return small_dataset(tmp_path / "synth", formats=formats, **opts)

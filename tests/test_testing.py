@@ -142,6 +142,11 @@ def test_plugin_loads_in_an_outside_project(pytester, monkeypatch):
 
         def test_dataset(synth_dataset):
             assert (synth_dataset / "annotations.json").exists()
+
+        @pytest.mark.synth(detector={"miss": 0.5})
+        def test_predictions(synth_predictions):
+            coco, preds, truth = synth_predictions
+            assert len(preds) == len(coco["annotations"]) - len(truth["missed"])
         """
     )
     from importlib.metadata import entry_points
@@ -154,4 +159,4 @@ def test_plugin_loads_in_an_outside_project(pytester, monkeypatch):
         monkeypatch.setenv("PYTHONPATH", str(Path(__file__).resolve().parent.parent))
         args += ["-p", "synthgen.testing"]
     result = pytester.runpytest_subprocess(*args)
-    result.assert_outcomes(passed=4)
+    result.assert_outcomes(passed=5)
