@@ -384,13 +384,34 @@ def export(
     bins: Annotated[int, typer.Option("--bins", help="Token bins per axis.")] = 1000,
     order: Annotated[TokenOrder, typer.Option(help="Object order in token sequences.")] = TokenOrder.random,
     masks: Annotated[MaskMode, typer.Option(help="Instance masks as id PNGs or per-object RLE lines.")] = MaskMode.png,
+    pad_to: Annotated[
+        Optional[int],
+        typer.Option(
+            "--pad-to", min=0,
+            help="Token sequences: pad each image to this many objects with training noise objects "
+            "(jittered true boxes and random boxes, noise class, zero coordinate weight).",
+        ),
+    ] = None,
+    noise_jittered: Annotated[
+        float, typer.Option("--noise-jittered", min=0.0, max=1.0, help="Share of noise objects made by jittering true boxes.")
+    ] = 0.5,
 ) -> None:
     """Write further formats (and splits) of an existing dataset, without re-rendering."""
     from synthgen.formats import export as export_formats
+    from synthgen.formats.export import dataset_seed
 
     format_names, fractions = _formats_and_split(formats, split)
+    noise = None
+    if pad_to is not None:
+        from synthgen.jitter import noise_padder
+
+        if "tokens" not in format_names:
+            raise UserError("option '--pad-to' pads token sequences, so --formats must include tokens (got " f"{formats!r})")
+        seed = dataset_seed(dataset) if seed is None else seed
+        noise = noise_padder(seed, pad_to, jittered=noise_jittered)
     done = export_formats(
-        dataset, format_names, out=out, split=fractions, seed=seed, n_bins=bins, order=order.value, masks=masks.value
+        dataset, format_names, out=out, split=fractions, seed=seed, n_bins=bins, order=order.value, masks=masks.value,
+        noise=noise,
     )
     written = ", ".join(f"{k} ({n} images)" for k, n in done.items()) or "nothing new"
     typer.echo(f"wrote {written} to {out if out is not None else dataset}")

@@ -58,6 +58,8 @@ from synthgen.errors import ConfigError, check_number, check_range
 from synthgen.geometry import as_boxes, box_iou, boxes_valid
 
 __all__ = [
+    "NOISE_STREAM",
+    "noise_padder",
     "IOU_TOLERANCE",
     "ERROR_MODES",
     "DETECTION_KINDS",
@@ -1408,3 +1410,36 @@ def simulate_detections(
         outcome=outcome,
         background_shortfall=short,
     )
+
+
+#: ``spawn_key`` tail of the training-noise stream of image k: ``(k, NOISE_STREAM)`` (the bytes of "nois").
+NOISE_STREAM = 0x6E6F6973
+
+
+def noise_padder(seed: int, length: int, *, jittered: float = 0.5, shift: float = 0.2, scale: float = 0.4):
+    """A per-image training-noise maker for token sequences (see :func:`synthgen.formats.tokens.write_tokens`).
+
+    Returns ``noise(k, boxes, category_ids, (width, height)) -> NoisePadded``
+    that pads image ``k``'s objects to ``max(length, N)`` with
+    :func:`pad_with_noise`, drawing from ``SeedSequence(seed, spawn_key=(k, NOISE_STREAM))``
+    so every image's noise is fixed by the seed and its index alone.
+
+    Examples
+    --------
+    >>> pad = noise_padder(0, 4)
+    >>> out = pad(0, np.array([[2.0, 2.0, 9.0, 9.0]]), np.array([3]), (32, 32))
+    >>> out.boxes.shape, int(out.is_noise.sum())
+    ((4, 4), 3)
+    """
+    if length < 0:
+        raise ValueError(f"length must be >= 0 (got {length})")
+
+    def noise(k: int, boxes, category_ids, canvas) -> NoisePadded:
+        rng = np.random.Generator(np.random.PCG64(np.random.SeedSequence(seed, spawn_key=(int(k), NOISE_STREAM))))
+        b = as_boxes(boxes)
+        return pad_with_noise(
+            b, np.asarray(category_ids, dtype=np.int64), max(length, len(b)), rng=rng, canvas=canvas,
+            noise_label=-1, jittered=jittered, shift=shift, scale=scale,
+        )
+
+    return noise

@@ -151,3 +151,37 @@ def test_manifest_lists_format_files_but_not_foreign_ones(made, tmp_path):
     files = json.loads((out / "manifest.json").read_text())["files"]
     assert "yolo/labels.txt" in files and "notes.txt" not in files
     assert not any(name.startswith("voc/") for name in files)
+
+
+def test_export_pads_token_sequences_with_training_noise(tmp_path):
+    """--pad-to L: every sequence holds max(L, N) objects, noise ones with the noise class and zero box weight.
+
+    Noise objects carry zero loss weight on their coordinates (REFERENCE.md: box quantization for
+    token sequences, training-time noise objects).
+    """
+    from synthgen.formats.tokens import read_tokens, read_vocabulary
+
+    out = tmp_path / "d"
+    assert run("make", "--out", out, *SMALL).exit_code == 0
+    res = run("export", out, "--formats", "tokens", "--pad-to", 12, "--out", tmp_path / "t")
+    assert res.exit_code == 0, res.output
+    vocab = read_vocabulary(tmp_path / "t" / "tokens.vocab.json")
+    rows = read_tokens(tmp_path / "t" / "tokens.jsonl", tmp_path / "t" / "tokens.vocab.json")
+    coco = json.loads((out / "annotations.json").read_text())
+    for row, im in zip(rows, coco["images"]):
+        n = sum(a["image_id"] == im["id"] for a in coco["annotations"])
+        assert len(row["boxes"]) == max(12, n) and int(row["is_noise"].sum()) == max(12, n) - n
+        w = np.asarray(row["weights"][:-1]).reshape(-1, 5)  # 5 tokens per object, then the end token
+        assert (w[row["is_noise"], :4] == 0).all() and (w[~row["is_noise"]] == 1).all()
+        assert vocab["ranges"]["noise"][0] in row["tokens"] or n >= 12
+    again = run("export", out, "--formats", "tokens", "--pad-to", 12, "--out", tmp_path / "t2")
+    assert again.exit_code == 0
+    assert (tmp_path / "t" / "tokens.jsonl").read_bytes() == (tmp_path / "t2" / "tokens.jsonl").read_bytes()
+
+
+def test_pad_to_needs_tokens(tmp_path):
+    """--pad-to without the tokens format is a usage error naming the option."""
+    out = tmp_path / "d"
+    assert run("make", "--out", out, *SMALL).exit_code == 0
+    res = run("export", out, "--formats", "voc", "--pad-to", 5)
+    assert res.exit_code == 2 and "--pad-to" in res.stderr

@@ -180,6 +180,11 @@ def _manifest_seed(dataset_dir: Path) -> int | None:
     return seed if isinstance(seed, int) and not isinstance(seed, bool) else None
 
 
+def dataset_seed(dataset_dir) -> int:
+    """The root seed recorded in ``dataset_dir/manifest.json`` (0 when there is none)."""
+    return _manifest_seed(Path(dataset_dir)) or 0
+
+
 def export(
     dataset_dir,
     formats: Iterable[str],
@@ -223,7 +228,7 @@ def export(
         raise InputFileError(dataset_dir, "is not a directory")
     coco = read_coco(dataset_dir / "annotations.json")
     if seed is None:
-        seed = _manifest_seed(dataset_dir) or 0
+        seed = dataset_seed(dataset_dir)
     out = Path(out) if out is not None else dataset_dir
     formats = list(formats)
     formats = parse_formats(formats) if formats or not split else ()  # splits alone are fine
