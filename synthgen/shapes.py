@@ -189,34 +189,49 @@ def _expand(coef: np.ndarray, nd: int) -> np.ndarray:
 
 
 class _Convex:
-    """Union of convex polygons given as half-planes ``nx x + ny y <= c``."""
+    """Union of P convex polygons, each given by E half-planes ``nx x + ny y <= c``.
 
-    __slots__ = ("nx", "ny", "c")
+    ``nx``, ``ny`` and ``c`` have shape (P, E); the normals are unit vectors, so
+    ``nx x + ny y - c`` is the signed distance to each edge's line.
+    """
 
-    def __init__(self, pieces: np.ndarray):
-        # pieces: (P, E, 2) vertices of P convex polygons with E vertices each.
+    __slots__ = ("nx", "ny", "c", "_nx2", "_ny2", "_c2")
+
+    def __init__(self, nx: np.ndarray, ny: np.ndarray, c: np.ndarray):
+        self.nx, self.ny, self.c = nx, ny, c
+        # Pre-expanded for 2-D point arrays, the common case.
+        self._nx2, self._ny2, self._c2 = nx[..., None, None], ny[..., None, None], c[..., None, None]
+
+    @classmethod
+    def from_pieces(cls, pieces: np.ndarray) -> _Convex:
+        """Half-planes of convex polygons with vertices ``pieces`` (P, E, 2), any orientation."""
         d = np.roll(pieces, -1, axis=1) - pieces  # (P, E, 2) edge vectors
         length = np.hypot(d[..., 0], d[..., 1])  # (P, E)
         nx = d[..., 1] / length
         ny = -d[..., 0] / length
         c = nx * pieces[..., 0] + ny * pieces[..., 1]
         mid = pieces.mean(axis=1)  # (P, 2), strictly inside each convex piece
-        flip = (nx * mid[:, None, 0] + ny * mid[:, None, 1] - c) > 0  # inward normal
+        flip = (nx * mid[:, None, 0] + ny * mid[:, None, 1] - c) > 0  # normal points inward
         sign = np.where(flip, -1.0, 1.0)
-        self.nx, self.ny, self.c = nx * sign, ny * sign, c * sign
+        return cls(nx * sign, ny * sign, c * sign)
 
     def _edge_max(self, x, y) -> np.ndarray:
         x = np.asarray(x, dtype=np.float64)
         y = np.asarray(y, dtype=np.float64)
         nd = max(x.ndim, y.ndim)
-        vals = (_expand(self.nx, nd) * x - _expand(self.c, nd)) + _expand(self.ny, nd) * y
+        if nd == 2:
+            vals = (self._nx2 * x - self._c2) + self._ny2 * y  # (P, E, ...)
+        else:
+            vals = (_expand(self.nx, nd) * x - _expand(self.c, nd)) + _expand(self.ny, nd) * y
         return vals.max(axis=1)  # (P, ...)
 
     def contains(self, x, y) -> np.ndarray:
-        return (self._edge_max(x, y) <= _TOL).any(axis=0)
+        m = self._edge_max(x, y)
+        return m[0] <= _TOL if m.shape[0] == 1 else (m <= _TOL).any(axis=0)
 
     def bound(self, x, y) -> np.ndarray:
-        return self._edge_max(x, y).min(axis=0)
+        m = self._edge_max(x, y)
+        return m[0] if m.shape[0] == 1 else m.min(axis=0)
 
 
 class _Ellipse:
@@ -325,72 +340,113 @@ class _Band:
 
 
 class _Geom:
-    __slots__ = ("box", "area", "ring", "region", "ellipse", "hole")
+    __slots__ = ("box", "area", "region", "ellipse", "hole", "_verts", "_nring", "_map")
 
-    def __init__(self, box, area, ring, region, ellipse, hole):
+    def __init__(self, box, area, region, ellipse=None, hole=0.0, verts=None, nring=0, affine=None):
         self.box = box  # tuple (x0, y0, x1, y1), unclipped
         self.area = area
-        self.ring = ring  # (K, 2) exact vertices (polygon kinds) or None
         self.region = region  # fill region
         self.ellipse = ellipse  # _Ellipse for ellipse / ring, else None
         self.hole = hole  # ring hole ratio, else 0.0
+        self._verts = verts  # own-frame vertices (2, K) of polygon kinds, else None
+        self._nring = nring
+        self._map = affine  # (M (2, 2), t (2,)): image point = M @ own point + t
+
+    @property
+    def ring(self) -> np.ndarray | None:
+        """Exact vertices (K, 2) in image coordinates (polygon kinds), else None."""
+        if self._verts is None:
+            return None
+        m, t = self._map
+        return (m @ self._verts[:, : self._nring]).T + t
 
 
-@lru_cache(maxsize=256)
-def _unit(kind: str, sides: int, inner: float):
-    """Own-frame outline of width 1 and height 1, centred on its own box.
+@lru_cache(maxsize=64)
+def _unit(kind: str, sides: int):
+    """Own-frame geometry of a rectangle, triangle or regular polygon.
 
-    Returns (vertices (K + X, 2), K ring length, piece indices (P, E) or None,
-    area of the unit shape).  Vertices past K are helper points (a star's centre).
+    Returns ``(verts (2, K), nx (P, E), ny (P, E), c (P, E), area, ext_x, ext_y)``:
+    the ring's vertices as columns, the half-planes of the convex pieces whose
+    union is the shape (unit normals), its area and its box size.  The frame is
+    the natural one (a polygon has circumradius 1); :func:`_build` stretches it
+    to width ``aspect`` and height 1.
     """
     if kind == "rectangle":
         v = np.array([[-0.5, -0.5], [0.5, -0.5], [0.5, 0.5], [-0.5, 0.5]])
-        return v, 4, np.arange(4)[None, :], 1.0
-    if kind == "triangle":
+        area = 1.0
+    elif kind == "triangle":
         v = np.array([[0.0, -0.5], [0.5, 0.5], [-0.5, 0.5]])
-        return v, 3, np.arange(3)[None, :], 0.5
-    if kind == "cross":
-        h = inner / 2.0
-        v = np.array(
-            [
-                [-h, -0.5], [h, -0.5], [h, -h], [0.5, -h], [0.5, h], [h, h],
-                [h, 0.5], [-h, 0.5], [-h, h], [-0.5, h], [-0.5, -h], [-h, -h],
-            ]
-        )  # fmt: skip
-        pieces = np.array([[10, 3, 4, 9], [0, 1, 6, 7]])  # horizontal bar, vertical bar
-        return v, 12, pieces, 2.0 * inner - inner * inner
-    if kind == "polygon":
+        area = 0.5
+    else:
         phi = 2.0 * np.pi * np.arange(sides) / sides
-        raw = np.stack([np.sin(phi), -np.cos(phi)], axis=1)
-        area = sides * math.sin(2.0 * math.pi / sides) / 2.0
-        pieces = np.arange(sides)[None, :]
-        k = sides
-    elif kind == "star":
-        phi = np.pi * np.arange(2 * sides) / sides
-        r = np.where(np.arange(2 * sides) % 2 == 0, 1.0, inner)
-        raw = np.stack([r * np.sin(phi), -r * np.cos(phi)], axis=1)
-        raw = np.vstack([raw, [[0.0, 0.0]]])  # helper point: the centre
-        area = sides * inner * math.sin(math.pi / sides)
-        n2 = 2 * sides
-        j = np.arange(sides)
-        # kites (centre, inner before, point, inner after): convex, union is the star
-        pieces = np.stack([np.full(sides, n2), (2 * j - 1) % n2, 2 * j, 2 * j + 1], axis=1)
-        k = n2
-    else:  # pragma: no cover - guarded by Shape
-        raise ValueError(kind)
-    lo = raw[:k].min(axis=0)
-    hi = raw[:k].max(axis=0)
-    ext = hi - lo
-    v = (raw - (lo + hi) / 2.0) / ext
-    return v, k, pieces, area / (ext[0] * ext[1])
+        v = np.stack([np.sin(phi), -np.cos(phi)], axis=1)
+        area = sides * math.sin(2.0 * math.pi / sides) / 2.0  # n R^2 sin(2 pi / n) / 2
+    hp = _Convex.from_pieces(v[None, :, :])
+    ext = v.max(axis=0) - v.min(axis=0)
+    verts = np.ascontiguousarray(v.T)
+    for arr in (verts, hp.nx, hp.ny, hp.c):
+        arr.flags.writeable = False
+    return verts, hp.nx, hp.ny, hp.c, area, float(ext[0]), float(ext[1])
+
+
+@lru_cache(maxsize=64)
+def _star_table(sides: int):
+    """Per-``sides`` constants of a star: vertex directions, parity and kite turns."""
+    n2 = 2 * sides
+    phi = np.pi * np.arange(n2) / sides
+    dirs = np.stack([np.sin(phi), -np.cos(phi)])  # (2, 2n), point 0 straight up
+    odd = np.arange(n2) % 2 == 1
+    turn = 2.0 * np.pi * np.arange(sides) / sides
+    for arr in (dirs, odd):
+        arr.flags.writeable = False
+    return dirs, odd, np.cos(turn)[:, None], np.sin(turn)[:, None]
+
+
+def _star(sides: int, inner: float):
+    """Own-frame geometry of a star (outer radius 1), in :func:`_unit`'s layout."""
+    dirs, odd, ct, st = _star_table(sides)
+    verts = dirs * np.where(odd, inner, 1.0)  # (2, 2n)
+    lo = verts.min(axis=1)
+    hi = verts.max(axis=1)
+    # Kite 0 = (centre, inner vertex before, point straight up, inner vertex after);
+    # its outward edge normals, in order, then the other kites turned about the centre.
+    sa, ca = math.sin(math.pi / sides), math.cos(math.pi / sides)
+    r = inner
+    inv = 1.0 / math.hypot(1.0 - r * ca, r * sa)
+    n0x = np.array([-ca, (r * ca - 1.0) * inv, (1.0 - r * ca) * inv, ca])
+    n0y = np.array([sa, -r * sa * inv, -r * sa * inv, sa])
+    c0 = np.array([0.0, r * sa * inv, r * sa * inv, 0.0])
+    nx = ct * n0x - st * n0y  # (n, 4)
+    ny = st * n0x + ct * n0y
+    c = np.broadcast_to(c0, nx.shape)
+    area = sides * inner * sa
+    return verts, nx, ny, c, area, float(hi[0] - lo[0]), float(hi[1] - lo[1])
+
+
+_CROSS_NX = np.array([[1.0, -1.0, 0.0, 0.0], [1.0, -1.0, 0.0, 0.0]])
+_CROSS_NY = np.array([[0.0, 0.0, 1.0, -1.0], [0.0, 0.0, 1.0, -1.0]])
+
+
+def _cross(inner: float):
+    """Own-frame geometry of a cross (1 x 1), in :func:`_unit`'s layout."""
+    h = inner / 2.0
+    verts = np.array(
+        [
+            [-h, h, h, 0.5, 0.5, h, h, -h, -h, -0.5, -0.5, -h],
+            [-0.5, -0.5, -h, -h, h, h, 0.5, 0.5, h, h, -h, -h],
+        ]
+    )
+    c = np.array([[0.5, 0.5, h, h], [h, h, 0.5, 0.5]])  # horizontal bar, vertical bar
+    return verts, _CROSS_NX, _CROSS_NY, c, 2.0 * inner - inner * inner, 1.0, 1.0
 
 
 def _build(shape: Shape) -> _Geom:
     th = math.radians(shape.angle)
     cos, sin = math.cos(th), math.sin(th)
     kind = shape.kind
+    asp = shape.aspect
     if kind in _ELLIPTIC:
-        a0, b0 = shape.aspect / 2.0, 0.5
+        a0, b0 = asp / 2.0, 0.5
         hx = math.hypot(a0 * cos, b0 * sin)
         hy = math.hypot(a0 * sin, b0 * cos)
         k = shape.size / (2.0 * max(hx, hy))
@@ -401,25 +457,45 @@ def _build(shape: Shape) -> _Geom:
         if kind == "ring":
             q = shape.inner
             hole = _Ellipse(shape.cx, shape.cy, cos, sin, q * a, q * b)
-            return _Geom(box, math.pi * a * b * (1.0 - q * q), None, _Diff(ell, hole), ell, q)
-        return _Geom(box, math.pi * a * b, None, ell, ell, 0.0)
+            return _Geom(box, math.pi * a * b * (1.0 - q * q), _Diff(ell, hole), ell, q)
+        return _Geom(box, math.pi * a * b, ell, ell)
 
-    v, nring, pieces, area_unit = _unit(kind, shape.sides, shape.inner)
-    lx = v[:, 0] * shape.aspect
-    ly = v[:, 1]
-    rx = cos * lx - sin * ly
-    ry = sin * lx + cos * ly
-    x_lo, x_hi = rx[:nring].min(), rx[:nring].max()
-    y_lo, y_hi = ry[:nring].min(), ry[:nring].max()
-    wx, wy = x_hi - x_lo, y_hi - y_lo
+    if kind == "star":
+        verts, lnx, lny, lc, area0, ex, ey = _star(shape.sides, shape.inner)
+    elif kind == "cross":
+        verts, lnx, lny, lc, area0, ex, ey = _cross(shape.inner)
+    else:
+        verts, lnx, lny, lc, area0, ex, ey = _unit(kind, shape.sides if kind == "polygon" else 0)
+    # natural frame -> image: stretch to width `aspect` and height 1, rotate,
+    # then scale by k and translate (below)
+    sx, sy = asp / ex, 1.0 / ey
+    lin = np.array([[cos * sx, -sin * sy], [sin * sx, cos * sy]])
+    rot = lin @ verts  # (2, K)
+    lo = rot.min(axis=1)
+    hi = rot.max(axis=1)
+    wx, wy = float(hi[0] - lo[0]), float(hi[1] - lo[1])
     k = shape.size / max(wx, wy)
-    px = (rx - (x_lo + x_hi) / 2.0) * k + shape.cx
-    py = (ry - (y_lo + y_hi) / 2.0) * k + shape.cy
-    pts = np.stack([px, py], axis=1)
-    hw, hh = k * wx / 2.0, k * wy / 2.0
-    box = (shape.cx - hw, shape.cy - hh, shape.cx + hw, shape.cy + hh)
-    region = _Convex(pts[pieces])
-    return _Geom(box, area_unit * shape.aspect * k * k, pts[:nring], region, None, 0.0)
+    tx = shape.cx - k * float(hi[0] + lo[0]) / 2.0
+    ty = shape.cy - k * float(hi[1] + lo[1]) / 2.0
+    box = (shape.cx - k * wx / 2.0, shape.cy - k * wy / 2.0, shape.cx + k * wx / 2.0, shape.cy + k * wy / 2.0)
+    # Half-planes n.l <= c of the natural frame map to (R S^-1 n).p <= k c + (R S^-1 n).t
+    # in the image (S = diag(sx, sy), R the rotation); then renormalise.
+    mx = lnx / sx
+    my = lny / sy
+    inv_len = 1.0 / np.sqrt(mx * mx + my * my)
+    ux = mx * inv_len
+    uy = my * inv_len
+    nx = cos * ux - sin * uy
+    ny = sin * ux + cos * uy
+    c = (k * lc) * inv_len + (nx * tx + ny * ty)
+    return _Geom(
+        box,
+        area0 * sx * sy * k * k,
+        _Convex(nx, ny, c),
+        verts=verts,
+        nring=verts.shape[1],
+        affine=(k * lin, np.array([tx, ty])),
+    )
 
 
 @lru_cache(maxsize=4096)
@@ -597,9 +673,12 @@ def _offsets(samples: int) -> np.ndarray:
     return (np.arange(samples) + 0.5) / samples
 
 
+@lru_cache(maxsize=16384)
 def _grid(start: int, stop: int, samples: int) -> np.ndarray:
-    """Sub-sample coordinates ``p + (j + 0.5)/s`` for pixels ``start..stop-1``."""
-    return (np.arange(start, stop, dtype=np.float64)[:, None] + _offsets(samples)).ravel()
+    """Sub-sample coordinates ``p + (j + 0.5)/s`` for pixels ``start..stop-1`` (read-only)."""
+    out = (np.arange(start, stop, dtype=np.float64)[:, None] + _offsets(samples)).ravel()
+    out.flags.writeable = False
+    return out
 
 
 @dataclass(frozen=True, slots=True)
