@@ -73,6 +73,7 @@ __all__ = [
     "Coverage",
     "exact_box",
     "exact_area",
+    "clipped_box",
     "natural_aspect",
     "outline",
     "sample_inside",
@@ -284,6 +285,27 @@ class _Nothing:
         return np.full(np.broadcast_shapes(np.shape(x), np.shape(y)), np.inf)
 
 
+class _Union:
+    """Points in any of ``parts``."""
+
+    __slots__ = ("parts",)
+
+    def __init__(self, parts):
+        self.parts = tuple(parts)
+
+    def contains(self, x, y):
+        out = self.parts[0].contains(x, y)
+        for part in self.parts[1:]:
+            out = out | part.contains(x, y)
+        return out
+
+    def bound(self, x, y):
+        out = self.parts[0].bound(x, y)
+        for part in self.parts[1:]:
+            out = np.minimum(out, part.bound(x, y))
+        return out
+
+
 class _Diff:
     """Points of ``keep`` that are not in ``cut``."""
 
@@ -324,14 +346,33 @@ class _Band:
         ey = py - t * dy
         return (ex * ex + ey * ey).min(axis=0)
 
+    # The fill is a union of convex pieces, whose bound f is a lower bound on the
+    # distance to the boundary: f < -width already rules a point out of the band,
+    # and only points with -width <= f <= 0 need their exact segment distance.
+
     def contains(self, x, y):
-        return self.fill.contains(x, y) & (self._dist2(x, y) < self.width * self.width)
+        f = self.fill.bound(x, y)
+        near = (f <= _TOL) & (f >= -self.width)
+        out = np.zeros(f.shape, dtype=bool)
+        if near.any():
+            xb, yb = np.broadcast_arrays(np.asarray(x, dtype=np.float64), np.asarray(y, dtype=np.float64))
+            out[near] = self._dist2(xb[near], yb[near]) < self.width * self.width
+        return out
 
     def bound(self, x, y):
-        d = np.sqrt(self._dist2(x, y))
+        f = self.fill.bound(x, y)
         w = self.width
-        ins = self.fill.contains(x, y)
-        return np.where(ins, np.where(d < w, -np.minimum(d, w - d), d - w), d)
+        # outside the shape: f bounds the distance to the shape, which holds the band;
+        # deeper than w: the band is at least -f - w away
+        out = np.where(f > 0.0, f, -f - w)
+        near = (f <= 0.0) & (f >= -w)
+        if near.any():
+            xb, yb = np.broadcast_arrays(np.asarray(x, dtype=np.float64), np.asarray(y, dtype=np.float64))
+            xs, ys = xb[near], yb[near]
+            d = np.sqrt(self._dist2(xs, ys))
+            ins = self.fill.contains(xs, ys)
+            out[near] = np.where(ins, np.where(d < w, -np.minimum(d, w - d), d - w), d)
+        return out
 
 
 # --------------------------------------------------------------------------
@@ -365,9 +406,10 @@ class _Geom:
 def _unit(kind: str, sides: int):
     """Own-frame geometry of a rectangle, triangle or regular polygon.
 
-    Returns ``(verts (2, K), nx (P, E), ny (P, E), c (P, E), area, ext_x, ext_y)``:
-    the ring's vertices as columns, the half-planes of the convex pieces whose
-    union is the shape (unit normals), its area and its box size.  The frame is
+    Returns ``(verts (2, K), groups, area, ext_x, ext_y)``: the ring's vertices
+    as columns; ``groups``, a tuple of ``(nx, ny, c)`` half-plane arrays of shape
+    (P, E) (unit normals) whose convex pieces together make up the shape; its area
+    and its box size.  The frame is
     the natural one (a polygon has circumradius 1); :func:`_build` stretches it
     to width ``aspect`` and height 1.
     """
@@ -386,7 +428,7 @@ def _unit(kind: str, sides: int):
     verts = np.ascontiguousarray(v.T)
     for arr in (verts, hp.nx, hp.ny, hp.c):
         arr.flags.writeable = False
-    return verts, hp.nx, hp.ny, hp.c, area, float(ext[0]), float(ext[1])
+    return verts, ((hp.nx, hp.ny, hp.c),), area, float(ext[0]), float(ext[1])
 
 
 @lru_cache(maxsize=64)
@@ -419,8 +461,12 @@ def _star(sides: int, inner: float):
     nx = ct * n0x - st * n0y  # (n, 4)
     ny = st * n0x + ct * n0y
     c = np.broadcast_to(c0, nx.shape)
+    # The core n-gon through the inner vertices overlaps the kites along their
+    # shared edges, so that no interior point sits on the edge of every piece
+    # holding it (such points would needlessly count as boundary).
+    core = (st.T, -ct.T, np.full((1, sides), r * ca))
     area = sides * inner * sa
-    return verts, nx, ny, c, area, float(hi[0] - lo[0]), float(hi[1] - lo[1])
+    return verts, ((nx, ny, c), core), area, float(hi[0] - lo[0]), float(hi[1] - lo[1])
 
 
 _CROSS_NX = np.array([[1.0, -1.0, 0.0, 0.0], [1.0, -1.0, 0.0, 0.0]])
@@ -437,7 +483,7 @@ def _cross(inner: float):
         ]
     )
     c = np.array([[0.5, 0.5, h, h], [h, h, 0.5, 0.5]])  # horizontal bar, vertical bar
-    return verts, _CROSS_NX, _CROSS_NY, c, 2.0 * inner - inner * inner, 1.0, 1.0
+    return verts, ((_CROSS_NX, _CROSS_NY, c),), 2.0 * inner - inner * inner, 1.0, 1.0
 
 
 def _build(shape: Shape) -> _Geom:
@@ -461,11 +507,11 @@ def _build(shape: Shape) -> _Geom:
         return _Geom(box, math.pi * a * b, ell, ell)
 
     if kind == "star":
-        verts, lnx, lny, lc, area0, ex, ey = _star(shape.sides, shape.inner)
+        verts, groups, area0, ex, ey = _star(shape.sides, shape.inner)
     elif kind == "cross":
-        verts, lnx, lny, lc, area0, ex, ey = _cross(shape.inner)
+        verts, groups, area0, ex, ey = _cross(shape.inner)
     else:
-        verts, lnx, lny, lc, area0, ex, ey = _unit(kind, shape.sides if kind == "polygon" else 0)
+        verts, groups, area0, ex, ey = _unit(kind, shape.sides if kind == "polygon" else 0)
     # natural frame -> image: stretch to width `aspect` and height 1, rotate,
     # then scale by k and translate (below)
     sx, sy = asp / ex, 1.0 / ey
@@ -480,18 +526,20 @@ def _build(shape: Shape) -> _Geom:
     box = (shape.cx - k * wx / 2.0, shape.cy - k * wy / 2.0, shape.cx + k * wx / 2.0, shape.cy + k * wy / 2.0)
     # Half-planes n.l <= c of the natural frame map to (R S^-1 n).p <= k c + (R S^-1 n).t
     # in the image (S = diag(sx, sy), R the rotation); then renormalise.
-    mx = lnx / sx
-    my = lny / sy
-    inv_len = 1.0 / np.sqrt(mx * mx + my * my)
-    ux = mx * inv_len
-    uy = my * inv_len
-    nx = cos * ux - sin * uy
-    ny = sin * ux + cos * uy
-    c = (k * lc) * inv_len + (nx * tx + ny * ty)
+    parts = []
+    for lnx, lny, lc in groups:
+        mx = lnx / sx
+        my = lny / sy
+        inv_len = 1.0 / np.sqrt(mx * mx + my * my)
+        ux = mx * inv_len
+        uy = my * inv_len
+        nx = cos * ux - sin * uy
+        ny = sin * ux + cos * uy
+        parts.append(_Convex(nx, ny, (k * lc) * inv_len + (nx * tx + ny * ty)))
     return _Geom(
         box,
         area0 * sx * sy * k * k,
-        _Convex(nx, ny, c),
+        parts[0] if len(parts) == 1 else _Union(parts),
         verts=verts,
         nring=verts.shape[1],
         affine=(k * lin, np.array([tx, ty])),
@@ -588,6 +636,94 @@ def natural_aspect(kind: str, sides: int = 5, inner: float = 0.5) -> float:
         phi, r = phi[::2], r[::2]
     x, y = r * np.sin(phi), -r * np.cos(phi)
     return float(np.ptp(x) / np.ptp(y))
+
+
+def clipped_box(shape: Shape, height: int, width: int) -> np.ndarray | None:
+    """Tight box of the part of the shape that lies on the canvas.
+
+    Unlike ``clip_boxes(exact_box(shape), width, height)``, which only cuts the
+    full box at the border, this is the exact tight box of ``shape`` intersected
+    with ``[0, width] x [0, height]``: for a shape cut by the border it can be
+    smaller than the clipped full box.  It is the same for filled and stroked
+    shapes (both contain the boundary, where the extremes lie).
+
+    Parameters
+    ----------
+    shape : Shape
+    height, width : int
+        Canvas size in pixels.
+
+    Returns
+    -------
+    ndarray of shape (4,), float64, or None
+        ``(x0, y0, x1, y1)`` in px; None when the shape and the canvas share no
+        area.
+
+    Notes
+    -----
+    The extremes of ``shape n canvas`` lie at its corners: shape vertices (or an
+    ellipse's own extreme points) on the canvas, crossings of the outline with
+    the canvas border, and canvas corners inside the shape.  Polygon edges are
+    intersected exactly; ellipse crossings come from ``x(t) = cx + hx cos(t - tx)``.
+
+    Examples
+    --------
+    >>> diamond = Shape("rectangle", 0.0, 5.0, 10.0, angle=45.0)
+    >>> clipped_box(diamond, 20, 20).round(9).tolist()  # the right half of the diamond
+    [0.0, 0.0, 5.0, 10.0]
+    """
+    g = _geom(shape)
+    W, H = float(width), float(height)
+    bx0, by0, bx1, by1 = g.box
+    if not (max(bx0, 0.0) < min(bx1, W) and max(by0, 0.0) < min(by1, H)):
+        return None
+    pts = []  # candidate points, (N, 2) arrays
+    if g.ellipse is None:
+        ring = g.ring
+        pts.append(ring)
+        a = ring
+        d = np.roll(ring, -1, axis=0) - ring  # (K, 2) edges
+        for axis, value in ((0, 0.0), (0, W), (1, 0.0), (1, H)):
+            with np.errstate(divide="ignore", invalid="ignore"):
+                t = (value - a[:, axis]) / d[:, axis]
+            hit = (t >= 0.0) & (t <= 1.0)
+            if hit.any():
+                p = a[hit] + t[hit, None] * d[hit]
+                p[:, axis] = value
+                pts.append(p)
+    else:
+        e = g.ellipse
+        for scale, extremes in ((1.0, True), (g.hole, False)):
+            if scale == 0.0:
+                continue
+            a, b = e.a * scale, e.b * scale
+            # p(t) = centre + a cos t (cos, sin) + b sin t (-sin, cos)
+            ax_, ay_ = a * e.cos, a * e.sin
+            bx_, by_ = -b * e.sin, b * e.cos
+            hx, tx = math.hypot(ax_, bx_), math.atan2(bx_, ax_)  # x(t) = ex + hx cos(t - tx)
+            hy, ty = math.hypot(ay_, by_), math.atan2(by_, ay_)
+            ts = [tx, tx + math.pi, ty, ty + math.pi] if extremes else []
+            for value, h, t0, centre in ((0.0, hx, tx, e.ex), (W, hx, tx, e.ex), (0.0, hy, ty, e.ey), (H, hy, ty, e.ey)):
+                u = (value - centre) / h
+                if -1.0 <= u <= 1.0:
+                    w = math.acos(u)
+                    ts += [t0 + w, t0 - w]
+            if ts:
+                t = np.array(ts)
+                pts.append(np.stack([e.ex + ax_ * np.cos(t) + bx_ * np.sin(t), e.ey + ay_ * np.cos(t) + by_ * np.sin(t)], axis=1))
+    corners = np.array([[0.0, 0.0], [W, 0.0], [0.0, H], [W, H]])
+    pts.append(corners[sample_inside(shape, corners[:, 0], corners[:, 1])])
+    p = np.concatenate(pts)
+    eps = 1e-9 * max(1.0, W, H)
+    on = (p[:, 0] >= -eps) & (p[:, 0] <= W + eps) & (p[:, 1] >= -eps) & (p[:, 1] <= H + eps)
+    p = p[on]
+    if p.shape[0] == 0:
+        return None
+    x0, x1 = max(float(p[:, 0].min()), 0.0), min(float(p[:, 0].max()), W)
+    y0, y1 = max(float(p[:, 1].min()), 0.0), min(float(p[:, 1].max()), H)
+    if not (x0 < x1 and y0 < y1):
+        return None
+    return np.array([x0, y0, x1, y1])
 
 
 def outline(shape: Shape, *, resolution: int = 256) -> list[np.ndarray]:

@@ -18,6 +18,7 @@ from synthgen.shapes import (
     KINDS,
     Coverage,
     Shape,
+    clipped_box,
     coverage,
     exact_area,
     exact_box,
@@ -457,6 +458,67 @@ def test_shape_half_off_canvas_is_clipped():
 def test_shape_outside_canvas_gives_none(shape):
     """A shape whose exact box misses the canvas gives None."""
     assert coverage(shape, 30, 40) is None
+
+
+def ellipse_sandwich(shape: Shape, n: int) -> tuple[Polygon, Polygon]:
+    """Polygons inside and around an ellipse or ring: the n-point outline and its 1/cos(pi/n) scaling."""
+    grow = 1.0 / math.cos(math.pi / n)  # an inscribed regular n-gon scaled by this circumscribes
+    centre = np.array([shape.cx, shape.cy])
+    rings = outline(shape, resolution=n)
+    big = [centre + (r - centre) * grow for r in rings]
+    inner = Polygon(rings[0], [big[1]] if len(rings) > 1 else [])
+    outer = Polygon(big[0], rings[1:])
+    return inner, outer
+
+
+@pytest.mark.parametrize("shape", random_shapes(35, seed=8, lo=10, hi=90, canvas=(60, 80)), ids=lambda s: s.kind)
+def test_clipped_box_matches_shapely_intersection(shape):
+    """clipped_box is the box of shapely's intersection of the outline with the canvas."""
+    canvas = shapely.box(0.0, 0.0, 80.0, 60.0)
+    got = clipped_box(shape, 60, 80)
+    if shape.kind in POLY_KINDS:
+        part = shapely_geometry(shape).intersection(canvas)  # shapely: polygon clipping
+        if part.area == 0:
+            assert got is None
+        else:
+            np.testing.assert_allclose(got, part.bounds, atol=1e-9)
+        return
+    inner, outer = ellipse_sandwich(shape, 2048)
+    lo, hi = inner.intersection(canvas), outer.intersection(canvas)  # shapely: polygon clipping
+    if hi.area == 0:
+        assert got is None
+        return
+    assert got is not None
+    if lo.area > 0:
+        # the exact region lies between the two polygons, so do their clipped boxes
+        assert np.all(got[:2] <= np.array(lo.bounds[:2]) + 1e-9) and np.all(got[2:] >= np.array(lo.bounds[2:]) - 1e-9)
+    assert np.all(got[:2] >= np.array(hi.bounds[:2]) - 1e-9) and np.all(got[2:] <= np.array(hi.bounds[2:]) + 1e-9)
+
+
+def test_clipped_box_of_cut_shapes_bounds_their_coverage():
+    """The sub-sample box of a shape cut by the border lies inside clipped_box, within 1 px."""
+    for shape in random_shapes(35, seed=9, lo=10, hi=60, canvas=(60, 80)):
+        cov = coverage(shape, 60, 80, samples=8)
+        got = clipped_box(shape, 60, 80)
+        if cov is None or not cov.values.any():
+            continue
+        # box of the inside sub-sample points (cell box shrunk by half a cell)
+        support = mask_box(full_mask(cov), origin=(cov.col0, cov.row0), scale=1 / 8) + np.array([1, 1, -1, -1]) / 16
+        assert np.all(support[:2] >= got[:2] - 1e-9) and np.all(support[2:] <= got[2:] + 1e-9)
+        assert np.all(np.abs(support - got) <= 1.0)
+        full = clip_boxes(exact_box(shape), 80, 60)[0]
+        assert np.all(got[:2] >= full[:2] - 1e-9) and np.all(got[2:] <= full[2:] + 1e-9)  # within the clipped full box
+
+
+def test_clipped_box_of_ring_hole_covering_a_corner():
+    """A canvas corner inside a ring's hole is not part of the clipped box."""
+    shape = Shape("ring", 0.0, 0.0, 100.0, inner=0.8)  # hole radius 40 around the corner (0, 0)
+    got = clipped_box(shape, 100, 100)
+    # analytic geometry: the quarter annulus 40 <= r <= 50 in the first quadrant
+    np.testing.assert_allclose(got, [0.0, 0.0, 50.0, 50.0], atol=1e-9)
+    inside_hole = Shape("ring", 50.0, 50.0, 400.0, inner=0.9)  # the canvas sits inside the hole
+    assert clipped_box(inside_hole, 100, 100) is None
+    assert coverage(inside_hole, 100, 100).values.sum() == 0
 
 
 def test_small_shape_on_huge_canvas_has_small_patch():
