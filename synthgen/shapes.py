@@ -286,12 +286,27 @@ class _Nothing:
 
 
 class _Union:
-    """Points in any of ``parts``."""
+    """Points in any of ``parts`` (each a :class:`_Convex`)."""
 
-    __slots__ = ("parts",)
+    __slots__ = ("parts", "_padded")
 
     def __init__(self, parts):
         self.parts = tuple(parts)
+        self._padded = None
+
+    def padded(self):
+        """All pieces' half-planes as (E, P) arrays, short pieces padded with a repeated edge."""
+        if self._padded is None:
+            e = max(p.nx.shape[1] for p in self.parts)
+
+            def pad(a):
+                return np.concatenate([a, np.repeat(a[:, :1], e - a.shape[1], axis=1)], axis=1)
+
+            self._padded = tuple(
+                np.ascontiguousarray(np.concatenate([pad(np.asarray(getattr(p, name))) for p in self.parts]).T)
+                for name in ("nx", "ny", "c")
+            )
+        return self._padded
 
     def contains(self, x, y):
         out = self.parts[0].contains(x, y)
@@ -319,6 +334,29 @@ class _Diff:
 
     def bound(self, x, y):
         return np.maximum(self.keep.bound(x, y), -self.cut.bound(x, y))
+
+
+class _ConvexBand:
+    """Points of one convex polygon closer than ``width`` to its boundary.
+
+    Inside a convex polygon the distance to the boundary is exactly ``-f`` with
+    ``f`` the largest signed edge-line distance, so no segment distances are needed.
+    """
+
+    __slots__ = ("fill", "width")
+
+    def __init__(self, fill: _Convex, width: float):
+        self.fill = fill
+        self.width = float(width)
+
+    def contains(self, x, y):
+        f = self.fill.bound(x, y)
+        return (f <= _TOL) & (f > -self.width)
+
+    def bound(self, x, y):
+        f = self.fill.bound(x, y)
+        w = self.width
+        return np.where(f > 0.0, f, np.where(f > -w, np.maximum(f, -w - f), -f - w))
 
 
 class _Band:
@@ -557,6 +595,8 @@ def _region(shape: Shape, stroke: float):
     if stroke <= 0.0:
         return g.region
     if g.ring is not None:
+        if isinstance(g.region, _Convex) and g.region.nx.shape[0] == 1:
+            return _ConvexBand(g.region, stroke)  # rectangle, triangle, polygon
         return _Band(g.region, g.ring, stroke)
     e = g.ellipse
     a, b = e.a, e.b
@@ -936,11 +976,46 @@ def _classified(region, row0: int, col0: int, h: int, w: int, s: int) -> np.ndar
     rr, cc = np.nonzero(np.abs(f) <= margin)
     if rr.size:
         offs = _offsets(s)
-        xs = (cc + col0).astype(np.float64)[:, None, None] + offs[None, None, :]  # (K, 1, s)
-        ys = (rr + row0).astype(np.float64)[:, None, None] + offs[None, :, None]  # (K, s, 1)
-        counts = region.contains(xs, ys).sum(axis=(1, 2))
-        values[rr, cc] = counts / (s * s)
+        # pixels on the last axis keep numpy's inner loops long
+        xs = (cc + col0).astype(np.float64)[None, None, :] + offs[None, :, None]  # (1, s, K)
+        ys = (rr + row0).astype(np.float64)[None, None, :] + offs[:, None, None]  # (s, 1, K)
+        if isinstance(region, _Union):
+            inside = _sparse_contains(region, (cc + col0).astype(np.float64), (rr + row0).astype(np.float64), s, margin)
+        else:
+            inside = region.contains(xs, ys)
+        values[rr, cc] = inside.sum(axis=(0, 1)) / (s * s)
     return values
+
+
+def _sparse_contains(region: _Union, cols: np.ndarray, rows: np.ndarray, s: int, margin: float) -> np.ndarray:
+    """``region.contains`` at the sub-samples of K boundary pixels, testing only nearby pieces.
+
+    ``cols``, ``rows`` (K,) are the pixels' canvas column and row as floats.  A
+    convex piece whose bound at a pixel centre exceeds ``margin`` holds none of
+    that pixel's sub-samples, so each pixel is tested against the one or two
+    pieces near it instead of all of them; the answer is the same.  Returns bool
+    (s, s, K), indexed (sub-row i, sub-column j, pixel).
+    """
+    nx, ny, c = region.padded()  # (E, P), transposed so that gathers stay contiguous
+    k = cols.size
+    offs = _offsets(s)
+    fp = ((nx[:, :, None] * (cols + 0.5) - c[:, :, None]) + ny[:, :, None] * (rows + 0.5)).max(axis=0)  # (P, K)
+    kk, pp = np.nonzero((fp <= margin).T)  # pairs (pixel, piece), sorted by pixel
+    first = np.searchsorted(kk, np.arange(k))
+    rank = np.arange(kk.size) - first[kk]
+    out = np.zeros((s, s, k), dtype=bool)
+    for r in range(int(rank.max()) + 1 if kk.size else 0):
+        sel = rank == r
+        ks, ps = kk[sel], pp[sel]  # each pixel at most once per round
+        x = cols[ks][None, None, :] + offs[None, :, None]  # (1, s, N): the same c + o as everywhere
+        y = rows[ks][None, None, :] + offs[:, None, None]  # (s, 1, N)
+        # C-ordered coefficients keep the (E, s, s, N) result C-ordered, which the reduction needs to be fast
+        a_x = np.ascontiguousarray(nx[:, ps])[:, None, None, :]
+        a_y = np.ascontiguousarray(ny[:, ps])[:, None, None, :]
+        a_c = np.ascontiguousarray(c[:, ps])[:, None, None, :]
+        vals = (a_x * x - a_c) + a_y * y  # (E, s, s, N)
+        out[:, :, ks] |= vals.max(axis=0) <= _TOL
+    return out
 
 
 def _blocked_bound(region, xc: np.ndarray, yc: np.ndarray, margin: float) -> np.ndarray:
@@ -963,9 +1038,9 @@ def _blocked_bound(region, xc: np.ndarray, yc: np.ndarray, margin: float) -> np.
     ub, vb = np.nonzero(np.abs(fb) <= reach)
     if ub.size:
         ob = np.arange(B, dtype=np.float64)
-        px = (xc[0] + B * vb.astype(np.float64))[:, None, None] + ob[None, None, :]  # (K, 1, B)
-        py = (yc[0] + B * ub.astype(np.float64))[:, None, None] + ob[None, :, None]  # (K, B, 1)
-        fv[ub, :, vb, :] = region.bound(px, py)
+        px = (xc[0] + B * vb.astype(np.float64))[None, None, :] + ob[None, :, None]  # (1, B, K)
+        py = (yc[0] + B * ub.astype(np.float64))[None, None, :] + ob[:, None, None]  # (B, 1, K)
+        fv[ub, :, vb, :] = region.bound(px, py).transpose(2, 0, 1)  # (K, B, B)
     return f[:h, :w]
 
 
