@@ -384,18 +384,12 @@ class _Band:
         ey = py - t * dy
         return (ex * ex + ey * ey).min(axis=0)
 
+    def contains(self, x, y):
+        return self.fill.contains(x, y) & (self._dist2(x, y) < self.width * self.width)
+
     # The fill is a union of convex pieces, whose bound f is a lower bound on the
     # distance to the boundary: f < -width already rules a point out of the band,
     # and only points with -width <= f <= 0 need their exact segment distance.
-
-    def contains(self, x, y):
-        f = self.fill.bound(x, y)
-        near = (f <= _TOL) & (f >= -self.width)
-        out = np.zeros(f.shape, dtype=bool)
-        if near.any():
-            xb, yb = np.broadcast_arrays(np.asarray(x, dtype=np.float64), np.asarray(y, dtype=np.float64))
-            out[near] = self._dist2(xb[near], yb[near]) < self.width * self.width
-        return out
 
     def bound(self, x, y):
         f = self.fill.bound(x, y)
@@ -981,6 +975,8 @@ def _classified(region, row0: int, col0: int, h: int, w: int, s: int) -> np.ndar
         ys = (rr + row0).astype(np.float64)[None, None, :] + offs[:, None, None]  # (s, 1, K)
         if isinstance(region, _Union):
             inside = _sparse_contains(region, (cc + col0).astype(np.float64), (rr + row0).astype(np.float64), s, margin)
+        elif isinstance(region, _Band):
+            inside = _sparse_band(region, (cc + col0).astype(np.float64), (rr + row0).astype(np.float64), s, margin)
         else:
             inside = region.contains(xs, ys)
         values[rr, cc] = inside.sum(axis=(0, 1)) / (s * s)
@@ -1016,6 +1012,44 @@ def _sparse_contains(region: _Union, cols: np.ndarray, rows: np.ndarray, s: int,
         vals = (a_x * x - a_c) + a_y * y  # (E, s, s, N)
         out[:, :, ks] |= vals.max(axis=0) <= _TOL
     return out
+
+
+def _sparse_band(region: _Band, cols: np.ndarray, rows: np.ndarray, s: int, margin: float) -> np.ndarray:
+    """``region.contains`` at the sub-samples of K boundary pixels, with nearby segments only.
+
+    A boundary segment farther than ``width + margin`` from a pixel centre is
+    farther than ``width`` from all its sub-samples and cannot change the
+    minimum distance where it matters.  Layout as in :func:`_sparse_contains`.
+    """
+    offs = _offsets(s)
+    k = cols.size
+    if isinstance(region.fill, _Union):
+        inside = _sparse_contains(region.fill, cols, rows, s, margin)
+    else:
+        inside = region.fill.contains(cols[None, None, :] + offs[None, :, None], rows[None, None, :] + offs[:, None, None])
+    ax, ay, dx, dy, inv = region.ax, region.ay, region.dx, region.dy, region.inv
+    # squared distance of every segment to every pixel centre, (S, K)
+    px = (cols + 0.5)[None, :] - ax[:, None]
+    py = (rows + 0.5)[None, :] - ay[:, None]
+    t = np.clip((px * dx[:, None] + py * dy[:, None]) * inv[:, None], 0.0, 1.0)
+    d2c = (px - t * dx[:, None]) ** 2 + (py - t * dy[:, None]) ** 2
+    reach = region.width + margin
+    kk, ss = np.nonzero((d2c <= reach * reach).T)  # pairs (pixel, segment), sorted by pixel
+    first = np.searchsorted(kk, np.arange(k))
+    rank = np.arange(kk.size) - first[kk]
+    dmin = np.full((s, s, k), np.inf)
+    for r in range(int(rank.max()) + 1 if kk.size else 0):
+        sel = rank == r
+        ks, sg = kk[sel], ss[sel]
+        # the same operations, in the same order, as _Band._dist2 for one segment
+        qx = (cols[ks][None, None, :] + offs[None, :, None]) - ax[sg]  # (1, s, N)
+        qy = (rows[ks][None, None, :] + offs[:, None, None]) - ay[sg]  # (s, 1, N)
+        sdx, sdy = dx[sg], dy[sg]
+        t = np.clip((qx * sdx + qy * sdy) * inv[sg], 0.0, 1.0)  # (s, s, N)
+        ex = qx - t * sdx
+        ey = qy - t * sdy
+        dmin[:, :, ks] = np.minimum(dmin[:, :, ks], ex * ex + ey * ey)
+    return inside & (dmin < region.width * region.width)
 
 
 def _blocked_bound(region, xc: np.ndarray, yc: np.ndarray, margin: float) -> np.ndarray:
