@@ -36,8 +36,15 @@ Each pixel's coverage is the fraction of its ``s x s`` sub-samples, at
 ``x = c + (j + 0.5)/s``, ``y = r + (i + 0.5)/s``, that the exact point test
 :func:`sample_inside` accepts.  To keep big shapes cheap, pixels are first
 classified at their centres with a conservative distance bound (a lower bound on
-the distance to the boundary); only pixels that the bound cannot settle are
-sub-sampled.  The result equals the plain sample rule exactly.
+the distance to the boundary; big patches settle 8 x 8 blocks first); only pixels
+that the bound cannot settle are sub-sampled, and a star's or an outline's
+sub-samples are tested only against the pieces or edges near their pixel.  The
+result equals the plain sample rule exactly (``Coverage.inside`` applies that
+rule directly, and the tests compare the two).
+
+Polygon kinds are unions of convex pieces (a star: one kite per point plus the
+core polygon through its inner vertices; a cross: its two bars), each a set of
+half-planes; ellipses and rings use their quadratic form.
 
 Outline-only shapes (``stroke > 0``)
 ------------------------------------
@@ -87,7 +94,6 @@ KINDS = ("rectangle", "ellipse", "triangle", "polygon", "star", "ring", "cross")
 FILLS = ("flat", "gradient", "stripes")
 """Fill styles understood by :func:`paint`."""
 
-_POLY_KINDS = frozenset({"rectangle", "triangle", "polygon", "star", "cross"})
 _ELLIPTIC = frozenset({"ellipse", "ring"})
 
 # Convex pieces accept points up to this far (px) outside their edges, so that
@@ -441,9 +447,8 @@ def _unit(kind: str, sides: int):
     Returns ``(verts (2, K), groups, area, ext_x, ext_y)``: the ring's vertices
     as columns; ``groups``, a tuple of ``(nx, ny, c)`` half-plane arrays of shape
     (P, E) (unit normals) whose convex pieces together make up the shape; its area
-    and its box size.  The frame is
-    the natural one (a polygon has circumradius 1); :func:`_build` stretches it
-    to width ``aspect`` and height 1.
+    and its box size.  The frame is the natural one (a polygon has circumradius
+    1); :func:`_build` stretches it to width ``aspect`` and height 1.
     """
     if kind == "rectangle":
         v = np.array([[-0.5, -0.5], [0.5, -0.5], [0.5, 0.5], [-0.5, 0.5]])

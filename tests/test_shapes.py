@@ -173,6 +173,18 @@ def test_regular_polygon_area_formula(sides):
     assert abs(float(cov.values.sum()) - expected) <= perimeter(shape) / 8
 
 
+def test_star_at_natural_aspect_is_regular():
+    """A star at its natural aspect has its points on one circle and its inner vertices on another."""
+    shape = Shape("star", 50.0, 50.0, 60.0, sides=5, inner=0.4, aspect=natural_aspect("star", sides=5, inner=0.4))
+    ring = outline(shape)[0]
+    # the star's centre is the mean of its five points (a regular pentagon's centroid, analytic geometry)
+    centre = ring[0::2].mean(axis=0)
+    outer = np.hypot(*(ring[0::2] - centre).T)
+    inner = np.hypot(*(ring[1::2] - centre).T)
+    np.testing.assert_allclose(outer, outer[0], rtol=1e-12)
+    np.testing.assert_allclose(inner, 0.4 * outer[0], rtol=1e-12)
+
+
 def test_star_area_from_shoelace():
     """A star's area equals the shoelace area of its 2n vertices."""
     shape = Shape("star", 30.0, 30.0, 40.0, sides=7, inner=0.4, aspect=1.3, angle=21.0)
