@@ -814,14 +814,16 @@ def _oriented(ring: np.ndarray, positive: bool) -> np.ndarray:
     return ring if (area2 > 0) == positive else ring[::-1].copy()
 
 
-def sample_inside(shape: Shape, x, y) -> np.ndarray:
-    """Exact point test of the filled shape.
+def sample_inside(shape: Shape, x, y, *, stroke: float = 0.0) -> np.ndarray:
+    """Exact point test of the shape (filled, or its outline band when ``stroke > 0``).
 
     Parameters
     ----------
     shape : Shape
     x, y : array_like
         Point coordinates in px; broadcast against each other.
+    stroke : float
+        Outline band thickness in px (module docstring); 0 tests the filled shape.
 
     Returns
     -------
@@ -835,7 +837,10 @@ def sample_inside(shape: Shape, x, y) -> np.ndarray:
     >>> sample_inside(Shape("ellipse", 0.0, 0.0, 2.0), [0.0, 0.9, 1.1], 0.0).tolist()
     [True, True, False]
     """
-    return _geom(shape).region.contains(np.asarray(x, dtype=np.float64), np.asarray(y, dtype=np.float64))
+    stroke = float(stroke)
+    if not (math.isfinite(stroke) and stroke >= 0.0):
+        raise ValueError(f"stroke must be a finite number >= 0 px (got {stroke!r})")
+    return _region(shape, stroke).contains(np.asarray(x, dtype=np.float64), np.asarray(y, dtype=np.float64))
 
 
 # --------------------------------------------------------------------------
@@ -901,9 +906,15 @@ class Coverage:
                 f"{self.row0}:{self.row0 + h}, cols {self.col0}:{self.col0 + w}"
             )
         s = self.samples
-        xs = _grid(c0, c1, s)[None, :]
-        ys = _grid(r0, r1, s)[:, None]
-        return _region(self.shape, self.stroke).contains(xs, ys)
+        region = _region(self.shape, self.stroke)
+        bh, bw = r1 - r0, c1 - c0
+        if bh * bw <= _GRID_MAX_PIXELS or s == 1:
+            return region.contains(_grid(c0, c1, s)[None, :], _grid(r0, r1, s)[:, None])
+        # Same decisions as the plain sample test, settling whole pixels first.
+        interior, rr, cc, inside = _classify(region, r0, c0, bh, bw, s)
+        mask = np.repeat(np.repeat(interior, s, axis=0), s, axis=1)
+        mask.reshape(bh, s, bw, s)[rr, :, cc, :] = inside.transpose(2, 0, 1)  # (K, s, s)
+        return mask
 
 
 def coverage(shape: Shape, height: int, width: int, *, samples: int = 4, stroke: float = 0.0) -> Coverage | None:
@@ -961,8 +972,14 @@ def coverage(shape: Shape, height: int, width: int, *, samples: int = 4, stroke:
     return Coverage(row0, col0, values, s, shape, stroke)
 
 
-def _classified(region, row0: int, col0: int, h: int, w: int, s: int) -> np.ndarray:
-    """Coverage with a conservative centre test first and sub-sampling only where needed."""
+def _classify(region, row0: int, col0: int, h: int, w: int, s: int):
+    """Settle pixels by a conservative centre test; sub-sample only the rest.
+
+    Returns ``(interior, rr, cc, inside)``: ``interior`` bool (h, w) marks the
+    pixels whose sub-samples are all inside; ``rr``, ``cc`` (K,) index the
+    undecided pixels within the block and ``inside`` bool (s, s, K) holds their
+    sub-samples (sub-row i, sub-column j, pixel).  Every other pixel is outside.
+    """
     # Every sub-sample lies within this distance of its pixel centre.
     margin = (0.5 - 0.5 / s) * math.sqrt(2.0) + _SLACK
     xc = np.arange(col0, col0 + w, dtype=np.float64) + 0.5
@@ -971,20 +988,28 @@ def _classified(region, row0: int, col0: int, h: int, w: int, s: int) -> np.ndar
         f = _blocked_bound(region, xc, yc, margin)
     else:
         f = region.bound(xc[None, :], yc[:, None])  # (h, w)
-    values = (f < -margin).astype(np.float32)
+    interior = f < -margin
     rr, cc = np.nonzero(np.abs(f) <= margin)
-    if rr.size:
+    cols = (cc + col0).astype(np.float64)
+    rows = (rr + row0).astype(np.float64)
+    if rr.size == 0:
+        inside = np.zeros((s, s, 0), dtype=bool)
+    elif isinstance(region, _Union):
+        inside = _sparse_contains(region, cols, rows, s, margin)
+    elif isinstance(region, _Band):
+        inside = _sparse_band(region, cols, rows, s, margin)
+    else:
         offs = _offsets(s)
         # pixels on the last axis keep numpy's inner loops long
-        xs = (cc + col0).astype(np.float64)[None, None, :] + offs[None, :, None]  # (1, s, K)
-        ys = (rr + row0).astype(np.float64)[None, None, :] + offs[:, None, None]  # (s, 1, K)
-        if isinstance(region, _Union):
-            inside = _sparse_contains(region, (cc + col0).astype(np.float64), (rr + row0).astype(np.float64), s, margin)
-        elif isinstance(region, _Band):
-            inside = _sparse_band(region, (cc + col0).astype(np.float64), (rr + row0).astype(np.float64), s, margin)
-        else:
-            inside = region.contains(xs, ys)
-        values[rr, cc] = inside.sum(axis=(0, 1)) / (s * s)
+        inside = region.contains(cols[None, None, :] + offs[None, :, None], rows[None, None, :] + offs[:, None, None])
+    return interior, rr, cc, inside
+
+
+def _classified(region, row0: int, col0: int, h: int, w: int, s: int) -> np.ndarray:
+    """Coverage values (h, w) float32 by :func:`_classify`."""
+    interior, rr, cc, inside = _classify(region, row0, col0, h, w, s)
+    values = interior.astype(np.float32)
+    values[rr, cc] = inside.sum(axis=(0, 1)) / (s * s)
     return values
 
 

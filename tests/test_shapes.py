@@ -329,6 +329,22 @@ def test_values_are_block_means_of_inside(samples, stroke):
         assert cov.values[h // 2, w // 2] == np.float32(cov.inside(r, c, r + 1, c + 1).mean())
 
 
+@pytest.mark.parametrize("stroke", [0.0, 2.0])
+def test_inside_equals_plain_point_test(stroke):
+    """inside() gives exactly sample_inside at every sub-sample point, for any pixel block."""
+    for shape in random_shapes(14, seed=10, lo=3, hi=150, canvas=(120, 150)):
+        cov = coverage(shape, 120, 150, samples=4, stroke=stroke)
+        if cov is None:
+            continue
+        h, w = cov.values.shape
+        for r0, c0, r1, c1 in ((0, 0, h, w), (h // 3, w // 4, h, max(w // 4 + 1, w - 2))):
+            r0, r1, c0, c1 = r0 + cov.row0, r1 + cov.row0, c0 + cov.col0, c1 + cov.col0
+            xs = (np.arange(c0, c1)[:, None] + (np.arange(4) + 0.5) / 4).ravel()
+            ys = (np.arange(r0, r1)[:, None] + (np.arange(4) + 0.5) / 4).ravel()
+            plain = sample_inside(shape, xs[None, :], ys[:, None], stroke=stroke)
+            np.testing.assert_array_equal(cov.inside(r0, c0, r1, c1), plain)
+
+
 def test_big_shape_on_whole_canvas_equals_plain_sampling():
     """A canvas-filling shape (block classification path) equals the plain sample rule."""
     for shape in (
@@ -340,8 +356,11 @@ def test_big_shape_on_whole_canvas_equals_plain_sampling():
             cov = coverage(shape, 240, 320, samples=4, stroke=stroke)
             h, w = cov.values.shape
             assert h * w > 200 * 250
-            plain = full_mask(cov).reshape(h, 4, w, 4).mean(axis=(1, 3))
-            np.testing.assert_array_equal(cov.values, plain)
+            xs = (np.arange(cov.col0, cov.col0 + w)[:, None] + (np.arange(4) + 0.5) / 4).ravel()
+            ys = (np.arange(cov.row0, cov.row0 + h)[:, None] + (np.arange(4) + 0.5) / 4).ravel()
+            mask = sample_inside(shape, xs[None, :], ys[:, None], stroke=stroke)
+            np.testing.assert_array_equal(full_mask(cov), mask)
+            np.testing.assert_array_equal(cov.values, mask.reshape(h, 4, w, 4).mean(axis=(1, 3)))
 
 
 def test_inside_rejects_rows_outside_patch():
