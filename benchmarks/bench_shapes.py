@@ -6,6 +6,7 @@ Prints medians of several repeats, measured in one run on one core:
 * 1000 shapes of 2-8 px at samples 4 (target: at most ~60 ms total),
 * a few whole-canvas shapes (cost must follow the patch, not the canvas),
 * stroked (outline-only) shapes,
+* Coverage.inside over the whole patch of a canvas-sized shape,
 
 and, for reference, the same 10 shapes sub-sampled at every pixel, so the gain
 from classifying pixels first shows as a ratio.
@@ -103,6 +104,14 @@ def main() -> None:
     rows.append(("1000 shapes 2-8 px, samples=8", timed(lambda: run_all(tiny, samples=8), 3)))
     for sh in big:
         rows.append((f"one {sh.kind} of {sh.size:.0f} px on {W}x{H}, samples=4", timed(lambda sh=sh: coverage(sh, H, W), 3)))
+    for sh in big[:2]:
+        cov = coverage(sh, H, W)
+        h, w = cov.values.shape
+
+        def whole_mask(cov=cov, h=h, w=w):
+            cov.inside(cov.row0, cov.col0, cov.row0 + h, cov.col0 + w)
+
+        rows.append((f"inside() over the {h}x{w} patch of that {sh.kind}", timed(whole_mask, 3)))
     width = max(len(r[0]) for r in rows)
     for name, ms in rows:
         print(f"{name:<{width}}  {ms:8.2f} ms")
