@@ -10,6 +10,7 @@ import shapely
 from hypothesis import given, settings
 from hypothesis import strategies as st
 from shapely.geometry import Point, Polygon
+from skimage.draw import polygon as draw_polygon
 from skimage.measure import label, regionprops
 
 from synthgen.geometry import clip_boxes, mask_box
@@ -271,6 +272,29 @@ def test_regionprops_box_within_one_pixel(shape, samples):
     # the pixel box never reaches past the pixels the exact box touches
     assert pixel_box[0] >= math.floor(exact[0]) and pixel_box[2] <= math.ceil(exact[2])
     assert pixel_box[1] >= math.floor(exact[1]) and pixel_box[3] <= math.ceil(exact[3])
+
+
+@pytest.mark.parametrize(
+    "shape",
+    [s for s in random_shapes(28, seed=11, lo=8, hi=90, canvas=(60, 60)) if s.kind in POLY_KINDS],
+    ids=lambda s: s.kind,
+)
+def test_one_sample_per_pixel_matches_skimage_polygon_fill(shape):
+    """At samples=1 a polygon kind covers the pixels scikit-image's polygon fill selects."""
+    shape = Shape(**{f: getattr(shape, f) for f in Shape.__slots__} | {"cx": shape.cx + 10, "cy": shape.cy + 10})
+    cov = coverage(shape, 80, 80, samples=1)
+    ring = outline(shape)[0]
+    # scikit-image.draw.polygon tests pixel centres, which sit at integer (row, col): shift by 1/2
+    rr, cc = draw_polygon(ring[:, 1] - 0.5, ring[:, 0] - 0.5, shape=(80, 80))
+    theirs = np.zeros((80, 80), dtype=bool)
+    theirs[rr, cc] = True
+    ours = np.zeros((80, 80), dtype=bool)
+    h, w = cov.values.shape
+    ours[cov.row0 : cov.row0 + h, cov.col0 : cov.col0 + w] = cov.values > 0
+    # leave out pixel centres within 1e-6 px of the outline, where edge rules differ
+    yc, xc = np.mgrid[0:80, 0:80] + 0.5
+    near = shapely.distance(shapely.points(xc.ravel(), yc.ravel()), shapely.LinearRing(ring)).reshape(80, 80) < 1e-6
+    np.testing.assert_array_equal(ours[~near], theirs[~near])
 
 
 def test_connected_shapes_give_one_component():
