@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import math
+from dataclasses import replace
 
 import numpy as np
 import pytest
@@ -258,7 +259,7 @@ def test_regionprops_box_within_one_pixel(shape, samples):
     # The shape is moved wholly onto the canvas: a clipped exact box is not the
     # tight box of the clipped shape, so the 1 px promise is for unclipped shapes.
     move = {"size": max(shape.size, 4.0), "cx": shape.cx / 10 + 45, "cy": shape.cy / 10 + 35}
-    shape = Shape(**{f: getattr(shape, f) for f in Shape.__slots__} | move)
+    shape = replace(shape, **move)
     cov = coverage(shape, 80, 100, samples=samples)
     support = cov.values > 0
     assert support.any()
@@ -281,7 +282,7 @@ def test_regionprops_box_within_one_pixel(shape, samples):
 )
 def test_one_sample_per_pixel_matches_skimage_polygon_fill(shape):
     """At samples=1 a polygon kind covers the pixels scikit-image's polygon fill selects."""
-    shape = Shape(**{f: getattr(shape, f) for f in Shape.__slots__} | {"cx": shape.cx + 10, "cy": shape.cy + 10})
+    shape = replace(shape, cx=shape.cx + 10, cy=shape.cy + 10)
     cov = coverage(shape, 80, 80, samples=1)
     ring = outline(shape)[0]
     # scikit-image.draw.polygon tests pixel centres, which sit at integer (row, col): shift by 1/2
@@ -300,7 +301,7 @@ def test_one_sample_per_pixel_matches_skimage_polygon_fill(shape):
 def test_connected_shapes_give_one_component():
     """Each unclipped convex or star-shaped kind renders as one 8-connected component."""
     for shape in random_shapes(21, seed=5, lo=10, hi=50, canvas=(200, 200)):
-        shape = Shape(**{f: getattr(shape, f) for f in Shape.__slots__} | {"cx": 100.0, "cy": 100.0})
+        shape = replace(shape, cx=100.0, cy=100.0)
         cov = coverage(shape, 200, 200)
         # scikit-image label, 8-connectivity
         assert label(cov.values > 0, connectivity=2).max() == 1, shape
@@ -310,7 +311,7 @@ def test_connected_shapes_give_one_component():
 @given(shape=shape_strategy, samples=st.sampled_from([4, 8]))
 def test_coverage_sum_matches_area(shape, samples):
     """The coverage sum equals the analytic area within the sampling bound perimeter / s."""
-    shape = Shape(**{f: getattr(shape, f) for f in Shape.__slots__} | {"cx": shape.cx / 10 + 55, "cy": shape.cy / 10 + 45})
+    shape = replace(shape, cx=shape.cx / 10 + 55, cy=shape.cy / 10 + 45)
     cov = coverage(shape, 100, 120, samples=samples)  # the whole shape is on the canvas
     # Each unit of boundary crosses about s sample rows and s columns, and each
     # crossing miscounts at most one sample of area 1/s^2: |error| <~ perimeter / s
@@ -408,7 +409,7 @@ def test_inside_rejects_rows_outside_patch():
 )
 def test_point_symmetric_kinds_repeat_after_half_turn(shape):
     """Point-symmetric kinds give the same coverage at angle and angle + 180."""
-    turned = Shape(**{f: getattr(shape, f) for f in Shape.__slots__} | {"angle": shape.angle + 180.0})
+    turned = replace(shape, angle=shape.angle + 180.0)
     a, b = coverage(shape, 50, 60), coverage(turned, 50, 60)
     # scikit-image's drawing tests use the same symmetry (STYLE.md)
     np.testing.assert_allclose(exact_box(shape), exact_box(turned), atol=1e-9)
@@ -427,7 +428,7 @@ def test_triangle_is_not_point_symmetric():
 @pytest.mark.parametrize("shape", random_shapes(14, seed=7, lo=15, hi=60, canvas=(90, 90)), ids=lambda s: s.kind)
 def test_stroke_keeps_filled_box(shape):
     """A stroked shape has the filled shape's patch and pixel box, and lies inside it."""
-    shape = Shape(**{f: getattr(shape, f) for f in Shape.__slots__} | {"cx": 45.0, "cy": 45.0})
+    shape = replace(shape, cx=45.0, cy=45.0)
     fill = coverage(shape, 90, 90, samples=4)
     line = coverage(shape, 90, 90, samples=4, stroke=1.5)
     assert (line.row0, line.col0, line.values.shape) == (fill.row0, fill.col0, fill.values.shape)
