@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import math
+from dataclasses import replace
 
 import numpy as np
 import pytest
@@ -10,6 +11,7 @@ import shapely
 from hypothesis import given, settings
 from hypothesis import strategies as st
 from shapely.geometry import Point, Polygon
+from skimage.draw import polygon as draw_polygon
 from skimage.measure import label, regionprops
 
 from synthgen.geometry import clip_boxes, mask_box
@@ -18,6 +20,7 @@ from synthgen.shapes import (
     KINDS,
     Coverage,
     Shape,
+    clipped_box,
     coverage,
     exact_area,
     exact_box,
@@ -172,6 +175,18 @@ def test_regular_polygon_area_formula(sides):
     assert abs(float(cov.values.sum()) - expected) <= perimeter(shape) / 8
 
 
+def test_star_at_natural_aspect_is_regular():
+    """A star at its natural aspect has its points on one circle and its inner vertices on another."""
+    shape = Shape("star", 50.0, 50.0, 60.0, sides=5, inner=0.4, aspect=natural_aspect("star", sides=5, inner=0.4))
+    ring = outline(shape)[0]
+    # the star's centre is the mean of its five points (a regular pentagon's centroid, analytic geometry)
+    centre = ring[0::2].mean(axis=0)
+    outer = np.hypot(*(ring[0::2] - centre).T)
+    inner = np.hypot(*(ring[1::2] - centre).T)
+    np.testing.assert_allclose(outer, outer[0], rtol=1e-12)
+    np.testing.assert_allclose(inner, 0.4 * outer[0], rtol=1e-12)
+
+
 def test_star_area_from_shoelace():
     """A star's area equals the shoelace area of its 2n vertices."""
     shape = Shape("star", 30.0, 30.0, 40.0, sides=7, inner=0.4, aspect=1.3, angle=21.0)
@@ -244,7 +259,7 @@ def test_regionprops_box_within_one_pixel(shape, samples):
     # The shape is moved wholly onto the canvas: a clipped exact box is not the
     # tight box of the clipped shape, so the 1 px promise is for unclipped shapes.
     move = {"size": max(shape.size, 4.0), "cx": shape.cx / 10 + 45, "cy": shape.cy / 10 + 35}
-    shape = Shape(**{f: getattr(shape, f) for f in Shape.__slots__} | move)
+    shape = replace(shape, **move)
     cov = coverage(shape, 80, 100, samples=samples)
     support = cov.values > 0
     assert support.any()
@@ -260,10 +275,33 @@ def test_regionprops_box_within_one_pixel(shape, samples):
     assert pixel_box[1] >= math.floor(exact[1]) and pixel_box[3] <= math.ceil(exact[3])
 
 
+@pytest.mark.parametrize(
+    "shape",
+    [s for s in random_shapes(28, seed=11, lo=8, hi=90, canvas=(60, 60)) if s.kind in POLY_KINDS],
+    ids=lambda s: s.kind,
+)
+def test_one_sample_per_pixel_matches_skimage_polygon_fill(shape):
+    """At samples=1 a polygon kind covers the pixels scikit-image's polygon fill selects."""
+    shape = replace(shape, cx=shape.cx + 10, cy=shape.cy + 10)
+    cov = coverage(shape, 80, 80, samples=1)
+    ring = outline(shape)[0]
+    # scikit-image.draw.polygon tests pixel centres, which sit at integer (row, col): shift by 1/2
+    rr, cc = draw_polygon(ring[:, 1] - 0.5, ring[:, 0] - 0.5, shape=(80, 80))
+    theirs = np.zeros((80, 80), dtype=bool)
+    theirs[rr, cc] = True
+    ours = np.zeros((80, 80), dtype=bool)
+    h, w = cov.values.shape
+    ours[cov.row0 : cov.row0 + h, cov.col0 : cov.col0 + w] = cov.values > 0
+    # leave out pixel centres within 1e-6 px of the outline, where edge rules differ
+    yc, xc = np.mgrid[0:80, 0:80] + 0.5
+    near = shapely.distance(shapely.points(xc.ravel(), yc.ravel()), shapely.LinearRing(ring)).reshape(80, 80) < 1e-6
+    np.testing.assert_array_equal(ours[~near], theirs[~near])
+
+
 def test_connected_shapes_give_one_component():
     """Each unclipped convex or star-shaped kind renders as one 8-connected component."""
     for shape in random_shapes(21, seed=5, lo=10, hi=50, canvas=(200, 200)):
-        shape = Shape(**{f: getattr(shape, f) for f in Shape.__slots__} | {"cx": 100.0, "cy": 100.0})
+        shape = replace(shape, cx=100.0, cy=100.0)
         cov = coverage(shape, 200, 200)
         # scikit-image label, 8-connectivity
         assert label(cov.values > 0, connectivity=2).max() == 1, shape
@@ -273,7 +311,7 @@ def test_connected_shapes_give_one_component():
 @given(shape=shape_strategy, samples=st.sampled_from([4, 8]))
 def test_coverage_sum_matches_area(shape, samples):
     """The coverage sum equals the analytic area within the sampling bound perimeter / s."""
-    shape = Shape(**{f: getattr(shape, f) for f in Shape.__slots__} | {"cx": shape.cx / 10 + 55, "cy": shape.cy / 10 + 45})
+    shape = replace(shape, cx=shape.cx / 10 + 55, cy=shape.cy / 10 + 45)
     cov = coverage(shape, 100, 120, samples=samples)  # the whole shape is on the canvas
     # Each unit of boundary crosses about s sample rows and s columns, and each
     # crossing miscounts at most one sample of area 1/s^2: |error| <~ perimeter / s
@@ -316,6 +354,22 @@ def test_values_are_block_means_of_inside(samples, stroke):
         assert cov.values[h // 2, w // 2] == np.float32(cov.inside(r, c, r + 1, c + 1).mean())
 
 
+@pytest.mark.parametrize("stroke", [0.0, 2.0])
+def test_inside_equals_plain_point_test(stroke):
+    """inside() gives exactly sample_inside at every sub-sample point, for any pixel block."""
+    for shape in random_shapes(14, seed=10, lo=3, hi=150, canvas=(120, 150)):
+        cov = coverage(shape, 120, 150, samples=4, stroke=stroke)
+        if cov is None:
+            continue
+        h, w = cov.values.shape
+        for r0, c0, r1, c1 in ((0, 0, h, w), (h // 3, w // 4, h, max(w // 4 + 1, w - 2))):
+            r0, r1, c0, c1 = r0 + cov.row0, r1 + cov.row0, c0 + cov.col0, c1 + cov.col0
+            xs = (np.arange(c0, c1)[:, None] + (np.arange(4) + 0.5) / 4).ravel()
+            ys = (np.arange(r0, r1)[:, None] + (np.arange(4) + 0.5) / 4).ravel()
+            plain = sample_inside(shape, xs[None, :], ys[:, None], stroke=stroke)
+            np.testing.assert_array_equal(cov.inside(r0, c0, r1, c1), plain)
+
+
 def test_big_shape_on_whole_canvas_equals_plain_sampling():
     """A canvas-filling shape (block classification path) equals the plain sample rule."""
     for shape in (
@@ -327,8 +381,11 @@ def test_big_shape_on_whole_canvas_equals_plain_sampling():
             cov = coverage(shape, 240, 320, samples=4, stroke=stroke)
             h, w = cov.values.shape
             assert h * w > 200 * 250
-            plain = full_mask(cov).reshape(h, 4, w, 4).mean(axis=(1, 3))
-            np.testing.assert_array_equal(cov.values, plain)
+            xs = (np.arange(cov.col0, cov.col0 + w)[:, None] + (np.arange(4) + 0.5) / 4).ravel()
+            ys = (np.arange(cov.row0, cov.row0 + h)[:, None] + (np.arange(4) + 0.5) / 4).ravel()
+            mask = sample_inside(shape, xs[None, :], ys[:, None], stroke=stroke)
+            np.testing.assert_array_equal(full_mask(cov), mask)
+            np.testing.assert_array_equal(cov.values, mask.reshape(h, 4, w, 4).mean(axis=(1, 3)))
 
 
 def test_inside_rejects_rows_outside_patch():
@@ -352,7 +409,7 @@ def test_inside_rejects_rows_outside_patch():
 )
 def test_point_symmetric_kinds_repeat_after_half_turn(shape):
     """Point-symmetric kinds give the same coverage at angle and angle + 180."""
-    turned = Shape(**{f: getattr(shape, f) for f in Shape.__slots__} | {"angle": shape.angle + 180.0})
+    turned = replace(shape, angle=shape.angle + 180.0)
     a, b = coverage(shape, 50, 60), coverage(turned, 50, 60)
     # scikit-image's drawing tests use the same symmetry (STYLE.md)
     np.testing.assert_allclose(exact_box(shape), exact_box(turned), atol=1e-9)
@@ -371,7 +428,7 @@ def test_triangle_is_not_point_symmetric():
 @pytest.mark.parametrize("shape", random_shapes(14, seed=7, lo=15, hi=60, canvas=(90, 90)), ids=lambda s: s.kind)
 def test_stroke_keeps_filled_box(shape):
     """A stroked shape has the filled shape's patch and pixel box, and lies inside it."""
-    shape = Shape(**{f: getattr(shape, f) for f in Shape.__slots__} | {"cx": 45.0, "cy": 45.0})
+    shape = replace(shape, cx=45.0, cy=45.0)
     fill = coverage(shape, 90, 90, samples=4)
     line = coverage(shape, 90, 90, samples=4, stroke=1.5)
     assert (line.row0, line.col0, line.values.shape) == (fill.row0, fill.col0, fill.values.shape)
@@ -457,6 +514,67 @@ def test_shape_half_off_canvas_is_clipped():
 def test_shape_outside_canvas_gives_none(shape):
     """A shape whose exact box misses the canvas gives None."""
     assert coverage(shape, 30, 40) is None
+
+
+def ellipse_sandwich(shape: Shape, n: int) -> tuple[Polygon, Polygon]:
+    """Polygons inside and around an ellipse or ring: the n-point outline and its 1/cos(pi/n) scaling."""
+    grow = 1.0 / math.cos(math.pi / n)  # an inscribed regular n-gon scaled by this circumscribes
+    centre = np.array([shape.cx, shape.cy])
+    rings = outline(shape, resolution=n)
+    big = [centre + (r - centre) * grow for r in rings]
+    inner = Polygon(rings[0], [big[1]] if len(rings) > 1 else [])
+    outer = Polygon(big[0], rings[1:])
+    return inner, outer
+
+
+@pytest.mark.parametrize("shape", random_shapes(35, seed=8, lo=10, hi=90, canvas=(60, 80)), ids=lambda s: s.kind)
+def test_clipped_box_matches_shapely_intersection(shape):
+    """clipped_box is the box of shapely's intersection of the outline with the canvas."""
+    canvas = shapely.box(0.0, 0.0, 80.0, 60.0)
+    got = clipped_box(shape, 60, 80)
+    if shape.kind in POLY_KINDS:
+        part = shapely_geometry(shape).intersection(canvas)  # shapely: polygon clipping
+        if part.area == 0:
+            assert got is None
+        else:
+            np.testing.assert_allclose(got, part.bounds, atol=1e-9)
+        return
+    inner, outer = ellipse_sandwich(shape, 2048)
+    lo, hi = inner.intersection(canvas), outer.intersection(canvas)  # shapely: polygon clipping
+    if hi.area == 0:
+        assert got is None
+        return
+    assert got is not None
+    if lo.area > 0:
+        # the exact region lies between the two polygons, so do their clipped boxes
+        assert np.all(got[:2] <= np.array(lo.bounds[:2]) + 1e-9) and np.all(got[2:] >= np.array(lo.bounds[2:]) - 1e-9)
+    assert np.all(got[:2] >= np.array(hi.bounds[:2]) - 1e-9) and np.all(got[2:] <= np.array(hi.bounds[2:]) + 1e-9)
+
+
+def test_clipped_box_of_cut_shapes_bounds_their_coverage():
+    """The sub-sample box of a shape cut by the border lies inside clipped_box, within 1 px."""
+    for shape in random_shapes(35, seed=9, lo=10, hi=60, canvas=(60, 80)):
+        cov = coverage(shape, 60, 80, samples=8)
+        got = clipped_box(shape, 60, 80)
+        if cov is None or not cov.values.any():
+            continue
+        # box of the inside sub-sample points (cell box shrunk by half a cell)
+        support = mask_box(full_mask(cov), origin=(cov.col0, cov.row0), scale=1 / 8) + np.array([1, 1, -1, -1]) / 16
+        assert np.all(support[:2] >= got[:2] - 1e-9) and np.all(support[2:] <= got[2:] + 1e-9)
+        assert np.all(np.abs(support - got) <= 1.0)
+        full = clip_boxes(exact_box(shape), 80, 60)[0]
+        assert np.all(got[:2] >= full[:2] - 1e-9) and np.all(got[2:] <= full[2:] + 1e-9)  # within the clipped full box
+
+
+def test_clipped_box_of_ring_hole_covering_a_corner():
+    """A canvas corner inside a ring's hole is not part of the clipped box."""
+    shape = Shape("ring", 0.0, 0.0, 100.0, inner=0.8)  # hole radius 40 around the corner (0, 0)
+    got = clipped_box(shape, 100, 100)
+    # analytic geometry: the quarter annulus 40 <= r <= 50 in the first quadrant
+    np.testing.assert_allclose(got, [0.0, 0.0, 50.0, 50.0], atol=1e-9)
+    inside_hole = Shape("ring", 50.0, 50.0, 400.0, inner=0.9)  # the canvas sits inside the hole
+    assert clipped_box(inside_hole, 100, 100) is None
+    assert coverage(inside_hole, 100, 100).values.sum() == 0
 
 
 def test_small_shape_on_huge_canvas_has_small_patch():
