@@ -15,7 +15,6 @@ from enum import Enum
 from pathlib import Path
 from typing import Annotated, Optional
 
-import click
 import typer
 
 from synthgen.errors import UserError
@@ -65,7 +64,7 @@ def reported(fn):
             return fn(*args, **kwargs)
         except UserError as exc:
             _fail(f"error: {exc}", 2)
-        except (typer.Exit, typer.Abort, click.exceptions.ClickException, click.exceptions.Exit):
+        except (typer.Exit, typer.Abort, typer.TyperException):
             raise
         except KeyboardInterrupt:
             _fail("interrupted", 130)
