@@ -19,7 +19,7 @@ Difficulty dials handled here (placement itself is in :mod:`synthgen.layout`):
   ``objects.pair_iou`` otherwise); the achieved box IoU is recorded as
   ``pair_iou`` on both, with ``pair_id``.
 * ``objects.occlusion``: an occluder (an extra, filled, annotated object drawn
-  above every placed object) is moved along a random direction toward its
+  above every placed object; never a ring unless rings are the only kind) is moved along a random direction toward its
   target until the share of the target's sub-pixel samples it covers lies in
   the range (:func:`place_occluder`); the target records ``occlusion_goal``
   and ``occluder_hides`` (the share its own occluder covers), the measured
@@ -53,6 +53,7 @@ __all__ = [
     "compose",
     "render_scene",
     "compose_shapes",
+    "plan_objects",
     "place_occluder",
     "PlacementWarning",
     "visible_box",
@@ -149,17 +150,8 @@ def compose(config, *, rng: np.random.Generator) -> Scene:
         canvas, extra_info["clutter"] = render_clutter(
             canvas, config.clutter, spec.shapes, samples=config.render.samples, rng=clutter_rng
         )
-    shapes, styles = _sample_objects(config, obj_rng)
-    if spec.layout == "pairs":
-        shapes = _pair_geometry(shapes, spec.pair_iou[1])
-    placement = layout_mod.place(spec.layout, _half_extents(shapes), width, height, spec, rng=obj_rng)
-    index = placement.index.tolist()
-    extras = [dict(f) for f in placement.facts] if placement.facts else [{} for _ in index]
-    shapes = [_moved(shapes[i], placement.centres[j]) for j, i in enumerate(index)]
-    styles = [styles[i] for i in index]
-    if spec.occlusion[1] > 0:
-        shapes, styles, extras, extra_info["occlusion"] = _add_occluders(shapes, styles, extras, config, obj_rng)
-
+    shapes, styles, extras, placement, more = plan_objects(config, rng=obj_rng)
+    extra_info.update(more)
     scene = compose_shapes(canvas, shapes, config, rng=obj_rng, styles=styles, extras=extras)
     image, deg_info = degrade(scene.image, config.degrade, rng=deg_rng)
     no_room = int(placement.info.get("no_room", 0))
@@ -176,6 +168,40 @@ def compose(config, *, rng: np.random.Generator) -> Scene:
             stacklevel=2,
         )
     return replace(scene, image=image, info=info)
+
+
+def plan_objects(config, *, rng: np.random.Generator):
+    """Sample the objects of one image and place them (layout, then occluders), without drawing.
+
+    ``rng`` is the objects' stream (the second child :func:`compose` spawns);
+    :func:`compose` then draws colours from the same stream.
+
+    Returns
+    -------
+    shapes : list of Shape
+        In draw order (occluders last).
+    styles : list of dict
+        Paint style per shape.
+    extras : list of dict
+        Facts each shape's annotation will carry (``pair_id``, ``occlusion_id``, ...).
+    placement : synthgen.layout.Placement
+    info : dict
+        ``{"occlusion": {...}}`` when the occlusion dial is on, else empty.
+    """
+    spec = config.objects
+    width, height = config.canvas.width, config.canvas.height
+    shapes, styles = _sample_objects(config, rng)
+    if spec.layout == "pairs":
+        shapes = _pair_geometry(shapes, spec.pair_iou[1])
+    placement = layout_mod.place(spec.layout, _half_extents(shapes), width, height, spec, rng=rng)
+    index = placement.index.tolist()
+    extras = [dict(f) for f in placement.facts] if placement.facts else [{} for _ in index]
+    shapes = [_moved(shapes[i], placement.centres[j]) for j, i in enumerate(index)]
+    styles = [styles[i] for i in index]
+    info = {}
+    if spec.occlusion[1] > 0:
+        shapes, styles, extras, info["occlusion"] = _add_occluders(shapes, styles, extras, config, rng)
+    return shapes, styles, extras, placement, info
 
 
 def compose_shapes(canvas: np.ndarray, shapes, config, *, rng: np.random.Generator, styles=None, extras=None) -> Scene:
@@ -408,6 +434,11 @@ def place_occluder(
             r_lo, best = mid, cand
         else:
             r_hi = mid
+    if found is None:  # the share jumps over the range (few samples, odd shapes): scan the distances
+        for r in np.linspace(0.0, far, 65).tolist():
+            cand = share(occ, r)
+            if lo <= cand[1] <= hi:
+                return cand
     return found if found is not None else best
 
 
@@ -418,6 +449,10 @@ def _add_occluders(shapes, styles, extras, config, rng: np.random.Generator):
     n = len(shapes)
     chosen = np.flatnonzero(rng.random(size=n) < spec.occlusion_share)
     occ_shapes, occ_styles = _sample_objects(config, rng, n=len(chosen))
+    # A ring centred on its target would hide nothing through its hole: occluders use the other kinds.
+    solid = [k for k in spec.shapes if k != "ring"]
+    if solid:
+        occ_shapes = [o if o.kind != "ring" else replace(o, kind=solid[i % len(solid)]) for i, o in enumerate(occ_shapes)]
     lo, hi = spec.occlusion
     goals = rng.uniform(lo, hi, size=len(chosen))
     angles = rng.uniform(0.0, 2.0 * math.pi, size=len(chosen))
