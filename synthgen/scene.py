@@ -44,7 +44,7 @@ from synthgen import shapes as shapes_mod
 from synthgen.backgrounds import render_background
 from synthgen.clutter import render_clutter
 from synthgen.degrade import degrade
-from synthgen.geometry import clip_boxes, mask_box, pairwise_iou
+from synthgen.geometry import box_iou, clip_boxes, mask_box, pairwise_iou
 from synthgen.shapes import KINDS, Shape, coverage, exact_box, paint, sample_inside
 
 __all__ = [
@@ -193,7 +193,11 @@ def plan_objects(config, *, rng: np.random.Generator):
     shapes, styles = _sample_objects(config, rng)
     if spec.layout == "pairs":
         shapes = _pair_geometry(shapes, spec.pair_iou[1])
-    placement = layout_mod.place(spec.layout, _half_extents(shapes), width, height, spec, rng=rng)
+    if spec.layout in _BOX_LAYOUTS:
+        half = _half_extents(shapes)
+    else:  # these layouts only count the objects; exact boxes are built once, in place
+        half = np.zeros((len(shapes), 2))
+    placement = layout_mod.place(spec.layout, half, width, height, spec, rng=rng)
     index = placement.index.tolist()
     extras = [dict(f) for f in placement.facts] if placement.facts else [{} for _ in index]
     shapes = [_moved(shapes[i], placement.centres[j]) for j, i in enumerate(index)]
@@ -296,6 +300,10 @@ def _sample_objects(config, rng: np.random.Generator, n: int | None = None):
             }
         )
     return shapes, styles
+
+
+#: Layouts that read the objects' box sizes.
+_BOX_LAYOUTS = frozenset({"separated", "pairs"})
 
 
 def _half_extents(shapes) -> np.ndarray:
@@ -502,21 +510,21 @@ def _pick_colours(under_lum: float, min_contrast: float, cands: np.ndarray, lum:
     colours and the smallest achieved contrast.
     """
     k = len(cands)
-    contrast = np.abs(lum - under_lum)  # (k, 8)
     colours = np.empty((k, 3))
-    achieved = np.empty(k)
-    for t in range(k):
-        ok = np.flatnonzero(contrast[t] >= min_contrast)
-        if ok.size:
-            colours[t] = cands[t, ok[0]]
-            achieved[t] = contrast[t, ok[0]]
+    achieved = []
+    for t, row in enumerate(lum.tolist()):  # plain floats: k <= 2 rows of 8, cheaper than array calls
+        contrast = [abs(x - under_lum) for x in row]
+        pick = next((m for m, c in enumerate(contrast) if c >= min_contrast), -1)
+        if pick >= 0:
+            colours[t] = cands[t, pick]
+            achieved.append(contrast[pick])
             continue
-        c = cands[t, int(np.argmax(contrast[t]))]
+        c = cands[t, contrast.index(max(contrast))]
         target = under_lum + min_contrast if under_lum <= 0.5 else under_lum - min_contrast
         target = min(max(target, 0.0), 1.0)
         colours[t] = np.clip(c + (target - float(c @ LUMA / 255.0)) * 255.0, 0.0, 255.0)
-        achieved[t] = abs(float(colours[t] @ LUMA / 255.0) - under_lum)
-    return colours, float(achieved.min())
+        achieved.append(abs(float(colours[t] @ LUMA / 255.0) - under_lum))
+    return colours, float(min(achieved))
 
 
 #: Patches up to this many pixels are blended in one broadcast over RGB (fewer calls);
@@ -581,23 +589,50 @@ def _patch_rects(drawn) -> np.ndarray:
     return rects
 
 
+def _overlapping_pairs(boxes: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Index pairs ``(i, j)``, ``i < j``, of boxes (N, 4) whose intersection has positive area.
+
+    Sorted by ``i`` then ``j``.  Boxes are sorted by ``x0``; a block of them is
+    tested only against the later boxes that start before the block's largest
+    ``x1``, so the work follows the number of near pairs, not N^2.
+    """
+    n = len(boxes)
+    if n < 2:
+        return np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.int64)
+    order = np.argsort(boxes[:, 0], kind="stable")
+    b = boxes[order]
+    x0, y0, x1, y1 = b[:, 0], b[:, 1], b[:, 2], b[:, 3]
+    ii, jj = [], []
+    step = 128
+    for s0 in range(0, n, step):
+        s1 = min(n, s0 + step)
+        stop = int(np.searchsorted(x0, x1[s0:s1].max(), side="left"))
+        if stop <= s0 + 1:
+            continue
+        cols = slice(s0, stop)
+        ov = (
+            (x0[cols][None, :] < x1[s0:s1, None])
+            & (y0[s0:s1, None] < y1[cols][None, :])
+            & (y0[cols][None, :] < y1[s0:s1, None])
+        )  # (rows, cols); x0[row] <= x0[col] holds by the sort
+        r, c = np.nonzero(ov)
+        r, c = r + s0, c + s0
+        keep = c > r
+        a, z = order[r[keep]], order[c[keep]]
+        ii.append(np.minimum(a, z))
+        jj.append(np.maximum(a, z))
+    if not ii:
+        return np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.int64)
+    i, j = np.concatenate(ii), np.concatenate(jj)
+    k = np.lexsort((j, i))
+    return i[k], j[k]
+
+
 def _above(rects: np.ndarray) -> list:
     """For each patch, the indices of the later patches that overlap it (list of int arrays)."""
-    n = len(rects)
-    out = []
-    step = 512  # rows of the (n, n) overlap test at a time, to bound memory
-    for s0 in range(0, n, step):
-        r = rects[s0 : s0 + step]
-        ov = (
-            (r[:, 0:1] < rects[None, :, 2])
-            & (rects[None, :, 0] < r[:, 2:3])
-            & (r[:, 1:2] < rects[None, :, 3])
-            & (rects[None, :, 1] < r[:, 3:4])
-        )  # (step, n)
-        for k in range(len(r)):
-            i = s0 + k
-            out.append(np.flatnonzero(ov[k, i + 1 :]) + i + 1)
-    return out
+    ii, jj = _overlapping_pairs(rects)
+    bounds = np.searchsorted(ii, np.arange(len(rects) + 1))
+    return [jj[bounds[i] : bounds[i + 1]] for i in range(len(rects))]
 
 
 def _point_samples(cov, rr: np.ndarray, cc: np.ndarray) -> np.ndarray:
@@ -717,6 +752,35 @@ def _occlude(d: _Drawn, ups) -> None:
     )
 
 
+#: Patches up to this many pixels are occluded by testing all their samples at once
+#: (fewer calls); bigger ones test only the pixels that two shapes cover in part.
+_SMALL_OCCLUDED = 64
+
+
+def _occlude_small(d: _Drawn, ups) -> None:
+    """:func:`_occlude` for a small patch: every sample of ``d`` against every object above."""
+    v = d.cov.values
+    h, w = v.shape
+    s = d.cov.samples
+    pr0, pc0 = d.cov.row0, d.cov.col0
+    own = d.cov.inside(pr0, pc0, pr0 + h, pc0 + w)  # (h s, w s)
+    occ = np.zeros_like(own)
+    for u in ups:
+        uh, uw = u.cov.values.shape
+        r0, c0 = max(pr0, u.cov.row0), max(pc0, u.cov.col0)
+        r1, c1 = min(pr0 + h, u.cov.row0 + uh), min(pc0 + w, u.cov.col0 + uw)
+        occ[(r0 - pr0) * s : (r1 - pr0) * s, (c0 - pc0) * s : (c1 - pc0) * s] |= u.cov.inside(r0, c0, r1, c1)
+    seen = own & ~occ
+    lost = (own & occ).reshape(h, s, w, s).sum(axis=(1, 3), dtype=np.int32)
+    if not lost.any():
+        d.visible = v
+        return
+    vis = v - lost.astype(np.float32) / (s * s)
+    np.clip(vis, 0.0, 1.0, out=vis)
+    d.visible = vis
+    d.sample_box = mask_box(seen, origin=(pc0, pr0), scale=1.0 / s)
+
+
 def _measure_occlusion(drawn) -> None:
     """Fill in each drawn object's visible coverage from the samples of the objects above it."""
     if not drawn:
@@ -724,6 +788,8 @@ def _measure_occlusion(drawn) -> None:
     for d, above in zip(drawn, _above(_patch_rects(drawn))):
         if above.size == 0:
             d.visible = d.cov.values
+        elif d.cov.values.size <= _SMALL_OCCLUDED:
+            _occlude_small(d, [drawn[j] for j in above.tolist()])
         else:
             _occlude(d, [drawn[j] for j in above.tolist()])
 
@@ -824,11 +890,17 @@ def _pair_ious(drawn, full_boxes: np.ndarray) -> dict:
 def _assemble(image, kept, info) -> Scene:
     n = len(kept)
     boxes = np.array([k[0] for k in kept], dtype=np.float64).reshape(n, 4)
-    iou = pairwise_iou(boxes, boxes)  # (N, N)
-    np.fill_diagonal(iou, 0.0)
+    # Only boxes that overlap have a positive IoU: compute it for those pairs alone.
+    ii, jj = _overlapping_pairs(boxes)
+    iou = box_iou(boxes[ii], boxes[jj])  # (P,)
+    best = np.zeros(n)
+    np.maximum.at(best, ii, iou)
+    np.maximum.at(best, jj, iou)
+    hit = iou > 0
+    count = np.bincount(ii[hit], minlength=n) + np.bincount(jj[hit], minlength=n)
     for i, k in enumerate(kept):
-        k[2]["max_iou"] = float(iou[i].max()) if n > 1 else 0.0
-        k[2]["neighbours"] = int((iou[i] > 0).sum())
+        k[2]["max_iou"] = float(best[i])
+        k[2]["neighbours"] = int(count[i])
     return Scene(
         image=image,
         boxes=boxes,
