@@ -160,10 +160,12 @@ def compose(config, *, rng: np.random.Generator) -> Scene:
     if placement.info:
         info["placement"] = placement.info
     if no_room:
+        # One text per run, so that each process shows it once; the counts are in the
+        # image's dropped["no_room"] and summed in the manifest.
         warnings.warn(
-            f"objects.layout = {spec.layout!r} placed {placement.info['placed']} of "
-            f"{placement.info['requested']} objects on a {width}x{height} canvas "
-            f"(no room within objects.attempts = {spec.attempts} tries each); the rest are left out",
+            f"objects.layout = {spec.layout!r} found no room for some of the requested objects on a "
+            f"{width}x{height} canvas within objects.attempts = {spec.attempts} tries each; they are left "
+            f"out and counted as dropped.no_room in the image records and the manifest",
             PlacementWarning,
             stacklevel=2,
         )
@@ -350,6 +352,10 @@ def _sample_points(cov) -> tuple[np.ndarray, np.ndarray]:
     return xs[jj], ys[ii]
 
 
+#: Largest number of target samples the occluder search tests per step.
+_OCCLUDER_SEARCH_SAMPLES = 1 << 15
+
+
 def place_occluder(
     target: Shape,
     occluder: Shape,
@@ -406,9 +412,13 @@ def place_occluder(
     cov = coverage(target, height, width, samples=samples, stroke=stroke)
     if cov is None:
         return None
-    xs, ys = _sample_points(cov)
-    if xs.size == 0:
+    xs_all, ys_all = _sample_points(cov)
+    if xs_all.size == 0:
         return None
+    # The search runs on an evenly strided subset of a big target's samples; the
+    # share returned is counted on all of them.
+    stride = max(1, xs_all.size // _OCCLUDER_SEARCH_SAMPLES)
+    xs, ys = xs_all[::stride], ys_all[::stride]
     lo, hi = float(hidden[0]), float(hidden[1])
     ux, uy = math.cos(direction), math.sin(direction)
     tb = exact_box(target)
@@ -425,7 +435,7 @@ def place_occluder(
         occ = replace(occ, size=occ.size * 1.5)
         best = share(occ, 0.0)
     if best[1] <= goal:
-        return best
+        return _exact_share(best, xs_all, ys_all, stride)
     ob = exact_box(occ)
     far = 0.5 * (math.hypot(tb[2] - tb[0], tb[3] - tb[1]) + math.hypot(ob[2] - ob[0], ob[3] - ob[1]))
     r_lo, r_hi = 0.0, far
@@ -446,8 +456,16 @@ def place_occluder(
         for r in np.linspace(0.0, far, 65).tolist():
             cand = share(occ, r)
             if lo <= cand[1] <= hi:
-                return cand
-    return found if found is not None else best
+                found = cand
+                break
+    return _exact_share(found if found is not None else best, xs_all, ys_all, stride)
+
+
+def _exact_share(result, xs: np.ndarray, ys: np.ndarray, stride: int):
+    shape, part = result
+    if stride == 1:
+        return shape, part
+    return shape, float(np.count_nonzero(sample_inside(shape, xs, ys))) / xs.size
 
 
 def _add_occluders(shapes, styles, extras, config, rng: np.random.Generator):

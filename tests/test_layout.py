@@ -64,10 +64,12 @@ def test_impossible_request_finishes_with_warning_and_valid_dataset(tmp_path):
 
     cfg = load_config(overrides=["count=2", "canvas.width=64", "canvas.height=64", "objects.layout=separated",
                                  "objects.count=[100,100]", "objects.size=[200,200]", "objects.max_iou=0"])
-    with pytest.warns(PlacementWarning, match="placed 1 of 100 objects"):
+    with pytest.warns(PlacementWarning, match="found no room .* 64x64 canvas"):
         make_dataset(cfg, tmp_path / "d", workers=1)
     manifest = json.loads((tmp_path / "d" / "manifest.json").read_text())
     assert manifest["counts"]["dropped"]["no_room"] == 2 * 99
+    images = json.loads((tmp_path / "d" / "annotations.json").read_text())["images"]
+    assert [im["synthgen"]["placement"]["placed"] for im in images] == [1, 1]
     coco = COCO(str(tmp_path / "d" / "annotations.json"))  # reference: pycocotools loads it
     assert len(coco.getAnnIds()) == manifest["counts"]["objects"] <= 2
 
