@@ -441,7 +441,8 @@ def grid(
     Placement
         When there are more objects than cells, the extra ones are left out
         (``no_room``); otherwise a random choice of cells is filled, in
-        row-major order.
+        row-major order.  ``facts`` give each object's ``grid_row`` and
+        ``grid_col``.
 
     Examples
     --------
@@ -465,7 +466,7 @@ def grid(
         centres += rng.uniform(-jitter, jitter, size=(m, 2)) * p
     return Placement(
         centres=centres, index=np.arange(m), info=_summary("grid", n, m, pitch=p, cells=cells),
-        facts=tuple({"grid_cell": [int(a), int(b)]} for a, b in zip(r, c)),
+        facts=tuple({"grid_row": int(a), "grid_col": int(b)} for a, b in zip(r, c)),
     )
 
 

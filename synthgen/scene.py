@@ -18,12 +18,14 @@ Difficulty dials handled here (placement itself is in :mod:`synthgen.layout`):
   and rotation (its kind too when the two boxes could not reach the top of
   ``objects.pair_iou`` otherwise); the achieved box IoU is recorded as
   ``pair_iou`` on both, with ``pair_id``.
-* ``objects.occlusion``: an occluder (an extra, filled, annotated object drawn
-  above every placed object; never a ring unless rings are the only kind) is moved along a random direction toward its
-  target until the share of the target's sub-pixel samples it covers lies in
-  the range (:func:`place_occluder`); the target records ``occlusion_goal``
-  and ``occluder_hides`` (the share its own occluder covers), the measured
-  ``visible_fraction`` counts every object above it.
+* ``objects.occlusion``: an occluder (an extra, filled, annotated object
+  drawn above every placed object; never a ring unless rings are the only
+  kind) is moved along a random direction toward its target until the share
+  of the target's sub-pixel samples it covers lies in the range
+  (:func:`place_occluder`).  Target and occluder share an ``occlusion_id``;
+  the target records ``occlusion_goal`` and ``occluder_hides`` (the share its
+  own occluder covers), the occluder ``occluder: true``; the measured
+  ``visible_fraction`` counts every object above the target.
 * Clutter (:mod:`synthgen.clutter`) is drawn on the background before the
   objects, from its own random stream.
 * When a layout cannot place every requested object, the image's
@@ -662,6 +664,7 @@ def _point_samples(cov, rr: np.ndarray, cc: np.ndarray) -> np.ndarray:
     offs = (np.arange(s) + 0.5) / s
     xs = cc.astype(np.float64)[:, None, None] + offs[None, None, :]  # (K, 1, s)
     ys = rr.astype(np.float64)[:, None, None] + offs[None, :, None]  # (K, s, 1)
+    # The region behind Coverage.inside (private to shapes.py): the same exact point test.
     region = shapes_mod._region(cov.shape, cov.stroke)
     return np.broadcast_to(region.contains(xs, ys), (rr.size, s, s))
 

@@ -121,7 +121,7 @@ def test_grid_holds_a_thousand_tiny_objects():
     assert info["placed"] == 1000 and info["no_room"] == 0
     dropped = sum(sc.info["dropped"].values())
     assert len(sc.boxes) + dropped == 1000 and len(sc.boxes) > 950
-    cells = {tuple(f["grid_cell"]) for f in sc.facts}
+    cells = {(f["grid_row"], f["grid_col"]) for f in sc.facts}
     assert len(cells) == len(sc.facts)
     p = info["pitch"]
     assert 640 // p * (480 // p) >= 1000
