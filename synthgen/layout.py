@@ -118,12 +118,22 @@ _BLOCK = 8
 
 
 class _BoxGrid:
-    """Uniform grid of square cells listing the boxes that meet each cell."""
+    """Uniform grid of square cells listing the boxes that meet each cell.
 
-    def __init__(self, cell: float):
+    For ``max_iou == 0`` it also keeps a finer raster of the cells that lie
+    wholly inside a placed box: a candidate whose centre falls in one surely
+    overlaps that box, which settles most candidates on a crowded canvas
+    without looking at any box.
+    """
+
+    def __init__(self, cell: float, width: float, height: float, exclusive: bool):
         self.cell = float(cell)
         self.cells: dict[tuple[int, int], list[int]] = {}
         self.boxes: list[tuple[float, float, float, float]] = []
+        self.fine = max(1.0, self.cell / 4.0)
+        self.covered = (
+            np.zeros((int(height // self.fine) + 2, int(width // self.fine) + 2), dtype=bool) if exclusive else None
+        )
 
     def _span(self, x0, y0, x1, y1):
         g = self.cell
@@ -132,6 +142,10 @@ class _BoxGrid:
     def fits(self, box, max_iou: float) -> bool:
         """True when ``box`` has IoU <= max_iou (intersection 0 when max_iou is 0) with every listed box."""
         x0, y0, x1, y1 = box
+        if self.covered is not None:
+            r, c = int((y0 + y1) / 2.0 // self.fine), int((x0 + x1) / 2.0 // self.fine)
+            if 0 <= r < self.covered.shape[0] and 0 <= c < self.covered.shape[1] and self.covered[r, c]:
+                return False
         area = (x1 - x0) * (y1 - y0)
         i0, j0, i1, j1 = self._span(x0, y0, x1, y1)
         seen = set()
@@ -157,10 +171,18 @@ class _BoxGrid:
     def add(self, box) -> None:
         k = len(self.boxes)
         self.boxes.append(tuple(box))
-        i0, j0, i1, j1 = self._span(*box)
+        x0, y0, x1, y1 = box
+        i0, j0, i1, j1 = self._span(x0, y0, x1, y1)
         for i in range(i0, i1 + 1):
             for j in range(j0, j1 + 1):
                 self.cells.setdefault((i, j), []).append(k)
+        if self.covered is not None:
+            f = self.fine
+            # Fine cells [c f, (c + 1) f) wholly inside the box (clamped to the raster).
+            c0, c1 = max(0, math.ceil(x0 / f)), max(0, math.floor(x1 / f))
+            r0, r1 = max(0, math.ceil(y0 / f)), max(0, math.floor(y1 / f))
+            if c1 > c0 and r1 > r0:
+                self.covered[r0:r1, c0:c1] = True
 
 
 def _separate(
@@ -176,7 +198,7 @@ def _separate(
     half = np.asarray(half_extents, dtype=np.float64)
     # Cells about the size of a typical box: a box meets few cells and a cell holds few boxes.
     cell = max(1.0, float(np.median(2.0 * half.max(axis=1))))
-    index = _BoxGrid(cell)
+    index = _BoxGrid(cell, float(width), float(height), exclusive=max_iou <= 0)
     xlo, xhi = _centre_bounds(half[:, 0], float(width))
     ylo, yhi = _centre_bounds(half[:, 1], float(height))
     order = np.argsort(-(half[:, 0] * half[:, 1]), kind="stable")
