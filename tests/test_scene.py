@@ -245,3 +245,56 @@ def test_layouts_are_deterministic():
                                      "objects.count=[6,6]", "objects.size=[4,16]", "objects.occlusion=[0.2,0.4]"])
         a, b = render_scene(cfg, 2), render_scene(cfg, 2)
         assert np.array_equal(a.image, b.image) and a.facts == b.facts
+
+
+def test_dense_occlusion_matches_brute_force_sample_count():
+    """In crowded scenes (outlines too), visible fractions and boxes equal a whole-canvas sample count.
+
+    The reference tests every sub-sample of the canvas against every shape with
+    Coverage.inside (no pixel classes, no patches), the plain rule of the module docstring.
+    """
+    from synthgen.scene import _sample_objects, _moved
+
+    cfg = load_config(overrides=["canvas.width=48", "canvas.height=40", "objects.outline=0.4",
+                                 "objects.min_visible=0", "objects.min_area=0", "objects.size=[2,30]"])
+    rng = np.random.default_rng(9)
+    s = cfg.render.samples
+    occluded = 0
+    for _ in range(4):
+        shapes, styles = _sample_objects(cfg, rng, n=25)
+        shapes = [_moved(sh, c) for sh, c in zip(shapes, rng.uniform(size=(25, 2)) * (48, 40))]
+        scene = compose_shapes(grey(cfg), shapes, cfg, rng=np.random.default_rng(0), styles=styles)
+        masks = []
+        for sh, st in zip(shapes, styles):
+            cov = coverage(sh, 40, 48, samples=s, stroke=st["stroke"])  # never None: centres lie on the canvas
+            m = np.zeros((40 * s, 48 * s), dtype=bool)
+            h, w = cov.values.shape
+            m[cov.row0 * s : (cov.row0 + h) * s, cov.col0 * s : (cov.col0 + w) * s] = cov.inside(
+                cov.row0, cov.col0, cov.row0 + h, cov.col0 + w)
+            masks.append(m)
+        for f in scene.facts:
+            z = f["z"]  # every shape is drawn, so draw order = shape order
+            above = np.zeros_like(masks[z])
+            for m in masks[z + 1 :]:
+                above |= m
+            seen = masks[z] & ~above
+            assert f["visible_fraction"] == pytest.approx(seen.sum() / masks[z].sum(), abs=1e-12)
+            if f["visible_fraction"] < 1.0:
+                expected = visible_box(np.array(f["full_box"]), mask_box(seen, scale=1.0 / s))
+                assert np.allclose(f["visible_box"], expected, atol=1e-12)
+                occluded += 1
+    assert occluded >= 20
+
+
+def test_max_iou_and_neighbours_match_a_double_loop():
+    """max_iou and neighbours equal a plain double loop over the annotated boxes (common practice)."""
+    from synthgen.geometry import pairwise_iou
+
+    cfg = load_config(overrides=["canvas.width=120", "canvas.height=90", "objects.count=[40,40]",
+                                 "objects.size=[6,40]", "objects.min_visible=0"])
+    scene = render_scene(cfg, 1)
+    n = len(scene.boxes)
+    for i in range(n):
+        ious = [float(pairwise_iou(scene.boxes[i : i + 1], scene.boxes[j : j + 1])[0, 0]) for j in range(n) if j != i]
+        assert scene.facts[i]["max_iou"] == max(ious)
+        assert scene.facts[i]["neighbours"] == sum(v > 0 for v in ious)
