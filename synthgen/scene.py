@@ -755,20 +755,26 @@ def _occlude(d: _Drawn, ups) -> None:
         d.sample_box = None
         return
     cols = np.flatnonzero(support.any(axis=0))
-    edges = []
-    for axis, line, last in ((1, cols[0], False), (0, rows[0], False), (1, cols[-1], True), (0, rows[-1], True)):
-        if axis == 1:  # a pixel column: which sample columns hold visible samples
-            rr = np.flatnonzero(support[:, line])
-            cc = np.full(rr.size, line)
-            hit = np.flatnonzero(_visible_samples(d, covers, rr, cc).any(axis=(0, 1)))
-        else:  # a pixel row: which sample rows
-            cc = np.flatnonzero(support[line, :])
-            rr = np.full(cc.size, line)
-            hit = np.flatnonzero(_visible_samples(d, covers, rr, cc).any(axis=(0, 2)))
-        edges.append(line * s + (hit[-1] + 1 if last else hit[0]))
+    # The outermost visible pixel column on each side and row on each side, sampled in one pass.
+    left, right, top, bottom = cols[0], cols[-1], rows[0], rows[-1]
+    r_l, r_r = np.flatnonzero(support[:, left]), np.flatnonzero(support[:, right])
+    c_t, c_b = np.flatnonzero(support[top, :]), np.flatnonzero(support[bottom, :])
+    rr = np.concatenate([r_l, r_r, np.full(c_t.size, top), np.full(c_b.size, bottom)])
+    cc = np.concatenate([np.full(r_l.size, left), np.full(r_r.size, right), c_t, c_b])
+    seen = _visible_samples(d, covers, rr, cc)  # (K, s, s)
+    a, b, c = r_l.size, r_l.size + r_r.size, r_l.size + r_r.size + c_t.size
+    j_left = np.flatnonzero(seen[:a].any(axis=(0, 1)))[0]
+    j_right = np.flatnonzero(seen[a:b].any(axis=(0, 1)))[-1]
+    i_top = np.flatnonzero(seen[b:c].any(axis=(0, 2)))[0]
+    i_bottom = np.flatnonzero(seen[c:].any(axis=(0, 2)))[-1]
     scale = 1.0 / s
     d.sample_box = np.array(
-        [pc0 + edges[0] * scale, pr0 + edges[1] * scale, pc0 + edges[2] * scale, pr0 + edges[3] * scale],
+        [
+            pc0 + (left * s + j_left) * scale,
+            pr0 + (top * s + i_top) * scale,
+            pc0 + (right * s + j_right + 1) * scale,
+            pr0 + (bottom * s + i_bottom + 1) * scale,
+        ],
         dtype=np.float64,
     )
 
