@@ -79,7 +79,9 @@ class ObjectSpec:
     ``pair_iou`` (``pairs``), ``grid_pitch`` and ``grid_jitter`` (``grid``),
     ``clusters`` and ``cluster_spread`` (``clusters``).  ``occlusion`` = [lo,
     hi] with hi > 0 puts an occluder over a share ``occlusion_share`` of the
-    placed objects so that each hides a fraction in [lo, hi] of its target.
+    placed objects so that each hides a fraction in [lo, hi] of its target
+    (targets hidden beyond ``1 - min_visible`` are still dropped, so lower
+    ``min_visible`` for heavy occlusion).
     """
 
     count: tuple[int, int] = (3, 12)
@@ -98,15 +100,15 @@ class ObjectSpec:
     sides: tuple[int, int] = (3, 8)
     inner: tuple[float, float] = (0.35, 0.65)
     box: str = "visible"
-    max_iou: float = 0.0
-    attempts: int = 100
-    pair_iou: tuple[float, float] = (0.3, 0.7)
-    grid_pitch: float = 0.0
-    grid_jitter: float = 0.0
-    clusters: tuple[int, int] = (2, 5)
-    cluster_spread: tuple[float, float] = (8.0, 40.0)
-    occlusion: tuple[float, float] = (0.0, 0.0)
-    occlusion_share: float = 1.0
+    max_iou: float = 0.0  # largest exact-box IoU of two objects, in [0, 1] (0: none overlap)
+    attempts: int = 100  # candidate centres per object before it is left out (no_room)
+    pair_iou: tuple[float, float] = (0.3, 0.7)  # box IoU range within a pair, in (0, 1]
+    grid_pitch: float = 0.0  # lattice spacing, px (0: largest pitch that holds every object)
+    grid_jitter: float = 0.0  # largest centre move per axis, in pitches, [0, 0.5]
+    clusters: tuple[int, int] = (2, 5)  # number of cluster centres per image
+    cluster_spread: tuple[float, float] = (8.0, 40.0)  # normal spread around a centre, px
+    occlusion: tuple[float, float] = (0.0, 0.0)  # hidden share of a target by its occluder
+    occlusion_share: float = 1.0  # share of placed objects that get an occluder
 
     def __post_init__(self):
         check_range("objects.count", self.count, lo=0, hi=MAX_OBJECTS, integer=True)

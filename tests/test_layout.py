@@ -152,3 +152,22 @@ def test_layout_keys_are_checked():
         load_config(overrides=["objects.max_iou=1.5"])
     with pytest.raises(ConfigError, match="objects.pair_iou"):
         load_config(overrides=["objects.pair_iou=[0, 0.5]"])
+
+
+def test_cli_warns_on_stderr_and_succeeds(tmp_path):
+    """`synthgen make` on an impossible request exits 0, warns once per process on stderr, writes the manifest."""
+    import os
+    import subprocess
+    import sys
+    from pathlib import Path
+
+    env = dict(os.environ, PYTHONPATH=str(Path(__file__).resolve().parents[1]))
+    res = subprocess.run(
+        [sys.executable, "-m", "synthgen", "make", "--out", str(tmp_path / "d"), "--count", "3", "--workers", "1",
+         "--set", "canvas.width=64", "--set", "canvas.height=64", "--set", "objects.layout=separated",
+         "--set", "objects.count=[100,100]", "--set", "objects.size=[200,200]", "--quiet"],
+        capture_output=True, text=True, env=env,
+    )
+    assert res.returncode == 0, res.stderr
+    assert res.stderr.count("found no room") == 1 and res.stdout.startswith("wrote 3 images")
+    assert json.loads((tmp_path / "d" / "manifest.json").read_text())["counts"]["dropped"]["no_room"] == 3 * 99
