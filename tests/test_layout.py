@@ -171,3 +171,15 @@ def test_cli_warns_on_stderr_and_succeeds(tmp_path):
     assert res.returncode == 0, res.stderr
     assert res.stderr.count("found no room") == 1 and res.stdout.startswith("wrote 3 images")
     assert json.loads((tmp_path / "d" / "manifest.json").read_text())["counts"]["dropped"]["no_room"] == 3 * 99
+
+
+def test_dials_give_identical_files_for_one_and_two_workers(tmp_path):
+    """Pairs, occluders, clutter and degradations: 1 worker and 2 workers write the same bytes (numpy.random: spawn keys)."""
+    cfg = load_config(overrides=["count=4", "canvas.width=96", "canvas.height=64", "objects.layout=pairs",
+                                 "objects.count=[4,6]", "objects.size=[6,20]", "objects.occlusion=[0.2,0.4]",
+                                 "objects.occlusion_share=0.5", "clutter.count=[3,6]", "clutter.similar=0.5",
+                                 "degrade.noise.p=0.5"])
+    make_dataset(cfg, tmp_path / "one", workers=1)
+    make_dataset(cfg, tmp_path / "two", workers=2)
+    files = [json.loads((tmp_path / d / "manifest.json").read_text())["files"] for d in ("one", "two")]
+    assert files[0] == files[1] and len(files[0]) == 5
