@@ -161,6 +161,19 @@ def make(
         f"wrote {summary.images} images, {summary.objects} objects to {summary.out} "
         f"in {summary.seconds:.2f} s ({summary.images_per_second:.1f} images/s)"
     )
+    _warn_shortfall(cfg, summary.dropped)
+
+
+def _warn_shortfall(cfg, dropped: dict, where: str = "") -> None:
+    """One warning line on stderr when a layout could not place every requested object."""
+    n = int(dropped.get("no_room", 0))
+    if n:
+        typer.echo(
+            f"synthgen: warning: {where}{n} requested objects found no room (objects.layout = "
+            f"'{cfg.objects.layout}', objects.attempts = {cfg.objects.attempts}); they are not drawn and "
+            "the manifest counts them under counts.dropped.no_room",
+            err=True,
+        )
 
 
 # config key of each DetectorSpec field -> the jitter option that sets it
@@ -445,7 +458,8 @@ def sweep(
     if seed is not None:
         overrides.append(f"seed={seed}")
     varies = [parse_vary(v) for v in vary]
-    total = sum(cfg.count for _, _, cfg in plan_sweep(config, varies, overrides))
+    plan = plan_sweep(config, varies, overrides)
+    total = sum(cfg.count for _, _, cfg in plan)
     bar, advance = _progress(total, quiet, "sweeping")
     with bar:
         summary = run_sweep(
@@ -456,6 +470,8 @@ def sweep(
         f"wrote {summary.subsets} datasets ({summary.images} images, {summary.objects} objects) "
         f"to {summary.out} in {summary.seconds:.2f} s"
     )
+    for (rel, _, cfg), record in zip(plan, summary.records):
+        _warn_shortfall(cfg, record["dropped"], where=f"{rel}: ")
 
 
 def main() -> None:
