@@ -188,7 +188,8 @@ def plan_objects(config, *, rng: np.random.Generator):
     placement = layout_mod.place(spec.layout, half, width, height, spec, rng=rng)
     index = placement.index.tolist()
     extras = [dict(f) for f in placement.facts] if placement.facts else [{} for _ in index]
-    shapes = [_moved(shapes[i], placement.centres[j]) for j, i in enumerate(index)]
+    centres = placement.centres.tolist()
+    shapes = [shapes_mod._moved_to(shapes[i], centres[j][0], centres[j][1]) for j, i in enumerate(index)]
     styles = [styles[i] for i in index]
     info = {}
     if spec.occlusion[1] > 0:
@@ -262,30 +263,31 @@ def _sample_objects(config, rng: np.random.Generator, n: int | None = None):
     strokes = rng.uniform(spec.stroke[0], spec.stroke[1], size=n)
     fill_angles = rng.uniform(0.0, 180.0, size=n)
     periods = rng.uniform(2.0, 8.0, size=n)
+    # Plain Python values (the same floats as float(array[i])); the config's ranges
+    # already guarantee what Shape checks, so shapes are built without re-checking
+    # unless a value is off (then Shape raises its usual error).
+    trusted = bool(
+        n == 0
+        or (np.isfinite(sizes).all() and (sizes > 0).all() and np.isfinite(aspects).all() and (aspects > 0).all()
+            and np.isfinite(angles).all() and (inner > 0).all() and (inner < 1).all() and (sides >= 3).all())
+    )
+    make = shapes_mod._trusted if trusted else Shape
+    names = [spec.shapes[k] for k in kinds.tolist()]
+    fill_names = [spec.fills[k] for k in fills.tolist()]
     shapes, styles = [], []
-    for i in range(n):
-        kind = spec.shapes[kinds[i]]
-        shapes.append(
-            Shape(
-                kind=kind,
-                cx=0.0,
-                cy=0.0,
-                size=float(sizes[i]),
-                # objects.aspect stretches a kind's natural proportions: 1 keeps polygons and stars regular
-                aspect=float(aspects[i]) * natural_aspect(kind, int(sides[i]), float(inner[i])),
-                angle=float(angles[i]),
-                sides=int(sides[i]),
-                inner=float(inner[i]),
-            )
-        )
-        is_outline = bool(outline[i])
+    for kind, size, asp, angle, side, inr, is_outline, fill, stroke, fill_angle, period in zip(
+        names, sizes.tolist(), aspects.tolist(), angles.tolist(), sides.tolist(), inner.tolist(),
+        outline.tolist(), fill_names, strokes.tolist(), fill_angles.tolist(), periods.tolist(),
+    ):
+        # objects.aspect stretches a kind's natural proportions: 1 keeps polygons and stars regular
+        shapes.append(make(kind, 0.0, 0.0, size, asp * natural_aspect(kind, side, inr), angle, side, inr))
         styles.append(
             {
-                "fill": "flat" if is_outline else spec.fills[fills[i]],
+                "fill": "flat" if is_outline else fill,
                 "outline": is_outline,
-                "stroke": float(min(strokes[i], max(sizes[i] / 4.0, 0.5))) if is_outline else 0.0,
-                "fill_angle": float(fill_angles[i]),
-                "period": float(max(periods[i], sizes[i] / 8.0)),
+                "stroke": float(min(stroke, max(size / 4.0, 0.5))) if is_outline else 0.0,
+                "fill_angle": fill_angle,
+                "period": float(max(period, size / 8.0)),
             }
         )
     return shapes, styles
@@ -304,7 +306,7 @@ def _half_extents(shapes) -> np.ndarray:
 
 
 def _moved(shape: Shape, centre) -> Shape:
-    return replace(shape, cx=float(centre[0]), cy=float(centre[1]))
+    return shapes_mod._moved_to(shape, float(centre[0]), float(centre[1]))
 
 
 def _pair_geometry(shapes, top_iou: float):

@@ -181,6 +181,36 @@ class Shape:
         object.__setattr__(self, "sides", int(sides))
 
 
+_SHAPE_FIELDS = ("kind", "cx", "cy", "size", "aspect", "angle", "sides", "inner")
+_new_object = object.__new__
+_set_field = object.__setattr__
+
+
+def _trusted(kind: str, cx: float, cy: float, size: float, aspect: float, angle: float, sides: int, inner: float) -> Shape:
+    """A :class:`Shape` from values already known to pass its checks (Python floats, int ``sides``).
+
+    For callers that draw many shapes from validated arrays: the same object
+    ``Shape(...)`` would build, without re-running the per-field checks.
+    """
+    s = _new_object(Shape)
+    _set_field(s, "kind", kind)
+    _set_field(s, "cx", cx)
+    _set_field(s, "cy", cy)
+    _set_field(s, "size", size)
+    _set_field(s, "aspect", aspect)
+    _set_field(s, "angle", angle)
+    _set_field(s, "sides", sides)
+    _set_field(s, "inner", inner)
+    return s
+
+
+def _moved_to(shape: Shape, cx: float, cy: float) -> Shape:
+    """``replace(shape, cx=cx, cy=cy)`` for finite Python floats, without re-checking the other fields."""
+    if not (math.isfinite(cx) and math.isfinite(cy)):
+        raise ValueError(f"Shape centre must be finite (got {cx!r}, {cy!r})")
+    return _trusted(shape.kind, cx, cy, shape.size, shape.aspect, shape.angle, shape.sides, shape.inner)
+
+
 # --------------------------------------------------------------------------
 # Regions: exact point tests and conservative distance bounds.
 #
@@ -668,7 +698,12 @@ def natural_aspect(kind: str, sides: int = 5, inner: float = 0.5) -> float:
         raise ValueError(f"kind must be one of {', '.join(KINDS)} (got {kind!r})")
     if kind not in ("polygon", "star"):
         return 1.0
-    sides = int(sides)
+    # a polygon's proportions do not depend on `inner`
+    return _natural_aspect(kind, int(sides), float(inner) if kind == "star" else 0.0)
+
+
+@lru_cache(maxsize=8192)
+def _natural_aspect(kind: str, sides: int, inner: float) -> float:
     phi = (np.pi / sides) * np.arange(2 * sides)
     r = np.where(np.arange(2 * sides) % 2 == 0, 1.0, float(inner) if kind == "star" else 0.0)
     if kind == "polygon":
