@@ -548,8 +548,10 @@ def _draw(canvas: np.ndarray, shapes, styles, extras, config, rng: np.random.Gen
     cands = rng.uniform(0.0, 255.0, size=(len(shapes), 2, 8, 3))
     lums = cands @ LUMA / 255.0  # (N, 2, 8)
     drawn = []
+    # Coverage does not depend on the canvas: all patches at once (tiny shapes in bulk).
+    covs = shapes_mod.coverage_many(shapes, height, width, samples=samples, strokes=[st["stroke"] for st in styles])
     for i, (shape, style) in enumerate(zip(shapes, styles)):
-        cov = coverage(shape, height, width, samples=samples, stroke=style["stroke"])
+        cov = covs[i]
         if cov is None:
             continue
         v = cov.values

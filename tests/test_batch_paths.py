@@ -1,0 +1,93 @@
+"""Batch (vectorized) paths of synthgen equal their plain one-object-at-a-time paths exactly.
+
+The reference in each test is the project's own per-object path, which the
+other tests hold against outside references (shapely, scikit-image,
+pycocotools); here only bit-for-bit equality of the fast path is checked.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from synthgen.shapes import KINDS, Shape, coverage, coverage_many
+
+
+def _tiny_scene(seed: int, n: int, lo: float, hi: float, height: int = 60, width: int = 80):
+    """Random shapes of every kind, many cut by the border, with and without an outline band."""
+    rng = np.random.default_rng(seed)
+    shapes, strokes = [], []
+    for _ in range(n):
+        size = float(np.exp(rng.uniform(np.log(lo), np.log(hi))))
+        shapes.append(
+            Shape(
+                KINDS[int(rng.integers(len(KINDS)))],
+                float(rng.uniform(-4, width + 4)),
+                float(rng.uniform(-4, height + 4)),
+                size,
+                aspect=float(np.exp(rng.uniform(-1.0, 1.0))),
+                angle=float(rng.uniform(0, 360)),
+                sides=int(rng.integers(3, 9)),
+                inner=float(rng.uniform(0.2, 0.9)),
+            )
+        )
+        strokes.append(float(rng.uniform(0.3, 3.0)) if rng.random() < 0.3 else 0.0)
+    return shapes, strokes, height, width
+
+
+@pytest.mark.parametrize("samples", [1, 3, 4])
+@pytest.mark.parametrize("seed", range(6))
+def test_coverage_many_equals_coverage(seed, samples):
+    """coverage_many gives, shape by shape, the very patch and values coverage gives."""
+    shapes, strokes, h, w = _tiny_scene(seed, 300, 0.3, 16.0)
+    many = coverage_many(shapes, h, w, samples=samples, strokes=strokes)
+    assert len(many) == len(shapes)
+    for shape, stroke, got in zip(shapes, strokes, many):
+        want = coverage(shape, h, w, samples=samples, stroke=stroke)
+        if want is None:
+            assert got is None
+            continue
+        assert (got.row0, got.col0, got.samples, got.stroke, got.shape) == (
+            want.row0, want.col0, want.samples, want.stroke, want.shape
+        )
+        assert got.values.dtype == want.values.dtype
+        assert np.array_equal(got.values, want.values)
+
+
+def test_coverage_many_rejects_bad_stroke():
+    """A negative stroke is refused as coverage refuses it."""
+    with pytest.raises(ValueError, match="stroke"):
+        coverage_many([Shape("ellipse", 5.0, 5.0, 3.0)], 10, 10, strokes=[-1.0])
+
+
+def _region_arrays(region) -> list:
+    """Every number that defines a region, in a fixed order (for exact comparison)."""
+    from synthgen import shapes as sh
+
+    if isinstance(region, sh._Convex):
+        return [np.asarray(region.nx), np.asarray(region.ny), np.asarray(region.c)]
+    if isinstance(region, sh._Union):
+        return [a for p in region.parts for a in _region_arrays(p)]
+    if isinstance(region, sh._Diff):
+        return _region_arrays(region.keep) + _region_arrays(region.cut)
+    if isinstance(region, sh._Ellipse):
+        return [np.array([region.ex, region.ey, region.cos, region.sin, region.a, region.b])]
+    raise AssertionError(f"unexpected region {region!r}")
+
+
+@pytest.mark.parametrize("seed", range(4))
+def test_bulk_geometry_equals_one_by_one(seed):
+    """Geometry built in bulk (boxes, areas, half-planes, vertices) equals the one-shape build exactly."""
+    from synthgen import shapes as sh
+
+    shapes, _strokes, _h, _w = _tiny_scene(seed, 400, 0.5, 200.0)
+    for shape, got in zip(shapes, sh._build_many(shapes)):
+        want = sh._build(shape)
+        assert got.box == want.box
+        assert got.area == want.area
+        for a, b in zip(_region_arrays(got.region), _region_arrays(want.region), strict=True):
+            assert np.array_equal(a, b)
+        if want.ring is None:
+            assert got.ring is None
+        else:
+            assert np.array_equal(got.ring, want.ring)
