@@ -848,40 +848,49 @@ def _annotate(drawn, outside: int, config):
             if cut is not None:
                 full_boxes[z] = cut
     pair_iou = _pair_ious(drawn, full_boxes)
+    supports, pboxes = _supports_and_pixel_boxes(drawn)
+    raw = np.array([d.box for d in drawn]).reshape(-1, 4)
+    sizes = np.maximum(raw[:, 2] - raw[:, 0], raw[:, 3] - raw[:, 1]).tolist()
+    cut = ((raw[:, 0] < 0) | (raw[:, 1] < 0) | (raw[:, 2] > width) | (raw[:, 3] > height)).tolist()
+    full_lists = full_boxes.tolist()
+    visible_boxes = spec.box == "visible"
+    min_visible, min_area = spec.min_visible, spec.min_area
     kept = []
     for z, d in enumerate(drawn):
         full_cov = float(d.cov.values.sum())
         if full_cov <= 0:  # too small to cover any sample
             dropped["min_area"] += 1
             continue
-        vis_cov = full_cov if d.visible is d.cov.values else float(d.visible.sum())
+        unoccluded = d.visible is d.cov.values
+        vis_cov = full_cov if unoccluded else float(d.visible.sum())
         fraction = vis_cov / full_cov
         full_box = full_boxes[z]
-        vbox = visible_box(full_box, d.sample_box) if vis_cov > 0 else None
-        support = d.visible > 0
-        pbox = mask_box(support, origin=(d.cov.col0, d.cov.row0))
+        if vis_cov > 0:
+            vbox = full_box.copy() if d.sample_box is None else visible_box(full_box, d.sample_box)
+        else:
+            vbox = None
+        pbox = pboxes[z]
         if vbox is None or pbox is None or vis_cov <= 0:
             dropped["hidden"] += 1
             continue
-        if fraction < spec.min_visible:
+        if fraction < min_visible:
             dropped["min_visible"] += 1
             continue
-        if vis_cov < spec.min_area:
+        if vis_cov < min_area:
             dropped["min_area"] += 1
             continue
-        b = d.box
-        truncated = bool(b[0] < 0 or b[1] < 0 or b[2] > width or b[3] > height)
+        shape = d.shape
         facts = {
-            "kind": d.shape.kind,
+            "kind": shape.kind,
             "z": z,
-            "full_box": full_box.tolist(),
-            "visible_box": vbox.tolist(),
-            "pixel_box": pbox.tolist(),
-            "size": float(max(b[2] - b[0], b[3] - b[1])),
-            "aspect": d.shape.aspect / natural_aspect(d.shape.kind, d.shape.sides, d.shape.inner),
-            "rotation": d.shape.angle,
+            "full_box": full_lists[z],
+            "visible_box": list(full_lists[z]) if d.sample_box is None else vbox.tolist(),
+            "pixel_box": pbox,
+            "size": sizes[z],
+            "aspect": shape.aspect / natural_aspect(shape.kind, shape.sides, shape.inner),
+            "rotation": shape.angle,
             "visible_fraction": min(fraction, 1.0),
-            "truncated": truncated,
+            "truncated": cut[z],
             "contrast": d.contrast,
             "fill": d.style["fill"],
             "outline": d.style["outline"],
@@ -889,13 +898,55 @@ def _annotate(drawn, outside: int, config):
         }
         if "pair_id" in d.extra and d.extra["pair_id"] in pair_iou:
             facts["pair_iou"] = pair_iou[d.extra["pair_id"]]
-        box = vbox if spec.box == "visible" else full_box
+        box = vbox if visible_boxes else full_box
         # The mask patch is cropped to the pixel box (less to run-length encode).
         c0, r0, c1, r1 = (int(v) for v in pbox)
         pr, pc = r0 - d.cov.row0, c0 - d.cov.col0
-        mask = (r0, c0, support[pr : pr + r1 - r0, pc : pc + c1 - c0])
+        mask = (r0, c0, supports[z][pr : pr + r1 - r0, pc : pc + c1 - c0])
         kept.append((box, vis_cov, facts, mask))
     return kept, dropped
+
+
+def _supports_and_pixel_boxes(drawn):
+    """Support (visible coverage > 0) and pixel box (list of 4 floats, or None) of each drawn object.
+
+    The same boxes as :func:`synthgen.geometry.mask_box` on each support with
+    the patch's origin, found for all patches of one size in one array pass.
+    """
+    n = len(drawn)
+    supports: list = [None] * n
+    pboxes: list = [None] * n
+    by_size: dict = {}
+    for z, d in enumerate(drawn):
+        by_size.setdefault(d.visible.shape, []).append(z)
+    for (h, w), zs in by_size.items():
+        if h * w > _BULK_SUPPORT_PIXELS or len(zs) == 1:
+            for z in zs:
+                d = drawn[z]
+                support = d.visible > 0
+                supports[z] = support
+                box = mask_box(support, origin=(d.cov.col0, d.cov.row0))
+                pboxes[z] = None if box is None else box.tolist()
+            continue
+        sup = np.stack([drawn[z].visible for z in zs]) > 0  # (K, h, w)
+        rows = sup.any(axis=2)  # (K, h)
+        cols = sup.any(axis=1)  # (K, w)
+        has = rows.any(axis=1).tolist()
+        r0 = rows.argmax(axis=1).tolist()
+        r1 = (h - rows[:, ::-1].argmax(axis=1)).tolist()
+        c0 = cols.argmax(axis=1).tolist()
+        c1 = (w - cols[:, ::-1].argmax(axis=1)).tolist()
+        for k, z in enumerate(zs):
+            supports[z] = sup[k]
+            if has[k]:
+                d = drawn[z]
+                x0, y0 = d.cov.col0, d.cov.row0
+                pboxes[z] = [float(x0 + c0[k]), float(y0 + r0[k]), float(x0 + c1[k]), float(y0 + r1[k])]
+    return supports, pboxes
+
+
+#: Patches up to this many pixels get their support and pixel box in bulk.
+_BULK_SUPPORT_PIXELS = 1024
 
 
 def _pair_ious(drawn, full_boxes: np.ndarray) -> dict:
