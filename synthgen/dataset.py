@@ -1,4 +1,4 @@
-"""Many images: render in workers, keep order, write images, COCO JSON and the manifest.
+"""Many images: render in workers, record progress, write images, COCO JSON and the manifest.
 
 Output directory::
 
@@ -6,59 +6,106 @@ Output directory::
     DIR/annotations.json         COCO JSON; per-object facts under "synthgen"
     DIR/manifest.json            resolved config, seed, versions, counts, sha256 per file; written last
 
-Every file is written under a temporary name and renamed into place, and the
-annotation file and manifest are fsync'ed, so a run that dies leaves no
-truncated file under a final name; a directory without ``manifest.json`` is an
-unfinished run.  Image ``k`` depends only on ``(config, k)``, so the output is
-byte-identical for any number of workers.
+How a run goes (:func:`make_dataset`):
+
+1. :func:`prepare_output` checks ``DIR`` (refusing a directory made from another
+   config, naming the keys that differ) and writes the run record
+   ``DIR/.synthgen/run.json``.
+2. Images are rendered in blocks of indices, by worker processes or a Dask
+   cluster.  Each image is written under a temporary name and renamed; its
+   record (:func:`render_image_record`, serialized by
+   :func:`synthgen.shards.encode_record`) is appended to the run's journal and
+   flushed as each block finishes.
+3. :func:`finish_dataset` streams ``annotations.json`` from the journal in index
+   order (:func:`synthgen.shards.write_coco_streamed`), writes ``manifest.json``,
+   both atomically with fsync, and removes ``.synthgen/``.
+
+Image ``k`` depends only on ``(config, k)``, so the output is byte-identical for
+any number of workers, any shard split (:func:`merge_shards`), any cluster and
+any resume point.  A run killed at any moment leaves no truncated file under a
+final name, and ``resume=True`` keeps every image whose digest matches its
+journal record and regenerates the rest.
 """
 
 from __future__ import annotations
 
+import contextlib
 import hashlib
 import os
 import platform
 import shutil
 import time
-from collections.abc import Callable
-from concurrent.futures import ProcessPoolExecutor
-from dataclasses import dataclass
+from collections.abc import Callable, Iterator, Sequence
+from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
+from dataclasses import dataclass, field
+from itertools import islice
 from pathlib import Path
 
 import numpy as np
+import orjson
 
 from synthgen import __version__
-from synthgen.config import Config, to_dict
-from synthgen.errors import UserError
+from synthgen.config import Config, build, to_dict
+from synthgen.errors import InputFileError, UserError
 from synthgen.formats import rle
-from synthgen.formats.coco import bbox_from_xyxy, write_bytes_atomic, write_coco
+from synthgen.formats.coco import bbox_from_xyxy, write_bytes_atomic
 from synthgen.formats.images import EXTENSIONS, encode_image
 from synthgen.scene import Scene, category_id, render_scene
+from synthgen.shards import (
+    RUN_RECORD,
+    OutputWriteError,
+    RecordStore,
+    Shard,
+    describe_differences,
+    encode_record,
+    find_shard_manifests,
+    journal_path,
+    read_json,
+    remove_state,
+    sha256_file,
+    shard_manifest_path,
+    state_dir,
+    write_coco_streamed,
+)
 
 __all__ = [
     "MakeSummary",
     "make_dataset",
+    "merge_shards",
     "image_name",
     "render_image_record",
+    "render_block",
     "build_coco",
+    "coco_info",
+    "categories",
+    "build_manifest",
+    "finish_dataset",
     "prepare_output",
     "usable_cores",
     "OUTPUT_ENTRIES",
 ]
 
-#: What a run writes at the top of its directory (``--overwrite`` removes only these).
-OUTPUT_ENTRIES = ("images", "annotations.json", "manifest.json")
+#: What a run writes at the top of its directory (``--overwrite`` removes only these and shard manifests).
+OUTPUT_ENTRIES = ("images", "annotations.json", "manifest.json", ".synthgen")
+
+MANIFEST_VERSION = 1
 
 
 @dataclass(frozen=True, slots=True)
 class MakeSummary:
-    """What a run wrote."""
+    """What a run wrote.
+
+    ``images`` counts the images of this run (of its shard); ``kept`` how many
+    of them a resumed run found intact and did not render again.
+    """
 
     out: Path
     images: int
     objects: int
     dropped: dict
     seconds: float
+    kept: int = 0
+    shard: Shard = field(default_factory=Shard)
 
     @property
     def images_per_second(self) -> float:
@@ -77,6 +124,9 @@ def image_name(config: Config, index: int) -> str:
     """File name of image ``index``: zero-padded index and the format's extension."""
     digits = max(6, len(str(config.count - 1)))
     return f"{index:0{digits}d}.{EXTENSIONS[config.output.image_format]}"
+
+
+# --------------------------------------------------------------------------- one image
 
 
 def scene_annotations(scene: Scene, height: int, width: int) -> list[dict]:
@@ -98,13 +148,25 @@ def scene_annotations(scene: Scene, height: int, width: int) -> list[dict]:
     return records
 
 
+def write_file_atomic(path: Path, data: bytes) -> None:
+    """Write ``data`` to ``path`` under a temporary name in the same directory, then rename.
+
+    No fsync: a killed process cannot leave a truncated file under ``path``, and
+    damage from a power cut is caught by the digests on ``--resume``.
+    """
+    tmp = path.parent / f".{path.name}.tmp"
+    tmp.write_bytes(data)
+    os.replace(tmp, path)
+
+
 def render_image_record(config: Config, index: int, images_dir: Path | None = None) -> dict:
     """Render image ``index``, optionally write its file, and return its records.
 
     Returns
     -------
     dict
-        ``{"file_name", "digest", "image": COCO image record, "annotations": [...],
+        ``{"file_name", "digest", "files": {path relative to DIR: sha256},
+        "image": COCO image record, "annotations": [...] (without ids),
         "dropped": {...}}``.
     """
     scene = render_scene(config, index)
@@ -112,9 +174,7 @@ def render_image_record(config: Config, index: int, images_dir: Path | None = No
     data = encode_image(scene.image, out.image_format, png_level=out.png_level, jpeg_quality=out.jpeg_quality)
     name = image_name(config, index)
     if images_dir is not None:
-        tmp = images_dir / f".{name}.tmp"
-        tmp.write_bytes(data)
-        os.replace(tmp, images_dir / name)
+        write_file_atomic(Path(images_dir) / name, data)
     height, width = scene.image.shape[:2]
     image = {
         "id": index + 1,
@@ -123,13 +183,32 @@ def render_image_record(config: Config, index: int, images_dir: Path | None = No
         "height": height,
         "synthgen": {"index": index, **scene.info},
     }
+    digest = hashlib.sha256(data).hexdigest()
     return {
         "file_name": name,
-        "digest": hashlib.sha256(data).hexdigest(),
+        "digest": digest,
+        "files": {f"images/{name}": digest},
         "image": image,
         "annotations": scene_annotations(scene, height, width),
         "dropped": scene.info["dropped"],
     }
+
+
+def journal_line(record: dict, index: int) -> bytes:
+    """The journal line of a record from :func:`render_image_record`."""
+    return encode_record(index, record["files"], record["dropped"], record["image"], record["annotations"])
+
+
+def render_block(config: Config, indices: Sequence[int], out: str | Path) -> list[bytes]:
+    """Render and write images ``indices`` into ``out/images``; return their journal lines.
+
+    This is the unit of work of every backend (worker process, Dask task).
+    """
+    images_dir = Path(out) / "images"
+    return [journal_line(render_image_record(config, k, images_dir), k) for k in indices]
+
+
+# --------------------------------------------------------------------------- the COCO file and manifest
 
 
 def categories(config: Config) -> list[dict]:
@@ -138,8 +217,17 @@ def categories(config: Config) -> list[dict]:
     return [{"id": category_id(k), "name": k, "supercategory": "shape"} for k in kinds]
 
 
+def coco_info(config: Config) -> dict:
+    """The COCO ``info`` record."""
+    return {"description": "synthgen dataset", "version": __version__, "seed": config.seed}
+
+
 def build_coco(config: Config, records) -> dict:
-    """Assemble the COCO dict from per-image records in index order; ids start at 1."""
+    """Assemble the COCO dict from per-image records in index order; ids start at 1.
+
+    The in-memory reference for :func:`synthgen.shards.write_coco_streamed`,
+    which writes the same bytes without holding every record.
+    """
     images, annotations = [], []
     next_id = 1
     for rec in records:
@@ -147,38 +235,11 @@ def build_coco(config: Config, records) -> dict:
         for ann in rec["annotations"]:
             annotations.append({"id": next_id, "image_id": rec["image"]["id"], **ann})
             next_id += 1
-    return {
-        "info": {"description": "synthgen dataset", "version": __version__, "seed": config.seed},
-        "images": images,
-        "annotations": annotations,
-        "categories": categories(config),
-    }
+    return {"info": coco_info(config), "images": images, "annotations": annotations, "categories": categories(config)}
 
 
-def prepare_output(out: Path, *, overwrite: bool) -> None:
-    """Check that ``out`` may be written; with ``overwrite``, remove what an earlier run wrote.
-
-    Raises
-    ------
-    UserError
-        When ``out`` is a file, or a non-empty directory and ``overwrite`` is off.
-    """
-    out = Path(out)
-    if out.exists() and not out.is_dir():
-        raise UserError(f"{out}: output path is a file, not a directory")
-    if out.is_dir() and any(out.iterdir()):
-        if not overwrite:
-            raise UserError(f"{out}: output directory is not empty (pass --overwrite to replace its dataset)")
-        # The manifest goes first, so an interrupted overwrite never looks finished.
-        for entry in ("manifest.json",) + tuple(e for e in OUTPUT_ENTRIES if e != "manifest.json"):
-            path = out / entry
-            if path.is_dir():
-                shutil.rmtree(path)
-            elif path.exists():
-                path.unlink()
-
-
-def _versions() -> dict:
+def versions() -> dict:
+    """Versions of Python and of the libraries whose output ends up in the files."""
     import cv2
     import PIL
 
@@ -191,38 +252,227 @@ def _versions() -> dict:
     }
 
 
-def _worker_init() -> None:
+def build_manifest(config: Config, n_objects: int, dropped: dict, files: dict) -> dict:
+    """The manifest dict; nothing in it depends on how the work was split or when it ran."""
+    return {
+        "tool": "synthgen",
+        "manifest_version": MANIFEST_VERSION,
+        "seed": config.seed,
+        "config": to_dict(config),
+        "versions": versions(),
+        "counts": {"images": config.count, "objects": n_objects, "dropped": dropped},
+        "files": dict(sorted(files.items())),
+    }
+
+
+def _dump_manifest(manifest: dict) -> bytes:
+    return orjson.dumps(manifest, option=orjson.OPT_INDENT_2)
+
+
+def finish_dataset(config: Config, out: Path, store: RecordStore) -> tuple[int, dict]:
+    """Write ``annotations.json`` and then ``manifest.json`` from the records, and remove the run's state.
+
+    Returns
+    -------
+    (n_objects, dropped)
+    """
+    out = Path(out)
+    try:
+        n_objects, digest, dropped, files = write_coco_streamed(
+            out / "annotations.json", store, range(config.count), info=coco_info(config), categories=categories(config)
+        )
+        files["annotations.json"] = digest
+        write_bytes_atomic(out / "manifest.json", _dump_manifest(build_manifest(config, n_objects, dropped, files)))
+    except OSError as exc:
+        raise _write_error(exc, out) from None
+    finally:
+        store.close()
+    remove_state(out)
+    _remove_temporaries(out)
+    return n_objects, dropped
+
+
+# --------------------------------------------------------------------------- output directory
+
+
+def _run_record(config: Config) -> dict:
+    return {"tool": "synthgen", "config": to_dict(config), "versions": versions()}
+
+
+def _entries(out: Path) -> list[str]:
+    return sorted(p.name for p in out.iterdir()) if out.is_dir() else []
+
+
+def prepare_output(
+    out: Path, config: Config, shard: Shard = Shard(), *, overwrite: bool = False, resume: bool = False
+) -> str:
+    """Check that ``out`` may be written for this run and set it up.
+
+    Returns
+    -------
+    str
+        What ``out`` held: ``"new"`` (nothing of ours), ``"unfinished"`` (a run of
+        this config to resume), or ``"finished"`` (a complete dataset of this
+        config, with ``resume``).
+
+    Raises
+    ------
+    UserError
+        When ``out`` is a file; holds a dataset or run of a different config
+        (the message names the differing keys); holds other files; or holds
+        this config's unfinished run and neither ``resume`` nor ``overwrite``
+        is set.
+    """
+    out = Path(out)
+    if out.exists() and not out.is_dir():
+        raise UserError(f"{out}: output path is a file, not a directory")
+    here = to_dict(config)
+    entries = _entries(out)
+    if entries and overwrite:
+        _clear(out)
+        entries = []
+    state = "new"
+    if entries:
+        run_file = state_dir(out) / RUN_RECORD
+        manifest_file = out / "manifest.json"
+        if manifest_file.exists():
+            there, what = _config_of(manifest_file, "manifest"), "a finished dataset"
+        elif run_file.exists():
+            there, what = _config_of(run_file, "run record"), "an unfinished run"
+        else:
+            raise UserError(f"{out}: output directory is not empty (pass --overwrite to replace its dataset)")
+        if there["config"] != here:
+            raise UserError(
+                f"{out}: holds {what} made from a different config, differing in "
+                f"{describe_differences(there['config'], here)} (pass --overwrite to replace it)"
+            )
+        if there.get("versions") != versions() and what == "an unfinished run":
+            raise UserError(
+                f"{out}: its unfinished run was started with other library versions ({there.get('versions')}), "
+                "so resuming would not reproduce it (pass --overwrite to start again)"
+            )
+        foreign = [e for e in entries if e not in OUTPUT_ENTRIES and not e.startswith("shard-")]
+        if foreign:
+            raise UserError(f"{out}: output directory holds other files ({', '.join(foreign[:3])}); use an empty directory")
+        own_journal = journal_path(out, shard).exists() or shard_manifest_path(out, shard).exists()
+        if what == "a finished dataset":
+            if not resume:
+                raise UserError(
+                    f"{out}: output directory is not empty: it holds a finished dataset of this config "
+                    "(pass --resume to check and repair it, or --overwrite to write it again)"
+                )
+            state = "finished"
+        elif resume:
+            state = "unfinished"
+        elif own_journal or shard.whole:
+            raise UserError(
+                f"{out}: output directory is not empty: it holds an unfinished run of this config "
+                "(pass --resume to continue it, or --overwrite to start again)"
+            )
+    try:
+        (out / "images").mkdir(parents=True, exist_ok=True)
+        state_dir(out).mkdir(exist_ok=True)
+        run_file = state_dir(out) / RUN_RECORD
+        if not run_file.exists():
+            write_bytes_atomic(run_file, orjson.dumps(_run_record(config), option=orjson.OPT_INDENT_2))
+    except OSError as exc:
+        raise _write_error(exc, out) from None
+    return state
+
+
+def _config_of(path: Path, what: str) -> dict:
+    data = read_json(path, what)
+    if not isinstance(data.get("config"), dict):
+        raise InputFileError(path, f"{what} has no 'config' table (not written by synthgen?)")
+    return data
+
+
+def _clear(out: Path) -> None:
+    """Remove what an earlier run wrote; the manifest first, so an interrupted clear never looks finished."""
+    for entry in ("manifest.json", "annotations.json", ".synthgen", "images"):
+        path = out / entry
+        if path.is_dir():
+            shutil.rmtree(path)
+        elif path.exists():
+            path.unlink()
+    remove_state(out)
+
+
+def _remove_temporaries(out: Path) -> None:
+    images = Path(out) / "images"
+    if images.is_dir():
+        for p in images.glob(".*.tmp"):
+            p.unlink(missing_ok=True)
+
+
+def _write_error(exc: OSError, out: Path) -> OutputWriteError:
+    return OutputWriteError(exc.filename or out, exc.strerror or str(exc))
+
+
+# --------------------------------------------------------------------------- running
+
+
+_WORKER: tuple[Config, str] | None = None
+
+
+def _set_worker_state(config: Config, out: str) -> None:
+    global _WORKER
     import cv2
 
     cv2.setNumThreads(1)
+    _WORKER = (config, out)
 
 
-_CONFIG: Config | None = None
-_IMAGES_DIR: Path | None = None
+def _render_block_in_worker(indices: list[int]) -> list[bytes]:
+    config, out = _WORKER
+    return render_block(config, indices, out)
 
 
-def _set_worker_state(config: Config, images_dir: Path) -> None:
-    global _CONFIG, _IMAGES_DIR
-    _worker_init()
-    _CONFIG, _IMAGES_DIR = config, images_dir
-
-
-def _render_in_worker(index: int) -> dict:
-    return render_image_record(_CONFIG, index, _IMAGES_DIR)
-
-
-def iter_records(config: Config, images_dir: Path, indices, *, workers: int = 1):
-    """Render and write the images ``indices``, yielding their records in order."""
+def blocks_of(indices: Sequence[int], size: int) -> list[list[int]]:
+    """Split ``indices`` into consecutive blocks of at most ``size``."""
     indices = list(indices)
-    if workers <= 1 or len(indices) < 2:
-        for k in indices:
-            yield render_image_record(config, k, images_dir)
+    return [indices[i : i + size] for i in range(0, len(indices), size)]
+
+
+def _block_size(n: int, workers: int) -> int:
+    return max(1, min(16, n // (workers * 4)))
+
+
+def _run_local(config: Config, out: Path, blocks: list[list[int]], workers: int) -> Iterator[list[bytes]]:
+    """Journal lines of each block, in order of completion, from ``workers`` processes."""
+    if workers <= 1 or len(blocks) < 2:
+        for block in blocks:
+            yield render_block(config, block, out)
         return
-    chunk = max(1, min(16, len(indices) // (workers * 4)))
-    with ProcessPoolExecutor(
-        max_workers=workers, initializer=_set_worker_state, initargs=(config, images_dir)
-    ) as pool:
-        yield from pool.map(_render_in_worker, indices, chunksize=chunk)
+    pool = ProcessPoolExecutor(max_workers=workers, initializer=_set_worker_state, initargs=(config, str(out)))
+    todo = iter(blocks)
+    try:
+        # A bounded window of blocks in flight keeps memory flat for any number of images.
+        pending = {pool.submit(_render_block_in_worker, b) for b in islice(todo, 4 * workers)}
+        while pending:
+            done, pending = wait(pending, return_when=FIRST_COMPLETED)
+            for fut in done:
+                lines = fut.result()
+                nxt = next(todo, None)
+                if nxt is not None:
+                    pending.add(pool.submit(_render_block_in_worker, nxt))
+                yield lines
+    finally:
+        pool.shutdown(wait=True, cancel_futures=True)
+
+
+def _verify_kept(out: Path, store: RecordStore, indices) -> int:
+    """Forget the records of images whose files are missing or do not match their digests; count the kept."""
+    kept = 0
+    for k in indices:
+        if not store.has(k):
+            continue
+        header, _ = store.read(k)
+        if all(sha256_file(Path(out) / rel) == digest for rel, digest in header["files"].items()):
+            kept += 1
+        else:
+            store.forget(k)
+    return kept
 
 
 def make_dataset(
@@ -230,10 +480,13 @@ def make_dataset(
     out: Path,
     *,
     overwrite: bool = False,
+    resume: bool = False,
     workers: int | None = None,
-    progress: Callable[[int], None] | None = None,
+    shard: Shard | None = None,
+    cluster: str | None = None,
+    progress: Callable[[int, int], None] | None = None,
 ) -> MakeSummary:
-    """Write a dataset of ``config.count`` images to ``out``.
+    """Write a dataset of ``config.count`` images (or one shard of it) to ``out``.
 
     Parameters
     ----------
@@ -241,47 +494,277 @@ def make_dataset(
         A resolved config (:func:`synthgen.config.load_config`).
     out : Path
         Output directory; created if missing.  A non-empty directory is
-        refused unless ``overwrite``.
+        refused unless ``overwrite`` or (for this config's run) ``resume``.
+    overwrite : bool
+        Replace what an earlier run wrote in ``out``.
+    resume : bool
+        Continue this config's unfinished run in ``out``: keep the images whose
+        digests match the journal, render the rest.  On a finished dataset,
+        check every file against the manifest and repair what differs.
     workers : int or None
         Processes to render with (None: every usable core).  The output does not
         depend on it.
+    shard : Shard or None
+        Render only this shard's images and write its shard manifest
+        (``DIR/shard-K-of-N.json``); :func:`merge_shards` assembles the shards.
+    cluster : str or None
+        Address of a Dask scheduler, or ``"local"`` for a local cluster; the
+        cluster's workers render blocks into ``out`` (which they must see at
+        the same path), this process writes the annotations and manifest.
     progress : callable or None
-        Called with the number of images finished after each image.
+        Called as ``progress(done, total)`` after each block of images.
+
+    Raises
+    ------
+    UserError
+        Bad options or an output directory that may not be written (exit 2).
+    OutputWriteError
+        The disk is full or a file cannot be written (exit 1); what was
+        written is resumable.
     """
     start = time.perf_counter()
     out = Path(out)
-    prepare_output(out, overwrite=overwrite)
-    images_dir = out / "images"
-    images_dir.mkdir(parents=True, exist_ok=True)
-    workers = usable_cores() if workers is None else max(1, int(workers))
+    shard = Shard() if shard is None else shard
+    if overwrite and resume:
+        raise UserError("options '--overwrite' and '--resume' exclude each other: pass one of them")
+    workers = usable_cores() if workers is None else int(workers)
+    if workers < 1:
+        raise UserError(f"option '--workers' must be a whole number >= 1 (got {workers})")
+    backend = None
+    if cluster is not None:
+        from synthgen import cluster as cluster_mod
 
-    records = []
-    dropped: dict[str, int] = {}
-    files: dict[str, str] = {}
-    for done, rec in enumerate(iter_records(config, images_dir, range(config.count), workers=workers), 1):
-        files[f"images/{rec['file_name']}"] = rec["digest"]
-        for reason, n in rec["dropped"].items():
-            dropped[reason] = dropped.get(reason, 0) + n
-        records.append(rec)
+        backend = cluster_mod.connect(cluster)  # fails with an install hint before anything is written
+
+    try:
+        state = prepare_output(out, config, shard, overwrite=overwrite, resume=resume)
+        if state == "finished":
+            if _finished_is_intact(out):
+                manifest = read_json(out / "manifest.json", "manifest")
+                counts = manifest["counts"]
+                return MakeSummary(out, counts["images"], counts["objects"], counts["dropped"],
+                                   time.perf_counter() - start, kept=counts["images"], shard=shard)
+            # Damaged: render every record again, rewriting only what differs.
+            (out / "manifest.json").unlink(missing_ok=True)
+        mine = shard.indices(config.count)
+        store = RecordStore(config.count)
+        journal = journal_path(out, shard)
+        end = 0
+        if state == "unfinished":
+            _remove_temporaries(out)
+            if shard.whole:  # a whole run may use the records of any earlier shard runs in the same directory
+                for other in sorted(state_dir(out).glob("*.journal")):
+                    if other != journal:
+                        store.load_journal(other, wanted=mine)
+            if journal.exists():
+                end = store.load_journal(journal, wanted=mine)
+        kept = _verify_kept(out, store, mine)
+        todo = store.missing(mine)
+
+        n_objects_shard = 0
+        dropped_shard: dict[str, int] = {}
+        done = kept
         if progress is not None:
-            progress(done)
+            progress(done, len(mine))
+        blocks = blocks_of(todo, _block_size(len(todo), workers if backend is None else backend.workers))
+        results = _run_local(config, out, blocks, workers) if backend is None else backend.run(config, out, blocks)
+        journal.touch()
+        with open(journal, "r+b") as jf, contextlib.closing(results):
+            jf.truncate(end)  # drop a record cut short by a crash
+            jf.seek(end)
+            for lines in results:
+                for line in lines:
+                    offset = jf.tell()
+                    jf.write(line)
+                    store.add(journal, orjson.loads(line[: line.index(b"\t")])["index"], offset, len(line))
+                jf.flush()
+                done += len(lines)
+                if progress is not None:
+                    progress(done, len(mine))
+            os.fsync(jf.fileno())
+    except OSError as exc:
+        raise _write_error(exc, out) from None
+    finally:
+        if backend is not None:
+            backend.close()
 
-    coco = build_coco(config, records)
-    write_coco(out / "annotations.json", coco)
-    files["annotations.json"] = hashlib.sha256((out / "annotations.json").read_bytes()).hexdigest()
-    n_objects = len(coco["annotations"])
+    if shard.whole:
+        n_objects, dropped = finish_dataset(config, out, store)
+    else:
+        n_objects, dropped = _finish_shard(config, out, shard, store)
+    return MakeSummary(out, len(mine), n_objects, dropped, time.perf_counter() - start, kept=kept, shard=shard)
+
+
+def _finished_is_intact(out: Path) -> bool:
+    manifest = read_json(out / "manifest.json", "manifest")
+    files = manifest.get("files")
+    if not isinstance(files, dict):
+        return False
+    intact = all(sha256_file(out / rel) == digest for rel, digest in files.items())
+    if intact:
+        remove_state(out)
+        _remove_temporaries(out)
+    return intact
+
+
+def _finish_shard(config: Config, out: Path, shard: Shard, store: RecordStore) -> tuple[int, dict]:
+    """Write the shard manifest: config, versions, shard, counts, files, and the journal's digest."""
+    n_objects, dropped, files = 0, {}, {}
+    with store:
+        for k in shard.indices(config.count):
+            header, fragments = store.read(k)
+            n_objects += len(fragments) - 1
+            for reason, n in header["dropped"].items():
+                dropped[reason] = dropped.get(reason, 0) + n
+            files.update(header["files"])
+    journal = journal_path(out, shard)
     manifest = {
         "tool": "synthgen",
-        "manifest_version": 1,
+        "manifest_version": MANIFEST_VERSION,
+        "shard": {"index": shard.index, "count": shard.count, "rule": "image index % count == index"},
         "seed": config.seed,
         "config": to_dict(config),
-        "versions": _versions(),
-        "counts": {"images": config.count, "objects": n_objects, "dropped": dropped},
+        "versions": versions(),
+        "counts": {"images": len(shard.indices(config.count)), "objects": n_objects, "dropped": dropped},
+        "journal": {"path": journal.relative_to(out).as_posix(), "sha256": sha256_file(journal)},
         "files": dict(sorted(files.items())),
     }
-    import orjson
+    try:
+        write_bytes_atomic(shard_manifest_path(out, shard), _dump_manifest(manifest))
+    except OSError as exc:
+        raise _write_error(exc, out) from None
+    _remove_temporaries(out)
+    return n_objects, dropped
 
-    write_bytes_atomic(out / "manifest.json", orjson.dumps(manifest, option=orjson.OPT_INDENT_2))
-    return MakeSummary(
-        out=out, images=config.count, objects=n_objects, dropped=dropped, seconds=time.perf_counter() - start
-    )
+
+# --------------------------------------------------------------------------- merging shards
+
+
+@dataclass(frozen=True, slots=True)
+class _ShardInput:
+    shard: Shard
+    directory: Path
+    manifest: dict
+
+
+def _collect_shards(dirs: Sequence[Path]) -> list[_ShardInput]:
+    found: list[_ShardInput] = []
+    for d in dirs:
+        d = Path(d)
+        if not d.is_dir():
+            raise InputFileError(d, "is not a directory (expected the output of make --shard K/N)")
+        manifests = find_shard_manifests(d)
+        if not manifests:
+            raise InputFileError(d, "holds no shard manifest shard-K-of-N.json (expected the output of make --shard K/N)")
+        for shard, path in manifests:
+            m = read_json(path, "shard manifest")
+            if not isinstance(m.get("config"), dict) or not isinstance(m.get("journal"), dict):
+                raise InputFileError(path, "is not a synthgen shard manifest (no 'config' or 'journal')")
+            found.append(_ShardInput(shard, d, m))
+    return found
+
+
+def _check_shards(found: list[_ShardInput]) -> None:
+    first = found[0]
+    for s in found[1:]:
+        where = shard_manifest_path(s.directory, s.shard)
+        if s.manifest["config"] != first.manifest["config"]:
+            diff = describe_differences(first.manifest["config"], s.manifest["config"])
+            raise InputFileError(where, f"was made from a different config than shard {first.shard.tag}: {diff}")
+        if s.manifest.get("versions") != first.manifest.get("versions"):
+            raise InputFileError(
+                where, f"was made with other library versions than shard {first.shard.tag}, so the merge would not "
+                "reproduce a single run"
+            )
+    counts = {s.shard.count for s in found}
+    if len(counts) > 1:
+        raise UserError(f"shards of different splits cannot be merged (found N = {sorted(counts)})")
+    n = counts.pop()
+    seen: dict[int, Path] = {}
+    for s in found:
+        if s.shard.index in seen:
+            raise UserError(f"shard {s.shard.index}/{n} is given twice ({seen[s.shard.index]} and {s.directory})")
+        seen[s.shard.index] = s.directory
+    missing = [f"{k}/{n}" for k in range(n) if k not in seen]
+    if missing:
+        raise UserError(f"cannot merge: missing shard(s) {', '.join(missing[:8])} of {n}")
+
+
+def merge_shards(dirs: Sequence[Path], out: Path | None = None, *, overwrite: bool = False) -> MakeSummary:
+    """Assemble the outputs of ``make --shard K/N`` for every K into one dataset.
+
+    The result is identical, file for file and byte for byte, to a single run
+    of the same config.  Every image is checked against its shard's digest as
+    it is copied (or, in place, read).
+
+    Parameters
+    ----------
+    dirs : sequence of Path
+        Directories holding shard outputs; one directory may hold several
+        shards (array jobs writing to a shared directory).
+    out : Path or None
+        Output directory; None merges in place into ``dirs[0]`` (which must then
+        be the only directory).  ``out`` may be one of ``dirs``.
+    overwrite : bool
+        Replace a dataset in a non-empty ``out`` that is not one of ``dirs``.
+
+    Raises
+    ------
+    UserError
+        Missing, repeated or mismatched shards, a damaged image or journal, or
+        an output directory that may not be written.
+    """
+    start = time.perf_counter()
+    dirs = [Path(d) for d in dirs]
+    if not dirs:
+        raise UserError("merge needs at least one shard directory")
+    if out is None:
+        if len(dirs) > 1:
+            raise UserError("option '--out' is needed to merge more than one directory (or give one shared directory)")
+        out = dirs[0]
+    out = Path(out)
+    found = _collect_shards(dirs)
+    _check_shards(found)
+    config = build(Config, found[0].manifest["config"])
+    in_place = {d.resolve() for d in dirs}
+    if out.exists() and out.resolve() not in in_place:
+        if out.is_file():
+            raise UserError(f"{out}: output path is a file, not a directory")
+        if _entries(out):
+            if not overwrite:
+                raise UserError(f"{out}: output directory is not empty (pass --overwrite to replace its dataset)")
+            _clear(out)
+    store = RecordStore(config.count)
+    try:
+        (out / "images").mkdir(parents=True, exist_ok=True)
+        for s in found:
+            journal = s.directory / s.manifest["journal"]["path"]
+            if sha256_file(journal) != s.manifest["journal"].get("sha256"):
+                raise InputFileError(journal, f"journal of shard {s.shard.tag} is missing or damaged "
+                                     f"(rerun make --shard {s.shard.index}/{s.shard.count} --resume there)")
+            store.load_journal(journal, wanted=s.shard.indices(config.count))
+            lacking = store.missing(s.shard.indices(config.count))
+            if lacking:
+                raise InputFileError(journal, f"has no record of image {lacking[0]} (shard {s.shard.tag} unfinished?)")
+            same = s.directory.resolve() == out.resolve()
+            for k in s.shard.indices(config.count):
+                header, _ = store.read(k)
+                for rel, digest in header["files"].items():
+                    _take_file(s.directory / rel, out / rel, digest, s.shard, copy=not same)
+    except OSError as exc:
+        store.close()
+        raise _write_error(exc, out) from None
+    n_objects, dropped = finish_dataset(config, out, store)
+    return MakeSummary(out, config.count, n_objects, dropped, time.perf_counter() - start)
+
+
+def _take_file(src: Path, dst: Path, digest: str, shard: Shard, *, copy: bool) -> None:
+    try:
+        data = src.read_bytes()
+    except FileNotFoundError:
+        data = None
+    if data is None or hashlib.sha256(data).hexdigest() != digest:
+        raise InputFileError(src, f"is missing or damaged (rerun make --shard {shard.index}/{shard.count} --resume "
+                             "in its directory)")
+    if copy:
+        write_file_atomic(dst, data)
