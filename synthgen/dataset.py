@@ -415,12 +415,56 @@ def _write_error(exc: OSError, out: Path) -> OutputWriteError:
 _WORKER: tuple[Config, str] | None = None
 
 
-def _set_worker_state(config: Config, out: str) -> None:
+def _exit_with(main_pid: int) -> None:
+    """Exit this worker as soon as process ``main_pid`` (the run) is gone, e.g. after a SIGKILL.
+
+    A pool worker holds both ends of its task pipe, so it would otherwise wait
+    for work forever; a daemon thread watches the run's pidfd (or polls the pid).
+    """
+    import select
+    import threading
+
+    def watch():
+        try:
+            fd = os.pidfd_open(main_pid)
+        except (AttributeError, OSError):
+            fd = None
+        if fd is not None:
+            select.select([fd], [], [])
+        else:
+            while True:
+                time.sleep(0.5)
+                try:
+                    os.kill(main_pid, 0)
+                except ProcessLookupError:
+                    break
+                except PermissionError:
+                    pass
+        os._exit(1)
+
+    threading.Thread(target=watch, name="synthgen-watch-run", daemon=True).start()
+
+
+def _set_worker_state(config: Config, out: str, main_pid: int) -> None:
     global _WORKER
     import cv2
 
+    _exit_with(main_pid)
     cv2.setNumThreads(1)
     _WORKER = (config, out)
+
+
+def _pool_context():
+    """Worker processes forked from a clean server process, not from this one.
+
+    Forking a process that runs threads (OpenCV's pool, a Dask client) can copy a
+    held lock into the child and deadlock it; the fork server has none.
+    """
+    import multiprocessing
+
+    ctx = multiprocessing.get_context("forkserver")
+    ctx.set_forkserver_preload(["synthgen.dataset"])
+    return ctx
 
 
 def _render_block_in_worker(indices: list[int]) -> list[bytes]:
@@ -444,7 +488,11 @@ def _run_local(config: Config, out: Path, blocks: list[list[int]], workers: int)
         for block in blocks:
             yield render_block(config, block, out)
         return
-    pool = ProcessPoolExecutor(max_workers=workers, initializer=_set_worker_state, initargs=(config, str(out)))
+    ctx = _pool_context()
+    pool = ProcessPoolExecutor(
+        max_workers=workers, mp_context=ctx, initializer=_set_worker_state,
+        initargs=(config, str(out), os.getpid()),
+    )
     todo = iter(blocks)
     try:
         # A bounded window of blocks in flight keeps memory flat for any number of images.

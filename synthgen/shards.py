@@ -222,15 +222,17 @@ def decode_record(line: bytes) -> tuple[dict, list[bytes]] | None:
         index = header["index"]
     except (orjson.JSONDecodeError, KeyError, TypeError):
         return None
-    if not (isinstance(index, int) and isinstance(lens, list) and lens and all(isinstance(n, int) for n in lens)):
+    if not (isinstance(index, int) and isinstance(lens, list) and lens):
         return None
-    payload = memoryview(line)[tab + 1 : len(line) - 1]
-    if sum(lens) != len(payload):
+    fragments, at = [], tab + 1
+    try:
+        if sum(lens) != len(line) - tab - 2:
+            return None
+        for n in lens:
+            fragments.append(line[at : at + n])
+            at += n
+    except TypeError:  # a length that is not a whole number
         return None
-    fragments, at = [], 0
-    for n in lens:
-        fragments.append(bytes(payload[at : at + n]))
-        at += n
     return header, fragments
 
 
