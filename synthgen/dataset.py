@@ -155,8 +155,13 @@ def write_file_atomic(path: Path, data: bytes) -> None:
     damage from a power cut is caught by the digests on ``--resume``.
     """
     tmp = path.parent / f".{path.name}.tmp"
-    tmp.write_bytes(data)
-    os.replace(tmp, path)
+    try:
+        with _naming(path):
+            tmp.write_bytes(data)
+            os.replace(tmp, path)
+    except BaseException:
+        tmp.unlink(missing_ok=True)  # give back the space of a partial file
+        raise
 
 
 def render_image_record(config: Config, index: int, images_dir: Path | None = None) -> dict:
@@ -252,14 +257,17 @@ def versions() -> dict:
     }
 
 
-def build_manifest(config: Config, n_objects: int, dropped: dict, files: dict) -> dict:
-    """The manifest dict; nothing in it depends on how the work was split or when it ran."""
+def build_manifest(config: Config, n_objects: int, dropped: dict, files: dict, libraries: dict | None = None) -> dict:
+    """The manifest dict; nothing in it depends on how the work was split or when it ran.
+
+    ``libraries`` are the versions that rendered the images (default: this process's).
+    """
     return {
         "tool": "synthgen",
         "manifest_version": MANIFEST_VERSION,
         "seed": config.seed,
         "config": to_dict(config),
-        "versions": versions(),
+        "versions": versions() if libraries is None else libraries,
         "counts": {"images": config.count, "objects": n_objects, "dropped": dropped},
         "files": dict(sorted(files.items())),
     }
@@ -269,8 +277,10 @@ def _dump_manifest(manifest: dict) -> bytes:
     return orjson.dumps(manifest, option=orjson.OPT_INDENT_2)
 
 
-def finish_dataset(config: Config, out: Path, store: RecordStore) -> tuple[int, dict]:
+def finish_dataset(config: Config, out: Path, store: RecordStore, libraries: dict | None = None) -> tuple[int, dict]:
     """Write ``annotations.json`` and then ``manifest.json`` from the records, and remove the run's state.
+
+    ``libraries``: versions that rendered the images, for the manifest (default: this process's).
 
     Returns
     -------
@@ -282,7 +292,7 @@ def finish_dataset(config: Config, out: Path, store: RecordStore) -> tuple[int, 
             out / "annotations.json", store, range(config.count), info=coco_info(config), categories=categories(config)
         )
         files["annotations.json"] = digest
-        write_bytes_atomic(out / "manifest.json", _dump_manifest(build_manifest(config, n_objects, dropped, files)))
+        write_bytes_atomic(out / "manifest.json", _dump_manifest(build_manifest(config, n_objects, dropped, files, libraries)))
     except OSError as exc:
         raise _write_error(exc, out) from None
     finally:
@@ -403,6 +413,17 @@ def _remove_temporaries(out: Path) -> None:
     if images.is_dir():
         for p in images.glob(".*.tmp"):
             p.unlink(missing_ok=True)
+
+
+@contextlib.contextmanager
+def _naming(path: Path):
+    """Attach ``path`` to an OSError raised without a file name (e.g. by a buffered write)."""
+    try:
+        yield
+    except OSError as exc:
+        if exc.filename:
+            raise
+        raise OSError(exc.errno, exc.strerror or str(exc), str(path)) from None
 
 
 def _write_error(exc: OSError, out: Path) -> OutputWriteError:
@@ -621,15 +642,17 @@ def make_dataset(
             jf.truncate(end)  # drop a record cut short by a crash
             jf.seek(end)
             for lines in results:
-                for line in lines:
-                    offset = jf.tell()
-                    jf.write(line)
-                    store.add(journal, orjson.loads(line[: line.index(b"\t")])["index"], offset, len(line))
-                jf.flush()
+                with _naming(journal):
+                    for line in lines:
+                        offset = jf.tell()
+                        jf.write(line)
+                        store.add(journal, orjson.loads(line[: line.index(b"\t")])["index"], offset, len(line))
+                    jf.flush()
                 done += len(lines)
                 if progress is not None:
                     progress(done, len(mine))
-            os.fsync(jf.fileno())
+            with _naming(journal):
+                os.fsync(jf.fileno())
     except OSError as exc:
         raise _write_error(exc, out) from None
     finally:
@@ -774,6 +797,12 @@ def merge_shards(dirs: Sequence[Path], out: Path | None = None, *, overwrite: bo
     found = _collect_shards(dirs)
     _check_shards(found)
     config = build(Config, found[0].manifest["config"])
+    libraries = found[0].manifest.get("versions") or {}
+    if libraries.get("synthgen") != __version__:
+        raise UserError(
+            f"{shard_manifest_path(found[0].directory, found[0].shard)}: was made by synthgen "
+            f"{libraries.get('synthgen')}, this is {__version__}; merge with the version that made the shards"
+        )
     in_place = {d.resolve() for d in dirs}
     if out.exists() and out.resolve() not in in_place:
         if out.is_file():
@@ -802,7 +831,7 @@ def merge_shards(dirs: Sequence[Path], out: Path | None = None, *, overwrite: bo
     except OSError as exc:
         store.close()
         raise _write_error(exc, out) from None
-    n_objects, dropped = finish_dataset(config, out, store)
+    n_objects, dropped = finish_dataset(config, out, store, libraries)
     return MakeSummary(out, config.count, n_objects, dropped, time.perf_counter() - start)
 
 

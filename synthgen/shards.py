@@ -361,7 +361,13 @@ class AtomicWriter:
 
     def write(self, data: bytes) -> None:
         self.sha256.update(data)
-        self._f.write(data)
+        try:
+            self._f.write(data)
+        except OSError as exc:
+            raise self._named(exc) from None
+
+    def _named(self, exc: OSError) -> OSError:
+        return OSError(exc.errno, exc.strerror or str(exc), str(self.path))
 
     def __exit__(self, exc_type, exc, tb):
         try:
@@ -372,7 +378,14 @@ class AtomicWriter:
             if exc_type is None:
                 os.replace(self._tmp, self.path)
                 _fsync_dir(self.path.parent)
+        except OSError as err:
+            raise self._named(err) from None
         finally:
+            if not self._f.closed:
+                try:
+                    self._f.close()
+                except OSError:
+                    pass
             if os.path.exists(self._tmp):
                 os.unlink(self._tmp)
         return False

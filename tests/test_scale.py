@@ -6,6 +6,7 @@ import errno
 import hashlib
 import json
 import os
+import re
 import signal
 import subprocess
 import sys
@@ -126,6 +127,16 @@ def test_shards_in_one_shared_directory_merge_in_place(tmp_path, tiny_config, si
     assert tree(shared) == tree(single_run)
 
 
+def test_more_shards_than_images_merge_to_a_single_run(tmp_path):
+    """With 2 images in 3 shards one shard is empty; the merge still equals a single run."""
+    cfg = load_config(overrides=TINY + ["count=2"])
+    make_dataset(cfg, tmp_path / "single", workers=1)
+    for k in range(3):
+        make_dataset(cfg, tmp_path / "shared", workers=1, shard=Shard(k, 3))
+    merge_shards([tmp_path / "shared"], tmp_path / "m")
+    assert tree(tmp_path / "m") == tree(tmp_path / "single")
+
+
 def test_merge_refuses_a_missing_shard(tmp_path, tiny_config):
     """Merging 2 of 3 shards names the missing one and writes nothing."""
     for k in (0, 2):
@@ -181,12 +192,34 @@ def _journal_lines(out: Path) -> int:
         return 0
 
 
+def _processes_with(tag: bytes) -> list[int]:
+    """Pids whose environment holds ``tag`` (Linux /proc)."""
+    found = []
+    for environ in Path("/proc").glob("[0-9]*/environ"):
+        try:
+            if tag in environ.read_bytes().split(b"\0"):
+                found.append(int(environ.parent.name))
+        except OSError:
+            pass
+    return found
+
+
+def _wait_until_gone(tag: bytes, seconds: float = 10.0) -> bool:
+    deadline = time.monotonic() + seconds
+    while _processes_with(tag):
+        if time.monotonic() > deadline:
+            return False
+        time.sleep(0.05)
+    return True
+
+
 def test_killed_run_resumes_to_identical_files(tmp_path):
     """SIGKILL a real `synthgen make` mid-run; no final name holds a truncated file; --resume gives a clean run."""
     overrides = ["count=120", "seed=9", "canvas.width=96", "canvas.height=72", "objects.count=[2, 8]"]
     args = [a for o in overrides for a in ("--set", o)]
     out = tmp_path / "killed"
-    env = {**os.environ, "PYTHONPATH": str(ROOT)}
+    tag = f"SYNTHGEN_TEST_RUN={os.getpid()}-{time.monotonic_ns()}"
+    env = {**os.environ, "PYTHONPATH": str(ROOT), tag.split("=")[0]: tag.split("=")[1]}
     with open(tmp_path / "stderr.txt", "wb") as err:
         proc = subprocess.Popen(
             [sys.executable, "-m", "synthgen", "make", "--out", str(out), "--workers", "2", "--quiet", *args],
@@ -198,6 +231,7 @@ def test_killed_run_resumes_to_identical_files(tmp_path):
         proc.send_signal(signal.SIGKILL)
         proc.wait()
     assert proc.returncode == -signal.SIGKILL, (tmp_path / "stderr.txt").read_text()
+    assert _wait_until_gone(tag.encode()), "worker processes outlived the killed run"
     assert not (out / "manifest.json").exists() and not (out / "annotations.json").exists()
     finals = [p for p in (out / "images").iterdir() if not p.name.startswith(".")]
     assert 30 <= len(finals) < 120
@@ -318,3 +352,40 @@ def test_manifest_digest_of_annotations_matches(single_run):
     manifest = json.loads((single_run / "manifest.json").read_text())
     digest = hashlib.sha256((single_run / "annotations.json").read_bytes()).hexdigest()
     assert manifest["files"]["annotations.json"] == digest
+
+
+@pytest.fixture
+def small_disk(tmp_path):
+    """A real 192 KiB filesystem (tmpfs) that a run fills up; skipped where mounting is not allowed."""
+    mnt = tmp_path / "disk"
+    mnt.mkdir()
+    res = subprocess.run(["mount", "-t", "tmpfs", "-o", "size=192k", "tmpfs", str(mnt)], capture_output=True)
+    if res.returncode != 0:
+        pytest.skip("filling a real disk needs permission to mount a small tmpfs (root with CAP_SYS_ADMIN)")
+    try:
+        yield mnt
+    finally:
+        subprocess.run(["umount", "-l", str(mnt)], capture_output=True)
+
+
+def test_full_disk_exits_1_naming_the_path_and_resumes(tmp_path, small_disk):
+    """A real ENOSPC in a 2-worker run: exit 1, one line naming the file; after freeing space --resume completes."""
+    overrides = ["count=40", "seed=4", "canvas.width=96", "canvas.height=72", "background.kind=noise"]
+    args = [a for o in overrides for a in ("--set", o)]
+    out = small_disk / "d"
+    cmd = [sys.executable, "-m", "synthgen", "make", "--out", str(out), "--workers", "2", "--quiet", *args]
+    env = {**os.environ, "PYTHONPATH": str(ROOT)}
+    res = subprocess.run(cmd, cwd=ROOT, env=env, capture_output=True, text=True)
+    assert res.returncode == 1, res.stderr
+    (line,) = res.stderr.strip().splitlines()
+    # the file that did not fit: an image, the journal or the annotations
+    assert re.search(rf"cannot write {re.escape(str(out))}/(images/\d{{6}}\.png|\.synthgen/0-of-1\.journal|"
+                     r"annotations\.json): No space left on device", line), line
+    assert "--resume" in line
+    assert not (out / "manifest.json").exists()
+
+    subprocess.run(["mount", "-o", "remount,size=8m", str(small_disk)], check=True)
+    res = subprocess.run(cmd + ["--resume"], cwd=ROOT, env=env, capture_output=True, text=True)
+    assert res.returncode == 0, res.stderr
+    make_dataset(load_config(overrides=overrides), tmp_path / "clean", workers=1)
+    assert tree(out) == tree(tmp_path / "clean")
