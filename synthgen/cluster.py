@@ -84,8 +84,15 @@ class DaskBackend:
             self._local.close()
 
 
-def connect(address: str) -> DaskBackend:
+def connect(address: str, *, workers: int | None = None) -> DaskBackend:
     """Connect to the Dask scheduler at ``address``, or start a local cluster for ``"local"``.
+
+    Parameters
+    ----------
+    address : str
+        ``"tcp://host:8786"`` or another address ``distributed.Client`` takes, or ``"local"``.
+    workers : int or None
+        Worker processes of a local cluster (None: every usable core).
 
     Raises
     ------
@@ -101,7 +108,7 @@ def connect(address: str) -> DaskBackend:
         from synthgen.dataset import usable_cores
 
         local = distributed.LocalCluster(
-            n_workers=usable_cores(), threads_per_worker=1, processes=True, dashboard_address=None
+            n_workers=workers or usable_cores(), threads_per_worker=1, processes=True, dashboard_address=None
         )
         return DaskBackend(distributed.Client(local), local)
     try:

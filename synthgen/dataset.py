@@ -53,6 +53,7 @@ from synthgen.formats.images import EXTENSIONS, encode_image
 from synthgen.scene import Scene, category_id, render_scene
 from synthgen.shards import (
     RUN_RECORD,
+    STATE_DIR,
     OutputWriteError,
     RecordStore,
     Shard,
@@ -349,6 +350,8 @@ def prepare_output(
             there, what = _config_of(manifest_file, "manifest"), "a finished dataset"
         elif run_file.exists():
             there, what = _config_of(run_file, "run record"), "an unfinished run"
+        elif _only_empty_state(out, entries):  # killed before its run record was written
+            there, what = {"config": here, "versions": versions()}, "an unfinished run"
         else:
             raise UserError(f"{out}: output directory is not empty (pass --overwrite to replace its dataset)")
         if there["config"] != here:
@@ -388,6 +391,17 @@ def prepare_output(
     except OSError as exc:
         raise _write_error(exc, out) from None
     return state
+
+
+def _only_empty_state(out: Path, entries: list[str]) -> bool:
+    """True when ``out`` holds only an empty ``images/`` and ``.synthgen/``."""
+    if not set(entries) <= {"images", STATE_DIR}:
+        return False
+    for name in entries:
+        d = out / name
+        if not d.is_dir() or any(not p.name.startswith(".") for p in d.iterdir()):
+            return False
+    return True
 
 
 def _config_of(path: Path, what: str) -> dict:
@@ -603,7 +617,8 @@ def make_dataset(
     if cluster is not None:
         from synthgen import cluster as cluster_mod
 
-        backend = cluster_mod.connect(cluster)  # fails with an install hint before anything is written
+        # Fails with an install hint before anything is written; a local cluster gets `workers` processes.
+        backend = cluster_mod.connect(cluster, workers=workers)
 
     try:
         state = prepare_output(out, config, shard, overwrite=overwrite, resume=resume)

@@ -389,3 +389,12 @@ def test_full_disk_exits_1_naming_the_path_and_resumes(tmp_path, small_disk):
     assert res.returncode == 0, res.stderr
     make_dataset(load_config(overrides=overrides), tmp_path / "clean", workers=1)
     assert tree(out) == tree(tmp_path / "clean")
+
+
+def test_run_killed_before_its_run_record_resumes(tmp_path, tiny_config, single_run):
+    """A directory with only empty images/ and .synthgen/ (killed at the very start) resumes from nothing."""
+    out = tmp_path / "d"
+    (out / "images").mkdir(parents=True)
+    (out / ".synthgen").mkdir()
+    make_dataset(tiny_config, out, workers=1, resume=True)
+    assert tree(out) == tree(single_run)
