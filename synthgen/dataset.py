@@ -293,7 +293,8 @@ def finish_dataset(config: Config, out: Path, store: RecordStore, libraries: dic
             out / "annotations.json", store, range(config.count), info=coco_info(config), categories=categories(config)
         )
         files["annotations.json"] = digest
-        write_bytes_atomic(out / "manifest.json", _dump_manifest(build_manifest(config, n_objects, dropped, files, libraries)))
+        manifest = build_manifest(config, n_objects, dropped, files, libraries)
+        _write_small(out / "manifest.json", _dump_manifest(manifest))
     except OSError as exc:
         raise _write_error(exc, out) from None
     finally:
@@ -387,7 +388,7 @@ def prepare_output(
         state_dir(out).mkdir(exist_ok=True)
         run_file = state_dir(out) / RUN_RECORD
         if not run_file.exists():
-            write_bytes_atomic(run_file, orjson.dumps(_run_record(config), option=orjson.OPT_INDENT_2))
+            _write_small(run_file, orjson.dumps(_run_record(config), option=orjson.OPT_INDENT_2))
     except OSError as exc:
         raise _write_error(exc, out) from None
     return state
@@ -427,6 +428,19 @@ def _remove_temporaries(out: Path) -> None:
     if images.is_dir():
         for p in images.glob(".*.tmp"):
             p.unlink(missing_ok=True)
+
+
+def _write_small(path: Path, data: bytes) -> None:
+    """Write a manifest or run record atomically (temp file, fsync, rename); errors name ``path``."""
+    with _naming(path):
+        write_bytes_atomic(path, data)
+
+
+def _write_all(raw, data: bytes) -> None:
+    """Write all of ``data`` to an unbuffered file (a raw write may take only part)."""
+    view = memoryview(data)
+    while view:
+        view = view[raw.write(view):]
 
 
 @contextlib.contextmanager
@@ -653,16 +667,16 @@ def make_dataset(
         blocks = blocks_of(todo, _block_size(len(todo), workers if backend is None else backend.workers))
         results = _run_local(config, out, blocks, workers) if backend is None else backend.run(config, out, blocks)
         journal.touch()
-        with open(journal, "r+b") as jf, contextlib.closing(results):
+        # Unbuffered: each record reaches the OS as its block finishes, and closing has nothing left to fail on.
+        with open(journal, "r+b", buffering=0) as jf, contextlib.closing(results):
             jf.truncate(end)  # drop a record cut short by a crash
-            jf.seek(end)
+            offset = jf.seek(end)
             for lines in results:
                 with _naming(journal):
                     for line in lines:
-                        offset = jf.tell()
-                        jf.write(line)
+                        _write_all(jf, line)
                         store.add(journal, orjson.loads(line[: line.index(b"\t")])["index"], offset, len(line))
-                    jf.flush()
+                        offset += len(line)
                 done += len(lines)
                 if progress is not None:
                     progress(done, len(mine))
@@ -716,7 +730,7 @@ def _finish_shard(config: Config, out: Path, shard: Shard, store: RecordStore) -
         "files": dict(sorted(files.items())),
     }
     try:
-        write_bytes_atomic(shard_manifest_path(out, shard), _dump_manifest(manifest))
+        _write_small(shard_manifest_path(out, shard), _dump_manifest(manifest))
     except OSError as exc:
         raise _write_error(exc, out) from None
     _remove_temporaries(out)
