@@ -133,7 +133,7 @@ def make(
         Optional[str],
         typer.Option(
             "--cluster", metavar="ADDRESS|local",
-            help="Render on a Dask cluster (scheduler address, or 'local'); needs pip install 'synthgen[cluster]'.",
+            help="Render on a Dask cluster (scheduler address, or 'local'); needs pip install 'synthgen\\[cluster]'.",
         ),
     ] = None,
     quiet: Annotated[bool, typer.Option("--quiet", "-q", help="No progress bar.")] = False,

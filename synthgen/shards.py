@@ -60,6 +60,10 @@ __all__ = [
     "AtomicWriter",
     "write_coco_streamed",
     "config_differences",
+    "describe_differences",
+    "read_json",
+    "remove_state",
+    "sha256_file",
     "OutputWriteError",
 ]
 
