@@ -637,12 +637,12 @@ def make_dataset(
     try:
         state = prepare_output(out, config, shard, overwrite=overwrite, resume=resume)
         if state == "finished":
-            if _finished_is_intact(out):
-                manifest = read_json(out / "manifest.json", "manifest")
-                counts = manifest["counts"]
+            kept = _repair_finished(config, out)
+            if kept is not None:
+                counts = read_json(out / "manifest.json", "manifest")["counts"]
                 return MakeSummary(out, counts["images"], counts["objects"], counts["dropped"],
-                                   time.perf_counter() - start, kept=counts["images"], shard=shard)
-            # Damaged: render every record again, rewriting only what differs.
+                                   time.perf_counter() - start, kept=kept, shard=shard)
+            # The annotations are damaged too: render every image again.
             (out / "manifest.json").unlink(missing_ok=True)
         mine = shard.indices(config.count)
         store = RecordStore(config.count)
@@ -695,16 +695,26 @@ def make_dataset(
     return MakeSummary(out, len(mine), n_objects, dropped, time.perf_counter() - start, kept=kept, shard=shard)
 
 
-def _finished_is_intact(out: Path) -> bool:
-    manifest = read_json(out / "manifest.json", "manifest")
-    files = manifest.get("files")
+def _repair_finished(config: Config, out: Path) -> int | None:
+    """Check a finished dataset against its manifest and re-render damaged images.
+
+    Returns the number of images found intact, or None when the annotation file
+    (or anything but images) is damaged, or a re-rendered image does not
+    reproduce its recorded digest; the caller then renders the whole run again.
+    """
+    files = read_json(out / "manifest.json", "manifest").get("files")
     if not isinstance(files, dict):
-        return False
-    intact = all(sha256_file(out / rel) == digest for rel, digest in files.items())
-    if intact:
-        remove_state(out)
-        _remove_temporaries(out)
-    return intact
+        return None
+    names = {f"images/{image_name(config, k)}": k for k in range(config.count)}
+    bad = [rel for rel, digest in files.items() if sha256_file(out / rel) != digest]
+    if any(rel not in names for rel in bad):
+        return None
+    for rel in bad:
+        if render_image_record(config, names[rel], out / "images")["files"][rel] != files[rel]:
+            return None
+    remove_state(out)
+    _remove_temporaries(out)
+    return config.count - len(bad)
 
 
 def _finish_shard(config: Config, out: Path, shard: Shard, store: RecordStore) -> tuple[int, dict]:

@@ -267,6 +267,16 @@ def test_resume_of_a_finished_dataset_repairs_a_damaged_image(tmp_path, tiny_con
     out = tmp_path / "f"
     make_dataset(tiny_config, out, workers=1)
     (out / "images" / "000004.png").write_bytes(b"junk")
+    (out / "images" / "000007.png").unlink()
+    assert make_dataset(tiny_config, out, workers=1, resume=True).kept == tiny_config.count - 2
+    assert tree(out) == tree(single_run)
+
+
+def test_resume_of_a_finished_dataset_with_damaged_annotations_rebuilds_them(tmp_path, tiny_config, single_run):
+    """A damaged annotations.json of a finished dataset is rebuilt by rendering the run again."""
+    out = tmp_path / "f"
+    make_dataset(tiny_config, out, workers=1)
+    (out / "annotations.json").write_bytes(b'{"images": [')
     make_dataset(tiny_config, out, workers=1, resume=True)
     assert tree(out) == tree(single_run)
 
