@@ -645,43 +645,13 @@ def make_dataset(
             # The annotations are damaged too: render every image again.
             (out / "manifest.json").unlink(missing_ok=True)
         mine = shard.indices(config.count)
-        store = RecordStore(config.count)
-        journal = journal_path(out, shard)
-        end = 0
-        if state == "unfinished":
-            _remove_temporaries(out)
-            if shard.whole:  # a whole run may use the records of any earlier shard runs in the same directory
-                for other in sorted(state_dir(out).glob("*.journal")):
-                    if other != journal:
-                        store.load_journal(other, wanted=mine)
-            if journal.exists():
-                end = store.load_journal(journal, wanted=mine)
+        store, end = _known_records(config, out, shard, resume_from=state == "unfinished")
         kept = _verify_kept(out, store, mine)
         todo = store.missing(mine)
-
-        n_objects_shard = 0
-        dropped_shard: dict[str, int] = {}
-        done = kept
-        if progress is not None:
-            progress(done, len(mine))
         blocks = blocks_of(todo, _block_size(len(todo), workers if backend is None else backend.workers))
         results = _run_local(config, out, blocks, workers) if backend is None else backend.run(config, out, blocks)
-        journal.touch()
-        # Unbuffered: each record reaches the OS as its block finishes, and closing has nothing left to fail on.
-        with open(journal, "r+b", buffering=0) as jf, contextlib.closing(results):
-            jf.truncate(end)  # drop a record cut short by a crash
-            offset = jf.seek(end)
-            for lines in results:
-                with _naming(journal):
-                    for line in lines:
-                        _write_all(jf, line)
-                        store.add(journal, orjson.loads(line[: line.index(b"\t")])["index"], offset, len(line))
-                        offset += len(line)
-                done += len(lines)
-                if progress is not None:
-                    progress(done, len(mine))
-            with _naming(journal):
-                os.fsync(jf.fileno())
+        report = None if progress is None else (lambda done: progress(kept + done, len(mine)))
+        _append_records(journal_path(out, shard), end, results, store, report)
     except OSError as exc:
         raise _write_error(exc, out) from None
     finally:
@@ -693,6 +663,49 @@ def make_dataset(
     else:
         n_objects, dropped = _finish_shard(config, out, shard, store)
     return MakeSummary(out, len(mine), n_objects, dropped, time.perf_counter() - start, kept=kept, shard=shard)
+
+
+def _known_records(config: Config, out: Path, shard: Shard, *, resume_from: bool) -> tuple[RecordStore, int]:
+    """Records already in ``out``'s journals, and where this shard's journal may be appended to.
+
+    A whole run may also use the records of earlier shard runs in the same directory.
+    """
+    store = RecordStore(config.count)
+    journal = journal_path(out, shard)
+    end = 0
+    if resume_from:
+        _remove_temporaries(out)
+        mine = shard.indices(config.count)
+        if shard.whole:
+            for other in sorted(state_dir(out).glob("*.journal")):
+                if other != journal:
+                    store.load_journal(other, wanted=mine)
+        if journal.exists():
+            end = store.load_journal(journal, wanted=mine)
+    return store, end
+
+
+def _append_records(journal: Path, end: int, results, store: RecordStore, report) -> None:
+    """Append each finished block's records to ``journal`` (cut back to ``end``) and index them in ``store``."""
+    journal.touch()
+    done = 0
+    if report is not None:
+        report(done)
+    # Unbuffered: each record reaches the OS as its block finishes, and closing has nothing left to fail on.
+    with open(journal, "r+b", buffering=0) as jf, contextlib.closing(results):
+        jf.truncate(end)  # drop a record cut short by a crash
+        offset = jf.seek(end)
+        for lines in results:
+            with _naming(journal):
+                for line in lines:
+                    _write_all(jf, line)
+                    store.add(journal, orjson.loads(line[: line.index(b"\t")])["index"], offset, len(line))
+                    offset += len(line)
+            done += len(lines)
+            if report is not None:
+                report(done)
+        with _naming(journal):
+            os.fsync(jf.fileno())
 
 
 def _repair_finished(config: Config, out: Path) -> int | None:
