@@ -526,9 +526,26 @@ def merge(
 
 
 def main() -> None:
-    """Entry point of the ``synthgen`` console script."""
-    app(prog_name="synthgen")
+    """Entry point of the ``synthgen`` console script.
+
+    Usage mistakes caught by the option parser (an unknown option, a value of
+    the wrong type) are printed as one line, like every other user error.
+    """
+    try:
+        code = app(prog_name="synthgen", standalone_mode=False)
+    except typer.TyperException as exc:  # the parser's usage errors
+        text = exc.format_message() if hasattr(exc, "format_message") else str(exc)
+        text = " ".join(text.split()).rstrip(".")
+        if text:  # empty when the parser has just shown the help for a bare command
+            ctx = getattr(exc, "ctx", None)
+            where = f"; see '{ctx.command_path} --help'" if ctx is not None else ""
+            typer.echo(f"synthgen: error: {text}{where}", err=True)
+        sys.exit(getattr(exc, "exit_code", 2))
+    except typer.Abort:
+        typer.echo("synthgen: interrupted", err=True)
+        sys.exit(130)
+    sys.exit(code if isinstance(code, int) else 0)
 
 
 if __name__ == "__main__":  # pragma: no cover
-    sys.exit(main())
+    main()
