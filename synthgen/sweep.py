@@ -216,7 +216,7 @@ def run_sweep(
     for rel, values, cfg in plan:
         offset = done
 
-        def advance(k, offset=offset):
+        def advance(k, _subset_total, offset=offset):  # make_dataset calls progress(done, total)
             if progress is not None:
                 progress(offset + k, total)
 
