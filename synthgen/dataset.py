@@ -146,21 +146,21 @@ def image_name(config: Config, index: int) -> str:
 
 def scene_annotations(scene: Scene, height: int, width: int) -> list[dict]:
     """COCO annotation records (without ``id`` and ``image_id``) for a scene's objects."""
-    records = []
     bboxes = bbox_from_xyxy(scene.boxes)
-    for i, facts in enumerate(scene.facts):
-        row0, col0, support = scene.masks[i]
-        records.append(
-            {
-                "category_id": int(scene.categories[i]),
-                "bbox": bboxes[i],
-                "area": float(scene.areas[i]),
-                "iscrowd": 0,
-                "segmentation": rle.encode_patch(support, row0, col0, height, width),
-                "synthgen": facts,
-            }
+    segmentations = rle.encode_patches(scene.masks, height, width)  # all masks in one pass
+    return [
+        {
+            "category_id": category,
+            "bbox": bbox,
+            "area": area,
+            "iscrowd": 0,
+            "segmentation": segmentation,
+            "synthgen": facts,
+        }
+        for category, bbox, area, segmentation, facts in zip(
+            scene.categories.tolist(), bboxes, scene.areas.tolist(), segmentations, scene.facts
         )
-    return records
+    ]
 
 
 def write_file_atomic(path: Path, data: bytes) -> None:

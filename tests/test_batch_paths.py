@@ -91,3 +91,19 @@ def test_bulk_geometry_equals_one_by_one(seed):
             assert got.ring is None
         else:
             assert np.array_equal(got.ring, want.ring)
+
+
+@pytest.mark.parametrize("seed", range(5))
+def test_encode_patches_equals_encode_patch(seed):
+    """RLE of many patches in one call equals encode_patch patch by patch (cut, empty, whole-height)."""
+    from synthgen.formats.rle import encode_patch, encode_patches
+
+    rng = np.random.default_rng(seed)
+    height, width = int(rng.integers(1, 12)), int(rng.integers(1, 12))
+    patches = []
+    for _ in range(300):
+        h, w = int(rng.integers(1, height + 3)), int(rng.integers(1, width + 3))
+        mask = rng.random((h, w)) < rng.choice([0.0, 0.3, 0.7, 1.0])
+        patches.append((int(rng.integers(-3, height + 1)), int(rng.integers(-3, width + 1)), mask))
+    got = encode_patches(patches, height, width)
+    assert got == [encode_patch(p, r, c, height, width) for r, c, p in patches]
