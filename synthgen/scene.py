@@ -46,7 +46,17 @@ from synthgen.backgrounds import render_background
 from synthgen.clutter import render_clutter
 from synthgen.degrade import degrade
 from synthgen.geometry import box_iou, clip_boxes, mask_box, pairwise_iou
-from synthgen.shapes import KINDS, Shape, clipped_box, coverage, exact_box, natural_aspect, paint, sample_inside
+from synthgen.shapes import (
+    KINDS,
+    Shape,
+    clipped_box,
+    coverage,
+    exact_box,
+    natural_aspect,
+    paint,
+    paint_many,
+    sample_inside,
+)
 
 __all__ = [
     "Scene",
@@ -540,53 +550,167 @@ _SMALL_PATCH = 256
 
 
 def _draw(canvas: np.ndarray, shapes, styles, extras, config, rng: np.random.Generator) -> list:
-    """Draw shapes bottom to top onto ``canvas`` (modified in place); return what was drawn."""
+    """Draw shapes bottom to top onto ``canvas`` (modified in place); return what was drawn.
+
+    Each shape's colours depend on the canvas under it as drawn so far, so a
+    shape is drawn after every earlier shape whose patch meets its own.  Many
+    small shapes are drawn in bulk: shapes are put in levels (a shape's level
+    is one more than the highest level of the earlier shapes whose patches it
+    meets), the patches of one level never meet, and a level's small patches
+    of one size are read, coloured, blended and written back in one array pass
+    with the same arithmetic as one shape at a time (:func:`_draw_one`).
+    """
     height, width = canvas.shape[:2]
     samples = config.render.samples
     min_contrast = config.objects.min_contrast
     # Candidate fill colours for every object at once, drawn or not: (N, 2, 8, 3).
     cands = rng.uniform(0.0, 255.0, size=(len(shapes), 2, 8, 3))
     lums = cands @ LUMA / 255.0  # (N, 2, 8)
-    drawn = []
     # Coverage does not depend on the canvas: all patches at once (tiny shapes in bulk).
     covs = shapes_mod.coverage_many(shapes, height, width, samples=samples, strokes=[st["stroke"] for st in styles])
-    for i, (shape, style) in enumerate(zip(shapes, styles)):
-        cov = covs[i]
-        if cov is None:
-            continue
-        v = cov.values
-        h, w = v.shape
-        rows = slice(cov.row0, cov.row0 + h)
-        cols = slice(cov.col0, cov.col0 + w)
-        patch = canvas[rows, cols].astype(np.float32)
-        total = float(v.sum())
-        if total > 0:
-            under = v.ravel() @ patch.reshape(-1, 3) / total  # (3,) mean colour under the shape
-            under_lum = float(under @ LUMA) / 255.0
-        else:
-            under_lum = 0.5
-        flat = style["fill"] == "flat"
-        n_col = 1 if flat else 2
-        colours, contrast = _pick_colours(under_lum, min_contrast, cands[i, :n_col], lums[i, :n_col])
-        if flat:
-            fill = colours[0].astype(np.float32)  # (3,)
-        else:
-            fill = paint(
-                style["fill"], colours, h, w, row0=cov.row0, col0=cov.col0,
-                angle=style["fill_angle"], period=style["period"],
-            )
-        if h * w <= _SMALL_PATCH:
-            patch += (fill - patch) * v[..., None]
-        else:
-            for ch in range(3):
-                plane = patch[..., ch]
-                plane += ((fill[ch] if flat else fill[..., ch]) - plane) * v
-        np.rint(patch, out=patch)
-        canvas[rows, cols] = patch.astype(np.uint8)
-        drawn.append(
-            _Drawn(shape=shape, style=style, cov=cov, box=exact_box(shape), contrast=contrast, extra=extras[i])
+    live = [i for i, cov in enumerate(covs) if cov is not None]
+    contrasts: dict = {}
+    if len(live) >= _BULK_DRAW_MIN:
+        for group in _bulk_groups(covs, live):
+            if len(group) == 1 or covs[group[0]].values.size > _SMALL_PATCH:
+                for i in group:
+                    contrasts[i] = _draw_one(canvas, covs[i], styles[i], cands[i], lums[i], min_contrast)
+            else:
+                contrasts.update(_draw_bulk(canvas, group, covs, styles, cands, lums, min_contrast))
+    else:
+        for i in live:
+            contrasts[i] = _draw_one(canvas, covs[i], styles[i], cands[i], lums[i], min_contrast)
+    return [
+        _Drawn(shape=shapes[i], style=styles[i], cov=covs[i], box=exact_box(shapes[i]), contrast=contrasts[i],
+               extra=extras[i])
+        for i in live
+    ]
+
+
+#: From this many shapes on, :func:`_draw` draws small patches in bulk.
+_BULK_DRAW_MIN = 32
+
+
+def _under_luma(v: np.ndarray, patch: np.ndarray) -> float:
+    """Luma in [0, 1] of the coverage-weighted mean colour of ``patch`` (h, w, 3) under ``v`` (h, w).
+
+    Computed in float64 from the exact products (coverage values are float32,
+    pixels integers), so on small patches it does not depend on summation order;
+    0.5 where the coverage is all zero.
+    """
+    vv = v.astype(np.float64).ravel()
+    total = float(vv.sum())
+    if total <= 0:
+        return 0.5
+    u = (vv @ patch.reshape(-1, 3).astype(np.float64)) / total
+    return _luma3(float(u[0]), float(u[1]), float(u[2]))
+
+
+def _luma3(r: float, g: float, b: float) -> float:
+    return (r * 0.299 + g * 0.587 + b * 0.114) / 255.0
+
+
+def _draw_one(canvas, cov, style, cand, lum, min_contrast: float) -> float:
+    """Draw one shape's coverage ``cov`` onto ``canvas`` (in place); return the achieved contrast."""
+    v = cov.values
+    h, w = v.shape
+    rows = slice(cov.row0, cov.row0 + h)
+    cols = slice(cov.col0, cov.col0 + w)
+    under_lum = _under_luma(v, canvas[rows, cols])
+    patch = canvas[rows, cols].astype(np.float32)
+    flat = style["fill"] == "flat"
+    n_col = 1 if flat else 2
+    colours, contrast = _pick_colours(under_lum, min_contrast, cand[:n_col], lum[:n_col])
+    if flat:
+        fill = colours[0].astype(np.float32)  # (3,)
+    else:
+        fill = paint(
+            style["fill"], colours, h, w, row0=cov.row0, col0=cov.col0,
+            angle=style["fill_angle"], period=style["period"],
         )
-    return drawn
+    if h * w <= _SMALL_PATCH:
+        patch += (fill - patch) * v[..., None]
+    else:
+        for ch in range(3):
+            plane = patch[..., ch]
+            plane += ((fill[ch] if flat else fill[..., ch]) - plane) * v
+    np.rint(patch, out=patch)
+    canvas[rows, cols] = patch.astype(np.uint8)
+    return contrast
+
+
+def _bulk_groups(covs, live) -> list:
+    """The live shapes in drawing groups: levels in order, each split by patch size (lists of indices)."""
+    rects = np.array(
+        [(covs[i].col0, covs[i].row0, covs[i].col0 + covs[i].values.shape[1], covs[i].row0 + covs[i].values.shape[0])
+         for i in live],
+        dtype=np.int64,
+    ).reshape(-1, 4)
+    ii, jj = _overlapping_pairs(rects)  # positions in `live`, i < j
+    level = [0] * len(live)
+    order = np.argsort(jj, kind="stable")
+    for a, b in zip(ii[order].tolist(), jj[order].tolist()):  # by later shape: earlier levels are final
+        if level[a] + 1 > level[b]:
+            level[b] = level[a] + 1
+    groups: dict = {}
+    for pos, i in enumerate(live):
+        groups.setdefault((level[pos], covs[i].values.shape), []).append(i)
+    return [groups[k] for k in sorted(groups, key=lambda k: k[0])]
+
+
+def _draw_bulk(canvas, idx, covs, styles, cands, lums, min_contrast: float) -> dict:
+    """:func:`_draw_one` for shapes whose patches have one size and never meet, in one array pass."""
+    k = len(idx)
+    h, w = covs[idx[0]].values.shape
+    r0 = np.array([covs[i].row0 for i in idx])
+    c0 = np.array([covs[i].col0 for i in idx])
+    rr = r0[:, None, None] + np.arange(h)[None, :, None]  # (K, h, 1)
+    cc = c0[:, None, None] + np.arange(w)[None, None, :]  # (K, 1, w)
+    under8 = canvas[rr, cc]  # (K, h, w, 3) uint8
+    v = np.stack([covs[i].values for i in idx])  # (K, h, w) float32
+    # coverage-weighted mean colour under each shape, exactly as _under_luma
+    vv = v.astype(np.float64).reshape(k, h * w)
+    total = vv.sum(axis=1)
+    sums = np.matmul(vv[:, None, :], under8.reshape(k, h * w, 3).astype(np.float64))[:, 0, :]  # (K, 3)
+    under_lum = []
+    for t, (tot, (sr, sg, sb)) in enumerate(zip(total.tolist(), sums.tolist())):
+        under_lum.append(0.5 if tot <= 0 else _luma3(sr / tot, sg / tot, sb / tot))
+    # colours: the first qualifying candidate of each colour slot, as _pick_colours
+    idx_arr = np.array(idx)
+    n_col = np.array([1 if styles[i]["fill"] == "flat" else 2 for i in idx])
+    lum = lums[idx_arr]  # (K, 2, 8)
+    contrast_all = np.abs(lum - np.array(under_lum)[:, None, None])  # (K, 2, 8)
+    ok = contrast_all >= min_contrast
+    pick = ok.argmax(axis=2)  # (K, 2)
+    found = ok.any(axis=2)  # (K, 2)
+    colours = cands[idx_arr[:, None], np.arange(2)[None, :], pick]  # (K, 2, 3)
+    picked = np.take_along_axis(contrast_all, pick[..., None], axis=2)[..., 0]  # (K, 2)
+    achieved = np.where(n_col == 1, picked[:, 0], np.minimum(picked[:, 0], picked[:, 1])).tolist()
+    settled = (found[:, 0] & ((n_col == 1) | found[:, 1])).tolist()
+    out = {}
+    by_fill: dict = {}
+    for t, i in enumerate(idx):
+        nc = int(n_col[t])
+        if settled[t]:
+            out[i] = achieved[t]
+        else:  # no candidate qualifies: the brightness shift of _pick_colours
+            cols_t, out[i] = _pick_colours(under_lum[t], min_contrast, cands[i, :nc], lums[i, :nc])
+            colours[t, :nc] = cols_t
+        by_fill.setdefault(styles[i]["fill"], []).append(t)
+    fills = np.empty((k, h, w, 3), dtype=np.float32)
+    for fill, ts in by_fill.items():
+        if fill == "flat":
+            fills[ts] = colours[ts, 0].astype(np.float32)[:, None, None, :]
+            continue
+        fills[ts] = paint_many(
+            fill, colours[ts], h, w, row0=r0[ts], col0=c0[ts],
+            angle=[styles[idx[t]]["fill_angle"] for t in ts], period=[styles[idx[t]]["period"] for t in ts],
+        )
+    patch = under8.astype(np.float32)
+    patch += (fills - patch) * v[..., None]
+    np.rint(patch, out=patch)
+    canvas[rr, cc] = patch.astype(np.uint8)
+    return out
 
 
 def _patch_rects(drawn) -> np.ndarray:

@@ -107,3 +107,60 @@ def test_encode_patches_equals_encode_patch(seed):
         patches.append((int(rng.integers(-3, height + 1)), int(rng.integers(-3, width + 1)), mask))
     got = encode_patches(patches, height, width)
     assert got == [encode_patch(p, r, c, height, width) for r, c, p in patches]
+
+
+def _styled_scene(seed: int, n: int):
+    """Random small and big shapes with every fill, some outlined, crowded so that many overlap."""
+    from synthgen.config import load_config
+    from synthgen.scene import plan_objects
+
+    rng = np.random.default_rng(seed)
+    config = load_config(
+        overrides=[
+            "canvas.width=96", "canvas.height=72", f"objects.count=[{n}, {n}]", "objects.size=[1, 24]",
+            "objects.outline=0.3", "objects.min_area=0", f"render.samples={int(rng.choice([2, 3, 4]))}",
+            f"objects.min_contrast={float(rng.choice([0.0, 0.15, 0.6]))}",
+        ]
+    )
+    shapes, styles, extras, _placement, _info = plan_objects(config, rng=rng)
+    canvas = rng.integers(0, 256, size=(72, 96, 3), dtype=np.uint8)
+    return canvas, shapes, styles, extras, config
+
+
+@pytest.mark.parametrize("seed", range(8))
+def test_bulk_drawing_equals_one_shape_at_a_time(seed, monkeypatch):
+    """compose_shapes drawing in bulk gives the same image bytes, boxes, areas, facts and masks."""
+    from synthgen import scene
+
+    canvas, shapes, styles, extras, config = _styled_scene(seed, 150)
+    bulk = scene.compose_shapes(canvas, shapes, config, rng=np.random.default_rng(seed), styles=styles, extras=extras)
+    monkeypatch.setattr(scene, "_BULK_DRAW_MIN", 10**9)
+    plain = scene.compose_shapes(canvas, shapes, config, rng=np.random.default_rng(seed), styles=styles, extras=extras)
+    assert bulk.image.tobytes() == plain.image.tobytes()
+    assert np.array_equal(bulk.boxes, plain.boxes)
+    assert np.array_equal(bulk.areas, plain.areas)
+    assert np.array_equal(bulk.categories, plain.categories)
+    assert bulk.facts == plain.facts
+    assert len(bulk.masks) == len(plain.masks)
+    for (r0, c0, m0), (r1, c1, m1) in zip(bulk.masks, plain.masks):
+        assert (r0, c0) == (r1, c1) and np.array_equal(m0, m1)
+    assert bulk.info == plain.info
+
+
+@pytest.mark.parametrize("style", ["flat", "gradient", "stripes"])
+def test_paint_many_equals_paint(style):
+    """paint_many gives, patch by patch, the very fill paint gives (degenerate 1-px patches included)."""
+    from synthgen.shapes import paint, paint_many
+
+    rng = np.random.default_rng(7)
+    for h, w in [(1, 1), (1, 5), (4, 1), (7, 9)]:
+        k = 40
+        colors = rng.uniform(0, 255, size=(k, 2, 3))
+        row0, col0 = rng.integers(-5, 300, size=k), rng.integers(-5, 300, size=k)
+        angle = rng.choice([0.0, 90.0, 45.0, 180.0, 33.3], size=k) if style != "flat" else np.zeros(k)
+        period = rng.uniform(0.5, 9.0, size=k)
+        got = paint_many(style, colors, h, w, row0=row0, col0=col0, angle=angle, period=period)
+        for t in range(k):
+            want = paint(style, colors[t], h, w, row0=int(row0[t]), col0=int(col0[t]), angle=float(angle[t]),
+                         period=float(period[t]))
+            assert np.array_equal(got[t], want)
