@@ -35,7 +35,7 @@ def _tiny_scene(seed: int, n: int, lo: float, hi: float, height: int = 60, width
     return shapes, strokes, height, width
 
 
-@pytest.mark.parametrize("samples", [1, 3, 4])
+@pytest.mark.parametrize("samples", [1, 3, 4, 16])
 @pytest.mark.parametrize("seed", range(6))
 def test_coverage_many_equals_coverage(seed, samples):
     """coverage_many gives, shape by shape, the very patch and values coverage gives."""
