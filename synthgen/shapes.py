@@ -632,9 +632,17 @@ def _build_many(shapes) -> list:
         else:
             groups.setdefault((kind, shape.sides if kind in ("polygon", "star") else 0), []).append(i)
     for (kind, sides), idx in groups.items():
+        if len(idx) < _BULK_BUILD_MIN:  # a few shapes: the one-shape build costs less
+            for i in idx:
+                out[i] = _build(shapes[i])
+            continue
         for i, g in zip(idx, _build_polygon_group(kind, sides, [shapes[i] for i in idx])):
             out[i] = g
     return out
+
+
+#: Smallest group of one polygon kind that :func:`_build_many` builds in bulk.
+_BULK_BUILD_MIN = 8
 
 
 def _build_polygon_group(kind: str, sides: int, shapes) -> list:

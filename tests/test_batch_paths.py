@@ -76,10 +76,11 @@ def _region_arrays(region) -> list:
 
 
 @pytest.mark.parametrize("seed", range(4))
-def test_bulk_geometry_equals_one_by_one(seed):
+def test_bulk_geometry_equals_one_by_one(seed, monkeypatch):
     """Geometry built in bulk (boxes, areas, half-planes, vertices) equals the one-shape build exactly."""
     from synthgen import shapes as sh
 
+    monkeypatch.setattr(sh, "_BULK_BUILD_MIN", 1)  # every group in bulk, even of one shape
     shapes, _strokes, _h, _w = _tiny_scene(seed, 400, 0.5, 200.0)
     for shape, got in zip(shapes, sh._build_many(shapes)):
         want = sh._build(shape)
