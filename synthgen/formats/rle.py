@@ -220,8 +220,13 @@ def encode_patch(mask_patch, row0: int, col0: int, height: int, width: int) -> d
     size = [height, width]
     if r_hi <= r_lo or c_hi <= c_lo:
         return {"size": size, "counts": counts_to_string([n])}
-    p = p[r_lo:r_hi, c_lo:c_hi] != 0
-    row0, col0 = row0 + r_lo, col0 + c_lo
+    runs = _patch_runs(p[r_lo:r_hi, c_lo:c_hi], row0 + r_lo, col0 + c_lo, height, n)
+    return {"size": size, "counts": counts_to_string(runs)}
+
+
+def _patch_runs(p: np.ndarray, row0: int, col0: int, height: int, n: int) -> np.ndarray:
+    """Run lengths of an ``n``-pixel canvas of ``height`` rows empty but for patch ``p`` (inside it) at ``(row0, col0)``."""
+    p = p != 0
     ph, pw = p.shape
     # One False row above and below each column so runs never span columns;
     # then the changes alternate: start of run 0, its end, start of run 1, ...
@@ -231,7 +236,7 @@ def encode_patch(mask_patch, row0: int, col0: int, height: int, width: int) -> d
     flat = padded.ravel()
     idx = np.flatnonzero(flat[1:] != flat[:-1]) + 1
     if idx.size == 0:
-        return {"size": size, "counts": counts_to_string([n])}
+        return np.array([n], dtype=np.int64)
     col, row = np.divmod(idx, stride)
     g = (col + col0) * height + (row + (row0 - 1))  # canvas column-major offsets
     # A run ending where the next begins (whole-height columns) is one run.
@@ -244,7 +249,7 @@ def encode_patch(mask_patch, row0: int, col0: int, height: int, width: int) -> d
     runs = edges[1:] - edges[:-1]
     if runs[-1] == 0:
         runs = runs[:-1]
-    return {"size": size, "counts": counts_to_string(runs)}
+    return runs
 
 
 def encode_patches(patches, height: int, width: int) -> list[dict]:
@@ -292,6 +297,10 @@ def encode_patches(patches, height: int, width: int) -> list[dict]:
         p = p[r_lo:r_hi, c_lo:c_hi]
         by_size.setdefault(p.shape, []).append((k, row0 + r_lo, col0 + c_lo, p))
     for (ph, pw), items in by_size.items():
+        if len(items) == 1:  # one patch of this size: the one-patch rule, runs only
+            k, r0, c0, p = items[0]
+            runs[k] = _patch_runs(p, r0, c0, height, n)
+            continue
         # as encode_patch: a False cell above and below each column, columns end to end
         stride = ph + 2
         padded = np.zeros((len(items), pw, stride), dtype=bool)
