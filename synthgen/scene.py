@@ -515,6 +515,15 @@ class _Drawn:
     extra: dict
     visible: np.ndarray | None = None  # visible coverage, float32 (h, w)
     sample_box: np.ndarray | None = None  # box of visible samples when occluded
+    inside: np.ndarray | None = None  # sub-sample mask of the whole patch, when already known
+
+    def inside_of(self, r0: int, c0: int, r1: int, c1: int) -> np.ndarray:
+        """``cov.inside(r0, c0, r1, c1)``, cut from the known whole-patch mask when there is one."""
+        if self.inside is None:
+            return self.cov.inside(r0, c0, r1, c1)
+        s = self.cov.samples
+        pr, pc = self.cov.row0, self.cov.col0
+        return self.inside[(r0 - pr) * s : (r1 - pr) * s, (c0 - pc) * s : (c1 - pc) * s]
 
 
 def _pick_colours(under_lum: float, min_contrast: float, cands: np.ndarray, lum: np.ndarray):
@@ -567,7 +576,10 @@ def _draw(canvas: np.ndarray, shapes, styles, extras, config, rng: np.random.Gen
     cands = rng.uniform(0.0, 255.0, size=(len(shapes), 2, 8, 3))
     lums = cands @ LUMA / 255.0  # (N, 2, 8)
     # Coverage does not depend on the canvas: all patches at once (tiny shapes in bulk).
-    covs = shapes_mod.coverage_many(shapes, height, width, samples=samples, strokes=[st["stroke"] for st in styles])
+    insides: list = []
+    covs = shapes_mod.coverage_many(
+        shapes, height, width, samples=samples, strokes=[st["stroke"] for st in styles], insides=insides
+    )
     live = [i for i, cov in enumerate(covs) if cov is not None]
     contrasts: dict = {}
     if len(live) >= _BULK_DRAW_MIN:
@@ -582,7 +594,7 @@ def _draw(canvas: np.ndarray, shapes, styles, extras, config, rng: np.random.Gen
             contrasts[i] = _draw_one(canvas, covs[i], styles[i], cands[i], lums[i], min_contrast)
     return [
         _Drawn(shape=shapes[i], style=styles[i], cov=covs[i], box=exact_box(shapes[i]), contrast=contrasts[i],
-               extra=extras[i])
+               extra=extras[i], inside=insides[i])
         for i in live
     ]
 
@@ -903,13 +915,13 @@ def _occlude_small(d: _Drawn, ups) -> None:
     h, w = v.shape
     s = d.cov.samples
     pr0, pc0 = d.cov.row0, d.cov.col0
-    own = d.cov.inside(pr0, pc0, pr0 + h, pc0 + w)  # (h s, w s)
+    own = d.inside_of(pr0, pc0, pr0 + h, pc0 + w)  # (h s, w s)
     occ = np.zeros_like(own)
     for u in ups:
         uh, uw = u.cov.values.shape
         r0, c0 = max(pr0, u.cov.row0), max(pc0, u.cov.col0)
         r1, c1 = min(pr0 + h, u.cov.row0 + uh), min(pc0 + w, u.cov.col0 + uw)
-        occ[(r0 - pr0) * s : (r1 - pr0) * s, (c0 - pc0) * s : (c1 - pc0) * s] |= u.cov.inside(r0, c0, r1, c1)
+        occ[(r0 - pr0) * s : (r1 - pr0) * s, (c0 - pc0) * s : (c1 - pc0) * s] |= u.inside_of(r0, c0, r1, c1)
     seen = own & ~occ
     lost = (own & occ).reshape(h, s, w, s).sum(axis=(1, 3), dtype=np.int32)
     if not lost.any():

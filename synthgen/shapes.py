@@ -1157,7 +1157,7 @@ def coverage(shape: Shape, height: int, width: int, *, samples: int = 4, stroke:
     return Coverage(row0, col0, values, s, shape, stroke)
 
 
-def coverage_many(shapes, height: int, width: int, *, samples: int = 4, strokes=None) -> list:
+def coverage_many(shapes, height: int, width: int, *, samples: int = 4, strokes=None, insides=None) -> list:
     """:func:`coverage` of many shapes at once: ``[coverage(shape, ...) for shape in shapes]``.
 
     Shapes whose patch holds at most :data:`_GRID_MAX_PIXELS` pixels (the ones
@@ -1177,6 +1177,10 @@ def coverage_many(shapes, height: int, width: int, *, samples: int = 4, strokes=
         Supersampling factor, >= 1.
     strokes : sequence of float or None
         Outline band per shape (0 for filled); None fills all.
+    insides : list or None
+        When a list, it is filled with one entry per shape: the sub-sample
+        mask of the whole patch (what ``cov.inside(row0, col0, row0 + h,
+        col0 + w)`` returns, read-only) for the shapes tested in bulk, else None.
 
     Returns
     -------
@@ -1188,6 +1192,8 @@ def coverage_many(shapes, height: int, width: int, *, samples: int = 4, strokes=
     n = len(shapes)
     strokes = [0.0] * n if strokes is None else [float(v) for v in strokes]
     out: list = [None] * n
+    if insides is not None:
+        insides[:] = [None] * n
     groups: dict = {}
     W, H = float(width), float(height)
     for i, (shape, stroke, g) in enumerate(zip(shapes, strokes, _geoms(shapes))):
@@ -1225,6 +1231,10 @@ def coverage_many(shapes, height: int, width: int, *, samples: int = 4, strokes=
             values = (counts / (s * s)).astype(np.float32)
             for k, (i, row0, col0, h, w, _region_) in enumerate(chunk):
                 out[i] = Coverage(row0, col0, values[k, :h, :w].copy(), s, shapes[i], strokes[i])
+            if insides is not None:
+                inside.flags.writeable = False
+                for k, (i, _r, _c, h, w, _region_) in enumerate(chunk):
+                    insides[i] = inside[k, : h * s, : w * s]
     return out
 
 

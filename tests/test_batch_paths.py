@@ -165,3 +165,25 @@ def test_paint_many_equals_paint(style):
             want = paint(style, colors[t], h, w, row0=int(row0[t]), col0=int(col0[t]), angle=float(angle[t]),
                          period=float(period[t]))
             assert np.array_equal(got[t], want)
+
+
+@pytest.mark.parametrize("seed", range(3))
+def test_coverage_many_sample_masks_equal_inside(seed):
+    """The whole-patch sample masks coverage_many hands back equal Coverage.inside, whole and cut."""
+    shapes, strokes, h, w = _tiny_scene(seed, 200, 0.3, 14.0)
+    insides: list = []
+    covs = coverage_many(shapes, h, w, samples=4, strokes=strokes, insides=insides)
+    rng = np.random.default_rng(seed)
+    checked = 0
+    for cov, mask in zip(covs, insides):
+        if mask is None:
+            continue
+        ph, pw = cov.values.shape
+        assert np.array_equal(mask, cov.inside(cov.row0, cov.col0, cov.row0 + ph, cov.col0 + pw))
+        r0, c0 = cov.row0 + int(rng.integers(ph)), cov.col0 + int(rng.integers(pw))
+        r1, c1 = int(rng.integers(r0, cov.row0 + ph)) + 1, int(rng.integers(c0, cov.col0 + pw)) + 1
+        s = cov.samples
+        cut = mask[(r0 - cov.row0) * s : (r1 - cov.row0) * s, (c0 - cov.col0) * s : (c1 - cov.col0) * s]
+        assert np.array_equal(cut, cov.inside(r0, c0, r1, c1))
+        checked += 1
+    assert checked > 100
