@@ -280,8 +280,11 @@ def encode_patches(patches, height: int, width: int) -> list[dict]:
     height, width = int(height), int(width)
     n = height * width
     size = [height, width]
-    m = len(patches)
-    runs: list = [None] * m
+    # pieces of the result: (mask indices, their run lengths end to end, runs per mask)
+    order: list = []
+    flats: list = []
+    lengths: list = []
+    empty = np.array([n], dtype=np.int64)
     by_size: dict = {}
     for k, (row0, col0, patch) in enumerate(patches):
         p = np.asarray(patch)
@@ -292,48 +295,59 @@ def encode_patches(patches, height: int, width: int) -> list[dict]:
         r_hi = min(p.shape[0], height - row0)
         c_hi = min(p.shape[1], width - col0)
         if r_hi <= r_lo or c_hi <= c_lo:
-            runs[k] = np.array([n], dtype=np.int64)
+            order.append(k), flats.append(empty), lengths.append(1)
             continue
         p = p[r_lo:r_hi, c_lo:c_hi]
         by_size.setdefault(p.shape, []).append((k, row0 + r_lo, col0 + c_lo, p))
     for (ph, pw), items in by_size.items():
-        if len(items) == 1:  # one patch of this size: the one-patch rule, runs only
-            k, r0, c0, p = items[0]
-            runs[k] = _patch_runs(p, r0, c0, height, n)
+        if len(items) == 1 or ph >= height:  # one patch of this size, or whole-height columns
+            for k, r0, c0, p in items:
+                r = _patch_runs(p, r0, c0, height, n)
+                order.append(k), flats.append(r), lengths.append(r.size)
             continue
-        # as encode_patch: a False cell above and below each column, columns end to end
+        # as _patch_runs, for all patches of this size at once: a False cell above and
+        # below each column, columns end to end, so runs never span columns (and,
+        # shorter than the canvas, never touch the next column's)
+        K = len(items)
         stride = ph + 2
-        padded = np.zeros((len(items), pw, stride), dtype=bool)
+        padded = np.zeros((K, pw, stride), dtype=bool)
         padded[:, :, 1:-1] = np.stack([it[3] for it in items]).transpose(0, 2, 1) != 0
-        flat = padded.reshape(len(items), pw * stride)
+        flat = padded.reshape(K, pw * stride)
         kk, idx = np.nonzero(flat[:, 1:] != flat[:, :-1])
         idx = idx + 1
         col, row = np.divmod(idx, stride)
         r0 = np.array([it[1] for it in items], dtype=np.int64)
         c0 = np.array([it[2] for it in items], dtype=np.int64)
-        g = (col + c0[kk]) * height + (row + (r0[kk] - 1))
-        bounds = np.searchsorted(kk, np.arange(len(items) + 1)).tolist()
-        for t, (k, _r, _c, _p) in enumerate(items):
-            gk = g[bounds[t] : bounds[t + 1]]
-            if gk.size == 0:
-                runs[k] = np.array([n], dtype=np.int64)
-                continue
-            touch = np.flatnonzero(gk[1:-1:2] == gk[2::2])
-            if touch.size:  # whole-height columns: a run ending where the next begins is one run
-                gk = np.delete(gk, np.concatenate((2 * touch + 1, 2 * touch + 2)))
-            edges = np.empty(gk.size + 2, dtype=np.int64)
-            edges[0], edges[1:-1], edges[-1] = 0, gk, n
-            r = edges[1:] - edges[:-1]
-            runs[k] = r[:-1] if r[-1] == 0 else r
-    return [{"size": list(size), "counts": c} for c in _many_counts_to_strings(runs)]
+        g = (col + c0[kk]) * height + (row + (r0[kk] - 1))  # canvas column-major offsets
+        cnt = np.bincount(kk, minlength=K)  # changes per patch
+        # per patch the edges 0, g..., n, end to end
+        edges = np.empty(g.size + 2 * K, dtype=np.int64)
+        start = np.cumsum(cnt + 2) - (cnt + 2)
+        edges[start] = 0
+        edges[start + cnt + 1] = n
+        edges[np.arange(g.size) + 2 * kk + 1] = g
+        d = edges[1:] - edges[:-1]
+        keep = np.ones(d.size, dtype=bool)
+        keep[(start + cnt + 1)[:-1]] = False  # from one patch's n to the next patch's 0
+        last = start + cnt  # each patch's last run
+        zero_last = d[last] == 0
+        keep[last[zero_last]] = False
+        order.extend(it[0] for it in items)
+        flats.append(d[keep])
+        lengths.extend((cnt + 1 - zero_last).tolist())
+    strings = _many_counts_to_strings(np.concatenate(flats) if flats else np.zeros(0, np.int64),
+                                      np.array(lengths, dtype=np.int64))
+    out: list = [None] * len(patches)
+    for k, text in zip(order, strings):
+        out[k] = {"size": list(size), "counts": text}
+    return out
 
 
-def _many_counts_to_strings(runs) -> list[str]:
-    """:func:`counts_to_string` of each array of ``runs``, all values encoded in one pass."""
-    if not runs:
+def _many_counts_to_strings(cnts: np.ndarray, lengths: np.ndarray) -> list[str]:
+    """:func:`counts_to_string` of consecutive slices of ``cnts`` (``lengths`` each, all >= 1), in one pass."""
+    if lengths.size == 0:
         return []
-    lengths = np.array([r.size for r in runs], dtype=np.int64)
-    cnts = np.concatenate(runs).astype(np.int64, copy=False)
+    cnts = cnts.astype(np.int64, copy=False)
     starts = np.cumsum(lengths) - lengths
     pos = np.arange(cnts.size, dtype=np.int64) - np.repeat(starts, lengths)  # index within its own counts
     x = cnts.copy()
@@ -351,12 +365,9 @@ def _many_counts_to_strings(runs) -> list[str]:
     c = (v >> (5 * j)) & 0x1F
     c |= (j < np.repeat(groups, groups) - 1).astype(np.int64) << 5
     text = (c + 48).astype(np.uint8).tobytes().decode("ascii")
-    ends = np.cumsum(groups)[np.cumsum(lengths) - 1].tolist() if cnts.size else []
+    ends = np.cumsum(groups)[np.cumsum(lengths) - 1].tolist()
     out, at = [], 0
-    for e, size in zip(ends, lengths.tolist()):
-        if size == 0:
-            out.append("")
-            continue
+    for e in ends:
         out.append(text[at:e])
         at = e
     return out
