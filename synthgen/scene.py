@@ -54,7 +54,6 @@ from synthgen.shapes import (
     exact_box,
     natural_aspect,
     paint,
-    paint_many,
     sample_inside,
 )
 
@@ -583,19 +582,24 @@ def _draw(canvas: np.ndarray, shapes, styles, extras, config, rng: np.random.Gen
     live = [i for i, cov in enumerate(covs) if cov is not None]
     contrasts: dict = {}
     if len(live) >= _BULK_DRAW_MIN:
-        for group in _bulk_groups(covs, live):
-            if len(group) == 1 or covs[group[0]].values.size > _SMALL_PATCH:
-                for i in group:
+        for group in _levels(covs, live):
+            small = [i for i in group if covs[i].values.size <= _SMALL_PATCH]
+            if len(small) < 2:
+                small = []
+            for i in group:
+                if not small or covs[i].values.size > _SMALL_PATCH:
                     contrasts[i] = _draw_one(canvas, covs[i], styles[i], cands[i], lums[i], min_contrast)
-            else:
-                contrasts.update(_draw_bulk(canvas, group, covs, styles, cands, lums, min_contrast))
+            if small:
+                contrasts.update(_draw_level(canvas, small, covs, styles, cands, lums, min_contrast))
     else:
         for i in live:
             contrasts[i] = _draw_one(canvas, covs[i], styles[i], cands[i], lums[i], min_contrast)
+    # exact (unclipped) boxes, the values exact_box gives, built in one array
+    boxes = np.array([g.box for g in shapes_mod._geoms([shapes[i] for i in live])], dtype=np.float64).reshape(-1, 4)
     return [
-        _Drawn(shape=shapes[i], style=styles[i], cov=covs[i], box=exact_box(shapes[i]), contrast=contrasts[i],
+        _Drawn(shape=shapes[i], style=styles[i], cov=covs[i], box=boxes[t], contrast=contrasts[i],
                extra=extras[i], inside=insides[i])
-        for i in live
+        for t, i in enumerate(live)
     ]
 
 
@@ -651,8 +655,8 @@ def _draw_one(canvas, cov, style, cand, lum, min_contrast: float) -> float:
     return contrast
 
 
-def _bulk_groups(covs, live) -> list:
-    """The live shapes in drawing groups: levels in order, each split by patch size (lists of indices)."""
+def _levels(covs, live) -> list:
+    """The live shapes by drawing level, lowest first (lists of indices, in draw order within a level)."""
     rects = np.array(
         [(covs[i].col0, covs[i].row0, covs[i].col0 + covs[i].values.shape[1], covs[i].row0 + covs[i].values.shape[0])
          for i in live],
@@ -664,65 +668,112 @@ def _bulk_groups(covs, live) -> list:
     for a, b in zip(ii[order].tolist(), jj[order].tolist()):  # by later shape: earlier levels are final
         if level[a] + 1 > level[b]:
             level[b] = level[a] + 1
-    groups: dict = {}
+    groups: list = [[] for _ in range(max(level, default=-1) + 1)]
     for pos, i in enumerate(live):
-        groups.setdefault((level[pos], covs[i].values.shape), []).append(i)
-    return [groups[k] for k in sorted(groups, key=lambda k: k[0])]
+        groups[level[pos]].append(i)
+    return groups
 
 
-def _draw_bulk(canvas, idx, covs, styles, cands, lums, min_contrast: float) -> dict:
-    """:func:`_draw_one` for shapes whose patches have one size and never meet, in one array pass."""
+def _draw_level(canvas, idx, covs, styles, cands, lums, min_contrast: float) -> dict:
+    """:func:`_draw_one` for small patches that never meet, all in one pass over their pixels.
+
+    The pixels of all patches are listed end to end (each patch row by row);
+    every per-pixel value (mean colour sums, fills, blend) is computed by the
+    same operations as for one patch, and the sums are exact, so the canvas
+    and contrasts come out identical.
+    """
     k = len(idx)
-    h, w = covs[idx[0]].values.shape
-    r0 = np.array([covs[i].row0 for i in idx])
-    c0 = np.array([covs[i].col0 for i in idx])
-    rr = r0[:, None, None] + np.arange(h)[None, :, None]  # (K, h, 1)
-    cc = c0[:, None, None] + np.arange(w)[None, None, :]  # (K, 1, w)
-    under8 = canvas[rr, cc]  # (K, h, w, 3) uint8
-    v = np.stack([covs[i].values for i in idx])  # (K, h, w) float32
-    # coverage-weighted mean colour under each shape, exactly as _under_luma
-    vv = v.astype(np.float64).reshape(k, h * w)
-    total = vv.sum(axis=1)
-    sums = np.matmul(vv[:, None, :], under8.reshape(k, h * w, 3).astype(np.float64))[:, 0, :]  # (K, 3)
-    under_lum = []
-    for t, (tot, (sr, sg, sb)) in enumerate(zip(total.tolist(), sums.tolist())):
-        under_lum.append(0.5 if tot <= 0 else _luma3(sr / tot, sg / tot, sb / tot))
+    cov_list = [covs[i] for i in idx]
+    hs = np.array([c.values.shape[0] for c in cov_list])
+    ws = np.array([c.values.shape[1] for c in cov_list])
+    r0 = np.array([c.row0 for c in cov_list])
+    c0 = np.array([c.col0 for c in cov_list])
+    sizes = hs * ws
+    starts = np.cumsum(sizes) - sizes
+    seg = np.repeat(np.arange(k), sizes)  # patch of each listed pixel
+    local = np.arange(seg.size) - starts[seg]
+    wseg = ws[seg]
+    rr = r0[seg] + local // wseg
+    cc = c0[seg] + local % wseg
+    v = np.concatenate([c.values.ravel() for c in cov_list])  # (M,) float32, row by row
+    under8 = canvas[rr, cc]  # (M, 3) uint8
+    # coverage-weighted mean colour under each shape: exact float64 sums, as _under_luma
+    v64 = v.astype(np.float64)
+    total = np.bincount(seg, weights=v64, minlength=k)
+    sums = [np.bincount(seg, weights=v64 * under8[:, ch], minlength=k) for ch in range(3)]
+    covered = total > 0
+    safe = np.where(covered, total, 1.0)
+    lum = ((sums[0] / safe) * 0.299 + (sums[1] / safe) * 0.587 + (sums[2] / safe) * 0.114) / 255.0
+    under_lum = np.where(covered, lum, 0.5)
     # colours: the first qualifying candidate of each colour slot, as _pick_colours
     idx_arr = np.array(idx)
     n_col = np.array([1 if styles[i]["fill"] == "flat" else 2 for i in idx])
-    lum = lums[idx_arr]  # (K, 2, 8)
-    contrast_all = np.abs(lum - np.array(under_lum)[:, None, None])  # (K, 2, 8)
+    contrast_all = np.abs(lums[idx_arr] - under_lum[:, None, None])  # (K, 2, 8)
     ok = contrast_all >= min_contrast
     pick = ok.argmax(axis=2)  # (K, 2)
-    found = ok.any(axis=2)  # (K, 2)
+    found = ok.any(axis=2)
     colours = cands[idx_arr[:, None], np.arange(2)[None, :], pick]  # (K, 2, 3)
     picked = np.take_along_axis(contrast_all, pick[..., None], axis=2)[..., 0]  # (K, 2)
     achieved = np.where(n_col == 1, picked[:, 0], np.minimum(picked[:, 0], picked[:, 1])).tolist()
     settled = (found[:, 0] & ((n_col == 1) | found[:, 1])).tolist()
+    under_list = under_lum.tolist()
     out = {}
-    by_fill: dict = {}
     for t, i in enumerate(idx):
-        nc = int(n_col[t])
         if settled[t]:
             out[i] = achieved[t]
         else:  # no candidate qualifies: the brightness shift of _pick_colours
-            cols_t, out[i] = _pick_colours(under_lum[t], min_contrast, cands[i, :nc], lums[i, :nc])
-            colours[t, :nc] = cols_t
-        by_fill.setdefault(styles[i]["fill"], []).append(t)
-    fills = np.empty((k, h, w, 3), dtype=np.float32)
-    for fill, ts in by_fill.items():
-        if fill == "flat":
-            fills[ts] = colours[ts, 0].astype(np.float32)[:, None, None, :]
-            continue
-        fills[ts] = paint_many(
-            fill, colours[ts], h, w, row0=r0[ts], col0=c0[ts],
-            angle=[styles[idx[t]]["fill_angle"] for t in ts], period=[styles[idx[t]]["period"] for t in ts],
-        )
+            nc = int(n_col[t])
+            colours[t, :nc], out[i] = _pick_colours(under_list[t], min_contrast, cands[i, :nc], lums[i, :nc])
+    fill = np.empty((seg.size, 3), dtype=np.float32)
+    kinds = np.array([_FILL_CODE[styles[i]["fill"]] for i in idx])
+    flat = kinds[seg] == 0
+    fill[flat] = colours[seg[flat], 0]
+    if not flat.all():
+        _paint_pixels(fill, ~flat, kinds, seg, rr, cc, colours, idx, styles)
     patch = under8.astype(np.float32)
-    patch += (fills - patch) * v[..., None]
+    patch += (fill - patch) * v[:, None]
     np.rint(patch, out=patch)
     canvas[rr, cc] = patch.astype(np.uint8)
     return out
+
+
+_FILL_CODE = {"flat": 0, "gradient": 1, "stripes": 2}
+
+
+def _paint_pixels(fill, sel, kinds, seg, rr, cc, colours, idx, styles) -> None:
+    """Gradient and stripe fills at the listed pixels ``sel``, as :func:`synthgen.shapes.paint` computes them."""
+    k = len(idx)
+    ths = [math.radians(styles[i]["fill_angle"]) for i in idx]
+    cos = np.array([math.cos(t) for t in ths])
+    sin = np.array([math.sin(t) for t in ths])
+    sg = seg[sel]
+    px = cos[sg] * (cc[sel].astype(np.float64) + 0.5)
+    py = sin[sg] * (rr[sel].astype(np.float64) + 0.5)
+    proj = py + px
+    c0 = colours[sg, 0]  # (S, 3)
+    c1 = colours[sg, 1]
+    grad = kinds[sg] == 1
+    vals = np.empty((sg.size, 3))
+    if grad.any():
+        g = sg[grad]
+        lo_x, lo_y = np.full(k, np.inf), np.full(k, np.inf)
+        hi_x, hi_y = np.full(k, -np.inf), np.full(k, -np.inf)
+        np.minimum.at(lo_x, g, px[grad])
+        np.minimum.at(lo_y, g, py[grad])
+        np.maximum.at(hi_x, g, px[grad])
+        np.maximum.at(hi_y, g, py[grad])
+        lo = lo_x + lo_y
+        span = (hi_x + hi_y) - lo
+        wide = span[g] > 0
+        t = (proj[grad] - lo[g]) / np.where(wide, span[g], 1.0)
+        t[~wide] = 0.0
+        vals[grad] = c0[grad] + t[:, None] * (c1[grad] - c0[grad])
+    stripe = ~grad
+    if stripe.any():
+        period = np.array([styles[i]["period"] for i in idx], dtype=np.float64)
+        odd = (np.floor(proj[stripe] / period[sg[stripe]]) % 2) == 1
+        vals[stripe] = np.where(odd[:, None], c1[stripe], c0[stripe])
+    fill[sel] = vals
 
 
 def _patch_rects(drawn) -> np.ndarray:
@@ -1036,7 +1087,7 @@ def _annotate(drawn, outside: int, config):
             facts["pair_iou"] = pair_iou[d.extra["pair_id"]]
         box = vbox if visible_boxes else full_box
         # The mask patch is cropped to the pixel box (less to run-length encode).
-        c0, r0, c1, r1 = (int(v) for v in pbox)
+        c0, r0, c1, r1 = int(pbox[0]), int(pbox[1]), int(pbox[2]), int(pbox[3])
         pr, pc = r0 - d.cov.row0, c0 - d.cov.col0
         mask = (r0, c0, supports[z][pr : pr + r1 - r0, pc : pc + c1 - c0])
         kept.append((box, vis_cov, facts, mask))
