@@ -1376,26 +1376,36 @@ def _sparse_contains(region: _Union, cols: np.ndarray, rows: np.ndarray, s: int,
     pieces near it instead of all of them; the answer is the same.  Returns bool
     (s, s, K), indexed (sub-row i, sub-column j, pixel).
     """
-    nx, ny, c = region.padded()  # (E, P), transposed so that gathers stay contiguous
+    k = cols.size
+    out = np.zeros((s, s, k), dtype=bool)
+    # part by part, each with its own number of edges (a star's kites have 4, its core n)
+    for part in region.parts:
+        _sparse_part(part, cols, rows, s, margin, out)
+    return out
+
+
+def _sparse_part(part: _Convex, cols: np.ndarray, rows: np.ndarray, s: int, margin: float, out: np.ndarray) -> None:
+    """OR into ``out`` (s, s, K) the samples of the K pixels inside the pieces of ``part`` near them."""
+    nx = np.ascontiguousarray(np.asarray(part.nx).T)  # (E, P), so that gathers stay contiguous
+    ny = np.ascontiguousarray(np.asarray(part.ny).T)
+    c = np.ascontiguousarray(np.asarray(part.c).T)
     k = cols.size
     offs = _offsets(s)
     fp = ((nx[:, :, None] * (cols + 0.5) - c[:, :, None]) + ny[:, :, None] * (rows + 0.5)).max(axis=0)  # (P, K)
     kk, pp = np.nonzero((fp <= margin).T)  # pairs (pixel, piece), sorted by pixel
-    first = np.searchsorted(kk, np.arange(k))
-    rank = np.arange(kk.size) - first[kk]
-    out = np.zeros((s, s, k), dtype=bool)
-    for r in range(int(rank.max()) + 1 if kk.size else 0):
-        sel = rank == r
-        ks, ps = kk[sel], pp[sel]  # each pixel at most once per round
-        x = cols[ks][None, None, :] + offs[None, :, None]  # (1, s, N): the same c + o as everywhere
-        y = rows[ks][None, None, :] + offs[:, None, None]  # (s, 1, N)
-        # C-ordered coefficients keep the (E, s, s, N) result C-ordered, which the reduction needs to be fast
-        a_x = np.ascontiguousarray(nx[:, ps])[:, None, None, :]
-        a_y = np.ascontiguousarray(ny[:, ps])[:, None, None, :]
-        a_c = np.ascontiguousarray(c[:, ps])[:, None, None, :]
-        vals = (a_x * x - a_c) + a_y * y  # (E, s, s, N)
-        out[:, :, ks] |= vals.max(axis=0) <= _TOL
-    return out
+    if kk.size == 0:
+        return
+    # every (pixel, piece) pair in one pass, then OR over each pixel's pairs
+    x = cols[kk][None, None, :] + offs[None, :, None]  # (1, s, N): the same c + o as everywhere
+    y = rows[kk][None, None, :] + offs[:, None, None]  # (s, 1, N)
+    # C-ordered coefficients keep the (E, s, s, N) result C-ordered, which the reduction needs to be fast
+    a_x = np.ascontiguousarray(nx[:, pp])[:, None, None, :]
+    a_y = np.ascontiguousarray(ny[:, pp])[:, None, None, :]
+    a_c = np.ascontiguousarray(c[:, pp])[:, None, None, :]
+    vals = (a_x * x - a_c) + a_y * y  # (E, s, s, N)
+    hit = vals.max(axis=0) <= _TOL  # (s, s, N)
+    starts = np.flatnonzero(np.concatenate(([True], kk[1:] != kk[:-1])))
+    out[:, :, kk[starts]] |= np.logical_or.reduceat(hit, starts, axis=2)
 
 
 def _sparse_band(region: _Band, cols: np.ndarray, rows: np.ndarray, s: int, margin: float) -> np.ndarray:
@@ -1418,21 +1428,19 @@ def _sparse_band(region: _Band, cols: np.ndarray, rows: np.ndarray, s: int, marg
     t = np.clip((px * dx[:, None] + py * dy[:, None]) * inv[:, None], 0.0, 1.0)
     d2c = (px - t * dx[:, None]) ** 2 + (py - t * dy[:, None]) ** 2
     reach = region.width + margin
-    kk, ss = np.nonzero((d2c <= reach * reach).T)  # pairs (pixel, segment), sorted by pixel
-    first = np.searchsorted(kk, np.arange(k))
-    rank = np.arange(kk.size) - first[kk]
+    kk, sg = np.nonzero((d2c <= reach * reach).T)  # pairs (pixel, segment), sorted by pixel
     dmin = np.full((s, s, k), np.inf)
-    for r in range(int(rank.max()) + 1 if kk.size else 0):
-        sel = rank == r
-        ks, sg = kk[sel], ss[sel]
-        # the same operations, in the same order, as _Band._dist2 for one segment
-        qx = (cols[ks][None, None, :] + offs[None, :, None]) - ax[sg]  # (1, s, N)
-        qy = (rows[ks][None, None, :] + offs[:, None, None]) - ay[sg]  # (s, 1, N)
+    if kk.size:
+        # every (pixel, segment) pair in one pass, the same operations, in the same
+        # order, as _Band._dist2 for one segment; then the minimum over each pixel's pairs
+        qx = (cols[kk][None, None, :] + offs[None, :, None]) - ax[sg]  # (1, s, N)
+        qy = (rows[kk][None, None, :] + offs[:, None, None]) - ay[sg]  # (s, 1, N)
         sdx, sdy = dx[sg], dy[sg]
         t = np.clip((qx * sdx + qy * sdy) * inv[sg], 0.0, 1.0)  # (s, s, N)
         ex = qx - t * sdx
         ey = qy - t * sdy
-        dmin[:, :, ks] = np.minimum(dmin[:, :, ks], ex * ex + ey * ey)
+        starts = np.flatnonzero(np.concatenate(([True], kk[1:] != kk[:-1])))
+        dmin[:, :, kk[starts]] = np.minimum.reduceat(ex * ex + ey * ey, starts, axis=2)
     return inside & (dmin < region.width * region.width)
 
 
