@@ -240,8 +240,8 @@ def compose_shapes(canvas: np.ndarray, shapes, config, *, rng: np.random.Generat
         styles = [dict(_FLAT) for _ in shapes]
     if extras is None:
         extras = [{} for _ in shapes]
-    drawn = _draw(image, shapes, styles, extras, config, rng)
-    _measure_occlusion(drawn)
+    drawn, pairs = _draw(image, shapes, styles, extras, config, rng)
+    _measure_occlusion(drawn, pairs)
     kept, dropped = _annotate(drawn, len(shapes) - len(drawn), config)
     return _assemble(image, kept, {"dropped": dropped})
 
@@ -557,8 +557,11 @@ def _pick_colours(under_lum: float, min_contrast: float, cands: np.ndarray, lum:
 _SMALL_PATCH = 256
 
 
-def _draw(canvas: np.ndarray, shapes, styles, extras, config, rng: np.random.Generator) -> list:
+def _draw(canvas: np.ndarray, shapes, styles, extras, config, rng: np.random.Generator):
     """Draw shapes bottom to top onto ``canvas`` (modified in place); return what was drawn.
+
+    Returns the drawn objects (list of ``_Drawn``, in draw order) and, when
+    known, the pairs of them whose patches meet (else None).
 
     Each shape's colours depend on the canvas under it as drawn so far, so a
     shape is drawn after every earlier shape whose patch meets its own.  Many
@@ -576,13 +579,17 @@ def _draw(canvas: np.ndarray, shapes, styles, extras, config, rng: np.random.Gen
     lums = cands @ LUMA / 255.0  # (N, 2, 8)
     # Coverage does not depend on the canvas: all patches at once (tiny shapes in bulk).
     insides: list = []
+    geoms = shapes_mod._geoms(shapes)
     covs = shapes_mod.coverage_many(
-        shapes, height, width, samples=samples, strokes=[st["stroke"] for st in styles], insides=insides
+        shapes, height, width, samples=samples, strokes=[st["stroke"] for st in styles], insides=insides,
+        _geometry=geoms,
     )
     live = [i for i, cov in enumerate(covs) if cov is not None]
     contrasts: dict = {}
+    pairs = None
     if len(live) >= _BULK_DRAW_MIN:
-        for group in _levels(covs, live):
+        groups, pairs = _levels(covs, live)
+        for group in groups:
             small = [i for i in group if covs[i].values.size <= _SMALL_PATCH]
             if len(small) < 2:
                 small = []
@@ -595,12 +602,13 @@ def _draw(canvas: np.ndarray, shapes, styles, extras, config, rng: np.random.Gen
         for i in live:
             contrasts[i] = _draw_one(canvas, covs[i], styles[i], cands[i], lums[i], min_contrast)
     # exact (unclipped) boxes, the values exact_box gives, built in one array
-    boxes = np.array([g.box for g in shapes_mod._geoms([shapes[i] for i in live])], dtype=np.float64).reshape(-1, 4)
-    return [
+    boxes = np.array([geoms[i].box for i in live], dtype=np.float64).reshape(-1, 4)
+    drawn = [
         _Drawn(shape=shapes[i], style=styles[i], cov=covs[i], box=boxes[t], contrast=contrasts[i],
                extra=extras[i], inside=insides[i])
         for t, i in enumerate(live)
     ]
+    return drawn, pairs
 
 
 #: From this many shapes on, :func:`_draw` draws small patches in bulk.
@@ -655,8 +663,12 @@ def _draw_one(canvas, cov, style, cand, lum, min_contrast: float) -> float:
     return contrast
 
 
-def _levels(covs, live) -> list:
-    """The live shapes by drawing level, lowest first (lists of indices, in draw order within a level)."""
+def _levels(covs, live):
+    """The live shapes by drawing level, lowest first (lists of indices, in draw order within a level).
+
+    Also returns the pairs ``(i, j)`` of positions in ``live`` whose patches meet
+    (from :func:`_overlapping_pairs`).
+    """
     rects = np.array(
         [(covs[i].col0, covs[i].row0, covs[i].col0 + covs[i].values.shape[1], covs[i].row0 + covs[i].values.shape[0])
          for i in live],
@@ -671,7 +683,7 @@ def _levels(covs, live) -> list:
     groups: list = [[] for _ in range(max(level, default=-1) + 1)]
     for pos, i in enumerate(live):
         groups[level[pos]].append(i)
-    return groups
+    return groups, (ii, jj)
 
 
 def _draw_level(canvas, idx, covs, styles, cands, lums, min_contrast: float) -> dict:
@@ -824,9 +836,12 @@ def _overlapping_pairs(boxes: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return i[k], j[k]
 
 
-def _above(rects: np.ndarray) -> list:
-    """For each patch, the indices of the later patches that overlap it (list of int arrays)."""
-    ii, jj = _overlapping_pairs(rects)
+def _above(rects: np.ndarray, pairs=None) -> list:
+    """For each patch, the indices of the later patches that overlap it (list of int arrays).
+
+    ``pairs``: the result of ``_overlapping_pairs(rects)`` when the caller has it already.
+    """
+    ii, jj = _overlapping_pairs(rects) if pairs is None else pairs
     bounds = np.searchsorted(ii, np.arange(len(rects) + 1))
     return [jj[bounds[i] : bounds[i + 1]] for i in range(len(rects))]
 
@@ -984,11 +999,11 @@ def _occlude_small(d: _Drawn, ups) -> None:
     d.sample_box = mask_box(seen, origin=(pc0, pr0), scale=1.0 / s)
 
 
-def _measure_occlusion(drawn) -> None:
+def _measure_occlusion(drawn, pairs=None) -> None:
     """Fill in each drawn object's visible coverage from the samples of the objects above it."""
     if not drawn:
         return
-    for d, above in zip(drawn, _above(_patch_rects(drawn))):
+    for d, above in zip(drawn, _above(_patch_rects(drawn), pairs)):
         if above.size == 0:
             d.visible = d.cov.values
         elif d.cov.values.size <= _SMALL_OCCLUDED:

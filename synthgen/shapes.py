@@ -1157,7 +1157,9 @@ def coverage(shape: Shape, height: int, width: int, *, samples: int = 4, stroke:
     return Coverage(row0, col0, values, s, shape, stroke)
 
 
-def coverage_many(shapes, height: int, width: int, *, samples: int = 4, strokes=None, insides=None) -> list:
+def coverage_many(
+    shapes, height: int, width: int, *, samples: int = 4, strokes=None, insides=None, _geometry=None
+) -> list:
     """:func:`coverage` of many shapes at once: ``[coverage(shape, ...) for shape in shapes]``.
 
     Shapes whose patch holds at most :data:`_GRID_MAX_PIXELS` pixels (the ones
@@ -1196,7 +1198,8 @@ def coverage_many(shapes, height: int, width: int, *, samples: int = 4, strokes=
         insides[:] = [None] * n
     groups: dict = {}
     W, H = float(width), float(height)
-    for i, (shape, stroke, g) in enumerate(zip(shapes, strokes, _geoms(shapes))):
+    geoms = _geoms(shapes) if _geometry is None else _geometry  # (callers that hold them already)
+    for i, (shape, stroke, g) in enumerate(zip(shapes, strokes, geoms)):
         if not (math.isfinite(stroke) and stroke >= 0.0):
             raise ValueError(f"stroke must be a finite number >= 0 px (got {stroke!r})")
         bx0, by0, bx1, by1 = g.box
