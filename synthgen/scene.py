@@ -1063,14 +1063,15 @@ def _annotate(drawn, outside: int, config):
         if full_cov <= 0:  # too small to cover any sample
             dropped["min_area"] += 1
             continue
-        unoccluded = d.visible is d.cov.values
-        vis_cov = full_cov if unoccluded else float(d.visible.sum())
+        vis_cov = full_cov if d.visible is d.cov.values else float(d.visible.sum())
         fraction = vis_cov / full_cov
-        full_box = full_boxes[z]
-        if vis_cov > 0:
-            vbox = full_box.copy() if d.sample_box is None else visible_box(full_box, d.sample_box)
-        else:
+        full_list = full_lists[z]
+        if vis_cov <= 0:
             vbox = None
+        elif d.sample_box is None:  # nothing hides it: the visible box is the exact box
+            vbox = full_list
+        else:
+            vbox = visible_box(full_boxes[z], d.sample_box)
         pbox = pboxes[z]
         if vbox is None or pbox is None or vis_cov <= 0:
             dropped["hidden"] += 1
@@ -1085,8 +1086,8 @@ def _annotate(drawn, outside: int, config):
         facts = {
             "kind": shape.kind,
             "z": z,
-            "full_box": full_lists[z],
-            "visible_box": list(full_lists[z]) if d.sample_box is None else vbox.tolist(),
+            "full_box": full_list,
+            "visible_box": list(full_list) if d.sample_box is None else vbox.tolist(),
             "pixel_box": pbox,
             "size": sizes[z],
             "aspect": shape.aspect / natural_aspect(shape.kind, shape.sides, shape.inner),
@@ -1100,7 +1101,7 @@ def _annotate(drawn, outside: int, config):
         }
         if "pair_id" in d.extra and d.extra["pair_id"] in pair_iou:
             facts["pair_iou"] = pair_iou[d.extra["pair_id"]]
-        box = vbox if visible_boxes else full_box
+        box = vbox if visible_boxes else full_list
         # The mask patch is cropped to the pixel box (less to run-length encode).
         c0, r0, c1, r1 = int(pbox[0]), int(pbox[1]), int(pbox[2]), int(pbox[3])
         pr, pc = r0 - d.cov.row0, c0 - d.cov.col0
