@@ -139,6 +139,83 @@ def make(
     )
 
 
+def _parse_ids(text: str) -> list[int]:
+    """``"3,7,9"`` -> ``[3, 7, 9]``; a bad list is a user error naming the option."""
+    try:
+        ids = [int(part) for part in text.replace(" ", "").split(",") if part]
+    except ValueError:
+        ids = []
+    if not ids:
+        raise UserError(f"option '--ids' must be comma-separated image ids, e.g. 3,7,9 (got {text!r})")
+    return ids
+
+
+@app.command()
+@reported
+def show(
+    dataset: Annotated[Path, typer.Argument(help="Dataset directory (with annotations.json) or a COCO JSON file.", show_default=False)],
+    out: Annotated[Path, typer.Option("--out", "-o", help="Contact sheet to write (PNG).")] = ...,
+    images: Annotated[int, typer.Option("--images", "-n", help="Number of images: the first N by image id.", min=1)] = 16,
+    ids: Annotated[Optional[str], typer.Option("--ids", help="Comma-separated COCO image ids to show, e.g. 3,7,9 (instead of --images).")] = None,
+    pred: Annotated[Optional[Path], typer.Option("--pred", help="COCO results file of predictions, drawn dashed and coloured by what each is.")] = None,
+    truth: Annotated[Optional[Path], typer.Option("--truth", help="Truth sidecar from `synthgen jitter` saying what each prediction is (default: match at IoU 0.5).")] = None,
+    zoom: Annotated[bool, typer.Option("--zoom", help="Add enlarged crops of the smallest objects (nearest neighbour).")] = False,
+    cols: Annotated[Optional[int], typer.Option("--cols", help="Tiles per row (default: about the square root of the count).", min=1)] = None,
+    scale: Annotated[Optional[float], typer.Option("--scale", help="Tile pixels per image pixel (default: enlarge small images by a whole factor).", min=0.05, max=32)] = None,
+) -> None:
+    """Draw a contact sheet: images in a grid with their boxes, ids and a legend."""
+    from synthgen import report
+
+    if truth is not None and pred is None:
+        raise UserError("option '--truth' needs '--pred' (the predictions the sidecar describes)")
+    ds = report.open_dataset(dataset)
+    id_list = _parse_ids(ids) if ids is not None else None
+    predictions = None
+    how = ""
+    if pred is not None:
+        predictions = report.read_predictions(pred)
+        if truth is not None:
+            kinds = report.read_truth_sidecar(truth, len(predictions))
+            predictions = report.Predictions(
+                predictions.boxes, predictions.image_id, predictions.category_id, predictions.score, kinds
+            )
+            how = f", kinds from {truth}"
+        else:
+            predictions, _ = report.classify_predictions(ds.coco, predictions)
+            how = ", kinds by matching at IoU 0.5"
+    sheet = report.contact_sheet(ds, n=images, ids=id_list, cols=cols, scale=scale, predictions=predictions, zoom=zoom)
+    report.save_png(sheet.pixels, out)
+    shown = len(id_list) if id_list is not None else min(images, len(ds.coco["images"]))
+    extra = f", {len(predictions)} predictions{how}" if predictions is not None else ""
+    typer.echo(f"wrote {out} ({sheet.pixels.shape[1]}x{sheet.pixels.shape[0]} px, {shown} images{extra})")
+
+
+@app.command()
+@reported
+def stats(
+    dataset: Annotated[Path, typer.Argument(help="Dataset directory (with annotations.json) or a COCO JSON file.", show_default=False)],
+    json_out: Annotated[Optional[Path], typer.Option("--json", help="Also write the statistics as JSON to this file.")] = None,
+    plot: Annotated[Optional[Path], typer.Option("--plot", help="Also write a figure of histograms (PNG, 1200x700 px).")] = None,
+) -> None:
+    """Summarise a dataset: counts, sizes, COCO area ranges, visibility, overlap, settings used."""
+    import orjson
+    from rich.console import Console
+
+    from synthgen import report
+    from synthgen.formats.coco import write_bytes_atomic
+
+    ds = report.open_dataset(dataset)
+    result = report.dataset_stats(ds.coco, ds.manifest)
+    Console(highlight=False, soft_wrap=False).print(report.stats_tables(result, title=ds.name))
+    if json_out is not None:
+        write_bytes_atomic(json_out, orjson.dumps(result, option=orjson.OPT_INDENT_2) + b"\n")
+        typer.echo(f"wrote {json_out}")
+    if plot is not None:
+        fig = report.stats_figure(ds.coco, title=f"{ds.name}: {result['images']} images, {result['objects']} objects")
+        report.save_figure(fig, plot)
+        typer.echo(f"wrote {plot}")
+
+
 def main() -> None:
     """Entry point of the ``synthgen`` console script."""
     app(prog_name="synthgen")

@@ -1,0 +1,396 @@
+"""Contact sheets and statistics: boxes on the exact pixels, numbers equal to an independent count."""
+
+from __future__ import annotations
+
+import io
+import itertools
+import json
+
+import numpy as np
+import pytest
+from PIL import Image
+from typer.testing import CliRunner
+
+from synthgen import report
+from synthgen.cli import app
+from synthgen.errors import InputFileError
+
+GREY = (100, 100, 100)
+
+
+def run(*args):
+    return CliRunner().invoke(app, [str(a) for a in args])
+
+
+def _write_dataset(root, images, annotations, categories, *, subdir="images"):
+    """A hand-made COCO dataset: solid grey PNGs and an annotation file without synthgen keys."""
+    (root / subdir).mkdir(parents=True, exist_ok=True) if subdir else root.mkdir(parents=True, exist_ok=True)
+    for im in images:
+        arr = np.full((im["height"], im["width"], 3), GREY, dtype=np.uint8)
+        Image.fromarray(arr).save((root / subdir / im["file_name"]) if subdir else (root / im["file_name"]))
+    coco = {"images": images, "annotations": annotations, "categories": categories}
+    path = root / "annotations.json"
+    path.write_text(json.dumps(coco))
+    return path
+
+
+@pytest.fixture
+def known_boxes(tmp_path):
+    """One 20x16 image with box [2, 3, 7, 9] (category 1) and box [10.5, 4.2, 13.5, 12] (category 2)."""
+    images = [{"id": 1, "file_name": "a.png", "width": 20, "height": 16}]
+    anns = [
+        {"id": 1, "image_id": 1, "category_id": 1, "bbox": [2, 3, 5, 6], "area": 30.0, "iscrowd": 0},
+        {"id": 2, "image_id": 1, "category_id": 2, "bbox": [10.5, 4.2, 3.0, 7.8], "area": 23.4, "iscrowd": 0},
+    ]
+    cats = [{"id": 1, "name": "plate", "supercategory": "part"}, {"id": 2, "name": "washer", "supercategory": "part"}]
+    _write_dataset(tmp_path / "ds", images, anns, cats)
+    return report.open_dataset(tmp_path / "ds")
+
+
+def _outline_set(c0, r0, c1, r1):
+    """Pixels (row, col) of a rectangle outline with inclusive corner pixels, by plain enumeration."""
+    pts = set()
+    for c in range(c0, c1 + 1):
+        pts |= {(r0, c), (r1, c)}
+    for r in range(r0, r1 + 1):
+        pts |= {(r, c0), (r, c1)}
+    return pts
+
+
+def _pixels_of(tile, rgb):
+    rows, cols = np.nonzero(np.all(tile == np.array(rgb, dtype=np.uint8), axis=-1))
+    return set(zip(rows.tolist(), cols.tolist()))
+
+
+def test_sheet_draws_box_edges_on_the_pixels_just_inside_the_box(known_boxes):
+    """Box [2, 3, 7, 9] at scale 1 colours cols 2..6 on rows 3 and 8 and rows 3..8 on cols 2 and 6, nothing else."""
+    sheet = report.contact_sheet(known_boxes, scale=1)
+    t = sheet.tiles[0]
+    tile = sheet.pixels[t.top : t.top + t.height, t.left : t.left + t.width]
+    assert tile.shape == (16, 20, 3)
+    # ARCHITECTURE.md convention: a box from x0 to x1 covers pixels x0 .. x1 - 1 (half-open)
+    expected = _outline_set(2, 3, 6, 8)
+    assert _pixels_of(tile, report.CATEGORY_COLOURS[0]) == expected
+    # a fractional box [10.5, 4.2, 13.5, 12]: the pixels it touches are cols 10..13, rows 4..11
+    assert _pixels_of(tile, report.CATEGORY_COLOURS[1]) == _outline_set(10, 4, 13, 11)
+    # inside the outline the image is untouched
+    assert (tile[4:8, 3:6] == GREY).all()
+
+
+def test_sheet_edges_follow_the_convention_at_a_whole_scale(known_boxes):
+    """At scale 3 box [2, 3, 7, 9] spans tile pixels 6..20 by 9..26, outlined on that rectangle's rim."""
+    sheet = report.contact_sheet(known_boxes, scale=3)
+    t = sheet.tiles[0]
+    tile = sheet.pixels[t.top : t.top + t.height, t.left : t.left + t.width]
+    assert tile.shape == (48, 60, 3)
+    # half-open [6, 21) x [9, 27): columns 6..20, rows 9..26 (ARCHITECTURE.md convention, scaled by 3)
+    assert _pixels_of(tile, report.CATEGORY_COLOURS[0]) == _outline_set(6, 9, 20, 26)
+    assert (tile[10:26, 7:20] == GREY).all()  # each image pixel is a 3x3 block, interior untouched
+
+
+def test_halo_darkens_only_pixels_outside_the_box():
+    """The dark rim lies on the ring just outside the outline; pixels inside keep their value."""
+    img = np.full((12, 12, 3), 200, dtype=np.uint8)
+    out = report.draw_boxes(img, [[3, 3, 8, 8]], (255, 0, 0), halo=0.5)
+    ring = _outline_set(2, 2, 8, 8)
+    dark = _pixels_of(out, (100, 100, 100))
+    assert dark == ring
+    assert (out[4:7, 4:7] == 200).all()
+
+
+def test_dashed_outline_is_three_on_two_off_clockwise():
+    """A dashed 10x1-row box colours pixels 0,1,2 then skips 3,4 along its top edge."""
+    img = np.zeros((4, 12, 3), dtype=np.uint8)
+    out = report.draw_boxes(img, [[0, 0, 10, 3]], (255, 255, 255), dashed=True, halo=None)
+    top = np.all(out[0, :10] == 255, axis=-1)
+    assert top.tolist() == [True, True, True, False, False, True, True, True, False, False]
+
+
+def test_zoom_crop_draws_a_one_pixel_object_on_the_enlarged_grid(tmp_path):
+    """A 1x1 px box at (5, 4) in a zoom crop is outlined on the z x z block it occupies."""
+    images = [{"id": 1, "file_name": "b.png", "width": 30, "height": 20}]
+    anns = [
+        {"id": 1, "image_id": 1, "category_id": 1, "bbox": [5, 4, 1, 1], "area": 1.0, "iscrowd": 0},
+        {"id": 2, "image_id": 1, "category_id": 1, "bbox": [12, 2, 10, 10], "area": 100.0, "iscrowd": 0},
+    ]
+    _write_dataset(tmp_path / "z", images, anns, [{"id": 1, "name": "pin"}])
+    sheet = report.contact_sheet(report.open_dataset(tmp_path / "z"), zoom=True, scale=1)
+    crop = next(c for c in sheet.crops if c.annotation == 0)
+    z = int(crop.sx)
+    assert z >= 8
+    tile = sheet.pixels[crop.top : crop.top + crop.height, crop.left : crop.left + crop.width]
+    c0 = round((5 - crop.ox) * z)
+    r0 = round((4 - crop.oy) * z)
+    # the pixel [5, 6) x [4, 5) enlarged z times is [c0, c0 + z) x [r0, r0 + z) (ARCHITECTURE.md convention)
+    assert _pixels_of(tile, report.CATEGORY_COLOURS[0]) >= _outline_set(c0, r0, c0 + z - 1, r0 + z - 1)
+    assert (tile[r0 + 1 : r0 + z - 1, c0 + 1 : c0 + z - 1] == GREY).all()
+
+
+def _machado(kind):
+    # Simulation matrices for dichromacy at severity 1.0, applied to linear RGB
+    # (Machado, Oliveira and Fernandes 2009; values from memory).
+    return {
+        "protan": [[0.152286, 1.052583, -0.204868], [0.114503, 0.786281, 0.099216], [-0.003882, -0.048116, 1.051998]],
+        "deutan": [[0.367322, 0.860646, -0.227968], [0.280085, 0.672501, 0.047413], [-0.011820, 0.042940, 0.968881]],
+        "tritan": [[1.255528, -0.076749, -0.178779], [-0.078411, 0.930809, 0.147602], [0.004733, 0.691367, 0.303900]],
+    }[kind]
+
+
+def _seen_as(rgb, kind):
+    from skimage.color import rgb2lab
+
+    s = np.asarray(rgb, dtype=float) / 255
+    if kind != "normal":
+        lin = np.where(s <= 0.04045, s / 12.92, ((s + 0.055) / 1.055) ** 2.4)  # sRGB transfer (IEC 61966-2-1)
+        lin = np.clip(lin @ np.array(_machado(kind)).T, 0, 1)
+        s = np.where(lin <= 0.0031308, 12.92 * lin, 1.055 * lin ** (1 / 2.4) - 0.055)
+    return rgb2lab(s[None])[0]
+
+
+@pytest.mark.parametrize("palette", ["categories", "predictions"])
+def test_palettes_stay_apart_under_colour_vision_deficiencies(palette):
+    """Every pair of palette colours differs by CIEDE2000 >= 12 in normal vision and simulated dichromacies."""
+    from skimage.color import deltaE_ciede2000
+
+    colours = report.CATEGORY_COLOURS if palette == "categories" else tuple(report.PREDICTION_COLOURS.values())
+    for kind in ("normal", "protan", "deutan", "tritan"):
+        lab = _seen_as(colours, kind)
+        worst = min(deltaE_ciede2000(lab[i], lab[j]) for i, j in itertools.combinations(range(len(colours)), 2))
+        # a difference of about 10 or more reads as a different colour at a glance (common practice)
+        assert worst >= 12, (kind, worst)
+
+
+def test_classify_names_each_kind_of_prediction():
+    """TP, duplicate, wrong class, localization error and background come out as built."""
+    gt = {"annotations": [
+        {"image_id": 1, "category_id": 1, "bbox": [0, 0, 10, 10]},
+        {"image_id": 1, "category_id": 2, "bbox": [40, 40, 10, 10]},
+        {"image_id": 1, "category_id": 1, "bbox": [70, 0, 10, 10]},
+    ]}
+    boxes = np.array([
+        [0, 0, 10, 10],      # TP of annotation 0
+        [0, 1, 10, 11],      # duplicate of 0 (IoU 9/11)
+        [40, 40, 50, 50],    # class 1 on a class-2 object
+        [70, 0, 76, 6],      # IoU 0.36 with annotation 2: localization error
+        [200, 200, 210, 210],  # background
+    ], dtype=float)
+    p = report.Predictions(boxes, np.ones(5, int), np.ones(5, int), np.array([0.9, 0.8, 0.7, 0.6, 0.5]), ("",) * 5)
+    out, matched = report.classify_predictions(gt, p)
+    assert out.kind == ("true_positive", "duplicate", "wrong_class", "localization", "background")
+    assert matched.tolist() == [True, False, False]
+
+
+def test_classify_true_positives_agree_with_pycocotools(small_dataset):
+    """Predictions called true positives are exactly those pycocotools matches at IoU 0.5."""
+    from pycocotools.coco import COCO
+    from pycocotools.cocoeval import COCOeval
+
+    from synthgen.formats.coco import bbox_from_xyxy, xyxy_from_bbox
+
+    out, _ = small_dataset
+    coco = json.loads((out / "annotations.json").read_text())
+    rng = np.random.default_rng(5)
+    preds = []
+    for a in coco["annotations"]:
+        b = xyxy_from_bbox([a["bbox"]])[0]
+        w, h = b[2] - b[0], b[3] - b[1]
+        for _ in range(rng.integers(1, 4)):
+            shift = rng.normal(0, 0.12, 4) * [w, h, w, h]
+            nb = b + shift
+            if nb[2] - nb[0] > 0.5 and nb[3] - nb[1] > 0.5:
+                preds.append({"image_id": a["image_id"], "category_id": int(rng.choice([a["category_id"], 1, 2])),
+                              "bbox": bbox_from_xyxy([nb])[0], "score": float(rng.uniform())})
+    path = out.parent / "preds.json"
+    path.write_text(json.dumps(preds))
+    p, _ = report.classify_predictions(coco, report.read_predictions(path))
+
+    gt = COCO()
+    gt.dataset = json.loads(json.dumps(coco))
+    gt.createIndex()
+    dt = gt.loadRes([dict(r) for r in preds])
+    ev = COCOeval(gt, dt, "bbox")
+    ev.params.iouThrs = np.array([0.5])
+    ev.params.areaRng, ev.params.areaRngLbl = [[0, 1e10]], ["all"]
+    ev.evaluate()
+    # pycocotools cocoeval.py: evalImgs[...]["dtMatches"][t] is the matched gt id, 0 when unmatched
+    matched_dt = set()
+    for e in ev.evalImgs:
+        if e is not None:
+            matched_dt |= {d for d, m in zip(e["dtIds"], e["dtMatches"][0]) if m > 0}
+    ours = {i + 1 for i, k in enumerate(p.kind) if k == "true_positive"}  # loadRes numbers results from 1
+    assert len(ours) > 20 and len(preds) - len(ours) > 10
+    assert ours == matched_dt
+
+
+def test_truth_sidecar_is_read_in_its_accepted_shapes(tmp_path):
+    """A list of records, an object with 'predictions', aliases and explicit indices all give the kinds."""
+    a = tmp_path / "a.json"
+    a.write_text(json.dumps([{"kind": "true_positive"}, {"kind": "localization_error"}, {"status": "bg"}]))
+    assert report.read_truth_sidecar(a, 3) == ("true_positive", "localization", "background")
+    b = tmp_path / "b.json"
+    b.write_text(json.dumps({"predictions": [{"index": 1, "kind": "duplicate"}, {"index": 0, "kind": "wrong_class"}]}))
+    assert report.read_truth_sidecar(b, 2) == ("wrong_class", "duplicate")
+    c = tmp_path / "c.json"
+    c.write_text(json.dumps([{"kind": "great"}]))
+    with pytest.raises(InputFileError, match="record 0: the kind must be one of"):
+        report.read_truth_sidecar(c, 1)
+    with pytest.raises(InputFileError, match="says nothing about 1 of 3 predictions"):
+        report.read_truth_sidecar(b, 3)
+
+
+# --------------------------------------------------------------------------- statistics
+
+
+def _plain_iou(a, b):
+    """IoU of two xyxy boxes by the textbook formula, no +1 (REFERENCE.md: Geometry)."""
+    iw = max(0.0, min(a[2], b[2]) - max(a[0], b[0]))
+    ih = max(0.0, min(a[3], b[3]) - max(a[1], b[1]))
+    inter = iw * ih
+    union = (a[2] - a[0]) * (a[3] - a[1]) + (b[2] - b[0]) * (b[3] - b[1]) - inter
+    return inter / union if union > 0 else 0.0
+
+
+def test_stats_equal_an_independent_count(small_dataset):
+    """Counts, quantiles, area ranges, visibility, truncation and max IoU match plain numpy on the file."""
+    out, _ = small_dataset
+    coco = json.loads((out / "annotations.json").read_text())
+    s = report.dataset_stats(coco)
+    anns = coco["annotations"]
+    per_image = np.array([sum(a["image_id"] == im["id"] for a in anns) for im in coco["images"]])
+    assert s["images"] == len(coco["images"])
+    assert s["objects"] == len(anns)
+    assert (s["objects_per_image"]["min"], s["objects_per_image"]["median"], s["objects_per_image"]["max"]) == (
+        per_image.min(), np.median(per_image), per_image.max())
+    for c in s["per_category"]:
+        assert c["count"] == sum(a["category_id"] == c["id"] for a in anns)
+    longer = np.array([max(a["bbox"][2], a["bbox"][3]) for a in anns])
+    assert s["size"]["median"] == pytest.approx(np.median(longer), abs=1e-12)
+    assert s["size"]["p25"] == pytest.approx(np.percentile(longer, 25), abs=1e-12)
+    area = np.array([a["area"] for a in anns])
+    # REFERENCE.md: COCO-style AP, size ranges with both ends inclusive
+    assert s["area_ranges"]["small"] == np.sum(area <= 32**2)
+    assert s["area_ranges"]["medium"] == np.sum((area >= 32**2) & (area <= 96**2))
+    assert s["area_ranges"]["large"] == np.sum(area >= 96**2)
+    vis = np.array([a["synthgen"]["visible_fraction"] for a in anns])
+    assert s["visible_fraction"]["mean"] == pytest.approx(vis.mean(), abs=1e-12)
+    assert s["visible_fraction"]["fully_visible"] == pytest.approx(np.mean(vis >= 1))
+    trunc = np.array([a["synthgen"]["truncated"] for a in anns])
+    assert s["truncated"]["count"] == trunc.sum()
+    boxes = [[a["bbox"][0], a["bbox"][1], a["bbox"][0] + a["bbox"][2], a["bbox"][1] + a["bbox"][3]] for a in anns]
+    best = [max([_plain_iou(boxes[i], boxes[j]) for j in range(len(anns))
+                 if j != i and anns[j]["image_id"] == anns[i]["image_id"]] or [0.0]) for i in range(len(anns))]
+    assert s["max_iou"]["max"] == pytest.approx(max(best), abs=1e-12)
+    assert s["max_iou"]["mean"] == pytest.approx(np.mean(best), abs=1e-12)
+    assert s["max_iou"]["overlapping"] == pytest.approx(np.mean(np.array(best) > 0))
+    # and the same as the fact synthgen records per object (DATASET.md: max_iou)
+    assert np.allclose(best, [a["synthgen"]["max_iou"] for a in anns], atol=1e-9)
+
+
+def test_area_of_exactly_1024_counts_as_small_and_medium():
+    """COCO's ranges include both ends, so area 32^2 is in two ranges (REFERENCE.md: COCO-style AP)."""
+    coco = {"images": [{"id": 1, "width": 64, "height": 64}], "categories": [{"id": 1, "name": "a"}],
+            "annotations": [{"id": 1, "image_id": 1, "category_id": 1, "bbox": [0, 0, 32, 32], "area": 1024.0}]}
+    r = report.dataset_stats(coco)["area_ranges"]
+    assert (r["small"], r["medium"], r["large"]) == (1, 1, 0)
+
+
+def _png_ok(data: bytes, size):
+    im = Image.open(io.BytesIO(data))
+    im.verify()  # Pillow's PNG checks: chunks and CRCs
+    im = Image.open(io.BytesIO(data))
+    assert im.format == "PNG"
+    assert im.size == size
+    arr = np.asarray(im.convert("RGB")).astype(int)
+    assert arr.std() > 10 and len(np.unique(arr.reshape(-1, 3), axis=0)) > 50  # not blank
+
+
+def test_stats_figure_is_a_png_of_the_stated_size(small_dataset, tmp_path):
+    """The figure is a valid 1200x700 PNG with drawn content."""
+    out, _ = small_dataset
+    coco = json.loads((out / "annotations.json").read_text())
+    path = tmp_path / "fig.png"
+    report.save_figure(report.stats_figure(coco, width=12, height=7), path, dpi=100)
+    _png_ok(path.read_bytes(), (1200, 700))
+
+
+def test_show_and_stats_commands_on_a_synthgen_dataset(small_dataset, tmp_path):
+    """`show` writes a non-blank PNG of the size it reports; `stats` prints tables and writes JSON and a plot."""
+    out, _ = small_dataset
+    res = run("show", out, "--out", tmp_path / "s.png", "--images", 4, "--cols", 2, "--zoom")
+    assert res.exit_code == 0, res.output
+    w, h = map(int, res.stdout.split("(")[1].split(" px")[0].split("x"))
+    _png_ok((tmp_path / "s.png").read_bytes(), (w, h))
+    res = run("stats", out, "--json", tmp_path / "s.json", "--plot", tmp_path / "p.png")
+    assert res.exit_code == 0, res.output
+    assert "objects per category" in res.stdout and "COCO area ranges" in res.stdout
+    assert json.loads((tmp_path / "s.json").read_text())["images"] == 6
+    _png_ok((tmp_path / "p.png").read_bytes(), (1200, 700))
+
+
+def test_both_commands_work_on_another_tools_coco_file(tmp_path):
+    """A COCO file without synthgen keys (images beside it, a polygon, an annotation without area) works."""
+    images = [{"id": 10, "file_name": "f1.png", "width": 50, "height": 40},
+              {"id": 11, "file_name": "f2.png", "width": 50, "height": 40}]
+    anns = [
+        {"id": 1, "image_id": 10, "category_id": 3, "bbox": [5, 5, 20, 10], "area": 200.0, "iscrowd": 0,
+         "segmentation": [[5, 5, 25, 5, 25, 15, 5, 15]]},
+        {"id": 2, "image_id": 10, "category_id": 4, "bbox": [15, 8, 20, 20], "iscrowd": 0},
+        {"id": 3, "image_id": 11, "category_id": 3, "bbox": [0, 0, 2, 3], "area": 6.0, "iscrowd": 0},
+    ]
+    cats = [{"id": 3, "name": "bolt", "supercategory": "hardware"}, {"id": 4, "name": "nut", "supercategory": "hardware"}]
+    path = _write_dataset(tmp_path / "other", images, anns, cats, subdir=None).rename(tmp_path / "other" / "gt.json")
+    res = run("show", path, "--out", tmp_path / "o.png", "--zoom")
+    assert res.exit_code == 0, res.output
+    res = run("stats", path, "--json", tmp_path / "o.json", "--plot", tmp_path / "o_plot.png")
+    assert res.exit_code == 0, res.output
+    s = json.loads((tmp_path / "o.json").read_text())
+    assert s["visible_fraction"] is None and s["truncated"] is None
+    assert any("visible fraction: not recorded" in n for n in s["notes"])
+    assert any("no 'area'" in n for n in s["notes"])
+    assert s["area_ranges"]["small"] == 3  # 200, 400 (box w*h for the one without area) and 6
+    assert s["max_iou"]["max"] == pytest.approx(_plain_iou([5, 5, 25, 15], [15, 8, 35, 28]))
+    _png_ok((tmp_path / "o_plot.png").read_bytes(), (1200, 700))
+
+
+def test_show_with_predictions_colours_them_by_kind(known_boxes, tmp_path):
+    """Predictions matched by IoU are drawn dashed in their kind's colour on the exact pixels."""
+    preds = [{"image_id": 1, "category_id": 1, "bbox": [2, 3, 5, 6], "score": 0.9},
+             {"image_id": 1, "category_id": 1, "bbox": [14, 0, 4, 4], "score": 0.5}]
+    path = tmp_path / "p.json"
+    path.write_text(json.dumps(preds))
+    p, _ = report.classify_predictions(known_boxes.coco, report.read_predictions(path))
+    assert p.kind == ("true_positive", "background")
+    sheet = report.contact_sheet(known_boxes, scale=1, predictions=p)
+    t = sheet.tiles[0]
+    tile = sheet.pixels[t.top : t.top + t.height, t.left : t.left + t.width]
+    bg = _pixels_of(tile, report.PREDICTION_COLOURS["background"])
+    ring = _outline_set(14, 0, 17, 3)
+    assert bg <= ring and len(bg) == sum(1 for k in range(len(ring)) if k % 5 < 3)
+    tp = _pixels_of(tile, report.PREDICTION_COLOURS["true_positive"])
+    assert tp and tp < _outline_set(2, 3, 6, 8)  # dashed over the truth, whose colour shows in the gaps
+    assert _pixels_of(tile, report.CATEGORY_COLOURS[0]) == _outline_set(2, 3, 6, 8) - tp
+
+
+@pytest.mark.parametrize(
+    ("args", "pattern"),
+    [
+        (["--ids", "1,99"], "image id 99 is not in the dataset"),
+        (["--ids", "a,b"], "option '--ids' must be comma-separated image ids"),
+        (["--truth", "x.json"], "option '--truth' needs '--pred'"),
+        (["--pred", "missing.json"], "missing.json: cannot be read"),
+    ],
+)
+def test_show_bad_input_exits_2_with_one_line(known_boxes, tmp_path, args, pattern):
+    """Unknown ids, a bad id list, a sidecar without predictions and a missing file exit 2 with one line."""
+    res = run("show", known_boxes.root, "--out", tmp_path / "x.png", *args)
+    assert res.exit_code == 2, res.output
+    assert pattern in res.stderr
+    assert len(res.stderr.strip().splitlines()) == 1
+    assert not (tmp_path / "x.png").exists()
+
+
+def test_stats_on_a_missing_dataset_exits_2(tmp_path):
+    """A directory without annotations.json is bad input."""
+    res = run("stats", tmp_path)
+    assert res.exit_code == 2
+    assert "has no annotations.json" in res.stderr
