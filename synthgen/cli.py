@@ -198,17 +198,15 @@ def stats(
     plot: Annotated[Optional[Path], typer.Option("--plot", help="Also write a figure of histograms (PNG, 1200x700 px).")] = None,
 ) -> None:
     """Summarise a dataset: counts, sizes, COCO area ranges, visibility, overlap, settings used."""
-    import orjson
     from rich.console import Console
 
     from synthgen import report
-    from synthgen.formats.coco import write_bytes_atomic
 
     ds = report.open_dataset(dataset)
     result = report.dataset_stats(ds.coco, ds.manifest)
     Console(highlight=False, soft_wrap=False).print(report.stats_tables(result, title=ds.name))
     if json_out is not None:
-        write_bytes_atomic(json_out, orjson.dumps(result, option=orjson.OPT_INDENT_2) + b"\n")
+        report.save_json(result, json_out)
         typer.echo(f"wrote {json_out}")
     if plot is not None:
         fig = report.stats_figure(ds.coco, title=f"{ds.name}: {result['images']} images, {result['objects']} objects")

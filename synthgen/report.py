@@ -82,6 +82,7 @@ __all__ = [
     "stats_figure",
     "save_png",
     "save_figure",
+    "save_json",
 ]
 
 #: Category outline colours, RGB (see the module docstring for how they were chosen).
@@ -120,10 +121,11 @@ _KIND_LABELS = {
 COCO_AREA_RANGES = (("small", 0.0, 32.0**2), ("medium", 32.0**2, 96.0**2), ("large", 96.0**2, 1e10))
 
 _EPS = 1e-6  # px: float noise in x + w must not move an outline onto the next pixel
-_DASH = (3, 2)  # on, off pixels along a prediction's outline
+_DASH = (4, 3)  # on, off pixels along a prediction's outline
 _SHEET_BG = (30, 32, 36)
 _TEXT = (225, 228, 232)
 _MUTED = (150, 155, 162)
+_OUTSIDE = (12, 12, 14)  # beyond the image's border in a zoom crop
 
 
 # --------------------------------------------------------------------------- inputs
@@ -154,6 +156,8 @@ class Dataset:
     @property
     def name(self) -> str:
         """A short name for titles: the dataset directory's name."""
+        if self.source.name != "annotations.json":
+            return self.source.name
         return self.root.resolve().name or str(self.root)
 
     def image_path(self, image: Mapping) -> Path:
@@ -540,8 +544,8 @@ def draw_boxes(
     sx, sy, ox, oy : float
         Scale and origin, as in :func:`outline_pixels`.
     dashed : bool or array_like of bool, shape (N,)
-        Draw 3 pixels on, 2 off along an outline (clockwise from its top-left
-        pixel) instead of a solid line.
+        Draw 4 pixels on, 3 off along an outline (clockwise from its top-left
+        pixel) instead of a solid line; the halo then lies only beside the dashes.
     halo : float or None
         Multiply the ring of pixels just *outside* each outline by this factor
         (darkening it) so that a light outline stays visible on a light
@@ -568,15 +572,26 @@ def draw_boxes(
     def inside(rows, cols):
         return (rows >= 0) & (rows < h) & (cols >= 0) & (cols < w)
 
+    # Outline pixels to colour, per box: solid, or every on-stretch of the dash pattern.
+    strokes = []
+    for c0, r0, c1, r1 in px:
+        rows, cols = _perimeter(int(c0), int(r0), int(c1), int(r1))
+        strokes.append((rows, cols))
     if halo is not None:
         dark = np.zeros((h, w), dtype=bool)
-        for c0, r0, c1, r1 in px:
-            rows, cols = _perimeter(int(c0) - 1, int(r0) - 1, int(c1) + 1, int(r1) + 1)
-            k = inside(rows, cols)
-            dark[rows[k], cols[k]] = True
+        for (c0, r0, c1, r1), (rows, cols), d in zip(px, strokes, dash):
+            hr, hc = _perimeter(int(c0) - 1, int(r0) - 1, int(c1) + 1, int(r1) + 1)
+            if d:  # halo only beside the dashes, so the gaps stay open
+                on = (np.arange(rows.size) % sum(_DASH)) < _DASH[0]
+                near = np.zeros((int(r1 - r0) + 3, int(c1 - c0) + 3), dtype=bool)  # window around the ring
+                for dr, dc in ((-1, 0), (1, 0), (0, -1), (0, 1)):  # the ring pixel right beside each dash pixel
+                    near[rows[on] - r0 + 1 + dr, cols[on] - c0 + 1 + dc] = True
+                keep = near[hr - r0 + 1, hc - c0 + 1]
+                hr, hc = hr[keep], hc[keep]
+            k = inside(hr, hc)
+            dark[hr[k], hc[k]] = True
         out[dark] = (out[dark] * halo).astype(np.uint8)
-    for (c0, r0, c1, r1), colour, d in zip(px, rgb, dash):
-        rows, cols = _perimeter(int(c0), int(r0), int(c1), int(r1))
+    for (rows, cols), colour, d in zip(strokes, rgb, dash):
         keep = inside(rows, cols)
         if d:
             keep &= (np.arange(rows.size) % sum(_DASH)) < _DASH[0]
@@ -732,6 +747,8 @@ def _legend_entries(coco: Mapping, used_cats: set, with_preds: bool, kinds_used:
     pred_entries = []
     if with_preds:
         pred_entries = [(_KIND_LABELS[k], PREDICTION_COLOURS[k], True) for k in PREDICTION_KINDS if k in kinds_used]
+        if kinds_used - set(PREDICTION_KINDS):
+            pred_entries.append(("unclassified", _MUTED, True))
     return entries, pred_entries, order
 
 
@@ -758,15 +775,18 @@ def contact_sheet(
     cols : int, optional
         Tiles per row (default: about the square root of the number of images).
     scale : float, optional
-        Tile pixels per image pixel (default :func:`auto_scale` of the largest
-        image shown).  Whole factors repeat pixels; boxes are drawn on the
+        Tile pixels per image pixel, the same for every image (default:
+        :func:`auto_scale` of each image, so images of mixed sizes each get
+        their own; the caption then gives the factor).  Whole factors repeat pixels; boxes are drawn on the
         scaled grid as :func:`outline_pixels` says.
     predictions : Predictions, optional
         Drawn dashed over the truth, coloured by ``kind``
         (:data:`PREDICTION_COLOURS`).
     zoom : bool
-        Add a strip of the smallest objects among the shown images, enlarged
-        with nearest neighbour, boxes drawn on the enlarged grid.
+        Add a strip of the smallest objects among the shown images (longer
+        side up to 21 px), enlarged with nearest neighbour by a whole factor
+        (2 to 32) so each spans about a third of its 128-pixel crop, boxes
+        drawn on the enlarged grid.
     zoom_count : int, optional
         Number of crops (default: two rows' worth).
 
@@ -794,8 +814,6 @@ def contact_sheet(
     if predictions is not None:
         pred_colours = np.array([PREDICTION_COLOURS.get(k, _MUTED) for k in predictions.kind], dtype=np.uint8).reshape(-1, 3)
 
-    if scale is None:
-        scale = auto_scale(max(im["width"] for im in chosen), max(im["height"] for im in chosen))
     n_img = len(chosen)
     if cols is None:
         cols = max(1, math.ceil(math.sqrt(n_img)))
@@ -805,10 +823,13 @@ def contact_sheet(
     # Tiles
     tiles: list[_Tile] = []
     for im in chosen:
-        pix, sx, sy = _scaled(_load_image(ds, im), scale)
+        s_im = scale if scale is not None else auto_scale(im["width"], im["height"])
+        pix, sx, sy = _scaled(_load_image(ds, im), s_im)
         sel = gt_img == im["id"]
         n_obj = int(sel.sum())
         caption = f"id {im['id']} · {n_obj} object{'s' if n_obj != 1 else ''}"
+        if s_im != 1 and (scale is None and len({auto_scale(i["width"], i["height"]) for i in chosen}) > 1):
+            caption += f" · x{s_im:g}" if s_im > 1 else f" · x{s_im:.2f}"
         boxes, colours, dashed = gt_boxes[sel], gt_colours[sel], np.zeros(n_obj, dtype=bool)
         if predictions is not None:
             psel = predictions.image_id == im["id"]
@@ -848,6 +869,8 @@ def contact_sheet(
         return placed, (y + font_px + 8 if items else 0)
 
     truth_label = "truth (solid):" if predictions is not None else "categories:"
+    if len(cat_order) > len(CATEGORY_COLOURS):
+        truth_label = truth_label[:-1] + f" (colours repeat after {len(CATEGORY_COLOURS)}):"
     legend1, h1 = layout_legend(entries, truth_label)
     legend2, h2 = layout_legend(pred_entries, "predictions (dashed):") if predictions is not None else ([], 0)
     title_h = font_px + 3 + 10
@@ -860,6 +883,7 @@ def contact_sheet(
         crops = _zoom_crops(
             ds, chosen, gt_boxes, gt_img, gt_cat, gt_colours, anns, cat_names, predictions, pred_colours,
             side=zoom_side,
+            tile_scales={int(t.image["id"]): t.sx for t in tiles},
             count=zoom_count if zoom_count is not None else 2 * max(1, (sheet_w - 2 * pad + gap) // (zoom_side + gap)),
         )
     zoom_cols = max(1, (sheet_w - 2 * pad + gap) // (zoom_side + gap))
@@ -876,8 +900,9 @@ def contact_sheet(
     shown = "images" if n_img != 1 else "image"
     total = len(ds.coco.get("images", []))
     title = f"{ds.name} · {n_img} of {total} {shown}"
-    if scale != 1:
-        title += f" · shown at x{scale:g}" if scale >= 1 else f" · shown at {scale:.2f}x"
+    scales = {t.sx for t in tiles}
+    if len(scales) == 1 and (only := scales.pop()) != 1:
+        title += f" · shown at x{only:g}" if only >= 1 else f" · shown at x{only:.2f}"
     draw.text((pad, pad), _fit(draw, title, title_font, sheet_w - 2 * pad), fill=_TEXT, font=title_font)
     y_leg = pad + title_h
     for (placed, label, base) in ((legend1, truth_label, y_leg), (legend2, "predictions (dashed):", y_leg + h1)):
@@ -906,10 +931,12 @@ def contact_sheet(
     # Zoom strip
     if zoom:
         y0 = header_h + grid_h + gap
+        limit = f"{_zoom_limit(zoom_side):.0f}"
         if crops:
-            label = f"the {len(crops)} smallest objects (by area) in these images, enlarged with nearest neighbour"
+            label = (f"the {len(crops)} smallest objects (by area; longer side up to {limit} px) in these images, "
+                     "enlarged with nearest neighbour")
         else:
-            label = "no annotated objects to enlarge in these images"
+            label = f"no object in these images is small enough to enlarge (longer side up to {limit} px)"
         draw.text((pad, y0), _fit(draw, label, font, sheet_w - 2 * pad), fill=_MUTED, font=font)
         for i, (pix, line1, line2, where) in enumerate(crops):
             r, c = divmod(i, zoom_cols)
@@ -923,7 +950,12 @@ def contact_sheet(
     return Sheet(np.asarray(sheet), tuple(placed_tiles), tuple(placed_crops))
 
 
-def _zoom_crops(ds, chosen, gt_boxes, gt_img, gt_cat, gt_colours, anns, cat_names, predictions, pred_colours, *, side, count):
+def _zoom_limit(side: int) -> float:
+    """Longest object side (px) that still gets a x2 enlargement in a ``side``-pixel crop."""
+    return side / 6
+
+
+def _zoom_crops(ds, chosen, gt_boxes, gt_img, gt_cat, gt_colours, anns, cat_names, predictions, pred_colours, *, side, count, tile_scales):
     """Enlarged crops, ``side`` x ``side`` px, centred on the smallest objects of the chosen images."""
     ids = [im["id"] for im in chosen]
     sel = np.flatnonzero(np.isin(gt_img, ids))
@@ -932,7 +964,13 @@ def _zoom_crops(ds, chosen, gt_boxes, gt_img, gt_cat, gt_colours, anns, cat_name
     area = np.array([float(anns[i].get("area", 0.0)) if _num(anns[i].get("area")) else 0.0 for i in sel])
     box_area = (gt_boxes[sel, 2] - gt_boxes[sel, 0]) * (gt_boxes[sel, 3] - gt_boxes[sel, 1])
     area = np.where(area > 0, area, box_area)
-    pick = sel[np.argsort(area, kind="stable")[:count]]
+    longer = np.maximum(gt_boxes[sel, 2] - gt_boxes[sel, 0], gt_boxes[sel, 3] - gt_boxes[sel, 1])
+    # only objects that an enlargement helps: at least x2, and more than their tile already shows
+    z_all = np.clip(side // np.maximum(3.0 * longer, 1.0), 2, 32)
+    tile_scale = np.array([tile_scales.get(int(g), 1.0) for g in gt_img[sel]])
+    small = (longer <= _zoom_limit(side)) & (z_all > tile_scale)
+    order = np.argsort(area, kind="stable")
+    pick = sel[order[small[order]][:count]]
     cache: dict[int, np.ndarray] = {}
     by_id = {im["id"]: im for im in chosen}
     out = []
@@ -954,7 +992,7 @@ def _zoom_crops(ds, chosen, gt_boxes, gt_img, gt_cat, gt_colours, anns, cat_name
         n_px = math.ceil((side + (X0 - cx0 * z)) / z) + 1
         m_px = math.ceil((side + (Y0 - cy0 * z)) / z) + 1
         patch = np.empty((m_px, n_px, 3), dtype=np.uint8)
-        patch[:] = _SHEET_BG
+        patch[:] = _OUTSIDE
         sx0, sy0 = max(cx0, 0), max(cy0, 0)
         sx1, sy1 = min(cx0 + n_px, w), min(cy0 + m_px, h)
         if sx1 > sx0 and sy1 > sy0:
@@ -1452,24 +1490,43 @@ def _empty(ax, text: str) -> None:
 # --------------------------------------------------------------------------- saving
 
 
+def _write_file(path, data: bytes) -> None:
+    """Write atomically, then give the file the permissions a plain ``open`` would (umask applied).
+
+    The atomic writer's temporary file is created private (0600); a picture or
+    table for people should be readable like any other file the user makes.
+    """
+    import os
+
+    from synthgen.formats.coco import write_bytes_atomic
+
+    write_bytes_atomic(path, data)
+    mask = os.umask(0)
+    os.umask(mask)
+    os.chmod(path, 0o666 & ~mask)
+
+
 def save_png(image: np.ndarray, path, *, optimize: bool = True) -> None:
     """Write an ``(H, W, 3)`` uint8 array as a PNG, atomically."""
     from PIL import Image
 
-    from synthgen.formats.coco import write_bytes_atomic
-
     buf = io.BytesIO()
     Image.fromarray(np.asarray(image, dtype=np.uint8)).save(buf, format="PNG", optimize=optimize)
-    write_bytes_atomic(path, buf.getvalue())
+    _write_file(path, buf.getvalue())
 
 
 def save_figure(fig, path, *, dpi: int = 100) -> None:
     """Write a matplotlib figure as a PNG of exactly ``figsize * dpi`` pixels, atomically."""
     from matplotlib.backends.backend_agg import FigureCanvasAgg
 
-    from synthgen.formats.coco import write_bytes_atomic
-
     FigureCanvasAgg(fig)
     buf = io.BytesIO()
     fig.savefig(buf, format="png", dpi=dpi)
-    write_bytes_atomic(path, buf.getvalue())
+    _write_file(path, buf.getvalue())
+
+
+def save_json(obj, path) -> None:
+    """Write JSON-ready values (e.g. :func:`dataset_stats` output) indented, atomically."""
+    import orjson
+
+    _write_file(path, orjson.dumps(obj, option=orjson.OPT_INDENT_2 | orjson.OPT_SERIALIZE_NUMPY) + b"\n")

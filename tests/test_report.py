@@ -98,12 +98,14 @@ def test_halo_darkens_only_pixels_outside_the_box():
     assert (out[4:7, 4:7] == 200).all()
 
 
-def test_dashed_outline_is_three_on_two_off_clockwise():
-    """A dashed 10x1-row box colours pixels 0,1,2 then skips 3,4 along its top edge."""
-    img = np.zeros((4, 12, 3), dtype=np.uint8)
-    out = report.draw_boxes(img, [[0, 0, 10, 3]], (255, 255, 255), dashed=True, halo=None)
-    top = np.all(out[0, :10] == 255, axis=-1)
-    assert top.tolist() == [True, True, True, False, False, True, True, True, False, False]
+def test_dashed_outline_is_four_on_three_off_clockwise():
+    """A dashed box colours pixels 0..3 and skips 4..6 along its top edge, with its halo beside the dashes only."""
+    img = np.full((6, 16, 3), 200, dtype=np.uint8)
+    out = report.draw_boxes(img, [[1, 1, 15, 5]], (255, 255, 255), dashed=True, halo=0.5)
+    top = np.all(out[1, 1:15] == 255, axis=-1)
+    assert top.tolist() == [True] * 4 + [False] * 3 + [True] * 4 + [False] * 3
+    above = np.all(out[0, 1:15] == 100, axis=-1)  # the ring row just outside the top edge
+    assert above.tolist() == top.tolist()
 
 
 def test_zoom_crop_draws_a_one_pixel_object_on_the_enlarged_grid(tmp_path):
@@ -365,7 +367,7 @@ def test_show_with_predictions_colours_them_by_kind(known_boxes, tmp_path):
     tile = sheet.pixels[t.top : t.top + t.height, t.left : t.left + t.width]
     bg = _pixels_of(tile, report.PREDICTION_COLOURS["background"])
     ring = _outline_set(14, 0, 17, 3)
-    assert bg <= ring and len(bg) == sum(1 for k in range(len(ring)) if k % 5 < 3)
+    assert bg <= ring and len(bg) == sum(1 for k in range(len(ring)) if k % 7 < 4)
     tp = _pixels_of(tile, report.PREDICTION_COLOURS["true_positive"])
     assert tp and tp < _outline_set(2, 3, 6, 8)  # dashed over the truth, whose colour shows in the gaps
     assert _pixels_of(tile, report.CATEGORY_COLOURS[0]) == _outline_set(2, 3, 6, 8) - tp
@@ -394,3 +396,41 @@ def test_stats_on_a_missing_dataset_exits_2(tmp_path):
     res = run("stats", tmp_path)
     assert res.exit_code == 2
     assert "has no annotations.json" in res.stderr
+
+
+def test_show_with_a_truth_sidecar_uses_its_kinds(known_boxes, tmp_path):
+    """`--pred` with `--truth` colours each prediction by the sidecar's kind, not by matching."""
+    preds = [{"image_id": 1, "category_id": 1, "bbox": [2, 3, 5, 6], "score": 0.9}]
+    (tmp_path / "p.json").write_text(json.dumps(preds))
+    (tmp_path / "t.json").write_text(json.dumps({"predictions": [{"kind": "duplicate"}]}))
+    res = run("show", known_boxes.root, "--out", tmp_path / "s.png", "--pred", tmp_path / "p.json",
+              "--truth", tmp_path / "t.json", "--scale", 1)
+    assert res.exit_code == 0, res.output
+    sheet = np.asarray(Image.open(tmp_path / "s.png").convert("RGB"))
+    p = report.read_predictions(tmp_path / "p.json")
+    p = report.Predictions(p.boxes, p.image_id, p.category_id, p.score, ("duplicate",))
+    t = report.contact_sheet(known_boxes, scale=1, predictions=p).tiles[0]  # same layout, for the tile's place
+    assert np.array_equal(report.contact_sheet(known_boxes, scale=1, predictions=p).pixels, sheet)
+    tile = sheet[t.top : t.top + t.height, t.left : t.left + t.width]
+    assert _pixels_of(tile, report.PREDICTION_COLOURS["duplicate"]) < _outline_set(2, 3, 6, 8)
+    assert not _pixels_of(tile, report.PREDICTION_COLOURS["true_positive"])
+
+
+def test_show_names_a_missing_image_file(known_boxes, tmp_path):
+    """An image the annotations list but the disk lacks is bad input naming the file."""
+    (known_boxes.root / "images" / "a.png").unlink()
+    res = run("show", known_boxes.root, "--out", tmp_path / "s.png")
+    assert res.exit_code == 2
+    assert "a.png" in res.stderr
+
+
+def test_saved_pictures_are_readable_by_others(tmp_path):
+    """Sheets are written with the umask's permissions, not the private mode of a temporary file."""
+    import os
+
+    old = os.umask(0o022)
+    try:
+        report.save_png(np.zeros((4, 4, 3), dtype=np.uint8), tmp_path / "x.png")
+    finally:
+        os.umask(old)
+    assert (tmp_path / "x.png").stat().st_mode & 0o777 == 0o644
