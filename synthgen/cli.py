@@ -150,18 +150,50 @@ def _parse_ids(text: str) -> list[int]:
     return ids
 
 
+DatasetArg = Annotated[
+    Path,
+    typer.Argument(help="Dataset directory (with annotations.json) or a COCO JSON file.", show_default=False),
+]
+
+
 @app.command()
 @reported
 def show(
-    dataset: Annotated[Path, typer.Argument(help="Dataset directory (with annotations.json) or a COCO JSON file.", show_default=False)],
+    dataset: DatasetArg,
     out: Annotated[Path, typer.Option("--out", "-o", help="Contact sheet to write (PNG).")] = ...,
-    images: Annotated[int, typer.Option("--images", "-n", help="Number of images: the first N by image id.", min=1)] = 16,
-    ids: Annotated[Optional[str], typer.Option("--ids", help="Comma-separated COCO image ids to show, e.g. 3,7,9 (instead of --images).")] = None,
-    pred: Annotated[Optional[Path], typer.Option("--pred", help="COCO results file of predictions, drawn dashed and coloured by what each is.")] = None,
-    truth: Annotated[Optional[Path], typer.Option("--truth", help="Truth sidecar from `synthgen jitter` saying what each prediction is (default: match at IoU 0.5).")] = None,
-    zoom: Annotated[bool, typer.Option("--zoom", help="Add enlarged crops of the smallest objects (nearest neighbour).")] = False,
-    cols: Annotated[Optional[int], typer.Option("--cols", help="Tiles per row (default: about the square root of the count).", min=1)] = None,
-    scale: Annotated[Optional[float], typer.Option("--scale", help="Tile pixels per image pixel (default: enlarge small images by a whole factor).", min=0.05, max=32)] = None,
+    images: Annotated[
+        int, typer.Option("--images", "-n", help="Number of images: the first N by image id.", min=1)
+    ] = 16,
+    ids: Annotated[
+        Optional[str],
+        typer.Option("--ids", help="Comma-separated COCO image ids to show, e.g. 3,7,9 (instead of --images)."),
+    ] = None,
+    pred: Annotated[
+        Optional[Path],
+        typer.Option("--pred", help="COCO results file; predictions are drawn dashed, coloured by what each is."),
+    ] = None,
+    truth: Annotated[
+        Optional[Path],
+        typer.Option(
+            "--truth",
+            help="Sidecar from `synthgen jitter` saying what each prediction is (default: match at IoU 0.5).",
+        ),
+    ] = None,
+    zoom: Annotated[
+        bool, typer.Option("--zoom", help="Add enlarged crops of the smallest objects (nearest neighbour).")
+    ] = False,
+    cols: Annotated[
+        Optional[int], typer.Option("--cols", help="Tiles per row (default: about the square root of the count).", min=1)
+    ] = None,
+    scale: Annotated[
+        Optional[float],
+        typer.Option(
+            "--scale",
+            help="Tile pixels per image pixel (default: small images enlarged by a whole factor, large shrunk).",
+            min=0.05,
+            max=32,
+        ),
+    ] = None,
 ) -> None:
     """Draw a contact sheet: images in a grid with their boxes, ids and a legend."""
     from synthgen import report
@@ -183,7 +215,9 @@ def show(
         else:
             predictions, _ = report.classify_predictions(ds.coco, predictions)
             how = ", kinds by matching at IoU 0.5"
-    sheet = report.contact_sheet(ds, n=images, ids=id_list, cols=cols, scale=scale, predictions=predictions, zoom=zoom)
+    sheet = report.contact_sheet(
+        ds, n=images, ids=id_list, cols=cols, scale=scale, predictions=predictions, zoom=zoom
+    )
     report.save_png(sheet.pixels, out)
     shown = len(id_list) if id_list is not None else min(images, len(ds.coco["images"]))
     extra = f", {len(predictions)} predictions{how}" if predictions is not None else ""
@@ -193,9 +227,13 @@ def show(
 @app.command()
 @reported
 def stats(
-    dataset: Annotated[Path, typer.Argument(help="Dataset directory (with annotations.json) or a COCO JSON file.", show_default=False)],
-    json_out: Annotated[Optional[Path], typer.Option("--json", help="Also write the statistics as JSON to this file.")] = None,
-    plot: Annotated[Optional[Path], typer.Option("--plot", help="Also write a figure of histograms (PNG, 1200x700 px).")] = None,
+    dataset: DatasetArg,
+    json_out: Annotated[
+        Optional[Path], typer.Option("--json", help="Also write the statistics as JSON to this file.")
+    ] = None,
+    plot: Annotated[
+        Optional[Path], typer.Option("--plot", help="Also write a figure of histograms (PNG, 1200x700 px).")
+    ] = None,
 ) -> None:
     """Summarise a dataset: counts, sizes, COCO area ranges, visibility, overlap, settings used."""
     from rich.console import Console
@@ -209,7 +247,8 @@ def stats(
         report.save_json(result, json_out)
         typer.echo(f"wrote {json_out}")
     if plot is not None:
-        fig = report.stats_figure(ds.coco, title=f"{ds.name}: {result['images']} images, {result['objects']} objects")
+        title = f"{ds.name}: {result['images']} images, {result['objects']} objects"
+        fig = report.stats_figure(ds.coco, title=title)
         report.save_figure(fig, plot)
         typer.echo(f"wrote {plot}")
 

@@ -271,10 +271,12 @@ def read_predictions(path) -> Predictions:
             raise InputFileError(path, f"record {i} must be an object (got {type(r).__name__})")
         for key in ("image_id", "category_id"):
             if not (isinstance(r.get(key), int) and not isinstance(r.get(key), bool)):
-                raise InputFileError(path, f"record {i}: '{key}' must be an integer (got {r.get(key, '<missing>')!r})")
+                got = r.get(key, "<missing>")
+                raise InputFileError(path, f"record {i}: '{key}' must be an integer (got {got!r})")
         b = r.get("bbox")
         if not (isinstance(b, list) and len(b) == 4 and all(_num(v) for v in b) and b[2] >= 0 and b[3] >= 0):
-            raise InputFileError(path, f"record {i}: 'bbox' must be 4 finite numbers [x, y, w, h] with w, h >= 0 (got {b!r})")
+            rule = "'bbox' must be 4 finite numbers [x, y, w, h] with w, h >= 0"
+            raise InputFileError(path, f"record {i}: {rule} (got {b!r})")
         if "score" in r and not _num(r["score"]):
             raise InputFileError(path, f"record {i}: 'score' must be a finite number (got {r['score']!r})")
     n = len(data)
@@ -374,9 +376,11 @@ def read_truth_sidecar(path, n_predictions: int) -> tuple[str, ...]:
             raise InputFileError(
                 path, f"record {i}: the kind must be one of {', '.join(PREDICTION_KINDS)} (got {raw!r})"
             )
-        j = next((r[k] for k in _SIDECAR_INDEX_KEYS if isinstance(r.get(k), int) and not isinstance(r.get(k), bool)), i)
+        j = next((r[k] for k in _SIDECAR_INDEX_KEYS if type(r.get(k)) is int), i)
         if not 0 <= j < n_predictions:
-            raise InputFileError(path, f"record {i} refers to prediction {j}, but the predictions file has {n_predictions}")
+            raise InputFileError(
+                path, f"record {i} refers to prediction {j}, but the predictions file has {n_predictions}"
+            )
         kinds[j] = kind
     missing = [j for j, k in enumerate(kinds) if k is None]
     if missing:
@@ -732,24 +736,178 @@ class Sheet:
 
 
 @dataclass(frozen=True, slots=True)
+class _Overlay:
+    """Everything drawn over the images: truth boxes by category, predictions by kind."""
+
+    boxes: np.ndarray  # (N, 4) truth, xyxy
+    image_id: np.ndarray  # (N,)
+    category_id: np.ndarray  # (N,)
+    colours: np.ndarray  # (N, 3) uint8
+    area: np.ndarray  # (N,) the annotation's area, or its box's where it has none
+    category_names: dict
+    predictions: Predictions | None
+    pred_colours: np.ndarray | None  # (P, 3) uint8
+
+    @classmethod
+    def build(cls, coco: Mapping, predictions: Predictions | None) -> _Overlay:
+        boxes, img, cat, _, anns = _truth_arrays(coco)
+        cats = sorted(coco.get("categories", []), key=lambda c: c["id"])
+        order = {c["id"]: i for i, c in enumerate(cats)}
+        colours = np.array([_category_colour(order.get(int(c), len(order))) for c in cat], dtype=np.uint8)
+        box_area = (boxes[:, 2] - boxes[:, 0]) * (boxes[:, 3] - boxes[:, 1])
+        area = np.array([float(a["area"]) if _num(a.get("area")) and a["area"] > 0 else b
+                         for a, b in zip(anns, box_area)])
+        pred_colours = None
+        if predictions is not None:
+            pred_colours = np.array([PREDICTION_COLOURS.get(k, _MUTED) for k in predictions.kind], dtype=np.uint8)
+        return cls(
+            boxes, img, cat, colours.reshape(-1, 3), area, {c["id"]: c["name"] for c in cats},
+            predictions, None if pred_colours is None else pred_colours.reshape(-1, 3),
+        )
+
+    def for_image(self, image_id: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Boxes (K, 4), colours (K, 3) and dashed flags (K,) of one image: truth first, then predictions."""
+        sel = self.image_id == image_id
+        boxes, colours, dashed = self.boxes[sel], self.colours[sel], np.zeros(int(sel.sum()), dtype=bool)
+        if self.predictions is not None:
+            psel = self.predictions.image_id == image_id
+            boxes = np.concatenate([boxes, self.predictions.boxes[psel]])
+            colours = np.concatenate([colours, self.pred_colours[psel]])
+            dashed = np.r_[dashed, np.ones(int(psel.sum()), dtype=bool)]
+        return boxes, colours, dashed
+
+
+@dataclass(frozen=True, slots=True)
 class _Tile:
-    image: dict
+    image_id: int
     pixels: np.ndarray  # (h, w, 3) with boxes drawn
     caption: str
     sx: float
     sy: float
 
 
-def _legend_entries(coco: Mapping, used_cats: set, with_preds: bool, kinds_used: set):
-    cats = sorted(coco.get("categories", []), key=lambda c: c["id"])
-    order = {c["id"]: i for i, c in enumerate(cats)}
-    entries = [(c["name"], _category_colour(order[c["id"]]), False) for c in cats if c["id"] in used_cats]
-    pred_entries = []
-    if with_preds:
-        pred_entries = [(_KIND_LABELS[k], PREDICTION_COLOURS[k], True) for k in PREDICTION_KINDS if k in kinds_used]
-        if kinds_used - set(PREDICTION_KINDS):
-            pred_entries.append(("unclassified", _MUTED, True))
-    return entries, pred_entries, order
+def _render_tile(ds: Dataset, image: Mapping, overlay: _Overlay, scale: float, show_factor: bool) -> _Tile:
+    """One image at ``scale`` with its boxes drawn, and its caption."""
+    pix, sx, sy = _scaled(_load_image(ds, image), scale)
+    image_id = int(image["id"])
+    boxes, colours, dashed = overlay.for_image(image_id)
+    n_obj = int(np.count_nonzero(overlay.image_id == image_id))
+    caption = f"id {image_id} · {n_obj} object{'s' if n_obj != 1 else ''}"
+    if show_factor and scale != 1:
+        caption += f" · x{scale:g}" if scale > 1 else f" · x{scale:.2f}"
+    p = overlay.predictions
+    if p is not None:
+        kinds = Counter(k for k, i in zip(p.kind, p.image_id) if i == image_id)
+        caption += f" · {sum(kinds.values())} pred, {kinds.get('true_positive', 0)} TP"
+    return _Tile(image_id, draw_boxes(pix, boxes, colours, sx=sx, sy=sy, dashed=dashed), caption, sx, sy)
+
+
+#: Side of a zoom crop on the sheet, px.
+_ZOOM_SIDE = 128
+
+
+def _zoom_limit(side: int) -> float:
+    """Longest object side (px) that still gets a x2 enlargement in a ``side``-pixel crop."""
+    return side / 6
+
+
+def _zoom_factor(longer, side: int):
+    """Whole enlargement in [2, 32] that makes an object about a third of the crop."""
+    return np.clip(side // np.maximum(3.0 * np.asarray(longer, dtype=float), 1.0), 2, 32).astype(int)
+
+
+def _enlarged_crop(img: np.ndarray, centre: tuple[float, float], z: int, side: int) -> tuple[np.ndarray, float, float]:
+    """A ``side`` x ``side`` crop of ``img`` enlarged ``z`` times (nearest neighbour), centred on ``centre``.
+
+    Image pixels stay whole ``z`` x ``z`` blocks; the window may start inside a
+    block so that the centre lands in the middle.  Outside the image is
+    :data:`_OUTSIDE`.  Returns the crop and the image coordinates ``(ox, oy)``
+    of its top-left corner, so a point ``x`` lands on column ``(x - ox) * z``.
+    """
+    h, w = img.shape[:2]
+    X0 = round(centre[0] * z - side / 2)  # crop origin in the enlarged image, px
+    Y0 = round(centre[1] * z - side / 2)
+    c0, r0 = X0 // z, Y0 // z  # first image column / row in the crop
+    n_c = math.ceil((side + X0 - c0 * z) / z) + 1
+    n_r = math.ceil((side + Y0 - r0 * z) / z) + 1
+    patch = np.empty((n_r, n_c, 3), dtype=np.uint8)
+    patch[:] = _OUTSIDE
+    a0, b0, a1, b1 = max(c0, 0), max(r0, 0), min(c0 + n_c, w), min(r0 + n_r, h)
+    if a1 > a0 and b1 > b0:
+        patch[b0 - r0 : b1 - r0, a0 - c0 : a1 - c0] = img[b0:b1, a0:a1]
+    big = np.repeat(np.repeat(patch, z, axis=0), z, axis=1)
+    big = big[Y0 - r0 * z : Y0 - r0 * z + side, X0 - c0 * z : X0 - c0 * z + side]
+    return big, X0 / z, Y0 / z
+
+
+def _zoom_crops(ds: Dataset, chosen, overlay: _Overlay, tile_scales: dict, count: int, side: int = _ZOOM_SIDE):
+    """Enlarged crops of the smallest objects of the chosen images: (pixels, line 1, line 2, Placement)."""
+    ids = [int(im["id"]) for im in chosen]
+    sel = np.flatnonzero(np.isin(overlay.image_id, ids))
+    if sel.size == 0 or count <= 0:
+        return []
+    b = overlay.boxes[sel]
+    longer = np.maximum(b[:, 2] - b[:, 0], b[:, 3] - b[:, 1])
+    # only objects an enlargement helps: at least x2, and more than their tile already shows
+    tile_scale = np.array([tile_scales.get(int(g), 1.0) for g in overlay.image_id[sel]])
+    helps = (longer <= _zoom_limit(side)) & (_zoom_factor(longer, side) > tile_scale)
+    order = np.argsort(overlay.area[sel], kind="stable")
+    pick = sel[order[helps[order]][:count]]
+    by_id = {int(im["id"]): im for im in chosen}
+    cache: dict[int, np.ndarray] = {}
+    out = []
+    for i in pick:
+        image_id = int(overlay.image_id[i])
+        if image_id not in cache:
+            cache[image_id] = _load_image(ds, by_id[image_id])
+        x0, y0, x1, y1 = overlay.boxes[i]
+        z = int(_zoom_factor(max(x1 - x0, y1 - y0), side))
+        big, ox, oy = _enlarged_crop(cache[image_id], ((x0 + x1) / 2, (y0 + y1) / 2), z, side)
+        boxes, colours, dashed = overlay.for_image(image_id)
+        big = draw_boxes(big, boxes, colours, sx=z, ox=ox, oy=oy, dashed=dashed)
+        cat = int(overlay.category_id[i])
+        name = overlay.category_names.get(cat, str(cat))
+        where = Placement(image_id, 0, 0, side, side, float(z), float(z), ox, oy, int(i))
+        out.append((big, f"id {image_id} · {name}", f"{x1 - x0:.1f} x {y1 - y0:.1f} px · x{z}", where))
+    return out
+
+
+@dataclass(frozen=True, slots=True)
+class _Fonts:
+    px: int
+    text: object
+    small: object
+    title: object
+
+    @classmethod
+    def for_width(cls, tile_w: int) -> _Fonts:
+        px = 14 if tile_w >= 240 else 12
+        return cls(px, _font(px), _font(px - 1), _font(px + 3))
+
+
+def _legend_rows(draw, label: str, items, fonts: _Fonts, left: int, right: int):
+    """Place legend items (name, rgb, dashed) after ``label``, wrapping at ``right``: (placed, height)."""
+    if not items:
+        return [], 0
+    indent = left + _text_width(draw, label, fonts.text) + 10
+    placed, x, y = [], indent, 0
+    for name, rgb, dashed in items:
+        w = 26 + _text_width(draw, name, fonts.text) + 16
+        if x + w > right and x > indent:
+            x, y = indent, y + fonts.px + 8
+        placed.append((x, y, name, rgb, dashed))
+        x += w
+    return placed, y + fonts.px + 8
+
+
+def _draw_legend(draw, label: str, placed, top: int, left: int, fonts: _Fonts) -> None:
+    draw.text((left, top), label, fill=_MUTED, font=fonts.text)
+    for x, y, name, rgb, dashed in placed:
+        yy = top + y + fonts.px // 2 + 1
+        for k in range(20):  # a line sample, dashed like the boxes it stands for
+            if not dashed or (k % sum(_DASH)) < _DASH[0]:
+                draw.rectangle([x + k, yy - 1, x + k, yy + 1], fill=tuple(int(v) for v in rgb))
+        draw.text((x + 26, top + y), name, fill=_TEXT, font=fonts.text)
 
 
 def contact_sheet(
@@ -762,7 +920,7 @@ def contact_sheet(
     predictions: Predictions | None = None,
     zoom: bool = False,
     zoom_count: int | None = None,
-) -> np.ndarray:
+) -> Sheet:
     """A grid of a dataset's images with their boxes drawn on top.
 
     Parameters
@@ -777,16 +935,18 @@ def contact_sheet(
     scale : float, optional
         Tile pixels per image pixel, the same for every image (default:
         :func:`auto_scale` of each image, so images of mixed sizes each get
-        their own; the caption then gives the factor).  Whole factors repeat pixels; boxes are drawn on the
-        scaled grid as :func:`outline_pixels` says.
+        their own, and the captions give the factor).  Whole factors repeat
+        pixels; boxes are drawn on the scaled grid as :func:`outline_pixels`
+        says.
     predictions : Predictions, optional
         Drawn dashed over the truth, coloured by ``kind``
         (:data:`PREDICTION_COLOURS`).
     zoom : bool
         Add a strip of the smallest objects among the shown images (longer
-        side up to 21 px), enlarged with nearest neighbour by a whole factor
-        (2 to 32) so each spans about a third of its 128-pixel crop, boxes
-        drawn on the enlarged grid.
+        side up to 21 px, and only where the crop enlarges more than the tile
+        does), enlarged with nearest neighbour by a whole factor (2 to 32) so
+        each spans about a third of its 128-pixel crop, boxes drawn on the
+        enlarged grid.
     zoom_count : int, optional
         Number of crops (default: two rows' worth).
 
@@ -798,220 +958,101 @@ def contact_sheet(
     Raises
     ------
     synthgen.errors.UserError
-        When an id is not in the dataset or there are no images.
+        When an id is not in the dataset, there are no images, or an image
+        file is missing or unreadable.
     """
     from PIL import Image, ImageDraw
 
     chosen = _select_images(ds.coco, n, ids)
     if not chosen:
         raise InputFileError(ds.source, "has no images to show")
-    gt_boxes, gt_img, gt_cat, _, anns = _truth_arrays(ds.coco)
-    cats = sorted(ds.coco.get("categories", []), key=lambda c: c["id"])
-    cat_order = {c["id"]: i for i, c in enumerate(cats)}
-    cat_names = {c["id"]: c["name"] for c in cats}
-    gt_colours = np.array([_category_colour(cat_order.get(int(c), len(cat_order))) for c in gt_cat], dtype=np.uint8).reshape(-1, 3)
-    pred_colours = None
-    if predictions is not None:
-        pred_colours = np.array([PREDICTION_COLOURS.get(k, _MUTED) for k in predictions.kind], dtype=np.uint8).reshape(-1, 3)
+    overlay = _Overlay.build(ds.coco, predictions)
+    auto = {int(im["id"]): auto_scale(im["width"], im["height"]) for im in chosen}
+    mixed = scale is None and len(set(auto.values())) > 1
+    tiles = [_render_tile(ds, im, overlay, auto[int(im["id"])] if scale is None else scale, mixed) for im in chosen]
 
-    n_img = len(chosen)
-    if cols is None:
-        cols = max(1, math.ceil(math.sqrt(n_img)))
-    cols = min(cols, n_img)
-    rows = math.ceil(n_img / cols)
-
-    # Tiles
-    tiles: list[_Tile] = []
-    for im in chosen:
-        s_im = scale if scale is not None else auto_scale(im["width"], im["height"])
-        pix, sx, sy = _scaled(_load_image(ds, im), s_im)
-        sel = gt_img == im["id"]
-        n_obj = int(sel.sum())
-        caption = f"id {im['id']} · {n_obj} object{'s' if n_obj != 1 else ''}"
-        if s_im != 1 and (scale is None and len({auto_scale(i["width"], i["height"]) for i in chosen}) > 1):
-            caption += f" · x{s_im:g}" if s_im > 1 else f" · x{s_im:.2f}"
-        boxes, colours, dashed = gt_boxes[sel], gt_colours[sel], np.zeros(n_obj, dtype=bool)
-        if predictions is not None:
-            psel = predictions.image_id == im["id"]
-            boxes = np.concatenate([boxes, predictions.boxes[psel]])
-            colours = np.concatenate([colours, pred_colours[psel]])
-            dashed = np.r_[dashed, np.ones(int(psel.sum()), dtype=bool)]
-            kinds = Counter(k for k, s in zip(predictions.kind, psel) if s)
-            caption += f" · {int(psel.sum())} pred, {kinds.get('true_positive', 0)} TP"
-        pix = draw_boxes(pix, boxes, colours, sx=sx, sy=sy, dashed=dashed)
-        tiles.append(_Tile(im, pix, caption, sx, sy))
-
+    cols = min(cols or max(1, math.ceil(math.sqrt(len(tiles)))), len(tiles))
+    rows = math.ceil(len(tiles) / cols)
     tile_w = max(t.pixels.shape[1] for t in tiles)
     tile_h = max(t.pixels.shape[0] for t in tiles)
-    font_px = 14 if tile_w >= 240 else 12
-    font, small_font = _font(font_px), _font(font_px - 1)
-    title_font = _font(font_px + 3)
-    pad, gap = 12, 10
-    cap_h = font_px + 8
+    fonts = _Fonts.for_width(tile_w)
+    pad, gap, cap_h, title_h = 12, 10, fonts.px + 8, fonts.px + 13
     sheet_w = max(pad * 2 + cols * tile_w + (cols - 1) * gap, 520)
 
-    # Legend layout (wrapping rows of swatch + name)
+    # Legend: the categories present in these images, then the prediction kinds present
     probe = ImageDraw.Draw(Image.new("RGB", (8, 8)))
-    used = {int(c) for c in gt_cat[np.isin(gt_img, [im["id"] for im in chosen])]}
-    kinds_used = set(predictions.kind) if predictions is not None else set()
-    entries, pred_entries, _ = _legend_entries(ds.coco, used, predictions is not None, kinds_used)
-
-    def layout_legend(items, label):
-        placed, x, y = [], pad, 0
-        lw = _text_width(probe, label, font) + 10
-        x += lw
-        for name, rgb, dashed in items:
-            w = 26 + _text_width(probe, name, font) + 16
-            if x + w > sheet_w - pad and x > pad + lw:
-                x, y = pad + lw, y + font_px + 8
-            placed.append((x, y, name, rgb, dashed))
-            x += w
-        return placed, (y + font_px + 8 if items else 0)
-
+    cats = sorted(ds.coco.get("categories", []), key=lambda c: c["id"])
+    present = set(overlay.category_id[np.isin(overlay.image_id, list(auto))].tolist())
+    cat_items = [(c["name"], _category_colour(i), False) for i, c in enumerate(cats) if c["id"] in present]
     truth_label = "truth (solid):" if predictions is not None else "categories:"
-    if len(cat_order) > len(CATEGORY_COLOURS):
+    if len(cats) > len(CATEGORY_COLOURS):
         truth_label = truth_label[:-1] + f" (colours repeat after {len(CATEGORY_COLOURS)}):"
-    legend1, h1 = layout_legend(entries, truth_label)
-    legend2, h2 = layout_legend(pred_entries, "predictions (dashed):") if predictions is not None else ([], 0)
-    title_h = font_px + 3 + 10
+    pred_label, pred_items = "predictions (dashed):", []
+    if predictions is not None:
+        kinds = set(predictions.kind)
+        pred_items = [(_KIND_LABELS[k], PREDICTION_COLOURS[k], True) for k in PREDICTION_KINDS if k in kinds]
+        if kinds - set(PREDICTION_KINDS):
+            pred_items.append(("unclassified", _MUTED, True))
+    legend1, h1 = _legend_rows(probe, truth_label, cat_items, fonts, pad, sheet_w - pad)
+    legend2, h2 = _legend_rows(probe, pred_label, pred_items, fonts, pad, sheet_w - pad)
+    h1 = h1 or fonts.px + 8  # room for "no annotated objects"
     header_h = pad + title_h + h1 + h2 + 6
 
-    # Zoom strip
-    crops: list[tuple[np.ndarray, str, str, Placement]] = []
-    zoom_side = 128
+    crops = []
+    zoom_cols = max(1, (sheet_w - 2 * pad + gap) // (_ZOOM_SIDE + gap))
     if zoom:
-        crops = _zoom_crops(
-            ds, chosen, gt_boxes, gt_img, gt_cat, gt_colours, anns, cat_names, predictions, pred_colours,
-            side=zoom_side,
-            tile_scales={int(t.image["id"]): t.sx for t in tiles},
-            count=zoom_count if zoom_count is not None else 2 * max(1, (sheet_w - 2 * pad + gap) // (zoom_side + gap)),
-        )
-    zoom_cols = max(1, (sheet_w - 2 * pad + gap) // (zoom_side + gap))
-    zoom_rows = math.ceil(len(crops) / zoom_cols) if crops else 0
-    zoom_cap = 2 * (font_px - 1) + 8
-    zoom_h = (title_h + zoom_rows * (zoom_side + zoom_cap + gap)) if zoom else 0
+        scales = {t.image_id: t.sx for t in tiles}
+        crops = _zoom_crops(ds, chosen, overlay, scales, zoom_count if zoom_count is not None else 2 * zoom_cols)
+    zoom_cap = 2 * fonts.px + 6
+    zoom_h = title_h + math.ceil(len(crops) / zoom_cols) * (_ZOOM_SIDE + zoom_cap + gap) if zoom else 0
 
     grid_h = rows * (tile_h + cap_h) + (rows - 1) * gap
-    sheet_h = header_h + grid_h + (gap + zoom_h if zoom else 0) + pad
-    sheet = Image.new("RGB", (sheet_w, sheet_h), _SHEET_BG)
+    sheet = Image.new("RGB", (sheet_w, header_h + grid_h + (gap + zoom_h if zoom else 0) + pad), _SHEET_BG)
     draw = ImageDraw.Draw(sheet)
 
-    # Header: title and legend
-    shown = "images" if n_img != 1 else "image"
     total = len(ds.coco.get("images", []))
-    title = f"{ds.name} · {n_img} of {total} {shown}"
-    scales = {t.sx for t in tiles}
-    if len(scales) == 1 and (only := scales.pop()) != 1:
-        title += f" · shown at x{only:g}" if only >= 1 else f" · shown at x{only:.2f}"
-    draw.text((pad, pad), _fit(draw, title, title_font, sheet_w - 2 * pad), fill=_TEXT, font=title_font)
-    y_leg = pad + title_h
-    for (placed, label, base) in ((legend1, truth_label, y_leg), (legend2, "predictions (dashed):", y_leg + h1)):
-        if not placed:
-            if label == truth_label and not entries:
-                draw.text((pad, base), "no annotated objects in these images", fill=_MUTED, font=font)
-            continue
-        draw.text((pad, base), label, fill=_MUTED, font=font)
-        for x, y, name, rgb, dashed in placed:
-            yy = base + y + font_px // 2 + 1
-            for k in range(20):
-                if not dashed or (k % sum(_DASH)) < _DASH[0]:
-                    draw.rectangle([x + k, yy - 1, x + k, yy + 1], fill=tuple(int(v) for v in rgb))
-            draw.text((x + 26, base + y), name, fill=_TEXT, font=font)
+    title = f"{ds.name} · {len(tiles)} of {total} image{'s' if total != 1 else ''}"
+    if not mixed and tiles[0].sx != 1:
+        title += f" · shown at x{tiles[0].sx:g}" if tiles[0].sx > 1 else f" · shown at x{tiles[0].sx:.2f}"
+    draw.text((pad, pad), _fit(draw, title, fonts.title, sheet_w - 2 * pad), fill=_TEXT, font=fonts.title)
+    if legend1:
+        _draw_legend(draw, truth_label, legend1, pad + title_h, pad, fonts)
+    else:
+        draw.text((pad, pad + title_h), "no annotated objects in these images", fill=_MUTED, font=fonts.text)
+    if legend2:
+        _draw_legend(draw, pred_label, legend2, pad + title_h + h1, pad, fonts)
 
-    # Grid
-    placed_tiles, placed_crops = [], []
+    placed_tiles = []
     for i, t in enumerate(tiles):
         r, c = divmod(i, cols)
-        x = pad + c * (tile_w + gap)
-        y = header_h + r * (tile_h + cap_h + gap)
+        x, y = pad + c * (tile_w + gap), header_h + r * (tile_h + cap_h + gap)
         sheet.paste(Image.fromarray(t.pixels), (x, y))
-        placed_tiles.append(Placement(int(t.image["id"]), x, y, t.pixels.shape[1], t.pixels.shape[0], t.sx, t.sy))
-        draw.text((x, y + t.pixels.shape[0] + 3), _fit(draw, t.caption, font, tile_w), fill=_TEXT, font=font)
+        h, w = t.pixels.shape[:2]
+        placed_tiles.append(Placement(t.image_id, x, y, w, h, t.sx, t.sy))
+        draw.text((x, y + h + 3), _fit(draw, t.caption, fonts.text, tile_w), fill=_TEXT, font=fonts.text)
 
-    # Zoom strip
+    placed_crops = []
     if zoom:
         y0 = header_h + grid_h + gap
-        limit = f"{_zoom_limit(zoom_side):.0f}"
+        limit = f"{_zoom_limit(_ZOOM_SIDE):.0f}"
         if crops:
             label = (f"the {len(crops)} smallest objects (by area; longer side up to {limit} px) in these images, "
                      "enlarged with nearest neighbour")
         else:
             label = f"no object in these images is small enough to enlarge (longer side up to {limit} px)"
-        draw.text((pad, y0), _fit(draw, label, font, sheet_w - 2 * pad), fill=_MUTED, font=font)
+        draw.text((pad, y0), _fit(draw, label, fonts.text, sheet_w - 2 * pad), fill=_MUTED, font=fonts.text)
         for i, (pix, line1, line2, where) in enumerate(crops):
             r, c = divmod(i, zoom_cols)
-            x = pad + c * (zoom_side + gap)
-            y = y0 + title_h + r * (zoom_side + zoom_cap + gap)
+            x = pad + c * (_ZOOM_SIDE + gap)
+            y = y0 + title_h + r * (_ZOOM_SIDE + zoom_cap + gap)
             sheet.paste(Image.fromarray(pix), (x, y))
             placed_crops.append(Placement(where.image_id, x, y, where.width, where.height, where.sx, where.sy,
                                           where.ox, where.oy, where.annotation))
-            draw.text((x, y + zoom_side + 2), _fit(draw, line1, small_font, zoom_side), fill=_TEXT, font=small_font)
-            draw.text((x, y + zoom_side + font_px + 1), _fit(draw, line2, small_font, zoom_side), fill=_MUTED, font=small_font)
+            draw.text((x, y + _ZOOM_SIDE + 2), _fit(draw, line1, fonts.small, _ZOOM_SIDE),
+                      fill=_TEXT, font=fonts.small)
+            draw.text((x, y + _ZOOM_SIDE + fonts.px + 2), _fit(draw, line2, fonts.small, _ZOOM_SIDE),
+                      fill=_MUTED, font=fonts.small)
     return Sheet(np.asarray(sheet), tuple(placed_tiles), tuple(placed_crops))
-
-
-def _zoom_limit(side: int) -> float:
-    """Longest object side (px) that still gets a x2 enlargement in a ``side``-pixel crop."""
-    return side / 6
-
-
-def _zoom_crops(ds, chosen, gt_boxes, gt_img, gt_cat, gt_colours, anns, cat_names, predictions, pred_colours, *, side, count, tile_scales):
-    """Enlarged crops, ``side`` x ``side`` px, centred on the smallest objects of the chosen images."""
-    ids = [im["id"] for im in chosen]
-    sel = np.flatnonzero(np.isin(gt_img, ids))
-    if sel.size == 0 or count <= 0:
-        return []
-    area = np.array([float(anns[i].get("area", 0.0)) if _num(anns[i].get("area")) else 0.0 for i in sel])
-    box_area = (gt_boxes[sel, 2] - gt_boxes[sel, 0]) * (gt_boxes[sel, 3] - gt_boxes[sel, 1])
-    area = np.where(area > 0, area, box_area)
-    longer = np.maximum(gt_boxes[sel, 2] - gt_boxes[sel, 0], gt_boxes[sel, 3] - gt_boxes[sel, 1])
-    # only objects that an enlargement helps: at least x2, and more than their tile already shows
-    z_all = np.clip(side // np.maximum(3.0 * longer, 1.0), 2, 32)
-    tile_scale = np.array([tile_scales.get(int(g), 1.0) for g in gt_img[sel]])
-    small = (longer <= _zoom_limit(side)) & (z_all > tile_scale)
-    order = np.argsort(area, kind="stable")
-    pick = sel[order[small[order]][:count]]
-    cache: dict[int, np.ndarray] = {}
-    by_id = {im["id"]: im for im in chosen}
-    out = []
-    for i in pick:
-        image_id = int(gt_img[i])
-        if image_id not in cache:
-            cache[image_id] = _load_image(ds, by_id[image_id])
-        img = cache[image_id]
-        h, w = img.shape[:2]
-        x0, y0, x1, y1 = gt_boxes[i]
-        longer = max(x1 - x0, y1 - y0)
-        # enlarge so the object spans about a third of the crop, by a whole factor in [2, 32]
-        z = int(np.clip(side // max(3.0 * longer, 1.0), 2, 32))
-        # Crop window in the z-times enlarged image, centred on the object; image
-        # pixels stay whole z x z blocks because the window starts anywhere.
-        X0 = round((x0 + x1) / 2 * z - side / 2)
-        Y0 = round((y0 + y1) / 2 * z - side / 2)
-        cx0, cy0 = X0 // z, Y0 // z  # first image pixel column / row in the crop
-        n_px = math.ceil((side + (X0 - cx0 * z)) / z) + 1
-        m_px = math.ceil((side + (Y0 - cy0 * z)) / z) + 1
-        patch = np.empty((m_px, n_px, 3), dtype=np.uint8)
-        patch[:] = _OUTSIDE
-        sx0, sy0 = max(cx0, 0), max(cy0, 0)
-        sx1, sy1 = min(cx0 + n_px, w), min(cy0 + m_px, h)
-        if sx1 > sx0 and sy1 > sy0:
-            patch[sy0 - cy0 : sy1 - cy0, sx0 - cx0 : sx1 - cx0] = img[sy0:sy1, sx0:sx1]
-        big = np.repeat(np.repeat(patch, z, axis=0), z, axis=1)
-        big = big[Y0 - cy0 * z : Y0 - cy0 * z + side, X0 - cx0 * z : X0 - cx0 * z + side]
-        ox, oy = X0 / z, Y0 / z
-        same = gt_img == image_id
-        boxes, colours, dashed = gt_boxes[same], gt_colours[same], np.zeros(int(same.sum()), dtype=bool)
-        if predictions is not None:
-            psel = predictions.image_id == image_id
-            boxes = np.concatenate([boxes, predictions.boxes[psel]])
-            colours = np.concatenate([colours, pred_colours[psel]])
-            dashed = np.r_[dashed, np.ones(int(psel.sum()), dtype=bool)]
-        big = draw_boxes(big, boxes, colours, sx=z, ox=ox, oy=oy, dashed=dashed)
-        name = cat_names.get(int(gt_cat[i]), str(int(gt_cat[i])))
-        where = Placement(image_id, 0, 0, side, side, float(z), float(z), ox, oy, int(i))
-        out.append((big, f"id {image_id} · {name}", f"{x1 - x0:.1f} x {y1 - y0:.1f} px · x{z}", where))
-    return out
 
 
 # --------------------------------------------------------------------------- statistics
@@ -1042,6 +1083,13 @@ def _max_iou_per_object(boxes: np.ndarray, image_ids: np.ndarray) -> np.ndarray:
         np.fill_diagonal(m, 0.0)
         out[idx] = m.max(axis=1)
     return out
+
+
+def _objects_per_image(image_ids: np.ndarray, ann_image_ids: np.ndarray) -> np.ndarray:
+    """Annotations per image, in the order of ``image_ids`` (0 for an image without any), shape (I,)."""
+    ids, counts = np.unique(ann_image_ids, return_counts=True)
+    lookup = dict(zip(ids.tolist(), counts.tolist()))
+    return np.array([lookup.get(int(i), 0) for i in image_ids], dtype=np.int64)
 
 
 def _object_facts(coco: Mapping) -> dict:
@@ -1150,11 +1198,7 @@ def dataset_stats(coco: Mapping, manifest: Mapping | None = None) -> dict:
     notes: list[str] = []
     images = list(coco.get("images", []))
     image_ids = np.array([im["id"] for im in images], dtype=np.int64)
-    per_image = np.array([np.count_nonzero(f["image_id"] == i) for i in image_ids]) if len(image_ids) else np.zeros(0)
-    if len(image_ids):
-        ids, counts = np.unique(f["image_id"], return_counts=True)
-        lookup = dict(zip(ids.tolist(), counts.tolist()))
-        per_image = np.array([lookup.get(int(i), 0) for i in image_ids])
+    per_image = _objects_per_image(image_ids, f["image_id"])
     orphans = int(np.count_nonzero(~np.isin(f["image_id"], image_ids)))
     if orphans:
         notes.append(f"{orphans} annotations refer to image ids not in 'images'")
@@ -1169,7 +1213,9 @@ def dataset_stats(coco: Mapping, manifest: Mapping | None = None) -> dict:
     if len(area) and not f["area_from_field"].all():
         notes.append(f"area: {int((~f['area_from_field']).sum())} annotations have no 'area'; their box w*h is used")
     ranges = {name: int(np.count_nonzero((area >= lo) & (area <= hi))) for name, lo, hi in COCO_AREA_RANGES}
-    ranges["rule"] = "by the annotation's area (px^2): small [0, 32^2], medium [32^2, 96^2], large [96^2, inf), ends inclusive"
+    ranges["rule"] = (
+        "by the annotation's area (px^2): small [0, 32^2], medium [32^2, 96^2], large [96^2, inf), ends inclusive"
+    )
 
     vis = f["visible_fraction"]
     known = ~np.isnan(vis)
@@ -1195,8 +1241,17 @@ def dataset_stats(coco: Mapping, manifest: Mapping | None = None) -> dict:
             notes.append("truncated: not recorded in this file (no synthgen facts); skipped")
 
     mi = f["max_iou"]
-    max_iou = _quantiles(mi) | {"overlapping": float(np.mean(mi > 0)) if len(mi) else 0.0,
-                                "source": "computed from the annotated boxes"} if len(mi) else None
+    max_iou = None
+    if len(mi):
+        max_iou = _quantiles(mi) | {
+            "overlapping": float(np.mean(mi > 0)),
+            "source": "computed from the annotated boxes",
+        }
+    size = None
+    if len(f["longer"]):
+        size = _quantiles(f["longer"]) | {"measure": "longer side of the annotated box, px"}
+    if f["crowd"].any():
+        notes.append(f"{int(f['crowd'].sum())} crowd annotations (iscrowd 1) are counted with the others")
 
     settings, more = _settings(coco, manifest)
     notes.extend(more)
@@ -1205,7 +1260,7 @@ def dataset_stats(coco: Mapping, manifest: Mapping | None = None) -> dict:
         "objects": int(len(f["boxes"])),
         "objects_per_image": _quantiles(per_image) if len(per_image) else None,
         "per_category": per_category,
-        "size": (_quantiles(f["longer"]) | {"measure": "longer side of the annotated box, px"}) if len(f["longer"]) else None,
+        "size": size,
         "area_ranges": ranges,
         "visible_fraction": visible,
         "max_iou": max_iou,
@@ -1313,7 +1368,8 @@ def stats_tables(stats: Mapping, title: str = "dataset"):
             t.add_row("clutter (config)", ", ".join(f"{k}={_fmt_value(v)}" for k, v in st["clutter_config"].items()))
         if "clutter_marks_per_image" in st:
             q = st["clutter_marks_per_image"]
-            t.add_row("clutter marks per image", f"min {_fmt(q['min'])}, median {_fmt(q['median'])}, max {_fmt(q['max'])}")
+            text = f"min {_fmt(q['min'])}, median {_fmt(q['median'])}, max {_fmt(q['max'])}"
+            t.add_row("clutter marks per image", text)
         parts.append(t)
     for note in stats.get("notes", []):
         parts.append(Text(f"note: {note}", style="dim"))
@@ -1381,12 +1437,12 @@ def stats_figure(coco: Mapping, *, width: float = 12.0, height: float = 7.0, tit
     ax = axes[0, 1]
     image_ids = np.array([im["id"] for im in images], dtype=np.int64)
     if image_ids.size:
-        ids, counts = np.unique(f["image_id"], return_counts=True)
-        lookup = dict(zip(ids.tolist(), counts.tolist()))
-        per = np.array([lookup.get(int(i), 0) for i in image_ids])
-        top = int(per.max())
-        step = max(1, math.ceil((top + 1) / 40))
-        ax.hist(per, bins=np.arange(0, top + step + 1, step) - 0.5, color=blue, edgecolor="white", linewidth=0.4)
+        per = _objects_per_image(image_ids, f["image_id"])
+        low, top = int(per.min()), int(per.max())
+        step = max(1, math.ceil((top - low + 1) / 40))  # whole-number bins, at most 40 of them
+        edges = np.arange(low, top + step + 1, step) - 0.5
+        ax.hist(per, bins=edges, color=blue, edgecolor="white", linewidth=0.4)
+        ax.set_xlim(edges[0] - step, edges[-1] + step)
         ax.xaxis.get_major_locator().set_params(integer=True)
         ax.yaxis.get_major_locator().set_params(integer=True)
         ax.text(0.97, 0.95, f"min {per.min()} · median {np.median(per):g} · max {per.max()}",
@@ -1405,7 +1461,10 @@ def stats_figure(coco: Mapping, *, width: float = 12.0, height: float = 7.0, tit
     if vis.size:
         counts_v, _, _ = ax.hist(vis, bins=np.linspace(0, 1, 21), color=blue, edgecolor="white", linewidth=0.4)
         if counts_v.max() > 0.8 * vis.size and vis.size >= 20:  # one bin dominates: show the rest too
+            from matplotlib.ticker import FuncFormatter
+
             ax.set_yscale("log")
+            ax.yaxis.set_major_formatter(FuncFormatter(lambda v, _: f"{v:g}"))
             ax.set_ylabel("objects (log scale)")
         else:
             ax.yaxis.get_major_locator().set_params(integer=True)
@@ -1414,7 +1473,7 @@ def stats_figure(coco: Mapping, *, width: float = 12.0, height: float = 7.0, tit
                 transform=ax.transAxes, ha="left", va="top", fontsize=8, color="#555555")
         ax.margins(y=0.15)
     else:
-        _empty(ax, "not recorded in this file")
+        _empty(ax, "not recorded in this file\n(a synthgen per-object fact)")
     ax.set_title("visible fraction")
     ax.set_xlabel("visible / full coverage")
     if ax.get_yscale() != "log":
@@ -1478,7 +1537,7 @@ def _pow2_ticks(ax, lo: float, hi: float) -> None:
     ax.xaxis.set_major_locator(FixedLocator(ticks))
     ax.set_xticks(ticks, [f"{t:g}" for t in ticks])
     ax.xaxis.set_minor_formatter(NullFormatter())
-    ax.set_xlim(lo / 1.05, hi * 1.05)
+    ax.set_xlim(min(ticks[0], lo / 1.05), max(ticks[-1], hi * 1.05))
 
 
 def _empty(ax, text: str) -> None:
