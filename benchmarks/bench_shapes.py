@@ -6,6 +6,7 @@ Prints medians of several repeats, measured in one run on one core:
 * 1000 shapes of 2-8 px at samples 4 (target: at most ~60 ms total),
 * a few whole-canvas shapes (cost must follow the patch, not the canvas),
 * stroked (outline-only) shapes,
+* Coverage.inside over the whole patch of a canvas-sized shape,
 
 and, for reference, the same 10 shapes sub-sampled at every pixel, so the gain
 from classifying pixels first shows as a ratio.
@@ -49,12 +50,19 @@ def random_shapes(n: int, lo: float, hi: float, seed: int) -> list[Shape]:
     return out
 
 
-def timed(fn, repeats: int) -> float:
-    """Median wall time of ``fn()`` in ms; the geometry cache is cleared each time."""
+def timed(fn, repeats: int, warm_grid: bool = False) -> float:
+    """Median wall time of ``fn()`` in ms.
+
+    The caches in synthgen.shapes are cleared before each repeat; with
+    ``warm_grid`` the sub-sample coordinate cache is kept, as it is after the
+    first few images of a dataset.
+    """
     times = []
     for _ in range(repeats):
-        shapes._geom.cache_clear()
-        shapes._region.cache_clear()
+        for cached in (shapes._geom, shapes._region, shapes._unit, shapes._star_table):
+            cached.cache_clear()
+        if not warm_grid:
+            shapes._grid.cache_clear()
         t0 = time.perf_counter()
         fn()
         times.append((time.perf_counter() - t0) * 1e3)
@@ -92,9 +100,18 @@ def main() -> None:
     rows.append(("  same, every pixel sub-sampled, samples=4", t4_plain))
     rows.append(("  same, every pixel sub-sampled, samples=8", t8_plain))
     rows.append(("1000 shapes 2-8 px, samples=4", timed(lambda: run_all(tiny, samples=4), 5)))
+    rows.append(("  same, warm coordinate cache", timed(lambda: run_all(tiny, samples=4), 5, warm_grid=True)))
     rows.append(("1000 shapes 2-8 px, samples=8", timed(lambda: run_all(tiny, samples=8), 3)))
     for sh in big:
         rows.append((f"one {sh.kind} of {sh.size:.0f} px on {W}x{H}, samples=4", timed(lambda sh=sh: coverage(sh, H, W), 3)))
+    for sh in big[:2]:
+        cov = coverage(sh, H, W)
+        h, w = cov.values.shape
+
+        def whole_mask(cov=cov, h=h, w=w):
+            cov.inside(cov.row0, cov.col0, cov.row0 + h, cov.col0 + w)
+
+        rows.append((f"inside() over the {h}x{w} patch of that {sh.kind}", timed(whole_mask, 3)))
     width = max(len(r[0]) for r in rows)
     for name, ms in rows:
         print(f"{name:<{width}}  {ms:8.2f} ms")

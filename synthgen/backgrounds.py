@@ -544,9 +544,10 @@ def stripes(
 
     Let ``u = x cos(angle) + y sin(angle) + phase`` at each pixel centre.  The
     band ``0 <= u mod period < duty * period`` has ``colour1``, the rest
-    ``colour0``.  Each pixel's weight of ``colour1`` is its signed distance
-    into the band plus 1/2, clipped to [0, 1] (the exact pixel coverage for
-    axis-aligned stripes at least 1 px wide).
+    ``colour0``.  Each pixel's weight of ``colour1`` is the length of a 1 px
+    segment across the stripes, centred on the pixel centre, that falls
+    inside a band: the exact pixel coverage for axis-aligned stripes of any
+    width (an approximation at other angles).
 
     Parameters
     ----------
@@ -588,11 +589,18 @@ def stripes(
     np.subtract(q, e, out=e)
     e -= np.float32(0.5)
     np.abs(e, out=e)
-    # weight = band/2 - |distance| + 1/2 (px), clipped to [0, 1]
-    e *= np.float32(-period)
-    e += np.float32(band / 2.0 + 0.5)
-    np.clip(e, 0.0, 1.0, out=e)
-    return _blend(e, colour0, colour1)
+    e *= np.float32(period)  # d: distance from the nearest band's middle, px, in [0, P/2]
+    # Overlap of [d - 1/2, d + 1/2] with this band [-b/2, b/2] ...
+    half = np.float32(band / 2.0)
+    weight = np.minimum(e + np.float32(0.5), half)
+    weight -= np.maximum(e - np.float32(0.5), -half)
+    np.maximum(weight, 0.0, out=weight)
+    # ... plus with the next band, which starts at P - b/2 (reached only by gaps < 1 px).
+    e -= np.float32(period - band / 2.0 - 0.5)
+    np.maximum(e, 0.0, out=e)
+    weight += e
+    np.minimum(weight, 1.0, out=weight)
+    return _blend(weight, colour0, colour1)
 
 
 def add_texture(
@@ -618,8 +626,7 @@ def add_texture(
     h, w = image.shape[:2]
     tex = value_noise(h, w, octaves=3, persistence=0.5, scale=scale, rng=rng)
     tex *= np.float32(amplitude)
-    planes = [cv2.add(p, tex, dtype=cv2.CV_8U) for p in cv2.split(image)]
-    return cv2.merge(planes)
+    return cv2.add(image, cv2.merge([tex, tex, tex]), dtype=cv2.CV_8U)
 
 
 # --------------------------------------------------------------------------- sampling

@@ -11,10 +11,10 @@ import functools
 import os
 import sys
 import traceback
+from enum import Enum
 from pathlib import Path
 from typing import Annotated, Optional
 
-import click
 import typer
 
 from synthgen.errors import UserError
@@ -64,7 +64,7 @@ def reported(fn):
             return fn(*args, **kwargs)
         except UserError as exc:
             _fail(f"error: {exc}", 2)
-        except (typer.Exit, typer.Abort, click.exceptions.ClickException, click.exceptions.Exit):
+        except (typer.Exit, typer.Abort, typer.TyperException):
             raise
         except KeyboardInterrupt:
             _fail("interrupted", 130)
@@ -108,6 +108,25 @@ SetOpt = Annotated[
 ]
 
 
+# -- options shared by make and export (formats and splits) ------------------------
+FormatsOpt = Annotated[
+    str,
+    typer.Option(
+        "--formats", help="Comma-separated formats: coco, voc, yolo, tokens, masks (COCO JSON is always written by make)."
+    ),
+]
+SplitOpt = Annotated[
+    Optional[str],
+    typer.Option("--split", help="Split the images, e.g. train=0.8,val=0.1,test=0.1 (one COCO file per split)."),
+]
+
+
+def _formats_and_split(formats: str, split: str | None):
+    from synthgen.formats import parse_formats, parse_split
+
+    return parse_formats(formats), (parse_split(split) if split else None)
+
+
 @app.command()
 @reported
 def make(
@@ -119,6 +138,8 @@ def make(
     overwrite: Annotated[bool, typer.Option("--overwrite", help="Replace the dataset in a non-empty output directory.")] = False,
     workers: Annotated[Optional[int], typer.Option(help="Processes to render with (default: usable cores).", min=1)] = None,
     quiet: Annotated[bool, typer.Option("--quiet", "-q", help="No progress bar.")] = False,
+    formats: FormatsOpt = "coco",
+    split: SplitOpt = None,
 ) -> None:
     """Render a dataset: images, COCO JSON annotations and a manifest."""
     from synthgen.config import load_config
@@ -130,15 +151,272 @@ def make(
     if seed is not None:
         overrides.append(f"seed={seed}")
     cfg = load_config(config, overrides)
+    format_names, fractions = _formats_and_split(formats, split)
     bar, advance = _progress(cfg.count, quiet, "rendering")
     with bar:
-        summary = make_dataset(cfg, out, overwrite=overwrite, workers=workers, progress=advance)
+        summary = make_dataset(
+            cfg, out, overwrite=overwrite, workers=workers, progress=advance, formats=format_names, split=fractions
+        )
     typer.echo(
         f"wrote {summary.images} images, {summary.objects} objects to {summary.out} "
         f"in {summary.seconds:.2f} s ({summary.images_per_second:.1f} images/s)"
     )
 
 
+# config key of each DetectorSpec field -> the jitter option that sets it
+_JITTER_OPTIONS = {
+    "jitter.iou": "--iou",
+    "jitter.miss": "--miss",
+    "jitter.duplicates": "--duplicates",
+    "jitter.background": "--background",
+    "jitter.relabel": "--relabel",
+    "jitter.localization": "--localization",
+    "jitter.near_iou": "--near-iou",
+    "jitter.duplicate_iou": "--duplicate-iou",
+    "jitter.background_iou": "--background-iou",
+    "jitter.background_size": "--background-size",
+    "jitter.score_overlap": "--score-overlap",
+    "jitter.modes": "--modes",
+    "jitter.keep_inside": "--keep-inside",
+    "seed": "--seed",
+}
+
+
+def _option_error(exc) -> UserError:
+    """A ConfigError about a jitter setting, reworded to name the command-line option."""
+    value = list(exc.value) if isinstance(exc.value, tuple) else exc.value
+    text = f"option '{_JITTER_OPTIONS.get(exc.key, exc.key)}' {exc.rule} (got {value!r})"
+    for key, option in _JITTER_OPTIONS.items():
+        text = text.replace(f"'{key}'", f"'{option}'")
+    return UserError(text)
+
+
+def _pair(text: str, option: str) -> tuple[float, float]:
+    """Parse ``LO,HI`` (or one number V meaning ``V,V``)."""
+    parts = [p.strip() for p in text.split(",")]
+    try:
+        values = [float(p) for p in parts]
+    except ValueError:
+        values = []
+    if len(values) not in (1, 2):
+        raise UserError(f"option '{option}' must be LO,HI or one number (got {text!r})")
+    return (values[0], values[-1])
+
+
+# -- check and export -----------------------------------------------------------------
+class TokenOrder(str, Enum):
+    random = "random"
+    raster = "raster"
+    area = "area"
+    distance = "distance"
+
+
+class MaskMode(str, Enum):
+    png = "png"
+    rle = "rle"
+
+
+@app.command()
+@reported
+def jitter(
+    dataset: Annotated[Path, typer.Argument(help="Dataset directory holding annotations.json.", show_default=False)],
+    out: Annotated[Path, typer.Option("--out", "-o", help="COCO results file to write (JSON array).")] = ...,
+    truth: Annotated[
+        Optional[Path],
+        typer.Option(help="Sidecar saying what each prediction is (default: OUT with .truth.json).", show_default=False),
+    ] = None,
+    seed: Annotated[int, typer.Option(help="Seed; the same seed gives the same files byte for byte.")] = 0,
+    iou: Annotated[str, typer.Option(help="IoU range LO,HI of each true positive with its ground truth.")] = "0.7,0.95",
+    miss: Annotated[float, typer.Option(help="Fraction of ground-truth boxes left undetected.")] = 0.0,
+    duplicates: Annotated[float, typer.Option(help="Fraction of ground-truth boxes given one extra duplicate.")] = 0.0,
+    background: Annotated[float, typer.Option(help="Mean number of background false positives per image.")] = 0.0,
+    relabel: Annotated[float, typer.Option(help="Fraction of ground-truth boxes detected with a wrong class.")] = 0.0,
+    localization: Annotated[
+        float, typer.Option(help="Fraction of ground-truth boxes whose only box is badly placed (see --near-iou).")
+    ] = 0.0,
+    near_iou: Annotated[str, typer.Option(help="IoU range LO,HI of a badly placed box with its ground truth.")] = "0.1,0.45",
+    duplicate_iou: Annotated[str, typer.Option(help="IoU range LO,HI of a duplicate with its ground truth.")] = "0.5,0.9",
+    background_iou: Annotated[
+        float, typer.Option(help="Background boxes have IoU below this with every ground-truth box.")
+    ] = 0.1,
+    background_size: Annotated[
+        str, typer.Option(help="Side LO,HI of background boxes as a fraction of the image's shorter side.")
+    ] = "0.05,0.3",
+    score_overlap: Annotated[
+        float, typer.Option(help="Overlap in [0, 1] of true-positive and other scores (0: true positives rank first).")
+    ] = 0.0,
+    modes: Annotated[
+        str, typer.Option(help="Directions of localization error, comma-separated: shift, grow, shrink, aspect, free.")
+    ] = "shift,grow,shrink,aspect,free",
+    keep_inside: Annotated[bool, typer.Option(help="Keep every predicted box inside its image.")] = True,
+) -> None:
+    """Simulate a detector on a dataset: COCO results plus a sidecar saying what each prediction is.
+
+    Prints a JSON summary of the counts on stdout.
+    """
+    import orjson
+
+    from synthgen.errors import ConfigError
+    from synthgen.jitter import DetectorSpec
+    from synthgen.jitter_coco import jitter_files
+
+    try:
+        spec = DetectorSpec(
+            miss=miss,
+            iou=_pair(iou, "--iou"),
+            modes=tuple(m.strip() for m in modes.split(",") if m.strip()),
+            localization=localization,
+            near_iou=_pair(near_iou, "--near-iou"),
+            duplicates=duplicates,
+            duplicate_iou=_pair(duplicate_iou, "--duplicate-iou"),
+            background=background,
+            background_iou=background_iou,
+            background_size=_pair(background_size, "--background-size"),
+            relabel=relabel,
+            score_overlap=score_overlap,
+            keep_inside=keep_inside,
+        )
+        summary = jitter_files(dataset, out, truth=truth, seed=seed, spec=spec)
+    except ConfigError as exc:
+        raise _option_error(exc) from None
+    typer.echo(orjson.dumps(summary, option=orjson.OPT_INDENT_2).decode())
+
+@app.command()
+@reported
+def score(
+    dataset: Annotated[
+        Path,
+        typer.Argument(help="Dataset directory (reads its annotations.json), a COCO JSON file, or with --pred-dir a sweep directory."),
+    ],
+    predictions: Annotated[
+        Optional[Path],
+        typer.Argument(help="COCO results JSON: an array of records with image_id, category_id, bbox (x, y, width, height) and score.", show_default=False),
+    ] = None,
+    by: Annotated[
+        Optional[list[str]],
+        typer.Option(
+            "--by",
+            help="Also score per bin of a per-object fact: FACT (default bins) or FACT:E0,E1,... "
+            "(e.g. size:0,8,16,32,inf). Facts: area, size, visible_fraction, max_iou, neighbours, "
+            "contrast, kind, truncated, ... Repeatable.",
+        ),
+    ] = None,
+    json_out: Annotated[Optional[Path], typer.Option("--json", help="Write every metric to this JSON file.")] = None,
+    plot: Annotated[
+        Optional[Path],
+        typer.Option(
+            "--plot",
+            help="Write a PNG: recall and AP per bin, one 480x360 px panel per --by fact, 3 per row; "
+            "with --pred-dir one 480x360 px panel of AP and AR across the sweep.",
+        ),
+    ] = None,
+    pred_dir: Annotated[
+        Optional[Path],
+        typer.Option(
+            "--pred-dir",
+            help="Score a sweep: DATASET is the sweep directory and this directory holds one results file "
+            "per subset, at the subset's relative path plus .json (e.g. 'objects.size=[4, 8].json').",
+        ),
+    ] = None,
+) -> None:
+    """Score detections by the COCO box rules, overall, per category and per bin of a fact."""
+    import orjson
+    from rich.console import Console
+
+    from synthgen import report_score as rep
+    from synthgen.score import score_files, score_sweep
+
+    if (predictions is None) == (pred_dir is None):
+        raise UserError("give either a PREDICTIONS file or --pred-dir DIR for a sweep (got "
+                        + ("both" if predictions is not None else "neither") + ")")
+    if pred_dir is not None:
+        points = score_sweep(dataset, pred_dir, by or ())
+        console = Console()
+        console.print(rep.sweep_table(points))
+        for p in points:
+            for fact, bins in p.slices.items():
+                console.print(rep.slice_table(f"{fact}, {p.label or p.subset}", bins))
+        if json_out is not None:
+            json_out.write_bytes(orjson.dumps({"sweep": [p.to_dict() for p in points]}, option=orjson.OPT_INDENT_2))
+        if plot is not None:
+            rep.plot_sweep(points, plot)
+        return
+    if plot is not None and not by:
+        raise UserError("option '--plot' needs at least one --by FACT to plot")
+    evaluation, slices = score_files(dataset, predictions, by or ())
+    rep.print_report(evaluation, slices)
+    if json_out is not None:
+        json_out.write_bytes(orjson.dumps(evaluation.to_dict(slices), option=orjson.OPT_INDENT_2))
+    if plot is not None:
+        rep.plot_slices(slices, plot, title=f"{predictions.name} on {dataset.name}")
+
+
+@app.command()
+@reported
+def check(
+    dataset: Annotated[Path, typer.Argument(help="Dataset directory, or a COCO JSON file.", show_default=False)],
+    quick: Annotated[
+        bool, typer.Option("--quick", help="Read only image headers for their sizes; do not decode the pixels.")
+    ] = False,
+) -> None:
+    """Validate a dataset in COCO, VOC, YOLO, token or mask format (exit 0 clean, 1 problems, 2 unusable)."""
+    from synthgen.check import check_dataset
+
+    report = check_dataset(dataset, decode_images=not quick)
+    for problem in report.problems:
+        typer.echo(str(problem))
+    typer.echo(report.summary())
+    if not report.ok:
+        raise typer.Exit(1)
+
+
+@app.command()
+@reported
+def export(
+    dataset: Annotated[Path, typer.Argument(help="Dataset directory written by make.", show_default=False)],
+    formats: FormatsOpt = "voc,yolo",
+    out: Annotated[Optional[Path], typer.Option("--out", "-o", help="Output directory (default: the dataset).")] = None,
+    split: SplitOpt = None,
+    seed: Annotated[
+        Optional[int], typer.Option(help="Seed for splits and random token order (default: the manifest's).")
+    ] = None,
+    bins: Annotated[int, typer.Option("--bins", help="Token bins per axis.")] = 1000,
+    order: Annotated[TokenOrder, typer.Option(help="Object order in token sequences.")] = TokenOrder.random,
+    masks: Annotated[MaskMode, typer.Option(help="Instance masks as id PNGs or per-object RLE lines.")] = MaskMode.png,
+    pad_to: Annotated[
+        Optional[int],
+        typer.Option(
+            "--pad-to", min=0,
+            help="Token sequences: pad each image to this many objects with training noise objects "
+            "(jittered true boxes and random boxes, noise class, zero coordinate weight).",
+        ),
+    ] = None,
+    noise_jittered: Annotated[
+        float, typer.Option("--noise-jittered", min=0.0, max=1.0, help="Share of noise objects made by jittering true boxes.")
+    ] = 0.5,
+) -> None:
+    """Write further formats (and splits) of an existing dataset, without re-rendering."""
+    from synthgen.formats import export as export_formats
+    from synthgen.formats.export import dataset_seed
+
+    format_names, fractions = _formats_and_split(formats, split)
+    noise = None
+    if pad_to is not None:
+        from synthgen.jitter import noise_padder
+
+        if "tokens" not in format_names:
+            raise UserError("option '--pad-to' pads token sequences, so --formats must include tokens (got " f"{formats!r})")
+        seed = dataset_seed(dataset) if seed is None else seed
+        noise = noise_padder(seed, pad_to, jittered=noise_jittered)
+    done = export_formats(
+        dataset, format_names, out=out, split=fractions, seed=seed, n_bins=bins, order=order.value, masks=masks.value,
+        noise=noise,
+    )
+    written = ", ".join(f"{k} ({n} images)" for k, n in done.items()) or "nothing new"
+    typer.echo(f"wrote {written} to {out if out is not None else dataset}")
+
+
+# -- show and stats -------------------------------------------------------------------
 def _parse_ids(text: str) -> list[int]:
     """``"3,7,9"`` -> ``[3, 7, 9]``; a bad list is a user error naming the option."""
     try:

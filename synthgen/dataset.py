@@ -5,6 +5,8 @@ Output directory::
     DIR/images/000000.png ...    one file per image (name = 0-based index)
     DIR/annotations.json         COCO JSON; per-object facts under "synthgen"
     DIR/manifest.json            resolved config, seed, versions, counts, sha256 per file; written last
+    DIR/voc/, yolo/, tokens.jsonl, masks/, annotations.<split>.json ...
+                                 with ``formats`` / ``split`` (see :mod:`synthgen.formats.export`)
 
 Every file is written under a temporary name and renamed into place, and the
 annotation file and manifest are fsync'ed, so a run that dies leaves no
@@ -20,7 +22,7 @@ import os
 import platform
 import shutil
 import time
-from collections.abc import Callable
+from collections.abc import Callable, Mapping, Sequence
 from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass
 from pathlib import Path
@@ -32,6 +34,8 @@ from synthgen.config import Config, to_dict
 from synthgen.errors import UserError
 from synthgen.formats import rle
 from synthgen.formats.coco import bbox_from_xyxy, write_bytes_atomic, write_coco
+from synthgen.formats.export import parse_formats, write_formats
+from synthgen.formats.splits import check_fractions
 from synthgen.formats.images import EXTENSIONS, encode_image
 from synthgen.scene import Scene, category_id, render_scene
 
@@ -48,6 +52,18 @@ __all__ = [
 
 #: What a run writes at the top of its directory (``--overwrite`` removes only these).
 OUTPUT_ENTRIES = ("images", "annotations.json", "manifest.json")
+#: What ``--formats`` and ``--split`` add (glob patterns; ``--overwrite`` removes these too).
+FORMAT_ENTRIES = (
+    "voc",
+    "yolo",
+    "masks",
+    "masks.jsonl",
+    "tokens.jsonl",
+    "tokens.vocab.json",
+    "tokens.*.jsonl",
+    "annotations.*.json",
+    "splits.json",
+)
 
 
 @dataclass(frozen=True, slots=True)
@@ -176,6 +192,12 @@ def prepare_output(out: Path, *, overwrite: bool) -> None:
                 shutil.rmtree(path)
             elif path.exists():
                 path.unlink()
+        for pattern in FORMAT_ENTRIES:
+            for path in sorted(out.glob(pattern)):
+                if path.is_dir():
+                    shutil.rmtree(path)
+                else:
+                    path.unlink()
 
 
 def _versions() -> dict:
@@ -232,6 +254,8 @@ def make_dataset(
     overwrite: bool = False,
     workers: int | None = None,
     progress: Callable[[int], None] | None = None,
+    formats: Sequence[str] = ("coco",),
+    split: Mapping[str, float] | None = None,
 ) -> MakeSummary:
     """Write a dataset of ``config.count`` images to ``out``.
 
@@ -247,9 +271,18 @@ def make_dataset(
         depend on it.
     progress : callable or None
         Called with the number of images finished after each image.
+    formats : sequence of str
+        Formats to write (see :mod:`synthgen.formats.export`); COCO JSON is
+        always written, the others from it before the manifest.
+    split : mapping or None
+        Split name -> fraction, e.g. ``{"train": 0.8, "val": 0.2}``: per-split
+        files (:mod:`synthgen.formats.splits`), assigned with ``config.seed``.
     """
     start = time.perf_counter()
     out = Path(out)
+    formats = parse_formats(formats)  # bad names and fractions fail before anything is written
+    if split:
+        check_fractions(split)
     prepare_output(out, overwrite=overwrite)
     images_dir = out / "images"
     images_dir.mkdir(parents=True, exist_ok=True)
@@ -269,6 +302,15 @@ def make_dataset(
     coco = build_coco(config, records)
     write_coco(out / "annotations.json", coco)
     files["annotations.json"] = hashlib.sha256((out / "annotations.json").read_bytes()).hexdigest()
+    # -- further formats and splits, written from the COCO dict --
+    extra = [f for f in formats if f != "coco"]
+    if extra or split:
+        write_formats(coco, out, extra, split=split, seed=config.seed)
+        for pattern in FORMAT_ENTRIES:
+            for top in out.glob(pattern):
+                for path in sorted(top.rglob("*")) if top.is_dir() else [top]:
+                    if path.is_file():
+                        files[path.relative_to(out).as_posix()] = hashlib.sha256(path.read_bytes()).hexdigest()
     n_objects = len(coco["annotations"])
     manifest = {
         "tool": "synthgen",
@@ -277,6 +319,7 @@ def make_dataset(
         "config": to_dict(config),
         "versions": _versions(),
         "counts": {"images": config.count, "objects": n_objects, "dropped": dropped},
+        "outputs": {"formats": ["coco", *extra], "split": dict(split) if split else None},
         "files": dict(sorted(files.items())),
     }
     import orjson

@@ -36,8 +36,15 @@ Each pixel's coverage is the fraction of its ``s x s`` sub-samples, at
 ``x = c + (j + 0.5)/s``, ``y = r + (i + 0.5)/s``, that the exact point test
 :func:`sample_inside` accepts.  To keep big shapes cheap, pixels are first
 classified at their centres with a conservative distance bound (a lower bound on
-the distance to the boundary); only pixels that the bound cannot settle are
-sub-sampled.  The result equals the plain sample rule exactly.
+the distance to the boundary; big patches settle 8 x 8 blocks first); only pixels
+that the bound cannot settle are sub-sampled, and a star's or an outline's
+sub-samples are tested only against the pieces or edges near their pixel.  The
+result equals the plain sample rule exactly (``Coverage.inside`` applies that
+rule directly, and the tests compare the two).
+
+Polygon kinds are unions of convex pieces (a star: one kite per point plus the
+core polygon through its inner vertices; a cross: its two bars), each a set of
+half-planes; ellipses and rings use their quadratic form.
 
 Outline-only shapes (``stroke > 0``)
 ------------------------------------
@@ -73,6 +80,7 @@ __all__ = [
     "Coverage",
     "exact_box",
     "exact_area",
+    "clipped_box",
     "natural_aspect",
     "outline",
     "sample_inside",
@@ -86,7 +94,6 @@ KINDS = ("rectangle", "ellipse", "triangle", "polygon", "star", "ring", "cross")
 FILLS = ("flat", "gradient", "stripes")
 """Fill styles understood by :func:`paint`."""
 
-_POLY_KINDS = frozenset({"rectangle", "triangle", "polygon", "star", "cross"})
 _ELLIPTIC = frozenset({"ellipse", "ring"})
 
 # Convex pieces accept points up to this far (px) outside their edges, so that
@@ -189,34 +196,49 @@ def _expand(coef: np.ndarray, nd: int) -> np.ndarray:
 
 
 class _Convex:
-    """Union of convex polygons given as half-planes ``nx x + ny y <= c``."""
+    """Union of P convex polygons, each given by E half-planes ``nx x + ny y <= c``.
 
-    __slots__ = ("nx", "ny", "c")
+    ``nx``, ``ny`` and ``c`` have shape (P, E); the normals are unit vectors, so
+    ``nx x + ny y - c`` is the signed distance to each edge's line.
+    """
 
-    def __init__(self, pieces: np.ndarray):
-        # pieces: (P, E, 2) vertices of P convex polygons with E vertices each.
+    __slots__ = ("nx", "ny", "c", "_nx2", "_ny2", "_c2")
+
+    def __init__(self, nx: np.ndarray, ny: np.ndarray, c: np.ndarray):
+        self.nx, self.ny, self.c = nx, ny, c
+        # Pre-expanded for 2-D point arrays, the common case.
+        self._nx2, self._ny2, self._c2 = nx[..., None, None], ny[..., None, None], c[..., None, None]
+
+    @classmethod
+    def from_pieces(cls, pieces: np.ndarray) -> _Convex:
+        """Half-planes of convex polygons with vertices ``pieces`` (P, E, 2), any orientation."""
         d = np.roll(pieces, -1, axis=1) - pieces  # (P, E, 2) edge vectors
         length = np.hypot(d[..., 0], d[..., 1])  # (P, E)
         nx = d[..., 1] / length
         ny = -d[..., 0] / length
         c = nx * pieces[..., 0] + ny * pieces[..., 1]
         mid = pieces.mean(axis=1)  # (P, 2), strictly inside each convex piece
-        flip = (nx * mid[:, None, 0] + ny * mid[:, None, 1] - c) > 0  # inward normal
+        flip = (nx * mid[:, None, 0] + ny * mid[:, None, 1] - c) > 0  # normal points inward
         sign = np.where(flip, -1.0, 1.0)
-        self.nx, self.ny, self.c = nx * sign, ny * sign, c * sign
+        return cls(nx * sign, ny * sign, c * sign)
 
     def _edge_max(self, x, y) -> np.ndarray:
         x = np.asarray(x, dtype=np.float64)
         y = np.asarray(y, dtype=np.float64)
         nd = max(x.ndim, y.ndim)
-        vals = (_expand(self.nx, nd) * x - _expand(self.c, nd)) + _expand(self.ny, nd) * y
+        if nd == 2:
+            vals = (self._nx2 * x - self._c2) + self._ny2 * y  # (P, E, ...)
+        else:
+            vals = (_expand(self.nx, nd) * x - _expand(self.c, nd)) + _expand(self.ny, nd) * y
         return vals.max(axis=1)  # (P, ...)
 
     def contains(self, x, y) -> np.ndarray:
-        return (self._edge_max(x, y) <= _TOL).any(axis=0)
+        m = self._edge_max(x, y)
+        return m[0] <= _TOL if m.shape[0] == 1 else (m <= _TOL).any(axis=0)
 
     def bound(self, x, y) -> np.ndarray:
-        return self._edge_max(x, y).min(axis=0)
+        m = self._edge_max(x, y)
+        return m[0] if m.shape[0] == 1 else m.min(axis=0)
 
 
 class _Ellipse:
@@ -269,6 +291,42 @@ class _Nothing:
         return np.full(np.broadcast_shapes(np.shape(x), np.shape(y)), np.inf)
 
 
+class _Union:
+    """Points in any of ``parts`` (each a :class:`_Convex`)."""
+
+    __slots__ = ("parts", "_padded")
+
+    def __init__(self, parts):
+        self.parts = tuple(parts)
+        self._padded = None
+
+    def padded(self):
+        """All pieces' half-planes as (E, P) arrays, short pieces padded with a repeated edge."""
+        if self._padded is None:
+            e = max(p.nx.shape[1] for p in self.parts)
+
+            def pad(a):
+                return np.concatenate([a, np.repeat(a[:, :1], e - a.shape[1], axis=1)], axis=1)
+
+            self._padded = tuple(
+                np.ascontiguousarray(np.concatenate([pad(np.asarray(getattr(p, name))) for p in self.parts]).T)
+                for name in ("nx", "ny", "c")
+            )
+        return self._padded
+
+    def contains(self, x, y):
+        out = self.parts[0].contains(x, y)
+        for part in self.parts[1:]:
+            out = out | part.contains(x, y)
+        return out
+
+    def bound(self, x, y):
+        out = self.parts[0].bound(x, y)
+        for part in self.parts[1:]:
+            out = np.minimum(out, part.bound(x, y))
+        return out
+
+
 class _Diff:
     """Points of ``keep`` that are not in ``cut``."""
 
@@ -282,6 +340,29 @@ class _Diff:
 
     def bound(self, x, y):
         return np.maximum(self.keep.bound(x, y), -self.cut.bound(x, y))
+
+
+class _ConvexBand:
+    """Points of one convex polygon closer than ``width`` to its boundary.
+
+    Inside a convex polygon the distance to the boundary is exactly ``-f`` with
+    ``f`` the largest signed edge-line distance, so no segment distances are needed.
+    """
+
+    __slots__ = ("fill", "width")
+
+    def __init__(self, fill: _Convex, width: float):
+        self.fill = fill
+        self.width = float(width)
+
+    def contains(self, x, y):
+        f = self.fill.bound(x, y)
+        return (f <= _TOL) & (f > -self.width)
+
+    def bound(self, x, y):
+        f = self.fill.bound(x, y)
+        w = self.width
+        return np.where(f > 0.0, f, np.where(f > -w, np.maximum(f, -w - f), -f - w))
 
 
 class _Band:
@@ -312,11 +393,24 @@ class _Band:
     def contains(self, x, y):
         return self.fill.contains(x, y) & (self._dist2(x, y) < self.width * self.width)
 
+    # The fill is a union of convex pieces, whose bound f is a lower bound on the
+    # distance to the boundary: f < -width already rules a point out of the band,
+    # and only points with -width <= f <= 0 need their exact segment distance.
+
     def bound(self, x, y):
-        d = np.sqrt(self._dist2(x, y))
+        f = self.fill.bound(x, y)
         w = self.width
-        ins = self.fill.contains(x, y)
-        return np.where(ins, np.where(d < w, -np.minimum(d, w - d), d - w), d)
+        # outside the shape: f bounds the distance to the shape, which holds the band;
+        # deeper than w: the band is at least -f - w away
+        out = np.where(f > 0.0, f, -f - w)
+        near = (f <= 0.0) & (f >= -w)
+        if near.any():
+            xb, yb = np.broadcast_arrays(np.asarray(x, dtype=np.float64), np.asarray(y, dtype=np.float64))
+            xs, ys = xb[near], yb[near]
+            d = np.sqrt(self._dist2(xs, ys))
+            ins = self.fill.contains(xs, ys)
+            out[near] = np.where(ins, np.where(d < w, -np.minimum(d, w - d), d - w), d)
+        return out
 
 
 # --------------------------------------------------------------------------
@@ -325,72 +419,117 @@ class _Band:
 
 
 class _Geom:
-    __slots__ = ("box", "area", "ring", "region", "ellipse", "hole")
+    __slots__ = ("box", "area", "region", "ellipse", "hole", "_verts", "_nring", "_map")
 
-    def __init__(self, box, area, ring, region, ellipse, hole):
+    def __init__(self, box, area, region, ellipse=None, hole=0.0, verts=None, nring=0, affine=None):
         self.box = box  # tuple (x0, y0, x1, y1), unclipped
         self.area = area
-        self.ring = ring  # (K, 2) exact vertices (polygon kinds) or None
         self.region = region  # fill region
         self.ellipse = ellipse  # _Ellipse for ellipse / ring, else None
         self.hole = hole  # ring hole ratio, else 0.0
+        self._verts = verts  # own-frame vertices (2, K) of polygon kinds, else None
+        self._nring = nring
+        self._map = affine  # (M (2, 2), t (2,)): image point = M @ own point + t
+
+    @property
+    def ring(self) -> np.ndarray | None:
+        """Exact vertices (K, 2) in image coordinates (polygon kinds), else None."""
+        if self._verts is None:
+            return None
+        m, t = self._map
+        return (m @ self._verts[:, : self._nring]).T + t
 
 
-@lru_cache(maxsize=256)
-def _unit(kind: str, sides: int, inner: float):
-    """Own-frame outline of width 1 and height 1, centred on its own box.
+@lru_cache(maxsize=64)
+def _unit(kind: str, sides: int):
+    """Own-frame geometry of a rectangle, triangle or regular polygon.
 
-    Returns (vertices (K + X, 2), K ring length, piece indices (P, E) or None,
-    area of the unit shape).  Vertices past K are helper points (a star's centre).
+    Returns ``(verts (2, K), groups, area, ext_x, ext_y)``: the ring's vertices
+    as columns; ``groups``, a tuple of ``(nx, ny, c)`` half-plane arrays of shape
+    (P, E) (unit normals) whose convex pieces together make up the shape; its area
+    and its box size.  The frame is the natural one (a polygon has circumradius
+    1); :func:`_build` stretches it to width ``aspect`` and height 1.
     """
     if kind == "rectangle":
         v = np.array([[-0.5, -0.5], [0.5, -0.5], [0.5, 0.5], [-0.5, 0.5]])
-        return v, 4, np.arange(4)[None, :], 1.0
-    if kind == "triangle":
+        area = 1.0
+    elif kind == "triangle":
         v = np.array([[0.0, -0.5], [0.5, 0.5], [-0.5, 0.5]])
-        return v, 3, np.arange(3)[None, :], 0.5
-    if kind == "cross":
-        h = inner / 2.0
-        v = np.array(
-            [
-                [-h, -0.5], [h, -0.5], [h, -h], [0.5, -h], [0.5, h], [h, h],
-                [h, 0.5], [-h, 0.5], [-h, h], [-0.5, h], [-0.5, -h], [-h, -h],
-            ]
-        )  # fmt: skip
-        pieces = np.array([[10, 3, 4, 9], [0, 1, 6, 7]])  # horizontal bar, vertical bar
-        return v, 12, pieces, 2.0 * inner - inner * inner
-    if kind == "polygon":
+        area = 0.5
+    else:
         phi = 2.0 * np.pi * np.arange(sides) / sides
-        raw = np.stack([np.sin(phi), -np.cos(phi)], axis=1)
-        area = sides * math.sin(2.0 * math.pi / sides) / 2.0
-        pieces = np.arange(sides)[None, :]
-        k = sides
-    elif kind == "star":
-        phi = np.pi * np.arange(2 * sides) / sides
-        r = np.where(np.arange(2 * sides) % 2 == 0, 1.0, inner)
-        raw = np.stack([r * np.sin(phi), -r * np.cos(phi)], axis=1)
-        raw = np.vstack([raw, [[0.0, 0.0]]])  # helper point: the centre
-        area = sides * inner * math.sin(math.pi / sides)
-        n2 = 2 * sides
-        j = np.arange(sides)
-        # kites (centre, inner before, point, inner after): convex, union is the star
-        pieces = np.stack([np.full(sides, n2), (2 * j - 1) % n2, 2 * j, 2 * j + 1], axis=1)
-        k = n2
-    else:  # pragma: no cover - guarded by Shape
-        raise ValueError(kind)
-    lo = raw[:k].min(axis=0)
-    hi = raw[:k].max(axis=0)
-    ext = hi - lo
-    v = (raw - (lo + hi) / 2.0) / ext
-    return v, k, pieces, area / (ext[0] * ext[1])
+        v = np.stack([np.sin(phi), -np.cos(phi)], axis=1)
+        area = sides * math.sin(2.0 * math.pi / sides) / 2.0  # n R^2 sin(2 pi / n) / 2
+    hp = _Convex.from_pieces(v[None, :, :])
+    ext = v.max(axis=0) - v.min(axis=0)
+    verts = np.ascontiguousarray(v.T)
+    for arr in (verts, hp.nx, hp.ny, hp.c):
+        arr.flags.writeable = False
+    return verts, ((hp.nx, hp.ny, hp.c),), area, float(ext[0]), float(ext[1])
+
+
+@lru_cache(maxsize=64)
+def _star_table(sides: int):
+    """Per-``sides`` constants of a star: vertex directions, parity and kite turns."""
+    n2 = 2 * sides
+    phi = np.pi * np.arange(n2) / sides
+    dirs = np.stack([np.sin(phi), -np.cos(phi)])  # (2, 2n), point 0 straight up
+    odd = np.arange(n2) % 2 == 1
+    turn = 2.0 * np.pi * np.arange(sides) / sides
+    for arr in (dirs, odd):
+        arr.flags.writeable = False
+    return dirs, odd, np.cos(turn)[:, None], np.sin(turn)[:, None]
+
+
+def _star(sides: int, inner: float):
+    """Own-frame geometry of a star (outer radius 1), in :func:`_unit`'s layout."""
+    dirs, odd, ct, st = _star_table(sides)
+    verts = dirs * np.where(odd, inner, 1.0)  # (2, 2n)
+    lo = verts.min(axis=1)
+    hi = verts.max(axis=1)
+    # Kite 0 = (centre, inner vertex before, point straight up, inner vertex after);
+    # its outward edge normals, in order, then the other kites turned about the centre.
+    sa, ca = math.sin(math.pi / sides), math.cos(math.pi / sides)
+    r = inner
+    inv = 1.0 / math.hypot(1.0 - r * ca, r * sa)
+    n0x = np.array([-ca, (r * ca - 1.0) * inv, (1.0 - r * ca) * inv, ca])
+    n0y = np.array([sa, -r * sa * inv, -r * sa * inv, sa])
+    c0 = np.array([0.0, r * sa * inv, r * sa * inv, 0.0])
+    nx = ct * n0x - st * n0y  # (n, 4)
+    ny = st * n0x + ct * n0y
+    c = np.broadcast_to(c0, nx.shape)
+    # The core n-gon through the inner vertices overlaps the kites along their
+    # shared edges, so that no interior point sits on the edge of every piece
+    # holding it (such points would needlessly count as boundary).
+    core = (st.T, -ct.T, np.full((1, sides), r * ca))
+    area = sides * inner * sa
+    return verts, ((nx, ny, c), core), area, float(hi[0] - lo[0]), float(hi[1] - lo[1])
+
+
+_CROSS_NX = np.array([[1.0, -1.0, 0.0, 0.0], [1.0, -1.0, 0.0, 0.0]])
+_CROSS_NY = np.array([[0.0, 0.0, 1.0, -1.0], [0.0, 0.0, 1.0, -1.0]])
+
+
+def _cross(inner: float):
+    """Own-frame geometry of a cross (1 x 1), in :func:`_unit`'s layout."""
+    h = inner / 2.0
+    verts = np.array(
+        [
+            [-h, h, h, 0.5, 0.5, h, h, -h, -h, -0.5, -0.5, -h],
+            [-0.5, -0.5, -h, -h, h, h, 0.5, 0.5, h, h, -h, -h],
+        ]
+    )
+    c = np.array([[0.5, 0.5, h, h], [h, h, 0.5, 0.5]])  # horizontal bar, vertical bar
+    return verts, ((_CROSS_NX, _CROSS_NY, c),), 2.0 * inner - inner * inner, 1.0, 1.0
 
 
 def _build(shape: Shape) -> _Geom:
     th = math.radians(shape.angle)
     cos, sin = math.cos(th), math.sin(th)
     kind = shape.kind
+    asp = shape.aspect
     if kind in _ELLIPTIC:
-        a0, b0 = shape.aspect / 2.0, 0.5
+        a0, b0 = asp / 2.0, 0.5
         hx = math.hypot(a0 * cos, b0 * sin)
         hy = math.hypot(a0 * sin, b0 * cos)
         k = shape.size / (2.0 * max(hx, hy))
@@ -401,25 +540,47 @@ def _build(shape: Shape) -> _Geom:
         if kind == "ring":
             q = shape.inner
             hole = _Ellipse(shape.cx, shape.cy, cos, sin, q * a, q * b)
-            return _Geom(box, math.pi * a * b * (1.0 - q * q), None, _Diff(ell, hole), ell, q)
-        return _Geom(box, math.pi * a * b, None, ell, ell, 0.0)
+            return _Geom(box, math.pi * a * b * (1.0 - q * q), _Diff(ell, hole), ell, q)
+        return _Geom(box, math.pi * a * b, ell, ell)
 
-    v, nring, pieces, area_unit = _unit(kind, shape.sides, shape.inner)
-    lx = v[:, 0] * shape.aspect
-    ly = v[:, 1]
-    rx = cos * lx - sin * ly
-    ry = sin * lx + cos * ly
-    x_lo, x_hi = rx[:nring].min(), rx[:nring].max()
-    y_lo, y_hi = ry[:nring].min(), ry[:nring].max()
-    wx, wy = x_hi - x_lo, y_hi - y_lo
+    if kind == "star":
+        verts, groups, area0, ex, ey = _star(shape.sides, shape.inner)
+    elif kind == "cross":
+        verts, groups, area0, ex, ey = _cross(shape.inner)
+    else:
+        verts, groups, area0, ex, ey = _unit(kind, shape.sides if kind == "polygon" else 0)
+    # natural frame -> image: stretch to width `aspect` and height 1, rotate,
+    # then scale by k and translate (below)
+    sx, sy = asp / ex, 1.0 / ey
+    lin = np.array([[cos * sx, -sin * sy], [sin * sx, cos * sy]])
+    rot = lin @ verts  # (2, K)
+    lo = rot.min(axis=1)
+    hi = rot.max(axis=1)
+    wx, wy = float(hi[0] - lo[0]), float(hi[1] - lo[1])
     k = shape.size / max(wx, wy)
-    px = (rx - (x_lo + x_hi) / 2.0) * k + shape.cx
-    py = (ry - (y_lo + y_hi) / 2.0) * k + shape.cy
-    pts = np.stack([px, py], axis=1)
-    hw, hh = k * wx / 2.0, k * wy / 2.0
-    box = (shape.cx - hw, shape.cy - hh, shape.cx + hw, shape.cy + hh)
-    region = _Convex(pts[pieces])
-    return _Geom(box, area_unit * shape.aspect * k * k, pts[:nring], region, None, 0.0)
+    tx = shape.cx - k * float(hi[0] + lo[0]) / 2.0
+    ty = shape.cy - k * float(hi[1] + lo[1]) / 2.0
+    box = (shape.cx - k * wx / 2.0, shape.cy - k * wy / 2.0, shape.cx + k * wx / 2.0, shape.cy + k * wy / 2.0)
+    # Half-planes n.l <= c of the natural frame map to (R S^-1 n).p <= k c + (R S^-1 n).t
+    # in the image (S = diag(sx, sy), R the rotation); then renormalise.
+    parts = []
+    for lnx, lny, lc in groups:
+        mx = lnx / sx
+        my = lny / sy
+        inv_len = 1.0 / np.sqrt(mx * mx + my * my)
+        ux = mx * inv_len
+        uy = my * inv_len
+        nx = cos * ux - sin * uy
+        ny = sin * ux + cos * uy
+        parts.append(_Convex(nx, ny, (k * lc) * inv_len + (nx * tx + ny * ty)))
+    return _Geom(
+        box,
+        area0 * sx * sy * k * k,
+        parts[0] if len(parts) == 1 else _Union(parts),
+        verts=verts,
+        nring=verts.shape[1],
+        affine=(k * lin, np.array([tx, ty])),
+    )
 
 
 @lru_cache(maxsize=4096)
@@ -433,6 +594,8 @@ def _region(shape: Shape, stroke: float):
     if stroke <= 0.0:
         return g.region
     if g.ring is not None:
+        if isinstance(g.region, _Convex) and g.region.nx.shape[0] == 1:
+            return _ConvexBand(g.region, stroke)  # rectangle, triangle, polygon
         return _Band(g.region, g.ring, stroke)
     e = g.ellipse
     a, b = e.a, e.b
@@ -514,6 +677,94 @@ def natural_aspect(kind: str, sides: int = 5, inner: float = 0.5) -> float:
     return float(np.ptp(x) / np.ptp(y))
 
 
+def clipped_box(shape: Shape, height: int, width: int) -> np.ndarray | None:
+    """Tight box of the part of the shape that lies on the canvas.
+
+    Unlike ``clip_boxes(exact_box(shape), width, height)``, which only cuts the
+    full box at the border, this is the exact tight box of ``shape`` intersected
+    with ``[0, width] x [0, height]``: for a shape cut by the border it can be
+    smaller than the clipped full box.  It is the same for filled and stroked
+    shapes (both contain the boundary, where the extremes lie).
+
+    Parameters
+    ----------
+    shape : Shape
+    height, width : int
+        Canvas size in pixels.
+
+    Returns
+    -------
+    ndarray of shape (4,), float64, or None
+        ``(x0, y0, x1, y1)`` in px; None when the shape and the canvas share no
+        area.
+
+    Notes
+    -----
+    The extremes of ``shape n canvas`` lie at its corners: shape vertices (or an
+    ellipse's own extreme points) on the canvas, crossings of the outline with
+    the canvas border, and canvas corners inside the shape.  Polygon edges are
+    intersected exactly; ellipse crossings come from ``x(t) = cx + hx cos(t - tx)``.
+
+    Examples
+    --------
+    >>> diamond = Shape("rectangle", 0.0, 5.0, 10.0, angle=45.0)
+    >>> clipped_box(diamond, 20, 20).round(9).tolist()  # the right half of the diamond
+    [0.0, 0.0, 5.0, 10.0]
+    """
+    g = _geom(shape)
+    W, H = float(width), float(height)
+    bx0, by0, bx1, by1 = g.box
+    if not (max(bx0, 0.0) < min(bx1, W) and max(by0, 0.0) < min(by1, H)):
+        return None
+    pts = []  # candidate points, (N, 2) arrays
+    if g.ellipse is None:
+        ring = g.ring
+        pts.append(ring)
+        a = ring
+        d = np.roll(ring, -1, axis=0) - ring  # (K, 2) edges
+        for axis, value in ((0, 0.0), (0, W), (1, 0.0), (1, H)):
+            with np.errstate(divide="ignore", invalid="ignore"):
+                t = (value - a[:, axis]) / d[:, axis]
+            hit = (t >= 0.0) & (t <= 1.0)
+            if hit.any():
+                p = a[hit] + t[hit, None] * d[hit]
+                p[:, axis] = value
+                pts.append(p)
+    else:
+        e = g.ellipse
+        for scale, extremes in ((1.0, True), (g.hole, False)):
+            if scale == 0.0:
+                continue
+            a, b = e.a * scale, e.b * scale
+            # p(t) = centre + a cos t (cos, sin) + b sin t (-sin, cos)
+            ax_, ay_ = a * e.cos, a * e.sin
+            bx_, by_ = -b * e.sin, b * e.cos
+            hx, tx = math.hypot(ax_, bx_), math.atan2(bx_, ax_)  # x(t) = ex + hx cos(t - tx)
+            hy, ty = math.hypot(ay_, by_), math.atan2(by_, ay_)
+            ts = [tx, tx + math.pi, ty, ty + math.pi] if extremes else []
+            for value, h, t0, centre in ((0.0, hx, tx, e.ex), (W, hx, tx, e.ex), (0.0, hy, ty, e.ey), (H, hy, ty, e.ey)):
+                u = (value - centre) / h
+                if -1.0 <= u <= 1.0:
+                    w = math.acos(u)
+                    ts += [t0 + w, t0 - w]
+            if ts:
+                t = np.array(ts)
+                pts.append(np.stack([e.ex + ax_ * np.cos(t) + bx_ * np.sin(t), e.ey + ay_ * np.cos(t) + by_ * np.sin(t)], axis=1))
+    corners = np.array([[0.0, 0.0], [W, 0.0], [0.0, H], [W, H]])
+    pts.append(corners[sample_inside(shape, corners[:, 0], corners[:, 1])])
+    p = np.concatenate(pts)
+    eps = 1e-9 * max(1.0, W, H)
+    on = (p[:, 0] >= -eps) & (p[:, 0] <= W + eps) & (p[:, 1] >= -eps) & (p[:, 1] <= H + eps)
+    p = p[on]
+    if p.shape[0] == 0:
+        return None
+    x0, x1 = max(float(p[:, 0].min()), 0.0), min(float(p[:, 0].max()), W)
+    y0, y1 = max(float(p[:, 1].min()), 0.0), min(float(p[:, 1].max()), H)
+    if not (x0 < x1 and y0 < y1):
+        return None
+    return np.array([x0, y0, x1, y1])
+
+
 def outline(shape: Shape, *, resolution: int = 256) -> list[np.ndarray]:
     """Boundary rings of the filled shape in image coordinates.
 
@@ -563,14 +814,16 @@ def _oriented(ring: np.ndarray, positive: bool) -> np.ndarray:
     return ring if (area2 > 0) == positive else ring[::-1].copy()
 
 
-def sample_inside(shape: Shape, x, y) -> np.ndarray:
-    """Exact point test of the filled shape.
+def sample_inside(shape: Shape, x, y, *, stroke: float = 0.0) -> np.ndarray:
+    """Exact point test of the shape (filled, or its outline band when ``stroke > 0``).
 
     Parameters
     ----------
     shape : Shape
     x, y : array_like
         Point coordinates in px; broadcast against each other.
+    stroke : float
+        Outline band thickness in px (module docstring); 0 tests the filled shape.
 
     Returns
     -------
@@ -584,7 +837,10 @@ def sample_inside(shape: Shape, x, y) -> np.ndarray:
     >>> sample_inside(Shape("ellipse", 0.0, 0.0, 2.0), [0.0, 0.9, 1.1], 0.0).tolist()
     [True, True, False]
     """
-    return _geom(shape).region.contains(np.asarray(x, dtype=np.float64), np.asarray(y, dtype=np.float64))
+    stroke = float(stroke)
+    if not (math.isfinite(stroke) and stroke >= 0.0):
+        raise ValueError(f"stroke must be a finite number >= 0 px (got {stroke!r})")
+    return _region(shape, stroke).contains(np.asarray(x, dtype=np.float64), np.asarray(y, dtype=np.float64))
 
 
 # --------------------------------------------------------------------------
@@ -597,9 +853,12 @@ def _offsets(samples: int) -> np.ndarray:
     return (np.arange(samples) + 0.5) / samples
 
 
+@lru_cache(maxsize=16384)
 def _grid(start: int, stop: int, samples: int) -> np.ndarray:
-    """Sub-sample coordinates ``p + (j + 0.5)/s`` for pixels ``start..stop-1``."""
-    return (np.arange(start, stop, dtype=np.float64)[:, None] + _offsets(samples)).ravel()
+    """Sub-sample coordinates ``p + (j + 0.5)/s`` for pixels ``start..stop-1`` (read-only)."""
+    out = (np.arange(start, stop, dtype=np.float64)[:, None] + _offsets(samples)).ravel()
+    out.flags.writeable = False
+    return out
 
 
 @dataclass(frozen=True, slots=True)
@@ -647,9 +906,15 @@ class Coverage:
                 f"{self.row0}:{self.row0 + h}, cols {self.col0}:{self.col0 + w}"
             )
         s = self.samples
-        xs = _grid(c0, c1, s)[None, :]
-        ys = _grid(r0, r1, s)[:, None]
-        return _region(self.shape, self.stroke).contains(xs, ys)
+        region = _region(self.shape, self.stroke)
+        bh, bw = r1 - r0, c1 - c0
+        if bh * bw <= _GRID_MAX_PIXELS or s == 1:
+            return region.contains(_grid(c0, c1, s)[None, :], _grid(r0, r1, s)[:, None])
+        # Same decisions as the plain sample test, settling whole pixels first.
+        interior, rr, cc, inside = _classify(region, r0, c0, bh, bw, s)
+        mask = np.repeat(np.repeat(interior, s, axis=0), s, axis=1)
+        mask.reshape(bh, s, bw, s)[rr, :, cc, :] = inside.transpose(2, 0, 1)  # (K, s, s)
+        return mask
 
 
 def coverage(shape: Shape, height: int, width: int, *, samples: int = 4, stroke: float = 0.0) -> Coverage | None:
@@ -707,8 +972,14 @@ def coverage(shape: Shape, height: int, width: int, *, samples: int = 4, stroke:
     return Coverage(row0, col0, values, s, shape, stroke)
 
 
-def _classified(region, row0: int, col0: int, h: int, w: int, s: int) -> np.ndarray:
-    """Coverage with a conservative centre test first and sub-sampling only where needed."""
+def _classify(region, row0: int, col0: int, h: int, w: int, s: int):
+    """Settle pixels by a conservative centre test; sub-sample only the rest.
+
+    Returns ``(interior, rr, cc, inside)``: ``interior`` bool (h, w) marks the
+    pixels whose sub-samples are all inside; ``rr``, ``cc`` (K,) index the
+    undecided pixels within the block and ``inside`` bool (s, s, K) holds their
+    sub-samples (sub-row i, sub-column j, pixel).  Every other pixel is outside.
+    """
     # Every sub-sample lies within this distance of its pixel centre.
     margin = (0.5 - 0.5 / s) * math.sqrt(2.0) + _SLACK
     xc = np.arange(col0, col0 + w, dtype=np.float64) + 0.5
@@ -717,15 +988,98 @@ def _classified(region, row0: int, col0: int, h: int, w: int, s: int) -> np.ndar
         f = _blocked_bound(region, xc, yc, margin)
     else:
         f = region.bound(xc[None, :], yc[:, None])  # (h, w)
-    values = (f < -margin).astype(np.float32)
+    interior = f < -margin
     rr, cc = np.nonzero(np.abs(f) <= margin)
-    if rr.size:
+    cols = (cc + col0).astype(np.float64)
+    rows = (rr + row0).astype(np.float64)
+    if rr.size == 0:
+        inside = np.zeros((s, s, 0), dtype=bool)
+    elif isinstance(region, _Union):
+        inside = _sparse_contains(region, cols, rows, s, margin)
+    elif isinstance(region, _Band):
+        inside = _sparse_band(region, cols, rows, s, margin)
+    else:
         offs = _offsets(s)
-        xs = (cc + col0).astype(np.float64)[:, None, None] + offs[None, None, :]  # (K, 1, s)
-        ys = (rr + row0).astype(np.float64)[:, None, None] + offs[None, :, None]  # (K, s, 1)
-        counts = region.contains(xs, ys).sum(axis=(1, 2))
-        values[rr, cc] = counts / (s * s)
+        # pixels on the last axis keep numpy's inner loops long
+        inside = region.contains(cols[None, None, :] + offs[None, :, None], rows[None, None, :] + offs[:, None, None])
+    return interior, rr, cc, inside
+
+
+def _classified(region, row0: int, col0: int, h: int, w: int, s: int) -> np.ndarray:
+    """Coverage values (h, w) float32 by :func:`_classify`."""
+    interior, rr, cc, inside = _classify(region, row0, col0, h, w, s)
+    values = interior.astype(np.float32)
+    values[rr, cc] = inside.sum(axis=(0, 1)) / (s * s)
     return values
+
+
+def _sparse_contains(region: _Union, cols: np.ndarray, rows: np.ndarray, s: int, margin: float) -> np.ndarray:
+    """``region.contains`` at the sub-samples of K boundary pixels, testing only nearby pieces.
+
+    ``cols``, ``rows`` (K,) are the pixels' canvas column and row as floats.  A
+    convex piece whose bound at a pixel centre exceeds ``margin`` holds none of
+    that pixel's sub-samples, so each pixel is tested against the one or two
+    pieces near it instead of all of them; the answer is the same.  Returns bool
+    (s, s, K), indexed (sub-row i, sub-column j, pixel).
+    """
+    nx, ny, c = region.padded()  # (E, P), transposed so that gathers stay contiguous
+    k = cols.size
+    offs = _offsets(s)
+    fp = ((nx[:, :, None] * (cols + 0.5) - c[:, :, None]) + ny[:, :, None] * (rows + 0.5)).max(axis=0)  # (P, K)
+    kk, pp = np.nonzero((fp <= margin).T)  # pairs (pixel, piece), sorted by pixel
+    first = np.searchsorted(kk, np.arange(k))
+    rank = np.arange(kk.size) - first[kk]
+    out = np.zeros((s, s, k), dtype=bool)
+    for r in range(int(rank.max()) + 1 if kk.size else 0):
+        sel = rank == r
+        ks, ps = kk[sel], pp[sel]  # each pixel at most once per round
+        x = cols[ks][None, None, :] + offs[None, :, None]  # (1, s, N): the same c + o as everywhere
+        y = rows[ks][None, None, :] + offs[:, None, None]  # (s, 1, N)
+        # C-ordered coefficients keep the (E, s, s, N) result C-ordered, which the reduction needs to be fast
+        a_x = np.ascontiguousarray(nx[:, ps])[:, None, None, :]
+        a_y = np.ascontiguousarray(ny[:, ps])[:, None, None, :]
+        a_c = np.ascontiguousarray(c[:, ps])[:, None, None, :]
+        vals = (a_x * x - a_c) + a_y * y  # (E, s, s, N)
+        out[:, :, ks] |= vals.max(axis=0) <= _TOL
+    return out
+
+
+def _sparse_band(region: _Band, cols: np.ndarray, rows: np.ndarray, s: int, margin: float) -> np.ndarray:
+    """``region.contains`` at the sub-samples of K boundary pixels, with nearby segments only.
+
+    A boundary segment farther than ``width + margin`` from a pixel centre is
+    farther than ``width`` from all its sub-samples and cannot change the
+    minimum distance where it matters.  Layout as in :func:`_sparse_contains`.
+    """
+    offs = _offsets(s)
+    k = cols.size
+    if isinstance(region.fill, _Union):
+        inside = _sparse_contains(region.fill, cols, rows, s, margin)
+    else:
+        inside = region.fill.contains(cols[None, None, :] + offs[None, :, None], rows[None, None, :] + offs[:, None, None])
+    ax, ay, dx, dy, inv = region.ax, region.ay, region.dx, region.dy, region.inv
+    # squared distance of every segment to every pixel centre, (S, K)
+    px = (cols + 0.5)[None, :] - ax[:, None]
+    py = (rows + 0.5)[None, :] - ay[:, None]
+    t = np.clip((px * dx[:, None] + py * dy[:, None]) * inv[:, None], 0.0, 1.0)
+    d2c = (px - t * dx[:, None]) ** 2 + (py - t * dy[:, None]) ** 2
+    reach = region.width + margin
+    kk, ss = np.nonzero((d2c <= reach * reach).T)  # pairs (pixel, segment), sorted by pixel
+    first = np.searchsorted(kk, np.arange(k))
+    rank = np.arange(kk.size) - first[kk]
+    dmin = np.full((s, s, k), np.inf)
+    for r in range(int(rank.max()) + 1 if kk.size else 0):
+        sel = rank == r
+        ks, sg = kk[sel], ss[sel]
+        # the same operations, in the same order, as _Band._dist2 for one segment
+        qx = (cols[ks][None, None, :] + offs[None, :, None]) - ax[sg]  # (1, s, N)
+        qy = (rows[ks][None, None, :] + offs[:, None, None]) - ay[sg]  # (s, 1, N)
+        sdx, sdy = dx[sg], dy[sg]
+        t = np.clip((qx * sdx + qy * sdy) * inv[sg], 0.0, 1.0)  # (s, s, N)
+        ex = qx - t * sdx
+        ey = qy - t * sdy
+        dmin[:, :, ks] = np.minimum(dmin[:, :, ks], ex * ex + ey * ey)
+    return inside & (dmin < region.width * region.width)
 
 
 def _blocked_bound(region, xc: np.ndarray, yc: np.ndarray, margin: float) -> np.ndarray:
@@ -748,9 +1102,9 @@ def _blocked_bound(region, xc: np.ndarray, yc: np.ndarray, margin: float) -> np.
     ub, vb = np.nonzero(np.abs(fb) <= reach)
     if ub.size:
         ob = np.arange(B, dtype=np.float64)
-        px = (xc[0] + B * vb.astype(np.float64))[:, None, None] + ob[None, None, :]  # (K, 1, B)
-        py = (yc[0] + B * ub.astype(np.float64))[:, None, None] + ob[None, :, None]  # (K, B, 1)
-        fv[ub, :, vb, :] = region.bound(px, py)
+        px = (xc[0] + B * vb.astype(np.float64))[None, None, :] + ob[None, :, None]  # (1, B, K)
+        py = (yc[0] + B * ub.astype(np.float64))[None, None, :] + ob[:, None, None]  # (B, 1, K)
+        fv[ub, :, vb, :] = region.bound(px, py).transpose(2, 0, 1)  # (K, B, B)
     return f[:h, :w]
 
 

@@ -201,12 +201,25 @@ def test_stripes_diagonal_period():
     assert diff.max() <= 1
 
 
-def test_stripes_coverage_equals_duty():
+@pytest.mark.parametrize(
+    ("period", "duty", "phase"),
+    [(12.0, 0.3, 1.7), (8.0, 0.05, 0.3), (8.0, 0.95, 5.2), (2.0, 0.5, 0.25), (5.0, 0.9, 0.0)],
+)
+def test_stripes_coverage_equals_duty(period, duty, phase):
     """Averaged over whole periods, axis-aligned stripes give the second colour `duty` of the area."""
-    img = stripes(4, 120, (0, 0, 0), (255, 255, 255), 12.0, 0.0, 0.3, 1.7)
-    # pixel coverage of a band of width duty*P over a whole number of periods is duty
-    # (area of a union of strips); 0.5/255 per pixel of rounding
-    assert abs(img[..., 0].mean() / 255 - 0.3) < 1 / 255
+    width = int(round(period * 15))
+    img = stripes(4, width, (0, 0, 0), (255, 255, 255), period, 0.0, duty, phase)
+    # pixel coverage of bands of width duty*P over a whole number of periods is duty
+    # (area of a union of strips, analytic geometry); 0.5/255 per pixel of rounding
+    assert abs(img[..., 0].mean() / 255 - duty) < 1 / 255
+
+
+def test_stripes_thin_band_coverage_per_pixel():
+    """A 0.4 px band inside one pixel gives that pixel weight 0.4 and its neighbours 0."""
+    img = stripes(1, 8, (0, 0, 0), (250, 250, 250), 8.0, 0.0, 0.05, -2.3)
+    # u = x - 2.3, so the band 0 <= u < 0.4 is x in [2.3, 2.7): inside pixel 2, [2, 3)
+    # (analytic geometry; pixel coverage per synthgen.geometry)
+    assert img[0, :, 0].tolist() == [0, 0, 100, 0, 0, 0, 0, 0]
 
 
 def test_noise_spans_the_drawn_colours():

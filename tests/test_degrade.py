@@ -7,6 +7,8 @@ import math
 import cv2
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 from PIL import Image
 from scipy import stats
 from skimage.filters import gaussian as sk_gaussian
@@ -394,3 +396,36 @@ def test_lists_become_tuples():
     """TOML arrays (Python lists) are accepted for range fields and stored as tuples."""
     assert JpegSpec(quality=[40, 60]).quality == (40, 60)
     assert NoiseSpec(sigma=[1.0, 2.0]).sigma == (1.0, 2.0)
+
+
+@settings(max_examples=40, deadline=None)
+@given(
+    h=st.integers(1, 40),
+    w=st.integers(1, 40),
+    seed=st.integers(0, 2**32 - 1),
+    ps=st.lists(st.sampled_from([0.0, 0.5, 1.0]), min_size=6, max_size=6),
+)
+def test_any_size_and_probabilities_keep_shape_and_input(h, w, seed, ps):
+    """For any size and mix of probabilities: same shape and dtype, input untouched, known keys."""
+    img = _rng(seed).integers(0, 256, (h, w, 3), dtype=np.uint8)
+    before = img.copy()
+    spec = DegradeSpec(
+        brightness=BrightnessSpec(p=ps[0]),
+        contrast=ContrastSpec(p=ps[1]),
+        vignette=VignetteSpec(p=ps[2]),
+        blur=BlurSpec(p=ps[3]),
+        noise=NoiseSpec(p=ps[4]),
+        jpeg=JpegSpec(p=ps[5]),
+    )
+    out, applied = degrade(img, spec, rng=_rng(seed))
+    assert out.shape == (h, w, 3) and out.dtype == np.uint8
+    assert np.array_equal(img, before)
+    # applied keys keep the documented order
+    assert list(applied) == [k for k in DEGRADE_ORDER if k in applied]
+    # a degradation with p == 1 always applies, p == 0 never
+    names = ("brightness", "contrast", "vignette", "blur", "noise", "jpeg")
+    for name, p in zip(names, ps):
+        if p == 1.0:
+            assert name in applied
+        if p == 0.0:
+            assert name not in applied

@@ -11,8 +11,6 @@ from synthgen.errors import InputFileError
 from synthgen.formats import coco as cf
 from synthgen.formats import rle
 
-# pycocotools 2.0.x decode trips numpy 2's __array__(copy=...) deprecation; not ours to fix.
-pytestmark = pytest.mark.filterwarnings("ignore:__array__ implementation doesn't accept a copy keyword:DeprecationWarning")
 
 
 def _tiny():

@@ -9,8 +9,6 @@ from pycocotools import mask as cocomask
 
 from synthgen.formats import rle
 
-# pycocotools 2.0.x decode trips numpy 2's __array__(copy=...) deprecation; not ours to fix.
-pytestmark = pytest.mark.filterwarnings("ignore:__array__ implementation doesn't accept a copy keyword:DeprecationWarning")
 
 
 def _reference(mask: np.ndarray) -> dict:
@@ -116,3 +114,20 @@ def test_counts_string_round_trip():
     """string_to_counts inverts counts_to_string, including long and shrinking runs."""
     counts = [0, 5, 1_000_000, 3, 2, 70_000, 1, 1]
     assert rle.string_to_counts(rle.counts_to_string(counts)).tolist() == counts
+
+
+def test_loop_and_vectorized_string_paths_agree(monkeypatch):
+    """The short-input loop and the array path build the same counts string."""
+    rng = np.random.default_rng(9)
+    counts = rng.integers(0, 5000, 300).tolist()
+    loop = rle.counts_to_string(counts) if len(counts) <= rle._SMALL else rle._counts_to_string_small(counts)
+    monkeypatch.setattr(rle, "_SMALL", 0)
+    assert rle.counts_to_string(counts) == loop
+    assert rle.string_to_counts(loop).tolist() == counts
+
+
+@pytest.mark.parametrize("mask", _masks()[:20])
+def test_flat_indices_are_the_column_major_set_pixels(mask):
+    """flat_indices() lists the set pixels in column-major order (the order RLE runs follow)."""
+    # REFERENCE.md: COCO JSON -- RLE counts are column-major
+    assert rle.flat_indices(rle.encode(mask)).tolist() == np.flatnonzero(mask.ravel(order="F")).tolist()

@@ -1,0 +1,621 @@
+"""Validate a detection dataset directory in any of synthgen's formats.
+
+:func:`check_dataset` looks for each format it knows (whoever wrote the files)
+and reports every rule a file breaks as a :class:`Problem` (file, record,
+rule, value), with a summary of what it found.  Places looked at, relative to
+the dataset directory ``DIR`` (or a COCO file given directly):
+
+======  ====================================================================
+COCO    ``annotations.json``, ``annotations.<split>.json``, ``annotations/*.json``
+VOC     ``voc/**/*.xml`` or ``Annotations/**/*.xml``
+YOLO    ``yolo/**/*.txt`` with ``yolo/labels.txt`` (or ``labels/`` + ``classes.txt``)
+tokens  ``tokens.jsonl`` (and ``tokens.<split>.jsonl``) with ``tokens.vocab.json``
+masks   ``masks/**/*.png`` (instance ids) or ``masks.jsonl`` (per-object RLE)
+images  ``images/`` (or ``JPEGImages/`` for VOC, or beside the COCO file)
+======  ====================================================================
+
+Rules: referenced image files exist and decode, with the size the annotations
+give; boxes are finite, non-empty and inside their image (to 1e-6 px or 1e-6
+of the normalized side); ids are unique and positive; annotations refer to
+existing images and categories; class names and indices agree between
+formats; every format holds the same number of images and, per image, of
+objects as the COCO file; files listed in a synthgen ``manifest.json`` exist
+and match their sha256 digests.  The box conventions are those of
+:mod:`synthgen.formats`.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import math
+from collections import Counter
+from dataclasses import dataclass, field
+from pathlib import Path, PurePosixPath
+
+import numpy as np
+import orjson
+from PIL import Image
+
+from synthgen.errors import InputFileError
+from synthgen.formats import masks as masks_fmt
+from synthgen.formats import rle
+from synthgen.formats import tokens as tokens_fmt
+from synthgen.formats import voc as voc_fmt
+from synthgen.formats import yolo as yolo_fmt
+from synthgen.formats.coco import structure_problems
+
+__all__ = ["Problem", "CheckReport", "check_dataset"]
+
+_TOL = 1e-6
+_IMAGE_SUFFIXES = (".png", ".jpg", ".jpeg", ".bmp", ".tif", ".tiff", ".webp")
+
+
+@dataclass(frozen=True, slots=True)
+class Problem:
+    """One broken rule.
+
+    Attributes
+    ----------
+    file : str
+        File, relative to the dataset directory (``/``-separated).
+    record : str
+        Place in the file (``"annotations[3] (id 4)"``, ``"object[0]"``,
+        ``"line 2"``), or ``""`` for the file as a whole.
+    rule : str
+        What must hold.
+    value : object
+        What was found.
+    """
+
+    file: str
+    record: str
+    rule: str
+    value: object = None
+
+    def __str__(self) -> str:
+        shown = repr(self.value)
+        if len(shown) > 80:
+            shown = shown[:77] + "..."
+        where = f"{self.file}: {self.record}" if self.record else self.file
+        return f"{where}: {self.rule} (got {shown})"
+
+
+@dataclass(frozen=True, slots=True)
+class CheckReport:
+    """What :func:`check_dataset` found.
+
+    Attributes
+    ----------
+    root : str
+        The dataset directory.
+    formats : tuple of str
+        Formats found, e.g. ``("coco", "voc")``.
+    counts : dict
+        Format -> ``{"files": n, "images": n, "objects": n}``.
+    problems : tuple of Problem
+    """
+
+    root: str
+    formats: tuple[str, ...]
+    counts: dict = field(default_factory=dict)
+    problems: tuple[Problem, ...] = ()
+
+    @property
+    def ok(self) -> bool:
+        """True when no problem was found."""
+        return not self.problems
+
+    def summary(self) -> str:
+        """One line: the formats with their counts and the number of problems."""
+        parts = []
+        for f in self.formats:
+            c = self.counts.get(f, {})
+            parts.append(f"{f} {c.get('images', 0)} images / {c.get('objects', 0)} objects")
+        n = len(self.problems)
+        verdict = "no problems" if n == 0 else f"{n} problem{'s' if n != 1 else ''}"
+        return f"{self.root}: {'; '.join(parts)}: {verdict}"
+
+
+class _Checker:
+    def __init__(self, root: Path, *, decode_images: bool):
+        self.root = root
+        self.decode_images = decode_images
+        self.problems: list[Problem] = []
+        self.counts: dict[str, dict] = {}
+        self._sizes: dict[Path, tuple[int, int] | None] = {}
+        self._stem_index: dict[str, Path] | None = None
+        # From the main COCO file, the reference for the other formats.
+        self.ref_objects: dict[str, int] | None = None  # image stem -> annotation count
+        self.ref_sizes: dict[str, tuple[int, int]] = {}  # image stem -> (W, H)
+        self.ref_names: list[str] | None = None  # category names by id order
+        self.ref_ids: dict[int, str] = {}  # image id -> stem
+
+    # -- helpers ----------------------------------------------------------------
+    def rel(self, path: Path) -> str:
+        try:
+            return path.relative_to(self.root).as_posix()
+        except ValueError:
+            return path.as_posix()
+
+    def add(self, path: Path | str, record: str, rule: str, value: object = None) -> None:
+        name = path if isinstance(path, str) else self.rel(path)
+        self.problems.append(Problem(name, record, rule, value))
+
+    def add_error(self, err: InputFileError) -> None:
+        record = getattr(err, "record", "")
+        rule = getattr(err, "rule", err.problem)
+        value = getattr(err, "value", None)
+        self.add(Path(err.path), record, rule, value)
+
+    def image_dirs(self) -> list[Path]:
+        return [self.root / "images", self.root / "JPEGImages", self.root]
+
+    def find_image(self, file_name: str) -> Path | None:
+        for d in self.image_dirs():
+            p = d / file_name
+            if p.is_file():
+                return p
+        return None
+
+    def find_image_by_stem(self, stem: str) -> Path | None:
+        if self._stem_index is None:
+            self._stem_index = {}
+            for d in self.image_dirs()[:2]:
+                if d.is_dir():
+                    for p in sorted(d.rglob("*")):
+                        if p.suffix.lower() in _IMAGE_SUFFIXES and p.is_file():
+                            self._stem_index.setdefault(p.relative_to(d).with_suffix("").as_posix(), p)
+        return self._stem_index.get(stem)
+
+    def image_size(self, path: Path) -> tuple[int, int] | None:
+        """(W, H) of an image file, or None (with a problem) when it does not decode."""
+        if path not in self._sizes:
+            try:
+                with Image.open(path) as im:
+                    if self.decode_images:
+                        im.load()
+                    self._sizes[path] = im.size
+            except (OSError, SyntaxError, ValueError, Image.DecompressionBombError) as e:
+                self._sizes[path] = None
+                self.add(path, "", "image must decode", str(e))
+        return self._sizes[path]
+
+    def check_image_file(self, src: Path, record: str, file_name: str, width, height) -> None:
+        path = self.find_image(file_name)
+        if path is None:
+            self.add(src, record, "image file must exist", file_name)
+            return
+        size = self.image_size(path)
+        if size is not None and (width, height) != size:
+            self.add(src, record, f"image size (width, height) must match {self.rel(path)} {size}", (width, height))
+
+    # -- COCO -------------------------------------------------------------------
+    def coco(self, path: Path, *, reference: bool) -> dict | None:
+        try:
+            coco = orjson.loads(path.read_bytes())
+        except OSError as e:
+            self.add(path, "", "file must be readable", str(e))
+            return None
+        except orjson.JSONDecodeError as e:
+            try:  # NaN, Infinity and overflowing numbers: read on, so the values get named
+                coco = json.loads(path.read_bytes())
+            except ValueError:
+                self.add(path, f"line {e.lineno}, column {e.colno}", "file must be valid JSON", e.msg)
+                return None
+        broken_top = False
+        for record, rule, value in structure_problems(coco):
+            self.add(path, record, rule, value)
+            broken_top |= record == "top level"
+        if broken_top:
+            return None
+        images = [im for im in coco["images"] if isinstance(im, dict)]
+        anns = [a for a in coco["annotations"] if isinstance(a, dict)]
+        cats = [c for c in coco["categories"] if isinstance(c, dict)]
+        self._unique_positive(path, "images", images)
+        self._unique_positive(path, "annotations", anns)
+        self._unique_positive(path, "categories", cats)
+        names = Counter(c.get("name") for c in cats)
+        for name, n in names.items():
+            if n > 1:
+                self.add(path, "categories", "category names must be unique", name)
+        cat_ids = {c.get("id") for c in cats}
+        files = Counter(im.get("file_name") for im in images)
+        size_of = {}
+        per_image = Counter()
+        for i, im in enumerate(images):
+            record = f"images[{i}] (id {im.get('id')!r})"
+            w, h = im.get("width"), im.get("height")
+            if not (_is_int(w) and _is_int(h) and w > 0 and h > 0):
+                self.add(path, record, "width and height must be positive whole numbers", (w, h))
+                continue
+            size_of[im.get("id")] = (w, h)
+            fn = im.get("file_name")
+            if not isinstance(fn, str):
+                continue
+            if not _inside(fn):
+                self.add(path, record, "file_name must be a relative path inside the dataset", fn)
+                continue
+            if files[fn] > 1:
+                self.add(path, record, "file_name must be unique", fn)
+            self.check_image_file(path, record, fn, w, h)
+        for i, a in enumerate(anns):
+            record = f"annotations[{i}] (id {a.get('id')!r})"
+            image_id = a.get("image_id")
+            if image_id not in size_of:
+                if _is_int(image_id):
+                    self.add(path, record, "image_id must name an image", image_id)
+                continue
+            per_image[image_id] += 1
+            if a.get("category_id") not in cat_ids and _is_int(a.get("category_id")):
+                self.add(path, record, "category_id must name a category", a.get("category_id"))
+            if "iscrowd" not in a:
+                self.add(path, record, "must have 'iscrowd' (0 or 1)", "<missing>")
+            w, h = size_of[image_id]
+            bbox = a.get("bbox")
+            if isinstance(bbox, list) and len(bbox) == 4 and all(_is_num(v) for v in bbox):
+                self._coco_box(path, record, bbox, w, h)
+            area = a.get("area")
+            if _is_num(area) and not (math.isfinite(area) and area >= 0):
+                self.add(path, record, "area must be finite and >= 0", area)
+            seg = a.get("segmentation")
+            if isinstance(seg, dict) and isinstance(seg.get("size"), list):
+                if list(seg["size"]) != [h, w]:
+                    self.add(path, record, f"RLE size must be the image's [height, width] [{h}, {w}]", seg["size"])
+                else:
+                    try:
+                        rle.decode(seg)
+                    except (ValueError, TypeError) as e:
+                        self.add(path, record, "RLE segmentation must decode", str(e))
+        if reference:
+            self.ref_names = [c.get("name") for c in sorted(cats, key=lambda c: _sort_key(c.get("id")))]
+            self.ref_objects = {}
+            for im in images:
+                fn = im.get("file_name")
+                if isinstance(fn, str) and im.get("id") in size_of:
+                    stem = Path(fn).with_suffix("").as_posix()
+                    self.ref_objects[stem] = per_image[im["id"]]
+                    self.ref_sizes[stem] = size_of[im["id"]]
+                    self.ref_ids[im["id"]] = stem
+            self.counts["coco"] = {"files": 1, "images": len(images), "objects": len(anns)}
+        return coco
+
+    def _unique_positive(self, path: Path, kind: str, records: list[dict]) -> None:
+        seen = Counter(r.get("id") for r in records if _is_int(r.get("id")))
+        for i, r in enumerate(records):
+            v = r.get("id")
+            if not _is_int(v):
+                continue
+            if v <= 0:
+                self.add(path, f"{kind}[{i}]", "id must be a positive whole number", v)
+            elif seen[v] > 1:
+                self.add(path, f"{kind}[{i}] (id {v})", f"{kind} ids must be unique", v)
+
+    def _coco_box(self, path: Path, record: str, bbox: list, width: int, height: int) -> None:
+        x, y, w, h = (float(v) for v in bbox)
+        if not all(math.isfinite(v) for v in (x, y, w, h)):
+            self.add(path, record, "bbox must be finite", bbox)
+        elif w <= 0 or h <= 0:
+            self.add(path, record, "bbox must be non-empty (w > 0 and h > 0)", bbox)
+        elif x < -_TOL or y < -_TOL or x + w > width + _TOL or y + h > height + _TOL:
+            self.add(path, record, f"bbox must lie inside the image [0, {width}] x [0, {height}]", bbox)
+
+    def coco_splits(self, main: dict | None, parts: dict[str, dict]) -> None:
+        main_ids = {im.get("id"): im.get("file_name") for im in main["images"]} if main else None
+        owner: dict[object, str] = {}
+        for name, (path, coco) in parts.items():
+            if main is not None and coco["categories"] != main["categories"]:
+                self.add(path, "categories", "must be the categories of annotations.json", coco["categories"])
+            for i, im in enumerate(coco["images"]):
+                key = im.get("file_name")
+                if key in owner:
+                    self.add(path, f"images[{i}] (id {im.get('id')!r})", f"image must be in one split only (also in {owner[key]})", key)
+                owner[key] = name
+                if main_ids is not None and main_ids.get(im.get("id")) != key:
+                    self.add(path, f"images[{i}] (id {im.get('id')!r})", "image must appear in annotations.json with the same id", key)
+
+    # -- manifest -----------------------------------------------------------------
+    def manifest(self, path: Path) -> None:
+        try:
+            doc = orjson.loads(path.read_bytes())
+        except orjson.JSONDecodeError as e:
+            self.add(path, f"line {e.lineno}, column {e.colno}", "file must be valid JSON", e.msg)
+            return
+        files = doc.get("files") if isinstance(doc, dict) else None
+        if not isinstance(files, dict):
+            return  # not a synthgen manifest: nothing to compare
+        for name, digest in sorted(files.items()):
+            target = self.root / name
+            if not target.is_file():
+                self.add(path, f"files[{name!r}]", "listed file must exist", name)
+                continue
+            h = hashlib.sha256()
+            with open(target, "rb") as f:
+                for block in iter(lambda: f.read(1 << 20), b""):
+                    h.update(block)
+            if h.hexdigest() != digest:
+                self.add(path, f"files[{name!r}]", "file must match its sha256 digest", name)
+        self.counts["manifest"] = {"files": len(files)}
+
+    # -- object counts against the reference ------------------------------------------
+    def compare(self, fmt: str, path: Path, stem: str, n_objects: int, size: tuple[int, int] | None = None) -> None:
+        if self.ref_objects is None:
+            return
+        if stem not in self.ref_objects:
+            self.add(path, "", "must belong to an image of annotations.json", stem)
+            return
+        want = self.ref_objects[stem]
+        if n_objects != want:
+            self.add(path, "", f"must hold as many objects as annotations.json ({want})", n_objects)
+        if size is not None and size != self.ref_sizes[stem]:
+            self.add(path, "size", f"must be the image size in annotations.json {self.ref_sizes[stem]}", size)
+
+    def missing(self, fmt: str, seen: set[str], where: str) -> None:
+        if self.ref_objects is None:
+            return
+        for stem in sorted(set(self.ref_objects) - seen):
+            self.add(where.format(stem=stem), "", f"{fmt} file must exist for every image", "<missing>")
+
+    # -- VOC ---------------------------------------------------------------------
+    def voc(self, d: Path) -> None:
+        files = sorted(p for p in d.rglob("*.xml") if "ImageSets" not in p.relative_to(d).parts)
+        seen, n_obj = set(), 0
+        names_allowed = set(self.ref_names) if self.ref_names is not None else None
+        for p in files:
+            stem = p.relative_to(d).with_suffix("").as_posix()
+            seen.add(stem)
+            try:
+                doc = voc_fmt.read_voc(p)
+            except InputFileError as e:
+                self.add_error(e)
+                continue
+            w, h = doc["width"], doc["height"]
+            n = len(doc["names"])
+            n_obj += n
+            img = self.find_image(doc["filename"]) if _inside(doc["filename"]) else None
+            if img is None:
+                self.add(p, "filename", "image file must exist", doc["filename"])
+            else:
+                size = self.image_size(img)
+                if size is not None and size != (w, h):
+                    self.add(p, "size", f"must match the image {self.rel(img)} {size}", (w, h))
+            voc = voc_fmt.voc_box_from_pixel_box(doc["boxes"]) if n else np.zeros((0, 4), np.int64)
+            raw = doc["boxes"].copy()
+            raw[:, :2] += 1  # back to the file's 1-based values
+            for i in range(n):
+                record = f"object[{i}]"
+                xmin, ymin, xmax, ymax = raw[i].tolist()
+                if names_allowed is not None and doc["names"][i] not in names_allowed:
+                    self.add(p, record, "name must be a category of annotations.json", doc["names"][i])
+                if not np.array_equal(raw[i], voc[i]):
+                    self.add(p, f"{record} bndbox", "coordinates must be whole pixel indices", raw[i].tolist())
+                if xmin > xmax or ymin > ymax:
+                    self.add(p, f"{record} bndbox", "box must be non-empty (xmin <= xmax, ymin <= ymax)", raw[i].tolist())
+                elif xmin < 1 or ymin < 1 or xmax > w or ymax > h:
+                    self.add(p, f"{record} bndbox", f"box must lie inside the image [1, {w}] x [1, {h}]", raw[i].tolist())
+            self.compare("voc", p, stem, n, (w, h))
+        self.missing("voc", seen, self.rel(d) + "/{stem}.xml")
+        self.counts["voc"] = {"files": len(files), "images": len(files), "objects": n_obj}
+
+    # -- YOLO ---------------------------------------------------------------------
+    def yolo(self, d: Path) -> None:
+        labels_path = next((d / n for n in (yolo_fmt.LABELS_FILE, "classes.txt") if (d / n).is_file()), None)
+        if labels_path is None and (self.root / "classes.txt").is_file():
+            labels_path = self.root / "classes.txt"
+        labels = None
+        if labels_path is None:
+            self.add(d / yolo_fmt.LABELS_FILE, "", "class-name file must exist", "<missing>")
+        else:
+            try:
+                labels = yolo_fmt.read_labels(labels_path)
+            except InputFileError as e:
+                self.add_error(e)
+            if labels is not None and self.ref_names is not None and labels != self.ref_names:
+                self.add(labels_path, "", f"must list the categories of annotations.json by id {self.ref_names}", labels)
+        skip = {labels_path}
+        files = sorted(
+            p for p in d.rglob("*.txt") if p not in skip and p.relative_to(d).parts[0] != "splits"
+        )
+        seen, n_obj = set(), 0
+        for p in files:
+            stem = p.relative_to(d).with_suffix("").as_posix()
+            seen.add(stem)
+            try:
+                classes, boxes = yolo_fmt.read_yolo(p)
+            except InputFileError as e:
+                self.add_error(e)
+                continue
+            n_obj += classes.size
+            if self.find_image_by_stem(stem) is None and self.find_image(stem) is None:
+                self.add(p, "", "image file must exist (same base name in images/)", stem)
+            lines = [i + 1 for i, t in enumerate(p.read_text(encoding="utf-8").splitlines()) if t.split()]
+            for i in range(classes.size):
+                record = f"line {lines[i]}"
+                c = int(classes[i])
+                xc, yc, w, h = boxes[i].tolist()
+                if labels is not None and not 0 <= c < len(labels):
+                    self.add(p, record, f"class must be in [0, {len(labels) - 1}] (labels.txt)", c)
+                if w <= 0 or h <= 0:
+                    self.add(p, record, "box must be non-empty (w > 0 and h > 0)", boxes[i].tolist())
+                elif xc - w / 2 < -_TOL or yc - h / 2 < -_TOL or xc + w / 2 > 1 + _TOL or yc + h / 2 > 1 + _TOL:
+                    self.add(p, record, "box must lie inside the image (normalized [0, 1])", boxes[i].tolist())
+            self.compare("yolo", p, stem, int(classes.size))
+        self.missing("yolo", seen, self.rel(d) + "/{stem}.txt")
+        self.counts["yolo"] = {"files": len(files), "images": len(files), "objects": n_obj}
+
+    # -- tokens --------------------------------------------------------------------
+    def tokens(self, path: Path, vocab_path: Path, *, reference: bool) -> None:
+        if not vocab_path.is_file():
+            self.add(vocab_path, "", "token vocabulary file must exist", "<missing>")
+            return
+        try:
+            vocab = tokens_fmt.read_vocabulary(vocab_path)
+            lines = tokens_fmt.read_tokens(path, vocab_path)
+        except InputFileError as e:
+            self.add_error(e)
+            return
+        if self.ref_names is not None:
+            names = [c.get("name") for c in vocab["classes"]]
+            if names != self.ref_names:
+                self.add(vocab_path, "classes", "must be the categories of annotations.json by id", names)
+        seen, n_obj = set(), 0
+        for i, line in enumerate(lines):
+            real = int((~line["is_noise"]).sum())
+            n_obj += real
+            stem = self.ref_ids.get(line.get("image_id"))
+            if self.ref_objects is not None and stem is None:
+                self.add(path, f"line {i + 1}", "image_id must name an image of annotations.json", line.get("image_id"))
+                continue
+            if stem is None:
+                continue
+            if stem in seen:
+                self.add(path, f"line {i + 1}", "each image must have one line", line.get("image_id"))
+            seen.add(stem)
+            if real != self.ref_objects[stem]:
+                self.add(path, f"line {i + 1}", f"must hold as many objects as annotations.json ({self.ref_objects[stem]})", real)
+            if (line["width"], line["height"]) != self.ref_sizes[stem]:
+                self.add(path, f"line {i + 1}", f"width, height must match annotations.json {self.ref_sizes[stem]}", (line["width"], line["height"]))
+        if reference:
+            self.missing("tokens", seen, self.rel(path) + " (image {stem})")
+            self.counts["tokens"] = {"files": 1, "images": len(lines), "objects": n_obj}
+
+    # -- masks ---------------------------------------------------------------------
+    def masks_png(self, d: Path) -> None:
+        files = sorted(d.rglob("*.png"))
+        seen, n_obj = set(), 0
+        for p in files:
+            stem = p.relative_to(d).with_suffix("").as_posix()
+            seen.add(stem)
+            try:
+                ids = masks_fmt.read_instance_png(p)
+            except InputFileError as e:
+                self.add_error(e)
+                continue
+            n_obj += int(np.count_nonzero(np.bincount(ids.ravel())[1:])) if ids.size else 0
+            if self.ref_objects is None or stem not in self.ref_objects:
+                self.compare("masks", p, stem, 0)
+                continue
+            h, w = ids.shape
+            if (w, h) != self.ref_sizes[stem]:
+                self.add(p, "", f"mask size (width, height) must match annotations.json {self.ref_sizes[stem]}", (w, h))
+            top = int(ids.max()) if ids.size else 0
+            if top > self.ref_objects[stem]:
+                self.add(p, "", f"instance ids must be at most the image's annotation count ({self.ref_objects[stem]})", top)
+        self.missing("masks", seen, self.rel(d) + "/{stem}.png")
+        # objects = instances with at least one pixel (one drawn over entirely has none)
+        self.counts["masks"] = {"files": len(files), "images": len(files), "objects": n_obj}
+
+    def masks_rle(self, path: Path) -> None:
+        try:
+            lines = masks_fmt.read_mask_rles(path)
+        except InputFileError as e:
+            self.add_error(e)
+            return
+        n_obj = 0
+        for i, line in enumerate(lines):
+            n_obj += len(line["masks"])
+            stem = self.ref_ids.get(line.get("image_id"))
+            if stem is None:
+                continue
+            if len(line["masks"]) != self.ref_objects[stem]:
+                self.add(path, f"line {i + 1}", f"must hold as many masks as annotations.json ({self.ref_objects[stem]})", len(line["masks"]))
+            for m in line["decoded"]:
+                if (m.shape[1], m.shape[0]) != self.ref_sizes[stem]:
+                    self.add(path, f"line {i + 1}", f"mask size must match annotations.json {self.ref_sizes[stem]}", m.shape)
+                    break
+        self.counts["masks"] = {"files": 1, "images": len(lines), "objects": n_obj}
+
+
+def _is_int(v) -> bool:
+    return isinstance(v, int) and not isinstance(v, bool)
+
+
+def _is_num(v) -> bool:
+    return isinstance(v, (int, float)) and not isinstance(v, bool)
+
+
+def _inside(file_name: str) -> bool:
+    p = PurePosixPath(file_name.replace("\\", "/"))
+    return not p.is_absolute() and ".." not in p.parts
+
+
+def _sort_key(v):
+    return (0, v) if _is_int(v) else (1, 0)
+
+
+def check_dataset(path, *, decode_images: bool = True) -> CheckReport:
+    """Check a dataset directory (or a COCO JSON file) against every rule above.
+
+    Parameters
+    ----------
+    path : str or Path
+        Dataset directory, or a COCO JSON file (images looked up beside it and
+        in its ``images/``).
+    decode_images : bool
+        Decode every image fully (True) or read only its header for the size.
+
+    Returns
+    -------
+    CheckReport
+
+    Raises
+    ------
+    synthgen.errors.InputFileError
+        When ``path`` does not exist or holds no format this module knows
+        (unusable input).
+    """
+    path = Path(path)
+    if not path.exists():
+        raise InputFileError(path, "does not exist")
+    if path.is_file():
+        if path.suffix.lower() != ".json":
+            raise InputFileError(path, "must be a dataset directory or a COCO .json file")
+        root, coco_files = path.parent, [path]
+    else:
+        root = path
+        coco_files = []
+        if (root / "annotations.json").is_file():
+            coco_files.append(root / "annotations.json")
+        coco_files += sorted(p for p in root.glob("annotations.*.json"))
+        if (root / "annotations").is_dir():
+            coco_files += sorted((root / "annotations").glob("*.json"))
+    ck = _Checker(root, decode_images=decode_images)
+    formats: list[str] = []
+    if coco_files:
+        formats.append("coco")
+        main_path = coco_files[0]
+        main = ck.coco(main_path, reference=True)
+        parts = {}
+        for p in coco_files[1:]:
+            c = ck.coco(p, reference=False)
+            if c is not None and p.name.startswith("annotations.") and main_path.name == "annotations.json":
+                parts[p.name] = (p, c)
+        if parts:
+            ck.coco_splits(main, parts)
+    voc_dir = next((root / n for n in ("voc", "Annotations") if (root / n).is_dir()), None)
+    if voc_dir is not None:
+        formats.append("voc")
+        ck.voc(voc_dir)
+    yolo_dir = next((root / n for n in ("yolo", "labels") if (root / n).is_dir()), None)
+    if yolo_dir is not None:
+        formats.append("yolo")
+        ck.yolo(yolo_dir)
+    if (root / "tokens.jsonl").is_file():
+        formats.append("tokens")
+        vocab = root / "tokens.vocab.json"
+        ck.tokens(root / "tokens.jsonl", vocab, reference=True)
+        for p in sorted(root.glob("tokens.*.jsonl")):
+            ck.tokens(p, vocab, reference=False)
+    if (root / "masks").is_dir():
+        formats.append("masks")
+        ck.masks_png(root / "masks")
+    elif (root / "masks.jsonl").is_file():
+        formats.append("masks")
+        ck.masks_rle(root / "masks.jsonl")
+    if formats and path.is_dir() and (root / "manifest.json").is_file():
+        ck.manifest(root / "manifest.json")
+    if not formats:
+        raise InputFileError(
+            path, "holds no dataset format synthgen knows (annotations.json, voc/, yolo/, tokens.jsonl, masks/)"
+        )
+    return CheckReport(str(path), tuple(formats), ck.counts, tuple(ck.problems))

@@ -1,0 +1,136 @@
+"""Helpers shared by the format writers: grouping a COCO dict, staged output."""
+
+from __future__ import annotations
+
+import contextlib
+import os
+import shutil
+import tempfile
+from collections.abc import Iterator
+from pathlib import Path, PurePosixPath
+
+import numpy as np
+
+from synthgen.errors import InputFileError
+
+__all__ = [
+    "annotations_by_image",
+    "categories_in_order",
+    "image_index",
+    "pixel_box",
+    "bad_record",
+    "sidecar_name",
+    "staged_dir",
+    "staged_file",
+]
+
+
+def bad_record(path, record: str, rule: str, value: object) -> InputFileError:
+    """An :class:`InputFileError` that also carries ``record``, ``rule`` and ``value``.
+
+    Readers raise it so that :mod:`synthgen.check` can report the parts apart.
+    """
+    text = repr(value)
+    if len(text) > 60:
+        text = text[:57] + "..."
+    err = InputFileError(path, f"{record}: {rule} (got {text})" if record else f"{rule} (got {text})")
+    err.record, err.rule, err.value = record, rule, value
+    return err
+
+
+def annotations_by_image(coco: dict) -> dict[int, list[dict]]:
+    """Annotations of each image id, in the order they appear in the file."""
+    out: dict[int, list[dict]] = {im["id"]: [] for im in coco["images"]}
+    for a in coco["annotations"]:
+        out.setdefault(a["image_id"], []).append(a)
+    return out
+
+
+def categories_in_order(coco: dict) -> list[dict]:
+    """Categories sorted by id: the order of class indices in every format."""
+    return sorted(coco["categories"], key=lambda c: c["id"])
+
+
+def image_index(image: dict, position: int) -> int:
+    """0-based image index ``k``: synthgen's own when recorded, else the position."""
+    facts = image.get("synthgen")
+    if isinstance(facts, dict) and isinstance(facts.get("index"), int):
+        return facts["index"]
+    return position
+
+
+def sidecar_name(file_name: str, suffix: str) -> str:
+    """Per-image file name for another format: the image's path with ``suffix``.
+
+    >>> sidecar_name("000012.png", ".xml")
+    '000012.xml'
+    """
+    p = PurePosixPath(file_name.replace("\\", "/"))
+    if p.is_absolute() or ".." in p.parts:
+        raise InputFileError(file_name, "image file_name must be a relative path inside the dataset")
+    return str(p.with_suffix(suffix))
+
+
+def pixel_box(ann: dict) -> np.ndarray:
+    """Pixel box (xyxy, integer-valued floats) of an annotation.
+
+    synthgen's recorded ``synthgen.pixel_box`` when present; else the tight box
+    of an RLE segmentation; else the COCO bbox rounded outwards to whole pixels
+    (the pixels the box touches).
+    """
+    facts = ann.get("synthgen")
+    if isinstance(facts, dict) and facts.get("pixel_box") is not None:
+        return np.asarray(facts["pixel_box"], dtype=np.float64)
+    seg = ann.get("segmentation")
+    if isinstance(seg, dict) and "counts" in seg:
+        from synthgen.formats import rle
+        from synthgen.geometry import mask_box
+
+        box = mask_box(rle.decode(seg))
+        if box is not None:
+            return box
+    x, y, w, h = (float(v) for v in ann["bbox"])
+    return np.array([np.floor(x), np.floor(y), np.ceil(x + w), np.ceil(y + h)], dtype=np.float64)
+
+
+@contextlib.contextmanager
+def staged_dir(final: Path) -> Iterator[Path]:
+    """Yield a temporary directory beside ``final`` that replaces it on success.
+
+    Files inside are written without a per-file fsync (thousands of small
+    files); the directory appears under its final name only once complete, and
+    an existing directory of that name is replaced as a whole.
+    """
+    final = Path(final)
+    final.parent.mkdir(parents=True, exist_ok=True)
+    tmp = Path(tempfile.mkdtemp(dir=final.parent, prefix=f".{final.name}.", suffix=".tmp"))
+    try:
+        yield tmp
+        old = None
+        if final.exists():
+            old = final.parent / f".{final.name}.old-{os.getpid()}"
+            os.replace(final, old)
+        os.replace(tmp, final)
+        if old is not None:
+            shutil.rmtree(old, ignore_errors=True)
+    except BaseException:
+        shutil.rmtree(tmp, ignore_errors=True)
+        raise
+
+
+@contextlib.contextmanager
+def staged_file(final: Path) -> Iterator[Path]:
+    """Yield a temporary file path beside ``final``, renamed over it on success (fsync'ed)."""
+    final = Path(final)
+    final.parent.mkdir(parents=True, exist_ok=True)
+    fd, name = tempfile.mkstemp(dir=final.parent, prefix=f".{final.name}.", suffix=".tmp")
+    os.close(fd)
+    tmp = Path(name)
+    try:
+        yield tmp
+        with open(tmp, "rb+") as f:
+            os.fsync(f.fileno())
+        os.replace(tmp, final)
+    except BaseException:
+        tmp.unlink(missing_ok=True)
+        raise

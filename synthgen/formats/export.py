@@ -1,0 +1,248 @@
+"""Write further formats (and splits) from a COCO dict, without re-rendering.
+
+Every writer works from the COCO dict (and, for masks, nothing else: the
+segmentations are in it), so ``make`` and ``export`` share this one path.
+
+Output layout under the output directory ``OUT`` (``DIR`` for export in place)::
+
+    OUT/annotations.json                    coco (export only writes it when OUT is not DIR)
+    OUT/voc/<stem>.xml                      voc
+    OUT/yolo/<stem>.txt, OUT/yolo/labels.txt  yolo
+    OUT/tokens.jsonl, OUT/tokens.vocab.json tokens
+    OUT/masks/<stem>.png                    masks (mode "png"), or OUT/masks.jsonl (mode "rle")
+
+plus, with splits, the files listed in :mod:`synthgen.formats.splits`.  Each
+directory is built under a temporary name and renamed when complete; single
+files are written to a temporary file and renamed.
+"""
+
+from __future__ import annotations
+
+import os
+from collections.abc import Callable, Iterable, Mapping
+from pathlib import Path
+
+import orjson
+
+from synthgen.errors import ConfigError, InputFileError, check_choice
+from synthgen.formats import masks as masks_fmt
+from synthgen.formats import tokens as tokens_fmt
+from synthgen.formats import voc as voc_fmt
+from synthgen.formats import yolo as yolo_fmt
+from synthgen.formats._common import sidecar_name, staged_dir, staged_file
+from synthgen.formats.coco import read_coco, write_bytes_atomic, write_coco
+from synthgen.formats.splits import assign_splits, coco_split_name, split_coco
+
+__all__ = ["FORMATS", "parse_formats", "write_formats", "export"]
+
+FORMATS = ("coco", "voc", "yolo", "tokens", "masks")
+
+
+def parse_formats(text: str | Iterable[str], *, key: str = "--formats") -> tuple[str, ...]:
+    """Format names from ``"coco,voc,yolo"`` (or a sequence), validated, duplicates dropped.
+
+    Examples
+    --------
+    >>> parse_formats("voc, yolo,voc")
+    ('voc', 'yolo')
+    """
+    parts = text.split(",") if isinstance(text, str) else list(text)
+    out = []
+    for p in (str(p).strip() for p in parts):
+        if not p:
+            continue
+        check_choice(key, p, FORMATS)
+        if p not in out:
+            out.append(p)
+    if not out:
+        raise ConfigError(key, f"must name at least one of {', '.join(FORMATS)}", text)
+    return tuple(out)
+
+
+def write_formats(
+    coco: dict,
+    out,
+    formats: Iterable[str],
+    *,
+    images_dir=None,
+    split: Mapping[str, float] | None = None,
+    seed: int = 0,
+    n_bins: int = 1000,
+    order: str = "random",
+    noise: Mapping[int, object] | Callable | None = None,
+    masks: str = "png",
+) -> dict[str, int]:
+    """Write the given formats of ``coco`` into ``out``.
+
+    Parameters
+    ----------
+    coco : dict
+        COCO dict of the whole dataset.
+    out : str or Path
+        Output directory (created when missing).
+    formats : iterable of str
+        Any of ``FORMATS`` (may be empty, to write only splits); ``"coco"``
+        writes ``out/annotations.json``.
+    images_dir : str or Path, optional
+        Folder holding the images (default ``out/images``); YOLO split lists
+        give image paths relative to ``out`` through it.
+    split : mapping, optional
+        Split name -> fraction (adding up to 1).  Writes per-split files (see
+        :mod:`synthgen.formats.splits`) for COCO and each listed format.
+    seed : int
+        The dataset's root seed (split assignment, random token order).
+    n_bins, order : int, str
+        Token options (see :mod:`synthgen.formats.tokens`).
+    noise : mapping or callable, optional
+        Training noise objects for the tokens (see
+        :func:`synthgen.formats.tokens.write_tokens`).
+    masks : {"png", "rle"}
+        Instance-mask mode (see :mod:`synthgen.formats.masks`).
+
+    Returns
+    -------
+    dict
+        Format (or ``"split:<name>"``) -> number of images written.
+    """
+    formats = parse_formats(list(formats)) if formats else ()
+    check_choice("masks", masks, masks_fmt.MASK_MODES)
+    if "tokens" in formats:
+        tokens_fmt.check_token_options(n_bins, order)
+    out = Path(out)
+    out.mkdir(parents=True, exist_ok=True)
+    images_dir = Path(images_dir) if images_dir is not None else out / "images"
+    labels = assign_splits(len(coco["images"]), dict(split), seed=seed) if split else None
+    parts = split_coco(coco, labels, names=list(split)) if split else {}
+    stems = {name: [sidecar_name(im["file_name"], "") for im in part["images"]] for name, part in parts.items()}
+    done: dict[str, int] = {}
+
+    if "coco" in formats:
+        write_coco(out / "annotations.json", coco)
+        done["coco"] = len(coco["images"])
+    if "voc" in formats:
+        with staged_dir(out / "voc") as tmp:
+            done["voc"] = voc_fmt.write_voc(coco, tmp)
+            for name, names in stems.items():
+                _write_list(tmp / "ImageSets" / "Main" / f"{name}.txt", names)
+    if "yolo" in formats:
+        with staged_dir(out / "yolo") as tmp:
+            done["yolo"] = yolo_fmt.write_yolo(coco, tmp)
+            for name, part in parts.items():
+                paths = [Path(os.path.relpath(images_dir / im["file_name"], out)).as_posix() for im in part["images"]]
+                _write_list(tmp / "splits" / f"{name}.txt", paths)
+    if "tokens" in formats:
+        with staged_file(out / "tokens.jsonl") as tmp, staged_file(out / "tokens.vocab.json") as vtmp:
+            done["tokens"] = tokens_fmt.write_tokens(coco, tmp, vtmp, n_bins=n_bins, order=order, seed=seed, noise=noise)
+        if parts:
+            _split_token_lines(out, parts)
+    if "masks" in formats:
+        if masks == "png":
+            with staged_dir(out / "masks") as tmp:
+                done["masks"] = masks_fmt.write_instance_pngs(coco, tmp)
+        else:
+            with staged_file(out / "masks.jsonl") as tmp:
+                done["masks"] = masks_fmt.write_mask_rles(coco, tmp)
+    for name, part in parts.items():
+        write_coco(out / coco_split_name(name), part)
+        done[f"split:{name}"] = len(part["images"])
+    if parts:
+        doc = {
+            "seed": seed,
+            "fractions": dict(split),
+            "splits": {name: [im["file_name"] for im in part["images"]] for name, part in parts.items()},
+        }
+        write_bytes_atomic(out / "splits.json", orjson.dumps(doc, option=orjson.OPT_INDENT_2))
+    return done
+
+
+def _write_list(path: Path, items: list[str]) -> None:
+    path.parent.mkdir(parents=True, exist_ok=True)
+    path.write_text("".join(f"{s}\n" for s in items), encoding="utf-8")
+
+
+def _split_token_lines(out: Path, parts: dict[str, dict]) -> None:
+    # Reuse the lines just written, so each split file holds the same bytes.
+    lines = {orjson.loads(t)["image_id"]: t for t in (out / "tokens.jsonl").read_bytes().splitlines() if t.strip()}
+    for name, part in parts.items():
+        chosen = [lines[im["id"]] for im in part["images"]]
+        with staged_file(out / f"tokens.{name}.jsonl") as tmp:
+            tmp.write_bytes(b"\n".join(chosen) + (b"\n" if chosen else b""))
+
+
+def _manifest_seed(dataset_dir: Path) -> int | None:
+    path = dataset_dir / "manifest.json"
+    if not path.is_file():
+        return None
+    try:
+        seed = orjson.loads(path.read_bytes()).get("seed")
+    except (orjson.JSONDecodeError, AttributeError):
+        raise InputFileError(path, "is not a valid manifest (JSON object)") from None
+    return seed if isinstance(seed, int) and not isinstance(seed, bool) else None
+
+
+def dataset_seed(dataset_dir) -> int:
+    """The root seed recorded in ``dataset_dir/manifest.json`` (0 when there is none)."""
+    return _manifest_seed(Path(dataset_dir)) or 0
+
+
+def export(
+    dataset_dir,
+    formats: Iterable[str],
+    *,
+    out=None,
+    split: Mapping[str, float] | None = None,
+    seed: int | None = None,
+    n_bins: int = 1000,
+    order: str = "random",
+    noise: Mapping[int, object] | Callable | None = None,
+    masks: str = "png",
+) -> dict[str, int]:
+    """Write formats of an existing dataset from its ``annotations.json``.
+
+    Parameters
+    ----------
+    dataset_dir : str or Path
+        A dataset directory holding ``annotations.json`` and ``images/``.
+    formats : iterable of str
+        Any of ``FORMATS``.
+    out : str or Path, optional
+        Output directory (default: ``dataset_dir`` itself).
+    seed : int, optional
+        Root seed for splits and random token order; default the ``seed`` of
+        ``dataset_dir/manifest.json``, else 0.
+    split, n_bins, order, noise, masks
+        As for :func:`write_formats`.
+
+    Returns
+    -------
+    dict
+        Format -> number of images written.
+
+    Raises
+    ------
+    synthgen.errors.InputFileError
+        When ``dataset_dir`` has no readable ``annotations.json``.
+    """
+    dataset_dir = Path(dataset_dir)
+    if not dataset_dir.is_dir():
+        raise InputFileError(dataset_dir, "is not a directory")
+    coco = read_coco(dataset_dir / "annotations.json")
+    if seed is None:
+        seed = dataset_seed(dataset_dir)
+    out = Path(out) if out is not None else dataset_dir
+    formats = list(formats)
+    formats = parse_formats(formats) if formats or not split else ()  # splits alone are fine
+    if out.resolve() == dataset_dir.resolve():
+        formats = tuple(f for f in formats if f != "coco")  # already there
+    return write_formats(
+        coco,
+        out,
+        formats,
+        images_dir=dataset_dir / "images",
+        split=split,
+        seed=seed,
+        n_bins=n_bins,
+        order=order,
+        noise=noise,
+        masks=masks,
+    )

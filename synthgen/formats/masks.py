@@ -1,0 +1,156 @@
+"""Instance masks (opt-in): per-image instance-id PNGs, or per-object RLE lines.
+
+Rule
+----
+``png`` mode: ``masks/<image stem>.png``, single-channel **uint16**, the image's
+size.  0 is background; pixel value ``i`` (1-based) is the ``i``-th annotation
+of that image in annotation order (the order of ``annotations`` in the COCO
+file, which for synthgen is draw order, bottom first).  Each annotation's mask
+is its ``segmentation`` (RLE, or a polygon filled with Pillow for other tools'
+files).  Where masks share pixels (anti-aliased edges of overlapping objects)
+the later annotation, the one drawn on top, wins.  At most 65,535 annotations
+per image.
+
+``rle`` mode: ``masks.jsonl``, one line per image: ``image_id``,
+``file_name``, and ``masks``, a list in annotation order of ``{"id",
+"category_id", "size": [H, W], "counts"}`` (COCO compressed RLE, see
+:mod:`synthgen.formats.rle`), exactly each annotation's own mask with no
+overlap resolution.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import orjson
+from PIL import Image, ImageDraw
+
+from synthgen.errors import InputFileError
+from synthgen.formats import rle
+from synthgen.formats._common import annotations_by_image, bad_record, sidecar_name
+
+__all__ = [
+    "MASK_MODES",
+    "annotation_mask",
+    "instance_id_image",
+    "write_instance_pngs",
+    "write_mask_rles",
+    "read_instance_png",
+    "read_mask_rles",
+]
+
+MASK_MODES = ("png", "rle")
+_MAX_IDS = 65535
+
+
+def annotation_mask(ann: dict, height: int, width: int) -> np.ndarray:
+    """Binary mask (bool (H, W)) of one COCO annotation's segmentation."""
+    seg = ann.get("segmentation")
+    if isinstance(seg, dict):
+        if list(seg.get("size", [])) != [height, width]:
+            raise ValueError(f"annotation {ann.get('id')}: RLE size {seg.get('size')} is not the image's [{height}, {width}]")
+        return rle.decode(seg)
+    if isinstance(seg, list) and seg:
+        canvas = Image.new("L", (width, height), 0)
+        draw = ImageDraw.Draw(canvas)
+        for poly in seg:
+            if len(poly) >= 6:
+                draw.polygon([float(v) for v in poly], fill=1)
+        return np.asarray(canvas, dtype=bool)
+    raise ValueError(f"annotation {ann.get('id')} has no segmentation")
+
+
+def instance_id_image(annotations: list[dict], height: int, width: int) -> np.ndarray:
+    """Instance-id image of one image's annotations.
+
+    Parameters
+    ----------
+    annotations : list of dict
+        The image's COCO annotations, in annotation order.
+    height, width : int
+        Image size in pixels.
+
+    Returns
+    -------
+    ndarray of uint16, shape (H, W)
+        0 background, ``i`` = the ``i``-th annotation (1-based); later ones win.
+    """
+    if len(annotations) > _MAX_IDS:
+        raise ValueError(f"an instance-id PNG holds at most {_MAX_IDS} annotations (got {len(annotations)})")
+    flat = np.zeros(width * height, dtype=np.uint16)  # column-major, as RLE runs are
+    for i, a in enumerate(annotations, start=1):
+        seg = a.get("segmentation")
+        if isinstance(seg, dict) and list(seg.get("size", [])) == [height, width]:
+            flat[rle.flat_indices(seg)] = i  # cost grows with the mask, not the canvas
+        else:
+            flat[annotation_mask(a, height, width).ravel(order="F")] = i
+    return flat.reshape(width, height).T.copy()
+
+
+def write_instance_pngs(coco: dict, out_dir) -> int:
+    """Write ``<image stem>.png`` instance-id images into ``out_dir``; returns the count."""
+    out_dir = Path(out_dir)
+    by_image = annotations_by_image(coco)
+    for im in coco["images"]:
+        ids = instance_id_image(by_image.get(im["id"], []), im["height"], im["width"])
+        target = out_dir / sidecar_name(im["file_name"], ".png")
+        target.parent.mkdir(parents=True, exist_ok=True)
+        Image.fromarray(ids).save(target, format="PNG", compress_level=6)
+    return len(coco["images"])
+
+
+def write_mask_rles(coco: dict, path) -> int:
+    """Write ``masks.jsonl`` (one line per image, per-object RLE); returns the line count."""
+    by_image = annotations_by_image(coco)
+    lines = []
+    for im in coco["images"]:
+        h, w = im["height"], im["width"]
+        masks = []
+        for a in by_image.get(im["id"], []):
+            seg = a.get("segmentation")
+            if not (isinstance(seg, dict) and isinstance(seg.get("counts"), str)):
+                seg = rle.encode(annotation_mask(a, h, w))
+            masks.append({"id": a["id"], "category_id": a["category_id"], "size": [h, w], "counts": seg["counts"]})
+        lines.append(orjson.dumps({"image_id": im["id"], "file_name": im["file_name"], "masks": masks}))
+    Path(path).write_bytes(b"\n".join(lines) + (b"\n" if lines else b""))
+    return len(lines)
+
+
+def read_instance_png(path) -> np.ndarray:
+    """Read an instance-id PNG as uint16 (H, W); raises InputFileError when unusable."""
+    path = Path(path)
+    try:
+        with Image.open(path) as im:
+            im.load()
+            arr = np.asarray(im)
+    except FileNotFoundError:
+        raise InputFileError(path, "does not exist") from None
+    except OSError as e:
+        raise bad_record(path, "", "must be a readable PNG", str(e)) from None
+    if arr.ndim != 2:
+        raise bad_record(path, "", "must be a single-channel image", arr.shape)
+    if arr.dtype.kind not in "ui" or (arr.size and (arr.min() < 0 or arr.max() > _MAX_IDS)):
+        raise bad_record(path, "", "must hold integer instance ids in [0, 65535]", str(arr.dtype))
+    return arr.astype(np.uint16, copy=False)
+
+
+def read_mask_rles(path) -> list[dict]:
+    """Read ``masks.jsonl``: per line the image's fields and ``masks`` decoded to bool (H, W) arrays."""
+    path = Path(path)
+    try:
+        raw = path.read_bytes()
+    except OSError as e:
+        raise InputFileError(path, f"cannot be read ({e.strerror or e})") from None
+    out = []
+    for n, text in enumerate(raw.splitlines(), start=1):
+        if not text.strip():
+            continue
+        try:
+            line = orjson.loads(text)
+            decoded = [rle.decode(m) for m in line["masks"]]
+        except (orjson.JSONDecodeError, KeyError, TypeError, ValueError) as e:
+            raise bad_record(path, f"line {n}", "must be a JSON object with RLE 'masks'", str(e)) from None
+        line["decoded"] = decoded
+        out.append(line)
+    return out

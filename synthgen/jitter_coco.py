@@ -1,0 +1,316 @@
+"""Simulated detections for a whole COCO dataset: the library side of ``synthgen jitter``.
+
+:func:`jitter_dataset` turns a COCO ground-truth dict into a COCO results list
+(predictions), a *truth sidecar* that says what each prediction is, and a
+summary of the counts; :func:`write_jitter_outputs` writes them atomically;
+:func:`jitter_files` does both for a dataset directory.
+
+Truth sidecar (JSON object, ``format`` = :data:`SIDECAR_FORMAT`)
+------------------------------------------------------------------
+``format`` : str
+    ``"synthgen-jitter-truth/1"``.
+``seed`` : int
+    Seed the predictions were made from.
+``spec`` : object
+    The :class:`~synthgen.jitter.DetectorSpec` fields as resolved (ranges as
+    2-lists).
+``predictions`` : list of objects, one per entry of the results file, same order
+    ``index`` (position in the results file), ``image_id``, ``category_id``,
+    ``bbox`` (as in the results file), ``score``, ``kind`` (one of
+    :data:`~synthgen.jitter.DETECTION_KINDS`), ``gt_id`` (annotation id of the
+    source box, null for background), ``iou`` (IoU with the source box, null for
+    background), ``other_iou`` (largest IoU with any other non-crowd annotation
+    of the image, any category).
+``ground_truth`` : list of objects, one per non-crowd annotation, in file order
+    ``gt_id``, ``image_id``, ``category_id``, ``outcome`` (one of
+    :data:`~synthgen.jitter.OUTCOMES`).
+``missed`` : list of int
+    ``gt_id`` of every annotation with no prediction.
+``summary`` : object
+    The summary below.
+
+Summary (JSON object)
+---------------------
+``images``, ``ground_truth`` (non-crowd annotations), ``ignored_crowd``,
+``predictions``; ``kinds`` and ``outcomes`` (count per name, every name
+present); ``iou`` (``[min, max]`` of the recorded IoU per sourced kind, null
+when there is none); ``ambiguous`` (sourced predictions with ``other_iou >=
+0.5``, which an evaluator may match to another box); ``background_shortfall``.
+
+Randomness: one generator from ``SeedSequence(seed, spawn_key=(JITTER_STREAM,))``,
+a stream apart from the per-image streams ``spawn_key=(k,)`` of dataset
+generation, so reusing a dataset's seed does not correlate the two.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+from pathlib import Path
+
+import numpy as np
+import orjson
+
+from synthgen.errors import InputFileError, UserError, check_number
+from synthgen.formats.coco import bbox_from_xyxy, read_coco, structure_problems, write_bytes_atomic, xyxy_from_bbox
+from synthgen.jitter import DETECTION_KINDS, OUTCOMES, DetectorSpec, simulate_detections
+
+__all__ = ["SIDECAR_FORMAT", "JITTER_STREAM", "jitter_dataset", "write_jitter_outputs", "jitter_files", "truth_path_for"]
+
+SIDECAR_FORMAT = "synthgen-jitter-truth/1"
+
+#: ``spawn_key`` of the jitter random stream (the bytes of "jitt").
+JITTER_STREAM = 0x6A697474
+
+# Boxes may overshoot their image by float rounding of x + w; beyond this (px) they are an error.
+_EDGE_SLACK = 1e-6
+
+
+def _problem(source: str, record: str, rule: str, value) -> InputFileError:
+    text = repr(value)
+    text = text if len(text) <= 60 else text[:57] + "..."
+    return InputFileError(source, f"{record}: {rule} (got {text})")
+
+
+def _parse(coco, source: str, keep_inside: bool):
+    """Arrays of the non-crowd ground truth; raises InputFileError for malformed input."""
+    for record, rule, value in structure_problems(coco):
+        raise _problem(source, record, rule, value)
+    images = coco["images"]
+    index_of = {}
+    sizes = np.zeros((len(images), 2))
+    for k, im in enumerate(images):
+        if im["id"] in index_of:
+            raise _problem(source, f"images[{k}]", "'id' must be unique", im["id"])
+        if im["width"] <= 0 or im["height"] <= 0:
+            raise _problem(source, f"images[{k}] (id {im['id']})", "'width' and 'height' must be > 0",
+                           [im["width"], im["height"]])
+        index_of[im["id"]] = k
+        sizes[k] = im["width"], im["height"]
+    cat_ids = [c["id"] for c in coco["categories"]]
+    if len(set(cat_ids)) != len(cat_ids):
+        raise _problem(source, "categories", "ids must be unique", cat_ids)
+    known = set(cat_ids)
+    seen = set()
+    keep = []
+    crowd = 0
+    for i, a in enumerate(coco["annotations"]):
+        rec = f"annotations[{i}] (id {a['id']})"
+        if a["id"] in seen:
+            raise _problem(source, rec, "'id' must be unique", a["id"])
+        seen.add(a["id"])
+        if a["image_id"] not in index_of:
+            raise _problem(source, rec, "'image_id' must name an image", a["image_id"])
+        if a["category_id"] not in known:
+            raise _problem(source, rec, "'category_id' must name a category", a["category_id"])
+        x, y, w, h = a["bbox"]
+        if not (all(math.isfinite(v) for v in (x, y, w, h)) and w > 0 and h > 0):
+            raise _problem(source, rec, "'bbox' must be finite with width and height > 0", a["bbox"])
+        if a.get("iscrowd", 0) == 1:
+            crowd += 1
+            continue
+        if keep_inside:
+            W, H = sizes[index_of[a["image_id"]]]
+            if x < -_EDGE_SLACK or y < -_EDGE_SLACK or x + w > W + _EDGE_SLACK or y + h > H + _EDGE_SLACK:
+                raise _problem(
+                    source, rec,
+                    f"'bbox' must lie inside its {W:g} x {H:g} image to keep predictions inside (or turn keep-inside off)",
+                    a["bbox"],
+                )
+        keep.append(a)
+    n = len(keep)
+    boxes = xyxy_from_bbox([a["bbox"] for a in keep]) if n else np.zeros((0, 4))
+    image = np.array([index_of[a["image_id"]] for a in keep], dtype=np.int64)
+    if keep_inside and n:
+        # absorb the rounding slack so the boxes meet the library's inside-the-canvas rule exactly
+        boxes[:, 0::2] = np.clip(boxes[:, 0::2], 0.0, sizes[image, 0][:, None])
+        boxes[:, 1::2] = np.clip(boxes[:, 1::2], 0.0, sizes[image, 1][:, None])
+    labels = np.array([a["category_id"] for a in keep], dtype=np.int64)
+    ids = np.array([a["id"] for a in keep], dtype=np.int64)
+    return boxes, labels, image, ids, sizes, np.array(sorted(known), dtype=np.int64), crowd
+
+
+def _num(v: float):
+    return None if not math.isfinite(v) else float(v)
+
+
+def _spec_json(spec: DetectorSpec) -> dict:
+    return {f.name: (list(v) if isinstance(v := getattr(spec, f.name), tuple) else v) for f in dataclasses.fields(spec)}
+
+
+def jitter_dataset(
+    coco: dict, *, seed: int, spec: DetectorSpec = DetectorSpec(), source: str = "annotations.json"
+) -> tuple[list[dict], dict, dict]:
+    """Simulated detections for a COCO dataset, with a sidecar saying what each one is.
+
+    Parameters
+    ----------
+    coco : dict
+        COCO ground truth (``images``, ``annotations``, ``categories``); not
+        modified.  Crowd annotations are left out of the truth.
+    seed : int
+        Seed, ``>= 0``; the same seed gives the same outputs byte for byte.
+    spec : DetectorSpec
+        How the simulated detector errs (see :class:`synthgen.jitter.DetectorSpec`).
+    source : str
+        Name of the input, used in error messages.
+
+    Returns
+    -------
+    predictions : list of dict
+        COCO results: ``{image_id, category_id, bbox: [x, y, w, h], score}``,
+        grouped by image, falling score within each.
+    sidecar : dict
+        What each prediction is; schema in the module docstring.
+    summary : dict
+        Counts; schema in the module docstring (also ``sidecar["summary"]``).
+
+    Raises
+    ------
+    synthgen.errors.InputFileError
+        Malformed ground truth (names ``source``, the record and the rule).
+    synthgen.errors.ConfigError
+        A bad seed.
+    """
+    check_number("seed", seed, lo=0, integer=True)
+    boxes, labels, image, ids, sizes, classes, crowd = _parse(coco, source, spec.keep_inside)
+    if spec.relabel > 0 and len(classes) < 2:
+        raise UserError(f"{source}: relabelling needs at least 2 categories (got {classes.tolist()})")
+    if spec.background > 0 and len(classes) == 0:
+        raise UserError(f"{source}: background boxes need at least one category (got none)")
+    rng = np.random.Generator(np.random.PCG64(np.random.SeedSequence(int(seed), spawn_key=(JITTER_STREAM,))))
+    det = simulate_detections(boxes, labels, sizes, rng=rng, spec=spec, image=image, classes=classes)
+
+    image_ids = [im["id"] for im in coco["images"]]
+    bboxes = bbox_from_xyxy(det.boxes)
+    predictions = []
+    records = []
+    for i in range(len(det)):
+        src = int(det.source[i])
+        pred = {
+            "image_id": image_ids[int(det.image[i])],
+            "category_id": int(det.labels[i]),
+            "bbox": bboxes[i],
+            "score": float(det.scores[i]),
+        }
+        predictions.append(pred)
+        records.append({
+            "index": i,
+            **pred,
+            "kind": str(det.kind[i]),
+            "gt_id": int(ids[src]) if src >= 0 else None,
+            "iou": _num(det.iou[i]),
+            "other_iou": float(det.other_iou[i]),
+        })
+    truth = [
+        {"gt_id": int(ids[g]), "image_id": image_ids[int(image[g])], "category_id": int(labels[g]),
+         "outcome": str(det.outcome[g])}
+        for g in range(len(ids))
+    ]
+    iou_ranges = {}
+    for kind in DETECTION_KINDS[:-1]:
+        v = det.iou[det.kind == kind]
+        iou_ranges[kind] = [float(v.min()), float(v.max())] if v.size else None
+    summary = {
+        "images": len(image_ids),
+        "ground_truth": len(ids),
+        "ignored_crowd": crowd,
+        "predictions": len(det),
+        "kinds": {k: int((det.kind == k).sum()) for k in DETECTION_KINDS},
+        "outcomes": {k: int((det.outcome == k).sum()) for k in OUTCOMES},
+        "iou": iou_ranges,
+        "ambiguous": int(((det.source >= 0) & (det.other_iou >= 0.5)).sum()),
+        "background_shortfall": int(det.background_shortfall),
+    }
+    sidecar = {
+        "format": SIDECAR_FORMAT,
+        "seed": int(seed),
+        "spec": _spec_json(spec),
+        "predictions": records,
+        "ground_truth": truth,
+        "missed": [int(ids[g]) for g in det.missed],
+        "summary": summary,
+    }
+    return predictions, sidecar, summary
+
+
+def truth_path_for(out) -> Path:
+    """Default sidecar path next to a results file: ``PRED.json`` -> ``PRED.truth.json``."""
+    out = Path(out)
+    return out.with_name(out.stem + ".truth.json")
+
+
+def _check_outputs(out: Path, truth: Path) -> None:
+    for path in (out, truth):
+        if not path.parent.is_dir():
+            raise InputFileError(path, "cannot be written: its directory does not exist")
+        if path.is_dir():
+            raise InputFileError(path, "cannot be written: it is a directory")
+    if out.resolve() == truth.resolve():
+        raise InputFileError(truth, "the truth sidecar must not be the predictions file")
+
+
+def write_jitter_outputs(out, truth, predictions: list[dict], sidecar: dict) -> None:
+    """Write the results file and its truth sidecar, each atomically.
+
+    Both documents are serialized and both paths checked before anything is
+    written, so bad paths leave no file behind.
+
+    Parameters
+    ----------
+    out : str or Path
+        COCO results file (JSON array).
+    truth : str or Path
+        Truth sidecar (JSON object).
+    predictions, sidecar
+        As returned by :func:`jitter_dataset`.
+
+    Raises
+    ------
+    synthgen.errors.InputFileError
+        When a directory is missing or both paths are the same.
+    """
+    out, truth = Path(out), Path(truth)
+    _check_outputs(out, truth)
+    pred_bytes = orjson.dumps(predictions)
+    truth_bytes = orjson.dumps(sidecar)
+    write_bytes_atomic(truth, truth_bytes)
+    write_bytes_atomic(out, pred_bytes)
+
+
+def jitter_files(dataset, out, *, truth=None, seed: int = 0, spec: DetectorSpec = DetectorSpec()) -> dict:
+    """Read ``DATASET/annotations.json``, simulate detections, write results and sidecar.
+
+    Parameters
+    ----------
+    dataset : str or Path
+        Dataset directory holding ``annotations.json``.
+    out : str or Path
+        COCO results file to write.
+    truth : str or Path, optional
+        Truth sidecar to write; default :func:`truth_path_for` ``(out)``.
+    seed : int
+    spec : DetectorSpec
+
+    Returns
+    -------
+    dict
+        The summary (see the module docstring).
+
+    Raises
+    ------
+    synthgen.errors.UserError
+        Missing dataset, malformed annotations, bad output paths; nothing is
+        written then.
+    """
+    dataset = Path(dataset)
+    out = Path(out)
+    truth = truth_path_for(out) if truth is None else Path(truth)
+    if not dataset.is_dir():
+        raise InputFileError(dataset, "is not a dataset directory (expected a directory holding annotations.json)")
+    _check_outputs(out, truth)
+    ann = dataset / "annotations.json"
+    coco = read_coco(ann)
+    predictions, sidecar, summary = jitter_dataset(coco, seed=seed, spec=spec, source=str(ann))
+    write_jitter_outputs(out, truth, predictions, sidecar)
+    return summary

@@ -1,0 +1,76 @@
+"""export: further formats and splits from an existing dataset, without re-rendering."""
+
+import orjson
+import pytest
+
+from synthgen.errors import ConfigError, InputFileError
+from synthgen.formats import export, read_coco
+from synthgen.formats.splits import assign_splits
+from tests._formats_helpers import make_dataset
+
+
+def test_export_writes_every_format_in_place(tmp_path):
+    """export writes voc/, yolo/, tokens and masks beside annotations.json."""
+    coco = make_dataset(tmp_path)
+    done = export(tmp_path, ["voc", "yolo", "tokens", "masks"])
+    assert done == {"voc": 3, "yolo": 3, "tokens": 3, "masks": 3}
+    assert sorted(p.name for p in (tmp_path / "voc").iterdir()) == ["000000.xml", "000001.xml", "000002.xml"]
+    assert sorted(p.name for p in (tmp_path / "yolo").iterdir()) == [
+        "000000.txt",
+        "000001.txt",
+        "000002.txt",
+        "labels.txt",
+    ]
+    assert len((tmp_path / "tokens.jsonl").read_bytes().splitlines()) == len(coco["images"])
+    assert (tmp_path / "tokens.vocab.json").is_file()
+    assert sorted(p.name for p in (tmp_path / "masks").iterdir()) == ["000000.png", "000001.png", "000002.png"]
+    assert not [p for p in tmp_path.iterdir() if p.name.startswith(".")]  # no temporaries left
+
+
+def test_export_to_another_directory_copies_the_coco_file(tmp_path):
+    """export --out elsewhere writes annotations.json there too."""
+    make_dataset(tmp_path / "d")
+    export(tmp_path / "d", ["coco", "yolo"], out=tmp_path / "o")
+    assert read_coco(tmp_path / "o" / "annotations.json") == read_coco(tmp_path / "d" / "annotations.json")
+    assert (tmp_path / "o" / "yolo" / "000002.txt").is_file()
+
+
+def test_export_splits_in_every_format(tmp_path):
+    """With a split, each split gets a COCO file, VOC/YOLO lists and a token file, all agreeing."""
+    make_dataset(tmp_path)
+    fractions = {"train": 2 / 3, "val": 1 / 3}
+    done = export(tmp_path, ["voc", "yolo", "tokens"], split=fractions, seed=5)
+    want = assign_splits(3, fractions, seed=5)
+    assert done["split:train"] == want.count("train") == 2
+    for name in fractions:
+        part = read_coco(tmp_path / f"annotations.{name}.json")
+        files = [f"{k:06d}.png" for k, s in enumerate(want) if s == name]
+        assert [im["file_name"] for im in part["images"]] == files
+        stems = [f[:-4] for f in files]
+        assert (tmp_path / "voc" / "ImageSets" / "Main" / f"{name}.txt").read_text().split() == stems
+        assert (tmp_path / "yolo" / "splits" / f"{name}.txt").read_text().split() == [f"images/{f}" for f in files]
+        lines = [orjson.loads(t) for t in (tmp_path / f"tokens.{name}.jsonl").read_bytes().splitlines()]
+        assert [ln["file_name"] for ln in lines] == files
+    doc = orjson.loads((tmp_path / "splits.json").read_bytes())
+    assert doc["seed"] == 5 and doc["splits"]["val"] == [f"{k:06d}.png" for k, s in enumerate(want) if s == "val"]
+
+
+def test_export_takes_the_seed_from_the_manifest(tmp_path):
+    """Without --seed, export uses the manifest's seed for the split."""
+    make_dataset(tmp_path)
+    (tmp_path / "manifest.json").write_bytes(orjson.dumps({"seed": 42}))
+    export(tmp_path, [], split={"a": 1 / 3, "b": 2 / 3})
+    assert orjson.loads((tmp_path / "splits.json").read_bytes())["seed"] == 42
+
+
+def test_export_rejects_an_unknown_format(tmp_path):
+    """An unknown format name raises ConfigError suggesting the close one."""
+    make_dataset(tmp_path)
+    with pytest.raises(ConfigError, match="did you mean 'yolo'"):
+        export(tmp_path, ["yollo"])
+
+
+def test_export_needs_annotations(tmp_path):
+    """A directory without annotations.json is an InputFileError naming the file."""
+    with pytest.raises(InputFileError, match="annotations.json: cannot be read"):
+        export(tmp_path, ["voc"])

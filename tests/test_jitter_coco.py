@@ -1,0 +1,252 @@
+"""Tests for synthgen.jitter_coco: simulated detections for a COCO dataset, its sidecar and its files."""
+
+from __future__ import annotations
+
+import contextlib
+import copy
+import io
+import os
+
+import numpy as np
+import orjson
+import pytest
+import shapely
+from pycocotools.coco import COCO
+from pycocotools.cocoeval import COCOeval
+
+from synthgen.errors import ConfigError, InputFileError, UserError
+from synthgen.jitter import DETECTION_KINDS, IOU_TOLERANCE, OUTCOMES, DetectorSpec
+from synthgen.jitter_coco import SIDECAR_FORMAT, jitter_dataset, jitter_files, truth_path_for, write_jitter_outputs
+
+
+def hand_coco() -> dict:
+    """Two images, three categories, nine boxes that do not overlap, one crowd region; ids from 1."""
+    boxes = {  # image id -> list of (category, [x, y, w, h])
+        1: [(1, [4.0, 4.0, 20.0, 12.0]), (2, [40.0, 6.0, 16.0, 16.0]), (3, [70.0, 30.0, 9.5, 25.25]),
+            (1, [0.0, 50.0, 1.0, 1.0]), (2, [85.0, 0.0, 15.0, 10.0])],
+        2: [(3, [10.0, 10.0, 30.0, 30.0]), (1, [50.0, 50.0, 14.0, 7.0]), (2, [0.0, 0.0, 5.0, 5.0]),
+            (1, [60.0, 0.0, 20.0, 20.0])],
+    }
+    anns = []
+    for image_id, items in boxes.items():
+        for cat, bbox in items:
+            anns.append({"id": len(anns) + 1, "image_id": image_id, "category_id": cat, "bbox": bbox,
+                         "area": bbox[2] * bbox[3], "iscrowd": 0})
+    anns.append({"id": len(anns) + 1, "image_id": 2, "category_id": 1, "bbox": [30.0, 60.0, 10.0, 10.0],
+                 "area": 100.0, "iscrowd": 1})
+    return {
+        "images": [{"id": 1, "file_name": "000000.png", "width": 100, "height": 80},
+                   {"id": 2, "file_name": "000001.png", "width": 90, "height": 90}],
+        "annotations": anns,
+        "categories": [{"id": c, "name": n, "supercategory": "shape"} for c, n in ((1, "rectangle"), (2, "ellipse"), (3, "star"))],
+    }
+
+
+def shapely_bbox_iou(a, b) -> float:
+    """IoU of two COCO [x, y, w, h] boxes by shapely polygon areas."""
+    pa = shapely.box(a[0], a[1], a[0] + a[2], a[1] + a[3])
+    pb = shapely.box(b[0], b[1], b[0] + b[2], b[1] + b[3])
+    return pa.intersection(pb).area / pa.union(pb).area
+
+
+def evaluate(gt: dict, preds: list[dict], iou_thrs=None) -> COCOeval:
+    """pycocotools bbox evaluation on copies (loadRes edits its input; REFERENCE.md pitfalls)."""
+    with contextlib.redirect_stdout(io.StringIO()):
+        cg = COCO()
+        cg.dataset = copy.deepcopy(gt)
+        cg.createIndex()
+        ev = COCOeval(cg, cg.loadRes(copy.deepcopy(preds)), "bbox")
+        if iou_thrs is not None:
+            ev.params.iouThrs = np.asarray(iou_thrs, float)
+        ev.evaluate()
+        ev.accumulate()
+        if iou_thrs is None:
+            ev.summarize()
+    return ev
+
+
+def test_zero_rates_give_only_true_positives_in_range():
+    """With every rate 0, each non-crowd box gets one true positive inside the IoU range."""
+    coco = hand_coco()
+    preds, sidecar, summary = jitter_dataset(coco, seed=3, spec=DetectorSpec(iou=(0.55, 0.7)))
+    gt = {a["id"]: a for a in coco["annotations"]}
+    assert len(preds) == 9 and summary["kinds"]["true_positive"] == 9
+    assert sorted(r["gt_id"] for r in sidecar["predictions"]) == list(range(1, 10))  # the crowd box (10) is left out
+    for p, r in zip(preds, sidecar["predictions"]):
+        ref = shapely_bbox_iou(p["bbox"], gt[r["gt_id"]]["bbox"])  # shapely reference
+        assert ref == pytest.approx(r["iou"], abs=IOU_TOLERANCE)
+        assert 0.55 - IOU_TOLERANCE <= ref <= 0.7 + IOU_TOLERANCE
+        assert p["category_id"] == gt[r["gt_id"]]["category_id"]
+    assert summary["ignored_crowd"] == 1
+
+
+def test_results_file_shape_and_sidecar_alignment():
+    """Results entries are exactly {image_id, category_id, bbox, score}; the sidecar mirrors them in order."""
+    preds, sidecar, summary = jitter_dataset(hand_coco(), seed=1, spec=DetectorSpec(miss=0.2, background=2.0, duplicates=0.3))
+    # REFERENCE.md: COCO JSON, results file is a JSON array of {image_id, category_id, bbox: [x, y, w, h], score}
+    assert all(set(p) == {"image_id", "category_id", "bbox", "score"} for p in preds)
+    assert sidecar["format"] == SIDECAR_FORMAT and sidecar["summary"] == summary
+    for i, (p, r) in enumerate(zip(preds, sidecar["predictions"])):
+        assert r["index"] == i and all(r[k] == p[k] for k in p)
+        assert r["kind"] in DETECTION_KINDS
+        assert (r["gt_id"] is None) == (r["kind"] == "background") == (r["iou"] is None)
+    assert summary["predictions"] == len(preds) == sum(summary["kinds"].values())
+    assert sum(summary["outcomes"].values()) == summary["ground_truth"] == 9
+    assert sorted(sidecar["missed"]) == sorted(g["gt_id"] for g in sidecar["ground_truth"] if g["outcome"] == "missed")
+    assert summary["outcomes"]["missed"] == 2  # floor(0.2 * 9 + 0.5)
+    assert all(g["outcome"] in OUTCOMES for g in sidecar["ground_truth"])
+
+
+def test_same_seed_same_bytes():
+    """The same seed gives byte-identical predictions and sidecar; another seed changes them."""
+    spec = DetectorSpec(miss=0.1, duplicates=0.2, background=1.0, relabel=0.1, score_overlap=0.3)
+    a = jitter_dataset(hand_coco(), seed=5, spec=spec)
+    b = jitter_dataset(hand_coco(), seed=5, spec=spec)
+    c = jitter_dataset(hand_coco(), seed=6, spec=spec)
+    assert orjson.dumps(a[0]) == orjson.dumps(b[0]) and orjson.dumps(a[1]) == orjson.dumps(b[1])
+    assert orjson.dumps(a[0]) != orjson.dumps(c[0])
+
+
+def test_input_is_not_modified():
+    """jitter_dataset leaves the COCO dict it is given unchanged."""
+    coco = hand_coco()
+    before = orjson.dumps(coco)
+    jitter_dataset(coco, seed=0, spec=DetectorSpec(background=1.0))
+    assert orjson.dumps(coco) == before
+
+
+def test_pycocotools_ap_known_answers():
+    """IoU in [0.55, 0.70] and no false positives: AP50 = 1, AP75 = 0; IoU >= 0.96: AP = 1 (pycocotools)."""
+    coco = hand_coco()
+    preds, _, _ = jitter_dataset(coco, seed=2, spec=DetectorSpec(iou=(0.55, 0.70)))
+    ev = evaluate(coco, preds)
+    # pycocotools 2.0.x stats order: AP, AP50, AP75, ... (REFERENCE.md: COCO-style AP)
+    assert ev.stats[1] == pytest.approx(1.0, abs=1e-9) and ev.stats[2] == 0.0
+    preds, _, _ = jitter_dataset(coco, seed=2, spec=DetectorSpec(iou=(0.96, 1.0)))
+    assert evaluate(coco, preds).stats[0] == pytest.approx(1.0, abs=1e-9)
+
+
+def test_pycocotools_recall_matches_missed_list():
+    """Recall at IoU 0.5 per category equals 1 - missed / total from the sidecar (pycocotools)."""
+    coco = hand_coco()
+    preds, sidecar, _ = jitter_dataset(coco, seed=8, spec=DetectorSpec(miss=0.34, duplicates=0.3, background=1.5))
+    assert all(r["other_iou"] < 0.5 for r in sidecar["predictions"])  # precondition of the known answer
+    ev = evaluate(coco, preds, iou_thrs=[0.5])
+    recall = ev.eval["recall"][0, :, 0, -1]  # pycocotools 2.0.x: [iouThr, category, area 'all', maxDets 100]
+    missed = set(sidecar["missed"])
+    for k, c in enumerate(ev.params.catIds):
+        ids = [g["gt_id"] for g in sidecar["ground_truth"] if g["category_id"] == c]
+        assert recall[k] == (len(ids) - len(missed & set(ids))) / len(ids)
+
+
+def test_boxes_touching_the_image_border_stay_inside():
+    """Predictions of border-touching boxes stay inside their images."""
+    coco = hand_coco()
+    preds, _, _ = jitter_dataset(coco, seed=4, spec=DetectorSpec(iou=(0.3, 0.5), duplicates=0.5, background=3.0))
+    size = {im["id"]: (im["width"], im["height"]) for im in coco["images"]}
+    for p in preds:
+        x, y, w, h = p["bbox"]
+        W, H = size[p["image_id"]]
+        assert x >= 0 and y >= 0 and x + w <= W + 1e-9 and y + h <= H + 1e-9
+
+
+def test_empty_annotations():
+    """A dataset without annotations gives only background predictions, or none."""
+    coco = hand_coco()
+    coco["annotations"] = []
+    preds, sidecar, summary = jitter_dataset(coco, seed=0)
+    assert preds == [] and sidecar["missed"] == [] and summary["ground_truth"] == 0
+    preds, _, summary = jitter_dataset(coco, seed=0, spec=DetectorSpec(background=2.0))
+    assert summary["kinds"]["background"] == len(preds)
+
+
+@pytest.mark.parametrize(
+    ("edit", "match"),
+    [
+        (lambda c: c.pop("images"), "'images' must be a list"),
+        (lambda c: c["annotations"][0].update(bbox=[1, 2, -3, 4]), r"annotations\[0\] \(id 1\): 'bbox' must be finite"),
+        (lambda c: c["annotations"][1].update(image_id=77), "'image_id' must name an image"),
+        (lambda c: c["annotations"][2].update(category_id=9), "'category_id' must name a category"),
+        (lambda c: c["annotations"][3].update(bbox=[95.0, 0.0, 10.0, 10.0]), "must lie inside its 100 x 80 image"),
+        (lambda c: c["annotations"][4].update(id=1), "'id' must be unique"),
+    ],
+)
+def test_malformed_ground_truth_is_a_user_error(edit, match):
+    """Malformed ground truth raises InputFileError naming the file, the record and the rule."""
+    coco = hand_coco()
+    edit(coco)
+    with pytest.raises(InputFileError, match=match) as info:
+        jitter_dataset(coco, seed=0, source="DIR/annotations.json")
+    assert str(info.value).startswith("DIR/annotations.json: ")
+
+
+def test_box_outside_image_allowed_without_keep_inside():
+    """Turning keep-inside off accepts boxes that leave their image."""
+    coco = hand_coco()
+    coco["annotations"][3]["bbox"] = [95.0, 0.0, 10.0, 10.0]
+    preds, _, _ = jitter_dataset(coco, seed=0, spec=DetectorSpec(keep_inside=False))
+    assert len(preds) == 9
+
+
+def test_relabel_needs_two_categories():
+    """Relabelling a one-category dataset is refused as a user error."""
+    coco = hand_coco()
+    coco["categories"] = coco["categories"][:1]
+    for a in coco["annotations"]:
+        a["category_id"] = 1
+    with pytest.raises(UserError, match="at least 2 categories"):
+        jitter_dataset(coco, seed=0, spec=DetectorSpec(relabel=0.5))
+
+
+def test_bad_seed():
+    """A negative seed is refused."""
+    with pytest.raises(ConfigError, match="'seed'"):
+        jitter_dataset(hand_coco(), seed=-1)
+
+
+def test_write_outputs_atomically(tmp_path):
+    """Both files are written under their final names and nothing else is left behind."""
+    preds, sidecar, _ = jitter_dataset(hand_coco(), seed=0)
+    write_jitter_outputs(tmp_path / "pred.json", tmp_path / "pred.truth.json", preds, sidecar)
+    assert sorted(os.listdir(tmp_path)) == ["pred.json", "pred.truth.json"]
+    assert orjson.loads((tmp_path / "pred.json").read_bytes()) == preds
+    assert orjson.loads((tmp_path / "pred.truth.json").read_bytes()) == sidecar
+
+
+def test_write_outputs_nothing_when_a_directory_is_missing(tmp_path):
+    """A missing output directory raises before either file is written."""
+    preds, sidecar, _ = jitter_dataset(hand_coco(), seed=0)
+    with pytest.raises(InputFileError, match="directory does not exist"):
+        write_jitter_outputs(tmp_path / "pred.json", tmp_path / "nope" / "t.json", preds, sidecar)
+    assert os.listdir(tmp_path) == []
+
+
+def write_dataset(root, coco) -> None:
+    root.mkdir()
+    (root / "annotations.json").write_bytes(orjson.dumps(coco))
+
+
+def test_jitter_files_end_to_end(tmp_path):
+    """jitter_files reads DATASET/annotations.json and writes results plus PRED.truth.json."""
+    write_dataset(tmp_path / "ds", hand_coco())
+    summary = jitter_files(tmp_path / "ds", tmp_path / "pred.json", seed=1, spec=DetectorSpec(background=1.0))
+    assert truth_path_for(tmp_path / "pred.json") == tmp_path / "pred.truth.json"
+    side = orjson.loads((tmp_path / "pred.truth.json").read_bytes())
+    assert side["summary"] == summary
+    assert len(orjson.loads((tmp_path / "pred.json").read_bytes())) == summary["predictions"]
+
+
+def test_jitter_files_missing_dataset_writes_nothing(tmp_path):
+    """A missing dataset directory is a user error and no output appears."""
+    with pytest.raises(InputFileError, match="is not a dataset directory"):
+        jitter_files(tmp_path / "absent", tmp_path / "pred.json")
+    assert os.listdir(tmp_path) == []
+
+
+def test_jitter_files_malformed_json_writes_nothing(tmp_path):
+    """Broken annotations.json is a user error naming the file; no output appears."""
+    (tmp_path / "ds").mkdir()
+    (tmp_path / "ds" / "annotations.json").write_text("{\"images\": [", encoding="utf-8")
+    with pytest.raises(InputFileError, match="annotations.json: is not valid JSON"):
+        jitter_files(tmp_path / "ds", tmp_path / "pred.json")
+    assert os.listdir(tmp_path) == ["ds"]
