@@ -480,21 +480,22 @@ def show(
         raise UserError("option '--truth' needs '--pred' (the predictions the sidecar describes)")
     ds = report.open_dataset(dataset)
     id_list = _parse_ids(ids) if ids is not None else None
-    predictions = None
+    predictions = missed = None
     how = ""
     if pred is not None:
         predictions = report.read_predictions(pred)
         if truth is not None:
-            kinds = report.read_truth_sidecar(truth, len(predictions))
+            side = report.read_truth_sidecar(truth, len(predictions))
             predictions = report.Predictions(
-                predictions.boxes, predictions.image_id, predictions.category_id, predictions.score, kinds
+                predictions.boxes, predictions.image_id, predictions.category_id, predictions.score, side.kinds
             )
+            missed = side.missed
             how = f", kinds from {truth}"
         else:
-            predictions, _ = report.classify_predictions(ds.coco, predictions)
+            predictions, missed = report.classify_predictions(ds.coco, predictions)
             how = ", kinds by matching at IoU 0.5"
     sheet = report.contact_sheet(
-        ds, n=images, ids=id_list, cols=cols, scale=scale, predictions=predictions, zoom=zoom
+        ds, n=images, ids=id_list, cols=cols, scale=scale, predictions=predictions, missed=missed, zoom=zoom
     )
     report.save_png(sheet.pixels, out)
     shown = len(id_list) if id_list is not None else min(images, len(ds.coco["images"]))

@@ -70,6 +70,7 @@ __all__ = [
     "open_dataset",
     "read_predictions",
     "read_truth_sidecar",
+    "TruthSidecar",
     "classify_predictions",
     "outline_pixels",
     "draw_boxes",
@@ -322,7 +323,23 @@ def _kind_name(value) -> str | None:
     return _KIND_ALIASES.get(v, _KIND_ALIASES.get(v.replace("_", " ")))
 
 
-def read_truth_sidecar(path, n_predictions: int) -> tuple[str, ...]:
+@dataclass(frozen=True, slots=True)
+class TruthSidecar:
+    """What a truth sidecar says.
+
+    Attributes
+    ----------
+    kinds : tuple of str
+        One of :data:`PREDICTION_KINDS` per prediction, in the results file's order.
+    missed : frozenset of int or None
+        Annotation ids no prediction was made from (None when the file does not say).
+    """
+
+    kinds: tuple[str, ...]
+    missed: frozenset | None = None
+
+
+def read_truth_sidecar(path, n_predictions: int) -> TruthSidecar:
     """Read what each prediction is from a truth sidecar written by ``synthgen jitter``.
 
     The file is read defensively.  Accepted shapes: a JSON array with one
@@ -332,7 +349,10 @@ def read_truth_sidecar(path, n_predictions: int) -> tuple[str, ...]:
     ``"status"``, ``"type"``), one of :data:`PREDICTION_KINDS` or a close alias
     (``"localization_error"``, ``"tp"``, ...); a record with an integer
     ``"index"`` (or ``"prediction"``) refers to that position in the
-    predictions file instead of its own position.
+    predictions file instead of its own position.  A top-level ``"missed"``
+    list of annotation ids, when present, says which ground truth has no
+    prediction.  These are the keys ``synthgen jitter`` writes
+    (``synthgen.jitter_coco``, format ``synthgen-jitter-truth/1``).
 
     Parameters
     ----------
@@ -342,7 +362,7 @@ def read_truth_sidecar(path, n_predictions: int) -> tuple[str, ...]:
 
     Returns
     -------
-    tuple of str, length ``n_predictions``
+    TruthSidecar
 
     Raises
     ------
@@ -387,7 +407,10 @@ def read_truth_sidecar(path, n_predictions: int) -> tuple[str, ...]:
         raise InputFileError(
             path, f"says nothing about {len(missing)} of {n_predictions} predictions (first: prediction {missing[0]})"
         )
-    return tuple(kinds)  # type: ignore[arg-type]
+    missed = None
+    if isinstance(data, dict) and isinstance(data.get("missed"), list):
+        missed = frozenset(int(g) for g in data["missed"] if type(g) is int)
+    return TruthSidecar(tuple(kinds), missed)  # type: ignore[arg-type]
 
 
 def _truth_arrays(coco: Mapping):
@@ -408,11 +431,12 @@ def classify_predictions(coco: Mapping, preds: Predictions, *, iou: float = 0.5,
     Per image, predictions are taken in descending score (ties keep the file's
     order, as the COCO evaluation does; REFERENCE.md: COCO-style AP).  Each
     takes the free ground truth of its own class with the highest IoU
-    ``>= iou`` and is a ``true_positive``; otherwise it is a ``duplicate`` when
+    ``>= iou`` (among equal IoUs the later annotation, as pycocotools does)
+    and is a ``true_positive``; otherwise it is a ``duplicate`` when
     a taken box of its class has IoU ``>= iou``, ``wrong_class`` when a box of
     another class has IoU ``>= iou``, ``localization`` when a box of its class
     has IoU in ``[near, iou)``, and ``background`` otherwise.  Crowd
-    annotations are left out.
+    annotations are left out; there is no cap on detections per image.
 
     Parameters
     ----------
@@ -426,8 +450,8 @@ def classify_predictions(coco: Mapping, preds: Predictions, *, iou: float = 0.5,
     -------
     kinds : Predictions
         ``preds`` with ``kind`` filled in.
-    matched : ndarray of bool, shape (N,)
-        Per annotation in file order: matched by a true positive.
+    missed : frozenset of int
+        Ids of the non-crowd annotations no true positive matched.
 
     Examples
     --------
@@ -437,7 +461,7 @@ def classify_predictions(coco: Mapping, preds: Predictions, *, iou: float = 0.5,
     >>> classify_predictions(gt, p)[0].kind
     ('true_positive', 'duplicate', 'background')
     """
-    gt_boxes, gt_img, gt_cat, crowd, _ = _truth_arrays(coco)
+    gt_boxes, gt_img, gt_cat, crowd, anns = _truth_arrays(coco)
     kinds = [""] * len(preds)
     matched = np.zeros(len(gt_boxes), dtype=bool)
     usable = ~crowd
@@ -452,7 +476,8 @@ def classify_predictions(coco: Mapping, preds: Predictions, *, iou: float = 0.5,
             v = ious[row]
             free = same & ~taken & (v >= iou)
             if free.any():
-                best = int(np.argmax(np.where(free, v, -1.0)))
+                score = np.where(free, v, -1.0)[::-1]
+                best = len(score) - 1 - int(np.argmax(score))  # the last of equal IoUs
                 taken[best] = True
                 kinds[p] = "true_positive"
             elif (same & (v >= iou)).any():
@@ -465,7 +490,8 @@ def classify_predictions(coco: Mapping, preds: Predictions, *, iou: float = 0.5,
                 kinds[p] = "background"
         matched[g_idx[taken]] = True
     out = Predictions(preds.boxes, preds.image_id, preds.category_id, preds.score, tuple(kinds))
-    return out, matched
+    missed = frozenset(a.get("id") for a, m, c in zip(anns, matched, crowd) if not m and not c)
+    return out, missed
 
 
 # --------------------------------------------------------------------------- drawing boxes
@@ -747,9 +773,10 @@ class _Overlay:
     category_names: dict
     predictions: Predictions | None
     pred_colours: np.ndarray | None  # (P, 3) uint8
+    missed: np.ndarray | None  # (N,) bool: no prediction found this object (None: not known)
 
     @classmethod
-    def build(cls, coco: Mapping, predictions: Predictions | None) -> _Overlay:
+    def build(cls, coco: Mapping, predictions: Predictions | None, missed=None) -> _Overlay:
         boxes, img, cat, _, anns = _truth_arrays(coco)
         cats = sorted(coco.get("categories", []), key=lambda c: c["id"])
         order = {c["id"]: i for i, c in enumerate(cats)}
@@ -760,9 +787,12 @@ class _Overlay:
         pred_colours = None
         if predictions is not None:
             pred_colours = np.array([PREDICTION_COLOURS.get(k, _MUTED) for k in predictions.kind], dtype=np.uint8)
+        missed_flags = None
+        if missed is not None:
+            missed_flags = np.array([a.get("id") in missed for a in anns], dtype=bool)
         return cls(
             boxes, img, cat, colours.reshape(-1, 3), area, {c["id"]: c["name"] for c in cats},
-            predictions, None if pred_colours is None else pred_colours.reshape(-1, 3),
+            predictions, None if pred_colours is None else pred_colours.reshape(-1, 3), missed_flags,
         )
 
     def for_image(self, image_id: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -799,6 +829,8 @@ def _render_tile(ds: Dataset, image: Mapping, overlay: _Overlay, scale: float, s
     if p is not None:
         kinds = Counter(k for k, i in zip(p.kind, p.image_id) if i == image_id)
         caption += f" · {sum(kinds.values())} pred, {kinds.get('true_positive', 0)} TP"
+        if overlay.missed is not None:
+            caption += f", {int(np.count_nonzero(overlay.missed[overlay.image_id == image_id]))} missed"
     return _Tile(image_id, draw_boxes(pix, boxes, colours, sx=sx, sy=sy, dashed=dashed), caption, sx, sy)
 
 
@@ -918,6 +950,7 @@ def contact_sheet(
     cols: int | None = None,
     scale: float | None = None,
     predictions: Predictions | None = None,
+    missed=None,
     zoom: bool = False,
     zoom_count: int | None = None,
 ) -> Sheet:
@@ -941,6 +974,9 @@ def contact_sheet(
     predictions : Predictions, optional
         Drawn dashed over the truth, coloured by ``kind``
         (:data:`PREDICTION_COLOURS`).
+    missed : collection of int, optional
+        Annotation ids no prediction found (from :func:`classify_predictions`
+        or a truth sidecar); each caption then counts its image's.
     zoom : bool
         Add a strip of the smallest objects among the shown images (longer
         side up to 21 px, and only where the crop enlarges more than the tile
@@ -966,7 +1002,7 @@ def contact_sheet(
     chosen = _select_images(ds.coco, n, ids)
     if not chosen:
         raise InputFileError(ds.source, "has no images to show")
-    overlay = _Overlay.build(ds.coco, predictions)
+    overlay = _Overlay.build(ds.coco, predictions, missed)
     auto = {int(im["id"]): auto_scale(im["width"], im["height"]) for im in chosen}
     mixed = scale is None and len(set(auto.values())) > 1
     tiles = [_render_tile(ds, im, overlay, auto[int(im["id"])] if scale is None else scale, mixed) for im in chosen]

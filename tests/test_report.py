@@ -165,9 +165,9 @@ def test_palettes_stay_apart_under_colour_vision_deficiencies(palette):
 def test_classify_names_each_kind_of_prediction():
     """TP, duplicate, wrong class, localization error and background come out as built."""
     gt = {"annotations": [
-        {"image_id": 1, "category_id": 1, "bbox": [0, 0, 10, 10]},
-        {"image_id": 1, "category_id": 2, "bbox": [40, 40, 10, 10]},
-        {"image_id": 1, "category_id": 1, "bbox": [70, 0, 10, 10]},
+        {"id": 1, "image_id": 1, "category_id": 1, "bbox": [0, 0, 10, 10]},
+        {"id": 2, "image_id": 1, "category_id": 2, "bbox": [40, 40, 10, 10]},
+        {"id": 3, "image_id": 1, "category_id": 1, "bbox": [70, 0, 10, 10]},
     ]}
     boxes = np.array([
         [0, 0, 10, 10],      # TP of annotation 0
@@ -177,9 +177,9 @@ def test_classify_names_each_kind_of_prediction():
         [200, 200, 210, 210],  # background
     ], dtype=float)
     p = report.Predictions(boxes, np.ones(5, int), np.ones(5, int), np.array([0.9, 0.8, 0.7, 0.6, 0.5]), ("",) * 5)
-    out, matched = report.classify_predictions(gt, p)
+    out, missed = report.classify_predictions(gt, p)
     assert out.kind == ("true_positive", "duplicate", "wrong_class", "localization", "background")
-    assert matched.tolist() == [True, False, False]
+    assert missed == {2, 3}
 
 
 def test_classify_true_positives_agree_with_pycocotools(small_dataset):
@@ -228,10 +228,11 @@ def test_truth_sidecar_is_read_in_its_accepted_shapes(tmp_path):
     """A list of records, an object with 'predictions', aliases and explicit indices all give the kinds."""
     a = tmp_path / "a.json"
     a.write_text(json.dumps([{"kind": "true_positive"}, {"kind": "localization_error"}, {"status": "bg"}]))
-    assert report.read_truth_sidecar(a, 3) == ("true_positive", "localization", "background")
+    assert report.read_truth_sidecar(a, 3).kinds == ("true_positive", "localization", "background")
     b = tmp_path / "b.json"
-    b.write_text(json.dumps({"predictions": [{"index": 1, "kind": "duplicate"}, {"index": 0, "kind": "wrong_class"}]}))
-    assert report.read_truth_sidecar(b, 2) == ("wrong_class", "duplicate")
+    b.write_text(json.dumps({"predictions": [{"index": 1, "kind": "duplicate"}, {"index": 0, "kind": "wrong_class"}],
+                             "missed": [7]}))
+    assert report.read_truth_sidecar(b, 2) == report.TruthSidecar(("wrong_class", "duplicate"), frozenset({7}))
     c = tmp_path / "c.json"
     c.write_text(json.dumps([{"kind": "great"}]))
     with pytest.raises(InputFileError, match="record 0: the kind must be one of"):
@@ -434,3 +435,26 @@ def test_saved_pictures_are_readable_by_others(tmp_path):
     finally:
         os.umask(old)
     assert (tmp_path / "x.png").stat().st_mode & 0o777 == 0o644
+
+
+def test_matching_agrees_with_what_the_jitter_sidecar_says(small_dataset):
+    """On simulated detections, greedy matching names each unambiguous prediction as the simulator built it."""
+    from synthgen.jitter import DetectorSpec
+    from synthgen.jitter_coco import jitter_dataset
+
+    out, _ = small_dataset
+    coco = json.loads((out / "annotations.json").read_text())
+    spec = DetectorSpec(miss=0.1, localization=0.15, duplicates=0.15, background=1.0, relabel=0.15)
+    preds, sidecar, _ = jitter_dataset(coco, seed=4, spec=spec)
+    path = out.parent / "jitter-preds.json"
+    path.write_text(json.dumps(preds))
+    ours, missed = report.classify_predictions(coco, report.read_predictions(path))
+    told = sidecar["predictions"]
+    (out.parent / "jitter-truth.json").write_text(json.dumps(sidecar))
+    read = report.read_truth_sidecar(out.parent / "jitter-truth.json", len(preds))  # the format jitter writes
+    assert read.kinds == tuple(r["kind"] for r in told) and read.missed == set(sidecar["missed"])
+    clear = [i for i, r in enumerate(told) if r["other_iou"] < 0.5]  # no other box competes for it
+    assert len(set(told[i]["kind"] for i in clear)) == 5
+    assert [ours.kind[i] for i in clear] == [told[i]["kind"] for i in clear]
+    not_found = {g["gt_id"] for g in sidecar["ground_truth"] if g["outcome"] != "detected"}
+    assert missed == not_found
