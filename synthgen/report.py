@@ -1151,15 +1151,23 @@ def _object_facts(coco: Mapping) -> dict:
 
 
 def _settings(coco: Mapping, manifest: Mapping | None) -> tuple[dict, list[str]]:
-    """Clutter, degradation and background settings used, from the manifest and image facts."""
+    """Clutter, degradation and background settings used, from the manifest and the image facts.
+
+    Image facts read (under ``image["synthgen"]``): ``background`` (a kind, or
+    an object with ``kind``), ``degradations`` (name -> parameters of each one
+    applied to the image), ``clutter`` (``marks``: marks drawn, and a count per
+    mark kind).  From the manifest: ``config.degrade`` (the degradations with
+    ``p > 0``), ``config.clutter``, ``config.background.kind``.
+    """
     notes = []
     out: dict = {}
     images = coco.get("images", [])
     facts = [im.get("synthgen") for im in images if isinstance(im.get("synthgen"), dict)]
     if facts:
-        bg = Counter()
-        applied = Counter()
-        clutter = []
+        bg: Counter = Counter()
+        applied: Counter = Counter()
+        params: dict[str, dict[str, list[float]]] = {}
+        marks, mark_kinds = [], Counter()
         for f in facts:
             b = f.get("background")
             kind = b.get("kind") if isinstance(b, dict) else b
@@ -1167,19 +1175,30 @@ def _settings(coco: Mapping, manifest: Mapping | None) -> tuple[dict, list[str]]
                 bg[kind] += 1
             d = f.get("degradations")
             if isinstance(d, dict):
-                applied.update(k for k, v in d.items() if v not in (None, False, {}, []))
+                for name, v in d.items():
+                    if v in (None, False, [], {}) and not isinstance(v, dict):
+                        continue
+                    applied[name] += 1
+                    for key, x in (v.items() if isinstance(v, dict) else ()):
+                        if _num(x):
+                            params.setdefault(name, {}).setdefault(key, []).append(float(x))
             elif isinstance(d, list):
                 applied.update(str(k) for k in d)
             c = f.get("clutter")
-            if isinstance(c, dict) and _num(c.get("count")):
-                clutter.append(c["count"])
-            elif _num(c):
-                clutter.append(c)
+            if isinstance(c, dict):
+                n = c.get("marks", c.get("count"))
+                if _num(n):
+                    marks.append(n)
+                mark_kinds.update({k: int(v) for k, v in c.items() if k not in ("marks", "count") and _num(v)})
         if bg:
             out["backgrounds"] = dict(sorted(bg.items()))
         out["degraded_images"] = dict(sorted(applied.items()))
-        if clutter:
-            out["clutter_marks_per_image"] = _quantiles(np.array(clutter, dtype=float))
+        ranges = {name: {k: [min(v), max(v)] for k, v in kv.items()} for name, kv in params.items()}
+        if ranges:
+            out["degradation_ranges"] = ranges
+        if marks:
+            out["clutter_marks_per_image"] = _quantiles(np.array(marks, dtype=float))
+            out["clutter_marks_by_kind"] = dict(sorted(mark_kinds.items()))
     config = manifest.get("config") if isinstance(manifest, Mapping) else None
     if isinstance(config, Mapping):
         deg = config.get("degrade")
@@ -1194,8 +1213,8 @@ def _settings(coco: Mapping, manifest: Mapping | None) -> tuple[dict, list[str]]
             out["background_config"] = bgc["kind"]
     elif not facts:
         notes.append("settings: no synthgen manifest or image facts; clutter and degradation settings unknown")
-    if isinstance(config, Mapping) and "clutter" not in config and not any("clutter" in f for f in facts):
-        notes.append("clutter: no clutter settings in the manifest or image facts; skipped")
+    if (isinstance(config, Mapping) or facts) and "clutter_config" not in out and "clutter_marks_per_image" not in out:
+        notes.append("clutter: not recorded by the tool that made this dataset; skipped")
     return out, notes
 
 
@@ -1398,14 +1417,22 @@ def stats_tables(stats: Mapping, title: str = "dataset"):
             )
             t.add_row("degradations (config)", text or "none")
         if "degraded_images" in st:
-            d = st["degraded_images"]
-            t.add_row("degradations applied (images)", ", ".join(f"{k} {v}" for k, v in d.items()) or "none")
+            d, r = st["degraded_images"], st.get("degradation_ranges", {})
+
+            def applied(name, n):
+                spans = ", ".join(f"{k} {_fmt(lo)}..{_fmt(hi)}" for k, (lo, hi) in r.get(name, {}).items())
+                return f"{name} {n}" + (f" ({spans})" if spans else "")
+
+            t.add_row("degradations applied (images)", "; ".join(applied(k, v) for k, v in d.items()) or "none")
         if "clutter_config" in st:
             t.add_row("clutter (config)", ", ".join(f"{k}={_fmt_value(v)}" for k, v in st["clutter_config"].items()))
         if "clutter_marks_per_image" in st:
             q = st["clutter_marks_per_image"]
             text = f"min {_fmt(q['min'])}, median {_fmt(q['median'])}, max {_fmt(q['max'])}"
             t.add_row("clutter marks per image", text)
+            kinds = st.get("clutter_marks_by_kind") or {}
+            if kinds:
+                t.add_row("clutter marks by kind", ", ".join(f"{k} {v}" for k, v in kinds.items()))
         parts.append(t)
     for note in stats.get("notes", []):
         parts.append(Text(f"note: {note}", style="dim"))

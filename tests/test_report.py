@@ -458,3 +458,22 @@ def test_matching_agrees_with_what_the_jitter_sidecar_says(small_dataset):
     assert [ours.kind[i] for i in clear] == [told[i]["kind"] for i in clear]
     not_found = {g["gt_id"] for g in sidecar["ground_truth"] if g["outcome"] != "detected"}
     assert missed == not_found
+
+
+def test_stats_report_the_degradations_each_image_got(tmp_path):
+    """Per-degradation image counts and parameter ranges equal a direct count over the image facts."""
+    from synthgen.config import load_config
+    from synthgen.dataset import make_dataset
+
+    cfg = load_config(overrides=["count=5", "seed=3", "canvas.width=48", "canvas.height=32",
+                                 "degrade.noise.p=1", "degrade.jpeg.p=0.5"])
+    make_dataset(cfg, tmp_path / "d", workers=1)
+    ds = report.open_dataset(tmp_path / "d")
+    st = report.dataset_stats(ds.coco, ds.manifest)["settings"]
+    coco = json.loads((tmp_path / "d" / "annotations.json").read_text())
+    facts = [im["synthgen"]["degradations"] for im in coco["images"]]
+    assert st["degraded_images"]["noise"] == sum("noise" in f for f in facts) == 5
+    assert st["degraded_images"].get("jpeg", 0) == sum("jpeg" in f for f in facts)
+    sig = [f["noise"]["sigma"] for f in facts]
+    assert st["degradation_ranges"]["noise"]["sigma"] == [min(sig), max(sig)]
+    assert set(st["degrade_config"]) == {"noise", "jpeg"}
