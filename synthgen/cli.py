@@ -500,7 +500,8 @@ def show(
     report.save_png(sheet.pixels, out)
     shown = len(id_list) if id_list is not None else min(images, len(ds.coco["images"]))
     extra = f", {len(predictions)} predictions{how}" if predictions is not None else ""
-    typer.echo(f"wrote {out} ({sheet.pixels.shape[1]}x{sheet.pixels.shape[0]} px, {shown} images{extra})")
+    size = f"{sheet.pixels.shape[1]}x{sheet.pixels.shape[0]} px"
+    typer.echo(f"wrote {out} ({size}, {shown} image{'s' if shown != 1 else ''}{extra})")
 
 
 @app.command()
@@ -526,7 +527,8 @@ def stats(
         report.save_json(result, json_out)
         typer.echo(f"wrote {json_out}")
     if plot is not None:
-        title = f"{ds.name}: {result['images']} images, {result['objects']} objects"
+        n_im, n_obj = result["images"], result["objects"]
+        title = f"{ds.name}: {n_im} image{'s' if n_im != 1 else ''}, {n_obj} object{'s' if n_obj != 1 else ''}"
         fig = report.stats_figure(ds.coco, title=title)
         report.save_figure(fig, plot)
         typer.echo(f"wrote {plot}")

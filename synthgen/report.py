@@ -1054,7 +1054,8 @@ def contact_sheet(
     if legend1:
         _draw_legend(draw, truth_label, legend1, pad + title_h, pad, fonts)
     else:
-        draw.text((pad, pad + title_h), "no annotated objects in these images", fill=_MUTED, font=fonts.text)
+        these = "this image" if len(tiles) == 1 else "these images"
+        draw.text((pad, pad + title_h), f"no annotated objects in {these}", fill=_MUTED, font=fonts.text)
     if legend2:
         _draw_legend(draw, pred_label, legend2, pad + title_h + h1, pad, fonts)
 
@@ -1072,10 +1073,12 @@ def contact_sheet(
         y0 = header_h + grid_h + gap
         limit = f"{_zoom_limit(_ZOOM_SIDE):.0f}"
         if crops:
-            label = (f"the {len(crops)} smallest objects (by area; longer side up to {limit} px) in these images, "
+            these = "this image" if len(tiles) == 1 else "these images"
+            label = (f"the {len(crops)} smallest objects (by area; longer side up to {limit} px) in {these}, "
                      "enlarged with nearest neighbour")
         else:
-            label = f"no object in these images is small enough to enlarge (longer side up to {limit} px)"
+            these = "this image" if len(tiles) == 1 else "these images"
+            label = f"no object in {these} is small enough to enlarge (longer side up to {limit} px)"
         draw.text((pad, y0), _fit(draw, label, fonts.text, sheet_w - 2 * pad), fill=_MUTED, font=fonts.text)
         for i, (pix, line1, line2, where) in enumerate(crops):
             r, c = divmod(i, zoom_cols)
@@ -1505,7 +1508,7 @@ def stats_figure(coco: Mapping, *, width: float = 12.0, height: float = 7.0, tit
         step = max(1, math.ceil((top - low + 1) / 40))  # whole-number bins, at most 40 of them
         edges = np.arange(low, top + step + 1, step) - 0.5
         ax.hist(per, bins=edges, color=blue, edgecolor="white", linewidth=0.4)
-        ax.set_xlim(edges[0] - step, edges[-1] + step)
+        ax.set_xlim(edges[0] - (step if low > 0 else 0), edges[-1] + step)
         ax.xaxis.get_major_locator().set_params(integer=True)
         ax.yaxis.get_major_locator().set_params(integer=True)
         ax.text(0.97, 0.95, f"min {per.min()} · median {np.median(per):g} · max {per.max()}",
@@ -1536,7 +1539,7 @@ def stats_figure(coco: Mapping, *, width: float = 12.0, height: float = 7.0, tit
                 transform=ax.transAxes, ha="left", va="top", fontsize=8, color="#555555")
         ax.margins(y=0.15)
     else:
-        _empty(ax, "not recorded in this file\n(a synthgen per-object fact)")
+        _empty(ax, "not recorded in this file\n(a synthgen per-object fact)" if f["boxes"].size else "no objects")
     ax.set_title("visible fraction")
     ax.set_xlabel("visible / full coverage")
     if ax.get_yscale() != "log":
@@ -1568,6 +1571,7 @@ def stats_figure(coco: Mapping, *, width: float = 12.0, height: float = 7.0, tit
         vals = [cc.get(c["id"], 0) for c in cats][::-1]
         colours = ["#%02x%02x%02x" % _category_colour(i) for i in range(len(cats))][::-1]
         ax.barh(np.arange(len(cats)), vals, color=colours, edgecolor="#333333", linewidth=0.5)
+        ax.set_xlim(0, max(max(vals), 1) * 1.05)
         ax.set_yticks(np.arange(len(cats)), names, fontsize=8 if len(cats) <= 20 else 6)
         if len(cats) > 40:
             ax.set_yticks([])
@@ -1587,6 +1591,7 @@ def stats_figure(coco: Mapping, *, width: float = 12.0, height: float = 7.0, tit
     ax.set_xlabel("by the annotation's area (px²), ends inclusive")
     ax.set_ylabel("objects")
     ax.margins(y=0.15)
+    ax.set_ylim(0, max(max(counts), 1) * 1.15)
     for a in axes.flat:
         a.spines[["top", "right"]].set_visible(False)
     return fig

@@ -341,7 +341,8 @@ def test_both_commands_work_on_another_tools_coco_file(tmp_path):
         {"id": 3, "image_id": 11, "category_id": 3, "bbox": [0, 0, 2, 3], "area": 6.0, "iscrowd": 0},
     ]
     cats = [{"id": 3, "name": "bolt", "supercategory": "hardware"}, {"id": 4, "name": "nut", "supercategory": "hardware"}]
-    path = _write_dataset(tmp_path / "other", images, anns, cats, subdir=None).rename(tmp_path / "other" / "gt.json")
+    path = _write_dataset(tmp_path / "other", images, anns, cats, subdir=None)
+    path = path.rename(tmp_path / "other" / "gt.json")
     res = run("show", path, "--out", tmp_path / "o.png", "--zoom")
     assert res.exit_code == 0, res.output
     res = run("stats", path, "--json", tmp_path / "o.json", "--plot", tmp_path / "o_plot.png")
