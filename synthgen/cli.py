@@ -440,8 +440,9 @@ def show(
     dataset: DatasetArg,
     out: Annotated[Path, typer.Option("--out", "-o", help="Contact sheet to write (PNG).")] = ...,
     images: Annotated[
-        int, typer.Option("--images", "-n", help="Number of images: the first N by image id.", min=1)
-    ] = 16,
+        Optional[int],
+        typer.Option("--images", "-n", help="Number of images: the first N by image id [default: 16].", min=1),
+    ] = None,
     ids: Annotated[
         Optional[str],
         typer.Option("--ids", help="Comma-separated COCO image ids to show, e.g. 3,7,9 (instead of --images)."),
@@ -476,6 +477,9 @@ def show(
     """Draw a contact sheet: images in a grid with their boxes, ids and a legend."""
     from synthgen import report
 
+    if images is not None and ids is not None:
+        raise UserError("options '--images' and '--ids' choose the images in two ways; give one")
+    images = 16 if images is None else images
     if truth is not None and pred is None:
         raise UserError("option '--truth' needs '--pred' (the predictions the sidecar describes)")
     ds = report.open_dataset(dataset)

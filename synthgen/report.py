@@ -1601,11 +1601,14 @@ def _pow2_ticks(ax, lo: float, hi: float) -> None:
     """Label a log axis at powers of two, as plain numbers."""
     from matplotlib.ticker import FixedLocator, NullFormatter
 
-    ticks = [2.0**k for k in range(math.floor(math.log2(lo)), math.ceil(math.log2(hi)) + 1)]
+    left, right = lo / 1.05, hi * 1.05
+    ticks = [2.0**k for k in range(math.floor(math.log2(left)), math.ceil(math.log2(right)) + 1)]
+    inside = [t for t in ticks if left <= t <= right]
+    ticks = inside if len(inside) >= 2 else ticks  # a narrow range keeps its neighbours
     ax.xaxis.set_major_locator(FixedLocator(ticks))
     ax.set_xticks(ticks, [f"{t:g}" for t in ticks])
     ax.xaxis.set_minor_formatter(NullFormatter())
-    ax.set_xlim(min(ticks[0], lo / 1.05), max(ticks[-1], hi * 1.05))
+    ax.set_xlim(min(ticks[0], left), max(ticks[-1], right))
 
 
 def _empty(ax, text: str) -> None:

@@ -381,6 +381,7 @@ def test_show_with_predictions_colours_them_by_kind(known_boxes, tmp_path):
         (["--ids", "1,99"], "image id 99 is not in the dataset"),
         (["--ids", "a,b"], "option '--ids' must be comma-separated image ids"),
         (["--truth", "x.json"], "option '--truth' needs '--pred'"),
+        (["--ids", "1", "--images", "3"], "options '--images' and '--ids' choose the images in two ways"),
         (["--pred", "missing.json"], "missing.json: cannot be read"),
     ],
 )
