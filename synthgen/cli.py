@@ -490,9 +490,7 @@ def show(
         predictions = report.read_predictions(pred)
         if truth is not None:
             side = report.read_truth_sidecar(truth, len(predictions))
-            predictions = report.Predictions(
-                predictions.boxes, predictions.image_id, predictions.category_id, predictions.score, side.kinds
-            )
+            predictions = predictions.with_kinds(side.kinds)
             missed = side.missed
             how = f", kinds from {truth}"
         else:

@@ -411,7 +411,7 @@ def test_show_with_a_truth_sidecar_uses_its_kinds(known_boxes, tmp_path):
     assert res.exit_code == 0, res.output
     sheet = np.asarray(Image.open(tmp_path / "s.png").convert("RGB"))
     p = report.read_predictions(tmp_path / "p.json")
-    p = report.Predictions(p.boxes, p.image_id, p.category_id, p.score, ("duplicate",))
+    p = p.with_kinds(("duplicate",))
     t = report.contact_sheet(known_boxes, scale=1, predictions=p).tiles[0]  # same layout, for the tile's place
     assert np.array_equal(report.contact_sheet(known_boxes, scale=1, predictions=p).pixels, sheet)
     tile = sheet[t.top : t.top + t.height, t.left : t.left + t.width]
