@@ -133,6 +133,7 @@ _SHEET_BG = (30, 32, 36)
 _TEXT = (225, 228, 232)
 _MUTED = (150, 155, 162)
 _OUTSIDE = (12, 12, 14)  # beyond the image's border in a zoom crop
+_MAX_WIDTH = 4096  # px: default sheets are shrunk to this width at most
 
 
 # --------------------------------------------------------------------------- inputs
@@ -980,7 +981,8 @@ def contact_sheet(
     scale : float, optional
         Tile pixels per image pixel, the same for every image (default:
         :func:`auto_scale` of each image, so images of mixed sizes each get
-        their own, and the captions give the factor).  Whole factors repeat
+        their own, and the captions give the factor; shrunk further when the
+        grid would be wider than 4096 px).  Whole factors repeat
         pixels; boxes are drawn on the scaled grid as :func:`outline_pixels`
         says.
     predictions : Predictions, optional
@@ -1015,11 +1017,16 @@ def contact_sheet(
     if not chosen:
         raise InputFileError(ds.source, "has no images to show")
     overlay = _Overlay.build(ds.coco, predictions, missed)
+    cols = min(cols or max(1, math.ceil(math.sqrt(len(chosen)))), len(chosen))
     auto = {int(im["id"]): auto_scale(im["width"], im["height"]) for im in chosen}
+    if scale is None:  # a wide grid of large images is shrunk to keep the sheet within _MAX_WIDTH
+        widest = max(auto[int(im["id"])] * im["width"] for im in chosen)
+        fit = (_MAX_WIDTH - 24 - 10 * (cols - 1)) / (cols * widest)
+        if fit < 1:
+            auto = {k: v * fit for k, v in auto.items()}
     mixed = scale is None and len(set(auto.values())) > 1
     tiles = [_render_tile(ds, im, overlay, auto[int(im["id"])] if scale is None else scale, mixed) for im in chosen]
 
-    cols = min(cols or max(1, math.ceil(math.sqrt(len(tiles)))), len(tiles))
     rows = math.ceil(len(tiles) / cols)
     tile_w = max(t.pixels.shape[1] for t in tiles)
     tile_h = max(t.pixels.shape[0] for t in tiles)

@@ -479,3 +479,17 @@ def test_stats_report_the_degradations_each_image_got(tmp_path):
     sig = [f["noise"]["sigma"] for f in facts]
     assert st["degradation_ranges"]["noise"]["sigma"] == [min(sig), max(sig)]
     assert set(st["degrade_config"]) == {"noise", "jpeg"}
+
+
+def test_a_wide_grid_of_large_images_is_shrunk_to_4096_px(tmp_path):
+    """Five 2000 px wide images in one row fit a 4096 px sheet; boxes follow the shrunk grid."""
+    images = [{"id": i, "file_name": f"w{i}.png", "width": 2000, "height": 60} for i in range(1, 6)]
+    anns = [{"id": 1, "image_id": 1, "category_id": 1, "bbox": [100, 10, 400, 40], "area": 16000.0, "iscrowd": 0}]
+    _write_dataset(tmp_path / "w", images, anns, [{"id": 1, "name": "rail"}])
+    sheet = report.contact_sheet(report.open_dataset(tmp_path / "w"), cols=5)
+    assert sheet.pixels.shape[1] <= 4096
+    t = sheet.tiles[0]
+    assert t.sx < 0.5
+    tile = sheet.pixels[t.top : t.top + t.height, t.left : t.left + t.width]
+    c0, r0, c1, r1 = report.outline_pixels([[100, 10, 500, 50]], t.sx, t.sy)[0]
+    assert _pixels_of(tile, report.CATEGORY_COLOURS[0]) == _outline_set(c0, r0, c1, r1)
