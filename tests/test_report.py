@@ -24,10 +24,10 @@ def run(*args):
 
 def _write_dataset(root, images, annotations, categories, *, subdir="images"):
     """A hand-made COCO dataset: solid grey PNGs and an annotation file without synthgen keys."""
-    (root / subdir).mkdir(parents=True, exist_ok=True) if subdir else root.mkdir(parents=True, exist_ok=True)
+    image_dir = root / subdir if subdir else root
+    image_dir.mkdir(parents=True, exist_ok=True)
     for im in images:
-        arr = np.full((im["height"], im["width"], 3), GREY, dtype=np.uint8)
-        Image.fromarray(arr).save((root / subdir / im["file_name"]) if subdir else (root / im["file_name"]))
+        Image.fromarray(np.full((im["height"], im["width"], 3), GREY, dtype=np.uint8)).save(image_dir / im["file_name"])
     coco = {"images": images, "annotations": annotations, "categories": categories}
     path = root / "annotations.json"
     path.write_text(json.dumps(coco))
@@ -233,12 +233,18 @@ def test_truth_sidecar_is_read_in_its_accepted_shapes(tmp_path):
     b.write_text(json.dumps({"predictions": [{"index": 1, "kind": "duplicate"}, {"index": 0, "kind": "wrong_class"}],
                              "missed": [7]}))
     assert report.read_truth_sidecar(b, 2) == report.TruthSidecar(("wrong_class", "duplicate"), frozenset({7}))
+
+
+def test_truth_sidecar_errors_name_the_record(tmp_path):
+    """An unknown kind and a prediction the sidecar does not cover are one-line file errors."""
     c = tmp_path / "c.json"
     c.write_text(json.dumps([{"kind": "great"}]))
     with pytest.raises(InputFileError, match="record 0: the kind must be one of"):
         report.read_truth_sidecar(c, 1)
-    with pytest.raises(InputFileError, match="says nothing about 1 of 3 predictions"):
-        report.read_truth_sidecar(b, 3)
+    d = tmp_path / "d.json"
+    d.write_text(json.dumps({"predictions": [{"index": 1, "kind": "duplicate"}]}))
+    with pytest.raises(InputFileError, match="says nothing about 2 of 3 predictions"):
+        report.read_truth_sidecar(d, 3)
 
 
 # --------------------------------------------------------------------------- statistics
@@ -316,13 +322,18 @@ def test_stats_figure_is_a_png_of_the_stated_size(small_dataset, tmp_path):
     _png_ok(path.read_bytes(), (1200, 700))
 
 
-def test_show_and_stats_commands_on_a_synthgen_dataset(small_dataset, tmp_path):
-    """`show` writes a non-blank PNG of the size it reports; `stats` prints tables and writes JSON and a plot."""
+def test_show_command_writes_the_sheet_it_reports(small_dataset, tmp_path):
+    """`show` writes a non-blank PNG of the size it prints."""
     out, _ = small_dataset
     res = run("show", out, "--out", tmp_path / "s.png", "--images", 4, "--cols", 2, "--zoom")
     assert res.exit_code == 0, res.output
     w, h = map(int, res.stdout.split("(")[1].split(" px")[0].split("x"))
     _png_ok((tmp_path / "s.png").read_bytes(), (w, h))
+
+
+def test_stats_command_prints_tables_and_writes_json_and_a_plot(small_dataset, tmp_path):
+    """`stats` prints its tables and writes the JSON and a 1200x700 figure."""
+    out, _ = small_dataset
     res = run("stats", out, "--json", tmp_path / "s.json", "--plot", tmp_path / "p.png")
     assert res.exit_code == 0, res.output
     assert "objects per category" in res.stdout and "COCO area ranges" in res.stdout
