@@ -223,6 +223,15 @@ def test_classify_true_positives_agree_with_pycocotools(small_dataset):
     assert len(ours) > 20 and len(preds) - len(ours) > 10
     assert ours == matched_dt
 
+    # and the project's own evaluator agrees per category: recall at IoU 0.5 = true positives / objects
+    from synthgen.score import evaluate
+
+    ev = evaluate(coco, preds)
+    for k, cat in enumerate(ev.per_category):
+        tp = sum(1 for kind, c in zip(p.kind, p.category_id) if kind == "true_positive" and c == cat.id)
+        if cat.n_gt:
+            assert ev.recall[0, k, 0, -1] * cat.n_gt == pytest.approx(tp)
+
 
 def test_truth_sidecar_is_read_in_its_accepted_shapes(tmp_path):
     """A list of records, an object with 'predictions', aliases and explicit indices all give the kinds."""
