@@ -416,6 +416,48 @@ def export(
     typer.echo(f"wrote {written} to {out if out is not None else dataset}")
 
 
+@app.command()
+@reported
+def sweep(
+    config: ConfigArg = None,
+    vary: Annotated[
+        list[str],
+        typer.Option(
+            "--vary",
+            help="A key and the values it takes, KEY=V1,V2,... (TOML values), e.g. --vary objects.max_iou=0,0.3. "
+            "Repeatable: one dataset per combination.",
+        ),
+    ] = ...,
+    out: Annotated[Path, typer.Option("--out", "-o", help="Sweep directory: one dataset per combination, and sweep.json.")] = ...,
+    count: Annotated[Optional[int], typer.Option(help="Images per dataset (same as --set count=N).")] = None,
+    seed: Annotated[Optional[int], typer.Option(help="Root seed of every dataset (same as --set seed=S).")] = None,
+    set_: SetOpt = None,
+    overwrite: Annotated[bool, typer.Option("--overwrite", help="Replace the datasets of a non-empty sweep directory.")] = False,
+    workers: Annotated[Optional[int], typer.Option(help="Processes to render with (default: usable cores).", min=1)] = None,
+    quiet: Annotated[bool, typer.Option("--quiet", "-q", help="No progress bar.")] = False,
+) -> None:
+    """Render one dataset per combination of varied config values, under DIR/<key>=<value>/."""
+    from synthgen.sweep import parse_vary, plan_sweep, run_sweep
+
+    overrides = list(set_ or [])
+    if count is not None:
+        overrides.append(f"count={count}")
+    if seed is not None:
+        overrides.append(f"seed={seed}")
+    varies = [parse_vary(v) for v in vary]
+    total = sum(cfg.count for _, _, cfg in plan_sweep(config, varies, overrides))
+    bar, advance = _progress(total, quiet, "sweeping")
+    with bar:
+        summary = run_sweep(
+            config, varies, out, overrides=overrides, overwrite=overwrite, workers=workers,
+            progress=None if advance is None else (lambda done, _total: advance(done)),
+        )
+    typer.echo(
+        f"wrote {summary.subsets} datasets ({summary.images} images, {summary.objects} objects) "
+        f"to {summary.out} in {summary.seconds:.2f} s"
+    )
+
+
 # -- show and stats -------------------------------------------------------------------
 def _parse_ids(text: str) -> list[int]:
     """``"3,7,9"`` -> ``[3, 7, 9]``; a bad list is a user error naming the option."""

@@ -31,6 +31,7 @@ from synthgen.shapes import FILLS, KINDS
 __all__ = [
     "CanvasSpec",
     "ObjectSpec",
+    "ClutterSpec",
     "RenderSpec",
     "OutputSpec",
     "Config",
@@ -49,7 +50,8 @@ MAX_OBJECTS = 100_000
 #: Largest accepted number of images in one run.
 MAX_IMAGES = 100_000_000
 
-LAYOUTS = ("scatter",)
+LAYOUTS = ("scatter", "separated", "pairs", "grid", "clusters")
+MARKS = ("line", "blob", "texture")
 SIZE_LAWS = ("uniform", "log-uniform")
 BOX_KINDS = ("visible", "full")
 IMAGE_FORMATS = ("png", "jpeg")
@@ -72,6 +74,14 @@ class ObjectSpec:
     """What objects each image holds and where they go (``[objects]``).
 
     Sizes are the longer side of an object's unclipped exact box, in pixels.
+    Layout keys (see :mod:`synthgen.layout`): ``max_iou`` and ``attempts``
+    (``separated``; ``max_iou`` also keeps pairs apart under ``pairs``),
+    ``pair_iou`` (``pairs``), ``grid_pitch`` and ``grid_jitter`` (``grid``),
+    ``clusters`` and ``cluster_spread`` (``clusters``).  ``occlusion`` = [lo,
+    hi] with hi > 0 puts an occluder over a share ``occlusion_share`` of the
+    placed objects so that each hides a fraction in [lo, hi] of its target
+    (targets hidden beyond ``1 - min_visible`` are still dropped, so lower
+    ``min_visible`` for heavy occlusion).
     """
 
     count: tuple[int, int] = (3, 12)
@@ -90,6 +100,15 @@ class ObjectSpec:
     sides: tuple[int, int] = (3, 8)
     inner: tuple[float, float] = (0.35, 0.65)
     box: str = "visible"
+    max_iou: float = 0.0  # largest exact-box IoU of two objects, in [0, 1] (0: none overlap)
+    attempts: int = 100  # candidate centres per object before it is left out (no_room)
+    pair_iou: tuple[float, float] = (0.3, 0.7)  # box IoU range within a pair, in (0, 1]
+    grid_pitch: float = 0.0  # lattice spacing, px (0: largest pitch that holds every object)
+    grid_jitter: float = 0.0  # largest centre move per axis, in pitches, [0, 0.5]
+    clusters: tuple[int, int] = (2, 5)  # number of cluster centres per image
+    cluster_spread: tuple[float, float] = (8.0, 40.0)  # normal spread around a centre, px
+    occlusion: tuple[float, float] = (0.0, 0.0)  # hidden share of a target by its occluder
+    occlusion_share: float = 1.0  # share of placed objects that get an occluder
 
     def __post_init__(self):
         check_range("objects.count", self.count, lo=0, hi=MAX_OBJECTS, integer=True)
@@ -109,6 +128,45 @@ class ObjectSpec:
         check_range("objects.sides", self.sides, lo=3, hi=64, integer=True)
         check_range("objects.inner", self.inner, lo=0, lo_open=True, hi=0.95)
         check_choice("objects.box", self.box, BOX_KINDS)
+        check_number("objects.max_iou", self.max_iou, lo=0, hi=1)
+        check_number("objects.attempts", self.attempts, lo=1, hi=100_000, integer=True)
+        check_range("objects.pair_iou", self.pair_iou, lo=0, lo_open=True, hi=1)
+        check_number("objects.grid_pitch", self.grid_pitch, lo=0, hi=MAX_CANVAS_SIDE)
+        check_number("objects.grid_jitter", self.grid_jitter, lo=0, hi=0.5)
+        check_range("objects.clusters", self.clusters, lo=1, hi=MAX_OBJECTS, integer=True)
+        check_range("objects.cluster_spread", self.cluster_spread, lo=0, hi=4 * MAX_CANVAS_SIDE)
+        check_range("objects.occlusion", self.occlusion, lo=0, hi=0.99)
+        check_number("objects.occlusion_share", self.occlusion_share, lo=0, hi=1)
+
+
+@dataclass(frozen=True, slots=True)
+class ClutterSpec:
+    """Unlabelled distractor marks drawn under the objects (``[clutter]``).
+
+    Parameters
+    ----------
+    count : (int, int)
+        Range of the number of marks per image (both ends drawn).
+    similar : float
+        Share of the marks, in [0, 1], that are partial copies of the labelled
+        shape kinds (half-plane cuts keeping 30-60 % of a shape): hard negatives.
+    size : (float, float)
+        Range of a mark's longer side, px.
+    marks : tuple of str
+        Kinds of the other marks: ``line`` (anti-aliased segment), ``blob``
+        (smooth irregular patch), ``texture`` (a patch of value noise).
+    """
+
+    count: tuple[int, int] = (0, 0)
+    similar: float = 0.0
+    size: tuple[float, float] = (4.0, 48.0)
+    marks: tuple[str, ...] = MARKS
+
+    def __post_init__(self):
+        check_range("clutter.count", self.count, lo=0, hi=MAX_OBJECTS, integer=True)
+        check_number("clutter.similar", self.similar, lo=0, hi=1)
+        check_range("clutter.size", self.size, lo=0, lo_open=True, hi=4 * MAX_CANVAS_SIDE)
+        _check_names("clutter.marks", self.marks, MARKS)
 
 
 @dataclass(frozen=True, slots=True)
@@ -144,6 +202,7 @@ class Config:
     canvas: CanvasSpec = field(default_factory=CanvasSpec)
     background: BackgroundSpec = field(default_factory=BackgroundSpec)
     objects: ObjectSpec = field(default_factory=ObjectSpec)
+    clutter: ClutterSpec = field(default_factory=ClutterSpec)
     render: RenderSpec = field(default_factory=RenderSpec)
     degrade: DegradeSpec = field(default_factory=DegradeSpec)
     output: OutputSpec = field(default_factory=OutputSpec)

@@ -11,19 +11,43 @@ Randomness: :func:`image_rng` gives image ``k`` its own generator from
 ``SeedSequence(seed, spawn_key=(k,))``; :func:`compose` spawns one child per
 stage (background, objects, clutter, degradation), so changing one stage never
 moves the random draws of another.
+
+Difficulty dials handled here (placement itself is in :mod:`synthgen.layout`):
+
+* ``pairs``: the second object of a pair takes the first one's size, aspect
+  and rotation (its kind too when the two boxes could not reach the top of
+  ``objects.pair_iou`` otherwise); the achieved box IoU is recorded as
+  ``pair_iou`` on both, with ``pair_id``.
+* ``objects.occlusion``: an occluder (an extra, filled, annotated object
+  drawn above every placed object; never a ring unless rings are the only
+  kind) is moved along a random direction toward its target until the share
+  of the target's sub-pixel samples it covers lies in the range
+  (:func:`place_occluder`).  Target and occluder share an ``occlusion_id``;
+  the target records ``occlusion_goal`` and ``occluder_hides`` (the share its
+  own occluder covers), the occluder ``occluder: true``; the measured
+  ``visible_fraction`` counts every object above the target.
+* Clutter (:mod:`synthgen.clutter`) is drawn on the background before the
+  objects, from its own random stream.
+* When a layout cannot place every requested object, the image's
+  ``dropped["no_room"]`` counts them (so the manifest totals them) and a
+  :class:`PlacementWarning` is issued.
 """
 
 from __future__ import annotations
 
+import math
+import warnings
 from dataclasses import dataclass, field, replace
 
 import numpy as np
 
 from synthgen import layout as layout_mod
+from synthgen import shapes as shapes_mod
 from synthgen.backgrounds import render_background
+from synthgen.clutter import render_clutter
 from synthgen.degrade import degrade
-from synthgen.geometry import clip_boxes, mask_box, pairwise_iou
-from synthgen.shapes import KINDS, Shape, coverage, exact_box, paint
+from synthgen.geometry import box_iou, clip_boxes, mask_box, pairwise_iou
+from synthgen.shapes import KINDS, Shape, coverage, exact_box, paint, sample_inside
 
 __all__ = [
     "Scene",
@@ -31,6 +55,9 @@ __all__ = [
     "compose",
     "render_scene",
     "compose_shapes",
+    "plan_objects",
+    "place_occluder",
+    "PlacementWarning",
     "visible_box",
     "category_id",
     "luminance",
@@ -42,6 +69,10 @@ LUMA = np.array([0.299, 0.587, 0.114])
 
 #: Number of child generators :func:`compose` spawns (background, objects, clutter, degradation).
 STAGES = 4
+
+
+class PlacementWarning(UserWarning):
+    """A layout placed fewer objects than requested (the count is in the image's ``dropped``)."""
 
 
 def category_id(kind: str) -> int:
@@ -112,25 +143,76 @@ def render_scene(config, index: int = 0) -> Scene:
 def compose(config, *, rng: np.random.Generator) -> Scene:
     """Compose one scene from ``config`` with the image's generator ``rng``."""
     width, height = config.canvas.width, config.canvas.height
-    bg_rng, obj_rng, _clutter_rng, deg_rng = rng.spawn(STAGES)
+    spec = config.objects
+    bg_rng, obj_rng, clutter_rng, deg_rng = rng.spawn(STAGES)
 
     canvas, bg_info = render_background(config.background, height, width, rng=bg_rng)
-    shapes, styles = _sample_objects(config, obj_rng)
-    placement = layout_mod.place(
-        config.objects.layout, _half_extents(shapes), width, height, config.objects, rng=obj_rng
-    )
-    shapes = [_moved(shapes[i], placement.centres[j]) for j, i in enumerate(placement.index)]
-    styles = [styles[i] for i in placement.index]
-
-    scene = compose_shapes(canvas, shapes, config, rng=obj_rng, styles=styles)
+    extra_info = {}
+    if config.clutter.count[1] > 0:
+        canvas, extra_info["clutter"] = render_clutter(
+            canvas, config.clutter, spec.shapes, samples=config.render.samples, rng=clutter_rng
+        )
+    shapes, styles, extras, placement, more = plan_objects(config, rng=obj_rng)
+    extra_info.update(more)
+    scene = compose_shapes(canvas, shapes, config, rng=obj_rng, styles=styles, extras=extras)
     image, deg_info = degrade(scene.image, config.degrade, rng=deg_rng)
-    info = {"background": bg_info, "degradations": deg_info, **scene.info}
+    no_room = int(placement.info.get("no_room", 0))
+    scene.info["dropped"]["no_room"] = no_room
+    info = {"background": bg_info, "degradations": deg_info, **scene.info, **extra_info}
     if placement.info:
         info["placement"] = placement.info
+    if no_room:
+        # One text per run, so that each process shows it once; the counts are in the
+        # image's dropped["no_room"] and summed in the manifest.
+        warnings.warn(
+            f"objects.layout = {spec.layout!r} found no room for some of the requested objects on a "
+            f"{width}x{height} canvas within objects.attempts = {spec.attempts} tries each; they are left "
+            f"out and counted as dropped.no_room in the image records and the manifest",
+            PlacementWarning,
+            stacklevel=2,
+        )
     return replace(scene, image=image, info=info)
 
 
-def compose_shapes(canvas: np.ndarray, shapes, config, *, rng: np.random.Generator, styles=None) -> Scene:
+def plan_objects(config, *, rng: np.random.Generator):
+    """Sample the objects of one image and place them (layout, then occluders), without drawing.
+
+    ``rng`` is the objects' stream (the second child :func:`compose` spawns);
+    :func:`compose` then draws colours from the same stream.
+
+    Returns
+    -------
+    shapes : list of Shape
+        In draw order (occluders last).
+    styles : list of dict
+        Paint style per shape.
+    extras : list of dict
+        Facts each shape's annotation will carry (``pair_id``, ``occlusion_id``, ...).
+    placement : synthgen.layout.Placement
+    info : dict
+        ``{"occlusion": {...}}`` when the occlusion dial is on, else empty.
+    """
+    spec = config.objects
+    width, height = config.canvas.width, config.canvas.height
+    shapes, styles = _sample_objects(config, rng)
+    if spec.layout == "pairs":
+        shapes = _pair_geometry(shapes, spec.pair_iou[1])
+    if spec.layout in _BOX_LAYOUTS:
+        half = _half_extents(shapes)
+    else:  # these layouts only count the objects; exact boxes are built once, in place
+        half = np.zeros((len(shapes), 2))
+    placement = layout_mod.place(spec.layout, half, width, height, spec, rng=rng)
+    index = placement.index.tolist()
+    extras = [dict(f) for f in placement.facts] if placement.facts else [{} for _ in index]
+    shapes = [_moved(shapes[i], placement.centres[j]) for j, i in enumerate(index)]
+    styles = [styles[i] for i in index]
+    info = {}
+    if spec.occlusion[1] > 0:
+        shapes, styles, extras, info["occlusion"] = _add_occluders(shapes, styles, extras, config, rng)
+    return shapes, styles, extras, placement, info
+
+
+def compose_shapes(canvas: np.ndarray, shapes, config, *, rng: np.random.Generator, styles=None, extras=None) -> Scene:
     """Draw given shapes bottom to top on a copy of ``canvas`` and annotate them.
 
     The building block of :func:`compose`, public so that tests and users can
@@ -149,6 +231,10 @@ def compose_shapes(canvas: np.ndarray, shapes, config, *, rng: np.random.Generat
     styles : sequence of dict or None
         Paint style per shape (``fill``, ``outline``, ``stroke``, ``fill_angle``,
         ``period``); None paints every shape flat.
+    extras : sequence of dict or None
+        Facts to add to each shape's annotation (e.g. ``pair_id``); a
+        ``pair_id`` shared by two shapes makes both record ``pair_iou``, the
+        IoU of their exact (clipped) boxes.
 
     Returns
     -------
@@ -158,7 +244,9 @@ def compose_shapes(canvas: np.ndarray, shapes, config, *, rng: np.random.Generat
     image = np.array(canvas, dtype=np.uint8, copy=True)
     if styles is None:
         styles = [dict(_FLAT) for _ in shapes]
-    drawn = _draw(image, shapes, styles, config, rng)
+    if extras is None:
+        extras = [{} for _ in shapes]
+    drawn = _draw(image, shapes, styles, extras, config, rng)
     _measure_occlusion(drawn)
     kept, dropped = _annotate(drawn, len(shapes) - len(drawn), config)
     return _assemble(image, kept, {"dropped": dropped})
@@ -170,10 +258,11 @@ _FLAT = {"fill": "flat", "outline": False, "stroke": 0.0, "fill_angle": 0.0, "pe
 # --------------------------------------------------------------------------- sampling
 
 
-def _sample_objects(config, rng: np.random.Generator):
+def _sample_objects(config, rng: np.random.Generator, n: int | None = None):
     """Draw each object's shape parameters and paint style, all centred at the origin."""
     spec = config.objects
-    n = int(rng.integers(spec.count[0], spec.count[1] + 1))
+    if n is None:
+        n = int(rng.integers(spec.count[0], spec.count[1] + 1))
     kinds = rng.choice(len(spec.shapes), size=n)
     lo, hi = spec.size
     if spec.size_law == "log-uniform":
@@ -217,6 +306,10 @@ def _sample_objects(config, rng: np.random.Generator):
     return shapes, styles
 
 
+#: Layouts that read the objects' box sizes.
+_BOX_LAYOUTS = frozenset({"separated", "pairs"})
+
+
 def _half_extents(shapes) -> np.ndarray:
     out = np.empty((len(shapes), 2), dtype=np.float64)
     for i, s in enumerate(shapes):
@@ -229,6 +322,189 @@ def _moved(shape: Shape, centre) -> Shape:
     return replace(shape, cx=float(centre[0]), cy=float(centre[1]))
 
 
+def _pair_geometry(shapes, top_iou: float):
+    """Give the second object of each pair the first one's size, aspect and rotation.
+
+    Its kind (and sides, inner ratio) is taken too when the two boxes could not
+    otherwise overlap with an IoU of ``top_iou`` (equal boxes reach any IoU).
+    """
+    out = list(shapes)
+    for k in range(len(out) // 2):
+        a, b = out[2 * k], out[2 * k + 1]
+        b = replace(b, size=a.size, aspect=a.aspect, angle=a.angle)
+        ha, hb = _half_extents([a, b])
+        if layout_mod.pair_max_iou(ha, hb) < top_iou:
+            b = replace(b, kind=a.kind, sides=a.sides, inner=a.inner)
+        out[2 * k + 1] = b
+    return out
+
+
+# --------------------------------------------------------------------------- occlusion dial
+
+
+def _sample_points(cov) -> tuple[np.ndarray, np.ndarray]:
+    """Coordinates (x, y) of the sub-samples inside a coverage patch, px, each (K,)."""
+    h, w = cov.values.shape
+    s = cov.samples
+    inside = cov.inside(cov.row0, cov.col0, cov.row0 + h, cov.col0 + w)
+    ii, jj = np.nonzero(inside)
+    offs = (np.arange(s) + 0.5) / s
+    xs = (np.arange(cov.col0, cov.col0 + w, dtype=np.float64)[:, None] + offs).ravel()
+    ys = (np.arange(cov.row0, cov.row0 + h, dtype=np.float64)[:, None] + offs).ravel()
+    return xs[jj], ys[ii]
+
+
+#: Largest number of target samples the occluder search tests per step.
+_OCCLUDER_SEARCH_SAMPLES = 1 << 15
+
+
+def place_occluder(
+    target: Shape,
+    occluder: Shape,
+    hidden: tuple[float, float],
+    goal: float,
+    direction: float,
+    height: int,
+    width: int,
+    *,
+    samples: int = 4,
+    stroke: float = 0.0,
+) -> tuple[Shape, float] | None:
+    """Move (and if needed enlarge) ``occluder`` so that it covers a share of ``target`` in ``hidden``.
+
+    The share is counted on the target's sub-pixel samples on the canvas (the
+    samples behind its coverage, :class:`synthgen.shapes.Coverage`), exactly as
+    the composer measures occlusion.  The occluder's centre moves along
+    ``direction`` (radians, clockwise on screen from +x) from the target's
+    centre; the distance is found by bisection, aiming at ``goal``.  When even
+    a centred occluder covers less than ``goal``, it is enlarged by 1.5x up to
+    six times.
+
+    Parameters
+    ----------
+    target, occluder : Shape
+        ``target`` in place; ``occluder``'s position is ignored.
+    hidden : (float, float)
+        Accepted range of the covered share, in [0, 1].
+    goal : float
+        Share aimed at, inside ``hidden``.
+    direction : float
+        Radians.
+    height, width : int
+        Canvas size, px.
+    samples : int
+        Supersampling factor (``render.samples``).
+    stroke : float
+        The target's outline band, px (0 for filled).
+
+    Returns
+    -------
+    (Shape, float) or None
+        The placed occluder and the share of the target it covers (which may
+        miss ``hidden`` for targets of very few samples); None when the target
+        has no sample on the canvas.
+
+    Examples
+    --------
+    >>> t = Shape("rectangle", 32.0, 32.0, 20.0)
+    >>> occ, share = place_occluder(t, Shape("ellipse", 0.0, 0.0, 20.0), (0.3, 0.4), 0.35, 0.0, 64, 64)
+    >>> 0.3 <= share <= 0.4
+    True
+    """
+    cov = coverage(target, height, width, samples=samples, stroke=stroke)
+    if cov is None:
+        return None
+    xs_all, ys_all = _sample_points(cov)
+    if xs_all.size == 0:
+        return None
+    # The search runs on an evenly strided subset of a big target's samples; the
+    # share returned is counted on all of them.
+    stride = max(1, xs_all.size // _OCCLUDER_SEARCH_SAMPLES)
+    xs, ys = xs_all[::stride], ys_all[::stride]
+    lo, hi = float(hidden[0]), float(hidden[1])
+    ux, uy = math.cos(direction), math.sin(direction)
+    tb = exact_box(target)
+
+    def share(shape: Shape, r: float) -> tuple[Shape, float]:
+        moved = replace(shape, cx=target.cx + r * ux, cy=target.cy + r * uy)
+        return moved, float(np.count_nonzero(sample_inside(moved, xs, ys))) / xs.size
+
+    occ = occluder
+    best = share(occ, 0.0)
+    for _ in range(6):
+        if best[1] >= goal:
+            break
+        occ = replace(occ, size=occ.size * 1.5)
+        best = share(occ, 0.0)
+    if best[1] <= goal:
+        return _exact_share(best, xs_all, ys_all, stride)
+    ob = exact_box(occ)
+    far = 0.5 * (math.hypot(tb[2] - tb[0], tb[3] - tb[1]) + math.hypot(ob[2] - ob[0], ob[3] - ob[1]))
+    r_lo, r_hi = 0.0, far
+    tol = 0.1 * (hi - lo) + 1e-3
+    found = None
+    for _ in range(40):
+        mid = 0.5 * (r_lo + r_hi)
+        cand = share(occ, mid)
+        if lo <= cand[1] <= hi and (found is None or abs(cand[1] - goal) < abs(found[1] - goal)):
+            found = cand
+            if abs(cand[1] - goal) <= tol:
+                break
+        if cand[1] >= goal:
+            r_lo, best = mid, cand
+        else:
+            r_hi = mid
+    if found is None:  # the share jumps over the range (few samples, odd shapes): scan the distances
+        for r in np.linspace(0.0, far, 65).tolist():
+            cand = share(occ, r)
+            if lo <= cand[1] <= hi:
+                found = cand
+                break
+    return _exact_share(found if found is not None else best, xs_all, ys_all, stride)
+
+
+def _exact_share(result, xs: np.ndarray, ys: np.ndarray, stride: int):
+    shape, part = result
+    if stride == 1:
+        return shape, part
+    return shape, float(np.count_nonzero(sample_inside(shape, xs, ys))) / xs.size
+
+
+def _add_occluders(shapes, styles, extras, config, rng: np.random.Generator):
+    """Append one occluder per chosen target (drawn above every placed object)."""
+    spec = config.objects
+    height, width = config.canvas.height, config.canvas.width
+    n = len(shapes)
+    chosen = np.flatnonzero(rng.random(size=n) < spec.occlusion_share)
+    occ_shapes, occ_styles = _sample_objects(config, rng, n=len(chosen))
+    # A ring centred on its target would hide nothing through its hole: occluders use the other kinds.
+    solid = [k for k in spec.shapes if k != "ring"]
+    if solid:
+        occ_shapes = [o if o.kind != "ring" else replace(o, kind=solid[i % len(solid)]) for i, o in enumerate(occ_shapes)]
+    lo, hi = spec.occlusion
+    goals = rng.uniform(lo, hi, size=len(chosen))
+    angles = rng.uniform(0.0, 2.0 * math.pi, size=len(chosen))
+    shapes, styles, extras = list(shapes), list(styles), list(extras)
+    placed = missed = 0
+    for k, t in enumerate(chosen.tolist()):
+        got = place_occluder(
+            shapes[t], occ_shapes[k], (lo, hi), float(goals[k]), float(angles[k]), height, width,
+            samples=config.render.samples, stroke=styles[t]["stroke"],
+        )
+        if got is None:
+            continue
+        occ, achieved = got
+        style = dict(occ_styles[k], outline=False, stroke=0.0)  # filled, so it hides what it covers
+        extras[t] = {**extras[t], "occlusion_id": placed, "occlusion_goal": float(goals[k]),
+                     "occluder_hides": achieved}
+        shapes.append(occ)
+        styles.append(style)
+        extras.append({"occlusion_id": placed, "occluder": True})
+        placed += 1
+        missed += not (lo <= achieved <= hi)
+    return shapes, styles, extras, {"occluders": placed, "missed": missed}
+
+
 # --------------------------------------------------------------------------- drawing
 
 
@@ -239,48 +515,55 @@ class _Drawn:
     cov: object  # synthgen.shapes.Coverage
     box: np.ndarray  # unclipped exact box (4,)
     contrast: float
+    extra: dict
     visible: np.ndarray | None = None  # visible coverage, float32 (h, w)
     sample_box: np.ndarray | None = None  # box of visible samples when occluded
 
 
-def _pick_colours(under_lum: float, min_contrast: float, k: int, rng: np.random.Generator):
-    """``k`` fill colours (k, 3) whose luma differs from ``under_lum`` by at least ``min_contrast``.
+def _pick_colours(under_lum: float, min_contrast: float, cands: np.ndarray, lum: np.ndarray):
+    """Fill colours (k, 3) whose luma differs from ``under_lum`` by at least ``min_contrast``.
 
-    Draws a fixed number of candidates (so the stream does not depend on the
-    background); when none qualifies, the best is shifted in brightness toward
-    the side with more room.  Returns the colours and the smallest achieved
-    contrast.
+    ``cands`` (k, 8, 3) are candidate colours drawn before looking at the
+    background (so the stream does not depend on it), ``lum`` (k, 8) their
+    luma.  The first qualifying candidate is taken; when none qualifies, the
+    best is shifted in brightness toward the side with more room.  Returns the
+    colours and the smallest achieved contrast.
     """
-    cands = rng.uniform(0.0, 255.0, size=(k, 8, 3))
-    lum = cands @ LUMA / 255.0  # (k, 8)
-    contrast = np.abs(lum - under_lum)
+    k = len(cands)
     colours = np.empty((k, 3))
-    achieved = np.empty(k)
-    for t in range(k):
-        ok = np.flatnonzero(contrast[t] >= min_contrast)
-        if ok.size:
-            colours[t] = cands[t, ok[0]]
-        else:
-            c = cands[t, int(np.argmax(contrast[t]))]
-            target = under_lum + min_contrast if under_lum <= 0.5 else under_lum - min_contrast
-            target = min(max(target, 0.0), 1.0)
-            colours[t] = np.clip(c + (target - float(c @ LUMA / 255.0)) * 255.0, 0.0, 255.0)
-        achieved[t] = abs(float(colours[t] @ LUMA / 255.0) - under_lum)
-    return colours, float(achieved.min())
+    achieved = []
+    for t, row in enumerate(lum.tolist()):  # plain floats: k <= 2 rows of 8, cheaper than array calls
+        contrast = [abs(x - under_lum) for x in row]
+        pick = next((m for m, c in enumerate(contrast) if c >= min_contrast), -1)
+        if pick >= 0:
+            colours[t] = cands[t, pick]
+            achieved.append(contrast[pick])
+            continue
+        c = cands[t, contrast.index(max(contrast))]
+        target = under_lum + min_contrast if under_lum <= 0.5 else under_lum - min_contrast
+        target = min(max(target, 0.0), 1.0)
+        colours[t] = np.clip(c + (target - float(c @ LUMA / 255.0)) * 255.0, 0.0, 255.0)
+        achieved.append(abs(float(colours[t] @ LUMA / 255.0) - under_lum))
+    return colours, float(min(achieved))
 
 
-def _draw(canvas: np.ndarray, shapes, styles, config, rng: np.random.Generator) -> list:
+#: Patches up to this many pixels are blended in one broadcast over RGB (fewer calls);
+#: bigger ones per channel plane (PERF-NOTES.md: a trailing axis of 3 is slow on big arrays).
+_SMALL_PATCH = 256
+
+
+def _draw(canvas: np.ndarray, shapes, styles, extras, config, rng: np.random.Generator) -> list:
     """Draw shapes bottom to top onto ``canvas`` (modified in place); return what was drawn."""
     height, width = canvas.shape[:2]
     samples = config.render.samples
     min_contrast = config.objects.min_contrast
+    # Candidate fill colours for every object at once, drawn or not: (N, 2, 8, 3).
+    cands = rng.uniform(0.0, 255.0, size=(len(shapes), 2, 8, 3))
+    lums = cands @ LUMA / 255.0  # (N, 2, 8)
     drawn = []
-    for shape, style in zip(shapes, styles):
+    for i, (shape, style) in enumerate(zip(shapes, styles)):
         cov = coverage(shape, height, width, samples=samples, stroke=style["stroke"])
-        # Colours are drawn for every object, drawn or not, to keep the stream aligned.
-        n_col = 1 if style["fill"] == "flat" else 2
         if cov is None:
-            rng.uniform(size=(n_col, 8, 3))
             continue
         v = cov.values
         h, w = v.shape
@@ -289,77 +572,253 @@ def _draw(canvas: np.ndarray, shapes, styles, config, rng: np.random.Generator) 
         patch = canvas[rows, cols].astype(np.float32)
         total = float(v.sum())
         if total > 0:
-            under = [float((patch[..., ch] * v).sum()) / total for ch in range(3)]
-            under_lum = float(luminance(under))
+            under = v.ravel() @ patch.reshape(-1, 3) / total  # (3,) mean colour under the shape
+            under_lum = float(under @ LUMA) / 255.0
         else:
             under_lum = 0.5
-        colours, contrast = _pick_colours(under_lum, min_contrast, n_col, rng)
-        if n_col == 1:
-            colours = np.vstack([colours, colours])
-        fill = paint(
-            style["fill"], colours, h, w, row0=cov.row0, col0=cov.col0,
-            angle=style["fill_angle"], period=style["period"],
-        )
-        for ch in range(3):
-            plane = patch[..., ch]
-            plane += (fill[..., ch] - plane) * v
+        flat = style["fill"] == "flat"
+        n_col = 1 if flat else 2
+        colours, contrast = _pick_colours(under_lum, min_contrast, cands[i, :n_col], lums[i, :n_col])
+        if flat:
+            fill = colours[0].astype(np.float32)  # (3,)
+        else:
+            fill = paint(
+                style["fill"], colours, h, w, row0=cov.row0, col0=cov.col0,
+                angle=style["fill_angle"], period=style["period"],
+            )
+        if h * w <= _SMALL_PATCH:
+            patch += (fill - patch) * v[..., None]
+        else:
+            for ch in range(3):
+                plane = patch[..., ch]
+                plane += ((fill[ch] if flat else fill[..., ch]) - plane) * v
         np.rint(patch, out=patch)
         canvas[rows, cols] = patch.astype(np.uint8)
-        drawn.append(_Drawn(shape=shape, style=style, cov=cov, box=exact_box(shape), contrast=contrast))
+        drawn.append(
+            _Drawn(shape=shape, style=style, cov=cov, box=exact_box(shape), contrast=contrast, extra=extras[i])
+        )
     return drawn
 
 
 def _patch_rects(drawn) -> np.ndarray:
-    """Pixel rectangles of the coverage patches as boxes (N, 4) (col0, row0, col1, row1)."""
-    rects = np.zeros((len(drawn), 4), dtype=np.float64)
+    """Pixel rectangles of the coverage patches (N, 4) as ints (col0, row0, col1, row1)."""
+    rects = np.zeros((len(drawn), 4), dtype=np.int64)
     for i, d in enumerate(drawn):
         h, w = d.cov.values.shape
         rects[i] = (d.cov.col0, d.cov.row0, d.cov.col0 + w, d.cov.row0 + h)
     return rects
 
 
+def _overlapping_pairs(boxes: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Index pairs ``(i, j)``, ``i < j``, of boxes (N, 4) whose intersection has positive area.
+
+    Sorted by ``i`` then ``j``.  Boxes are sorted by ``x0``; a block of them is
+    tested only against the later boxes that start before the block's largest
+    ``x1``, so the work follows the number of near pairs, not N^2.
+    """
+    n = len(boxes)
+    if n < 2:
+        return np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.int64)
+    order = np.argsort(boxes[:, 0], kind="stable")
+    b = boxes[order]
+    x0, y0, x1, y1 = b[:, 0], b[:, 1], b[:, 2], b[:, 3]
+    ii, jj = [], []
+    step = 128
+    for s0 in range(0, n, step):
+        s1 = min(n, s0 + step)
+        stop = int(np.searchsorted(x0, x1[s0:s1].max(), side="left"))
+        if stop <= s0 + 1:
+            continue
+        cols = slice(s0, stop)
+        ov = (
+            (x0[cols][None, :] < x1[s0:s1, None])
+            & (y0[s0:s1, None] < y1[cols][None, :])
+            & (y0[cols][None, :] < y1[s0:s1, None])
+        )  # (rows, cols); x0[row] <= x0[col] holds by the sort
+        r, c = np.nonzero(ov)
+        r, c = r + s0, c + s0
+        keep = c > r
+        a, z = order[r[keep]], order[c[keep]]
+        ii.append(np.minimum(a, z))
+        jj.append(np.maximum(a, z))
+    if not ii:
+        return np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.int64)
+    i, j = np.concatenate(ii), np.concatenate(jj)
+    k = np.lexsort((j, i))
+    return i[k], j[k]
+
+
+def _above(rects: np.ndarray) -> list:
+    """For each patch, the indices of the later patches that overlap it (list of int arrays)."""
+    ii, jj = _overlapping_pairs(rects)
+    bounds = np.searchsorted(ii, np.arange(len(rects) + 1))
+    return [jj[bounds[i] : bounds[i + 1]] for i in range(len(rects))]
+
+
+def _point_samples(cov, rr: np.ndarray, cc: np.ndarray) -> np.ndarray:
+    """Sub-sample inside-tests of canvas pixels ``(rr, cc)`` (K,) -> bool (K, s, s) [row, col].
+
+    The same sample positions and point test as :meth:`synthgen.shapes.Coverage.inside`.
+    """
+    s = cov.samples
+    offs = (np.arange(s) + 0.5) / s
+    xs = cc.astype(np.float64)[:, None, None] + offs[None, None, :]  # (K, 1, s)
+    ys = rr.astype(np.float64)[:, None, None] + offs[None, :, None]  # (K, s, 1)
+    # The region behind Coverage.inside (private to shapes.py): the same exact point test.
+    region = shapes_mod._region(cov.shape, cov.stroke)
+    return np.broadcast_to(region.contains(xs, ys), (rr.size, s, s))
+
+
+class _Cover:
+    """What one object above covers of a lower object's patch, by pixel class."""
+
+    __slots__ = ("cov", "r0", "c0", "full", "part")
+
+    def __init__(self, cov, r0, c0, full, part):
+        self.cov, self.r0, self.c0, self.full, self.part = cov, r0, c0, full, part
+
+
+def _visible_samples(d: _Drawn, covers, rr: np.ndarray, cc: np.ndarray) -> np.ndarray:
+    """Visible sub-samples of ``d`` at its local pixels ``(rr, cc)``: bool (K, s, s).
+
+    A sample is visible when it is inside ``d`` and inside none of ``covers``.
+    Pixels a shape covers fully or not at all are settled from its coverage
+    values; only partly covered pixels are point-tested.
+    """
+    s = d.cov.samples
+    v = d.cov.values[rr, cc]
+    R, C = rr + d.cov.row0, cc + d.cov.col0
+    vis = np.zeros((rr.size, s, s), dtype=bool)
+    vis[v >= 1] = True
+    part = (v > 0) & (v < 1)
+    if part.any():
+        vis[part] = _point_samples(d.cov, R[part], C[part])
+    for u in covers:
+        h, w = u.full.shape
+        lr, lc = rr - u.r0, cc - u.c0
+        inside = (lr >= 0) & (lr < h) & (lc >= 0) & (lc < w)
+        if not inside.any():
+            continue
+        k = np.flatnonzero(inside)
+        full = u.full[lr[k], lc[k]]
+        vis[k[full]] = False
+        kp = k[u.part[lr[k], lc[k]]]
+        if kp.size:
+            vis[kp] &= ~_point_samples(u.cov, R[kp], C[kp])
+    return vis
+
+
+def _occlude(d: _Drawn, ups) -> None:
+    """Visible coverage and visible-sample box of ``d`` under the drawn objects ``ups``."""
+    v = d.cov.values
+    h, w = v.shape
+    s = d.cov.samples
+    ss = s * s
+    pr0, pc0 = d.cov.row0, d.cov.col0
+    full = np.zeros((h, w), dtype=bool)
+    anypart = np.zeros((h, w), dtype=bool)
+    covers = []
+    for u in ups:
+        uh, uw = u.cov.values.shape
+        ur0, uc0 = u.cov.row0, u.cov.col0
+        r0, c0 = max(pr0, ur0), max(pc0, uc0)
+        r1, c1 = min(pr0 + h, ur0 + uh), min(pc0 + w, uc0 + uw)
+        uv = u.cov.values[r0 - ur0 : r1 - ur0, c0 - uc0 : c1 - uc0]
+        uf = uv >= 1
+        up = (uv > 0) & ~uf
+        full[r0 - pr0 : r1 - pr0, c0 - pc0 : c1 - pc0] |= uf
+        anypart[r0 - pr0 : r1 - pr0, c0 - pc0 : c1 - pc0] |= up
+        covers.append(_Cover(u.cov, r0 - pr0, c0 - pc0, uf, up))
+    own = v > 0
+    gone = own & full
+    mixed = own & ~full & anypart
+    if not (gone.any() or mixed.any()):
+        d.visible = v
+        return
+    own_count = np.rint(v * ss).astype(np.int32)
+    hidden = np.where(gone, own_count, 0)
+    if mixed.any():
+        rr, cc = np.nonzero(mixed)
+        seen = _visible_samples(d, covers, rr, cc).sum(axis=(1, 2), dtype=np.int32)
+        hidden[rr, cc] = own_count[rr, cc] - seen
+    if not hidden.any():
+        d.visible = v
+        return
+    vis = v - hidden.astype(np.float32) / ss
+    np.clip(vis, 0.0, 1.0, out=vis)
+    d.visible = vis
+    # Box of the visible samples: only the outermost visible pixel rows and
+    # columns can hold its edges, so only they are sampled.
+    support = vis > 0
+    rows = np.flatnonzero(support.any(axis=1))
+    if rows.size == 0:
+        d.sample_box = None
+        return
+    cols = np.flatnonzero(support.any(axis=0))
+    # The outermost visible pixel column on each side and row on each side, sampled in one pass.
+    left, right, top, bottom = cols[0], cols[-1], rows[0], rows[-1]
+    r_l, r_r = np.flatnonzero(support[:, left]), np.flatnonzero(support[:, right])
+    c_t, c_b = np.flatnonzero(support[top, :]), np.flatnonzero(support[bottom, :])
+    rr = np.concatenate([r_l, r_r, np.full(c_t.size, top), np.full(c_b.size, bottom)])
+    cc = np.concatenate([np.full(r_l.size, left), np.full(r_r.size, right), c_t, c_b])
+    seen = _visible_samples(d, covers, rr, cc)  # (K, s, s)
+    a, b, c = r_l.size, r_l.size + r_r.size, r_l.size + r_r.size + c_t.size
+    j_left = np.flatnonzero(seen[:a].any(axis=(0, 1)))[0]
+    j_right = np.flatnonzero(seen[a:b].any(axis=(0, 1)))[-1]
+    i_top = np.flatnonzero(seen[b:c].any(axis=(0, 2)))[0]
+    i_bottom = np.flatnonzero(seen[c:].any(axis=(0, 2)))[-1]
+    scale = 1.0 / s
+    d.sample_box = np.array(
+        [
+            pc0 + (left * s + j_left) * scale,
+            pr0 + (top * s + i_top) * scale,
+            pc0 + (right * s + j_right + 1) * scale,
+            pr0 + (bottom * s + i_bottom + 1) * scale,
+        ],
+        dtype=np.float64,
+    )
+
+
+#: Patches up to this many pixels are occluded by testing all their samples at once
+#: (fewer calls); bigger ones test only the pixels that two shapes cover in part.
+_SMALL_OCCLUDED = 64
+
+
+def _occlude_small(d: _Drawn, ups) -> None:
+    """:func:`_occlude` for a small patch: every sample of ``d`` against every object above."""
+    v = d.cov.values
+    h, w = v.shape
+    s = d.cov.samples
+    pr0, pc0 = d.cov.row0, d.cov.col0
+    own = d.cov.inside(pr0, pc0, pr0 + h, pc0 + w)  # (h s, w s)
+    occ = np.zeros_like(own)
+    for u in ups:
+        uh, uw = u.cov.values.shape
+        r0, c0 = max(pr0, u.cov.row0), max(pc0, u.cov.col0)
+        r1, c1 = min(pr0 + h, u.cov.row0 + uh), min(pc0 + w, u.cov.col0 + uw)
+        occ[(r0 - pr0) * s : (r1 - pr0) * s, (c0 - pc0) * s : (c1 - pc0) * s] |= u.cov.inside(r0, c0, r1, c1)
+    seen = own & ~occ
+    lost = (own & occ).reshape(h, s, w, s).sum(axis=(1, 3), dtype=np.int32)
+    if not lost.any():
+        d.visible = v
+        return
+    vis = v - lost.astype(np.float32) / (s * s)
+    np.clip(vis, 0.0, 1.0, out=vis)
+    d.visible = vis
+    d.sample_box = mask_box(seen, origin=(pc0, pr0), scale=1.0 / s)
+
+
 def _measure_occlusion(drawn) -> None:
     """Fill in each drawn object's visible coverage from the samples of the objects above it."""
-    from synthgen.geometry import box_intersection
-
     if not drawn:
         return
-    rects = _patch_rects(drawn)
-    overlaps = box_intersection(rects, rects) > 0  # (N, N)
-    np.fill_diagonal(overlaps, False)
-    for i, d in enumerate(drawn):
-        above = np.flatnonzero(overlaps[i, i + 1 :]) + i + 1
+    for d, above in zip(drawn, _above(_patch_rects(drawn))):
         if above.size == 0:
             d.visible = d.cov.values
-            continue
-        c0, r0, c1, r1 = rects[i]
-        inter = rects[above].copy()
-        inter[:, 0] = np.maximum(inter[:, 0], c0)
-        inter[:, 1] = np.maximum(inter[:, 1], r0)
-        inter[:, 2] = np.minimum(inter[:, 2], c1)
-        inter[:, 3] = np.minimum(inter[:, 3], r1)
-        rc0, rr0 = int(inter[:, 0].min()), int(inter[:, 1].min())
-        rc1, rr1 = int(inter[:, 2].max()), int(inter[:, 3].max())
-        s = d.cov.samples
-        own = d.cov.inside(rr0, rc0, rr1, rc1)
-        occ = np.zeros_like(own)
-        for j, (a0, b0, a1, b1) in zip(above, inter.astype(int)):
-            occ[(b0 - rr0) * s : (b1 - rr0) * s, (a0 - rc0) * s : (a1 - rc0) * s] |= drawn[j].cov.inside(b0, a0, b1, a1)
-        hidden = own & occ
-        if not hidden.any():
-            d.visible = d.cov.values
-            continue
-        hh, ww = rr1 - rr0, rc1 - rc0
-        lost = hidden.reshape(hh, s, ww, s).sum(axis=(1, 3), dtype=np.int64).astype(np.float32) / (s * s)
-        vis = d.cov.values.copy()
-        pr, pc = rr0 - d.cov.row0, rc0 - d.cov.col0
-        vis[pr : pr + hh, pc : pc + ww] -= lost
-        np.clip(vis, 0.0, 1.0, out=vis)
-        d.visible = vis
-        h, w = d.cov.values.shape
-        full = d.cov.inside(d.cov.row0, d.cov.col0, d.cov.row0 + h, d.cov.col0 + w)
-        full[pr * s : (pr + hh) * s, pc * s : (pc + ww) * s] &= ~occ
-        d.sample_box = mask_box(full, origin=(d.cov.col0, d.cov.row0), scale=1.0 / s)
+        elif d.cov.values.size <= _SMALL_OCCLUDED:
+            _occlude_small(d, [drawn[j] for j in above.tolist()])
+        else:
+            _occlude(d, [drawn[j] for j in above.tolist()])
 
 
 def visible_box(exact: np.ndarray, sample_box: np.ndarray | None) -> np.ndarray | None:
@@ -390,18 +849,20 @@ def _annotate(drawn, outside: int, config):
     width, height = config.canvas.width, config.canvas.height
     spec = config.objects
     dropped = {"outside": outside, "hidden": 0, "min_visible": 0, "min_area": 0}
+    full_boxes = clip_boxes(np.array([d.box for d in drawn]).reshape(-1, 4), width, height)  # (N, 4)
+    pair_iou = _pair_ious(drawn, full_boxes)
     kept = []
     for z, d in enumerate(drawn):
         full_cov = float(d.cov.values.sum())
-        vis_cov = float(d.visible.sum())
-        fraction = vis_cov / full_cov if full_cov > 0 else 0.0
-        full_box = clip_boxes(d.box, width, height)[0]
-        vbox = visible_box(full_box, d.sample_box) if vis_cov > 0 else None
-        support = d.visible > 0
-        pbox = mask_box(support, origin=(d.cov.col0, d.cov.row0))
         if full_cov <= 0:  # too small to cover any sample
             dropped["min_area"] += 1
             continue
+        vis_cov = full_cov if d.visible is d.cov.values else float(d.visible.sum())
+        fraction = vis_cov / full_cov
+        full_box = full_boxes[z]
+        vbox = visible_box(full_box, d.sample_box) if vis_cov > 0 else None
+        support = d.visible > 0
+        pbox = mask_box(support, origin=(d.cov.col0, d.cov.row0))
         if vbox is None or pbox is None or vis_cov <= 0:
             dropped["hidden"] += 1
             continue
@@ -427,20 +888,46 @@ def _annotate(drawn, outside: int, config):
             "contrast": d.contrast,
             "fill": d.style["fill"],
             "outline": d.style["outline"],
+            **d.extra,
         }
+        if "pair_id" in d.extra and d.extra["pair_id"] in pair_iou:
+            facts["pair_iou"] = pair_iou[d.extra["pair_id"]]
         box = vbox if spec.box == "visible" else full_box
-        kept.append((box, vis_cov, facts, (d.cov.row0, d.cov.col0, support)))
+        # The mask patch is cropped to the pixel box (less to run-length encode).
+        c0, r0, c1, r1 = (int(v) for v in pbox)
+        pr, pc = r0 - d.cov.row0, c0 - d.cov.col0
+        mask = (r0, c0, support[pr : pr + r1 - r0, pc : pc + c1 - c0])
+        kept.append((box, vis_cov, facts, mask))
     return kept, dropped
+
+
+def _pair_ious(drawn, full_boxes: np.ndarray) -> dict:
+    """IoU of the exact (clipped) boxes of each drawn pair, by ``pair_id``."""
+    members: dict = {}
+    for z, d in enumerate(drawn):
+        if "pair_id" in d.extra:
+            members.setdefault(d.extra["pair_id"], []).append(z)
+    out = {}
+    for pid, zs in members.items():
+        if len(zs) == 2:
+            out[pid] = float(pairwise_iou(full_boxes[zs[:1]], full_boxes[zs[1:]])[0, 0])
+    return out
 
 
 def _assemble(image, kept, info) -> Scene:
     n = len(kept)
     boxes = np.array([k[0] for k in kept], dtype=np.float64).reshape(n, 4)
-    iou = pairwise_iou(boxes, boxes)  # (N, N)
-    np.fill_diagonal(iou, 0.0)
+    # Only boxes that overlap have a positive IoU: compute it for those pairs alone.
+    ii, jj = _overlapping_pairs(boxes)
+    iou = box_iou(boxes[ii], boxes[jj])  # (P,)
+    best = np.zeros(n)
+    np.maximum.at(best, ii, iou)
+    np.maximum.at(best, jj, iou)
+    hit = iou > 0
+    count = np.bincount(ii[hit], minlength=n) + np.bincount(jj[hit], minlength=n)
     for i, k in enumerate(kept):
-        k[2]["max_iou"] = float(iou[i].max()) if n > 1 else 0.0
-        k[2]["neighbours"] = int((iou[i] > 0).sum())
+        k[2]["max_iou"] = float(best[i])
+        k[2]["neighbours"] = int(count[i])
     return Scene(
         image=image,
         boxes=boxes,

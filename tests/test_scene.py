@@ -7,7 +7,7 @@ import pytest
 
 from synthgen.config import load_config
 from synthgen.geometry import mask_box
-from synthgen.scene import compose_shapes, image_rng, render_scene, visible_box
+from synthgen.scene import compose_shapes, image_rng, plan_objects, render_scene, visible_box
 from synthgen.shapes import Shape, coverage, exact_box
 
 
@@ -134,3 +134,167 @@ def test_coverage_patch_never_exceeds_canvas():
     """A huge shape's patch is clipped to the canvas."""
     cov = coverage(Shape("ellipse", cx=10.0, cy=10.0, size=500.0), 48, 64)
     assert cov.values.shape == (48, 64)
+
+
+# --------------------------------------------------------------------------- difficulty dials
+
+
+def _raster(shape, height, width, s):
+    """Boolean mask of a shape on an s-times finer grid, from its outline polygons by scikit-image."""
+    from skimage.draw import polygon
+
+    from synthgen.shapes import outline
+
+    mask = np.zeros((height * s, width * s), dtype=bool)
+    for k, ring in enumerate(outline(shape, resolution=512)):
+        # skimage fills the cells whose centres lie inside; cell (r, c) of the fine grid has centre
+        # ((c + 0.5) / s, (r + 0.5) / s) in image coordinates, i.e. fine coords x * s - 0.5.
+        rr, cc = polygon(ring[:, 1] * s - 0.5, ring[:, 0] * s - 0.5, shape=mask.shape)
+        part = np.zeros_like(mask)
+        part[rr, cc] = True
+        mask = mask | part if k == 0 else mask & ~part
+    return mask
+
+
+def test_occlusion_dial_matches_masks_rasterized_independently():
+    """Visible fraction = visible / full coverage of masks drawn by scikit-image from outlines (within 1%)."""
+    lo, hi = 0.3, 0.6
+    cfg = load_config(overrides=[
+        "canvas.width=200", "canvas.height=150", "objects.layout=separated", "objects.count=[6,6]",
+        "objects.size=[30,50]", "objects.outline=0", "objects.occlusion=[0.3,0.6]", "objects.min_visible=0",
+    ])
+    s = 8
+    checked = 0
+    for index in range(3):
+        sc = render_scene(cfg, index)
+        _bg, obj_rng, _cl, _dg = image_rng(cfg.seed, index).spawn(4)  # the composer's stages
+        shapes = plan_objects(cfg, rng=obj_rng)[0]
+        masks = [_raster(sh, 150, 200, s) for sh in shapes]
+        by_z = {f["z"]: f for f in sc.facts}
+        for z, f in by_z.items():
+            if "occlusion_goal" not in f:
+                continue
+            above = np.zeros_like(masks[z])
+            for m in masks[z + 1 :]:
+                above |= m
+            full = masks[z].sum()
+            expected = (masks[z] & ~above).sum() / full  # reference: scikit-image polygon rasterization
+            assert f["visible_fraction"] == pytest.approx(expected, abs=0.01)
+            assert lo <= f["occluder_hides"] <= hi
+            others = [m for m in masks[z + 1 :] if (m & masks[z]).any()]
+            if len(others) == 1:  # only its own occluder lies over it: the dial's range holds
+                assert lo - 0.01 <= 1 - f["visible_fraction"] <= hi + 0.01
+                checked += 1
+    assert checked >= 12
+
+
+@pytest.mark.parametrize("size", [1, 2, 3, 4, 8])
+@pytest.mark.parametrize("kind", ["rectangle", "ellipse", "triangle", "polygon"])
+def test_tiny_shapes_area_and_regionprops_box(size, kind):
+    """Tiny convex shapes: coverage sum within the sampling bound of the exact area; regionprops box within 1 px.
+
+    Bound: with s x s samples (cell side h = 1/s) only cells the boundary crosses can be wrong, each by at
+    most h^2.  A convex boundary is four monotone arcs with total extents 2W and 2H, and a monotone arc of
+    extents (a, b) crosses at most a/h + b/h + 2 cells, so |sum - area| <= h (2W + 2H) + 8 h^2.
+    """
+    from skimage.measure import regionprops
+
+    from synthgen.shapes import exact_area
+
+    rng = np.random.default_rng(size)
+    s = 8
+    for _ in range(10):
+        shape = Shape(kind, cx=float(rng.uniform(10, 20)), cy=float(rng.uniform(10, 20)), size=float(size),
+                      aspect=float(rng.uniform(0.6, 1.6)), angle=float(rng.uniform(0, 360)), sides=6)
+        cov = coverage(shape, 32, 32, samples=s)
+        x0, y0, x1, y1 = exact_box(shape)
+        h = 1.0 / s
+        bound = h * (2 * (x1 - x0) + 2 * (y1 - y0)) + 8 * h * h
+        assert abs(float(cov.values.sum()) - exact_area(shape)) <= bound
+        canvas = np.zeros((32, 32), dtype=np.uint8)
+        canvas[cov.row0 : cov.row0 + cov.values.shape[0], cov.col0 : cov.col0 + cov.values.shape[1]] = cov.values > 0
+        (region,) = regionprops(canvas)  # reference: scikit-image, half-open (min_row, min_col, max_row, max_col)
+        r0, c0, r1, c1 = region.bbox
+        assert max(abs(c0 - x0), abs(r0 - y0), abs(c1 - x1), abs(r1 - y1)) <= 1.0
+
+
+def test_thousand_tiny_objects_in_one_image():
+    """1000 objects of 2-8 px on 640x480 compose; every annotated box is valid and inside the canvas."""
+    cfg = load_config(overrides=["objects.count=[1000,1000]", "objects.size=[2,8]", "objects.min_visible=0",
+                                 "objects.min_area=0.5"])
+    sc = render_scene(cfg, 0)
+    assert len(sc.boxes) + sum(sc.info["dropped"].values()) == 1000
+    assert np.all(sc.boxes[:, 2] > sc.boxes[:, 0]) and np.all(sc.boxes[:, :2] >= 0)
+    assert np.all(sc.boxes[:, 2] <= 640) and np.all(sc.boxes[:, 3] <= 480)
+    assert (sc.areas >= 0.5).all()
+
+
+def test_degradations_reach_from_set_and_keep_boxes():
+    """--set degrade.blur.p=1 and degrade.noise.p=1 change pixels, never boxes (issue 3: degradations)."""
+    base = ["canvas.width=96", "canvas.height=64", "objects.count=[4,4]"]
+    plain = render_scene(load_config(overrides=base), 1)
+    worse = render_scene(load_config(overrides=base + ["degrade.blur.p=1", "degrade.noise.p=1"]), 1)
+    assert np.array_equal(plain.boxes, worse.boxes) and not np.array_equal(plain.image, worse.image)
+    assert worse.info["degradations"] != plain.info["degradations"]
+
+
+def test_layouts_are_deterministic():
+    """Each layout gives the same scene twice for the same image index."""
+    for name in ("separated", "pairs", "grid", "clusters"):
+        cfg = load_config(overrides=["canvas.width=96", "canvas.height=64", f"objects.layout={name}",
+                                     "objects.count=[6,6]", "objects.size=[4,16]", "objects.occlusion=[0.2,0.4]"])
+        a, b = render_scene(cfg, 2), render_scene(cfg, 2)
+        assert np.array_equal(a.image, b.image) and a.facts == b.facts
+
+
+def test_dense_occlusion_matches_brute_force_sample_count():
+    """In crowded scenes (outlines too), visible fractions and boxes equal a whole-canvas sample count.
+
+    The reference tests every sub-sample of the canvas against every shape with
+    Coverage.inside (no pixel classes, no patches), the plain rule of the module docstring.
+    """
+    from synthgen.scene import _sample_objects, _moved
+
+    cfg = load_config(overrides=["canvas.width=48", "canvas.height=40", "objects.outline=0.4",
+                                 "objects.min_visible=0", "objects.min_area=0", "objects.size=[2,30]"])
+    rng = np.random.default_rng(9)
+    s = cfg.render.samples
+    occluded = 0
+    for _ in range(4):
+        shapes, styles = _sample_objects(cfg, rng, n=25)
+        shapes = [_moved(sh, c) for sh, c in zip(shapes, rng.uniform(size=(25, 2)) * (48, 40))]
+        scene = compose_shapes(grey(cfg), shapes, cfg, rng=np.random.default_rng(0), styles=styles)
+        masks = []
+        for sh, st in zip(shapes, styles):
+            cov = coverage(sh, 40, 48, samples=s, stroke=st["stroke"])  # never None: centres lie on the canvas
+            m = np.zeros((40 * s, 48 * s), dtype=bool)
+            h, w = cov.values.shape
+            m[cov.row0 * s : (cov.row0 + h) * s, cov.col0 * s : (cov.col0 + w) * s] = cov.inside(
+                cov.row0, cov.col0, cov.row0 + h, cov.col0 + w)
+            masks.append(m)
+        for f in scene.facts:
+            z = f["z"]  # every shape is drawn, so draw order = shape order
+            above = np.zeros_like(masks[z])
+            for m in masks[z + 1 :]:
+                above |= m
+            seen = masks[z] & ~above
+            assert f["visible_fraction"] == pytest.approx(seen.sum() / masks[z].sum(), abs=1e-12)
+            if f["visible_fraction"] < 1.0:
+                expected = visible_box(np.array(f["full_box"]), mask_box(seen, scale=1.0 / s))
+                assert np.allclose(f["visible_box"], expected, atol=1e-12)
+                occluded += 1
+    assert occluded >= 20
+
+
+def test_max_iou_and_neighbours_match_a_double_loop():
+    """max_iou and neighbours equal a plain double loop over the annotated boxes (common practice)."""
+    from synthgen.geometry import pairwise_iou
+
+    cfg = load_config(overrides=["canvas.width=120", "canvas.height=90", "objects.count=[40,40]",
+                                 "objects.size=[6,40]", "objects.min_visible=0"])
+    scene = render_scene(cfg, 1)
+    n = len(scene.boxes)
+    for i in range(n):
+        ious = [float(pairwise_iou(scene.boxes[i : i + 1], scene.boxes[j : j + 1])[0, 0]) for j in range(n) if j != i]
+        assert scene.facts[i]["max_iou"] == max(ious)
+        assert scene.facts[i]["neighbours"] == sum(v > 0 for v in ious)
