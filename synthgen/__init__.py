@@ -1,8 +1,47 @@
 """synthgen: object-detection test data whose right answer is known exactly.
 
-Coordinate conventions are stated once, in :mod:`synthgen.geometry`.
+Coordinate conventions are stated once, in :mod:`synthgen.geometry`.  The main
+entry points are importable from the package itself (loaded on first use, so
+``import synthgen`` stays light)::
+
+    from synthgen import load_config, render_scene, make_dataset, evaluate, simulate_detections
 """
+
+from importlib import import_module
 
 __version__ = "0.1.0"
 
-__all__ = ["__version__"]
+#: public name -> module that defines it
+_EXPORTS = {
+    "load_config": "synthgen.config",
+    "Config": "synthgen.config",
+    "render_scene": "synthgen.scene",
+    "compose": "synthgen.scene",
+    "compose_shapes": "synthgen.scene",
+    "Scene": "synthgen.scene",
+    "Shape": "synthgen.shapes",
+    "make_dataset": "synthgen.dataset",
+    "merge_shards": "synthgen.dataset",
+    "evaluate": "synthgen.score",
+    "simulate_detections": "synthgen.jitter",
+    "DetectorSpec": "synthgen.jitter",
+    "to_iou": "synthgen.jitter",
+    "jitter_dataset": "synthgen.jitter_coco",
+    "check_dataset": "synthgen.check",
+    "export": "synthgen.formats",
+    "run_sweep": "synthgen.sweep",
+    "pairwise_iou": "synthgen.geometry",
+    "UserError": "synthgen.errors",
+}
+
+__all__ = ["__version__", *_EXPORTS]
+
+
+def __getattr__(name: str):
+    if name in _EXPORTS:
+        return getattr(import_module(_EXPORTS[name]), name)
+    raise AttributeError(f"module 'synthgen' has no attribute {name!r}")
+
+
+def __dir__():
+    return sorted(__all__)

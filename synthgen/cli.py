@@ -136,7 +136,25 @@ def make(
     seed: Annotated[Optional[int], typer.Option(help="Root seed (same as --set seed=S).")] = None,
     set_: SetOpt = None,
     overwrite: Annotated[bool, typer.Option("--overwrite", help="Replace the dataset in a non-empty output directory.")] = False,
-    workers: Annotated[Optional[int], typer.Option(help="Processes to render with (default: usable cores).", min=1)] = None,
+    resume: Annotated[
+        bool,
+        typer.Option("--resume", help="Continue an interrupted run in DIR: keep intact images, render the rest."),
+    ] = False,
+    workers: Annotated[Optional[int], typer.Option(help="Processes to render with (default: usable cores).")] = None,
+    shard: Annotated[
+        Optional[str],
+        typer.Option(
+            "--shard", metavar="K/N",
+            help="Render only shard K of N (images whose index % N == K) and a shard manifest; join with `merge`.",
+        ),
+    ] = None,
+    cluster: Annotated[
+        Optional[str],
+        typer.Option(
+            "--cluster", metavar="ADDRESS|local",
+            help="Render on a Dask cluster (scheduler address, or 'local'); needs pip install 'synthgen\\[cluster]'.",
+        ),
+    ] = None,
     quiet: Annotated[bool, typer.Option("--quiet", "-q", help="No progress bar.")] = False,
     formats: FormatsOpt = "coco",
     split: SplitOpt = None,
@@ -144,6 +162,7 @@ def make(
     """Render a dataset: images, COCO JSON annotations and a manifest."""
     from synthgen.config import load_config
     from synthgen.dataset import make_dataset
+    from synthgen.shards import OutputWriteError, parse_shard
 
     overrides = list(set_ or [])
     if count is not None:
@@ -152,15 +171,39 @@ def make(
         overrides.append(f"seed={seed}")
     cfg = load_config(config, overrides)
     format_names, fractions = _formats_and_split(formats, split)
-    bar, advance = _progress(cfg.count, quiet, "rendering")
-    with bar:
-        summary = make_dataset(
-            cfg, out, overwrite=overwrite, workers=workers, progress=advance, formats=format_names, split=fractions
-        )
+    part = parse_shard(shard) if shard is not None else None
+    if workers is not None and workers < 1:
+        raise UserError(f"option '--workers' must be a whole number >= 1 (got {workers})")
+    total = len(part.indices(cfg.count)) if part is not None else cfg.count
+    bar, advance = _progress(total, quiet, "rendering")
+    try:
+        with bar:
+            summary = make_dataset(
+                cfg, out, overwrite=overwrite, resume=resume, workers=workers, shard=part, cluster=cluster,
+                progress=None if advance is None else (lambda done, _total: advance(done)),
+                formats=format_names, split=fractions,
+            )
+    except OutputWriteError as exc:
+        _fail(f"error: {exc}", 1)
+    what = "" if summary.shard.whole else f" (shard {summary.shard.index}/{summary.shard.count})"
+    kept = f", {summary.kept} kept from before" if summary.kept else ""
     typer.echo(
-        f"wrote {summary.images} images, {summary.objects} objects to {summary.out} "
+        f"wrote {summary.images} images{what}, {summary.objects} objects to {summary.out}{kept} "
         f"in {summary.seconds:.2f} s ({summary.images_per_second:.1f} images/s)"
     )
+    _warn_shortfall(cfg, summary.dropped)
+
+
+def _warn_shortfall(cfg, dropped: dict, where: str = "") -> None:
+    """One warning line on stderr when a layout could not place every requested object."""
+    n = int(dropped.get("no_room", 0))
+    if n:
+        typer.echo(
+            f"synthgen: warning: {where}{n} requested objects found no room (objects.layout = "
+            f"'{cfg.objects.layout}', objects.attempts = {cfg.objects.attempts}); they are not drawn and "
+            "the manifest counts them under counts.dropped.no_room",
+            err=True,
+        )
 
 
 # config key of each DetectorSpec field -> the jitter option that sets it
@@ -445,7 +488,8 @@ def sweep(
     if seed is not None:
         overrides.append(f"seed={seed}")
     varies = [parse_vary(v) for v in vary]
-    total = sum(cfg.count for _, _, cfg in plan_sweep(config, varies, overrides))
+    plan = plan_sweep(config, varies, overrides)
+    total = sum(cfg.count for _, _, cfg in plan)
     bar, advance = _progress(total, quiet, "sweeping")
     with bar:
         summary = run_sweep(
@@ -456,6 +500,29 @@ def sweep(
         f"wrote {summary.subsets} datasets ({summary.images} images, {summary.objects} objects) "
         f"to {summary.out} in {summary.seconds:.2f} s"
     )
+    for (rel, _, cfg), record in zip(plan, summary.records):
+        _warn_shortfall(cfg, record["dropped"], where=f"{rel}: ")
+
+
+@app.command()
+@reported
+def merge(
+    dirs: Annotated[list[Path], typer.Argument(help="Directories written by make --shard K/N (all K of one N).")],
+    out: Annotated[
+        Optional[Path],
+        typer.Option("--out", "-o", help="Output directory (default: merge in place when one directory is given)."),
+    ] = None,
+    overwrite: Annotated[bool, typer.Option("--overwrite", help="Replace a dataset in a non-empty --out.")] = False,
+) -> None:
+    """Join shard outputs into the dataset a single run writes, byte for byte."""
+    from synthgen.dataset import merge_shards
+    from synthgen.shards import OutputWriteError
+
+    try:
+        summary = merge_shards(dirs, out, overwrite=overwrite)
+    except OutputWriteError as exc:
+        _fail(f"error: {exc}", 1)
+    typer.echo(f"merged {summary.images} images, {summary.objects} objects into {summary.out} in {summary.seconds:.2f} s")
 
 
 # -- show and stats -------------------------------------------------------------------
@@ -579,9 +646,26 @@ def stats(
 
 
 def main() -> None:
-    """Entry point of the ``synthgen`` console script."""
-    app(prog_name="synthgen")
+    """Entry point of the ``synthgen`` console script.
+
+    Usage mistakes caught by the option parser (an unknown option, a value of
+    the wrong type) are printed as one line, like every other user error.
+    """
+    try:
+        code = app(prog_name="synthgen", standalone_mode=False)
+    except typer.TyperException as exc:  # the parser's usage errors
+        text = exc.format_message() if hasattr(exc, "format_message") else str(exc)
+        text = " ".join(text.split()).rstrip(".")
+        if text:  # empty when the parser has just shown the help for a bare command
+            ctx = getattr(exc, "ctx", None)
+            where = f"; see '{ctx.command_path} --help'" if ctx is not None else ""
+            typer.echo(f"synthgen: error: {text}{where}", err=True)
+        sys.exit(getattr(exc, "exit_code", 2))
+    except typer.Abort:
+        typer.echo("synthgen: interrupted", err=True)
+        sys.exit(130)
+    sys.exit(code if isinstance(code, int) else 0)
 
 
 if __name__ == "__main__":  # pragma: no cover
-    sys.exit(main())
+    main()

@@ -29,14 +29,13 @@ Difficulty dials handled here (placement itself is in :mod:`synthgen.layout`):
 * Clutter (:mod:`synthgen.clutter`) is drawn on the background before the
   objects, from its own random stream.
 * When a layout cannot place every requested object, the image's
-  ``dropped["no_room"]`` counts them (so the manifest totals them) and a
-  :class:`PlacementWarning` is issued.
+  ``dropped["no_room"]`` counts them (so the manifest totals them); the
+  command line prints one warning line for the run.
 """
 
 from __future__ import annotations
 
 import math
-import warnings
 from dataclasses import dataclass, field, replace
 
 import numpy as np
@@ -47,7 +46,7 @@ from synthgen.backgrounds import render_background
 from synthgen.clutter import render_clutter
 from synthgen.degrade import degrade
 from synthgen.geometry import box_iou, clip_boxes, mask_box, pairwise_iou
-from synthgen.shapes import KINDS, Shape, coverage, exact_box, paint, sample_inside
+from synthgen.shapes import KINDS, Shape, clipped_box, coverage, exact_box, natural_aspect, paint, sample_inside
 
 __all__ = [
     "Scene",
@@ -57,7 +56,6 @@ __all__ = [
     "compose_shapes",
     "plan_objects",
     "place_occluder",
-    "PlacementWarning",
     "visible_box",
     "category_id",
     "luminance",
@@ -69,10 +67,6 @@ LUMA = np.array([0.299, 0.587, 0.114])
 
 #: Number of child generators :func:`compose` spawns (background, objects, clutter, degradation).
 STAGES = 4
-
-
-class PlacementWarning(UserWarning):
-    """A layout placed fewer objects than requested (the count is in the image's ``dropped``)."""
 
 
 def category_id(kind: str) -> int:
@@ -161,16 +155,6 @@ def compose(config, *, rng: np.random.Generator) -> Scene:
     info = {"background": bg_info, "degradations": deg_info, **scene.info, **extra_info}
     if placement.info:
         info["placement"] = placement.info
-    if no_room:
-        # One text per run, so that each process shows it once; the counts are in the
-        # image's dropped["no_room"] and summed in the manifest.
-        warnings.warn(
-            f"objects.layout = {spec.layout!r} found no room for some of the requested objects on a "
-            f"{width}x{height} canvas within objects.attempts = {spec.attempts} tries each; they are left "
-            f"out and counted as dropped.no_room in the image records and the manifest",
-            PlacementWarning,
-            stacklevel=2,
-        )
     return replace(scene, image=image, info=info)
 
 
@@ -287,7 +271,8 @@ def _sample_objects(config, rng: np.random.Generator, n: int | None = None):
                 cx=0.0,
                 cy=0.0,
                 size=float(sizes[i]),
-                aspect=float(aspects[i]),
+                # objects.aspect stretches a kind's natural proportions: 1 keeps polygons and stars regular
+                aspect=float(aspects[i]) * natural_aspect(kind, int(sides[i]), float(inner[i])),
                 angle=float(angles[i]),
                 sides=int(sides[i]),
                 inner=float(inner[i]),
@@ -850,6 +835,14 @@ def _annotate(drawn, outside: int, config):
     spec = config.objects
     dropped = {"outside": outside, "hidden": 0, "min_visible": 0, "min_area": 0}
     full_boxes = clip_boxes(np.array([d.box for d in drawn]).reshape(-1, 4), width, height)  # (N, 4)
+    for z, d in enumerate(drawn):
+        b = d.box
+        if b[0] < 0 or b[1] < 0 or b[2] > width or b[3] > height:
+            # cut by the border: the exact box is the tight box of the part on the canvas,
+            # which for a rotated shape can be smaller than its full box clipped
+            cut = clipped_box(d.shape, height, width)
+            if cut is not None:
+                full_boxes[z] = cut
     pair_iou = _pair_ious(drawn, full_boxes)
     kept = []
     for z, d in enumerate(drawn):
@@ -881,7 +874,7 @@ def _annotate(drawn, outside: int, config):
             "visible_box": vbox.tolist(),
             "pixel_box": pbox.tolist(),
             "size": float(max(b[2] - b[0], b[3] - b[1])),
-            "aspect": d.shape.aspect,
+            "aspect": d.shape.aspect / natural_aspect(d.shape.kind, d.shape.sides, d.shape.inner),
             "rotation": d.shape.angle,
             "visible_fraction": min(fraction, 1.0),
             "truncated": truncated,

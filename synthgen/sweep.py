@@ -46,6 +46,7 @@ class SweepSummary:
     images: int
     objects: int
     seconds: float
+    records: tuple = ()  # per subset: path, values, images, objects, dropped (as in sweep.json)
 
 
 def _split_values(raw: str) -> list[str]:
@@ -215,7 +216,7 @@ def run_sweep(
     for rel, values, cfg in plan:
         offset = done
 
-        def advance(k, offset=offset):
+        def advance(k, _subset_total, offset=offset):  # make_dataset calls progress(done, total)
             if progress is not None:
                 progress(offset + k, total)
 
@@ -244,5 +245,6 @@ def run_sweep(
     }
     write_bytes_atomic(out / "sweep.json", orjson.dumps(record, option=orjson.OPT_INDENT_2))
     return SweepSummary(
-        out=out, subsets=len(plan), images=done, objects=n_objects, seconds=time.perf_counter() - start
+        out=out, subsets=len(plan), images=done, objects=n_objects, seconds=time.perf_counter() - start,
+        records=tuple(subsets),
     )

@@ -68,3 +68,22 @@ def test_console_entry_runs_as_a_module(tmp_path):
     )
     assert res.returncode == 2
     assert "Traceback" not in res.stderr and "canvas.height" in res.stderr
+
+
+@pytest.mark.parametrize(
+    ("args", "pattern"),
+    [
+        (["make", "--out", "x", "--count", "many"], "synthgen: error: Invalid value for '--count'"),
+        (["make", "--out", "x", "--bogus"], "synthgen: error: No such option: --bogus"),
+        (["frob"], "synthgen: error: No such command 'frob'; see 'synthgen --help'"),
+    ],
+)
+def test_parser_errors_are_one_line_too(tmp_path, args, pattern):
+    """Mistakes the option parser catches also give one line on stderr and exit 2."""
+    import os
+    from pathlib import Path
+
+    env = dict(os.environ, PYTHONPATH=str(Path(__file__).resolve().parents[1]))
+    res = subprocess.run([sys.executable, "-m", "synthgen", *args], capture_output=True, text=True, cwd=tmp_path, env=env)
+    assert res.returncode == 2
+    assert res.stderr.startswith(pattern) and len(res.stderr.strip().splitlines()) == 1

@@ -129,3 +129,79 @@ def test_overwrite_replaces_an_earlier_dataset(tmp_path, small_config):
     make_dataset(small_config, out, overwrite=True, workers=1)
     assert len(list((out / "images").iterdir())) == small_config.count
     assert (out / "notes.txt").read_text() == "mine"
+
+
+def test_three_workers_same_bytes(tmp_path, small_config, small_dataset):
+    """More workers than cores still give the same files (blocks finish out of order)."""
+    make_dataset(small_config, tmp_path / "w3", workers=3)
+    assert _tree(tmp_path / "w3") == _tree(small_dataset[0])
+
+
+def _valid_overrides():
+    """A hypothesis strategy of --set overrides that make a valid tiny config."""
+    from hypothesis import strategies as st
+
+    from synthgen.backgrounds import BACKGROUND_KINDS
+    from synthgen.shapes import FILLS, KINDS
+
+    def pair(lo, hi, *, integer=False):
+        elem = st.integers(lo, hi) if integer else st.floats(lo, hi, allow_nan=False)
+        return st.tuples(elem, elem).map(sorted)
+
+    def names(pool):
+        return st.lists(st.sampled_from(pool), min_size=1, max_size=len(pool), unique=True)
+
+    def toml(v):
+        return json.dumps(list(v) if isinstance(v, (list, tuple)) else v)
+
+    fields = {
+        "canvas.width": st.integers(1, 48),
+        "canvas.height": st.integers(1, 48),
+        "background.kind": st.sampled_from(BACKGROUND_KINDS),
+        "objects.count": pair(0, 8, integer=True),
+        "objects.size": pair(0.5, 80.0),
+        "objects.size_law": st.sampled_from(["uniform", "log-uniform"]),
+        "objects.aspect": pair(0.2, 5.0),
+        "objects.rotate": st.booleans(),
+        "objects.shapes": names(list(KINDS)),
+        "objects.fills": names(list(FILLS)),
+        "objects.outline": st.floats(0, 1),
+        "objects.min_visible": st.floats(0, 1),
+        "objects.min_contrast": st.floats(0, 1),
+        "objects.box": st.sampled_from(["visible", "full"]),
+        "render.samples": st.integers(1, 8),
+        "degrade.noise.p": st.floats(0, 1),
+        "degrade.blur.p": st.floats(0, 1),
+        "degrade.jpeg.p": st.floats(0, 1),
+        "output.image_format": st.sampled_from(["png", "jpeg"]),
+        "seed": st.integers(0, 2**63 - 1),
+    }
+    return st.fixed_dictionaries(fields).map(lambda d: ["count=2"] + [f"{k}={toml(v)}" for k, v in d.items()])
+
+
+def test_any_valid_config_makes_a_dataset_pycocotools_accepts():
+    """Random valid configs: make of 2 tiny images never crashes; pycocotools loads it and loadRes of the gt works."""
+    import tempfile
+    from pathlib import Path
+
+    from hypothesis import HealthCheck, given, settings
+
+    from synthgen.config import load_config
+
+    @settings(max_examples=25, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+    @given(_valid_overrides())
+    def check(overrides):
+        cfg = load_config(overrides=overrides)
+        with tempfile.TemporaryDirectory() as d:
+            make_dataset(cfg, Path(d) / "ds", workers=1)
+            gt = coco_api(Path(d) / "ds" / "annotations.json")  # pycocotools' COCO() accepts the file
+            assert len(gt.getImgIds()) == 2
+            anns = gt.dataset["annotations"]
+            if anns:  # pycocotools' loadRes cannot take an empty list
+                dets = [{"image_id": a["image_id"], "category_id": a["category_id"], "bbox": a["bbox"],
+                         "score": 1.0} for a in anns]
+                with contextlib.redirect_stdout(io.StringIO()):
+                    res = gt.loadRes(dets)
+                assert len(res.getAnnIds()) == len(anns)
+
+    check()

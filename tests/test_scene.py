@@ -298,3 +298,32 @@ def test_max_iou_and_neighbours_match_a_double_loop():
         ious = [float(pairwise_iou(scene.boxes[i : i + 1], scene.boxes[j : j + 1])[0, 0]) for j in range(n) if j != i]
         assert scene.facts[i]["max_iou"] == max(ious)
         assert scene.facts[i]["neighbours"] == sum(v > 0 for v in ious)
+
+
+def test_cut_rotated_shape_gets_the_tight_box_of_its_visible_part(cfg):
+    """A diamond cut by the border: its exact box is the bounds of outline n canvas (shapely)."""
+    from shapely.geometry import Polygon
+    from shapely.geometry import box as sbox
+
+    from synthgen.shapes import outline
+
+    shape = Shape("rectangle", cx=-3.0, cy=24.0, size=20.0, angle=45.0)  # a diamond, tips at x = -13 and 7
+    scene = compose_shapes(grey(cfg), [shape], cfg, rng=np.random.default_rng(0))
+    part = Polygon(outline(shape)[0]).intersection(sbox(0, 0, cfg.canvas.width, cfg.canvas.height))
+    assert np.allclose(scene.facts[0]["full_box"], part.bounds, atol=1e-9)
+    assert np.allclose(scene.facts[0]["full_box"], [0, 17, 7, 31])  # not the clipped full box [0, 14, 7, 34]
+    assert scene.facts[0]["truncated"] is True
+
+
+def test_aspect_one_keeps_polygons_regular():
+    """objects.aspect = 1 draws regular polygons: all vertices on one circle (REFERENCE.md: Geometry)."""
+    from synthgen.scene import plan_objects
+    from synthgen.shapes import outline
+
+    cfg = load_config(overrides=["objects.aspect=1", "objects.shapes=[\"polygon\"]", "objects.count=[6, 6]",
+                                 "objects.rotate=false"])
+    shapes = plan_objects(cfg, rng=np.random.default_rng(1))[0]
+    for s in shapes:
+        ring = outline(s)[0]
+        radii = np.hypot(ring[:, 0] - ring[:, 0].mean(), ring[:, 1] - ring[:, 1].mean())
+        assert np.ptp(radii) < 1e-9 * s.size

@@ -87,3 +87,14 @@ def test_non_empty_directory_is_refused(tmp_path):
     with pytest.raises(UserError, match="not empty"):
         run_sweep(None, [parse_vary("seed=1,2")], tmp_path / "s", overrides=SMALL, workers=1)
     assert (tmp_path / "s" / "keep.txt").read_text() == "x"
+
+
+def test_sweep_progress_counts_images_across_subsets(tmp_path):
+    """The progress callback sees done counts that grow across subsets up to the sweep's total."""
+    from synthgen.sweep import parse_vary, run_sweep
+
+    seen = []
+    run_sweep(None, [parse_vary("canvas.width=32,48")], tmp_path / "s",
+              overrides=["count=3", "canvas.height=24", "objects.count=[1,2]"], workers=1,
+              progress=lambda done, total: seen.append((done, total)))
+    assert seen[-1] == (6, 6) and [d for d, _ in seen] == sorted(d for d, _ in seen)

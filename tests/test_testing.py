@@ -160,3 +160,24 @@ def test_plugin_loads_in_an_outside_project(pytester, monkeypatch):
         args += ["-p", "synthgen.testing"]
     result = pytester.runpytest_subprocess(*args)
     result.assert_outcomes(passed=5)
+
+
+@settings(max_examples=100, deadline=None)
+@given(b=boxes(canvas=(64, 64), n=(1, 25)), data=st.data())
+def test_expected_nms_agrees_with_opencv(b, data):
+    """expected_nms keeps the same boxes as OpenCV's cv2.dnn.NMSBoxes (reference library).
+
+    OpenCV is already a dependency, unlike torchvision (a multi-GB install here); scores are
+    distinct and no pair sits within 1e-9 of the threshold, where float rounding may differ.
+    """
+    import cv2
+
+    n = len(b)
+    scores = np.array(data.draw(st.permutations(range(n)))) / n + 0.01
+    threshold = data.draw(st.floats(0.1, 0.9))
+    iou = expected_iou_matrix(b, b)
+    if np.any(np.abs(iou - threshold) < 1e-9):
+        return
+    xywh = [[float(x0), float(y0), float(x1 - x0), float(y1 - y0)] for x0, y0, x1, y1 in b]
+    kept_cv = np.array(cv2.dnn.NMSBoxes(xywh, scores.tolist(), 0.0, threshold)).reshape(-1)
+    assert sorted(expected_nms(b, scores, threshold).tolist()) == sorted(kept_cv.tolist())

@@ -1,0 +1,533 @@
+"""Journals, shards, resume and merge: how a run's work is recorded and put back together.
+
+A run keeps its progress under ``DIR/.synthgen/``::
+
+    DIR/.synthgen/run.json          the resolved config and library versions the run was started with
+    DIR/.synthgen/K-of-N.journal    one record per finished image of shard K of N, appended as images finish
+    DIR/shard-K-of-N.json           shard manifest, written when shard K of N is complete
+
+A whole run is shard 0 of 1: when it is complete its records are assembled into
+``annotations.json`` and ``manifest.json`` and the ``.synthgen`` directory is
+removed, so a finished dataset holds only ``images/``, ``annotations.json`` and
+``manifest.json``.  Shard ``K`` of ``N`` holds the images whose 0-based index
+``k`` has ``k % N == K`` (round robin, so every shard gets a similar mix and
+size); :func:`merge_shards` assembles the shards into the dataset a single run
+writes, byte for byte.
+
+Journal record
+--------------
+One line per image: ``HEADER \\t PAYLOAD \\n``.  ``HEADER`` is compact JSON
+``{"index": k, "files": {relative path: sha256}, "dropped": {...}, "lens": [...]}``;
+``PAYLOAD`` is the image's COCO image record followed by its annotation records
+(without ``id`` and ``image_id``), each as compact JSON, with byte lengths
+``lens``.  Compact JSON from orjson escapes every control character, so neither
+tab nor newline occurs inside a header or payload.  A line that is cut short
+(the run was killed while appending it) fails the length check and is ignored.
+
+The annotation file is streamed from the records in index order, inserting
+``"id"`` and ``"image_id"`` in front of each stored annotation, so memory does
+not grow with the number of images and the bytes equal ``orjson.dumps`` of the
+whole COCO dict (:func:`synthgen.dataset.build_coco`).
+"""
+
+from __future__ import annotations
+
+import hashlib
+import os
+import re
+import shutil
+import tempfile
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import orjson
+
+from synthgen.errors import InputFileError, UserError
+
+__all__ = [
+    "Shard",
+    "parse_shard",
+    "STATE_DIR",
+    "RUN_RECORD",
+    "state_dir",
+    "journal_path",
+    "shard_manifest_path",
+    "find_shard_manifests",
+    "encode_record",
+    "decode_record",
+    "RecordStore",
+    "AtomicWriter",
+    "write_coco_streamed",
+    "config_differences",
+    "describe_differences",
+    "read_json",
+    "remove_state",
+    "sha256_file",
+    "OutputWriteError",
+]
+
+#: Hidden directory holding an unfinished run's progress.
+STATE_DIR = ".synthgen"
+#: The run record inside :data:`STATE_DIR`.
+RUN_RECORD = "run.json"
+
+_SHARD_TEXT = re.compile(r"^\s*(\d+)\s*/\s*(\d+)\s*$")
+_SHARD_FILE = re.compile(r"^shard-(\d+)-of-(\d+)\.json$")
+_JSON = orjson.OPT_SERIALIZE_NUMPY
+
+
+class OutputWriteError(Exception):
+    """Writing the output failed (disk full, permission denied...): exit code 1.
+
+    Parameters
+    ----------
+    path : str or Path
+        The file or directory that could not be written.
+    reason : str
+        The system's reason, e.g. ``"No space left on device"``.
+    """
+
+    def __init__(self, path, reason: str):
+        self.path = str(path)
+        self.reason = reason
+        super().__init__(
+            f"cannot write {path}: {reason}; the images finished so far are kept, "
+            "run the same command with --resume to continue"
+        )
+
+
+@dataclass(frozen=True, slots=True)
+class Shard:
+    """Shard ``index`` of ``count``: the images whose index ``k`` has ``k % count == index``.
+
+    Examples
+    --------
+    >>> list(Shard(1, 3).indices(8))
+    [1, 4, 7]
+    >>> Shard().tag
+    '0-of-1'
+    """
+
+    index: int = 0
+    count: int = 1
+
+    def __post_init__(self):
+        if not (isinstance(self.count, int) and self.count >= 1 and isinstance(self.index, int)
+                and 0 <= self.index < self.count):
+            raise UserError(
+                f"option '--shard' must be K/N with whole numbers 0 <= K < N (got {self.index}/{self.count})"
+            )
+
+    @property
+    def whole(self) -> bool:
+        """True for the one shard that is the whole run."""
+        return self.count == 1
+
+    @property
+    def tag(self) -> str:
+        """``"K-of-N"``, used in file names."""
+        return f"{self.index}-of-{self.count}"
+
+    def indices(self, n_images: int) -> range:
+        """Image indices of this shard in a run of ``n_images``."""
+        return range(self.index, n_images, self.count)
+
+
+def parse_shard(text: str) -> Shard:
+    """Parse ``--shard K/N``.
+
+    Examples
+    --------
+    >>> parse_shard("2/4")
+    Shard(index=2, count=4)
+    >>> parse_shard("4/4")
+    Traceback (most recent call last):
+    ...
+    synthgen.errors.UserError: option '--shard' must be K/N with whole numbers 0 <= K < N (got '4/4')
+    """
+    m = _SHARD_TEXT.match(text or "")
+    if m is None or not int(m.group(1)) < int(m.group(2)):
+        raise UserError(f"option '--shard' must be K/N with whole numbers 0 <= K < N (got {text!r})")
+    return Shard(int(m.group(1)), int(m.group(2)))
+
+
+def state_dir(out: Path) -> Path:
+    """``DIR/.synthgen``: where an unfinished run keeps its progress."""
+    return Path(out) / STATE_DIR
+
+
+def journal_path(out: Path, shard: Shard) -> Path:
+    """Journal of ``shard`` in ``out``."""
+    return state_dir(out) / f"{shard.tag}.journal"
+
+
+def shard_manifest_path(out: Path, shard: Shard) -> Path:
+    """Shard manifest of ``shard`` in ``out``."""
+    return Path(out) / f"shard-{shard.tag}.json"
+
+
+def find_shard_manifests(out: Path) -> list[tuple[Shard, Path]]:
+    """Shard manifests ``shard-K-of-N.json`` at the top of ``out``, sorted by (N, K)."""
+    found = []
+    if Path(out).is_dir():
+        for p in Path(out).iterdir():
+            m = _SHARD_FILE.match(p.name)
+            if m and int(m.group(1)) < int(m.group(2)):
+                found.append((Shard(int(m.group(1)), int(m.group(2))), p))
+    return sorted(found, key=lambda sp: (sp[0].count, sp[0].index))
+
+
+# --------------------------------------------------------------------------- records
+
+
+def encode_record(index: int, files: dict, dropped: dict, image: dict, annotations: list[dict]) -> bytes:
+    """One journal line for image ``index``.
+
+    Parameters
+    ----------
+    index : int
+        0-based image index.
+    files : dict
+        ``{path relative to DIR: sha256 hex}`` of the files written for this image.
+    dropped : dict
+        ``{reason: count}`` of objects not annotated.
+    image : dict
+        The COCO image record.
+    annotations : list of dict
+        COCO annotation records without ``id`` and ``image_id``.
+
+    Returns
+    -------
+    bytes
+        ``HEADER \\t PAYLOAD \\n`` (see the module docstring).
+    """
+    parts = [orjson.dumps(image, option=_JSON)] + [orjson.dumps(a, option=_JSON) for a in annotations]
+    header = {"index": int(index), "files": files, "dropped": dropped, "lens": [len(p) for p in parts]}
+    return orjson.dumps(header, option=_JSON) + b"\t" + b"".join(parts) + b"\n"
+
+
+def decode_record(line: bytes) -> tuple[dict, list[bytes]] | None:
+    """Split a journal line into its header and its JSON fragments (None if damaged).
+
+    Returns
+    -------
+    (header, fragments)
+        ``fragments[0]`` is the image record, the rest its annotations.
+    """
+    if not line.endswith(b"\n"):
+        return None
+    tab = line.find(b"\t")
+    if tab < 0:
+        return None
+    try:
+        header = orjson.loads(line[:tab])
+        lens = header["lens"]
+        index = header["index"]
+    except (orjson.JSONDecodeError, KeyError, TypeError):
+        return None
+    if not (isinstance(index, int) and isinstance(lens, list) and lens):
+        return None
+    fragments, at = [], tab + 1
+    try:
+        if sum(lens) != len(line) - tab - 2:
+            return None
+        for n in lens:
+            fragments.append(line[at : at + n])
+            at += n
+    except TypeError:  # a length that is not a whole number
+        return None
+    return header, fragments
+
+
+class RecordStore:
+    """Where each image's journal record lies, for a run of ``n_images``.
+
+    Holds three integers per image (journal, offset, length), so it stays
+    small for millions of images; records are read back from the journals
+    when the annotation file is written.
+
+    Parameters
+    ----------
+    n_images : int
+        Number of images of the whole run (``config.count``).
+    """
+
+    def __init__(self, n_images: int):
+        self.n_images = n_images
+        self._src = np.full(n_images, -1, dtype=np.int32)
+        self._off = np.zeros(n_images, dtype=np.int64)
+        self._len = np.zeros(n_images, dtype=np.int64)
+        self._paths: list[Path] = []
+        self._files: dict[int, int] = {}
+
+    # -- building
+    def _source(self, path: Path) -> int:
+        path = Path(path)
+        if path in self._paths:
+            return self._paths.index(path)
+        self._paths.append(path)
+        return len(self._paths) - 1
+
+    def add(self, path: Path, index: int, offset: int, length: int) -> None:
+        """Note that image ``index``'s record is ``length`` bytes at ``offset`` of journal ``path``."""
+        src = self._source(path)
+        self._src[index], self._off[index], self._len[index] = src, offset, length
+
+    def load_journal(self, path: Path, wanted: range | None = None) -> int:
+        """Index every complete record of journal ``path`` (later records of an index win).
+
+        Parameters
+        ----------
+        wanted : range or None
+            Keep only records of these indices (None: all within the run).
+
+        Returns
+        -------
+        int
+            Byte offset just past the last complete record (where appending may resume).
+        """
+        path = Path(path)
+        end = 0
+        offset = 0
+        with open(path, "rb") as f:
+            for line in f:
+                length = len(line)
+                rec = decode_record(line)
+                if rec is not None:
+                    k = rec[0]["index"]
+                    if 0 <= k < self.n_images and (wanted is None or k in wanted):
+                        self.add(path, k, offset, length)
+                    end = offset + length
+                offset += length
+        return end
+
+    def forget(self, index: int) -> None:
+        """Drop image ``index``'s record (its files are damaged)."""
+        self._src[index] = -1
+
+    # -- querying
+    def has(self, index: int) -> bool:
+        """True when image ``index`` has a record."""
+        return bool(self._src[index] >= 0)
+
+    def missing(self, indices) -> list[int]:
+        """The indices among ``indices`` without a record, in order."""
+        idx = np.asarray(list(indices), dtype=np.int64)
+        return idx[self._src[idx] < 0].tolist() if idx.size else []
+
+    def read(self, index: int) -> tuple[dict, list[bytes]]:
+        """Header and fragments of image ``index``'s record."""
+        src = int(self._src[index])
+        if src < 0:
+            raise KeyError(index)
+        fd = self._files.get(src)
+        if fd is None:
+            fd = self._files[src] = os.open(self._paths[src], os.O_RDONLY)
+        # pread, not a buffered reader: a journal may be truncated and appended to while it is open.
+        rec = decode_record(os.pread(fd, int(self._len[index]), int(self._off[index])))
+        if rec is None:
+            raise InputFileError(self._paths[src], f"journal record of image {index} is damaged")
+        return rec
+
+    def close(self) -> None:
+        """Close the journals opened for reading."""
+        for fd in self._files.values():
+            os.close(fd)
+        self._files.clear()
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        self.close()
+
+
+# --------------------------------------------------------------------------- writing
+
+
+class AtomicWriter:
+    """A file written under a temporary name, fsync'ed and renamed over ``path`` on success.
+
+    Use as a context manager; on an exception the temporary file is removed and
+    ``path`` is untouched.  ``sha256`` holds the digest of what was written.
+    """
+
+    def __init__(self, path: Path, buffering: int = 1 << 20):
+        self.path = Path(path)
+        self._buffering = buffering
+        self.sha256 = hashlib.sha256()
+
+    def __enter__(self):
+        fd, self._tmp = tempfile.mkstemp(dir=self.path.parent, prefix=f".{self.path.name}.", suffix=".tmp")
+        self._f = os.fdopen(fd, "wb", buffering=self._buffering)
+        return self
+
+    def write(self, data: bytes) -> None:
+        self.sha256.update(data)
+        try:
+            self._f.write(data)
+        except OSError as exc:
+            raise self._named(exc) from None
+
+    def _named(self, exc: OSError) -> OSError:
+        return OSError(exc.errno, exc.strerror or str(exc), str(self.path))
+
+    def __exit__(self, exc_type, exc, tb):
+        try:
+            if exc_type is None:
+                self._f.flush()
+                os.fsync(self._f.fileno())
+            self._f.close()
+            if exc_type is None:
+                os.replace(self._tmp, self.path)
+                _fsync_dir(self.path.parent)
+        except OSError as err:
+            raise self._named(err) from None
+        finally:
+            if not self._f.closed:
+                try:
+                    self._f.close()
+                except OSError:
+                    pass
+            if os.path.exists(self._tmp):
+                os.unlink(self._tmp)
+        return False
+
+
+def _fsync_dir(path: Path) -> None:
+    try:
+        fd = os.open(path, os.O_RDONLY)
+    except OSError:
+        return
+    try:
+        os.fsync(fd)
+    except OSError:
+        pass
+    finally:
+        os.close(fd)
+
+
+def write_coco_streamed(path: Path, store: RecordStore, indices, *, info: dict, categories: list[dict]):
+    """Write the COCO file of images ``indices`` from their journal records, atomically.
+
+    The bytes equal ``orjson.dumps({"info": info, "images": [...],
+    "annotations": [...], "categories": categories})`` with image records in
+    the order of ``indices`` and annotation ids 1, 2, ... in that order.
+
+    Parameters
+    ----------
+    path : Path
+        Output file, e.g. ``DIR/annotations.json``.
+    store : RecordStore
+        Holds a record for every index in ``indices``.
+    indices : sequence of int
+        Images to include, in output order.
+
+    Returns
+    -------
+    (n_objects, sha256 hex, dropped, files)
+        Annotation count, digest of the file, ``{reason: count}`` summed in
+        index order, and ``{relative path: sha256}`` of the images' files.
+    """
+    dropped: dict[str, int] = {}
+    files: dict[str, str] = {}
+    n_objects = 0
+    with AtomicWriter(path) as w:
+        w.write(b'{"info":' + orjson.dumps(info, option=_JSON) + b',"images":[')
+        for i, k in enumerate(indices):
+            header, fragments = store.read(k)
+            w.write(fragments[0] if i == 0 else b"," + fragments[0])
+            for reason, n in header["dropped"].items():
+                dropped[reason] = dropped.get(reason, 0) + n
+            files.update(header["files"])
+        w.write(b'],"annotations":[')
+        next_id = 1
+        for k in indices:
+            _, fragments = store.read(k)
+            if len(fragments) == 1:
+                continue
+            image_id = orjson.loads(fragments[0])["id"]
+            chunk = []
+            for frag in fragments[1:]:
+                # '{"id":N,"image_id":M,' + the stored object without its opening brace
+                chunk.append(b'{"id":%d,"image_id":%d,%s' % (next_id, image_id, frag[1:]))
+                next_id += 1
+            w.write((b"," if next_id - 1 > len(chunk) else b"") + b",".join(chunk))
+        n_objects = next_id - 1
+        w.write(b'],"categories":' + orjson.dumps(categories, option=_JSON) + b"}")
+    return n_objects, w.sha256.hexdigest(), dropped, files
+
+
+# --------------------------------------------------------------------------- configs
+
+
+def _flatten(tree, prefix: str = "") -> dict:
+    flat = {}
+    if isinstance(tree, dict):
+        for key, value in tree.items():
+            flat.update(_flatten(value, f"{prefix}{key}."))
+    else:
+        flat[prefix.rstrip(".")] = tree
+    return flat
+
+
+def config_differences(a: dict, b: dict) -> list[str]:
+    """Dotted keys whose values differ between two config dicts (as :func:`synthgen.config.to_dict` gives).
+
+    Examples
+    --------
+    >>> config_differences({"seed": 1, "canvas": {"width": 4, "height": 3}}, {"seed": 1, "canvas": {"width": 5, "height": 3}})
+    ['canvas.width']
+    """
+    fa, fb = _flatten(a), _flatten(b)
+    return sorted(k for k in set(fa) | set(fb) if fa.get(k, object) != fb.get(k, object))
+
+
+def describe_differences(there: dict, here: dict, limit: int = 4) -> str:
+    """``"canvas.width (160 there, 320 here), seed (1 there, 2 here)"``, at most ``limit`` keys."""
+    fa, fb = _flatten(there), _flatten(here)
+    keys = config_differences(there, here)
+    shown = [f"{k} ({_short(fa.get(k, '<unset>'))} there, {_short(fb.get(k, '<unset>'))} here)" for k in keys[:limit]]
+    if len(keys) > limit:
+        shown.append(f"and {len(keys) - limit} more")
+    return ", ".join(shown)
+
+
+def _short(v) -> str:
+    text = orjson.dumps(v).decode() if not isinstance(v, str) else repr(v)
+    return text if len(text) <= 30 else text[:27] + "..."
+
+
+def read_json(path: Path, what: str) -> dict:
+    """Read a JSON object written by synthgen; errors name the file."""
+    try:
+        data = orjson.loads(Path(path).read_bytes())
+    except FileNotFoundError:
+        raise InputFileError(path, f"{what} does not exist") from None
+    except OSError as exc:
+        raise InputFileError(path, f"{what} cannot be read ({exc.strerror})") from None
+    except orjson.JSONDecodeError:
+        raise InputFileError(path, f"{what} is not valid JSON (damaged?)") from None
+    if not isinstance(data, dict):
+        raise InputFileError(path, f"{what} is not a JSON object")
+    return data
+
+
+def remove_state(out: Path) -> None:
+    """Remove an unfinished run's progress (``.synthgen/`` and shard manifests) from ``out``."""
+    for _, p in find_shard_manifests(out):
+        p.unlink()
+    shutil.rmtree(state_dir(out), ignore_errors=True)
+
+
+def sha256_file(path: Path) -> str | None:
+    """sha256 hex of a file's bytes, or None when it cannot be read."""
+    h = hashlib.sha256()
+    try:
+        with open(path, "rb") as f:
+            for block in iter(lambda: f.read(1 << 20), b""):
+                h.update(block)
+    except OSError:
+        return None
+    return h.hexdigest()
