@@ -1369,26 +1369,30 @@ def stats_tables(stats: Mapping, title: str = "dataset"):
     rich.console.Group
     """
     from rich.console import Group
+    from rich.markup import escape
     from rich.table import Table
     from rich.text import Text
+
+    def add(table, *cells):  # names and values from files may hold "[...]", which rich reads as markup
+        table.add_row(*(escape(str(c)) for c in cells))
 
     n_obj = stats["objects"]
     share = (lambda k: f"{100 * k / n_obj:.1f}%") if n_obj else (lambda k: "-")
 
-    overview = Table(title=f"{title}: overview", header_style="bold", title_justify="left")
+    overview = Table(title=escape(f"{title}: overview"), header_style="bold", title_justify="left")
     overview.add_column("quantity")
     overview.add_column("value", justify="right")
-    overview.add_row("images", str(stats["images"]))
-    overview.add_row("objects", str(n_obj))
-    overview.add_row("categories", str(len(stats["per_category"])))
+    add(overview, "images", str(stats["images"]))
+    add(overview, "objects", str(n_obj))
+    add(overview, "categories", str(len(stats["per_category"])))
     vf, mi, tr = stats.get("visible_fraction"), stats.get("max_iou"), stats.get("truncated")
     if vf:
-        overview.add_row("fully visible", f"{100 * vf['fully_visible']:.1f}%")
-        overview.add_row("less than half visible", f"{100 * vf['below_half']:.1f}%")
+        add(overview, "fully visible", f"{100 * vf['fully_visible']:.1f}%")
+        add(overview, "less than half visible", f"{100 * vf['below_half']:.1f}%")
     if tr:
-        overview.add_row("truncated by the border", f"{100 * tr['share']:.1f}% ({tr['count']})")
+        add(overview, "truncated by the border", f"{100 * tr['share']:.1f}% ({tr['count']})")
     if mi:
-        overview.add_row("overlapping another box", f"{100 * mi['overlapping']:.1f}%")
+        add(overview, "overlapping another box", f"{100 * mi['overlapping']:.1f}%")
 
     dist = Table(title="distributions", header_style="bold", title_justify="left")
     dist.add_column("quantity")
@@ -1402,7 +1406,7 @@ def stats_tables(stats: Mapping, title: str = "dataset"):
         ("max IoU with another box", mi),
     ):
         if q and q.get("n"):
-            dist.add_row(label, *(_fmt(q[k]) for k in ("min", "p25", "median", "p75", "max", "mean")))
+            add(dist, label, *(_fmt(q[k]) for k in ("min", "p25", "median", "p75", "max", "mean")))
 
     ar = stats["area_ranges"]
     areas = Table(title="COCO area ranges (px², ends inclusive)", header_style="bold", title_justify="left")
@@ -1411,7 +1415,7 @@ def stats_tables(stats: Mapping, title: str = "dataset"):
     areas.add_column("objects", justify="right")
     areas.add_column("share", justify="right")
     for name, span in (("small", "0 .. 32²"), ("medium", "32² .. 96²"), ("large", "96² .. ∞")):
-        areas.add_row(name, span, str(ar[name]), share(ar[name]))
+        add(areas, name, span, str(ar[name]), share(ar[name]))
 
     cats = Table(title="objects per category", header_style="bold", title_justify="left")
     cats.add_column("id", justify="right")
@@ -1419,7 +1423,7 @@ def stats_tables(stats: Mapping, title: str = "dataset"):
     cats.add_column("objects", justify="right")
     cats.add_column("share", justify="right")
     for c in stats["per_category"]:
-        cats.add_row(str(c["id"]), c["name"], str(c["count"]), share(c["count"]))
+        add(cats, str(c["id"]), c["name"], str(c["count"]), share(c["count"]))
 
     parts = [overview, dist, areas, cats]
     st = stats.get("settings") or {}
@@ -1428,16 +1432,16 @@ def stats_tables(stats: Mapping, title: str = "dataset"):
         t.add_column("setting")
         t.add_column("value")
         if "background_config" in st:
-            t.add_row("background.kind (config)", st["background_config"])
+            add(t, "background.kind (config)", st["background_config"])
         if "backgrounds" in st:
-            t.add_row("backgrounds drawn (images)", ", ".join(f"{k} {v}" for k, v in st["backgrounds"].items()))
+            add(t, "backgrounds drawn (images)", ", ".join(f"{k} {v}" for k, v in st["backgrounds"].items()))
         if "degrade_config" in st:
             on = st["degrade_config"]
             text = "; ".join(
                 f"{k} p={_fmt(v.get('p'))}" + "".join(f" {kk}={_fmt_value(vv)}" for kk, vv in v.items() if kk != "p")
                 for k, v in on.items()
             )
-            t.add_row("degradations (config)", text or "none")
+            add(t, "degradations (config)", text or "none")
         if "degraded_images" in st:
             d, r = st["degraded_images"], st.get("degradation_ranges", {})
 
@@ -1445,16 +1449,16 @@ def stats_tables(stats: Mapping, title: str = "dataset"):
                 spans = ", ".join(f"{k} {_fmt(lo)}..{_fmt(hi)}" for k, (lo, hi) in r.get(name, {}).items())
                 return f"{name} {n}" + (f" ({spans})" if spans else "")
 
-            t.add_row("degradations applied (images)", "; ".join(applied(k, v) for k, v in d.items()) or "none")
+            add(t, "degradations applied (images)", "; ".join(applied(k, v) for k, v in d.items()) or "none")
         if "clutter_config" in st:
-            t.add_row("clutter (config)", ", ".join(f"{k}={_fmt_value(v)}" for k, v in st["clutter_config"].items()))
+            add(t, "clutter (config)", ", ".join(f"{k}={_fmt_value(v)}" for k, v in st["clutter_config"].items()))
         if "clutter_marks_per_image" in st:
             q = st["clutter_marks_per_image"]
             text = f"min {_fmt(q['min'])}, median {_fmt(q['median'])}, max {_fmt(q['max'])}"
-            t.add_row("clutter marks per image", text)
+            add(t, "clutter marks per image", text)
             kinds = st.get("clutter_marks_by_kind") or {}
             if kinds:
-                t.add_row("clutter marks by kind", ", ".join(f"{k} {v}" for k, v in kinds.items()))
+                add(t, "clutter marks by kind", ", ".join(f"{k} {v}" for k, v in kinds.items()))
         parts.append(t)
     for note in stats.get("notes", []):
         parts.append(Text(f"note: {note}", style="dim"))

@@ -360,7 +360,8 @@ def test_both_commands_work_on_another_tools_coco_file(tmp_path):
         {"id": 2, "image_id": 10, "category_id": 4, "bbox": [15, 8, 20, 20], "iscrowd": 0},
         {"id": 3, "image_id": 11, "category_id": 3, "bbox": [0, 0, 2, 3], "area": 6.0, "iscrowd": 0},
     ]
-    cats = [{"id": 3, "name": "bolt", "supercategory": "hardware"}, {"id": 4, "name": "nut", "supercategory": "hardware"}]
+    cats = [{"id": 3, "name": "bolt", "supercategory": "hardware"},
+            {"id": 4, "name": "nut", "supercategory": "hardware"}]
     path = _write_dataset(tmp_path / "other", images, anns, cats, subdir=None)
     path = path.rename(tmp_path / "other" / "gt.json")
     res = run("show", path, "--out", tmp_path / "o.png", "--zoom")
@@ -513,3 +514,13 @@ def test_a_wide_grid_of_large_images_is_shrunk_to_4096_px(tmp_path):
     tile = sheet.pixels[t.top : t.top + t.height, t.left : t.left + t.width]
     c0, r0, c1, r1 = report.outline_pixels([[100, 10, 500, 50]], t.sx, t.sy)[0]
     assert _pixels_of(tile, report.CATEGORY_COLOURS[0]) == _outline_set(c0, r0, c1, r1)
+
+
+def test_stats_table_prints_names_with_brackets_as_written(tmp_path):
+    """A category called "[m6] bolt" is printed as is, not swallowed as rich markup."""
+    images = [{"id": 1, "file_name": "a.png", "width": 8, "height": 8}]
+    anns = [{"id": 1, "image_id": 1, "category_id": 1, "bbox": [1, 1, 2, 2], "area": 4.0, "iscrowd": 0}]
+    _write_dataset(tmp_path / "b", images, anns, [{"id": 1, "name": "[m6] bolt"}])
+    res = run("stats", tmp_path / "b")
+    assert res.exit_code == 0, res.output
+    assert "[m6] bolt" in res.stdout
