@@ -570,6 +570,10 @@ def show(
     zoom: Annotated[
         bool, typer.Option("--zoom", help="Add enlarged crops of the smallest objects (nearest neighbour).")
     ] = False,
+    image_dir: Annotated[
+        Optional[Path],
+        typer.Option("--image-dir", help="Directory holding the images, if not beside the annotation file."),
+    ] = None,
     cols: Annotated[
         Optional[int], typer.Option("--cols", help="Tiles per row (default: about the square root of the count).", min=1)
     ] = None,
@@ -591,7 +595,7 @@ def show(
     images = 16 if images is None else images
     if truth is not None and pred is None:
         raise UserError("option '--truth' needs '--pred' (the predictions the sidecar describes)")
-    ds = report.open_dataset(dataset)
+    ds = report.open_dataset(dataset, image_dir=image_dir)
     id_list = _parse_ids(ids) if ids is not None else None
     predictions = missed = None
     how = ""

@@ -151,15 +151,20 @@ class Dataset:
         The annotation file.
     root : Path
         Directory the images' ``file_name`` values are looked up in (its
-        ``images/`` subdirectory first, then itself).
+        ``images/`` subdirectory first, then itself): the annotation file's
+        directory unless ``image_dir`` is given.
     manifest : dict or None
         synthgen's ``manifest.json`` next to the annotation file, if there is one.
+    image_dir : Path or None
+        A directory to look in first (for layouts that keep images apart from
+        the annotation file, e.g. ``annotations/`` beside ``val/``).
     """
 
     coco: dict
     source: Path
     root: Path
     manifest: dict | None = None
+    image_dir: Path | None = None
 
     @property
     def name(self) -> str:
@@ -171,18 +176,23 @@ class Dataset:
     def image_path(self, image: Mapping) -> Path:
         """Path of an image record's file (the first candidate that exists)."""
         name = str(image.get("file_name", ""))
-        for cand in (self.root / "images" / name, self.root / name):
+        first = (self.image_dir / name,) if self.image_dir is not None else ()
+        cands = (*first, self.root / "images" / name, self.root / name)
+        for cand in cands:
             if cand.is_file():
                 return cand
-        return self.root / "images" / name
+        return cands[0]
 
 
-def open_dataset(path) -> Dataset:
+def open_dataset(path, *, image_dir=None) -> Dataset:
     """Open a dataset directory (its ``annotations.json``) or a COCO JSON file.
 
     Parameters
     ----------
     path : str or Path
+    image_dir : str or Path, optional
+        Where the images are, when not beside the annotation file (see
+        :class:`Dataset`).
 
     Raises
     ------
@@ -208,7 +218,12 @@ def open_dataset(path) -> Dataset:
             manifest = None
         if not isinstance(manifest, dict):
             manifest = None
-    return Dataset(coco=coco, source=source, root=source.parent, manifest=manifest)
+    if image_dir is not None and not Path(image_dir).is_dir():
+        raise InputFileError(image_dir, "is not a directory")
+    return Dataset(
+        coco=coco, source=source, root=source.parent, manifest=manifest,
+        image_dir=None if image_dir is None else Path(image_dir),
+    )
 
 
 def _load_image(ds: Dataset, image: Mapping) -> np.ndarray:

@@ -524,3 +524,15 @@ def test_stats_table_prints_names_with_brackets_as_written(tmp_path):
     res = run("stats", tmp_path / "b")
     assert res.exit_code == 0, res.output
     assert "[m6] bolt" in res.stdout
+
+
+def test_show_finds_images_kept_apart_from_the_annotations(tmp_path):
+    """With --image-dir, an annotation file in annotations/ finds its images in a sibling folder."""
+    images = [{"id": 1, "file_name": "a.png", "width": 8, "height": 8}]
+    anns = [{"id": 1, "image_id": 1, "category_id": 1, "bbox": [1, 1, 2, 2], "area": 4.0, "iscrowd": 0}]
+    _write_dataset(tmp_path / "set", images, anns, [{"id": 1, "name": "pin"}], subdir="val")
+    (tmp_path / "set" / "annotations").mkdir()
+    gt = (tmp_path / "set" / "annotations.json").rename(tmp_path / "set" / "annotations" / "val.json")
+    assert run("show", gt, "--out", tmp_path / "no.png").exit_code == 2  # not beside the file
+    res = run("show", gt, "--out", tmp_path / "s.png", "--image-dir", tmp_path / "set" / "val")
+    assert res.exit_code == 0, res.output
