@@ -625,6 +625,12 @@ def draw_boxes(
         rgb = np.broadcast_to(rgb, (len(b), 3))
     dash = np.broadcast_to(np.asarray(dashed, dtype=bool), (len(b),))
     h, w = out.shape[:2]
+    # A box reaching far beyond the tile (a wild prediction) is cut 2 px outside it: the same
+    # pixels are drawn, and the work stays the size of the tile.
+    syy = sx if sy is None else sy
+    b = b.copy()
+    b[:, 0::2] = np.clip(b[:, 0::2], ox - 2 / sx, ox + (w + 2) / sx)
+    b[:, 1::2] = np.clip(b[:, 1::2], oy - 2 / syy, oy + (h + 2) / syy)
     px = outline_pixels(b, sx, sy, ox, oy)
 
     def inside(rows, cols):

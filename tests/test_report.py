@@ -98,6 +98,13 @@ def test_halo_darkens_only_pixels_outside_the_box():
     assert (out[4:7, 4:7] == 200).all()
 
 
+def test_a_box_far_beyond_the_tile_draws_only_its_edges_inside():
+    """A box from x = -1e9 to 1e9 leaves its left and right edges out and draws its top and bottom rows."""
+    img = np.zeros((10, 12, 3), dtype=np.uint8)
+    out = report.draw_boxes(img, [[-1e9, 2, 1e9, 6]], (255, 0, 0), halo=None)
+    assert _pixels_of(out, (255, 0, 0)) == {(r, c) for r in (2, 5) for c in range(12)}
+
+
 def test_dashed_outline_is_four_on_three_off_clockwise():
     """A dashed box colours pixels 0..3 and skips 4..6 along its top edge, with its halo beside the dashes only."""
     img = np.full((6, 16, 3), 200, dtype=np.uint8)
