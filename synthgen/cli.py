@@ -68,6 +68,12 @@ def reported(fn):
             raise
         except KeyboardInterrupt:
             _fail("interrupted", 130)
+        except BrokenPipeError:  # the reader of stdout went away (e.g. `| head`): stop quietly
+            try:
+                sys.stdout = open(os.devnull, "w")
+            except OSError:
+                pass
+            raise typer.Exit(0) from None
         except Exception as exc:  # unexpected: report it, exit 1
             if os.environ.get("SYNTHGEN_DEBUG"):
                 traceback.print_exc()
