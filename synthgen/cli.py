@@ -68,6 +68,12 @@ def reported(fn):
             raise
         except KeyboardInterrupt:
             _fail("interrupted", 130)
+        except BrokenPipeError:  # the reader of stdout went away (e.g. `| head`): stop quietly
+            try:
+                sys.stdout = open(os.devnull, "w")
+            except OSError:
+                pass
+            raise typer.Exit(0) from None
         except Exception as exc:  # unexpected: report it, exit 1
             if os.environ.get("SYNTHGEN_DEBUG"):
                 traceback.print_exc()
@@ -523,6 +529,130 @@ def merge(
     except OutputWriteError as exc:
         _fail(f"error: {exc}", 1)
     typer.echo(f"merged {summary.images} images, {summary.objects} objects into {summary.out} in {summary.seconds:.2f} s")
+
+
+# -- show and stats -------------------------------------------------------------------
+def _parse_ids(text: str) -> list[int]:
+    """``"3,7,9"`` -> ``[3, 7, 9]``; a bad list is a user error naming the option."""
+    try:
+        ids = [int(part) for part in text.replace(" ", "").split(",") if part]
+    except ValueError:
+        ids = []
+    if not ids:
+        raise UserError(f"option '--ids' must be comma-separated image ids, e.g. 3,7,9 (got {text!r})")
+    return ids
+
+
+DatasetArg = Annotated[
+    Path,
+    typer.Argument(help="Dataset directory (with annotations.json) or a COCO JSON file.", show_default=False),
+]
+
+
+@app.command()
+@reported
+def show(
+    dataset: DatasetArg,
+    out: Annotated[Path, typer.Option("--out", "-o", help="Contact sheet to write (PNG).")] = ...,
+    images: Annotated[
+        Optional[int],
+        typer.Option("--images", "-n", help="Number of images: the first N by image id [default: 16].", min=1),
+    ] = None,
+    ids: Annotated[
+        Optional[str],
+        typer.Option("--ids", help="Comma-separated COCO image ids to show, e.g. 3,7,9 (instead of --images)."),
+    ] = None,
+    pred: Annotated[
+        Optional[Path],
+        typer.Option("--pred", help="COCO results file; predictions are drawn dashed, coloured by what each is."),
+    ] = None,
+    truth: Annotated[
+        Optional[Path],
+        typer.Option(
+            "--truth",
+            help="Sidecar from `synthgen jitter` saying what each prediction is (default: match at IoU 0.5).",
+        ),
+    ] = None,
+    zoom: Annotated[
+        bool, typer.Option("--zoom", help="Add enlarged crops of the smallest objects (nearest neighbour).")
+    ] = False,
+    image_dir: Annotated[
+        Optional[Path],
+        typer.Option("--image-dir", help="Directory holding the images, if not beside the annotation file."),
+    ] = None,
+    cols: Annotated[
+        Optional[int], typer.Option("--cols", help="Tiles per row (default: about the square root of the count).", min=1)
+    ] = None,
+    scale: Annotated[
+        Optional[float],
+        typer.Option(
+            "--scale",
+            help="Tile pixels per image pixel (default: small images enlarged by a whole factor, large shrunk).",
+            min=0.05,
+            max=32,
+        ),
+    ] = None,
+) -> None:
+    """Draw a contact sheet: images in a grid with their boxes, ids and a legend."""
+    from synthgen import report
+
+    if images is not None and ids is not None:
+        raise UserError("options '--images' and '--ids' choose the images in two ways; give one")
+    images = 16 if images is None else images
+    if truth is not None and pred is None:
+        raise UserError("option '--truth' needs '--pred' (the predictions the sidecar describes)")
+    ds = report.open_dataset(dataset, image_dir=image_dir)
+    id_list = _parse_ids(ids) if ids is not None else None
+    predictions = missed = None
+    how = ""
+    if pred is not None:
+        predictions = report.read_predictions(pred)
+        if truth is not None:
+            side = report.read_truth_sidecar(truth, len(predictions))
+            predictions = predictions.with_kinds(side.kinds)
+            missed = side.missed
+            how = f", kinds from {truth}"
+        else:
+            predictions, missed = report.classify_predictions(ds.coco, predictions)
+            how = ", kinds by matching at IoU 0.5"
+    sheet = report.contact_sheet(
+        ds, n=images, ids=id_list, cols=cols, scale=scale, predictions=predictions, missed=missed, zoom=zoom
+    )
+    report.save_png(sheet.pixels, out)
+    shown = len(id_list) if id_list is not None else min(images, len(ds.coco["images"]))
+    extra = f", {len(predictions)} predictions{how}" if predictions is not None else ""
+    size = f"{sheet.pixels.shape[1]}x{sheet.pixels.shape[0]} px"
+    typer.echo(f"wrote {out} ({size}, {shown} image{'s' if shown != 1 else ''}{extra})")
+
+
+@app.command()
+@reported
+def stats(
+    dataset: DatasetArg,
+    json_out: Annotated[
+        Optional[Path], typer.Option("--json", help="Also write the statistics as JSON to this file.")
+    ] = None,
+    plot: Annotated[
+        Optional[Path], typer.Option("--plot", help="Also write a figure of histograms (PNG, 1200x700 px).")
+    ] = None,
+) -> None:
+    """Summarise a dataset: counts, sizes, COCO area ranges, visibility, overlap, settings used."""
+    from rich.console import Console
+
+    from synthgen import report
+
+    ds = report.open_dataset(dataset)
+    result = report.dataset_stats(ds.coco, ds.manifest)
+    Console(highlight=False, soft_wrap=False).print(report.stats_tables(result, title=ds.name))
+    if json_out is not None:
+        report.save_json(result, json_out)
+        typer.echo(f"wrote {json_out}")
+    if plot is not None:
+        n_im, n_obj = result["images"], result["objects"]
+        title = f"{ds.name}: {n_im} image{'s' if n_im != 1 else ''}, {n_obj} object{'s' if n_obj != 1 else ''}"
+        fig = report.stats_figure(ds.coco, title=title)
+        report.save_figure(fig, plot)
+        typer.echo(f"wrote {plot}")
 
 
 def main() -> None:

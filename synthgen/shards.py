@@ -36,7 +36,6 @@ import hashlib
 import os
 import re
 import shutil
-import tempfile
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -44,6 +43,7 @@ import numpy as np
 import orjson
 
 from synthgen.errors import InputFileError, UserError
+from synthgen.formats._common import temp_beside
 
 __all__ = [
     "Shard",
@@ -359,7 +359,7 @@ class AtomicWriter:
         self.sha256 = hashlib.sha256()
 
     def __enter__(self):
-        fd, self._tmp = tempfile.mkstemp(dir=self.path.parent, prefix=f".{self.path.name}.", suffix=".tmp")
+        fd, self._tmp = temp_beside(self.path)
         self._f = os.fdopen(fd, "wb", buffering=self._buffering)
         return self
 

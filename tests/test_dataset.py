@@ -205,3 +205,18 @@ def test_any_valid_config_makes_a_dataset_pycocotools_accepts():
                 assert len(res.getAnnIds()) == len(anns)
 
     check()
+
+
+def test_written_files_and_folders_get_the_usual_permissions(tmp_path, small_config):
+    """Annotations, manifest and format folders are readable by others under umask 022 (like plain writes)."""
+    import os
+
+    old = os.umask(0o022)
+    try:
+        make_dataset(small_config, tmp_path / "d", workers=1, formats=("coco", "voc"))
+    finally:
+        os.umask(old)
+    d = tmp_path / "d"
+    for path in (d / "annotations.json", d / "manifest.json", next((d / "images").iterdir()), next((d / "voc").iterdir())):
+        assert path.stat().st_mode & 0o777 == 0o644, path
+    assert (d / "voc").stat().st_mode & 0o777 == 0o755

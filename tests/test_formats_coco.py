@@ -124,3 +124,17 @@ def test_read_missing_file(tmp_path):
     """A missing file raises InputFileError naming it."""
     with pytest.raises(InputFileError, match="nothere.json: cannot be read"):
         cf.read_coco(tmp_path / "nothere.json")
+
+
+def test_atomic_writes_get_the_usual_permissions(tmp_path):
+    """Files written through the temporary-file path are readable by others, as plain writes are (umask)."""
+    import os
+
+    from synthgen.formats.coco import write_bytes_atomic
+
+    old = os.umask(0o022)
+    try:
+        write_bytes_atomic(tmp_path / "a.json", b"{}")
+    finally:
+        os.umask(old)
+    assert (tmp_path / "a.json").stat().st_mode & 0o777 == 0o644

@@ -104,6 +104,9 @@ def staged_dir(final: Path) -> Iterator[Path]:
     final = Path(final)
     final.parent.mkdir(parents=True, exist_ok=True)
     tmp = Path(tempfile.mkdtemp(dir=final.parent, prefix=f".{final.name}.", suffix=".tmp"))
+    mask = os.umask(0)
+    os.umask(mask)
+    tmp.chmod(0o777 & ~mask)  # mkdtemp makes 0700; give the folder the usual permissions
     try:
         yield tmp
         old = None
@@ -118,12 +121,25 @@ def staged_dir(final: Path) -> Iterator[Path]:
         raise
 
 
+def temp_beside(final: Path) -> tuple[int, str]:
+    """``mkstemp`` beside ``final``, with the permissions a plain write would give (0666 less the umask).
+
+    Returns the open descriptor and the temporary name; the caller renames it over ``final``.
+    """
+    final = Path(final)
+    fd, name = tempfile.mkstemp(dir=final.parent, prefix=f".{final.name}.", suffix=".tmp")
+    mask = os.umask(0)
+    os.umask(mask)
+    os.fchmod(fd, 0o666 & ~mask)
+    return fd, name
+
+
 @contextlib.contextmanager
 def staged_file(final: Path) -> Iterator[Path]:
     """Yield a temporary file path beside ``final``, renamed over it on success (fsync'ed)."""
     final = Path(final)
     final.parent.mkdir(parents=True, exist_ok=True)
-    fd, name = tempfile.mkstemp(dir=final.parent, prefix=f".{final.name}.", suffix=".tmp")
+    fd, name = temp_beside(final)
     os.close(fd)
     tmp = Path(name)
     try:

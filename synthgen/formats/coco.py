@@ -25,7 +25,6 @@ from __future__ import annotations
 
 import math
 import os
-import tempfile
 from collections.abc import Iterator
 from pathlib import Path
 
@@ -33,6 +32,7 @@ import numpy as np
 import orjson
 
 from synthgen.errors import InputFileError
+from synthgen.formats._common import temp_beside
 from synthgen.geometry import as_boxes
 
 __all__ = [
@@ -103,7 +103,7 @@ def write_bytes_atomic(path, data: bytes) -> None:
     data : bytes
     """
     path = Path(path)
-    fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
+    fd, tmp = temp_beside(path)
     try:
         with os.fdopen(fd, "wb") as f:
             f.write(data)
