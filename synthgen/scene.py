@@ -307,11 +307,9 @@ _BOX_LAYOUTS = frozenset({"separated", "pairs"})
 
 
 def _half_extents(shapes) -> np.ndarray:
-    out = np.empty((len(shapes), 2), dtype=np.float64)
-    for i, s in enumerate(shapes):
-        box = exact_box(s)
-        out[i] = ((box[2] - box[0]) / 2.0, (box[3] - box[1]) / 2.0)
-    return out
+    """Half width and half height (N, 2) of each shape's exact box (geometry built in bulk)."""
+    boxes = np.array([g.box for g in shapes_mod._geoms(shapes)], dtype=np.float64).reshape(-1, 4)
+    return np.stack([(boxes[:, 2] - boxes[:, 0]) / 2.0, (boxes[:, 3] - boxes[:, 1]) / 2.0], axis=1)
 
 
 def _moved(shape: Shape, centre) -> Shape:
