@@ -87,7 +87,6 @@ __all__ = [
     "coverage",
     "coverage_many",
     "paint",
-    "paint_many",
 ]
 
 KINDS = ("rectangle", "ellipse", "triangle", "polygon", "star", "ring", "cross")
@@ -188,7 +187,9 @@ _new_object = object.__new__
 _set_field = object.__setattr__
 
 
-def _trusted(kind: str, cx: float, cy: float, size: float, aspect: float, angle: float, sides: int, inner: float) -> Shape:
+def _trusted(
+    kind: str, cx: float, cy: float, size: float, aspect: float, angle: float, sides: int, inner: float
+) -> Shape:
     """A :class:`Shape` from values already known to pass its checks (Python floats, int ``sides``).
 
     For callers that draw many shapes from validated arrays: the same object
@@ -1538,64 +1539,4 @@ def paint(style: str, colors, h: int, w: int, *, row0: int, col0: int, angle: fl
     odd = (np.floor(proj / period) % 2) == 1
     for k in range(3):
         out[:, :, k] = np.where(odd, col[1, k], col[0, k])
-    return out
-
-
-def paint_many(style: str, colors, h: int, w: int, *, row0, col0, angle, period) -> np.ndarray:
-    """:func:`paint` for K patches of one size at once, value for value.
-
-    Parameters
-    ----------
-    style : str
-        One of :data:`FILLS`.
-    colors : array_like of shape (K, 2, 3)
-        RGB colours per patch, floats in 0..255.
-    h, w : int
-        Patch size (rows, columns), shared by all K patches.
-    row0, col0, angle, period : array_like of shape (K,)
-        As for :func:`paint`, one per patch.
-
-    Returns
-    -------
-    ndarray of shape (K, h, w, 3), float32
-
-    Examples
-    --------
-    >>> cols = [[[0, 0, 0], [255, 255, 255]]] * 2
-    >>> out = paint_many("stripes", cols, 1, 4, row0=[0, 0], col0=[0, 1], angle=[0.0, 0.0], period=[2.0, 2.0])
-    >>> out[:, 0, :, 0].tolist()
-    [[0.0, 0.0, 255.0, 255.0], [0.0, 255.0, 255.0, 0.0]]
-    """
-    if style not in FILLS:
-        raise ValueError(f"style must be one of {', '.join(FILLS)} (got {style!r})")
-    col = np.asarray(colors, dtype=np.float64)
-    k = col.shape[0]
-    if col.shape != (k, 2, 3):
-        raise ValueError(f"colors must have shape (K, 2, 3) (got {col.shape})")
-    h, w = int(h), int(w)
-    out = np.empty((k, h, w, 3), dtype=np.float32)
-    c0, c1 = col[:, 0][:, None, None, :], col[:, 1][:, None, None, :]  # (K, 1, 1, 3)
-    if style == "flat":
-        out[...] = c0
-        return out
-    ths = [math.radians(a) for a in np.asarray(angle, dtype=np.float64).tolist()]
-    cos = np.array([math.cos(t) for t in ths])[:, None]
-    sin = np.array([math.sin(t) for t in ths])[:, None]
-    xs = (np.asarray(col0, dtype=np.int64)[:, None] + np.arange(w)).astype(np.float64) + 0.5  # (K, w)
-    ys = (np.asarray(row0, dtype=np.int64)[:, None] + np.arange(h)).astype(np.float64) + 0.5  # (K, h)
-    px, py = cos * xs, sin * ys
-    proj = py[:, :, None] + px[:, None, :]  # (K, h, w)
-    if style == "gradient":
-        lo = px.min(axis=1) + py.min(axis=1)
-        span = (px.max(axis=1) + py.max(axis=1)) - lo
-        wide = span > 0
-        t = (proj - lo[:, None, None]) / np.where(wide, span, 1.0)[:, None, None]
-        t[~wide] = 0.0
-        out[...] = c0 + t[..., None] * (c1 - c0)
-        return out
-    per = np.asarray(period, dtype=np.float64)
-    if not (np.isfinite(per).all() and (per > 0).all()):
-        raise ValueError(f"period must be a finite number > 0 px (got {per.tolist()!r})")
-    odd = (np.floor(proj / per[:, None, None]) % 2) == 1
-    out[...] = np.where(odd[..., None], c1, c0)
     return out

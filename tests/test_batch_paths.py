@@ -148,25 +148,6 @@ def test_bulk_drawing_equals_one_shape_at_a_time(seed, monkeypatch):
     assert bulk.info == plain.info
 
 
-@pytest.mark.parametrize("style", ["flat", "gradient", "stripes"])
-def test_paint_many_equals_paint(style):
-    """paint_many gives, patch by patch, the very fill paint gives (degenerate 1-px patches included)."""
-    from synthgen.shapes import paint, paint_many
-
-    rng = np.random.default_rng(7)
-    for h, w in [(1, 1), (1, 5), (4, 1), (7, 9)]:
-        k = 40
-        colors = rng.uniform(0, 255, size=(k, 2, 3))
-        row0, col0 = rng.integers(-5, 300, size=k), rng.integers(-5, 300, size=k)
-        angle = rng.choice([0.0, 90.0, 45.0, 180.0, 33.3], size=k) if style != "flat" else np.zeros(k)
-        period = rng.uniform(0.5, 9.0, size=k)
-        got = paint_many(style, colors, h, w, row0=row0, col0=col0, angle=angle, period=period)
-        for t in range(k):
-            want = paint(style, colors[t], h, w, row0=int(row0[t]), col0=int(col0[t]), angle=float(angle[t]),
-                         period=float(period[t]))
-            assert np.array_equal(got[t], want)
-
-
 @pytest.mark.parametrize("seed", range(3))
 def test_coverage_many_sample_masks_equal_inside(seed):
     """The whole-patch sample masks coverage_many hands back equal Coverage.inside, whole and cut."""

@@ -28,7 +28,16 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["encode", "encode_patch", "encode_patches", "decode", "area", "flat_indices", "counts_to_string", "string_to_counts"]
+__all__ = [
+    "encode",
+    "encode_patch",
+    "encode_patches",
+    "decode",
+    "area",
+    "flat_indices",
+    "counts_to_string",
+    "string_to_counts",
+]
 
 # Longest value: 7 groups of 5 bits hold any run on a canvas of up to 2**34 px.
 _MAX_GROUPS = 7
@@ -225,7 +234,10 @@ def encode_patch(mask_patch, row0: int, col0: int, height: int, width: int) -> d
 
 
 def _patch_runs(p: np.ndarray, row0: int, col0: int, height: int, n: int) -> np.ndarray:
-    """Run lengths of an ``n``-pixel canvas of ``height`` rows empty but for patch ``p`` (inside it) at ``(row0, col0)``."""
+    """Run lengths of an ``n``-pixel canvas of ``height`` rows, empty but for patch ``p`` at ``(row0, col0)``.
+
+    The patch lies inside the canvas (callers crop it first).
+    """
     p = p != 0
     ph, pw = p.shape
     # One False row above and below each column so runs never span columns;
