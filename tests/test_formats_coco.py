@@ -124,3 +124,16 @@ def test_read_missing_file(tmp_path):
     """A missing file raises InputFileError naming it."""
     with pytest.raises(InputFileError, match="nothere.json: cannot be read"):
         cf.read_coco(tmp_path / "nothere.json")
+
+
+def _plain_file_mode() -> int:
+    mask = os.umask(0o022)
+    os.umask(mask)
+    return 0o666 & ~mask
+
+
+def test_written_file_has_the_mode_open_would_give(tmp_path):
+    """The atomic write's file is readable by others as a plain write would be (not tempfile's 0600)."""
+    cf.write_coco(tmp_path / "a.json", {"images": [], "annotations": [], "categories": []})
+    # common practice: new files get 0666 less the umask (POSIX open(2) with O_CREAT)
+    assert (tmp_path / "a.json").stat().st_mode & 0o777 == _plain_file_mode()

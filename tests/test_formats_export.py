@@ -74,3 +74,17 @@ def test_export_needs_annotations(tmp_path):
     """A directory without annotations.json is an InputFileError naming the file."""
     with pytest.raises(InputFileError, match="annotations.json: cannot be read"):
         export(tmp_path, ["voc"])
+
+
+def test_exported_files_and_directories_have_plain_modes(tmp_path):
+    """Staged files and directories end with the modes open()/mkdir() give, not tempfile's private ones."""
+    import os
+
+    make_dataset(tmp_path)
+    export(tmp_path, ["voc", "tokens"])
+    mask = os.umask(0o022)
+    os.umask(mask)
+    # common practice: POSIX open(2)/mkdir(2) create with 0666/0777 less the umask
+    assert (tmp_path / "voc").stat().st_mode & 0o777 == 0o777 & ~mask
+    assert (tmp_path / "tokens.jsonl").stat().st_mode & 0o777 == 0o666 & ~mask
+    assert (tmp_path / "tokens.vocab.json").stat().st_mode & 0o777 == 0o666 & ~mask

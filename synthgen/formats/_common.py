@@ -22,6 +22,7 @@ __all__ = [
     "sidecar_name",
     "staged_dir",
     "staged_file",
+    "publish_mode",
 ]
 
 
@@ -93,6 +94,23 @@ def pixel_box(ann: dict) -> np.ndarray:
     return np.array([np.floor(x), np.floor(y), np.ceil(x + w), np.ceil(y + h)], dtype=np.float64)
 
 
+def _umask() -> int:
+    mask = os.umask(0o022)  # reading the umask means setting it; put it straight back
+    os.umask(mask)
+    return mask
+
+
+def publish_mode(path: Path, *, directory: bool = False) -> None:
+    """Give a staged temporary file or directory the permissions of a plain one.
+
+    ``tempfile`` creates its files 0600 and directories 0700 (private to the
+    owner); a dataset is meant to be read by others, so before the rename the
+    staged path gets ``0666`` (``0777`` for a directory) less the umask, what
+    ``open()`` or ``mkdir()`` would have given it.
+    """
+    os.chmod(path, (0o777 if directory else 0o666) & ~_umask())
+
+
 @contextlib.contextmanager
 def staged_dir(final: Path) -> Iterator[Path]:
     """Yield a temporary directory beside ``final`` that replaces it on success.
@@ -106,6 +124,7 @@ def staged_dir(final: Path) -> Iterator[Path]:
     tmp = Path(tempfile.mkdtemp(dir=final.parent, prefix=f".{final.name}.", suffix=".tmp"))
     try:
         yield tmp
+        publish_mode(tmp, directory=True)
         old = None
         if final.exists():
             old = final.parent / f".{final.name}.old-{os.getpid()}"
@@ -130,6 +149,7 @@ def staged_file(final: Path) -> Iterator[Path]:
         yield tmp
         with open(tmp, "rb+") as f:
             os.fsync(f.fileno())
+        publish_mode(tmp)
         os.replace(tmp, final)
     except BaseException:
         tmp.unlink(missing_ok=True)

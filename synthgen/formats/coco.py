@@ -33,6 +33,7 @@ import numpy as np
 import orjson
 
 from synthgen.errors import InputFileError
+from synthgen.formats._common import publish_mode
 from synthgen.geometry import as_boxes
 
 __all__ = [
@@ -109,6 +110,7 @@ def write_bytes_atomic(path, data: bytes) -> None:
             f.write(data)
             f.flush()
             os.fsync(f.fileno())
+        publish_mode(Path(tmp))
         os.replace(tmp, path)
     except BaseException:
         try:
