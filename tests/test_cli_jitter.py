@@ -78,6 +78,7 @@ def test_jitter_after_make(tmp_path):
         (["--relabel", "-0.1"], "option '--relabel' must be a number in [0, 1] (got -0.1)"),
         (["--duplicates", "2"], "option '--duplicates' must be a number in [0, 1] (got 2.0)"),
         (["--background", "-1"], "option '--background' must be a number >= 0 (got -1.0)"),
+        (["--background", "1e9"], "option '--background' must be at most 10000 boxes per image (got 1000000000.0)"),
         (["--iou", "0.9,0.5"], "option '--iou' must be [min, max] with 0 < min <= max <= 1 (got [0.9, 0.5])"),
         (["--iou", "0,0.5"], "option '--iou' must be [min, max] with 0 < min <= max <= 1 (got [0.0, 0.5])"),
         (["--iou", "high"], "option '--iou' must be LO,HI or one number (got 'high')"),

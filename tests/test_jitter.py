@@ -528,6 +528,7 @@ def test_detector_same_seed_same_output():
         ({"miss": 0.5, "duplicates": 0.6}, "jitter.duplicates"),
         ({"modes": ("shfit",)}, "did you mean 'shift'"),
         ({"background": -1.0}, "jitter.background"),
+        ({"background": 1e9}, r"'jitter.background' must be at most 10000 boxes per image \(got 1000000000.0\)"),
     ],
 )
 def test_detector_spec_validation(kwargs, match):
