@@ -160,3 +160,17 @@ def test_plugin_loads_in_an_outside_project(pytester, monkeypatch):
         args += ["-p", "synthgen.testing"]
     result = pytester.runpytest_subprocess(*args)
     result.assert_outcomes(passed=5)
+
+
+def test_box_pairs_at_the_far_edge_stay_inside_the_canvas():
+    """Pairs pushed against the far edge (all free room used) still fit the canvas after rounding."""
+    from synthgen.testing import _placed_pair
+
+    rng = np.random.default_rng(0)
+    canvas = sbox(0, 0, 200, 150)
+    for _ in range(500):
+        t, axis = rng.uniform(0.2, 0.95), int(rng.integers(2))
+        a, b = _placed_pair(t, axis, rng.uniform(2, 100), rng.uniform(2, 75), 1.0, 1.0, 200.0, 150.0)
+        # shapely: the canvas polygon covers both boxes, and their IoU is the requested one
+        assert canvas.covers(sbox(*a)) and canvas.covers(sbox(*b))
+        assert shapely_iou(a, b) == pytest.approx(t, abs=1e-9)
