@@ -88,3 +88,13 @@ def test_exported_files_and_directories_have_plain_modes(tmp_path):
     assert (tmp_path / "voc").stat().st_mode & 0o777 == 0o777 & ~mask
     assert (tmp_path / "tokens.jsonl").stat().st_mode & 0o777 == 0o666 & ~mask
     assert (tmp_path / "tokens.vocab.json").stat().st_mode & 0o777 == 0o666 & ~mask
+
+
+@pytest.mark.parametrize("where", ["annotations.json", "annotations.json/sub"])
+def test_export_into_a_file_is_an_input_error(tmp_path, where):
+    """An output path that is (or lies under) a file raises InputFileError naming it; nothing is written."""
+    make_dataset(tmp_path)
+    before = sorted(p.name for p in tmp_path.iterdir())
+    with pytest.raises(InputFileError, match="cannot be"):
+        export(tmp_path, ["voc"], out=tmp_path / where)
+    assert sorted(p.name for p in tmp_path.iterdir()) == before

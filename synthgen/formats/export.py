@@ -109,7 +109,12 @@ def write_formats(
     if "tokens" in formats:
         tokens_fmt.check_token_options(n_bins, order)
     out = Path(out)
-    out.mkdir(parents=True, exist_ok=True)
+    if out.exists() and not out.is_dir():
+        raise InputFileError(out, "cannot be written: it is a file, not a directory")
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+    except OSError as e:
+        raise InputFileError(out, f"cannot be created ({e.strerror or e})") from None
     images_dir = Path(images_dir) if images_dir is not None else out / "images"
     labels = assign_splits(len(coco["images"]), dict(split), seed=seed) if split else None
     parts = split_coco(coco, labels, names=list(split)) if split else {}
