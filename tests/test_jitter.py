@@ -117,7 +117,9 @@ def coco_evaluate(gt: dict, results: list[dict], iou_thrs=None) -> COCOeval:
 
 # ----------------------------------------------------------------------------- strategies
 
-coords = st.floats(0, 2000, allow_nan=False, allow_infinity=False)
+# no subnormals: GEOS' overlay, the shapely reference, gets [0, 5e-324, 1, 1] against a unit-size box wrong
+# (IoU 0.066 where the same box with y0 = 0 gives the exact 0.125; found by hypothesis)
+coords = st.floats(0, 2000, allow_nan=False, allow_infinity=False, allow_subnormal=False)
 sides = st.one_of(st.just(1.0), st.floats(1, 800, allow_nan=False), st.integers(1, 800).map(float))
 
 
