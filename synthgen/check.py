@@ -267,9 +267,11 @@ class _Checker:
                         rle.decode(seg)
                     except (ValueError, TypeError) as e:
                         self.add(path, record, "RLE segmentation must decode", str(e))
-        if reference:
-            self.ref_names = [c.get("name") for c in sorted(cats, key=lambda c: _sort_key(c.get("id")))]
-            self.ref_objects = {}
+        if reference:  # several reference files (splits without a whole-dataset file) add up
+            if self.ref_names is None:
+                self.ref_names = [c.get("name") for c in sorted(cats, key=lambda c: _sort_key(c.get("id")))]
+            if self.ref_objects is None:
+                self.ref_objects = {}
             for im in images:
                 fn = im.get("file_name")
                 if isinstance(fn, str) and im.get("id") in size_of:
@@ -277,7 +279,10 @@ class _Checker:
                     self.ref_objects[stem] = per_image[im["id"]]
                     self.ref_sizes[stem] = size_of[im["id"]]
                     self.ref_ids[im["id"]] = stem
-            self.counts["coco"] = {"files": 1, "images": len(images), "objects": len(anns)}
+            total = self.counts.setdefault("coco", {"files": 0, "images": 0, "objects": 0})
+            total["files"] += 1
+            total["images"] += len(images)
+            total["objects"] += len(anns)
         return coco
 
     def _unique_positive(self, path: Path, kind: str, records: list[dict]) -> None:
@@ -303,9 +308,12 @@ class _Checker:
     def coco_splits(self, main: dict | None, parts: dict[str, dict]) -> None:
         main_ids = {im.get("id"): im.get("file_name") for im in main["images"]} if main else None
         owner: dict[object, str] = {}
+        first_name, (_, first) = next(iter(parts.items()))
         for name, (path, coco) in parts.items():
             if main is not None and coco["categories"] != main["categories"]:
                 self.add(path, "categories", "must be the categories of annotations.json", coco["categories"])
+            elif main is None and coco["categories"] != first["categories"]:
+                self.add(path, "categories", f"must be the categories of {first_name}", coco["categories"])
             for i, im in enumerate(coco["images"]):
                 key = im.get("file_name")
                 if key in owner:
@@ -583,14 +591,16 @@ def check_dataset(path, *, decode_images: bool = True) -> CheckReport:
     formats: list[str] = []
     if coco_files:
         formats.append("coco")
-        main_path = coco_files[0]
-        main = ck.coco(main_path, reference=True)
+        # The whole-dataset file is the reference for the other formats; without
+        # one (only split files, or annotations/*.json), all the files together are.
+        whole = coco_files[0].name == "annotations.json"
+        main = ck.coco(coco_files[0], reference=True) if whole else None
         parts = {}
-        for p in coco_files[1:]:
-            c = ck.coco(p, reference=False)
-            if c is not None and p.name.startswith("annotations.") and main_path.name == "annotations.json":
+        for p in coco_files[1:] if whole else coco_files:
+            c = ck.coco(p, reference=not whole)
+            if c is not None and (p.name.startswith("annotations.") or not whole):
                 parts[p.name] = (p, c)
-        if parts:
+        if parts and (main is not None or len(parts) > 1):
             ck.coco_splits(main, parts)
     voc_dir = next((root / n for n in ("voc", "Annotations") if (root / n).is_dir()), None)
     if voc_dir is not None:
