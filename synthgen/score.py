@@ -869,6 +869,8 @@ class Evaluation:
         categorical : bool
         """
         recs = self._truth.records
+        if not recs:  # no objects (an empty subset of a sweep, say): no fact can be missing
+            return np.zeros(0, dtype=np.float64), False
         if fact == "area":
             raw = [r["area"] for r in recs]
         else:
@@ -923,6 +925,8 @@ class Evaluation:
             det_out = np.zeros((len(levels), len(pb.rec)), dtype=bool)
         else:
             e = self._edges(fact, values, edges)
+            if len(e) < 2:  # a fact without default edges, on no objects
+                return []
             bins = [(_bin_label(e, i), float(e[i]), float(e[i + 1]), None) for i in range(len(e) - 1)]
             in_bin = _bin_masks(values, e)
             if fact in BOX_FACTS:
@@ -982,6 +986,8 @@ class Evaluation:
             finite = values[np.isfinite(values)]
             if fact in GEOMETRIC_BASE:
                 return _geometric_edges(finite, GEOMETRIC_BASE[fact])
+            if finite.size == 0:
+                return np.zeros(0, dtype=np.float64)  # no values, no bins
             e = np.unique(np.quantile(finite, np.linspace(0, 1, 6)))
             return e if len(e) >= 2 else np.array([e[0], e[0]], dtype=np.float64)
         e = np.asarray(list(edges), dtype=np.float64)
