@@ -1123,10 +1123,9 @@ def evaluate(
 def _read_json(path: Path):
     import orjson
 
-    try:
-        data = path.read_bytes()
-    except OSError as exc:
-        raise InputFileError(path, f"cannot be read ({exc.strerror or exc})") from None
+    from synthgen.formats._common import read_input
+
+    data = read_input(path)
     try:
         return orjson.loads(data)
     except orjson.JSONDecodeError as exc:

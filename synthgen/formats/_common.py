@@ -23,6 +23,8 @@ __all__ = [
     "staged_dir",
     "staged_file",
     "publish_mode",
+    "read_input",
+    "read_input_text",
 ]
 
 
@@ -37,6 +39,23 @@ def bad_record(path, record: str, rule: str, value: object) -> InputFileError:
     err = InputFileError(path, f"{record}: {rule} (got {text})" if record else f"{rule} (got {text})")
     err.record, err.rule, err.value = record, rule, value
     return err
+
+
+def read_input(path) -> bytes:
+    """The bytes of an input file; a missing or unreadable one is an :class:`InputFileError` naming it."""
+    try:
+        return Path(path).read_bytes()
+    except OSError as e:
+        raise InputFileError(path, f"cannot be read ({e.strerror or e})") from None
+
+
+def read_input_text(path) -> str:
+    """An input file as UTF-8 text (see :func:`read_input`); other encodings are an InputFileError too."""
+    raw = read_input(path)
+    try:
+        return raw.decode("utf-8")
+    except UnicodeDecodeError as e:
+        raise InputFileError(path, f"cannot be read as UTF-8 text ({e.reason} at byte {e.start})") from None
 
 
 def annotations_by_image(coco: dict) -> dict[int, list[dict]]:

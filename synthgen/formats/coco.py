@@ -33,7 +33,7 @@ import numpy as np
 import orjson
 
 from synthgen.errors import InputFileError
-from synthgen.formats._common import publish_mode
+from synthgen.formats._common import publish_mode, read_input
 from synthgen.geometry import as_boxes
 
 __all__ = [
@@ -168,10 +168,7 @@ def read_coco(path) -> dict:
         COCO file; the message names the file, the record and the rule.
     """
     path = Path(path)
-    try:
-        raw = path.read_bytes()
-    except OSError as e:
-        raise InputFileError(path, f"cannot be read ({e.strerror or e})") from None
+    raw = read_input(path)
     try:
         coco = orjson.loads(raw)
     except orjson.JSONDecodeError as e:

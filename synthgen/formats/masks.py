@@ -28,7 +28,7 @@ from PIL import Image, ImageDraw
 
 from synthgen.errors import InputFileError
 from synthgen.formats import rle
-from synthgen.formats._common import annotations_by_image, bad_record, sidecar_name
+from synthgen.formats._common import annotations_by_image, bad_record, read_input, sidecar_name
 
 __all__ = [
     "MASK_MODES",
@@ -138,10 +138,7 @@ def read_instance_png(path) -> np.ndarray:
 def read_mask_rles(path) -> list[dict]:
     """Read ``masks.jsonl``: per line the image's fields and ``masks`` decoded to bool (H, W) arrays."""
     path = Path(path)
-    try:
-        raw = path.read_bytes()
-    except OSError as e:
-        raise InputFileError(path, f"cannot be read ({e.strerror or e})") from None
+    raw = read_input(path)
     out = []
     for n, text in enumerate(raw.splitlines(), start=1):
         if not text.strip():

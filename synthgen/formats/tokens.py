@@ -43,8 +43,8 @@ from pathlib import Path
 import numpy as np
 import orjson
 
-from synthgen.errors import InputFileError, check_choice, check_number
-from synthgen.formats._common import annotations_by_image, bad_record, categories_in_order, image_index
+from synthgen.errors import check_choice, check_number
+from synthgen.formats._common import annotations_by_image, bad_record, categories_in_order, image_index, read_input
 from synthgen.geometry import as_boxes, box_area
 
 __all__ = [
@@ -355,10 +355,9 @@ def _noise_objects(value, cat_ids: list[int], image_id) -> tuple[np.ndarray | No
 def read_vocabulary(path) -> dict:
     """Read a token vocabulary file; raises InputFileError when it is malformed."""
     path = Path(path)
+    raw = read_input(path)
     try:
-        vocab = orjson.loads(Path(path).read_bytes())
-    except OSError as e:
-        raise InputFileError(path, f"cannot be read ({e.strerror or e})") from None
+        vocab = orjson.loads(raw)
     except orjson.JSONDecodeError as e:
         raise bad_record(path, f"line {e.lineno}, column {e.colno}", "must be valid JSON", e.msg) from None
     if not isinstance(vocab, dict):
@@ -409,10 +408,7 @@ def read_tokens(path, vocab_path) -> list[dict]:
     category_of = {c["token"]: c["category_id"] for c in vocab["classes"]}
     noise_token = vocab["ranges"]["noise"][0]
     end_token = vocab["ranges"]["end"][0]
-    try:
-        raw = path.read_bytes()
-    except OSError as e:
-        raise InputFileError(path, f"cannot be read ({e.strerror or e})") from None
+    raw = read_input(path)
     out = []
     for n, text in enumerate(raw.splitlines(), start=1):
         if not text.strip():
