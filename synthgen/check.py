@@ -74,10 +74,12 @@ class Problem:
     value: object = None
 
     def __str__(self) -> str:
+        where = f"{self.file}: {self.record}" if self.record else self.file
+        if self.value is None:  # the rule says it all (a file that cannot be read, say)
+            return f"{where}: {self.rule}"
         shown = repr(self.value)
         if len(shown) > 80:
             shown = shown[:77] + "..."
-        where = f"{self.file}: {self.record}" if self.record else self.file
         return f"{where}: {self.rule} (got {shown})"
 
 

@@ -310,3 +310,12 @@ def test_split_files_alone_must_not_share_images(tmp_path):
     val_path.write_bytes(orjson.dumps(val))
     (p,) = _only(check_dataset(tmp_path), "one split only")
     assert p.file == "annotations.val.json"
+
+
+def test_unreadable_yolo_file_is_one_line_without_a_value(tmp_path):
+    """A YOLO file that is not UTF-8 is reported as unreadable, with no '(got None)' tail."""
+    make_dataset(tmp_path)
+    export(tmp_path, ["yolo"])
+    (tmp_path / "yolo" / "000001.txt").write_bytes(b"\xff\xfe0 0.5 0.5 0.1 0.1\n")
+    (p,) = _only(check_dataset(tmp_path), "cannot be read as UTF-8")
+    assert str(p) == "yolo/000001.txt: cannot be read as UTF-8 text (invalid start byte at byte 0)"
