@@ -31,7 +31,7 @@ import json
 import math
 from collections import Counter
 from dataclasses import dataclass, field
-from pathlib import Path, PurePosixPath
+from pathlib import Path
 
 import numpy as np
 import orjson
@@ -43,6 +43,9 @@ from synthgen.formats import rle
 from synthgen.formats import tokens as tokens_fmt
 from synthgen.formats import voc as voc_fmt
 from synthgen.formats import yolo as yolo_fmt
+from synthgen.formats._common import inside_dataset as _inside
+from synthgen.formats._common import is_int as _is_int
+from synthgen.formats._common import is_number as _is_num
 from synthgen.formats.coco import structure_problems
 
 __all__ = ["Problem", "CheckReport", "check_dataset"]
@@ -534,19 +537,6 @@ class _Checker:
                     self.add(path, f"line {i + 1}", f"mask size must match annotations.json {self.ref_sizes[stem]}", m.shape)
                     break
         self.counts["masks"] = {"files": 1, "images": len(lines), "objects": n_obj}
-
-
-def _is_int(v) -> bool:
-    return isinstance(v, int) and not isinstance(v, bool)
-
-
-def _is_num(v) -> bool:
-    return isinstance(v, (int, float)) and not isinstance(v, bool)
-
-
-def _inside(file_name: str) -> bool:
-    p = PurePosixPath(file_name.replace("\\", "/"))
-    return not p.is_absolute() and ".." not in p.parts
 
 
 def _sort_key(v):

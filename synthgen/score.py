@@ -59,6 +59,8 @@ from pathlib import Path
 import numpy as np
 
 from synthgen.errors import InputFileError, UserError
+from synthgen.formats._common import read_input
+from synthgen.formats.coco import xyxy_from_bbox
 from synthgen.geometry import box_iou
 
 __all__ = [
@@ -841,7 +843,7 @@ class Evaluation:
         q_gt = g_order[np.repeat(lo, cnt) + np.arange(len(q_det)) - np.repeat(np.cumsum(cnt) - cnt, cnt)]
         keep = (t.cat[q_gt] != pb.cat[q_det]) & ~t.crowd[q_gt]
         q_det, q_gt = q_det[keep], q_gt[keep]
-        iou = box_iou(_xyxy(pb.box)[q_det], _xyxy(t.box)[q_gt])
+        iou = box_iou(xyxy_from_bbox(pb.box)[q_det], xyxy_from_bbox(t.box)[q_gt])
         ok = iou >= 0.5
         q_det, q_gt, iou = q_det[ok], q_gt[ok], iou[ok]
         # Best IoU per detection (the first in file order among equals).
@@ -1025,10 +1027,6 @@ class Evaluation:
         return out
 
 
-def _xyxy(b: np.ndarray) -> np.ndarray:
-    return np.concatenate([b[:, :2], b[:, :2] + b[:, 2:]], axis=1)
-
-
 def _geometric_edges(values: np.ndarray, base: float) -> np.ndarray:
     """Powers of ``base`` spanning the positive values, with 0 first when some value is below the first power.
 
@@ -1122,8 +1120,6 @@ def evaluate(
 
 def _read_json(path: Path):
     import orjson
-
-    from synthgen.formats._common import read_input
 
     data = read_input(path)
     try:

@@ -25,6 +25,9 @@ __all__ = [
     "publish_mode",
     "read_input",
     "read_input_text",
+    "is_int",
+    "is_number",
+    "inside_dataset",
 ]
 
 
@@ -79,16 +82,35 @@ def image_index(image: dict, position: int) -> int:
     return position
 
 
+def is_int(v) -> bool:
+    """Whether a parsed JSON value is an integer (``true``/``false`` are not)."""
+    return isinstance(v, int) and not isinstance(v, bool)
+
+
+def is_number(v) -> bool:
+    """Whether a parsed JSON value is a number (``true``/``false`` are not)."""
+    return isinstance(v, (int, float)) and not isinstance(v, bool)
+
+
+def inside_dataset(file_name: str) -> bool:
+    """Whether a ``file_name`` from a file is a relative path that stays inside the dataset.
+
+    >>> inside_dataset("a/000001.png"), inside_dataset("../x.png"), inside_dataset("/etc/x.png")
+    (True, False, False)
+    """
+    p = PurePosixPath(file_name.replace("\\", "/"))
+    return not p.is_absolute() and ".." not in p.parts
+
+
 def sidecar_name(file_name: str, suffix: str) -> str:
     """Per-image file name for another format: the image's path with ``suffix``.
 
     >>> sidecar_name("000012.png", ".xml")
     '000012.xml'
     """
-    p = PurePosixPath(file_name.replace("\\", "/"))
-    if p.is_absolute() or ".." in p.parts:
+    if not inside_dataset(file_name):
         raise InputFileError(file_name, "image file_name must be a relative path inside the dataset")
-    return str(p.with_suffix(suffix))
+    return str(PurePosixPath(file_name.replace("\\", "/")).with_suffix(suffix))
 
 
 def pixel_box(ann: dict) -> np.ndarray:

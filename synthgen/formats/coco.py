@@ -33,6 +33,8 @@ import numpy as np
 import orjson
 
 from synthgen.errors import InputFileError
+from synthgen.formats._common import is_int as _is_int
+from synthgen.formats._common import is_number as _is_num
 from synthgen.formats._common import publish_mode, read_input
 from synthgen.geometry import as_boxes
 
@@ -181,14 +183,6 @@ def read_coco(path) -> dict:
 def _show(value: object) -> str:
     text = repr(value)
     return text if len(text) <= 60 else text[:57] + "..."
-
-
-def _is_int(v) -> bool:
-    return isinstance(v, int) and not isinstance(v, bool)
-
-
-def _is_num(v) -> bool:
-    return isinstance(v, (int, float)) and not isinstance(v, bool)
 
 
 def _name(kind: str, i: int, rec) -> str:
