@@ -180,7 +180,11 @@ def staged_dir(final: Path) -> Iterator[Path]:
 
 @contextlib.contextmanager
 def staged_file(final: Path) -> Iterator[Path]:
-    """Yield a temporary file path beside ``final``, renamed over it on success (fsync'ed)."""
+    """Yield a temporary file path beside ``final``, renamed over it on success.
+
+    The file is fsync'ed before the rename and the directory after it, so a
+    crash leaves either the old file or the whole new one under ``final``.
+    """
     final = Path(final)
     final.parent.mkdir(parents=True, exist_ok=True)
     fd, name = tempfile.mkstemp(dir=final.parent, prefix=f".{final.name}.", suffix=".tmp")
@@ -195,3 +199,18 @@ def staged_file(final: Path) -> Iterator[Path]:
     except BaseException:
         tmp.unlink(missing_ok=True)
         raise
+    _fsync_dir(final.parent)
+
+
+def _fsync_dir(path: Path) -> None:
+    """Make a rename in ``path`` durable, where the platform allows it."""
+    try:
+        fd = os.open(path, os.O_RDONLY)
+    except OSError:
+        return
+    try:
+        os.fsync(fd)
+    except OSError:
+        pass
+    finally:
+        os.close(fd)

@@ -24,8 +24,6 @@ truncated file under the final name.
 from __future__ import annotations
 
 import math
-import os
-import tempfile
 from collections.abc import Iterator
 from pathlib import Path
 
@@ -35,7 +33,7 @@ import orjson
 from synthgen.errors import InputFileError
 from synthgen.formats._common import is_int as _is_int
 from synthgen.formats._common import is_number as _is_num
-from synthgen.formats._common import publish_mode, read_input
+from synthgen.formats._common import read_input, staged_file
 from synthgen.geometry import as_boxes
 
 __all__ = [
@@ -102,34 +100,11 @@ def write_bytes_atomic(path, data: bytes) -> None:
     Parameters
     ----------
     path : str or Path
-        Final file name; its directory must exist.
+        Final file name (its directory is created when missing).
     data : bytes
     """
-    path = Path(path)
-    fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
-    try:
-        with os.fdopen(fd, "wb") as f:
-            f.write(data)
-            f.flush()
-            os.fsync(f.fileno())
-        publish_mode(Path(tmp))
-        os.replace(tmp, path)
-    except BaseException:
-        try:
-            os.unlink(tmp)
-        except FileNotFoundError:
-            pass
-        raise
-    try:  # make the rename itself durable
-        dfd = os.open(path.parent, os.O_RDONLY)
-    except OSError:
-        return
-    try:
-        os.fsync(dfd)
-    except OSError:
-        pass
-    finally:
-        os.close(dfd)
+    with staged_file(Path(path)) as tmp:
+        tmp.write_bytes(data)
 
 
 def write_coco(path, coco: dict, *, indent: bool = False) -> None:
