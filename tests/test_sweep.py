@@ -87,3 +87,14 @@ def test_non_empty_directory_is_refused(tmp_path):
     with pytest.raises(UserError, match="not empty"):
         run_sweep(None, [parse_vary("seed=1,2")], tmp_path / "s", overrides=SMALL, workers=1)
     assert (tmp_path / "s" / "keep.txt").read_text() == "x"
+
+
+def test_inline_table_values_are_swept_like_set(tmp_path):
+    """A TOML inline table per value (as --set accepts) gives one subset per table."""
+    vary = parse_vary("background={kind='noise'},{kind='checker'}")
+    assert vary.values == ({"kind": "noise"}, {"kind": "checker"})
+    summary = run_sweep(None, [vary], tmp_path / "s", overrides=SMALL, workers=1)
+    assert [r["path"] for r in summary.records] == ["background={kind=noise}", "background={kind=checker}"]
+    for r in summary.records:
+        manifest = json.loads((tmp_path / "s" / r["path"] / "manifest.json").read_text())
+        assert manifest["config"]["background"]["kind"] == r["values"]["background"]["kind"]
