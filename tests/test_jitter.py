@@ -2,17 +2,11 @@
 
 from __future__ import annotations
 
-import contextlib
-import copy
-import io
-
 import numpy as np
 import pytest
 import shapely
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
-from pycocotools.coco import COCO
-from pycocotools.cocoeval import COCOeval
 
 from synthgen.errors import ConfigError
 from synthgen.jitter import (
@@ -34,6 +28,7 @@ from synthgen.jitter import (
     to_iou,
     uniform_shift_scale,
 )
+from tests._coco_cases import coco_reference
 
 # ----------------------------------------------------------------------------- helpers
 
@@ -97,22 +92,10 @@ def coco_results(det) -> list[dict]:
     ]
 
 
-def coco_evaluate(gt: dict, results: list[dict], iou_thrs=None) -> COCOeval:
-    """Run pycocotools' bbox evaluation quietly; loadRes gets copies because it edits its input."""
+def coco_evaluate(gt: dict, results: list[dict], iou_thrs=None):
+    """pycocotools' bbox evaluation (tests/_coco_cases.py); there must be results to evaluate."""
     assert results, "loadRes([]) raises in pycocotools (REFERENCE.md)"
-    with contextlib.redirect_stdout(io.StringIO()):
-        cg = COCO()
-        cg.dataset = copy.deepcopy(gt)
-        cg.createIndex()
-        cd = cg.loadRes(copy.deepcopy(results))
-        ev = COCOeval(cg, cd, "bbox")
-        if iou_thrs is not None:
-            ev.params.iouThrs = np.asarray(iou_thrs, dtype=float)
-        ev.evaluate()
-        ev.accumulate()
-        if iou_thrs is None:
-            ev.summarize()
-    return ev
+    return coco_reference(gt, results, iou_thrs=iou_thrs)
 
 
 # ----------------------------------------------------------------------------- strategies

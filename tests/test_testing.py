@@ -2,13 +2,9 @@
 
 from __future__ import annotations
 
-import contextlib
-import io
-
 import numpy as np
 import pytest
 from hypothesis import given, settings
-from hypothesis import strategies as st
 from shapely.geometry import box as sbox
 
 from synthgen.geometry import boxes_valid, pairwise_iou
@@ -22,6 +18,7 @@ from synthgen.testing import (
     pair_at_iou,
     scenes,
 )
+from tests._coco_cases import coco_reference
 
 pytest_plugins = ["pytester"]
 
@@ -82,18 +79,7 @@ def test_pair_at_iou_formula():
 
 
 def _pycoco_stats(gt, preds):
-    from pycocotools.coco import COCO
-    from pycocotools.cocoeval import COCOeval
-
-    with contextlib.redirect_stdout(io.StringIO()):
-        coco = COCO()
-        coco.dataset = {k: list(v) for k, v in gt.items()}
-        coco.createIndex()
-        ev = COCOeval(coco, coco.loadRes([dict(p) for p in preds]), "bbox")
-        ev.evaluate()
-        ev.accumulate()
-        ev.summarize()
-    return ev.stats
+    return coco_reference(gt, preds).stats  # pycocotools COCOeval (tests/_coco_cases.py)
 
 
 @settings(max_examples=60, deadline=None)
