@@ -98,3 +98,29 @@ def test_export_into_a_file_is_an_input_error(tmp_path, where):
     with pytest.raises(InputFileError, match="cannot be"):
         export(tmp_path, ["voc"], out=tmp_path / where)
     assert sorted(p.name for p in tmp_path.iterdir()) == before
+
+
+def test_export_refuses_an_rle_of_the_wrong_size_before_writing(tmp_path):
+    """An RLE segmentation whose size is not its image's names the record; nothing is written."""
+    make_dataset(tmp_path / "d")
+    path = tmp_path / "d" / "annotations.json"
+    coco = orjson.loads(path.read_bytes())
+    coco["annotations"][1]["segmentation"] = {"size": [3, 3], "counts": "abc"}
+    path.write_bytes(orjson.dumps(coco))
+    with pytest.raises(InputFileError, match=r"annotations\[1\] \(id 2\): RLE 'size' must be its image's"):
+        export(tmp_path / "d", ["masks"], out=tmp_path / "o")
+    assert not (tmp_path / "o").exists()
+
+
+def test_png_masks_refuse_more_objects_than_ids_before_writing(tmp_path, monkeypatch):
+    """More objects in one image than a uint16 id PNG numbers is a user error pointing to RLE masks."""
+    from synthgen.errors import UserError
+    from synthgen.formats import masks as masks_fmt
+
+    make_dataset(tmp_path / "d")
+    monkeypatch.setattr(masks_fmt, "MAX_IDS", 1)  # stands in for 65535, so the test stays small
+    with pytest.raises(UserError, match=r"at most 1 objects per image \(got 3 in image id \d+\).*--masks rle"):
+        export(tmp_path / "d", ["masks"], out=tmp_path / "o")
+    assert not (tmp_path / "o").exists()
+    export(tmp_path / "d", ["masks"], out=tmp_path / "o", masks="rle")
+    assert (tmp_path / "o" / "masks.jsonl").is_file()

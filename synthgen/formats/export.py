@@ -24,12 +24,12 @@ from pathlib import Path
 
 import orjson
 
-from synthgen.errors import ConfigError, InputFileError, check_choice
+from synthgen.errors import ConfigError, InputFileError, UserError, check_choice
 from synthgen.formats import masks as masks_fmt
 from synthgen.formats import tokens as tokens_fmt
 from synthgen.formats import voc as voc_fmt
 from synthgen.formats import yolo as yolo_fmt
-from synthgen.formats._common import sidecar_name, staged_dir, staged_file
+from synthgen.formats._common import bad_record, sidecar_name, staged_dir, staged_file
 from synthgen.formats.coco import read_coco, write_bytes_atomic, write_coco
 from synthgen.formats.splits import assign_splits, coco_split_name, split_coco
 
@@ -108,6 +108,8 @@ def write_formats(
     check_choice("masks", masks, masks_fmt.MASK_MODES)
     if "tokens" in formats:
         tokens_fmt.check_token_options(n_bins, order)
+    if "masks" in formats and masks == "png":
+        _check_png_ids(coco)
     out = Path(out)
     if out.exists() and not out.is_dir():
         raise InputFileError(out, "cannot be written: it is a file, not a directory")
@@ -158,6 +160,31 @@ def write_formats(
         }
         write_bytes_atomic(out / "splits.json", orjson.dumps(doc, option=orjson.OPT_INDENT_2))
     return done
+
+
+def _check_png_ids(coco: dict) -> None:
+    """Refuse, before writing anything, an image with more objects than a uint16 id PNG can number."""
+    counts: dict = {}
+    for a in coco["annotations"]:
+        counts[a["image_id"]] = counts.get(a["image_id"], 0) + 1
+    worst = max(counts.items(), key=lambda kv: kv[1], default=(None, 0))
+    if worst[1] > masks_fmt.MAX_IDS:
+        raise UserError(
+            f"masks as instance-id PNGs hold at most {masks_fmt.MAX_IDS} objects per image "
+            f"(got {worst[1]} in image id {worst[0]}); write them as per-object RLE instead (--masks rle)"
+        )
+
+
+def _check_segmentations(coco: dict, path: Path) -> None:
+    """Every RLE segmentation must have its image's size (other tools' files may not)."""
+    size_of = {im["id"]: [im["height"], im["width"]] for im in coco["images"]}
+    for i, a in enumerate(coco["annotations"]):
+        seg = a.get("segmentation")
+        want = size_of.get(a["image_id"])
+        if isinstance(seg, dict) and want is not None and list(seg["size"]) != want:
+            raise bad_record(
+                path, f"annotations[{i}] (id {a['id']})", f"RLE 'size' must be its image's [height, width] {want}", seg["size"]
+            )
 
 
 def _write_list(path: Path, items: list[str]) -> None:
@@ -232,6 +259,7 @@ def export(
     if not dataset_dir.is_dir():
         raise InputFileError(dataset_dir, "is not a directory")
     coco = read_coco(dataset_dir / "annotations.json")
+    _check_segmentations(coco, dataset_dir / "annotations.json")
     if seed is None:
         seed = dataset_seed(dataset_dir)
     out = Path(out) if out is not None else dataset_dir
