@@ -124,3 +124,15 @@ def test_png_masks_refuse_more_objects_than_ids_before_writing(tmp_path, monkeyp
     assert not (tmp_path / "o").exists()
     export(tmp_path / "d", ["masks"], out=tmp_path / "o", masks="rle")
     assert (tmp_path / "o" / "masks.jsonl").is_file()
+
+
+def test_export_refuses_a_file_name_outside_the_dataset_before_writing(tmp_path):
+    """An image file_name climbing out of the dataset names its record; no output directory is made."""
+    make_dataset(tmp_path / "d")
+    path = tmp_path / "d" / "annotations.json"
+    coco = orjson.loads(path.read_bytes())
+    coco["images"][2]["file_name"] = "../elsewhere.png"
+    path.write_bytes(orjson.dumps(coco))
+    with pytest.raises(InputFileError, match=r"images\[2\] \(id 3\): 'file_name' must be a relative path inside"):
+        export(tmp_path / "d", ["voc"], out=tmp_path / "o")
+    assert not (tmp_path / "o").exists()

@@ -29,7 +29,7 @@ from synthgen.formats import masks as masks_fmt
 from synthgen.formats import tokens as tokens_fmt
 from synthgen.formats import voc as voc_fmt
 from synthgen.formats import yolo as yolo_fmt
-from synthgen.formats._common import bad_record, sidecar_name, staged_dir, staged_file
+from synthgen.formats._common import bad_record, inside_dataset, sidecar_name, staged_dir, staged_file
 from synthgen.formats.coco import read_coco, write_bytes_atomic, write_coco
 from synthgen.formats.splits import assign_splits, coco_split_name, split_coco
 
@@ -175,8 +175,15 @@ def _check_png_ids(coco: dict) -> None:
         )
 
 
-def _check_segmentations(coco: dict, path: Path) -> None:
-    """Every RLE segmentation must have its image's size (other tools' files may not)."""
+def _check_input(coco: dict, path: Path) -> None:
+    """What the writers rely on and other tools' files may break: image file names inside the
+    dataset, RLE segmentations of their image's size.  Checked before anything is written."""
+    for i, im in enumerate(coco["images"]):
+        if not inside_dataset(im["file_name"]):
+            raise bad_record(
+                path, f"images[{i}] (id {im['id']})", "'file_name' must be a relative path inside the dataset",
+                im["file_name"],
+            )
     size_of = {im["id"]: [im["height"], im["width"]] for im in coco["images"]}
     for i, a in enumerate(coco["annotations"]):
         seg = a.get("segmentation")
@@ -259,7 +266,7 @@ def export(
     if not dataset_dir.is_dir():
         raise InputFileError(dataset_dir, "is not a directory")
     coco = read_coco(dataset_dir / "annotations.json")
-    _check_segmentations(coco, dataset_dir / "annotations.json")
+    _check_input(coco, dataset_dir / "annotations.json")
     if seed is None:
         seed = dataset_seed(dataset_dir)
     out = Path(out) if out is not None else dataset_dir
