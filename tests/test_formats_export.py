@@ -136,3 +136,17 @@ def test_export_refuses_a_file_name_outside_the_dataset_before_writing(tmp_path)
     with pytest.raises(InputFileError, match=r"images\[2\] \(id 3\): 'file_name' must be a relative path inside"):
         export(tmp_path / "d", ["voc"], out=tmp_path / "o")
     assert not (tmp_path / "o").exists()
+
+
+@pytest.mark.parametrize("mode", ["png", "rle"])
+def test_masks_of_annotations_without_segmentation_are_refused_before_writing(tmp_path, mode):
+    """A box-only COCO file (another tool's) cannot give masks: the record is named, nothing is written."""
+    make_dataset(tmp_path / "d")
+    path = tmp_path / "d" / "annotations.json"
+    coco = orjson.loads(path.read_bytes())
+    del coco["annotations"][0]["segmentation"]
+    path.write_bytes(orjson.dumps(coco))
+    with pytest.raises(InputFileError, match=r"annotations\[0\] \(id 1\): must have a 'segmentation'.*got '<missing>'"):
+        export(tmp_path / "d", ["voc", "masks"], out=tmp_path / "o", masks=mode)
+    assert not (tmp_path / "o").exists()
+    export(tmp_path / "d", ["voc"], out=tmp_path / "o")  # formats without masks still work

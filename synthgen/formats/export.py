@@ -175,9 +175,10 @@ def _check_png_ids(coco: dict) -> None:
         )
 
 
-def _check_input(coco: dict, path: Path) -> None:
+def _check_input(coco: dict, path: Path, formats) -> None:
     """What the writers rely on and other tools' files may break: image file names inside the
-    dataset, RLE segmentations of their image's size.  Checked before anything is written."""
+    dataset, RLE segmentations of their image's size, and (for masks) a segmentation on every
+    annotation.  Checked before anything is written."""
     for i, im in enumerate(coco["images"]):
         if not inside_dataset(im["file_name"]):
             raise bad_record(
@@ -191,6 +192,11 @@ def _check_input(coco: dict, path: Path) -> None:
         if isinstance(seg, dict) and want is not None and list(seg["size"]) != want:
             raise bad_record(
                 path, f"annotations[{i}] (id {a['id']})", f"RLE 'size' must be its image's [height, width] {want}", seg["size"]
+            )
+        if "masks" in formats and not (isinstance(seg, dict) or (isinstance(seg, list) and seg)):
+            raise bad_record(
+                path, f"annotations[{i}] (id {a['id']})", "must have a 'segmentation' (polygons or RLE) to write masks",
+                "<missing>" if seg is None else seg,
             )
 
 
@@ -266,12 +272,12 @@ def export(
     if not dataset_dir.is_dir():
         raise InputFileError(dataset_dir, "is not a directory")
     coco = read_coco(dataset_dir / "annotations.json")
-    _check_input(coco, dataset_dir / "annotations.json")
     if seed is None:
         seed = dataset_seed(dataset_dir)
     out = Path(out) if out is not None else dataset_dir
     formats = list(formats)
     formats = parse_formats(formats) if formats or not split else ()  # splits alone are fine
+    _check_input(coco, dataset_dir / "annotations.json", formats)
     if out.resolve() == dataset_dir.resolve():
         formats = tuple(f for f in formats if f != "coco")  # already there
     return write_formats(
