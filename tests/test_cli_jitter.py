@@ -68,7 +68,12 @@ def test_jitter_after_make(tmp_path):
     assert made.exit_code == 0, made.output
     res = run("jitter", tmp_path / "d", "--out", tmp_path / "p.json", "--miss", "0.5", "--background", "1")
     assert res.exit_code == 0, res.output
-    assert json.loads(res.stdout)["outcomes"]["missed"] >= 0
+    summary = json.loads(res.stdout)
+    n = len(json.loads((tmp_path / "d" / "annotations.json").read_text())["annotations"])
+    assert n > 0 and summary["ground_truth"] == n
+    # DetectorSpec: exactly floor(rate * N + 0.5) boxes are missed; the sidecar lists them
+    assert summary["outcomes"]["missed"] == int(0.5 * n + 0.5)
+    assert len(json.loads((tmp_path / "p.truth.json").read_text())["missed"]) == int(0.5 * n + 0.5)
 
 
 @pytest.mark.parametrize(
