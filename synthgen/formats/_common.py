@@ -77,7 +77,7 @@ def categories_in_order(coco: dict) -> list[dict]:
 def image_index(image: dict, position: int) -> int:
     """0-based image index ``k``: synthgen's own when recorded, else the position."""
     facts = image.get("synthgen")
-    if isinstance(facts, dict) and isinstance(facts.get("index"), int):
+    if isinstance(facts, dict) and is_int(facts.get("index")):
         return facts["index"]
     return position
 
