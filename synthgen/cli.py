@@ -127,6 +127,16 @@ SplitOpt = Annotated[
 ]
 
 
+def _overrides(set_: list[str] | None, count: int | None, seed: int | None) -> list[str]:
+    """--set values, then --count and --seed as the overrides they stand for."""
+    overrides = list(set_ or [])
+    if count is not None:
+        overrides.append(f"count={count}")
+    if seed is not None:
+        overrides.append(f"seed={seed}")
+    return overrides
+
+
 def _formats_and_split(formats: str, split: str | None):
     from synthgen.formats import parse_formats, parse_split
 
@@ -170,11 +180,7 @@ def make(
     from synthgen.dataset import make_dataset
     from synthgen.shards import OutputWriteError, parse_shard
 
-    overrides = list(set_ or [])
-    if count is not None:
-        overrides.append(f"count={count}")
-    if seed is not None:
-        overrides.append(f"seed={seed}")
+    overrides = _overrides(set_, count, seed)
     cfg = load_config(config, overrides)
     format_names, fractions = _formats_and_split(formats, split)
     part = parse_shard(shard) if shard is not None else None
@@ -508,11 +514,7 @@ def sweep(
     """Render one dataset per combination of varied config values, under DIR/<key>=<value>/."""
     from synthgen.sweep import parse_vary, plan_sweep, run_sweep
 
-    overrides = list(set_ or [])
-    if count is not None:
-        overrides.append(f"count={count}")
-    if seed is not None:
-        overrides.append(f"seed={seed}")
+    overrides = _overrides(set_, count, seed)
     varies = [parse_vary(v) for v in vary]
     plan = plan_sweep(config, varies, overrides)
     total = sum(cfg.count for _, _, cfg in plan)

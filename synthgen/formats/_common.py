@@ -209,10 +209,10 @@ def staged_file(final: Path) -> Iterator[Path]:
     except BaseException:
         tmp.unlink(missing_ok=True)
         raise
-    _fsync_dir(final.parent)
+    fsync_dir(final.parent)
 
 
-def _fsync_dir(path: Path) -> None:
+def fsync_dir(path: Path) -> None:
     """Make a rename in ``path`` durable, where the platform allows it."""
     try:
         fd = os.open(path, os.O_RDONLY)
