@@ -31,7 +31,7 @@ import json
 import math
 from collections import Counter
 from dataclasses import dataclass, field
-from pathlib import Path, PurePosixPath
+from pathlib import Path
 
 import numpy as np
 import orjson
@@ -43,6 +43,9 @@ from synthgen.formats import rle
 from synthgen.formats import tokens as tokens_fmt
 from synthgen.formats import voc as voc_fmt
 from synthgen.formats import yolo as yolo_fmt
+from synthgen.formats._common import inside_dataset as _inside
+from synthgen.formats._common import is_int as _is_int
+from synthgen.formats._common import is_number as _is_num
 from synthgen.formats.coco import structure_problems
 
 __all__ = ["Problem", "CheckReport", "check_dataset"]
@@ -74,10 +77,12 @@ class Problem:
     value: object = None
 
     def __str__(self) -> str:
+        where = f"{self.file}: {self.record}" if self.record else self.file
+        if self.value is None:  # the rule says it all (a file that cannot be read, say)
+            return f"{where}: {self.rule}"
         shown = repr(self.value)
         if len(shown) > 80:
             shown = shown[:77] + "..."
-        where = f"{self.file}: {self.record}" if self.record else self.file
         return f"{where}: {self.rule} (got {shown})"
 
 
@@ -267,9 +272,11 @@ class _Checker:
                         rle.decode(seg)
                     except (ValueError, TypeError) as e:
                         self.add(path, record, "RLE segmentation must decode", str(e))
-        if reference:
-            self.ref_names = [c.get("name") for c in sorted(cats, key=lambda c: _sort_key(c.get("id")))]
-            self.ref_objects = {}
+        if reference:  # several reference files (splits without a whole-dataset file) add up
+            if self.ref_names is None:
+                self.ref_names = [c.get("name") for c in sorted(cats, key=lambda c: _sort_key(c.get("id")))]
+            if self.ref_objects is None:
+                self.ref_objects = {}
             for im in images:
                 fn = im.get("file_name")
                 if isinstance(fn, str) and im.get("id") in size_of:
@@ -277,7 +284,10 @@ class _Checker:
                     self.ref_objects[stem] = per_image[im["id"]]
                     self.ref_sizes[stem] = size_of[im["id"]]
                     self.ref_ids[im["id"]] = stem
-            self.counts["coco"] = {"files": 1, "images": len(images), "objects": len(anns)}
+            total = self.counts.setdefault("coco", {"files": 0, "images": 0, "objects": 0})
+            total["files"] += 1
+            total["images"] += len(images)
+            total["objects"] += len(anns)
         return coco
 
     def _unique_positive(self, path: Path, kind: str, records: list[dict]) -> None:
@@ -303,9 +313,12 @@ class _Checker:
     def coco_splits(self, main: dict | None, parts: dict[str, dict]) -> None:
         main_ids = {im.get("id"): im.get("file_name") for im in main["images"]} if main else None
         owner: dict[object, str] = {}
+        first_name, (_, first) = next(iter(parts.items()))
         for name, (path, coco) in parts.items():
             if main is not None and coco["categories"] != main["categories"]:
                 self.add(path, "categories", "must be the categories of annotations.json", coco["categories"])
+            elif main is None and coco["categories"] != first["categories"]:
+                self.add(path, "categories", f"must be the categories of {first_name}", coco["categories"])
             for i, im in enumerate(coco["images"]):
                 key = im.get("file_name")
                 if key in owner:
@@ -526,19 +539,6 @@ class _Checker:
         self.counts["masks"] = {"files": 1, "images": len(lines), "objects": n_obj}
 
 
-def _is_int(v) -> bool:
-    return isinstance(v, int) and not isinstance(v, bool)
-
-
-def _is_num(v) -> bool:
-    return isinstance(v, (int, float)) and not isinstance(v, bool)
-
-
-def _inside(file_name: str) -> bool:
-    p = PurePosixPath(file_name.replace("\\", "/"))
-    return not p.is_absolute() and ".." not in p.parts
-
-
 def _sort_key(v):
     return (0, v) if _is_int(v) else (1, 0)
 
@@ -583,14 +583,16 @@ def check_dataset(path, *, decode_images: bool = True) -> CheckReport:
     formats: list[str] = []
     if coco_files:
         formats.append("coco")
-        main_path = coco_files[0]
-        main = ck.coco(main_path, reference=True)
+        # The whole-dataset file is the reference for the other formats; without
+        # one (only split files, or annotations/*.json), all the files together are.
+        whole = coco_files[0].name == "annotations.json"
+        main = ck.coco(coco_files[0], reference=True) if whole else None
         parts = {}
-        for p in coco_files[1:]:
-            c = ck.coco(p, reference=False)
-            if c is not None and p.name.startswith("annotations.") and main_path.name == "annotations.json":
+        for p in coco_files[1:] if whole else coco_files:
+            c = ck.coco(p, reference=not whole)
+            if c is not None and (p.name.startswith("annotations.") or not whole):
                 parts[p.name] = (p, c)
-        if parts:
+        if parts and (main is not None or len(parts) > 1):
             ck.coco_splits(main, parts)
     voc_dir = next((root / n for n in ("voc", "Annotations") if (root / n).is_dir()), None)
     if voc_dir is not None:

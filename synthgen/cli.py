@@ -127,6 +127,16 @@ SplitOpt = Annotated[
 ]
 
 
+def _overrides(set_: list[str] | None, count: int | None, seed: int | None) -> list[str]:
+    """--set values, then --count and --seed as the overrides they stand for."""
+    overrides = list(set_ or [])
+    if count is not None:
+        overrides.append(f"count={count}")
+    if seed is not None:
+        overrides.append(f"seed={seed}")
+    return overrides
+
+
 def _formats_and_split(formats: str, split: str | None):
     from synthgen.formats import parse_formats, parse_split
 
@@ -170,11 +180,7 @@ def make(
     from synthgen.dataset import make_dataset
     from synthgen.shards import OutputWriteError, parse_shard
 
-    overrides = list(set_ or [])
-    if count is not None:
-        overrides.append(f"count={count}")
-    if seed is not None:
-        overrides.append(f"seed={seed}")
+    overrides = _overrides(set_, count, seed)
     cfg = load_config(config, overrides)
     format_names, fractions = _formats_and_split(formats, split)
     part = parse_shard(shard) if shard is not None else None
@@ -198,6 +204,13 @@ def make(
         f"in {summary.seconds:.2f} s ({summary.images_per_second:.1f} images/s)"
     )
     _warn_shortfall(cfg, summary.dropped)
+    if summary.objects == 0 and summary.images and cfg.objects.count[1] > 0:
+        lost = ", ".join(f"{k} {v}" for k, v in summary.dropped.items() if v) or "none"
+        typer.echo(
+            f"synthgen: warning: no object passed the annotation rules (objects.min_visible, "
+            f"objects.min_area); dropped: {lost}",
+            err=True,
+        )
 
 
 def _warn_shortfall(cfg, dropped: dict, where: str = "") -> None:
@@ -373,11 +386,14 @@ def score(
     from rich.console import Console
 
     from synthgen import report_score as rep
+    from synthgen.formats.coco import write_bytes_atomic
     from synthgen.score import score_files, score_sweep
 
     if (predictions is None) == (pred_dir is None):
         raise UserError("give either a PREDICTIONS file or --pred-dir DIR for a sweep (got "
                         + ("both" if predictions is not None else "neither") + ")")
+    _check_output_file("--json", json_out)
+    _check_output_file("--plot", plot)
     if pred_dir is not None:
         points = score_sweep(dataset, pred_dir, by or ())
         console = Console()
@@ -385,19 +401,29 @@ def score(
         for p in points:
             for fact, bins in p.slices.items():
                 console.print(rep.slice_table(f"{fact}, {p.label or p.subset}", bins))
-        if json_out is not None:
-            json_out.write_bytes(orjson.dumps({"sweep": [p.to_dict() for p in points]}, option=orjson.OPT_INDENT_2))
-        if plot is not None:
+        if plot is not None:  # the figure first: a figure that cannot be drawn leaves no JSON behind
             rep.plot_sweep(points, plot)
+        if json_out is not None:
+            write_bytes_atomic(json_out, orjson.dumps({"sweep": [p.to_dict() for p in points]}, option=orjson.OPT_INDENT_2))
         return
     if plot is not None and not by:
         raise UserError("option '--plot' needs at least one --by FACT to plot")
     evaluation, slices = score_files(dataset, predictions, by or ())
     rep.print_report(evaluation, slices)
-    if json_out is not None:
-        json_out.write_bytes(orjson.dumps(evaluation.to_dict(slices), option=orjson.OPT_INDENT_2))
     if plot is not None:
         rep.plot_slices(slices, plot, title=f"{predictions.name} on {dataset.name}")
+    if json_out is not None:
+        write_bytes_atomic(json_out, orjson.dumps(evaluation.to_dict(slices), option=orjson.OPT_INDENT_2))
+
+
+def _check_output_file(option: str, path: Path | None) -> None:
+    """Refuse an output file path whose folder is missing or that names a folder, before any work."""
+    if path is None:
+        return
+    if path.is_dir():
+        raise UserError(f"option '{option}' must name a file, not a directory (got '{path}')")
+    if not path.parent.is_dir():
+        raise UserError(f"option '{option}' names a file in a folder that does not exist (got '{path}')")
 
 
 @app.command()
@@ -488,11 +514,7 @@ def sweep(
     """Render one dataset per combination of varied config values, under DIR/<key>=<value>/."""
     from synthgen.sweep import parse_vary, plan_sweep, run_sweep
 
-    overrides = list(set_ or [])
-    if count is not None:
-        overrides.append(f"count={count}")
-    if seed is not None:
-        overrides.append(f"seed={seed}")
+    overrides = _overrides(set_, count, seed)
     varies = [parse_vary(v) for v in vary]
     plan = plan_sweep(config, varies, overrides)
     total = sum(cfg.count for _, _, cfg in plan)

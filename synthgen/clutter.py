@@ -153,9 +153,9 @@ def render_clutter(
     """
     counts = {k: 0 for k in MARK_KINDS}
     n = int(rng.integers(spec.count[0], spec.count[1] + 1))
+    image = np.array(canvas, dtype=np.uint8, copy=True)  # a copy even with no marks, as documented
     if n == 0:
-        return canvas, {"marks": 0, **counts}
-    image = np.array(canvas, dtype=np.uint8, copy=True)
+        return image, {"marks": 0, **counts}
     lo, hi = spec.size
     is_similar = rng.random(size=n) < spec.similar
     which = rng.integers(0, len(spec.marks), size=n)

@@ -45,7 +45,8 @@ class ConfigError(UserError, ValueError):
         self.rule = rule
         self.value = value
         shown = _show(value)
-        msg = f"config key '{key}' {rule} (got {shown})"
+        what = "option" if key.startswith("-") else "config key"  # e.g. '--set', '--formats'
+        msg = f"{what} '{key}' {rule} (got {shown})"
         if hint:
             msg += f"; {hint}"
         super().__init__(msg)

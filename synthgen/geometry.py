@@ -110,10 +110,22 @@ def box_intersection(a, b) -> np.ndarray:
     """
     a = as_boxes(a)
     b = as_boxes(b)
-    lt = np.maximum(a[:, None, :2], b[None, :, :2])  # (N, M, 2)
-    rb = np.minimum(a[:, None, 2:], b[None, :, 2:])  # (N, M, 2)
-    wh = np.clip(rb - lt, 0, None)  # (N, M, 2)
+    return _overlap(a[:, None, :], b[None, :, :])  # (N, M)
+
+
+def _overlap(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """Intersection areas of box arrays ``(..., 4)`` that broadcast against each other."""
+    lt = np.maximum(a[..., :2], b[..., :2])  # (..., 2)
+    rb = np.minimum(a[..., 2:], b[..., 2:])  # (..., 2)
+    wh = np.clip(rb - lt, 0, None)  # (..., 2)
     return wh[..., 0] * wh[..., 1]
+
+
+def _ratio(inter: np.ndarray, union: np.ndarray) -> np.ndarray:
+    """``inter / union``, 0 where the union is empty."""
+    out = np.zeros_like(inter)
+    np.divide(inter, union, out=out, where=union > 0)
+    return out
 
 
 def pairwise_iou(a, b) -> np.ndarray:
@@ -140,9 +152,7 @@ def pairwise_iou(a, b) -> np.ndarray:
     b = as_boxes(b)
     inter = box_intersection(a, b)  # (N, M)
     union = box_area(a)[:, None] + box_area(b)[None, :] - inter  # (N, M)
-    out = np.zeros_like(inter)
-    np.divide(inter, union, out=out, where=union > 0)
-    return out
+    return _ratio(inter, union)
 
 
 def box_iou(a, b) -> np.ndarray:
@@ -160,14 +170,8 @@ def box_iou(a, b) -> np.ndarray:
     b = as_boxes(b)
     if a.shape != b.shape:
         raise ValueError(f"box arrays must have equal shapes (got {a.shape} and {b.shape})")
-    lt = np.maximum(a[:, :2], b[:, :2])  # (N, 2)
-    rb = np.minimum(a[:, 2:], b[:, 2:])  # (N, 2)
-    wh = np.clip(rb - lt, 0, None)
-    inter = wh[:, 0] * wh[:, 1]
-    union = box_area(a) + box_area(b) - inter
-    out = np.zeros_like(inter)
-    np.divide(inter, union, out=out, where=union > 0)
-    return out
+    inter = _overlap(a, b)  # (N,)
+    return _ratio(inter, box_area(a) + box_area(b) - inter)
 
 
 def clip_boxes(boxes, width: float, height: float) -> np.ndarray:

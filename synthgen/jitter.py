@@ -61,6 +61,7 @@ __all__ = [
     "NOISE_STREAM",
     "noise_padder",
     "IOU_TOLERANCE",
+    "MAX_BACKGROUND",
     "ERROR_MODES",
     "DETECTION_KINDS",
     "OUTCOMES",
@@ -99,6 +100,11 @@ DETECTION_KINDS = ("true_positive", "duplicate", "localization", "wrong_class", 
 
 #: What happened to a ground-truth box in a simulated detector (see :class:`Detections`).
 OUTCOMES = ("detected", "missed", "mislocated", "wrong_class")
+
+#: Largest mean number of background boxes per image a :class:`DetectorSpec`
+#: accepts: far beyond any detector's output (maxDets is 100), small enough that
+#: the boxes of a few thousand images fit in memory.
+MAX_BACKGROUND = 10_000
 
 _ROUNDS = 64  # redraws for rejection sampling before giving up
 
@@ -1224,7 +1230,8 @@ class DetectorSpec:
     duplicate_iou : (lo, hi)
         IoU range of a duplicate with its source.
     background : float
-        Mean number of background boxes per image (Poisson).
+        Mean number of background boxes per image (Poisson), at most
+        :data:`MAX_BACKGROUND`.
     background_iou : float
         Background boxes have IoU below this with every true box, in (0, 1].
     background_size : (lo, hi)
@@ -1259,6 +1266,8 @@ class DetectorSpec:
         for key in ("iou", "near_iou", "duplicate_iou", "background_size"):
             check_range(f"jitter.{key}", getattr(self, key), lo=0, lo_open=True, hi=1)
         check_number("jitter.background", self.background, lo=0)
+        if self.background > MAX_BACKGROUND:
+            raise ConfigError("jitter.background", f"must be at most {MAX_BACKGROUND} boxes per image", self.background)
         check_number("jitter.background_iou", self.background_iou, lo=0, lo_open=True, hi=1)
         if not isinstance(self.modes, tuple) or not self.modes:
             raise ConfigError("jitter.modes", "must be a non-empty list of " + ", ".join(ERROR_MODES), self.modes)

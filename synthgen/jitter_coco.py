@@ -52,6 +52,7 @@ import numpy as np
 import orjson
 
 from synthgen.errors import InputFileError, UserError, check_number
+from synthgen.formats._common import bad_record as _problem
 from synthgen.formats.coco import bbox_from_xyxy, read_coco, structure_problems, write_bytes_atomic, xyxy_from_bbox
 from synthgen.jitter import DETECTION_KINDS, OUTCOMES, DetectorSpec, simulate_detections
 
@@ -64,12 +65,6 @@ JITTER_STREAM = 0x6A697474
 
 # Boxes may overshoot their image by float rounding of x + w; beyond this (px) they are an error.
 _EDGE_SLACK = 1e-6
-
-
-def _problem(source: str, record: str, rule: str, value) -> InputFileError:
-    text = repr(value)
-    text = text if len(text) <= 60 else text[:57] + "..."
-    return InputFileError(source, f"{record}: {rule} (got {text})")
 
 
 def _parse(coco, source: str, keep_inside: bool):

@@ -10,7 +10,7 @@ import math
 from collections.abc import Mapping, Sequence
 from pathlib import Path
 
-from synthgen.errors import UserError
+from synthgen.errors import InputFileError, UserError
 from synthgen.score import STAT_NAMES, BinResult, Evaluation, SweepPoint
 
 __all__ = [
@@ -75,6 +75,17 @@ def _new_figure(n_panels: int):
     return fig, axes
 
 
+def _save(fig, path) -> None:
+    """Write ``fig`` as a PNG; a path that cannot be written is the user's mistake."""
+    path = Path(path)
+    if path.is_dir():
+        raise InputFileError(path, "cannot be written: it is a directory")
+    try:
+        fig.savefig(path, dpi=_DPI, format="png")
+    except OSError as e:
+        raise InputFileError(path, f"cannot be written ({e.strerror or e})") from None
+
+
 def _nan(v) -> float:
     return math.nan if v is None else float(v)
 
@@ -122,7 +133,7 @@ def plot_slices(slices: Mapping[str, Sequence[BinResult]], path, *, title: str |
     axes[0].legend(fontsize=8, loc="best")
     if title:
         fig.suptitle(title)
-    fig.savefig(Path(path), dpi=_DPI, format="png")
+    _save(fig, path)
     return figure_size_px(len(facts))
 
 
@@ -164,7 +175,7 @@ def plot_sweep(points: Sequence[SweepPoint], path) -> tuple[int, int]:
     ax.set_title("across the sweep")
     ax.grid(True, alpha=0.3)
     ax.legend(fontsize=8)
-    fig.savefig(Path(path), dpi=_DPI, format="png")
+    _save(fig, path)
     return figure_size_px(1)
 
 

@@ -59,6 +59,8 @@ from pathlib import Path
 import numpy as np
 
 from synthgen.errors import InputFileError, UserError
+from synthgen.formats._common import read_input
+from synthgen.formats.coco import xyxy_from_bbox
 from synthgen.geometry import box_iou
 
 __all__ = [
@@ -841,7 +843,7 @@ class Evaluation:
         q_gt = g_order[np.repeat(lo, cnt) + np.arange(len(q_det)) - np.repeat(np.cumsum(cnt) - cnt, cnt)]
         keep = (t.cat[q_gt] != pb.cat[q_det]) & ~t.crowd[q_gt]
         q_det, q_gt = q_det[keep], q_gt[keep]
-        iou = box_iou(_xyxy(pb.box)[q_det], _xyxy(t.box)[q_gt])
+        iou = box_iou(xyxy_from_bbox(pb.box)[q_det], xyxy_from_bbox(t.box)[q_gt])
         ok = iou >= 0.5
         q_det, q_gt, iou = q_det[ok], q_gt[ok], iou[ok]
         # Best IoU per detection (the first in file order among equals).
@@ -869,6 +871,8 @@ class Evaluation:
         categorical : bool
         """
         recs = self._truth.records
+        if not recs:  # no objects (an empty subset of a sweep, say): no fact can be missing
+            return np.zeros(0, dtype=np.float64), False
         if fact == "area":
             raw = [r["area"] for r in recs]
         else:
@@ -923,6 +927,8 @@ class Evaluation:
             det_out = np.zeros((len(levels), len(pb.rec)), dtype=bool)
         else:
             e = self._edges(fact, values, edges)
+            if len(e) < 2:  # a fact without default edges, on no objects
+                return []
             bins = [(_bin_label(e, i), float(e[i]), float(e[i + 1]), None) for i in range(len(e) - 1)]
             in_bin = _bin_masks(values, e)
             if fact in BOX_FACTS:
@@ -982,6 +988,8 @@ class Evaluation:
             finite = values[np.isfinite(values)]
             if fact in GEOMETRIC_BASE:
                 return _geometric_edges(finite, GEOMETRIC_BASE[fact])
+            if finite.size == 0:
+                return np.zeros(0, dtype=np.float64)  # no values, no bins
             e = np.unique(np.quantile(finite, np.linspace(0, 1, 6)))
             return e if len(e) >= 2 else np.array([e[0], e[0]], dtype=np.float64)
         e = np.asarray(list(edges), dtype=np.float64)
@@ -1017,10 +1025,6 @@ class Evaluation:
         if slices:
             out["slices"] = {fact: [b.to_dict() for b in bins] for fact, bins in slices.items()}
         return out
-
-
-def _xyxy(b: np.ndarray) -> np.ndarray:
-    return np.concatenate([b[:, :2], b[:, :2] + b[:, 2:]], axis=1)
 
 
 def _geometric_edges(values: np.ndarray, base: float) -> np.ndarray:
@@ -1117,10 +1121,7 @@ def evaluate(
 def _read_json(path: Path):
     import orjson
 
-    try:
-        data = path.read_bytes()
-    except OSError as exc:
-        raise InputFileError(path, f"cannot be read ({exc.strerror or exc})") from None
+    data = read_input(path)
     try:
         return orjson.loads(data)
     except orjson.JSONDecodeError as exc:

@@ -43,6 +43,7 @@ import numpy as np
 import orjson
 
 from synthgen.errors import InputFileError, UserError
+from synthgen.formats._common import fsync_dir as _fsync_dir
 from synthgen.formats._common import temp_beside
 
 __all__ = [
@@ -393,19 +394,6 @@ class AtomicWriter:
             if os.path.exists(self._tmp):
                 os.unlink(self._tmp)
         return False
-
-
-def _fsync_dir(path: Path) -> None:
-    try:
-        fd = os.open(path, os.O_RDONLY)
-    except OSError:
-        return
-    try:
-        os.fsync(fd)
-    except OSError:
-        pass
-    finally:
-        os.close(fd)
 
 
 def write_coco_streamed(path: Path, store: RecordStore, indices, *, info: dict, categories: list[dict]):

@@ -111,13 +111,15 @@ def value_label(value) -> str:
 
     Examples
     --------
-    >>> value_label([1, 4.5]), value_label(True), value_label("a/b")
-    ('[1,4.5]', 'true', 'a_b')
+    >>> value_label([1, 4.5]), value_label(True), value_label("a/b"), value_label({"kind": "noise"})
+    ('[1,4.5]', 'true', 'a_b', '{kind=noise}')
     """
     if isinstance(value, bool):
         return "true" if value else "false"
     if isinstance(value, list):
         return "[" + ",".join(value_label(v) for v in value) + "]"
+    if isinstance(value, dict):
+        return "{" + ",".join(f"{value_label(k)}={value_label(v)}" for k, v in value.items()) + "}"
     if isinstance(value, str):
         return value.replace("/", "_").replace("\\", "_") or "_"
     return repr(value)
@@ -130,6 +132,8 @@ def _toml_text(value) -> str:
         return '"' + value.replace("\\", "\\\\").replace('"', '\\"') + '"'
     if isinstance(value, list):
         return "[" + ", ".join(_toml_text(v) for v in value) + "]"
+    if isinstance(value, dict):  # an inline table, e.g. --vary "background={kind='noise'},{kind='checker'}"
+        return "{" + ", ".join(f"{_toml_text(k)} = {_toml_text(v)}" for k, v in value.items()) + "}"
     return repr(value)
 
 

@@ -257,16 +257,25 @@ def box_pairs(iou: tuple[float, float] = (0.05, 1.0), canvas: tuple[float, float
         limit = side[axis] * (1.0 + t) / 2.0
         w = draw(st.floats(min_size, max(min_size, min(limit, width) / 2.0)))
         h = draw(st.floats(min_size, max(min_size, min(limit, height) / 2.0)))
-        length = (w, h)[axis]
-        d = length * (1.0 - t) / (1.0 + t)
-        room_x = width - w - (d if axis == 0 else 0.0)
-        room_y = height - h - (d if axis == 1 else 0.0)
-        x0 = draw(st.floats(0.0, 1.0)) * max(room_x, 0.0)
-        y0 = draw(st.floats(0.0, 1.0)) * max(room_y, 0.0)
-        a = np.array([x0, y0, x0 + w, y0 + h])
-        return a, pair_at_iou(a, t, axis=axis), t
+        # positions below 1e-300 px trip polygon references (GEOS mis-measures them): use 0 there
+        unit = st.floats(0.0, 1.0).map(lambda v: 0.0 if v < 1e-300 else v)
+        ux, uy = draw(unit), draw(unit)
+        a, b = _placed_pair(t, axis, w, h, ux, uy, width, height)
+        return a, b, t
 
     return pair()
+
+
+def _placed_pair(t, axis, w, h, ux, uy, width, height) -> tuple[np.ndarray, np.ndarray]:
+    """Boxes ``a`` (``w x h`` at fractions ``ux, uy`` of the free room) and its IoU-``t`` shift, inside the canvas."""
+    d = (w, h)[axis] * (1.0 - t) / (1.0 + t)
+    # a margin of 1e-9 of the side keeps x0 + w + d, rounded, inside the canvas
+    room_x = width * (1.0 - 1e-9) - w - (d if axis == 0 else 0.0)
+    room_y = height * (1.0 - 1e-9) - h - (d if axis == 1 else 0.0)
+    x0 = ux * max(room_x, 0.0)
+    y0 = uy * max(room_y, 0.0)
+    a = np.array([x0, y0, x0 + w, y0 + h])
+    return a, pair_at_iou(a, t, axis=axis)
 
 
 def scenes(

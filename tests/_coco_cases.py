@@ -83,10 +83,13 @@ def random_case(rng: np.random.Generator, *, many: bool = False, grid: bool = Fa
     return gt, [preds[i] for i in order]
 
 
-def coco_reference(gt: dict, preds: list, cat_ids=None):
+def coco_reference(gt: dict, preds: list, cat_ids=None, iou_thrs=None):
     """Run pycocotools' COCOeval (bbox) on copies of the inputs; None when it cannot run.
 
-    pycocotools raises on an empty results list (REFERENCE.md: COCO JSON pitfalls).
+    pycocotools raises on an empty results list and ``loadRes`` edits the dicts
+    it is given (REFERENCE.md: COCO JSON pitfalls).  With ``iou_thrs`` other
+    than the standard ones only evaluate and accumulate run (summarize looks
+    up 0.5 and 0.75 among the thresholds).
     """
     from pycocotools.coco import COCO
     from pycocotools.cocoeval import COCOeval
@@ -101,7 +104,10 @@ def coco_reference(gt: dict, preds: list, cat_ids=None):
         ev = COCOeval(coco, dt, "bbox")
         if cat_ids is not None:
             ev.params.catIds = list(cat_ids)
+        if iou_thrs is not None:
+            ev.params.iouThrs = np.asarray(iou_thrs, dtype=float)
         ev.evaluate()
         ev.accumulate()
-        ev.summarize()
+        if iou_thrs is None:
+            ev.summarize()
     return ev

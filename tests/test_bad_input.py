@@ -48,7 +48,7 @@ BAD_MAKE = [
     ("negative seed", ["--seed", "-1"], "config key 'seed' must be a whole number"),
     ("zero samples", ["--set", "render.samples=0"], "config key 'render.samples' must be a whole number in [1, 16]"),
     ("zero octaves", ["--set", "background.octaves=0"], "config key 'background.octaves' must be a whole number in [1, 12]"),
-    ("--set without =", ["--set", "nonsense"], "config key '--set' must look like KEY=VALUE"),
+    ("--set without =", ["--set", "nonsense"], "option '--set' must look like KEY=VALUE"),
     ("--set bad TOML", ["--set", "objects.count=[1,"], "config key 'objects.count' must be given a TOML value"),
     ("--set below a value", ["--set", "seed.x=1"], "config key 'seed' must be a whole number"),
     ("shard K >= N", ["--shard", "3/2"], "option '--shard' must be K/N"),

@@ -286,3 +286,36 @@ def test_file_name_outside_the_dataset(tmp_path):
     _edit_coco(tmp_path, lambda c: c["images"][0].update(file_name="../../etc/passwd"))
     (p,) = _only(check_dataset(tmp_path), "relative path inside the dataset")
     assert p.record == "images[0] (id 1)"
+
+
+def test_split_files_alone_are_the_reference_together(tmp_path):
+    """Without annotations.json, every split file together is what VOC/YOLO/tokens are compared with."""
+    make_dataset(tmp_path)
+    export(tmp_path, ["voc", "yolo", "tokens"], split={"train": 2 / 3, "val": 1 / 3}, seed=1)
+    (tmp_path / "annotations.json").unlink()
+    report = check_dataset(tmp_path)
+    assert report.problems == ()
+    assert report.counts["coco"] == {"files": 2, "images": 3, "objects": 5}
+
+
+def test_split_files_alone_must_not_share_images(tmp_path):
+    """Without annotations.json, an image in two split files is still reported."""
+    make_dataset(tmp_path)
+    export(tmp_path, [], split={"train": 2 / 3, "val": 1 / 3}, seed=1)
+    (tmp_path / "annotations.json").unlink()
+    train = orjson.loads((tmp_path / "annotations.train.json").read_bytes())
+    val_path = tmp_path / "annotations.val.json"
+    val = orjson.loads(val_path.read_bytes())
+    val["images"].append(train["images"][0])
+    val_path.write_bytes(orjson.dumps(val))
+    (p,) = _only(check_dataset(tmp_path), "one split only")
+    assert p.file == "annotations.val.json"
+
+
+def test_unreadable_yolo_file_is_one_line_without_a_value(tmp_path):
+    """A YOLO file that is not UTF-8 is reported as unreadable, with no '(got None)' tail."""
+    make_dataset(tmp_path)
+    export(tmp_path, ["yolo"])
+    (tmp_path / "yolo" / "000001.txt").write_bytes(b"\xff\xfe0 0.5 0.5 0.1 0.1\n")
+    (p,) = _only(check_dataset(tmp_path), "cannot be read as UTF-8")
+    assert str(p) == "yolo/000001.txt: cannot be read as UTF-8 text (invalid start byte at byte 0)"

@@ -33,7 +33,7 @@ def test_make_on_defaults_writes_a_dataset(tmp_path):
         (["--set", "objects.sizes=[1,2]"], "config key 'objects.sizes' is not a known key"),
         (["--set", "canvas.width=-3"], "config key 'canvas.width' must be a whole number in [1, 16384] (got -3)"),
         (["--set", "objects.size=[9,3]"], "config key 'objects.size' must be [min, max]"),
-        (["--set", "nonsense"], "config key '--set' must look like KEY=VALUE"),
+        (["--set", "nonsense"], "option '--set' must look like KEY=VALUE"),
         (["--count", "0"], "config key 'count' must be a whole number"),
     ],
 )
@@ -87,3 +87,11 @@ def test_parser_errors_are_one_line_too(tmp_path, args, pattern):
     res = subprocess.run([sys.executable, "-m", "synthgen", *args], capture_output=True, text=True, cwd=tmp_path, env=env)
     assert res.returncode == 2
     assert res.stderr.startswith(pattern) and len(res.stderr.strip().splitlines()) == 1
+
+
+def test_a_run_without_objects_says_why(tmp_path):
+    """When every object is dropped, one warning line names the rules and the counts."""
+    res = run("make", "--out", str(tmp_path / "d"), "--count", "2", "--quiet", "--set", "canvas.width=1",
+              "--set", "canvas.height=1", "--set", "objects.size=[0.2,0.2]", "--set", "objects.min_area=1")
+    assert res.exit_code == 0
+    assert "synthgen: warning: no object passed the annotation rules" in res.stderr

@@ -100,8 +100,8 @@ def test_export_writes_formats_from_an_existing_dataset(made, tmp_path):
 @pytest.mark.parametrize(
     "args, pattern",
     [
-        (["--formats", "coco,vok"], "config key '--formats' must be one of"),
-        (["--split", "train=0.9,val=0.2"], "config key '--split' fractions must add up to 1"),
+        (["--formats", "coco,vok"], "option '--formats' must be one of"),
+        (["--split", "train=0.9,val=0.2"], "option '--split' fractions must add up to 1"),
     ],
 )
 def test_bad_formats_or_split_exit_2_and_write_nothing(tmp_path, args, pattern):

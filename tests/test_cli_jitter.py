@@ -68,7 +68,12 @@ def test_jitter_after_make(tmp_path):
     assert made.exit_code == 0, made.output
     res = run("jitter", tmp_path / "d", "--out", tmp_path / "p.json", "--miss", "0.5", "--background", "1")
     assert res.exit_code == 0, res.output
-    assert json.loads(res.stdout)["outcomes"]["missed"] >= 0
+    summary = json.loads(res.stdout)
+    n = len(json.loads((tmp_path / "d" / "annotations.json").read_text())["annotations"])
+    assert n > 0 and summary["ground_truth"] == n
+    # DetectorSpec: exactly floor(rate * N + 0.5) boxes are missed; the sidecar lists them
+    assert summary["outcomes"]["missed"] == int(0.5 * n + 0.5)
+    assert len(json.loads((tmp_path / "p.truth.json").read_text())["missed"]) == int(0.5 * n + 0.5)
 
 
 @pytest.mark.parametrize(
@@ -78,6 +83,7 @@ def test_jitter_after_make(tmp_path):
         (["--relabel", "-0.1"], "option '--relabel' must be a number in [0, 1] (got -0.1)"),
         (["--duplicates", "2"], "option '--duplicates' must be a number in [0, 1] (got 2.0)"),
         (["--background", "-1"], "option '--background' must be a number >= 0 (got -1.0)"),
+        (["--background", "1e9"], "option '--background' must be at most 10000 boxes per image (got 1000000000.0)"),
         (["--iou", "0.9,0.5"], "option '--iou' must be [min, max] with 0 < min <= max <= 1 (got [0.9, 0.5])"),
         (["--iou", "0,0.5"], "option '--iou' must be [min, max] with 0 < min <= max <= 1 (got [0.0, 0.5])"),
         (["--iou", "high"], "option '--iou' must be LO,HI or one number (got 'high')"),

@@ -139,3 +139,22 @@ def test_predictions_and_pred_dir_together_exit_2(small_dataset, tmp_path):
     pred, _ = _predictions(ds, tmp_path)
     assert run("score", ds, pred, "--pred-dir", tmp_path).exit_code == 2
     assert run("score", ds).exit_code == 2
+
+
+def test_output_paths_are_checked_before_scoring(tmp_path):
+    """--json into a missing folder, or --plot naming a folder, exit 2 naming the option; nothing is written."""
+    from synthgen.cli import app
+    from typer.testing import CliRunner
+
+    out = tmp_path / "d"
+    runner = CliRunner()
+    assert runner.invoke(app, ["make", "--out", str(out), "--count", "2", "--quiet", "--set", "canvas.width=48",
+                               "--set", "canvas.height=32"]).exit_code == 0
+    preds = tmp_path / "p.json"
+    assert runner.invoke(app, ["jitter", str(out), "--out", str(preds)]).exit_code == 0
+    res = runner.invoke(app, ["score", str(out), str(preds), "--json", str(tmp_path / "nope" / "s.json")])
+    assert res.exit_code == 2 and "option '--json'" in res.stderr
+    res = runner.invoke(app, ["score", str(out), str(preds), "--by", "size", "--plot", str(tmp_path),
+                              "--json", str(tmp_path / "s.json")])
+    assert res.exit_code == 2 and "option '--plot' must name a file" in res.stderr
+    assert not (tmp_path / "s.json").exists()

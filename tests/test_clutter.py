@@ -78,3 +78,12 @@ def test_manifest_records_clutter(tmp_path):
     assert manifest["config"]["clutter"]["similar"] == 0.25
     coco = json.loads((tmp_path / "d" / "annotations.json").read_text())
     assert [im["synthgen"]["clutter"]["marks"] for im in coco["images"]] == [7, 7]
+
+
+def test_no_marks_still_returns_a_copy():
+    """With zero marks the result is a new array equal to the canvas, so writing to it leaves the input alone."""
+    canvas = np.full((8, 8, 3), 7, np.uint8)
+    out, info = render_clutter(canvas, ClutterSpec(count=(0, 0)), ["star"], rng=np.random.default_rng(0))
+    assert info["marks"] == 0 and np.array_equal(out, canvas)
+    out[0, 0] = 0
+    assert canvas[0, 0].tolist() == [7, 7, 7]

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from pathlib import Path
+
 import pytest
 
 from synthgen.config import Config, load_config, parse_override, to_dict
@@ -96,9 +98,31 @@ def test_invalid_toml_is_refused(tmp_path):
         load_config(path)
 
 
-@pytest.mark.parametrize("name", ["demo.toml", "tiny.toml"])
-def test_shipped_presets_load(name):
-    """Every preset in configs/ is a valid config."""
-    from pathlib import Path
+_PRESETS = sorted((Path(__file__).parent.parent / "configs").glob("*.toml"))
 
-    load_config(Path(__file__).parent.parent / "configs" / name)
+
+def _flat(d: dict, prefix: str = "") -> dict:
+    out = {}
+    for k, v in d.items():
+        out.update(_flat(v, f"{prefix}{k}.") if isinstance(v, dict) else {prefix + k: v})
+    return out
+
+
+def test_configs_directory_holds_the_presets():
+    """The demo, tiny and three sweep presets are shipped (so the check below is not over an empty list)."""
+    assert {"demo.toml", "tiny.toml", "sweep-size.toml", "sweep-overlap.toml", "sweep-crowd.toml"} <= {
+        p.name for p in _PRESETS
+    }
+
+
+@pytest.mark.parametrize("path", _PRESETS, ids=lambda p: p.name)
+def test_shipped_presets_load(path):
+    """Every preset in configs/ is a valid config, and every key it sets is the resolved value."""
+    import tomllib
+
+    given = _flat(tomllib.loads(path.read_text(encoding="utf-8")))
+    resolved = _flat(to_dict(load_config(path)))
+    assert given
+    for key, value in given.items():
+        # RULES.md conventions: a scalar v given for a [min, max] range means [v, v]
+        assert resolved[key] in (value, [value, value], list(value) if isinstance(value, list) else value), key

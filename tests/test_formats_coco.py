@@ -126,15 +126,14 @@ def test_read_missing_file(tmp_path):
         cf.read_coco(tmp_path / "nothere.json")
 
 
-def test_atomic_writes_get_the_usual_permissions(tmp_path):
-    """Files written through the temporary-file path are readable by others, as plain writes are (umask)."""
-    import os
+def _plain_file_mode() -> int:
+    mask = os.umask(0o022)
+    os.umask(mask)
+    return 0o666 & ~mask
 
-    from synthgen.formats.coco import write_bytes_atomic
 
-    old = os.umask(0o022)
-    try:
-        write_bytes_atomic(tmp_path / "a.json", b"{}")
-    finally:
-        os.umask(old)
-    assert (tmp_path / "a.json").stat().st_mode & 0o777 == 0o644
+def test_written_file_has_the_mode_open_would_give(tmp_path):
+    """The atomic write's file is readable by others as a plain write would be (not tempfile's 0600)."""
+    cf.write_coco(tmp_path / "a.json", {"images": [], "annotations": [], "categories": []})
+    # common practice: new files get 0666 less the umask (POSIX open(2) with O_CREAT)
+    assert (tmp_path / "a.json").stat().st_mode & 0o777 == _plain_file_mode()

@@ -74,3 +74,79 @@ def test_export_needs_annotations(tmp_path):
     """A directory without annotations.json is an InputFileError naming the file."""
     with pytest.raises(InputFileError, match="annotations.json: cannot be read"):
         export(tmp_path, ["voc"])
+
+
+def test_exported_files_and_directories_have_plain_modes(tmp_path):
+    """Staged files and directories end with the modes open()/mkdir() give, not tempfile's private ones."""
+    import os
+
+    make_dataset(tmp_path)
+    export(tmp_path, ["voc", "tokens"])
+    mask = os.umask(0o022)
+    os.umask(mask)
+    # common practice: POSIX open(2)/mkdir(2) create with 0666/0777 less the umask
+    assert (tmp_path / "voc").stat().st_mode & 0o777 == 0o777 & ~mask
+    assert (tmp_path / "tokens.jsonl").stat().st_mode & 0o777 == 0o666 & ~mask
+    assert (tmp_path / "tokens.vocab.json").stat().st_mode & 0o777 == 0o666 & ~mask
+
+
+@pytest.mark.parametrize("where", ["annotations.json", "annotations.json/sub"])
+def test_export_into_a_file_is_an_input_error(tmp_path, where):
+    """An output path that is (or lies under) a file raises InputFileError naming it; nothing is written."""
+    make_dataset(tmp_path)
+    before = sorted(p.name for p in tmp_path.iterdir())
+    with pytest.raises(InputFileError, match="cannot be"):
+        export(tmp_path, ["voc"], out=tmp_path / where)
+    assert sorted(p.name for p in tmp_path.iterdir()) == before
+
+
+def test_export_refuses_an_rle_of_the_wrong_size_before_writing(tmp_path):
+    """An RLE segmentation whose size is not its image's names the record; nothing is written."""
+    make_dataset(tmp_path / "d")
+    path = tmp_path / "d" / "annotations.json"
+    coco = orjson.loads(path.read_bytes())
+    coco["annotations"][1]["segmentation"] = {"size": [3, 3], "counts": "abc"}
+    path.write_bytes(orjson.dumps(coco))
+    with pytest.raises(InputFileError, match=r"annotations\[1\] \(id 2\): RLE 'size' must be its image's"):
+        export(tmp_path / "d", ["masks"], out=tmp_path / "o")
+    assert not (tmp_path / "o").exists()
+
+
+def test_png_masks_refuse_more_objects_than_ids_before_writing(tmp_path, monkeypatch):
+    """More objects in one image than a uint16 id PNG numbers is a user error pointing to RLE masks."""
+    from synthgen.errors import UserError
+    from synthgen.formats import masks as masks_fmt
+
+    make_dataset(tmp_path / "d")
+    monkeypatch.setattr(masks_fmt, "MAX_IDS", 1)  # stands in for 65535, so the test stays small
+    with pytest.raises(UserError, match=r"at most 1 objects per image \(got 3 in image id \d+\).*--masks rle"):
+        export(tmp_path / "d", ["masks"], out=tmp_path / "o")
+    assert not (tmp_path / "o").exists()
+    export(tmp_path / "d", ["masks"], out=tmp_path / "o", masks="rle")
+    assert (tmp_path / "o" / "masks.jsonl").is_file()
+
+
+def test_export_refuses_a_file_name_outside_the_dataset_before_writing(tmp_path):
+    """An image file_name climbing out of the dataset names its record; no output directory is made."""
+    make_dataset(tmp_path / "d")
+    path = tmp_path / "d" / "annotations.json"
+    coco = orjson.loads(path.read_bytes())
+    coco["images"][2]["file_name"] = "../elsewhere.png"
+    path.write_bytes(orjson.dumps(coco))
+    with pytest.raises(InputFileError, match=r"images\[2\] \(id 3\): 'file_name' must be a relative path inside"):
+        export(tmp_path / "d", ["voc"], out=tmp_path / "o")
+    assert not (tmp_path / "o").exists()
+
+
+@pytest.mark.parametrize("mode", ["png", "rle"])
+def test_masks_of_annotations_without_segmentation_are_refused_before_writing(tmp_path, mode):
+    """A box-only COCO file (another tool's) cannot give masks: the record is named, nothing is written."""
+    make_dataset(tmp_path / "d")
+    path = tmp_path / "d" / "annotations.json"
+    coco = orjson.loads(path.read_bytes())
+    del coco["annotations"][0]["segmentation"]
+    path.write_bytes(orjson.dumps(coco))
+    with pytest.raises(InputFileError, match=r"annotations\[0\] \(id 1\): must have a 'segmentation'.*got '<missing>'"):
+        export(tmp_path / "d", ["voc", "masks"], out=tmp_path / "o", masks=mode)
+    assert not (tmp_path / "o").exists()
+    export(tmp_path / "d", ["voc"], out=tmp_path / "o")  # formats without masks still work

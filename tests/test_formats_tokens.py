@@ -169,3 +169,29 @@ def test_noise_callable_with_a_padded_result(tmp_path):
     assert line["noise_labels"] == [3, -1]
     assert line["is_noise"].tolist() == [False, False, True, True]
     np.testing.assert_allclose(line["boxes"][2], [2, 1.5, 6, 7.5])  # bin centres: 4 px in x, 3 px in y
+
+
+@pytest.mark.parametrize(
+    ("field", "value", "match"),
+    [
+        ("n_bins", True, r"n_bins: must be a positive whole number \(got True\)"),
+        ("ranges.end", [True, True], r"ranges.end: must be \[first, last\] token ids"),
+        ("tokens", None, r"line 1: tokens must be integers"),
+    ],
+)
+def test_json_true_is_not_a_whole_number(tmp_path, field, value, match):
+    """JSON true where a token count or id belongs is rejected (Python's bool is an int, JSON's is not)."""
+    coco = build_coco([(64, 48, [((2, 2, 9, 9), 1)])])
+    tokens.write_tokens(coco, tmp_path / "t.jsonl", tmp_path / "v.json", n_bins=16, order="raster", seed=0)
+    vocab = orjson.loads((tmp_path / "v.json").read_bytes())
+    if field == "n_bins":
+        vocab["n_bins"] = value
+    elif field == "ranges.end":
+        vocab["ranges"]["end"] = value
+    else:
+        line = orjson.loads((tmp_path / "t.jsonl").read_bytes())
+        line["tokens"][0] = True
+        (tmp_path / "t.jsonl").write_bytes(orjson.dumps(line) + b"\n")
+    (tmp_path / "v.json").write_bytes(orjson.dumps(vocab))
+    with pytest.raises(InputFileError, match=match):
+        tokens.read_tokens(tmp_path / "t.jsonl", tmp_path / "v.json")

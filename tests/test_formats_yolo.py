@@ -74,3 +74,11 @@ def test_reader_names_file_and_line_of_a_bad_value(tmp_path):
     path.write_text("0 0.5 0.5 0.1 0.1\n1 0.5 abc 0.1 0.1\n")
     with pytest.raises(InputFileError, match=r"x\.txt: line 2: xc yc w h must be numbers"):
         yolo.read_yolo(path)
+
+
+def test_reader_rejects_a_file_that_is_not_utf8(tmp_path):
+    """A label file in another encoding raises InputFileError naming the file and the byte."""
+    path = tmp_path / "a.txt"
+    path.write_bytes(b"0 0.5 0.5 0.1 0.1\n\xe9\n")
+    with pytest.raises(InputFileError, match=r"a.txt: cannot be read as UTF-8 text \(invalid .* at byte 18\)"):
+        yolo.read_yolo(path)

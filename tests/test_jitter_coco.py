@@ -2,21 +2,16 @@
 
 from __future__ import annotations
 
-import contextlib
-import copy
-import io
 import os
 
-import numpy as np
 import orjson
 import pytest
 import shapely
-from pycocotools.coco import COCO
-from pycocotools.cocoeval import COCOeval
 
 from synthgen.errors import ConfigError, InputFileError, UserError
 from synthgen.jitter import DETECTION_KINDS, IOU_TOLERANCE, OUTCOMES, DetectorSpec
 from synthgen.jitter_coco import SIDECAR_FORMAT, jitter_dataset, jitter_files, truth_path_for, write_jitter_outputs
+from tests._coco_cases import coco_reference
 
 
 def hand_coco() -> dict:
@@ -49,20 +44,9 @@ def shapely_bbox_iou(a, b) -> float:
     return pa.intersection(pb).area / pa.union(pb).area
 
 
-def evaluate(gt: dict, preds: list[dict], iou_thrs=None) -> COCOeval:
-    """pycocotools bbox evaluation on copies (loadRes edits its input; REFERENCE.md pitfalls)."""
-    with contextlib.redirect_stdout(io.StringIO()):
-        cg = COCO()
-        cg.dataset = copy.deepcopy(gt)
-        cg.createIndex()
-        ev = COCOeval(cg, cg.loadRes(copy.deepcopy(preds)), "bbox")
-        if iou_thrs is not None:
-            ev.params.iouThrs = np.asarray(iou_thrs, float)
-        ev.evaluate()
-        ev.accumulate()
-        if iou_thrs is None:
-            ev.summarize()
-    return ev
+def evaluate(gt: dict, preds: list[dict], iou_thrs=None):
+    """pycocotools bbox evaluation on copies (tests/_coco_cases.py; loadRes edits its input, REFERENCE.md pitfalls)."""
+    return coco_reference(gt, preds, iou_thrs=iou_thrs)
 
 
 def test_zero_rates_give_only_true_positives_in_range():

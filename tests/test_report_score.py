@@ -9,7 +9,7 @@ import pytest
 from PIL import Image
 from rich.console import Console
 
-from synthgen.errors import UserError
+from synthgen.errors import InputFileError, UserError
 from synthgen.report_score import figure_size_px, plot_slices, plot_sweep, print_report
 from synthgen.score import SweepPoint, evaluate
 
@@ -76,3 +76,16 @@ def test_report_prints_every_table():
     text = buf.getvalue()
     for title in ("COCO box metrics", "per category", "object hit", "by kind", "AR_large"):
         assert title in text
+
+
+@pytest.mark.parametrize("where", ["missing/dir/x.png", "."])
+def test_plot_to_an_unwritable_path_is_a_user_error(tmp_path, where):
+    """A figure path in a missing directory, or a directory, raises InputFileError naming it (exit 2)."""
+    ev = _case()
+    target = tmp_path / where
+    with pytest.raises(InputFileError, match=r"cannot be written") as info:
+        plot_slices({"size": ev.slice_by("size")}, target)
+    assert info.value.path == str(target)
+    with pytest.raises(InputFileError, match=r"cannot be written"):
+        plot_sweep([SweepPoint("objects.count=4", {"objects.count": 4}, ev, {})], target)
+    assert sorted(p.name for p in tmp_path.iterdir()) == []

@@ -410,3 +410,17 @@ def test_stats_equal_pycocotools_on_a_synthgen_dataset(small_dataset):
         np.testing.assert_allclose(ours.stats, ref.stats, rtol=0, atol=1e-9)
         for bins in (ours.slice_by("size"), ours.slice_by("kind"), ours.slice_by("visible_fraction")):
             assert sum(b.n_gt for b in bins) == len(gt["annotations"])
+
+
+def test_slices_of_a_dataset_without_objects_are_empty_bins():
+    """With no ground truth at all, default-binned facts give bins of 0 objects (not an error), others none."""
+    gt = {"images": [{"id": 1, "width": 50, "height": 50}], "annotations": [],
+          "categories": [{"id": 1, "name": "disc"}]}
+    ev = evaluate(gt, [{"image_id": 1, "category_id": 1, "bbox": [1, 1, 5, 5], "score": 0.5}])
+    vf = ev.slice_by("visible_fraction")
+    assert [b.n_gt for b in vf] == [0] * 5 and all(math.isnan(b.recall50) for b in vf)
+    assert [(b.lo, b.hi, b.n_gt) for b in ev.slice_by("size", [0, 8, 16])] == [(0.0, 8.0, 0), (8.0, 16.0, 0)]
+    assert ev.slice_by("kind") == [] and ev.slice_by("contrast", None) != []
+    assert ev.slice_by("shininess") == []
+    # pycocotools (REFERENCE.md: COCO-style AP): a category without ground truth scores -1
+    assert ev.stats[0] == -1.0

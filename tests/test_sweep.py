@@ -98,3 +98,14 @@ def test_sweep_progress_counts_images_across_subsets(tmp_path):
               overrides=["count=3", "canvas.height=24", "objects.count=[1,2]"], workers=1,
               progress=lambda done, total: seen.append((done, total)))
     assert seen[-1] == (6, 6) and [d for d, _ in seen] == sorted(d for d, _ in seen)
+
+
+def test_inline_table_values_are_swept_like_set(tmp_path):
+    """A TOML inline table per value (as --set accepts) gives one subset per table."""
+    vary = parse_vary("background={kind='noise'},{kind='checker'}")
+    assert vary.values == ({"kind": "noise"}, {"kind": "checker"})
+    summary = run_sweep(None, [vary], tmp_path / "s", overrides=SMALL, workers=1)
+    assert [r["path"] for r in summary.records] == ["background={kind=noise}", "background={kind=checker}"]
+    for r in summary.records:
+        manifest = json.loads((tmp_path / "s" / r["path"] / "manifest.json").read_text())
+        assert manifest["config"]["background"]["kind"] == r["values"]["background"]["kind"]

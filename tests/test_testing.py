@@ -2,9 +2,6 @@
 
 from __future__ import annotations
 
-import contextlib
-import io
-
 import numpy as np
 import pytest
 from hypothesis import given, settings
@@ -22,6 +19,7 @@ from synthgen.testing import (
     pair_at_iou,
     scenes,
 )
+from tests._coco_cases import coco_reference
 
 pytest_plugins = ["pytester"]
 
@@ -82,18 +80,7 @@ def test_pair_at_iou_formula():
 
 
 def _pycoco_stats(gt, preds):
-    from pycocotools.coco import COCO
-    from pycocotools.cocoeval import COCOeval
-
-    with contextlib.redirect_stdout(io.StringIO()):
-        coco = COCO()
-        coco.dataset = {k: list(v) for k, v in gt.items()}
-        coco.createIndex()
-        ev = COCOeval(coco, coco.loadRes([dict(p) for p in preds]), "bbox")
-        ev.evaluate()
-        ev.accumulate()
-        ev.summarize()
-    return ev.stats
+    return coco_reference(gt, preds).stats  # pycocotools COCOeval (tests/_coco_cases.py)
 
 
 @settings(max_examples=60, deadline=None)
@@ -181,3 +168,17 @@ def test_expected_nms_agrees_with_opencv(b, data):
     xywh = [[float(x0), float(y0), float(x1 - x0), float(y1 - y0)] for x0, y0, x1, y1 in b]
     kept_cv = np.array(cv2.dnn.NMSBoxes(xywh, scores.tolist(), 0.0, threshold)).reshape(-1)
     assert sorted(expected_nms(b, scores, threshold).tolist()) == sorted(kept_cv.tolist())
+
+
+def test_box_pairs_at_the_far_edge_stay_inside_the_canvas():
+    """Pairs pushed against the far edge (all free room used) still fit the canvas after rounding."""
+    from synthgen.testing import _placed_pair
+
+    rng = np.random.default_rng(0)
+    canvas = sbox(0, 0, 200, 150)
+    for _ in range(500):
+        t, axis = rng.uniform(0.2, 0.95), int(rng.integers(2))
+        a, b = _placed_pair(t, axis, rng.uniform(2, 100), rng.uniform(2, 75), 1.0, 1.0, 200.0, 150.0)
+        # shapely: the canvas polygon covers both boxes, and their IoU is the requested one
+        assert canvas.covers(sbox(*a)) and canvas.covers(sbox(*b))
+        assert shapely_iou(a, b) == pytest.approx(t, abs=1e-9)

@@ -22,6 +22,12 @@ __all__ = [
     "sidecar_name",
     "staged_dir",
     "staged_file",
+    "publish_mode",
+    "read_input",
+    "read_input_text",
+    "is_int",
+    "is_number",
+    "inside_dataset",
 ]
 
 
@@ -36,6 +42,23 @@ def bad_record(path, record: str, rule: str, value: object) -> InputFileError:
     err = InputFileError(path, f"{record}: {rule} (got {text})" if record else f"{rule} (got {text})")
     err.record, err.rule, err.value = record, rule, value
     return err
+
+
+def read_input(path) -> bytes:
+    """The bytes of an input file; a missing or unreadable one is an :class:`InputFileError` naming it."""
+    try:
+        return Path(path).read_bytes()
+    except OSError as e:
+        raise InputFileError(path, f"cannot be read ({e.strerror or e})") from None
+
+
+def read_input_text(path) -> str:
+    """An input file as UTF-8 text (see :func:`read_input`); other encodings are an InputFileError too."""
+    raw = read_input(path)
+    try:
+        return raw.decode("utf-8")
+    except UnicodeDecodeError as e:
+        raise InputFileError(path, f"cannot be read as UTF-8 text ({e.reason} at byte {e.start})") from None
 
 
 def annotations_by_image(coco: dict) -> dict[int, list[dict]]:
@@ -54,9 +77,29 @@ def categories_in_order(coco: dict) -> list[dict]:
 def image_index(image: dict, position: int) -> int:
     """0-based image index ``k``: synthgen's own when recorded, else the position."""
     facts = image.get("synthgen")
-    if isinstance(facts, dict) and isinstance(facts.get("index"), int):
+    if isinstance(facts, dict) and is_int(facts.get("index")):
         return facts["index"]
     return position
+
+
+def is_int(v) -> bool:
+    """Whether a parsed JSON value is an integer (``true``/``false`` are not)."""
+    return isinstance(v, int) and not isinstance(v, bool)
+
+
+def is_number(v) -> bool:
+    """Whether a parsed JSON value is a number (``true``/``false`` are not)."""
+    return isinstance(v, (int, float)) and not isinstance(v, bool)
+
+
+def inside_dataset(file_name: str) -> bool:
+    """Whether a ``file_name`` from a file is a relative path that stays inside the dataset.
+
+    >>> inside_dataset("a/000001.png"), inside_dataset("../x.png"), inside_dataset("/etc/x.png")
+    (True, False, False)
+    """
+    p = PurePosixPath(file_name.replace("\\", "/"))
+    return not p.is_absolute() and ".." not in p.parts
 
 
 def sidecar_name(file_name: str, suffix: str) -> str:
@@ -65,10 +108,9 @@ def sidecar_name(file_name: str, suffix: str) -> str:
     >>> sidecar_name("000012.png", ".xml")
     '000012.xml'
     """
-    p = PurePosixPath(file_name.replace("\\", "/"))
-    if p.is_absolute() or ".." in p.parts:
+    if not inside_dataset(file_name):
         raise InputFileError(file_name, "image file_name must be a relative path inside the dataset")
-    return str(p.with_suffix(suffix))
+    return str(PurePosixPath(file_name.replace("\\", "/")).with_suffix(suffix))
 
 
 def pixel_box(ann: dict) -> np.ndarray:
@@ -93,6 +135,23 @@ def pixel_box(ann: dict) -> np.ndarray:
     return np.array([np.floor(x), np.floor(y), np.ceil(x + w), np.ceil(y + h)], dtype=np.float64)
 
 
+def _umask() -> int:
+    mask = os.umask(0o022)  # reading the umask means setting it; put it straight back
+    os.umask(mask)
+    return mask
+
+
+def publish_mode(path: Path, *, directory: bool = False) -> None:
+    """Give a staged temporary file or directory the permissions of a plain one.
+
+    ``tempfile`` creates its files 0600 and directories 0700 (private to the
+    owner); a dataset is meant to be read by others, so before the rename the
+    staged path gets ``0666`` (``0777`` for a directory) less the umask, what
+    ``open()`` or ``mkdir()`` would have given it.
+    """
+    os.chmod(path, (0o777 if directory else 0o666) & ~_umask())
+
+
 @contextlib.contextmanager
 def staged_dir(final: Path) -> Iterator[Path]:
     """Yield a temporary directory beside ``final`` that replaces it on success.
@@ -104,11 +163,9 @@ def staged_dir(final: Path) -> Iterator[Path]:
     final = Path(final)
     final.parent.mkdir(parents=True, exist_ok=True)
     tmp = Path(tempfile.mkdtemp(dir=final.parent, prefix=f".{final.name}.", suffix=".tmp"))
-    mask = os.umask(0)
-    os.umask(mask)
-    tmp.chmod(0o777 & ~mask)  # mkdtemp makes 0700; give the folder the usual permissions
     try:
         yield tmp
+        publish_mode(tmp, directory=True)
         old = None
         if final.exists():
             old = final.parent / f".{final.name}.old-{os.getpid()}"
@@ -122,21 +179,23 @@ def staged_dir(final: Path) -> Iterator[Path]:
 
 
 def temp_beside(final: Path) -> tuple[int, str]:
-    """``mkstemp`` beside ``final``, with the permissions a plain write would give (0666 less the umask).
+    """``mkstemp`` beside ``final``, with the permissions a plain write would give (see :func:`publish_mode`).
 
     Returns the open descriptor and the temporary name; the caller renames it over ``final``.
     """
     final = Path(final)
     fd, name = tempfile.mkstemp(dir=final.parent, prefix=f".{final.name}.", suffix=".tmp")
-    mask = os.umask(0)
-    os.umask(mask)
-    os.fchmod(fd, 0o666 & ~mask)
+    os.fchmod(fd, 0o666 & ~_umask())
     return fd, name
 
 
 @contextlib.contextmanager
 def staged_file(final: Path) -> Iterator[Path]:
-    """Yield a temporary file path beside ``final``, renamed over it on success (fsync'ed)."""
+    """Yield a temporary file path beside ``final``, renamed over it on success.
+
+    The file is fsync'ed before the rename and the directory after it, so a
+    crash leaves either the old file or the whole new one under ``final``.
+    """
     final = Path(final)
     final.parent.mkdir(parents=True, exist_ok=True)
     fd, name = temp_beside(final)
@@ -150,3 +209,18 @@ def staged_file(final: Path) -> Iterator[Path]:
     except BaseException:
         tmp.unlink(missing_ok=True)
         raise
+    fsync_dir(final.parent)
+
+
+def fsync_dir(path: Path) -> None:
+    """Make a rename in ``path`` durable, where the platform allows it."""
+    try:
+        fd = os.open(path, os.O_RDONLY)
+    except OSError:
+        return
+    try:
+        os.fsync(fd)
+    except OSError:
+        pass
+    finally:
+        os.close(fd)

@@ -24,7 +24,6 @@ truncated file under the final name.
 from __future__ import annotations
 
 import math
-import os
 from collections.abc import Iterator
 from pathlib import Path
 
@@ -32,7 +31,9 @@ import numpy as np
 import orjson
 
 from synthgen.errors import InputFileError
-from synthgen.formats._common import temp_beside
+from synthgen.formats._common import is_int as _is_int
+from synthgen.formats._common import is_number as _is_num
+from synthgen.formats._common import read_input, staged_file
 from synthgen.geometry import as_boxes
 
 __all__ = [
@@ -99,33 +100,11 @@ def write_bytes_atomic(path, data: bytes) -> None:
     Parameters
     ----------
     path : str or Path
-        Final file name; its directory must exist.
+        Final file name (its directory is created when missing).
     data : bytes
     """
-    path = Path(path)
-    fd, tmp = temp_beside(path)
-    try:
-        with os.fdopen(fd, "wb") as f:
-            f.write(data)
-            f.flush()
-            os.fsync(f.fileno())
-        os.replace(tmp, path)
-    except BaseException:
-        try:
-            os.unlink(tmp)
-        except FileNotFoundError:
-            pass
-        raise
-    try:  # make the rename itself durable
-        dfd = os.open(path.parent, os.O_RDONLY)
-    except OSError:
-        return
-    try:
-        os.fsync(dfd)
-    except OSError:
-        pass
-    finally:
-        os.close(dfd)
+    with staged_file(Path(path)) as tmp:
+        tmp.write_bytes(data)
 
 
 def write_coco(path, coco: dict, *, indent: bool = False) -> None:
@@ -166,10 +145,7 @@ def read_coco(path) -> dict:
         COCO file; the message names the file, the record and the rule.
     """
     path = Path(path)
-    try:
-        raw = path.read_bytes()
-    except OSError as e:
-        raise InputFileError(path, f"cannot be read ({e.strerror or e})") from None
+    raw = read_input(path)
     try:
         coco = orjson.loads(raw)
     except orjson.JSONDecodeError as e:
@@ -182,14 +158,6 @@ def read_coco(path) -> dict:
 def _show(value: object) -> str:
     text = repr(value)
     return text if len(text) <= 60 else text[:57] + "..."
-
-
-def _is_int(v) -> bool:
-    return isinstance(v, int) and not isinstance(v, bool)
-
-
-def _is_num(v) -> bool:
-    return isinstance(v, (int, float)) and not isinstance(v, bool)
 
 
 def _name(kind: str, i: int, rec) -> str:

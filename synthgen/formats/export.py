@@ -24,12 +24,12 @@ from pathlib import Path
 
 import orjson
 
-from synthgen.errors import ConfigError, InputFileError, check_choice
+from synthgen.errors import ConfigError, InputFileError, UserError, check_choice
 from synthgen.formats import masks as masks_fmt
 from synthgen.formats import tokens as tokens_fmt
 from synthgen.formats import voc as voc_fmt
 from synthgen.formats import yolo as yolo_fmt
-from synthgen.formats._common import sidecar_name, staged_dir, staged_file
+from synthgen.formats._common import bad_record, inside_dataset, sidecar_name, staged_dir, staged_file
 from synthgen.formats.coco import read_coco, write_bytes_atomic, write_coco
 from synthgen.formats.splits import assign_splits, coco_split_name, split_coco
 
@@ -108,8 +108,15 @@ def write_formats(
     check_choice("masks", masks, masks_fmt.MASK_MODES)
     if "tokens" in formats:
         tokens_fmt.check_token_options(n_bins, order)
+    if "masks" in formats and masks == "png":
+        _check_png_ids(coco)
     out = Path(out)
-    out.mkdir(parents=True, exist_ok=True)
+    if out.exists() and not out.is_dir():
+        raise InputFileError(out, "cannot be written: it is a file, not a directory")
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+    except OSError as e:
+        raise InputFileError(out, f"cannot be created ({e.strerror or e})") from None
     images_dir = Path(images_dir) if images_dir is not None else out / "images"
     labels = assign_splits(len(coco["images"]), dict(split), seed=seed) if split else None
     parts = split_coco(coco, labels, names=list(split)) if split else {}
@@ -153,6 +160,44 @@ def write_formats(
         }
         write_bytes_atomic(out / "splits.json", orjson.dumps(doc, option=orjson.OPT_INDENT_2))
     return done
+
+
+def _check_png_ids(coco: dict) -> None:
+    """Refuse, before writing anything, an image with more objects than a uint16 id PNG can number."""
+    counts: dict = {}
+    for a in coco["annotations"]:
+        counts[a["image_id"]] = counts.get(a["image_id"], 0) + 1
+    worst = max(counts.items(), key=lambda kv: kv[1], default=(None, 0))
+    if worst[1] > masks_fmt.MAX_IDS:
+        raise UserError(
+            f"masks as instance-id PNGs hold at most {masks_fmt.MAX_IDS} objects per image "
+            f"(got {worst[1]} in image id {worst[0]}); write them as per-object RLE instead (--masks rle)"
+        )
+
+
+def _check_input(coco: dict, path: Path, formats) -> None:
+    """What the writers rely on and other tools' files may break: image file names inside the
+    dataset, RLE segmentations of their image's size, and (for masks) a segmentation on every
+    annotation.  Checked before anything is written."""
+    for i, im in enumerate(coco["images"]):
+        if not inside_dataset(im["file_name"]):
+            raise bad_record(
+                path, f"images[{i}] (id {im['id']})", "'file_name' must be a relative path inside the dataset",
+                im["file_name"],
+            )
+    size_of = {im["id"]: [im["height"], im["width"]] for im in coco["images"]}
+    for i, a in enumerate(coco["annotations"]):
+        seg = a.get("segmentation")
+        want = size_of.get(a["image_id"])
+        if isinstance(seg, dict) and want is not None and list(seg["size"]) != want:
+            raise bad_record(
+                path, f"annotations[{i}] (id {a['id']})", f"RLE 'size' must be its image's [height, width] {want}", seg["size"]
+            )
+        if "masks" in formats and not (isinstance(seg, dict) or (isinstance(seg, list) and seg)):
+            raise bad_record(
+                path, f"annotations[{i}] (id {a['id']})", "must have a 'segmentation' (polygons or RLE) to write masks",
+                "<missing>" if seg is None else seg,
+            )
 
 
 def _write_list(path: Path, items: list[str]) -> None:
@@ -232,6 +277,7 @@ def export(
     out = Path(out) if out is not None else dataset_dir
     formats = list(formats)
     formats = parse_formats(formats) if formats or not split else ()  # splits alone are fine
+    _check_input(coco, dataset_dir / "annotations.json", formats)
     if out.resolve() == dataset_dir.resolve():
         formats = tuple(f for f in formats if f != "coco")  # already there
     return write_formats(

@@ -28,10 +28,11 @@ from PIL import Image, ImageDraw
 
 from synthgen.errors import InputFileError
 from synthgen.formats import rle
-from synthgen.formats._common import annotations_by_image, bad_record, sidecar_name
+from synthgen.formats._common import annotations_by_image, bad_record, read_input, sidecar_name
 
 __all__ = [
     "MASK_MODES",
+    "MAX_IDS",
     "annotation_mask",
     "instance_id_image",
     "write_instance_pngs",
@@ -41,7 +42,8 @@ __all__ = [
 ]
 
 MASK_MODES = ("png", "rle")
-_MAX_IDS = 65535
+#: Most annotations one instance-id PNG (uint16) can number.
+MAX_IDS = 65535
 
 
 def annotation_mask(ann: dict, height: int, width: int) -> np.ndarray:
@@ -76,8 +78,8 @@ def instance_id_image(annotations: list[dict], height: int, width: int) -> np.nd
     ndarray of uint16, shape (H, W)
         0 background, ``i`` = the ``i``-th annotation (1-based); later ones win.
     """
-    if len(annotations) > _MAX_IDS:
-        raise ValueError(f"an instance-id PNG holds at most {_MAX_IDS} annotations (got {len(annotations)})")
+    if len(annotations) > MAX_IDS:
+        raise ValueError(f"an instance-id PNG holds at most {MAX_IDS} annotations (got {len(annotations)})")
     flat = np.zeros(width * height, dtype=np.uint16)  # column-major, as RLE runs are
     for i, a in enumerate(annotations, start=1):
         seg = a.get("segmentation")
@@ -130,7 +132,7 @@ def read_instance_png(path) -> np.ndarray:
         raise bad_record(path, "", "must be a readable PNG", str(e)) from None
     if arr.ndim != 2:
         raise bad_record(path, "", "must be a single-channel image", arr.shape)
-    if arr.dtype.kind not in "ui" or (arr.size and (arr.min() < 0 or arr.max() > _MAX_IDS)):
+    if arr.dtype.kind not in "ui" or (arr.size and (arr.min() < 0 or arr.max() > MAX_IDS)):
         raise bad_record(path, "", "must hold integer instance ids in [0, 65535]", str(arr.dtype))
     return arr.astype(np.uint16, copy=False)
 
@@ -138,10 +140,7 @@ def read_instance_png(path) -> np.ndarray:
 def read_mask_rles(path) -> list[dict]:
     """Read ``masks.jsonl``: per line the image's fields and ``masks`` decoded to bool (H, W) arrays."""
     path = Path(path)
-    try:
-        raw = path.read_bytes()
-    except OSError as e:
-        raise InputFileError(path, f"cannot be read ({e.strerror or e})") from None
+    raw = read_input(path)
     out = []
     for n, text in enumerate(raw.splitlines(), start=1):
         if not text.strip():

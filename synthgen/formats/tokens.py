@@ -43,8 +43,15 @@ from pathlib import Path
 import numpy as np
 import orjson
 
-from synthgen.errors import InputFileError, check_choice, check_number
-from synthgen.formats._common import annotations_by_image, bad_record, categories_in_order, image_index
+from synthgen.errors import check_choice, check_number
+from synthgen.formats._common import (
+    annotations_by_image,
+    bad_record,
+    categories_in_order,
+    image_index,
+    is_int,
+    read_input,
+)
 from synthgen.geometry import as_boxes, box_area
 
 __all__ = [
@@ -355,10 +362,9 @@ def _noise_objects(value, cat_ids: list[int], image_id) -> tuple[np.ndarray | No
 def read_vocabulary(path) -> dict:
     """Read a token vocabulary file; raises InputFileError when it is malformed."""
     path = Path(path)
+    raw = read_input(path)
     try:
-        vocab = orjson.loads(Path(path).read_bytes())
-    except OSError as e:
-        raise InputFileError(path, f"cannot be read ({e.strerror or e})") from None
+        vocab = orjson.loads(raw)
     except orjson.JSONDecodeError as e:
         raise bad_record(path, f"line {e.lineno}, column {e.colno}", "must be valid JSON", e.msg) from None
     if not isinstance(vocab, dict):
@@ -366,16 +372,16 @@ def read_vocabulary(path) -> dict:
     for key in ("n_bins", "ranges", "classes"):
         if key not in vocab:
             raise bad_record(path, "top level", f"must have '{key}'", None)
-    if not isinstance(vocab["n_bins"], int) or vocab["n_bins"] < 1:
+    if not is_int(vocab["n_bins"]) or vocab["n_bins"] < 1:
         raise bad_record(path, "n_bins", "must be a positive whole number", vocab["n_bins"])
     ranges = vocab["ranges"]
     for key in ("noise", "end"):
         r = ranges.get(key) if isinstance(ranges, dict) else None
-        if not (isinstance(r, list) and len(r) == 2 and all(isinstance(v, int) for v in r)):
+        if not (isinstance(r, list) and len(r) == 2 and all(is_int(v) for v in r)):
             raise bad_record(path, f"ranges.{key}", "must be [first, last] token ids", r)
     classes = vocab["classes"]
     ok = isinstance(classes, list) and all(
-        isinstance(c, dict) and isinstance(c.get("token"), int) and isinstance(c.get("category_id"), int)
+        isinstance(c, dict) and is_int(c.get("token")) and is_int(c.get("category_id"))
         for c in classes
     )
     if not ok:
@@ -409,10 +415,7 @@ def read_tokens(path, vocab_path) -> list[dict]:
     category_of = {c["token"]: c["category_id"] for c in vocab["classes"]}
     noise_token = vocab["ranges"]["noise"][0]
     end_token = vocab["ranges"]["end"][0]
-    try:
-        raw = path.read_bytes()
-    except OSError as e:
-        raise InputFileError(path, f"cannot be read ({e.strerror or e})") from None
+    raw = read_input(path)
     out = []
     for n, text in enumerate(raw.splitlines(), start=1):
         if not text.strip():
@@ -425,10 +428,10 @@ def read_tokens(path, vocab_path) -> list[dict]:
         if not isinstance(line, dict) or not isinstance(line.get("tokens"), list):
             raise bad_record(path, record, "must be an object with a 'tokens' list", type(line).__name__)
         for key in ("width", "height"):
-            if not isinstance(line.get(key), int) or line[key] <= 0:
+            if not is_int(line.get(key)) or line[key] <= 0:
                 raise bad_record(path, record, f"'{key}' must be a positive whole number", line.get(key))
         tokens = line["tokens"]
-        if not all(isinstance(t, int) for t in tokens):
+        if not all(is_int(t) for t in tokens):
             raise bad_record(path, record, "tokens must be integers", tokens[:10])
         if not tokens or tokens[-1] != end_token or (len(tokens) - 1) % 5:
             raise bad_record(path, record, f"must be 5 tokens per object then the end token {end_token}", len(tokens))

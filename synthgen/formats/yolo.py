@@ -22,8 +22,13 @@ from pathlib import Path
 
 import numpy as np
 
-from synthgen.errors import InputFileError
-from synthgen.formats._common import annotations_by_image, bad_record, categories_in_order, sidecar_name
+from synthgen.formats._common import (
+    annotations_by_image,
+    bad_record,
+    categories_in_order,
+    read_input_text,
+    sidecar_name,
+)
 from synthgen.geometry import as_boxes
 
 __all__ = [
@@ -128,10 +133,7 @@ def write_yolo(coco: dict, out_dir) -> int:
 def read_labels(path) -> list[str]:
     """Class names from a ``labels.txt`` (one per line; blank lines at the end ignored)."""
     path = Path(path)
-    try:
-        lines = path.read_text(encoding="utf-8").splitlines()
-    except (OSError, UnicodeDecodeError) as e:
-        raise InputFileError(path, f"cannot be read ({e})") from None
+    lines = read_input_text(path).splitlines()
     while lines and not lines[-1].strip():
         lines.pop()
     return [line.strip() for line in lines]
@@ -159,10 +161,7 @@ def read_yolo(path, width: float | None = None, height: float | None = None) -> 
         the message names the file and the line.
     """
     path = Path(path)
-    try:
-        text = path.read_text(encoding="utf-8")
-    except (OSError, UnicodeDecodeError) as e:
-        raise InputFileError(path, f"cannot be read ({e})") from None
+    text = read_input_text(path)
     classes, rows = [], []
     for n, line in enumerate(text.splitlines(), start=1):
         parts = line.split()
