@@ -566,8 +566,9 @@ def _draw(canvas: np.ndarray, shapes, styles, extras, config, rng: np.random.Gen
     small shapes are drawn in bulk: shapes are put in levels (a shape's level
     is one more than the highest level of the earlier shapes whose patches it
     meets), the patches of one level never meet, and a level's small patches
-    of one size are read, coloured, blended and written back in one array pass
-    with the same arithmetic as one shape at a time (:func:`_draw_one`).
+    are read, coloured, blended and written back in one pass over their pixels
+    with the same arithmetic as one shape at a time (:func:`_draw_one`,
+    :func:`_draw_level`).
     """
     height, width = canvas.shape[:2]
     samples = config.render.samples
