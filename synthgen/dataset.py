@@ -30,6 +30,7 @@ journal record and regenerates the rest.
 from __future__ import annotations
 
 import contextlib
+import fnmatch
 import hashlib
 import os
 import platform
@@ -414,7 +415,11 @@ def prepare_output(
                 f"{out}: its unfinished run was started with other library versions ({there.get('versions')}), "
                 "so resuming would not reproduce it (pass --overwrite to start again)"
             )
-        foreign = [e for e in entries if e not in OUTPUT_ENTRIES and not e.startswith("shard-")]
+        foreign = [
+            e for e in entries
+            if e not in OUTPUT_ENTRIES and not e.startswith("shard-")
+            and not any(fnmatch.fnmatchcase(e, pattern) for pattern in FORMAT_ENTRIES)
+        ]
         if foreign:
             raise UserError(f"{out}: output directory holds other files ({', '.join(foreign[:3])}); use an empty directory")
         own_journal = journal_path(out, shard).exists() or shard_manifest_path(out, shard).exists()
@@ -703,6 +708,14 @@ def make_dataset(
     try:
         state = prepare_output(out, config, shard, overwrite=overwrite, resume=resume)
         if state == "finished":
+            wanted = {"formats": ["coco", *[f for f in formats if f != "coco"]], "split": dict(split) if split else None}
+            had = read_json(out / "manifest.json", "manifest").get("outputs", {"formats": ["coco"], "split": None})
+            if had != wanted:
+                raise UserError(
+                    f"{out}: this finished dataset was written with formats {','.join(had['formats'])} and split "
+                    f"{had['split']}, not {','.join(wanted['formats'])} and {wanted['split']}; "
+                    "add formats with 'synthgen export', or pass --overwrite to write it again"
+                )
             kept = _repair_finished(config, out)
             if kept is not None:
                 counts = read_json(out / "manifest.json", "manifest")["counts"]

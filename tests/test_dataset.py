@@ -220,3 +220,23 @@ def test_written_files_and_folders_get_the_usual_permissions(tmp_path, small_con
     for path in (d / "annotations.json", d / "manifest.json", next((d / "images").iterdir()), next((d / "voc").iterdir())):
         assert path.stat().st_mode & 0o777 == 0o644, path
     assert (d / "voc").stat().st_mode & 0o777 == 0o755
+
+
+def test_resume_of_a_dataset_with_formats_repairs_them(tmp_path, small_config):
+    """--resume on a finished dataset with VOC files keeps them, and repairs a damaged one."""
+    out = tmp_path / "d"
+    make_dataset(small_config, out, workers=1, formats=("coco", "voc"))
+    before = _tree(out)
+    make_dataset(small_config, out, workers=1, formats=("coco", "voc"), resume=True)
+    assert _tree(out) == before
+    (out / "voc" / "000001.xml").write_text("junk")
+    make_dataset(small_config, out, workers=1, formats=("coco", "voc"), resume=True)
+    assert _tree(out) == before
+
+
+def test_resume_with_other_formats_is_refused(tmp_path, small_config):
+    """Asking a finished dataset's resume for other formats names both and points to export."""
+    out = tmp_path / "d"
+    make_dataset(small_config, out, workers=1, formats=("coco", "voc"))
+    with pytest.raises(UserError, match="written with formats coco,voc .*'synthgen export'"):
+        make_dataset(small_config, out, workers=1, resume=True)
