@@ -441,8 +441,13 @@ class _Band:
             xb, yb = np.broadcast_arrays(np.asarray(x, dtype=np.float64), np.asarray(y, dtype=np.float64))
             xs, ys = xb[near], yb[near]
             d = np.sqrt(self._dist2(xs, ys))
-            ins = self.fill.contains(xs, ys)
-            out[near] = np.where(ins, np.where(d < w, -np.minimum(d, w - d), d - w), d)
+            band = np.where(d < w, -np.minimum(d, w - d), d - w)
+            if isinstance(self.fill, (_Convex, _Union)):
+                # their contains() is exactly bound() <= _TOL (the same edge values), and
+                # f <= 0 here: every near point is inside, no need to test again
+                out[near] = band
+            else:
+                out[near] = np.where(self.fill.contains(xs, ys), band, d)
         return out
 
 
