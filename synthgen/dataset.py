@@ -30,6 +30,8 @@ journal record and regenerates the rest.
 from __future__ import annotations
 
 import contextlib
+import ctypes
+import ctypes.util
 import fnmatch
 import hashlib
 import os
@@ -79,6 +81,7 @@ __all__ = [
     "image_name",
     "render_image_record",
     "render_block",
+    "keep_freed_memory",
     "build_coco",
     "coco_info",
     "categories",
@@ -220,11 +223,42 @@ def journal_line(record: dict, index: int) -> bytes:
     return encode_record(index, record["files"], record["dropped"], record["image"], record["annotations"])
 
 
+#: glibc mallopt parameters (malloc.h): M_TRIM_THRESHOLD, M_MMAP_THRESHOLD.
+_M_TRIM_THRESHOLD, _M_MMAP_THRESHOLD = -1, -3
+_malloc_tuned = False
+
+
+def keep_freed_memory() -> None:
+    """Let glibc's malloc reuse freed memory for the next image (once per process; no-op elsewhere).
+
+    Every image allocates several fresh full-canvas arrays (background planes,
+    canvas, encoder input).  By default glibc serves such blocks with mmap, or
+    gives the freed top of the heap back to the system, so each image pays
+    first-touch page faults again (~570 per 640x480 noise background, about
+    a sixth of the make time).  Blocks up to 32 MiB are taken from the heap
+    instead, and up to 128 MiB of free heap is kept.  Only speed changes: no
+    value depends on where memory comes from.  Affects the whole process.
+    """
+    global _malloc_tuned
+    if _malloc_tuned:
+        return
+    _malloc_tuned = True
+    if platform.system() != "Linux" or platform.libc_ver()[0] != "glibc":
+        return
+    try:
+        libc = ctypes.CDLL(ctypes.util.find_library("c") or "libc.so.6")
+        libc.mallopt(_M_MMAP_THRESHOLD, 32 << 20)  # the largest value glibc accepts on 64-bit
+        libc.mallopt(_M_TRIM_THRESHOLD, 128 << 20)
+    except (OSError, AttributeError):  # no usable libc: keep the defaults
+        pass
+
+
 def render_block(config: Config, indices: Sequence[int], out: str | Path) -> list[bytes]:
     """Render and write images ``indices`` into ``out/images``; return their journal lines.
 
     This is the unit of work of every backend (worker process, Dask task).
     """
+    keep_freed_memory()
     images_dir = Path(out) / "images"
     return [journal_line(render_image_record(config, k, images_dir), k) for k in indices]
 

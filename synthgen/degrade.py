@@ -46,6 +46,7 @@ __all__ = [
     "DegradeSpec",
     "DEGRADE_ORDER",
     "degrade",
+    "degrade_owned",
     "add_noise",
     "gaussian_blur",
     "jpeg_roundtrip",
@@ -524,6 +525,19 @@ def degrade(
     >>> int(out[0, 0, 0]), applied
     (120, {'brightness': {'offset': 20.0}})
     """
+    out, applied = degrade_owned(image, spec, rng=rng)
+    if out is image:
+        out = image.copy()
+    return out, applied
+
+
+def degrade_owned(
+    image: np.ndarray, spec: DegradeSpec, *, rng: np.random.Generator
+) -> tuple[np.ndarray, dict]:
+    """:func:`degrade`, returning ``image`` itself (not a copy) when nothing applied.
+
+    For callers that own ``image`` and drop it afterwards; saves a full-image copy.
+    """
     _check_image(image)
     u = rng.random(2 * len(DEGRADE_ORDER))
     gate = dict(zip(DEGRADE_ORDER, u[: len(DEGRADE_ORDER)]))
@@ -560,6 +574,4 @@ def degrade(
         quality = min(int(lo + math.floor(draw["jpeg"] * (hi - lo + 1))), int(hi))
         out = jpeg_roundtrip(out, quality)
         applied["jpeg"] = {"quality": quality}
-    if out is image:
-        out = image.copy()
     return out, applied

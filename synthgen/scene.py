@@ -44,7 +44,7 @@ from synthgen import layout as layout_mod
 from synthgen import shapes as shapes_mod
 from synthgen.backgrounds import render_background
 from synthgen.clutter import render_clutter
-from synthgen.degrade import degrade
+from synthgen.degrade import degrade_owned
 from synthgen.geometry import box_iou, clip_boxes, mask_box, pairwise_iou
 from synthgen.shapes import (
     KINDS,
@@ -157,8 +157,10 @@ def compose(config, *, rng: np.random.Generator) -> Scene:
         )
     shapes, styles, extras, placement, more = plan_objects(config, rng=obj_rng)
     extra_info.update(more)
-    scene = compose_shapes(canvas, shapes, config, rng=obj_rng, styles=styles, extras=extras)
-    image, deg_info = degrade(scene.image, config.degrade, rng=deg_rng)
+    # The canvas was made for this image alone: draw on it and degrade it without
+    # the defensive copies the public compose_shapes and degrade make (same pixels).
+    scene = _compose_on(_own(canvas), shapes, config, rng=obj_rng, styles=styles, extras=extras)
+    image, deg_info = degrade_owned(scene.image, config.degrade, rng=deg_rng)
     no_room = int(placement.info.get("no_room", 0))
     scene.info["dropped"]["no_room"] = no_room
     info = {"background": bg_info, "degradations": deg_info, **scene.info, **extra_info}
@@ -235,7 +237,18 @@ def compose_shapes(canvas: np.ndarray, shapes, config, *, rng: np.random.Generat
     Scene
         No degradations applied; ``info`` holds ``dropped``.
     """
-    image = np.array(canvas, dtype=np.uint8, copy=True)
+    return _compose_on(np.array(canvas, dtype=np.uint8, copy=True), shapes, config, rng=rng, styles=styles, extras=extras)
+
+
+def _own(canvas: np.ndarray) -> np.ndarray:
+    """``canvas`` itself when it can be drawn on in place as compose_shapes' copy would be, else that copy."""
+    if canvas.dtype == np.uint8 and canvas.flags.c_contiguous and canvas.flags.writeable:
+        return canvas
+    return np.array(canvas, dtype=np.uint8, copy=True)
+
+
+def _compose_on(image: np.ndarray, shapes, config, *, rng: np.random.Generator, styles=None, extras=None) -> Scene:
+    """:func:`compose_shapes` drawing on ``image`` (H, W, 3) uint8 itself, modified in place."""
     if styles is None:
         styles = [dict(_FLAT) for _ in shapes]
     if extras is None:

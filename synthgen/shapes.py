@@ -441,8 +441,13 @@ class _Band:
             xb, yb = np.broadcast_arrays(np.asarray(x, dtype=np.float64), np.asarray(y, dtype=np.float64))
             xs, ys = xb[near], yb[near]
             d = np.sqrt(self._dist2(xs, ys))
-            ins = self.fill.contains(xs, ys)
-            out[near] = np.where(ins, np.where(d < w, -np.minimum(d, w - d), d - w), d)
+            band = np.where(d < w, -np.minimum(d, w - d), d - w)
+            if isinstance(self.fill, (_Convex, _Union)):
+                # their contains() is exactly bound() <= _TOL (the same edge values), and
+                # f <= 0 here: every near point is inside, no need to test again
+                out[near] = band
+            else:
+                out[near] = np.where(self.fill.contains(xs, ys), band, d)
         return out
 
 
@@ -1382,17 +1387,19 @@ def _sparse_contains(region: _Union, cols: np.ndarray, rows: np.ndarray, s: int,
     """
     k = cols.size
     out = np.zeros((s, s, k), dtype=bool)
-    # part by part, each with its own number of edges (a star's kites have 4, its core n)
-    for part in region.parts:
-        _sparse_part(part, cols, rows, s, margin, out)
+    # All parts' pieces in one pass (fewer array calls than part by part): a short
+    # piece is padded with a copy of one of its edges, which gives the same
+    # value again and so cannot change the maximum over the edges.
+    nx, ny, c = region.padded()  # (E, P), C-ordered (cached with the region)
+    _sparse_pieces(nx, ny, c, cols, rows, s, margin, out)
     return out
 
 
-def _sparse_part(part: _Convex, cols: np.ndarray, rows: np.ndarray, s: int, margin: float, out: np.ndarray) -> None:
-    """OR into ``out`` (s, s, K) the samples of the K pixels inside the pieces of ``part`` near them."""
-    nx = np.ascontiguousarray(np.asarray(part.nx).T)  # (E, P), so that gathers stay contiguous
-    ny = np.ascontiguousarray(np.asarray(part.ny).T)
-    c = np.ascontiguousarray(np.asarray(part.c).T)
+def _sparse_pieces(nx, ny, c, cols: np.ndarray, rows: np.ndarray, s: int, margin: float, out: np.ndarray) -> None:
+    """OR into ``out`` (s, s, K) the samples of the K pixels inside the convex pieces near them.
+
+    ``nx``, ``ny``, ``c`` (E, P) are the pieces' half-planes, edge-major, so that gathers stay contiguous.
+    """
     k = cols.size
     offs = _offsets(s)
     fp = ((nx[:, :, None] * (cols + 0.5) - c[:, :, None]) + ny[:, :, None] * (rows + 0.5)).max(axis=0)  # (P, K)
