@@ -32,7 +32,7 @@ from dataclasses import dataclass
 import cv2
 import numpy as np
 
-from synthgen.errors import ConfigError, check_choice, check_number, check_range
+from synthgen.errors import ConfigError, as_tuples, check_choice, check_number, check_range
 
 __all__ = [
     "BACKGROUND_KINDS",
@@ -116,13 +116,7 @@ class BackgroundSpec:
     texture_scale: float = 4.0
 
     def __post_init__(self):
-        for name in (
-            "mix", "brightness", "saturation", "contrast", "radial_reach", "noise_scale",
-            "checker_cell", "stripe_period", "stripe_duty", "stripe_angle", "texture",
-        ):  # fmt: skip
-            value = getattr(self, name)
-            if isinstance(value, list):
-                object.__setattr__(self, name, tuple(value))
+        as_tuples(self)
         check_choice("background.kind", self.kind, BACKGROUND_KINDS)
         if (
             not isinstance(self.mix, tuple)

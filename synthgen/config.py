@@ -25,7 +25,7 @@ from typing import Any
 
 from synthgen.backgrounds import BackgroundSpec
 from synthgen.degrade import DegradeSpec
-from synthgen.errors import ConfigError, InputFileError, check_choice, check_number, check_range
+from synthgen.errors import ConfigError, InputFileError, as_tuples, check_choice, check_number, check_range
 from synthgen.shapes import FILLS, KINDS
 
 __all__ = [
@@ -65,6 +65,7 @@ class CanvasSpec:
     height: int = 480
 
     def __post_init__(self):
+        as_tuples(self)
         check_number("canvas.width", self.width, lo=1, hi=MAX_CANVAS_SIDE, integer=True)
         check_number("canvas.height", self.height, lo=1, hi=MAX_CANVAS_SIDE, integer=True)
 
@@ -111,6 +112,7 @@ class ObjectSpec:
     occlusion_share: float = 1.0  # share of placed objects that get an occluder
 
     def __post_init__(self):
+        as_tuples(self)
         check_range("objects.count", self.count, lo=0, hi=MAX_OBJECTS, integer=True)
         check_range("objects.size", self.size, lo=0, lo_open=True, hi=4 * MAX_CANVAS_SIDE)
         check_choice("objects.size_law", self.size_law, SIZE_LAWS)
@@ -163,6 +165,7 @@ class ClutterSpec:
     marks: tuple[str, ...] = MARKS
 
     def __post_init__(self):
+        as_tuples(self)
         check_range("clutter.count", self.count, lo=0, hi=MAX_OBJECTS, integer=True)
         check_number("clutter.similar", self.similar, lo=0, hi=1)
         check_range("clutter.size", self.size, lo=0, lo_open=True, hi=4 * MAX_CANVAS_SIDE)
@@ -176,6 +179,7 @@ class RenderSpec:
     samples: int = 4
 
     def __post_init__(self):
+        as_tuples(self)
         check_number("render.samples", self.samples, lo=1, hi=16, integer=True)
 
 
@@ -188,6 +192,7 @@ class OutputSpec:
     jpeg_quality: int = 90
 
     def __post_init__(self):
+        as_tuples(self)
         check_choice("output.image_format", self.image_format, IMAGE_FORMATS)
         check_number("output.png_level", self.png_level, lo=0, hi=9, integer=True)
         check_number("output.jpeg_quality", self.jpeg_quality, lo=1, hi=100, integer=True)
@@ -208,6 +213,7 @@ class Config:
     output: OutputSpec = field(default_factory=OutputSpec)
 
     def __post_init__(self):
+        as_tuples(self)
         check_number("seed", self.seed, lo=0, hi=2**63 - 1, integer=True)
         check_number("count", self.count, lo=1, hi=MAX_IMAGES, integer=True)
 

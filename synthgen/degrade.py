@@ -34,7 +34,7 @@ from dataclasses import dataclass, field
 import cv2
 import numpy as np
 
-from synthgen.errors import ConfigError, check_number, check_range
+from synthgen.errors import ConfigError, as_tuples, check_number, check_range
 
 __all__ = [
     "NoiseSpec",
@@ -68,13 +68,6 @@ _NOISE_BANK_SEED = 0x5EED_0A15E
 # --------------------------------------------------------------------------- specs
 
 
-def _tuples(spec, *names):
-    for name in names:
-        value = getattr(spec, name)
-        if isinstance(value, list):
-            object.__setattr__(spec, name, tuple(value))
-
-
 def _check_p(key: str, p) -> None:
     check_number(key, p, lo=0, hi=1)
 
@@ -95,7 +88,7 @@ class NoiseSpec:
     sigma: tuple[float, float] = (2.0, 8.0)
 
     def __post_init__(self):
-        _tuples(self, "sigma")
+        as_tuples(self)
         _check_p("degrade.noise.p", self.p)
         check_range("degrade.noise.sigma", self.sigma, lo=0, hi=128)
 
@@ -116,7 +109,7 @@ class BlurSpec:
     sigma: tuple[float, float] = (0.5, 1.5)
 
     def __post_init__(self):
-        _tuples(self, "sigma")
+        as_tuples(self)
         _check_p("degrade.blur.p", self.p)
         check_range("degrade.blur.sigma", self.sigma, lo=0, hi=32)
 
@@ -137,7 +130,7 @@ class JpegSpec:
     quality: tuple[int, int] = (30, 90)
 
     def __post_init__(self):
-        _tuples(self, "quality")
+        as_tuples(self)
         _check_p("degrade.jpeg.p", self.p)
         check_range("degrade.jpeg.quality", self.quality, lo=1, hi=100, integer=True)
 
@@ -158,7 +151,7 @@ class BrightnessSpec:
     offset: tuple[float, float] = (-40.0, 40.0)
 
     def __post_init__(self):
-        _tuples(self, "offset")
+        as_tuples(self)
         _check_p("degrade.brightness.p", self.p)
         check_range("degrade.brightness.offset", self.offset, lo=-255, hi=255)
 
@@ -180,7 +173,7 @@ class ContrastSpec:
     gain: tuple[float, float] = (0.6, 1.4)
 
     def __post_init__(self):
-        _tuples(self, "gain")
+        as_tuples(self)
         _check_p("degrade.contrast.p", self.p)
         check_range("degrade.contrast.gain", self.gain, lo=0, hi=8)
 
@@ -201,7 +194,7 @@ class VignetteSpec:
     strength: tuple[float, float] = (0.1, 0.5)
 
     def __post_init__(self):
-        _tuples(self, "strength")
+        as_tuples(self)
         _check_p("degrade.vignette.p", self.p)
         check_range("degrade.vignette.strength", self.strength, lo=0, hi=1)
 

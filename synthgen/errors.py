@@ -19,6 +19,7 @@ __all__ = [
     "check_choice",
     "check_number",
     "check_range",
+    "as_tuples",
 ]
 
 
@@ -74,6 +75,27 @@ def _show(value: object) -> str:
 
 def _is_number(v: object) -> bool:
     return isinstance(v, (int, float)) and not isinstance(v, bool)
+
+
+def as_tuples(spec) -> None:
+    """Turn the list-valued fields of a frozen spec into tuples, in place (call first in ``__post_init__``).
+
+    The config loader already gives tuples; specs built directly in Python may
+    be given lists (``ObjectSpec(size=[4, 8])``), and frozen specs should hold
+    only hashable values whatever built them.
+
+    Examples
+    --------
+    >>> from synthgen.config import ObjectSpec
+    >>> ObjectSpec(size=[4, 8]).size
+    (4, 8)
+    """
+    import dataclasses
+
+    for f in dataclasses.fields(spec):
+        value = getattr(spec, f.name)
+        if isinstance(value, list):
+            object.__setattr__(spec, f.name, tuple(value))
 
 
 def check_number(

@@ -1259,8 +1259,9 @@ class DetectorSpec:
     keep_inside: bool = True
 
     def __post_init__(self):
-        from synthgen.errors import check_choice
+        from synthgen.errors import as_tuples, check_choice
 
+        as_tuples(self)
         for key in ("miss", "localization", "duplicates", "relabel", "score_overlap"):
             check_number(f"jitter.{key}", getattr(self, key), lo=0, hi=1)
         for key in ("iou", "near_iou", "duplicate_iou", "background_size"):

@@ -457,7 +457,7 @@ if pytest is not None:
         import json
 
         coco = json.loads((path / "annotations.json").read_text())
-        spec = DetectorSpec(**{k: tuple(v) if isinstance(v, list) else v for k, v in detector.items()})
+        spec = DetectorSpec(**detector)
         predictions, truth, _ = jitter_dataset(coco, seed=opts.get("seed", 0), spec=spec)
         return coco, predictions, truth
 
