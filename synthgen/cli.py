@@ -521,7 +521,7 @@ def sweep(
     bar, advance = _progress(total, quiet, "sweeping")
     with bar:
         summary = run_sweep(
-            config, varies, out, overrides=overrides, overwrite=overwrite, workers=workers,
+            config, varies, out, overrides=overrides, overwrite=overwrite, workers=workers, plan=plan,
             progress=None if advance is None else (lambda done, _total: advance(done)),
         )
     typer.echo(

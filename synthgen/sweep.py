@@ -179,6 +179,7 @@ def run_sweep(
     overwrite: bool = False,
     workers: int | None = None,
     progress: Callable[[int, int], None] | None = None,
+    plan=None,
 ) -> SweepSummary:
     """Write one dataset per combination of varied values, then ``out/sweep.json``.
 
@@ -197,6 +198,8 @@ def run_sweep(
         Processes per dataset (see :func:`synthgen.dataset.make_dataset`).
     progress : callable or None
         Called with (images done, images in all subsets).
+    plan : list or None
+        :func:`plan_sweep` of the same arguments, when the caller has it already.
     """
     import orjson
 
@@ -204,7 +207,8 @@ def run_sweep(
     from synthgen.formats.coco import write_bytes_atomic
 
     start = time.perf_counter()
-    plan = plan_sweep(config_path, varies, overrides)
+    if plan is None:
+        plan = plan_sweep(config_path, varies, overrides)
     out = Path(out)
     if out.exists() and not out.is_dir():
         raise UserError(f"{out}: output path is a file, not a directory")
