@@ -184,8 +184,6 @@ def make(
     cfg = load_config(config, overrides)
     format_names, fractions = _formats_and_split(formats, split)
     part = parse_shard(shard) if shard is not None else None
-    if workers is not None and workers < 1:
-        raise UserError(f"option '--workers' must be a whole number >= 1 (got {workers})")
     total = len(part.indices(cfg.count)) if part is not None else cfg.count
     bar, advance = _progress(total, quiet, "rendering")
     try:
