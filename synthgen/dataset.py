@@ -39,9 +39,8 @@ import platform
 import shutil
 import time
 from collections.abc import Callable, Iterator, Mapping, Sequence
-from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
 from dataclasses import dataclass, field
-from itertools import islice
+from functools import partial
 from pathlib import Path
 
 import numpy as np
@@ -55,6 +54,7 @@ from synthgen.formats.coco import bbox_from_xyxy, read_coco, write_bytes_atomic
 from synthgen.formats.export import parse_formats, write_formats
 from synthgen.formats.splits import check_fractions
 from synthgen.formats.images import EXTENSIONS, encode_image
+from synthgen.pool import run_unordered
 from synthgen.scene import Scene, category_id, render_scene
 from synthgen.shards import (
     RUN_RECORD,
@@ -89,6 +89,7 @@ __all__ = [
     "finish_dataset",
     "prepare_output",
     "usable_cores",
+    "local_processes",
     "OUTPUT_ENTRIES",
 ]
 
@@ -550,64 +551,11 @@ def _write_error(exc: OSError, out: Path) -> OutputWriteError:
 # --------------------------------------------------------------------------- running
 
 
-_WORKER: tuple[Config, str] | None = None
-
-
-def _exit_with(main_pid: int) -> None:
-    """Exit this worker as soon as process ``main_pid`` (the run) is gone, e.g. after a SIGKILL.
-
-    A pool worker holds both ends of its task pipe, so it would otherwise wait
-    for work forever; a daemon thread watches the run's pidfd (or polls the pid).
-    """
-    import select
-    import threading
-
-    def watch():
-        try:
-            fd = os.pidfd_open(main_pid)
-        except (AttributeError, OSError):
-            fd = None
-        if fd is not None:
-            select.select([fd], [], [])
-        else:
-            while True:
-                time.sleep(0.5)
-                try:
-                    os.kill(main_pid, 0)
-                except ProcessLookupError:
-                    break
-                except PermissionError:
-                    pass
-        os._exit(1)
-
-    threading.Thread(target=watch, name="synthgen-watch-run", daemon=True).start()
-
-
-def _set_worker_state(config: Config, out: str, main_pid: int) -> None:
-    global _WORKER
+def _worker_setup() -> None:
+    """Once per worker process: OpenCV on one thread (the workers are the parallelism)."""
     import cv2
 
-    _exit_with(main_pid)
     cv2.setNumThreads(1)
-    _WORKER = (config, out)
-
-
-def _pool_context():
-    """Worker processes forked from a clean server process, not from this one.
-
-    Forking a process that runs threads (OpenCV's pool, a Dask client) can copy a
-    held lock into the child and deadlock it; the fork server has none.
-    """
-    import multiprocessing
-
-    ctx = multiprocessing.get_context("forkserver")
-    ctx.set_forkserver_preload(["synthgen.dataset"])
-    return ctx
-
-
-def _render_block_in_worker(indices: list[int]) -> list[bytes]:
-    config, out = _WORKER
-    return render_block(config, indices, out)
 
 
 def blocks_of(indices: Sequence[int], size: int) -> list[list[int]]:
@@ -620,31 +568,32 @@ def _block_size(n: int, workers: int) -> int:
     return max(1, min(16, n // (workers * 4)))
 
 
+#: A run starts ``min(workers, images // MIN_IMAGES_PER_WORKER)`` worker processes and renders in
+#: its own process when that is below 2.  A worker costs 0.4-0.6 s to start (a fresh interpreter
+#: importing numpy, OpenCV and synthgen); with two workers on two cores giving 1.2-1.8x, they pay off
+#: from roughly 45-130 default 640x480 images (benchmarks/bench_workers.py).
+MIN_IMAGES_PER_WORKER = 32
+
+
+def local_processes(n_images: int, workers: int) -> int:
+    """Processes a local run of ``n_images`` uses with at most ``workers`` (1: this process alone).
+
+    Examples
+    --------
+    >>> local_processes(16, 2), local_processes(64, 2), local_processes(1000, 2), local_processes(1000, 1)
+    (1, 2, 2, 1)
+    """
+    n = min(workers, n_images // MIN_IMAGES_PER_WORKER)
+    return n if n >= 2 else 1
+
+
 def _run_local(config: Config, out: Path, blocks: list[list[int]], workers: int) -> Iterator[list[bytes]]:
-    """Journal lines of each block, in order of completion, from ``workers`` processes."""
+    """Journal lines of each block, in order of completion, from ``workers`` processes (or this one)."""
     if workers <= 1 or len(blocks) < 2:
         for block in blocks:
             yield render_block(config, block, out)
         return
-    ctx = _pool_context()
-    pool = ProcessPoolExecutor(
-        max_workers=workers, mp_context=ctx, initializer=_set_worker_state,
-        initargs=(config, str(out), os.getpid()),
-    )
-    todo = iter(blocks)
-    try:
-        # A bounded window of blocks in flight keeps memory flat for any number of images.
-        pending = {pool.submit(_render_block_in_worker, b) for b in islice(todo, 4 * workers)}
-        while pending:
-            done, pending = wait(pending, return_when=FIRST_COMPLETED)
-            for fut in done:
-                lines = fut.result()
-                nxt = next(todo, None)
-                if nxt is not None:
-                    pending.add(pool.submit(_render_block_in_worker, nxt))
-                yield lines
-    finally:
-        pool.shutdown(wait=True, cancel_futures=True)
+    yield from run_unordered(partial(render_block, config, out=str(out)), blocks, workers, setup=_worker_setup)
 
 
 def _verify_kept(out: Path, store: RecordStore, indices) -> int:
@@ -690,8 +639,13 @@ def make_dataset(
         digests match the journal, render the rest.  On a finished dataset,
         check every file against the manifest and repair what differs.
     workers : int or None
-        Processes to render with (None: every usable core).  The output does not
-        depend on it.
+        Most processes to render with (None: every usable core).  Workers are
+        fresh Python processes that import synthgen only, so a plain script
+        calling this without an ``if __name__ == "__main__":`` guard is safe
+        (:mod:`synthgen.pool`).  A run renders in this process when it has fewer
+        than ``2 * MIN_IMAGES_PER_WORKER`` images to render, or when ``workers``
+        is 1: starting a worker costs about as much as rendering that many
+        images.  The output does not depend on it.
     shard : Shard or None
         Render only this shard's images and write its shard manifest
         (``DIR/shard-K-of-N.json``); :func:`merge_shards` assembles the shards.
@@ -761,8 +715,9 @@ def make_dataset(
         store, end = _known_records(config, out, shard, resume_from=state == "unfinished")
         kept = _verify_kept(out, store, mine)
         todo = store.missing(mine)
-        blocks = blocks_of(todo, _block_size(len(todo), workers if backend is None else backend.workers))
-        results = _run_local(config, out, blocks, workers) if backend is None else backend.run(config, out, blocks)
+        procs = local_processes(len(todo), workers) if backend is None else backend.workers
+        blocks = blocks_of(todo, _block_size(len(todo), procs))
+        results = _run_local(config, out, blocks, procs) if backend is None else backend.run(config, out, blocks)
         report = None if progress is None else (lambda done: progress(kept + done, len(mine)))
         _append_records(journal_path(out, shard), end, results, store, report)
     except OSError as exc:

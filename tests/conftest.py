@@ -29,3 +29,11 @@ def small_dataset(tmp_path_factory, small_config):
     out = tmp_path_factory.mktemp("small") / "ds"
     make_dataset(small_config, out, workers=1)
     return out, small_config
+
+
+@pytest.fixture
+def pool_always(monkeypatch):
+    """Worker processes even for a handful of images (runs this small normally render in process)."""
+    import synthgen.dataset
+
+    monkeypatch.setattr(synthgen.dataset, "MIN_IMAGES_PER_WORKER", 1)

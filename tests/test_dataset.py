@@ -103,7 +103,7 @@ def test_same_config_same_bytes(tmp_path, small_config, small_dataset):
     assert _tree(tmp_path / "again") == _tree(small_dataset[0])
 
 
-def test_two_workers_same_bytes(tmp_path, small_config, small_dataset):
+def test_two_workers_same_bytes(tmp_path, small_config, small_dataset, pool_always):
     """The output does not depend on the number of worker processes."""
     make_dataset(small_config, tmp_path / "w2", workers=2)
     assert _tree(tmp_path / "w2") == _tree(small_dataset[0])
@@ -131,7 +131,7 @@ def test_overwrite_replaces_an_earlier_dataset(tmp_path, small_config):
     assert (out / "notes.txt").read_text() == "mine"
 
 
-def test_three_workers_same_bytes(tmp_path, small_config, small_dataset):
+def test_three_workers_same_bytes(tmp_path, small_config, small_dataset, pool_always):
     """More workers than cores still give the same files (blocks finish out of order)."""
     make_dataset(small_config, tmp_path / "w3", workers=3)
     assert _tree(tmp_path / "w3") == _tree(small_dataset[0])

@@ -170,7 +170,7 @@ def test_cli_warns_on_stderr_and_succeeds(tmp_path):
     assert json.loads((tmp_path / "d" / "manifest.json").read_text())["counts"]["dropped"]["no_room"] == 3 * 99
 
 
-def test_dials_give_identical_files_for_one_and_two_workers(tmp_path):
+def test_dials_give_identical_files_for_one_and_two_workers(tmp_path, pool_always):
     """Pairs, occluders, clutter and degradations: 1 worker and 2 workers write the same bytes (numpy.random: spawn keys)."""
     cfg = load_config(overrides=["count=4", "canvas.width=96", "canvas.height=64", "objects.layout=pairs",
                                  "objects.count=[4,6]", "objects.size=[6,20]", "objects.occlusion=[0.2,0.4]",
