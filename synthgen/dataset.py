@@ -41,7 +41,7 @@ import time
 from collections.abc import Callable, Iterator, Mapping, Sequence
 from dataclasses import dataclass, field
 from functools import partial
-from pathlib import Path
+from pathlib import Path, PurePosixPath
 
 import numpy as np
 import orjson
@@ -62,6 +62,7 @@ from synthgen.shards import (
     OutputWriteError,
     RecordStore,
     Shard,
+    decode_record,
     describe_differences,
     encode_record,
     find_shard_manifests,
@@ -502,15 +503,90 @@ def _config_of(path: Path, what: str) -> dict:
 
 
 def _clear(out: Path) -> None:
-    """Remove what an earlier run wrote; the manifest first, so an interrupted clear never looks finished."""
-    paths = [out / e for e in ("manifest.json", "annotations.json", ".synthgen", "images")]
-    paths += [p for pattern in FORMAT_ENTRIES for p in sorted(out.glob(pattern))]
-    for path in paths:
-        if path.is_dir():
-            shutil.rmtree(path)
-        elif path.exists():
-            path.unlink()
+    """Remove what an earlier run wrote in ``out``, and nothing else.
+
+    Every file at a path a run writes (``annotations.json``, ``manifest.json``,
+    anything under ``images/`` and the format folders, the format files at the
+    top) must be one the earlier run's manifest, journals or shard manifests
+    list, or one the format writers derive from those images; otherwise
+    nothing is removed and the file is named.  The manifest goes first, so an
+    interrupted clear never looks finished.
+
+    Raises
+    ------
+    UserError
+        A file synthgen would replace that the earlier run did not write.
+    """
+    owned = _files_of_earlier_run(out)
+    stems = {PurePosixPath(rel).stem for rel in owned if rel.startswith("images/")}
+    tops = [out / name for name in ("manifest.json", "annotations.json", "images", *FORMAT_DIRS)]
+    tops += [p for pattern in FORMAT_ENTRIES if pattern not in FORMAT_DIRS for p in sorted(out.glob(pattern))]
+    for top in tops:
+        for path in sorted(top.rglob("*")) if top.is_dir() else [top] if top.exists() else []:
+            rel = path.relative_to(out).as_posix()
+            if not path.is_dir() and rel not in owned and not _derived_name(rel, stems):
+                raise UserError(
+                    f"{path}: this file was not written by the earlier run in {out} (its manifest and journal "
+                    "do not list it), and --overwrite would replace it; move it away or use another output directory"
+                )
+    for top in tops:  # the manifest first
+        if top.is_dir():
+            shutil.rmtree(top)
+        else:
+            top.unlink(missing_ok=True)
     remove_state(out)
+
+
+#: Folders written whole by the format writers (staged, then renamed over the old one).
+FORMAT_DIRS = ("voc", "yolo", "masks")
+
+
+def _files_of_earlier_run(out: Path) -> set[str]:
+    """Paths relative to ``out`` that the manifest, the journals and the shard manifests in ``out`` list.
+
+    Includes those bookkeeping files themselves, and the temporary names of images being written.
+    """
+    owned: set[str] = set()
+    listings = [out / "manifest.json"] + [p for _, p in find_shard_manifests(out)]
+    for path in listings:
+        if path.is_file():
+            files = read_json(path, "manifest").get("files")
+            owned.add(path.name)
+            owned.update(files if isinstance(files, dict) else ())
+    for journal in sorted(state_dir(out).glob("*.journal")):
+        with open(journal, "rb") as f:
+            for line in f:
+                rec = decode_record(line)
+                if rec is not None and isinstance(rec[0].get("files"), dict):
+                    owned.update(rec[0]["files"])
+    images = out / "images"
+    if owned and images.is_dir():
+        owned.update(p.relative_to(out).as_posix() for p in images.glob(".*.tmp"))  # write_file_atomic's names
+    return owned
+
+
+def _derived_name(rel: str, stems: set[str]) -> bool:
+    """True when ``rel`` is a file name the format writers give for the images with these stems.
+
+    ``voc/<stem>.xml``, ``yolo/<stem>.txt``, ``masks/<stem>.png``, ``yolo/labels.txt``, the split
+    lists (``voc/ImageSets/Main/<split>.txt``, ``yolo/splits/<split>.txt``), and the top-level
+    format files (:data:`FORMAT_ENTRIES`) of a dataset whose images are known.
+    """
+    if not stems:
+        return False
+    path = PurePosixPath(rel)
+    top, inner = path.parts[0], PurePosixPath(*path.parts[1:]) if len(path.parts) > 1 else None
+    if top not in FORMAT_DIRS:
+        return len(path.parts) == 1 and any(fnmatch.fnmatchcase(rel, p) for p in FORMAT_ENTRIES)
+    if inner is None:
+        return False
+    per_image = {"voc": ".xml", "yolo": ".txt", "masks": ".png"}[top]
+    if inner.suffix == per_image and inner.with_suffix("").as_posix() in stems:
+        return True
+    lists = {"voc": "ImageSets/Main", "yolo": "splits"}.get(top)
+    return (top == "yolo" and rel == "yolo/labels.txt") or (
+        lists is not None and inner.parent.as_posix() == lists and inner.suffix == ".txt"
+    )
 
 
 def _remove_temporaries(out: Path) -> None:

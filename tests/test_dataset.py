@@ -5,6 +5,7 @@ from __future__ import annotations
 import contextlib
 import io
 import json
+import shutil
 
 import numpy as np
 import pytest
@@ -129,6 +130,56 @@ def test_overwrite_replaces_an_earlier_dataset(tmp_path, small_config):
     make_dataset(small_config, out, overwrite=True, workers=1)
     assert len(list((out / "images").iterdir())) == small_config.count
     assert (out / "notes.txt").read_text() == "mine"
+
+
+def test_overwrite_refuses_a_file_it_did_not_write_and_removes_nothing(tmp_path, small_config, small_dataset):
+    """--overwrite names a user's file inside images/ (exit 2 from the CLI) and changes nothing in the directory."""
+    out = tmp_path / "ds"
+    shutil.copytree(small_dataset[0], out)
+    (out / "images" / "my_photo.jpg").write_bytes(b"mine")
+    before = _tree(out)
+    with pytest.raises(UserError, match=r"my_photo\.jpg: this file was not written by the earlier run"):
+        make_dataset(small_config, out, overwrite=True, workers=1)
+    assert _tree(out) == before
+
+
+def test_overwrite_refuses_images_without_a_manifest_or_journal(tmp_path, small_config):
+    """A folder of images no synthgen run listed is not synthgen's to delete."""
+    out = tmp_path / "ds"
+    (out / "images").mkdir(parents=True)
+    (out / "images" / "000000.png").write_bytes(b"someone else's")
+    with pytest.raises(UserError, match=r"000000\.png: this file was not written"):
+        make_dataset(small_config, out, overwrite=True, workers=1)
+    assert (out / "images" / "000000.png").read_bytes() == b"someone else's"
+
+
+def test_overwrite_removes_what_the_earlier_run_and_export_wrote(tmp_path, small_config):
+    """Files the earlier run listed, and the format files export derived from its images, are replaced."""
+    from synthgen.config import load_config
+    from synthgen.formats import export
+
+    out = tmp_path / "ds"
+    make_dataset(load_config(overrides=["count=3", "canvas.width=32", "canvas.height=32"]), out, workers=1,
+                 formats=("coco", "tokens"))
+    export(out, ["voc", "yolo", "masks"], split={"train": 0.5, "val": 0.5})
+    (out / "notes.txt").write_text("mine")  # beside the dataset, not in a folder synthgen replaces
+    make_dataset(small_config, out, overwrite=True, workers=1)
+    assert sorted(p.name for p in out.iterdir()) == ["annotations.json", "images", "manifest.json", "notes.txt"]
+    assert len(list((out / "images").iterdir())) == small_config.count
+
+
+def test_overwrite_of_an_unfinished_run_uses_its_journal(tmp_path, small_config):
+    """An interrupted run (journal, no manifest) is replaced: its journal lists its images."""
+    from synthgen.config import load_config
+    from synthgen.dataset import prepare_output, render_block
+    from synthgen.shards import Shard, journal_path
+
+    other = load_config(overrides=["count=4", "canvas.width=32", "canvas.height=32"])
+    out = tmp_path / "ds"
+    prepare_output(out, other)
+    journal_path(out, Shard()).write_bytes(b"".join(render_block(other, range(2), out)))
+    make_dataset(small_config, out, overwrite=True, workers=1)
+    assert _tree(out).keys() == _tree(make_dataset(small_config, tmp_path / "ref", workers=1).out).keys()
 
 
 def test_three_workers_same_bytes(tmp_path, small_config, small_dataset, pool_always):
