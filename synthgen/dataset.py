@@ -503,25 +503,28 @@ def _config_of(path: Path, what: str) -> dict:
 
 
 def _clear(out: Path) -> None:
-    """Remove what an earlier run wrote in ``out``, and nothing else.
+    """Remove what an earlier run wrote in ``out``, and nothing else (see :func:`_earlier_run_paths`)."""
+    _remove(_earlier_run_paths(out))
+
+
+def _earlier_run_paths(out: Path) -> list[Path]:
+    """The files and folders in ``out`` an earlier run wrote, to be removed before a new run; the manifest first.
 
     Every file at a path a run writes (``annotations.json``, ``manifest.json``,
     anything under ``images/`` and the format folders, the format files at the
     top) must be one the earlier run's manifest, journals or shard manifests
-    list, or one the format writers derive from those images; otherwise
-    nothing is removed and the file is named.  The manifest goes first, so an
-    interrupted clear never looks finished.
+    list, or one the format writers derive from those images.
 
     Raises
     ------
     UserError
-        A file synthgen would replace that the earlier run did not write.
+        Naming a file synthgen would replace that the earlier run did not write.
     """
     owned = _files_of_earlier_run(out)
     stems = {PurePosixPath(rel).stem for rel in owned if rel.startswith("images/")}
-    tops = [out / name for name in ("manifest.json", "annotations.json", "images", *FORMAT_DIRS)]
-    tops += [p for pattern in FORMAT_ENTRIES if pattern not in FORMAT_DIRS for p in sorted(out.glob(pattern))]
-    for top in tops:
+    replaced = [out / name for name in ("manifest.json", "annotations.json", "images", *FORMAT_DIRS)]
+    replaced += [p for pattern in FORMAT_ENTRIES if pattern not in FORMAT_DIRS for p in sorted(out.glob(pattern))]
+    for top in replaced:
         for path in sorted(top.rglob("*")) if top.is_dir() else [top] if top.exists() else []:
             rel = path.relative_to(out).as_posix()
             if not path.is_dir() and rel not in owned and not _derived_name(rel, stems):
@@ -529,12 +532,17 @@ def _clear(out: Path) -> None:
                     f"{path}: this file was not written by the earlier run in {out} (its manifest and journal "
                     "do not list it), and --overwrite would replace it; move it away or use another output directory"
                 )
-    for top in tops:  # the manifest first
-        if top.is_dir():
-            shutil.rmtree(top)
+    bookkeeping = [state_dir(out)] + [p for _, p in find_shard_manifests(out)]
+    return [p for p in replaced + bookkeeping if p.exists()]
+
+
+def _remove(paths: list[Path]) -> None:
+    """Remove these files and folders, in order."""
+    for path in paths:
+        if path.is_dir():
+            shutil.rmtree(path)
         else:
-            top.unlink(missing_ok=True)
-    remove_state(out)
+            path.unlink(missing_ok=True)
 
 
 #: Folders written whole by the format writers (staged, then renamed over the old one).
@@ -961,8 +969,10 @@ def merge_shards(dirs: Sequence[Path], out: Path | None = None, *, overwrite: bo
     """Assemble the outputs of ``make --shard K/N`` for every K into one dataset.
 
     The result is identical, file for file and byte for byte, to a single run
-    of the same config.  Every image is checked against its shard's digest as
-    it is copied (or, in place, read).
+    of the same config.  Every shard's journal and every image are checked
+    against their digests before anything is written, so a missing or damaged
+    shard leaves ``out`` as it was (a failed copy removes what it copied),
+    and the same merge works once the shard is repaired.
 
     Parameters
     ----------
@@ -1000,44 +1010,77 @@ def merge_shards(dirs: Sequence[Path], out: Path | None = None, *, overwrite: bo
             f"{libraries.get('synthgen')}, this is {__version__}; merge with the version that made the shards"
         )
     in_place = {d.resolve() for d in dirs}
+    clear = []
     if out.exists() and out.resolve() not in in_place:
         if out.is_file():
             raise UserError(f"{out}: output path is a file, not a directory")
         if _entries(out):
             if not overwrite:
                 raise UserError(f"{out}: output directory is not empty (pass --overwrite to replace its dataset)")
-            _clear(out)
+            clear = _earlier_run_paths(out)  # refuses files the earlier run did not write
     store = RecordStore(config.count)
     try:
-        (out / "images").mkdir(parents=True, exist_ok=True)
-        for s in found:
-            journal = s.directory / s.manifest["journal"]["path"]
-            if sha256_file(journal) != s.manifest["journal"].get("sha256"):
-                raise InputFileError(journal, f"journal of shard {s.shard.tag} is missing or damaged "
-                                     f"(rerun make --shard {s.shard.index}/{s.shard.count} --resume there)")
-            store.load_journal(journal, wanted=s.shard.indices(config.count))
-            lacking = store.missing(s.shard.indices(config.count))
-            if lacking:
-                raise InputFileError(journal, f"has no record of image {lacking[0]} (shard {s.shard.tag} unfinished?)")
-            same = s.directory.resolve() == out.resolve()
-            for k in s.shard.indices(config.count):
-                header, _ = store.read(k)
-                for rel, digest in header["files"].items():
-                    _take_file(s.directory / rel, out / rel, digest, s.shard, copy=not same)
+        copies = _check_shard_files(found, config, store, out)  # every shard, before anything is written
+        _remove(clear)
+        _copy_all(copies, out)
     except OSError as exc:
         store.close()
         raise _write_error(exc, out) from None
+    except BaseException:
+        store.close()
+        raise
     n_objects, dropped = finish_dataset(config, out, store, libraries)
     return MakeSummary(out, config.count, n_objects, dropped, time.perf_counter() - start)
 
 
-def _take_file(src: Path, dst: Path, digest: str, shard: Shard, *, copy: bool) -> None:
+def _check_shard_files(found: list[_ShardInput], config: Config, store: RecordStore, out: Path) -> list[tuple]:
+    """Load every shard's journal into ``store`` and check every file against its digest.
+
+    Returns the ``(source, relative path, digest, shard)`` of each file to copy into ``out``
+    (none for shards already in ``out``).
+    """
+    copies = []
+    for s in found:
+        journal = s.directory / s.manifest["journal"]["path"]
+        if sha256_file(journal) != s.manifest["journal"].get("sha256"):
+            raise InputFileError(journal, f"journal of shard {s.shard.tag} is missing or damaged "
+                                 f"(rerun make --shard {s.shard.index}/{s.shard.count} --resume there)")
+        store.load_journal(journal, wanted=s.shard.indices(config.count))
+        lacking = store.missing(s.shard.indices(config.count))
+        if lacking:
+            raise InputFileError(journal, f"has no record of image {lacking[0]} (shard {s.shard.tag} unfinished?)")
+        same = out.exists() and s.directory.resolve() == out.resolve()
+        for k in s.shard.indices(config.count):
+            header, _ = store.read(k)
+            for rel, digest in header["files"].items():
+                if sha256_file(s.directory / rel) != digest:
+                    raise _damaged_shard_file(s.directory / rel, s.shard)
+                if not same:
+                    copies.append((s.directory / rel, rel, digest, s.shard))
+    return copies
+
+
+def _copy_all(copies: list[tuple], out: Path) -> None:
+    """Copy the checked shard files into ``out``; on any failure remove what was copied, so ``out`` is as it was."""
+    made = [d for d in (out, out / "images") if not d.exists()]
+    written = []
     try:
-        data = src.read_bytes()
-    except FileNotFoundError:
-        data = None
-    if data is None or hashlib.sha256(data).hexdigest() != digest:
-        raise InputFileError(src, f"is missing or damaged (rerun make --shard {shard.index}/{shard.count} --resume "
-                             "in its directory)")
-    if copy:
-        write_file_atomic(dst, data)
+        (out / "images").mkdir(parents=True, exist_ok=True)
+        for src, rel, digest, shard in copies:
+            data = src.read_bytes()
+            if hashlib.sha256(data).hexdigest() != digest:  # changed since it was checked
+                raise _damaged_shard_file(src, shard)
+            write_file_atomic(out / rel, data)
+            written.append(out / rel)
+    except BaseException:
+        for path in written:
+            path.unlink(missing_ok=True)
+        for d in reversed(made):
+            with contextlib.suppress(OSError):
+                d.rmdir()
+        raise
+
+
+def _damaged_shard_file(path: Path, shard: Shard) -> InputFileError:
+    return InputFileError(path, f"is missing or damaged (rerun make --shard {shard.index}/{shard.count} --resume "
+                          "in its directory)")

@@ -157,6 +157,45 @@ def test_merge_refuses_a_damaged_image(tmp_path, tiny_config):
     assert not (tmp_path / "m" / "manifest.json").exists()
 
 
+def test_merge_with_a_bad_shard_leaves_the_output_as_it_was_and_a_retry_works(tmp_path, tiny_config, single_run):
+    """A truncated image in the last shard: nothing is copied or cleared; after --resume there, the merge succeeds."""
+    for k in (0, 1, 2):
+        make_dataset(tiny_config, tmp_path / f"s{k}", workers=1, shard=Shard(k, 3))
+    victim = tmp_path / "s2" / "images" / "000008.png"
+    victim.write_bytes(victim.read_bytes()[:-10])
+    out = tmp_path / "m"
+    make_dataset(load_config(overrides=TINY + ["count=2"]), out, workers=1)  # an earlier dataset, to overwrite
+    before = tree(out)
+    dirs = [tmp_path / f"s{k}" for k in (0, 1, 2)]
+    res = CliRunner().invoke(app, ["merge", *map(str, dirs), "--out", str(out), "--overwrite"])
+    assert res.exit_code == 2 and "000008.png: is missing or damaged" in res.stderr
+    assert tree(out) == before
+    make_dataset(tiny_config, tmp_path / "s2", workers=1, shard=Shard(2, 3), resume=True)
+    res = CliRunner().invoke(app, ["merge", *map(str, dirs), "--out", str(out), "--overwrite"])
+    assert res.exit_code == 0, res.stderr
+    assert tree(out) == tree(single_run)
+
+
+def test_a_failed_copy_removes_what_merge_copied(tmp_path, tiny_config, monkeypatch):
+    """A write failure half-way through the copy (disk full) leaves no copied image behind."""
+    import synthgen.dataset as dataset
+
+    for k in (0, 1):
+        make_dataset(tiny_config, tmp_path / f"s{k}", workers=1, shard=Shard(k, 2))
+    real, calls = dataset.write_file_atomic, []
+
+    def failing(path, data):
+        calls.append(path)
+        if len(calls) > 3:
+            raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC), str(path))
+        real(path, data)
+
+    monkeypatch.setattr(dataset, "write_file_atomic", failing)
+    with pytest.raises(dataset.OutputWriteError, match="No space left"):
+        merge_shards([tmp_path / "s0", tmp_path / "s1"], tmp_path / "m")
+    assert not (tmp_path / "m").exists()
+
+
 def test_merge_refuses_shards_of_different_configs(tmp_path, tiny_config):
     """Shards made from different configs are refused, naming the differing key."""
     other = load_config(overrides=TINY + ["canvas.width=72"])
