@@ -84,8 +84,13 @@ def reported(fn):
 
 
 def _progress(total: int, quiet: bool, label: str):
-    """A rich progress bar on stderr, or a no-op; returns (context manager, advance(done))."""
-    from contextlib import nullcontext
+    """A rich progress bar on stderr, or a no-op; returns (context manager, advance(done)).
+
+    The bar appears at the first ``advance``, once the work has started, so an
+    error found before (a bad option, an output that may not be written) is
+    printed alone.
+    """
+    from contextlib import contextmanager, nullcontext
 
     if quiet or total <= 1:
         return nullcontext(), None
@@ -101,7 +106,21 @@ def _progress(total: int, quiet: bool, label: str):
         transient=True,
     )
     task = progress.add_task(label, total=total)
-    return progress, lambda done: progress.update(task, completed=done)
+
+    def advance(done: int) -> None:
+        if not progress.live.is_started:
+            progress.start()
+        progress.update(task, completed=done)
+
+    @contextmanager
+    def shown():
+        try:
+            yield
+        finally:
+            if progress.live.is_started:
+                progress.stop()
+
+    return shown(), advance
 
 
 ConfigArg = Annotated[
@@ -420,6 +439,8 @@ def _check_output_file(option: str, path: Path | None) -> None:
         return
     if path.is_dir():
         raise UserError(f"option '{option}' must name a file, not a directory (got '{path}')")
+    if path.parent.exists() and not path.parent.is_dir():
+        raise UserError(f"option '{option}' names a file in '{path.parent}', which is a file (got '{path}')")
     if not path.parent.is_dir():
         raise UserError(f"option '{option}' names a file in a folder that does not exist (got '{path}')")
 
@@ -616,6 +637,7 @@ def show(
     """Draw a contact sheet: images in a grid with their boxes, ids and a legend."""
     from synthgen import report
 
+    _check_output_file("--out", out)
     if images is not None and ids is not None:
         raise UserError("options '--images' and '--ids' choose the images in two ways; give one")
     images = 16 if images is None else images
@@ -661,6 +683,8 @@ def stats(
 
     from synthgen import report
 
+    _check_output_file("--json", json_out)
+    _check_output_file("--plot", plot)
     ds = report.open_dataset(dataset)
     result = report.dataset_stats(ds.coco, ds.manifest)
     Console(highlight=False, soft_wrap=False).print(report.stats_tables(result, title=ds.name))

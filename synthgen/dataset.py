@@ -48,7 +48,7 @@ import orjson
 
 from synthgen import __version__
 from synthgen.config import Config, build, to_dict
-from synthgen.errors import InputFileError, UserError
+from synthgen.errors import InputFileError, UserError, make_output_dir
 from synthgen.formats import rle
 from synthgen.formats.coco import bbox_from_xyxy, read_coco, write_bytes_atomic
 from synthgen.formats.export import parse_formats, write_formats
@@ -473,8 +473,9 @@ def prepare_output(
                 f"{out}: output directory is not empty: it holds an unfinished run of this config "
                 "(pass --resume to continue it, or --overwrite to start again)"
             )
+    make_output_dir(out)  # a path that cannot be a directory is bad input, found before any work
     try:
-        (out / "images").mkdir(parents=True, exist_ok=True)
+        (out / "images").mkdir(exist_ok=True)
         state_dir(out).mkdir(exist_ok=True)
         run_file = state_dir(out) / RUN_RECORD
         if not run_file.exists():
@@ -1065,7 +1066,7 @@ def _copy_all(copies: list[tuple], out: Path) -> None:
     made = [d for d in (out, out / "images") if not d.exists()]
     written = []
     try:
-        (out / "images").mkdir(parents=True, exist_ok=True)
+        make_output_dir(out / "images")
         for src, rel, digest, shard in copies:
             data = src.read_bytes()
             if hashlib.sha256(data).hexdigest() != digest:  # changed since it was checked

@@ -20,6 +20,7 @@ __all__ = [
     "check_number",
     "check_range",
     "as_tuples",
+    "make_output_dir",
 ]
 
 
@@ -64,6 +65,23 @@ class InputFileError(UserError):
         self.path = str(path)
         self.problem = problem
         super().__init__(f"{path}: {problem}")
+
+
+def make_output_dir(path) -> None:
+    """Create output directory ``path`` and its parents; a path that cannot be one is an :class:`InputFileError`.
+
+    The message names the part of the path that is a file, or the system's reason
+    (permission denied, a read-only or special file system).
+    """
+    from pathlib import Path
+
+    path = Path(path)
+    try:
+        path.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        blocker = next((p for p in [path, *path.parents] if p.exists() and not p.is_dir()), None)
+        why = f"'{blocker}' is a file" if blocker is not None else exc.strerror or str(exc)
+        raise InputFileError(path, f"cannot be created as an output directory ({why})") from None
 
 
 def _show(value: object) -> str:

@@ -513,11 +513,12 @@ def _coco_iou(d: np.ndarray, g: np.ndarray, crowd: np.ndarray) -> np.ndarray:
         ``(da + ga) - inter``, evaluated in that order, so that threshold
         comparisons agree with the reference bit for bit.
     """
-    iw = np.minimum(d[:, 0] + d[:, 2], g[:, 0] + g[:, 2]) - np.maximum(d[:, 0], g[:, 0])
-    ih = np.minimum(d[:, 1] + d[:, 3], g[:, 1] + g[:, 3]) - np.maximum(d[:, 1], g[:, 1])
-    inter = iw * ih
-    da = d[:, 2] * d[:, 3]
-    union = np.where(crowd, da, da + g[:, 2] * g[:, 3] - inter)
+    with np.errstate(over="ignore"):  # absurd but finite boxes (1e308) overflow to inf, as in the reference
+        iw = np.minimum(d[:, 0] + d[:, 2], g[:, 0] + g[:, 2]) - np.maximum(d[:, 0], g[:, 0])
+        ih = np.minimum(d[:, 1] + d[:, 3], g[:, 1] + g[:, 3]) - np.maximum(d[:, 1], g[:, 1])
+        inter = np.maximum(iw, 0) * np.maximum(ih, 0)  # 0 for disjoint pairs (whose product may overflow)
+        da = d[:, 2] * d[:, 3]
+        union = np.where(crowd, da, da + g[:, 2] * g[:, 3] - inter)
     out = np.zeros(len(d))
     np.divide(inter, union, out=out, where=(iw > 0) & (ih > 0))
     return out
@@ -785,7 +786,8 @@ class Evaluation:
         self._preds = preds
         self._pb = problem
         gt_ignore = np.stack([truth.crowd | _range_ignore(truth.area, lo, hi) for _, lo, hi in AREA_RANGES])
-        det_area = problem.box[:, 2] * problem.box[:, 3]
+        with np.errstate(over="ignore"):  # an absurd box's area is inf, outside every range but "all"
+            det_area = problem.box[:, 2] * problem.box[:, 3]
         det_out = np.stack([_range_ignore(det_area, lo, hi) for _, lo, hi in AREA_RANGES])
         self._matched = _match(problem, gt_ignore, truth.crowd)
         self.precision, self.recall = _accumulate(problem, truth, gt_ignore, det_out, self._matched, MAX_DETS)
@@ -933,7 +935,8 @@ class Evaluation:
             in_bin = _bin_masks(values, e)
             if fact in BOX_FACTS:
                 w, h = pb.box[:, 2], pb.box[:, 3]
-                det_val = w * h if fact == "area" else np.maximum(w, h)
+                with np.errstate(over="ignore"):  # an absurd box's area is inf: above every bin
+                    det_val = w * h if fact == "area" else np.maximum(w, h)
                 det_out = ~_bin_masks(det_val, e)
             else:
                 det_out = np.zeros((len(bins), len(pb.rec)), dtype=bool)

@@ -161,3 +161,52 @@ def test_option_type_errors_exit_2_naming_the_option(tmp_path):
     res = run("make", "--out", str(tmp_path / "d"), "--count", "many")
     assert res.exit_code == 2 and "--count" in res.output
     assert not (tmp_path / "d").exists()
+
+
+@pytest.mark.parametrize("where", ["file/sub", "/proc/synthgen-nope"], ids=["under a file", "under /proc"])
+def test_output_path_that_cannot_be_a_directory_exits_2(tmp_path, where):
+    """--out under a file, or where no directory can be made: exit 2, one line naming it, no --resume hint."""
+    if where.startswith("/proc") and not Path("/proc/self").exists():
+        pytest.skip("no /proc on this system")
+    (tmp_path / "file").write_text("mine")
+    out = where if where.startswith("/") else str(tmp_path / where)
+    res = run("make", "--out", out, *TINY)
+    assert res.exit_code == 2
+    line = one_line(res)
+    assert f"{out}: cannot be created as an output directory" in line and "--resume" not in line
+    assert (tmp_path / "file").read_text() == "mine"
+
+
+OUTPUT_FILES = [
+    ("show --out DIR", ["show", "{ds}", "--out", "{t}/adir"], "option '--out' must name a file, not a directory"),
+    ("stats --json DIR", ["stats", "{ds}", "--json", "{t}/adir"], "option '--json' must name a file, not a directory"),
+    ("stats --plot DIR", ["stats", "{ds}", "--plot", "{t}/adir"], "option '--plot' must name a file, not a directory"),
+    ("show --out FILE/x", ["show", "{ds}", "--out", "{t}/afile/x.png"], "names a file in '{t}/afile', which is a file"),
+    ("stats --json FILE/x", ["stats", "{ds}", "--json", "{t}/afile/s.json"], "names a file in '{t}/afile', which is a file"),
+]
+
+
+@pytest.mark.parametrize(("args", "text"), [c[1:] for c in OUTPUT_FILES], ids=[c[0] for c in OUTPUT_FILES])
+def test_show_and_stats_check_output_paths_before_any_work(tmp_path, small_dataset, args, text):
+    """An output file that names a folder, or sits under a file: exit 2, one line naming it, nothing printed first."""
+    (tmp_path / "adir").mkdir()
+    (tmp_path / "afile").write_text("mine")
+    fill = {"ds": str(small_dataset[0]), "t": str(tmp_path)}
+    res = run(*[a.format(**fill) for a in args])
+    assert res.exit_code == 2
+    assert text.format(**fill) in one_line(res)
+    assert res.stdout == ""  # stats did not print its table first
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["adir", "afile"] and not any((tmp_path / "adir").iterdir())
+
+
+@pytest.mark.parametrize(("args", "text"), [(["--workers", "0"], "--workers"), (["--out", "{t}/afile"], "afile")],
+                         ids=["workers 0", "out is a file"])
+def test_errors_come_alone_without_a_blank_line(tmp_path, args, text):
+    """With the progress bar on (no --quiet), an error found before rendering is the only line on stderr."""
+    (tmp_path / "afile").write_text("mine")
+    args = [a.format(t=tmp_path) for a in args]
+    cmd = [sys.executable, "-m", "synthgen", "make", "--out", str(tmp_path / "d"), "--count", "3",
+           "--set", "canvas.width=32", "--set", "canvas.height=24", *args]
+    res = subprocess.run(cmd, capture_output=True, text=True, cwd=ROOT)
+    assert res.returncode == 2
+    assert res.stderr.count("\n") == 1 and res.stderr.startswith("synthgen: error:") and text.format(t=tmp_path) in res.stderr

@@ -158,3 +158,21 @@ def test_output_paths_are_checked_before_scoring(tmp_path):
                               "--json", str(tmp_path / "s.json")])
     assert res.exit_code == 2 and "option '--plot' must name a file" in res.stderr
     assert not (tmp_path / "s.json").exists()
+
+
+def test_huge_finite_boxes_score_without_warnings(small_dataset, tmp_path):
+    """Predictions of absurd but finite size ([0,0,1e308,1e308]) give pycocotools' stats and a clean stderr."""
+    from tests._coco_cases import coco_reference
+
+    ds, _ = small_dataset
+    gt = json.loads((ds / "annotations.json").read_text())
+    pred, preds = _predictions(ds, tmp_path)
+    preds += [{"image_id": im["id"], "category_id": gt["annotations"][0]["category_id"], "bbox": box, "score": 0.95}
+              for im in gt["images"] for box in ([0, 0, 1e308, 1e308], [1e308, 1e308, 1e308, 1e308])]
+    pred.write_text(json.dumps(preds))
+    res = run("score", ds, pred, "--by", "size", "--by", "area", "--json", tmp_path / "s.json")
+    assert res.exit_code == 0, res.output
+    assert res.stderr == ""
+    stats = json.loads((tmp_path / "s.json").read_text())["stats"]
+    ref = coco_reference(gt, preds)  # reference: pycocotools COCOeval (its areas overflow to inf as well)
+    assert np.allclose(list(stats.values()), ref.stats, atol=1e-9)

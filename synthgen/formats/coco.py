@@ -90,7 +90,8 @@ def xyxy_from_bbox(bboxes) -> np.ndarray:
     """
     b = as_boxes(bboxes)
     out = b.copy()
-    out[:, 2:] = b[:, :2] + b[:, 2:]
+    with np.errstate(over="ignore"):  # an absurd but finite box (1e308 wide) ends at inf
+        out[:, 2:] = b[:, :2] + b[:, 2:]
     return out
 
 
