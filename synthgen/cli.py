@@ -215,10 +215,15 @@ def make(
     except OutputWriteError as exc:
         _fail(f"error: {exc}", 1)
     what = "" if summary.shard.whole else f" (shard {summary.shard.index}/{summary.shard.count})"
-    kept = f", {summary.kept} kept from before" if summary.kept else ""
+    rate = f"{summary.images_per_second:.1f} images/s"
+    if summary.kept:  # the rate of a resumed run counts only what it rendered
+        rendered = f"{summary.rendered} rendered ({rate})" if summary.rendered else "none rendered"
+        how = f": {rendered}, {summary.kept} kept from before"
+    else:
+        how = f" ({rate})"
     typer.echo(
-        f"wrote {summary.images} images{what}, {summary.objects} objects to {summary.out}{kept} "
-        f"in {summary.seconds:.2f} s ({summary.images_per_second:.1f} images/s)"
+        f"wrote {_count(summary.images, 'image')}{what}, {_count(summary.objects, 'object')} to {summary.out} "
+        f"in {summary.seconds:.2f} s{how}"
     )
     _warn_shortfall(cfg, summary.dropped)
     if summary.objects == 0 and summary.images and cfg.objects.count[1] > 0:
@@ -228,6 +233,11 @@ def make(
             f"objects.min_area); dropped: {lost}",
             err=True,
         )
+
+
+def _count(n: int, word: str) -> str:
+    """``"1 image"``, ``"2 images"``."""
+    return f"{n} {word}{'' if n == 1 else 's'}"
 
 
 def _warn_shortfall(cfg, dropped: dict, where: str = "") -> None:
@@ -527,6 +537,9 @@ def sweep(
     seed: Annotated[Optional[int], typer.Option(help="Root seed of every dataset (same as --set seed=S).")] = None,
     set_: SetOpt = None,
     overwrite: Annotated[bool, typer.Option("--overwrite", help="Replace the datasets of a non-empty sweep directory.")] = False,
+    resume: Annotated[
+        bool, typer.Option("--resume", help="Continue an interrupted sweep in DIR: keep intact images, render the rest.")
+    ] = False,
     workers: Annotated[Optional[int], typer.Option(help="Processes to render with (default: usable cores).", min=1)] = None,
     quiet: Annotated[bool, typer.Option("--quiet", "-q", help="No progress bar.")] = False,
 ) -> None:
@@ -540,12 +553,13 @@ def sweep(
     bar, advance = _progress(total, quiet, "sweeping")
     with bar:
         summary = run_sweep(
-            config, varies, out, overrides=overrides, overwrite=overwrite, workers=workers, plan=plan,
+            config, varies, out, overrides=overrides, overwrite=overwrite, resume=resume, workers=workers, plan=plan,
             progress=None if advance is None else (lambda done, _total: advance(done)),
         )
+    kept = f", {summary.kept} images kept from before" if summary.kept else ""
     typer.echo(
-        f"wrote {summary.subsets} datasets ({summary.images} images, {summary.objects} objects) "
-        f"to {summary.out} in {summary.seconds:.2f} s"
+        f"wrote {_count(summary.subsets, 'dataset')} ({_count(summary.images, 'image')}, "
+        f"{_count(summary.objects, 'object')}) to {summary.out}{kept} in {summary.seconds:.2f} s"
     )
     for (rel, _, cfg), record in zip(plan, summary.records):
         _warn_shortfall(cfg, record["dropped"], where=f"{rel}: ")
@@ -569,7 +583,8 @@ def merge(
         summary = merge_shards(dirs, out, overwrite=overwrite)
     except OutputWriteError as exc:
         _fail(f"error: {exc}", 1)
-    typer.echo(f"merged {summary.images} images, {summary.objects} objects into {summary.out} in {summary.seconds:.2f} s")
+    typer.echo(f"merged {_count(summary.images, 'image')}, {_count(summary.objects, 'object')} into {summary.out} "
+               f"in {summary.seconds:.2f} s")
 
 
 # -- show and stats -------------------------------------------------------------------
@@ -712,7 +727,9 @@ def main() -> None:
         text = " ".join(text.split()).rstrip(".")
         if text:  # empty when the parser has just shown the help for a bare command
             ctx = getattr(exc, "ctx", None)
-            where = f"; see '{ctx.command_path} --help'" if ctx is not None else ""
+            help_ = f"see '{ctx.command_path} --help'" if ctx is not None else ""
+            # after a question ("Did you mean 'make'?") the pointer to the help goes in brackets
+            where = "" if not help_ else f" ({help_})" if text.endswith("?") else f"; {help_}"
             typer.echo(f"synthgen: error: {text}{where}", err=True)
         sys.exit(getattr(exc, "exit_code", 2))
     except typer.Abort:

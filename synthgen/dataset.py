@@ -129,8 +129,14 @@ class MakeSummary:
     shard: Shard = field(default_factory=Shard)
 
     @property
+    def rendered(self) -> int:
+        """Images this run rendered (the rest it kept)."""
+        return self.images - self.kept
+
+    @property
     def images_per_second(self) -> float:
-        return self.images / self.seconds if self.seconds > 0 else float("inf")
+        """Rendered images per second (kept images took no rendering)."""
+        return self.rendered / self.seconds if self.seconds > 0 else float("inf")
 
 
 def usable_cores() -> int:

@@ -6,6 +6,7 @@ varied values, nested one directory level per varied key::
 
     DIR/objects.size=[1,4]/layout.../      (one level per --vary, in the order given)
     DIR/sweep.json                         the subsets and their varied values; written last
+    DIR/.synthgen/sweep.json               while it runs: the base config and varied values asked for
 
 Every subset is the base config (file, then ``--set`` overrides, then
 ``--count``/``--seed``) with only the varied keys changed, so subsets share the
@@ -18,13 +19,14 @@ combination is validated before anything is written.
 from __future__ import annotations
 
 import itertools
+import shutil
 import time
 from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
 
 from synthgen.config import Config, load_config, parse_override, to_dict
-from synthgen.errors import ConfigError, UserError
+from synthgen.errors import ConfigError, UserError, make_output_dir
 
 __all__ = ["Vary", "SweepSummary", "parse_vary", "value_label", "plan_sweep", "run_sweep"]
 
@@ -47,6 +49,7 @@ class SweepSummary:
     objects: int
     seconds: float
     records: tuple = ()  # per subset: path, values, images, objects, dropped (as in sweep.json)
+    kept: int = 0  # images a resumed sweep found intact and did not render again
 
 
 def _split_values(raw: str) -> list[str]:
@@ -177,11 +180,16 @@ def run_sweep(
     *,
     overrides=(),
     overwrite: bool = False,
+    resume: bool = False,
     workers: int | None = None,
     progress: Callable[[int, int], None] | None = None,
     plan=None,
 ) -> SweepSummary:
     """Write one dataset per combination of varied values, then ``out/sweep.json``.
+
+    While a sweep runs, ``out/.synthgen/sweep.json`` records what it was asked
+    for (the resolved base config and the varied values); ``sweep.json`` at the
+    top is written last, so a directory without it is an unfinished sweep.
 
     Parameters
     ----------
@@ -191,34 +199,67 @@ def run_sweep(
         From :func:`parse_vary`, one per ``--vary``.
     out : Path
         Sweep directory.  A non-empty one is refused unless ``overwrite``
-        (which replaces each subset's dataset and ``sweep.json``).
+        (which replaces each subset's dataset and ``sweep.json``) or ``resume``.
     overrides : sequence of str
         ``KEY=VALUE`` applied to the base config before the varied keys.
+    resume : bool
+        Continue an interrupted sweep of the same base config and varied
+        values: each subset is resumed as ``make --resume`` does (finished
+        subsets are checked against their manifests), and the result is the
+        files an uninterrupted sweep writes.
     workers : int or None
         Processes per dataset (see :func:`synthgen.dataset.make_dataset`).
     progress : callable or None
         Called with (images done, images in all subsets).
     plan : list or None
         :func:`plan_sweep` of the same arguments, when the caller has it already.
+
+    Raises
+    ------
+    UserError
+        A bad output directory, ``overwrite`` with ``resume``, or ``resume`` on
+        a directory holding another sweep (the message names what differs).
     """
     import orjson
 
     from synthgen.dataset import make_dataset
     from synthgen.formats.coco import write_bytes_atomic
+    from synthgen.shards import describe_differences, read_json, state_dir
 
     start = time.perf_counter()
+    if overwrite and resume:
+        raise UserError("options '--overwrite' and '--resume' exclude each other: pass one of them")
     if plan is None:
         plan = plan_sweep(config_path, varies, overrides)
     out = Path(out)
+    asked = {
+        "tool": "synthgen",
+        "sweep_version": 1,
+        "vary": [{"key": v.key, "values": list(v.values)} for v in varies],
+        "base": to_dict(load_config(config_path, list(overrides))),
+    }
+    record_path = state_dir(out) / SWEEP_RECORD
     if out.exists() and not out.is_dir():
         raise UserError(f"{out}: output path is a file, not a directory")
     if out.is_dir() and any(out.iterdir()) and not overwrite:
-        raise UserError(f"{out}: output directory is not empty (pass --overwrite to replace its sweep)")
-    out.mkdir(parents=True, exist_ok=True)
-    if (out / "sweep.json").exists():
-        (out / "sweep.json").unlink()  # an interrupted overwrite never looks finished
+        earlier = record_path if record_path.exists() else out / "sweep.json"
+        if not resume or not earlier.exists():
+            hint = ("pass --resume to continue it, or --overwrite to start again" if record_path.exists()
+                    else "pass --overwrite to replace its sweep")
+            raise UserError(f"{out}: output directory is not empty ({hint})")
+        there = read_json(earlier, "sweep record")
+        if there.get("vary") != asked["vary"] or there.get("base") != asked["base"]:
+            differs = describe_differences(there.get("base") or {}, asked["base"]) or (
+                f"--vary {_vary_text(there.get('vary'))} there, {_vary_text(asked['vary'])} here")
+            raise UserError(f"{out}: holds a sweep of other settings, differing in {differs} "
+                            "(pass --overwrite to replace it)")
+    make_output_dir(out)
+    (out / "sweep.json").unlink(missing_ok=True)  # until every subset is done again, it does not look finished
+    make_output_dir(state_dir(out))
+    write_bytes_atomic(record_path, orjson.dumps(asked, option=orjson.OPT_INDENT_2))
     total = sum(cfg.count for _, _, cfg in plan)
     done = 0
+    kept = 0
     subsets = []
     n_objects = 0
     for rel, values, cfg in plan:
@@ -228,8 +269,9 @@ def run_sweep(
             if progress is not None:
                 progress(offset + k, total)
 
-        summary = make_dataset(cfg, out / rel, overwrite=overwrite, workers=workers, progress=advance)
+        summary = make_dataset(cfg, out / rel, overwrite=overwrite, resume=resume, workers=workers, progress=advance)
         done += summary.images
+        kept += summary.kept
         n_objects += summary.objects
         subsets.append(
             {
@@ -240,19 +282,30 @@ def run_sweep(
                 "dropped": summary.dropped,
             }
         )
-    base = plan[0][2]
     record = {
         "tool": "synthgen",
         "sweep_version": 1,
         "config": None if config_path is None else str(config_path),
         "overrides": list(overrides),
-        "seed": base.seed,
-        "vary": [{"key": v.key, "values": list(v.values)} for v in varies],
+        "seed": plan[0][2].seed,
+        "vary": asked["vary"],
         "subsets": subsets,
-        "base": to_dict(load_config(config_path, list(overrides))),
+        "base": asked["base"],
     }
     write_bytes_atomic(out / "sweep.json", orjson.dumps(record, option=orjson.OPT_INDENT_2))
+    shutil.rmtree(state_dir(out), ignore_errors=True)
     return SweepSummary(
         out=out, subsets=len(plan), images=done, objects=n_objects, seconds=time.perf_counter() - start,
-        records=tuple(subsets),
+        records=tuple(subsets), kept=kept,
     )
+
+
+#: The record of an unfinished sweep, inside the sweep directory's ``.synthgen/``.
+SWEEP_RECORD = "sweep.json"
+
+
+def _vary_text(vary) -> str:
+    if not isinstance(vary, list):
+        return repr(vary)
+    return " ".join(f"{v.get('key')}={','.join(map(value_label, v.get('values', [])))}" for v in vary
+                    if isinstance(v, dict))

@@ -76,6 +76,7 @@ def test_console_entry_runs_as_a_module(tmp_path):
         (["make", "--out", "x", "--count", "many"], "synthgen: error: Invalid value for '--count'"),
         (["make", "--out", "x", "--bogus"], "synthgen: error: No such option: --bogus"),
         (["frob"], "synthgen: error: No such command 'frob'; see 'synthgen --help'"),
+        (["mak"], "synthgen: error: No such command 'mak'. Did you mean 'make'? (see 'synthgen --help')\n"),
     ],
 )
 def test_parser_errors_are_one_line_too(tmp_path, args, pattern):
@@ -95,3 +96,30 @@ def test_a_run_without_objects_says_why(tmp_path):
               "--set", "canvas.height=1", "--set", "objects.size=[0.2,0.2]", "--set", "objects.min_area=1")
     assert res.exit_code == 0
     assert "synthgen: warning: no object passed the annotation rules" in res.stderr
+
+
+def test_one_image_is_singular(tmp_path):
+    """'wrote 1 image', not '1 images'."""
+    res = run("make", "--out", str(tmp_path / "d"), "--count", "1", "--quiet", "--set", "objects.count=[1,1]",
+              "--set", "canvas.width=64", "--set", "canvas.height=48")
+    assert res.exit_code == 0 and res.stdout.startswith("wrote 1 image, 1 object to ")
+
+
+def test_resume_reports_rendered_and_kept_images_apart(tmp_path):
+    """A resume that kept most images gives the rate of the ones it rendered, and the kept ones separately."""
+    import re
+
+    args = ["make", "--out", str(tmp_path / "d"), "--count", "12", "--quiet", "--set", "canvas.width=64",
+            "--set", "canvas.height=48"]
+    assert run(*args).exit_code == 0
+    for name in ("000003.png", "000007.png"):
+        (tmp_path / "d" / "images" / name).unlink()
+    res = run(*args, "--resume")
+    assert res.exit_code == 0, res.output
+    m = re.fullmatch(r"wrote 12 images, \d+ objects to \S+ in ([\d.]+) s: 2 rendered \(([\d.]+) images/s\), "
+                     r"10 kept from before\n", res.stdout)
+    assert m, res.stdout
+    seconds, rate = float(m.group(1)), float(m.group(2))
+    assert rate <= 2 / max(seconds - 0.005, 1e-9) + 0.1  # 2 images over the run's time, not 12
+    res = run(*args, "--resume")  # nothing to do: every image checked and kept
+    assert res.exit_code == 0 and ": none rendered, 12 kept from before" in res.stdout

@@ -109,3 +109,60 @@ def test_inline_table_values_are_swept_like_set(tmp_path):
     for r in summary.records:
         manifest = json.loads((tmp_path / "s" / r["path"] / "manifest.json").read_text())
         assert manifest["config"]["background"]["kind"] == r["values"]["background"]["kind"]
+
+
+def _tree(path):
+    return {p.relative_to(path).as_posix(): p.read_bytes() for p in sorted(path.rglob("*")) if p.is_file()}
+
+
+def test_killed_sweep_resumes_to_identical_files(tmp_path):
+    """SIGKILL a real `synthgen sweep` inside its second subset; the same command plus --resume ends as a clean sweep."""
+    import os
+    import signal
+    import subprocess
+    import sys
+    import time
+    from pathlib import Path
+
+    root = Path(__file__).resolve().parents[1]
+    args = ["sweep", "--vary", "objects.max_iou=0,0.2,0.4", "--count", "40", "--set", "canvas.width=64",
+            "--set", "canvas.height=48", "--set", "objects.count=[1, 4]", "--workers", "1", "--quiet"]
+    out = tmp_path / "killed"
+    journal = out / "objects.max_iou=0.2" / ".synthgen" / "0-of-1.journal"
+    env = {**os.environ, "PYTHONPATH": str(root)}
+    proc = subprocess.Popen([sys.executable, "-m", "synthgen", *args, "--out", str(out)], cwd=root, env=env,
+                            stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
+    deadline = time.monotonic() + 60
+    while proc.poll() is None and time.monotonic() < deadline:
+        if journal.exists() and journal.read_bytes().count(b"\n") >= 5:
+            break
+        time.sleep(0.01)
+    proc.send_signal(signal.SIGKILL)
+    proc.communicate()
+    assert proc.returncode == -signal.SIGKILL
+    assert not (out / "sweep.json").exists()
+
+    res = CliRunner().invoke(app, [*args, "--out", str(out)])
+    assert res.exit_code == 2 and "pass --resume to continue it" in res.stderr
+    res = CliRunner().invoke(app, [*args, "--out", str(out), "--resume"])
+    assert res.exit_code == 0, res.output
+    assert "images kept from before" in res.stdout
+    assert CliRunner().invoke(app, [*args, "--out", str(tmp_path / "clean")]).exit_code == 0
+    assert _tree(out) == _tree(tmp_path / "clean")
+
+
+def test_resume_refuses_a_sweep_of_other_settings(tmp_path):
+    """--resume on a sweep of another base config or other varied values names what differs, writing nothing."""
+    varies = [parse_vary("objects.max_iou=0,0.3")]
+    run_sweep(None, varies, tmp_path / "s", overrides=SMALL, workers=1)
+    before = _tree(tmp_path / "s")
+    runner = CliRunner()
+    base = ["sweep", "--out", str(tmp_path / "s"), "--quiet", "--resume", *[a for o in SMALL for a in ("--set", o)]]
+    res = runner.invoke(app, [*base, "--vary", "objects.max_iou=0,0.3", "--set", "canvas.width=40"])
+    assert res.exit_code == 2 and "canvas.width (48 there, 40 here)" in res.stderr
+    res = runner.invoke(app, [*base, "--vary", "objects.max_iou=0,0.5"])
+    assert res.exit_code == 2 and "--vary objects.max_iou=0,0.3 there, objects.max_iou=0,0.5 here" in res.stderr
+    assert _tree(tmp_path / "s") == before
+    res = runner.invoke(app, [*base, "--vary", "objects.max_iou=0,0.3"])  # a finished sweep: checked, kept
+    assert res.exit_code == 0 and "4 images kept from before" in res.stdout
+    assert _tree(tmp_path / "s") == before
