@@ -10,6 +10,9 @@ entry points are importable from the package itself (loaded on first use, so
 from importlib import import_module
 
 __version__ = "0.1.0"
+#: The name on the package index (``pip install synthgen-shapes``); the import package and the
+#: command are ``synthgen``.  Another, unrelated project is published as ``synthgen``.
+DISTRIBUTION = "synthgen-shapes"
 
 #: public name -> module that defines it
 _EXPORTS = {

@@ -17,7 +17,7 @@ from typing import Annotated, Optional
 
 import typer
 
-from synthgen.errors import UserError
+from synthgen.errors import UserError, require_extra
 
 __all__ = ["app", "main"]
 
@@ -187,7 +187,7 @@ def make(
         Optional[str],
         typer.Option(
             "--cluster", metavar="ADDRESS|local",
-            help="Render on a Dask cluster (scheduler address, or 'local'); needs pip install 'synthgen\\[cluster]'.",
+            help="Render on a Dask cluster (scheduler address, or 'local'); needs pip install 'synthgen-shapes\\[cluster]'.",
         ),
     ] = None,
     quiet: Annotated[bool, typer.Option("--quiet", "-q", help="No progress bar.")] = False,
@@ -421,6 +421,8 @@ def score(
                         + ("both" if predictions is not None else "neither") + ")")
     _check_output_file("--json", json_out)
     _check_output_file("--plot", plot)
+    if plot is not None:
+        require_extra("matplotlib", "plots", "option '--plot'")
     if pred_dir is not None:
         points = score_sweep(dataset, pred_dir, by or ())
         console = Console()
@@ -700,6 +702,8 @@ def stats(
 
     _check_output_file("--json", json_out)
     _check_output_file("--plot", plot)
+    if plot is not None:
+        require_extra("matplotlib", "plots", "option '--plot'")
     ds = report.open_dataset(dataset)
     result = report.dataset_stats(ds.coco, ds.manifest)
     Console(highlight=False, soft_wrap=False).print(report.stats_tables(result, title=ds.name))

@@ -1,4 +1,4 @@
-"""Rendering on a Dask distributed cluster (optional extra: ``pip install 'synthgen[cluster]'``).
+"""Rendering on a Dask distributed cluster (optional extra: ``pip install 'synthgen-shapes[cluster]'``).
 
 Each task renders one block of image indices with
 :func:`synthgen.dataset.render_block`, writing the image files straight into
@@ -22,7 +22,7 @@ from synthgen.errors import UserError
 __all__ = ["INSTALL_HINT", "DaskBackend", "connect"]
 
 #: How to get the optional dependency.
-INSTALL_HINT = "pip install 'synthgen[cluster]'"
+INSTALL_HINT = "pip install 'synthgen-shapes[cluster]'"
 
 
 class DaskBackend:

@@ -21,6 +21,7 @@ __all__ = [
     "check_range",
     "as_tuples",
     "make_output_dir",
+    "require_extra",
 ]
 
 
@@ -82,6 +83,23 @@ def make_output_dir(path) -> None:
         blocker = next((p for p in [path, *path.parents] if p.exists() and not p.is_dir()), None)
         why = f"'{blocker}' is a file" if blocker is not None else exc.strerror or str(exc)
         raise InputFileError(path, f"cannot be created as an output directory ({why})") from None
+
+
+def require_extra(module: str, extra: str, what: str) -> None:
+    """Raise :class:`UserError` naming the extra to install when the optional ``module`` cannot be imported.
+
+    ``what`` names the feature, e.g. ``"option '--plot'"``.
+    """
+    import importlib
+
+    try:
+        importlib.import_module(module)
+    except ImportError:
+        from synthgen import DISTRIBUTION
+
+        raise UserError(
+            f"{what} needs {module}, which is not installed: pip install '{DISTRIBUTION}[{extra}]'"
+        ) from None
 
 
 def _show(value: object) -> str:

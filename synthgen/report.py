@@ -63,7 +63,7 @@ from pathlib import Path
 
 import numpy as np
 
-from synthgen.errors import InputFileError, UserError
+from synthgen.errors import InputFileError, UserError, require_extra
 from synthgen.geometry import as_boxes, pairwise_iou
 
 __all__ = [
@@ -1510,6 +1510,7 @@ def stats_figure(coco: Mapping, *, width: float = 12.0, height: float = 7.0, tit
         Six panels (the sixth: COCO area ranges); a panel whose fact the file
         does not record says so instead of plotting.
     """
+    require_extra("matplotlib", "plots", "a figure")
     from matplotlib.figure import Figure
 
     f = _object_facts(coco)

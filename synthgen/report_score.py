@@ -10,7 +10,7 @@ import math
 from collections.abc import Mapping, Sequence
 from pathlib import Path
 
-from synthgen.errors import InputFileError, UserError
+from synthgen.errors import InputFileError, UserError, require_extra
 from synthgen.score import STAT_NAMES, BinResult, Evaluation, SweepPoint
 
 __all__ = [
@@ -63,6 +63,7 @@ def figure_size_px(n_panels: int) -> tuple[int, int]:
 
 
 def _new_figure(n_panels: int):
+    require_extra("matplotlib", "plots", "a figure")
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
 

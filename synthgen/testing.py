@@ -1,7 +1,7 @@
 """Known-answer helpers, hypothesis strategies and pytest fixtures for testing detection code.
 
 Installed as a pytest plugin (entry point ``synthgen`` in group ``pytest11``),
-so after ``pip install synthgen`` the fixtures :func:`synth_scene`,
+so after ``pip install 'synthgen-shapes[testing]'`` the fixtures :func:`synth_scene`,
 :func:`synth_dataset` and :func:`synth_predictions` are available in any test
 suite with no set-up.  The plain helpers import neither pytest nor hypothesis;
 the strategies import hypothesis when called.
@@ -203,6 +203,19 @@ def small_dataset(path, *, formats: tuple[str, ...] = ("coco",), **kwargs) -> Pa
 # --------------------------------------------------------------------------- hypothesis strategies
 
 
+def _strategies():
+    """``hypothesis.strategies``, or an ImportError saying which extra brings it."""
+    try:
+        from hypothesis import strategies
+    except ImportError:
+        from synthgen import DISTRIBUTION
+
+        raise ImportError(
+            f"synthgen's strategies need hypothesis, which is not installed: pip install '{DISTRIBUTION}[testing]'"
+        ) from None
+    return strategies
+
+
 def boxes(
     canvas: tuple[float, float] = (640.0, 480.0),
     *,
@@ -215,7 +228,7 @@ def boxes(
     Every box has ``min_size <= x1 - x0, y1 - y0 <= max_size`` and lies in
     ``[0, width] x [0, height]``.
     """
-    from hypothesis import strategies as st
+    st = _strategies()
 
     width, height = float(canvas[0]), float(canvas[1])
     top = min(width, height) if max_size is None else min(max_size, width, height)
@@ -241,7 +254,7 @@ def box_pairs(iou: tuple[float, float] = (0.05, 1.0), canvas: tuple[float, float
     ``b`` has ``a``'s size and is shifted along x or y by the analytic offset
     of :func:`pair_at_iou`; both lie inside the canvas.
     """
-    from hypothesis import strategies as st
+    st = _strategies()
 
     lo, hi = iou
     if not 0.0 < lo <= hi <= 1.0:
@@ -287,7 +300,7 @@ def scenes(
     layouts: tuple[str, ...] = ("scatter",),
 ):
     """Strategy for composed scenes (:class:`synthgen.scene.Scene`) with all their facts."""
-    from hypothesis import strategies as st
+    st = _strategies()
 
     from synthgen.scene import render_scene
 
@@ -330,7 +343,7 @@ def coco_datasets(
 
     ``expected`` is ``{"case", "AP", "AP50", "AP75"}``.
     """
-    from hypothesis import strategies as st
+    st = _strategies()
 
     @st.composite
     def dataset(draw):

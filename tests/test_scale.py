@@ -220,7 +220,7 @@ def test_cluster_without_dask_says_how_to_install(tmp_path, monkeypatch):
     monkeypatch.setitem(sys.modules, "distributed", None)  # makes `import distributed` fail
     res = CliRunner().invoke(app, ["make", "--out", str(tmp_path / "d"), "--cluster", "local", *TINY_CLI, "-q"])
     assert res.exit_code == 2
-    assert "pip install 'synthgen[cluster]'" in res.stderr and len(res.stderr.strip().splitlines()) == 1
+    assert "pip install 'synthgen-shapes[cluster]'" in res.stderr and len(res.stderr.strip().splitlines()) == 1
     assert not (tmp_path / "d").exists()
 
 
