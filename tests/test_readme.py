@@ -1,8 +1,9 @@
 """The README's examples run as written, top to bottom, in a fresh folder.
 
-Every fenced ``bash`` and ``python`` block of README.md runs in document order in one temporary
-directory that holds a copy of ``configs/``; a block without a language whose lines start with
-``$ `` shows a command and its output, and the command must print exactly that.  A block is left
+Every fenced ``bash`` block and ``python`` block (saved as a plain script) of README.md runs in
+document order in one temporary directory that holds a copy of ``configs/``; a block without a
+language whose lines start with ``$ `` shows a command and its output, and the command must print
+exactly that.  A block is left
 out only when the line before its fence is ``<!-- not run by the tests: REASON -->`` (say, a job
 script for a batch scheduler).
 
@@ -74,8 +75,10 @@ def _run(block: Block, tmp: Path, env: dict) -> subprocess.CompletedProcess:
         if shutil.which("synthgen", path=env["PATH"]) is None:  # a checkout that is not installed
             script += 'synthgen() { "$SYNTHGEN_TEST_PYTHON" -m synthgen "$@"; }\n'
         cmd = ["bash", "-e", "-o", "pipefail", "-c", script + block.body]
-    else:
-        cmd = [sys.executable, "-c", block.body]
+    else:  # as a plain script, the way a reader would save and run it
+        script = tmp / f"readme_line_{block.line}.py"
+        script.write_text(block.body)
+        cmd = [sys.executable, script.name]
     return subprocess.run(cmd, cwd=tmp, env=env, capture_output=True, text=True, timeout=600)
 
 
