@@ -7,6 +7,7 @@ import json
 import shutil
 
 import numpy as np
+import orjson
 import pytest
 from pycocotools import mask as cocomask
 from typer.testing import CliRunner
@@ -129,9 +130,13 @@ def test_check_finds_a_file_changed_after_make(made, tmp_path):
     path = bad / "yolo" / "000000.txt"
     path.write_text(path.read_text() + "\n")  # same labels, different bytes
     report = check_dataset(bad)
-    assert [(p.file, p.record, p.rule) for p in report.problems] == [
-        ("manifest.json", "files['yolo/000000.txt']", "file must match its sha256 digest")
+    manifest = orjson.loads((bad / "manifest.json").read_bytes())
+    expected = manifest["files"]["yolo/000000.txt"]
+    actual = hashlib.sha256(path.read_bytes()).hexdigest()  # hashlib: the outside reference
+    assert [(p.file, p.record, p.rule, p.value) for p in report.problems] == [
+        ("manifest.json", "files['yolo/000000.txt']", f"file must match its sha256 digest {expected}", actual)
     ]
+    assert expected in str(report.problems[0]) and actual in str(report.problems[0])
 
 
 def test_check_quick_reads_headers_only(made):
