@@ -8,7 +8,8 @@ the dataset directory ``DIR`` (or a COCO file given directly):
 ======  ====================================================================
 COCO    ``annotations.json``, ``annotations.<split>.json``, ``annotations/*.json``
 VOC     ``voc/**/*.xml`` or ``Annotations/**/*.xml``
-YOLO    ``yolo/**/*.txt`` with ``yolo/labels.txt`` (or ``labels/`` + ``classes.txt``)
+YOLO    ``yolo/**/*.txt`` with ``yolo/labels.txt`` (or ``labels/**/*.txt`` with ``classes.txt``
+        or the ``names`` of ``data.yaml``)
 tokens  ``tokens.jsonl`` (and ``tokens.<split>.jsonl``) with ``tokens.vocab.json``
 masks   ``masks/**/*.png`` (instance ids) or ``masks.jsonl`` (per-object RLE)
 images  ``images/`` (or ``JPEGImages/`` for VOC, or beside the COCO file)
@@ -57,6 +58,8 @@ from synthgen.formats.coco import structure_problems
 __all__ = ["Problem", "CheckReport", "check_dataset"]
 
 _TOL = 1e-6
+# YOLO dataset files naming the classes, beside images/ and labels/ (common practice)
+_DATA_YAML = ("data.yaml", "data.yml", "dataset.yaml")
 _IMAGE_SUFFIXES = (".png", ".jpg", ".jpeg", ".bmp", ".tif", ".tiff", ".webp")
 
 
@@ -470,15 +473,21 @@ class _Checker:
 
     # -- YOLO ---------------------------------------------------------------------
     def yolo(self, d: Path) -> None:
-        labels_path = next((d / n for n in (yolo_fmt.LABELS_FILE, "classes.txt") if (d / n).is_file()), None)
-        if labels_path is None and (self.root / "classes.txt").is_file():
-            labels_path = self.root / "classes.txt"
+        places = [d / yolo_fmt.LABELS_FILE, d / "classes.txt", self.root / "classes.txt"]
+        places += [self.root / n for n in _DATA_YAML]
+        labels_path = next((p for p in places if p.is_file()), None)
         labels = None
         if labels_path is None:
-            self.add(d / yolo_fmt.LABELS_FILE, "", "class-name file must exist", "<missing>")
+            self.add(
+                d / yolo_fmt.LABELS_FILE, "", f"class-name file must exist (or classes.txt, or {_DATA_YAML[0]})",
+                "<missing>",
+            )
         else:
             try:
-                labels = yolo_fmt.read_labels(labels_path)
+                if labels_path.suffix in (".yaml", ".yml"):
+                    labels = yolo_fmt.read_data_yaml(labels_path)
+                else:
+                    labels = yolo_fmt.read_labels(labels_path)
             except InputFileError as e:
                 self.add_error(e)
             if labels is not None and self.ref_names is not None and labels != self.ref_names:

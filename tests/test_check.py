@@ -455,3 +455,47 @@ def test_a_json_file_given_alone_that_is_not_json_is_unusable(tmp_path):
     (tmp_path / "b.json").write_text("[1, 2]")
     with pytest.raises(InputFileError, match=r"b\.json: top level: must be a COCO JSON object \(got 'list'\)"):
         check_dataset(tmp_path / "b.json")
+
+
+# -- the common YOLO layout with data.yaml (issue 13 item 5) ------------------------------
+def _yolo_layout(root, yaml_text):
+    from PIL import Image
+
+    for sub in ("images/train", "labels/train"):
+        (root / sub).mkdir(parents=True)
+    Image.new("RGB", (20, 10)).save(root / "images" / "train" / "a.jpg")
+    (root / "labels" / "train" / "a.txt").write_text("0 0.5 0.5 0.2 0.2\n2 0.25 0.5 0.1 0.2\n")
+    (root / "data.yaml").write_text(yaml_text)
+
+
+@pytest.mark.parametrize(
+    "yaml_text",
+    [
+        # both spellings of 'names' in the common YOLO training tools' data.yaml (common practice)
+        "path: .\ntrain: images/train\nval: images/train\nnc: 3\nnames: [bolt, nut, washer]\n",
+        "path: .\ntrain: images/train\nnames:\n  0: bolt\n  1: nut\n  2: washer\n",
+    ],
+)
+def test_yolo_layout_reads_class_names_from_data_yaml(tmp_path, yaml_text):
+    """images/ + labels/ + data.yaml is checked with the class names of data.yaml (list or mapping)."""
+    _yolo_layout(tmp_path, yaml_text)
+    report = check_dataset(tmp_path)
+    assert report.formats == ("yolo",) and report.problems == ()
+    assert report.counts["yolo"] == {"files": 1, "images": 1, "objects": 2}
+
+
+def test_a_class_past_data_yaml_names_is_reported(tmp_path):
+    """A class index past the names of data.yaml is reported against data.yaml."""
+    _yolo_layout(tmp_path, "names: [bolt, nut]\n")
+    (p,) = check_dataset(tmp_path).problems
+    assert (p.file, p.record, p.rule, p.value) == ("labels/train/a.txt", "line 2", "class must be in [0, 1] (data.yaml)", 2)
+
+
+def test_a_data_yaml_without_usable_names_is_reported(tmp_path):
+    """data.yaml that is not YAML, or whose nc disagrees with its names, is a problem naming it."""
+    _yolo_layout(tmp_path, "names: [bolt, nut\n")
+    (p,) = _only(check_dataset(tmp_path), "must be valid YAML")
+    assert p.file == "data.yaml"
+    (tmp_path / "data.yaml").write_text("nc: 4\nnames: [bolt, nut, washer]\n")
+    (p,) = check_dataset(tmp_path).problems
+    assert (p.file, p.record, p.value) == ("data.yaml", "nc", 4)

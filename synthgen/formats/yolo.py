@@ -40,6 +40,7 @@ __all__ = [
     "parse_yolo",
     "read_yolo",
     "read_labels",
+    "read_data_yaml",
 ]
 
 LABELS_FILE = "labels.txt"
@@ -206,6 +207,50 @@ def _line_problem(parts: list[str]) -> tuple[str, object] | None:
     if not all(math.isfinite(v) for v in vals):
         return "xc yc w h must be finite", " ".join(parts[1:])
     return None
+
+
+def read_data_yaml(path) -> list[str]:
+    r"""Class names from a YOLO dataset file (``data.yaml``), in class-index order.
+
+    The file is YAML with ``names`` either a list (index = position) or a
+    mapping index -> name (indices 0 .. n-1); ``nc``, when present, must be the
+    number of names.  Other keys (``path``, ``train``, ``val``, ...) are not
+    read.
+
+    Raises
+    ------
+    synthgen.errors.InputFileError
+        When the file is not YAML, has no usable ``names``, or ``nc`` disagrees.
+
+    Examples
+    --------
+    >>> import tempfile, pathlib
+    >>> f = pathlib.Path(tempfile.mkdtemp()) / "data.yaml"
+    >>> _ = f.write_text("nc: 2\nnames: {0: bolt, 1: washer}\n")
+    >>> read_data_yaml(f)
+    ['bolt', 'washer']
+    """
+    import yaml
+
+    path = Path(path)
+    try:
+        doc = yaml.safe_load(read_input_text(path))
+    except yaml.YAMLError as e:
+        mark = getattr(e, "problem_mark", None)
+        where = f"line {mark.line + 1}" if mark is not None else ""
+        raise bad_record(path, where, "must be valid YAML", str(getattr(e, "problem", e))) from None
+    names = doc.get("names") if isinstance(doc, dict) else None
+    if isinstance(names, dict):
+        keys = sorted(names, key=lambda k: (not isinstance(k, int), k if isinstance(k, int) else 0))
+        if keys != list(range(len(names))):
+            raise bad_record(path, "names", "must map the class indices 0 .. n-1 to names", keys)
+        names = [names[k] for k in keys]
+    if not (isinstance(names, list) and all(isinstance(n, (str, int, float)) for n in names)):
+        raise bad_record(path, "names", "must be a list of class names or a mapping index -> name", names)
+    nc = doc.get("nc")
+    if nc is not None and nc != len(names):
+        raise bad_record(path, "nc", f"must be the number of names ({len(names)})", nc)
+    return [str(n) for n in names]
 
 
 def read_yolo(path, width: float | None = None, height: float | None = None) -> tuple[np.ndarray, np.ndarray]:
