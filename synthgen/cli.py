@@ -448,7 +448,14 @@ def check(
 def export(
     dataset: Annotated[Path, typer.Argument(help="Dataset directory written by make.", show_default=False)],
     formats: FormatsOpt = "voc,yolo",
-    out: Annotated[Optional[Path], typer.Option("--out", "-o", help="Output directory (default: the dataset).")] = None,
+    out: Annotated[
+        Optional[Path],
+        typer.Option(
+            "--out", "-o",
+            help="Output directory (default: the dataset). Another directory becomes a dataset of its own: "
+            "images hard-linked (or copied), annotations.json, the formats.",
+        ),
+    ] = None,
     split: SplitOpt = None,
     seed: Annotated[
         Optional[int], typer.Option(help="Seed for splits and random token order (default: the manifest's).")
@@ -485,8 +492,11 @@ def export(
         dataset, format_names, out=out, split=fractions, seed=seed, n_bins=bins, order=order.value, masks=masks.value,
         noise=noise,
     )
+    linked = done.pop("images", None)
     written = ", ".join(f"{k} ({n} images)" for k, n in done.items()) or "nothing new"
-    typer.echo(f"wrote {written} to {out if out is not None else dataset}")
+    where = out if out is not None else dataset
+    took = "" if linked is None else f"; {linked} image{'s' if linked != 1 else ''} linked or copied into {where / 'images'}"
+    typer.echo(f"wrote {written} to {where}{took}")
 
 
 @app.command()

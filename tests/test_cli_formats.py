@@ -190,3 +190,13 @@ def test_pad_to_needs_tokens(tmp_path):
     assert run("make", "--out", out, *SMALL).exit_code == 0
     res = run("export", out, "--formats", "voc", "--pad-to", 5)
     assert res.exit_code == 2 and "--pad-to" in res.stderr
+
+
+def test_export_elsewhere_then_check_it(made, tmp_path):
+    """export DIR --out OTHER gives a folder check passes on its own, and says how many images it took along."""
+    res = run("export", made, "--formats", "yolo,tokens", "--out", tmp_path / "o")
+    assert res.exit_code == 0, res.output
+    assert res.stdout.strip().endswith(f"4 images linked or copied into {tmp_path / 'o' / 'images'}")
+    res = run("check", tmp_path / "o")
+    assert res.exit_code == 0, res.output
+    assert "coco 4 images" in res.stdout and "yolo 4 images" in res.stdout and "no problems" in res.stdout
