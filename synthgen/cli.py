@@ -340,6 +340,23 @@ def jitter(
     except ConfigError as exc:
         raise _option_error(exc) from None
     typer.echo(orjson.dumps(summary, option=orjson.OPT_INDENT_2).decode())
+    for name, change in summary["nudged"].items():
+        if tuple(change["asked"]) != getattr(DetectorSpec(), name):  # a range the user gave
+            option = _JITTER_OPTIONS[f"jitter.{name}"]
+            asked, used = (",".join(f"{v:g}" for v in change[k]) for k in ("asked", "used"))
+            typer.echo(
+                f"synthgen: note: {option} {asked} ends on a COCO IoU threshold; used {used}, so every box is "
+                "on a known side of it (recorded under 'nudged')",
+                err=True,
+            )
+    if summary["ambiguous"]:
+        n = summary["ambiguous"]
+        typer.echo(
+            f"synthgen: note: 'ambiguous': {n} prediction{'s' if n != 1 else ''} also overlap another ground-truth "
+            "box at IoU >= 0.5 (less than their own); an evaluator may pair such a box with that other object when "
+            "its own is already taken, so counts per kind can differ from an evaluator's by up to this number",
+            err=True,
+        )
 
 @app.command()
 @reported

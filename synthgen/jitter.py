@@ -61,6 +61,9 @@ __all__ = [
     "NOISE_STREAM",
     "noise_padder",
     "IOU_TOLERANCE",
+    "COCO_IOU_THRESHOLDS",
+    "COCO_MARGIN",
+    "clear_of_thresholds",
     "MAX_BACKGROUND",
     "ERROR_MODES",
     "DETECTION_KINDS",
@@ -87,6 +90,14 @@ __all__ = [
 
 #: Largest allowed difference between a requested and an achieved IoU.
 IOU_TOLERANCE = 1e-9
+
+#: The IoU thresholds of COCO-style AP: ``linspace(0.5, 0.95, 10)`` (pycocotools ``cocoeval.py``).
+COCO_IOU_THRESHOLDS = tuple(float(t) for t in np.linspace(0.5, 0.95, 10))
+
+#: How far :func:`clear_of_thresholds` moves a range end that sits on a COCO threshold:
+#: far above :data:`IOU_TOLERANCE` and the rounding of any float64 IoU, far below any
+#: difference a detector's user could mean.
+COCO_MARGIN = 1e-6
 
 #: Directions of error for :func:`to_iou`:
 #: ``shift`` moves the box without changing its size; ``grow`` scales it up
@@ -581,6 +592,46 @@ def _directions(modes: tuple[str, ...], n: int, rng: np.random.Generator) -> tup
         d[pick == k] = table[m][pick == k]
     names = np.asarray(modes)[pick] if n else np.zeros(0, dtype="<U6")
     return d, names
+
+
+def clear_of_thresholds(iou, thresholds=COCO_IOU_THRESHOLDS, margin: float = COCO_MARGIN) -> tuple[float, float]:
+    """An IoU range moved off the evaluation thresholds its ends sit on.
+
+    A box made at IoU exactly ``t`` comes out at ``t`` plus or minus a few
+    1e-15, so an evaluator's ``IoU >= t`` test passes for about half of them.
+    An end within 1e-9 of a threshold ``t`` is therefore moved inward by
+    ``margin``: a low end to ``t + margin`` (every box matched at ``t``, as
+    the ``>=`` rule means), a high end to ``t - margin`` (none matched at
+    ``t``); a one-point range ``[t, t]`` becomes ``[t + margin, t + margin]``.
+
+    Parameters
+    ----------
+    iou : (lo, hi)
+    thresholds : sequence of float
+        Default: COCO's ``0.5, 0.55, ..., 0.95``.
+    margin : float
+
+    Returns
+    -------
+    (lo, hi)
+        The range to draw from (the same when no end touches a threshold).
+
+    Examples
+    --------
+    >>> clear_of_thresholds((0.5, 0.5)), clear_of_thresholds((0.55, 0.7)), clear_of_thresholds((0.52, 0.68))
+    ((0.500001, 0.500001), (0.550001, 0.699999), (0.52, 0.68))
+    """
+    lo, hi = (float(v) for v in iou)
+
+    def touches(v: float) -> float | None:
+        return next((t for t in thresholds if abs(v - t) <= 1e-9), None)
+
+    t_lo, t_hi = touches(lo), touches(hi)
+    if lo == hi:
+        return (round(t_lo + margin, 12),) * 2 if t_lo is not None else (lo, hi)
+    new_lo = round(t_lo + margin, 12) if t_lo is not None else lo
+    new_hi = round(t_hi - margin, 12) if t_hi is not None else hi
+    return (new_lo, new_hi) if new_lo <= new_hi else (lo, hi)
 
 
 def _draw_targets(lo: float, hi: float, n: int, rng: np.random.Generator) -> np.ndarray:
