@@ -300,8 +300,12 @@ def jitter(
         float, typer.Option(help="Background boxes have IoU below this with every ground-truth box.")
     ] = 0.1,
     background_size: Annotated[
-        str, typer.Option(help="Side LO,HI of background boxes as a fraction of the image's shorter side.")
-    ] = "0.05,0.3",
+        str,
+        typer.Option(
+            help="Size of background boxes: 'objects' (each takes the size of a ground-truth box drawn at random) "
+            "or LO,HI, the side as a fraction of the image's shorter side.",
+        ),
+    ] = "objects",
     score_overlap: Annotated[
         float, typer.Option(help="Overlap in [0, 1] of true-positive and other scores (0: true positives rank first).")
     ] = 0.0,
@@ -331,7 +335,7 @@ def jitter(
             duplicate_iou=_pair(duplicate_iou, "--duplicate-iou"),
             background=background,
             background_iou=background_iou,
-            background_size=_pair(background_size, "--background-size"),
+            background_size=None if background_size == "objects" else _pair(background_size, "--background-size"),
             relabel=relabel,
             score_overlap=score_overlap,
             keep_inside=keep_inside,
