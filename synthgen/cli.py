@@ -429,6 +429,14 @@ def score(
         raise UserError("option '--plot' needs at least one --by FACT to plot")
     evaluation, slices = score_files(dataset, predictions, by or ())
     rep.print_report(evaluation, slices)
+    if evaluation.n_unknown_category:
+        n, ids = evaluation.n_unknown_category, ", ".join(map(str, evaluation.unknown_category_ids[:10]))
+        more = "" if len(evaluation.unknown_category_ids) <= 10 else ", ..."
+        typer.echo(
+            f"synthgen: warning: {n} prediction{'s' if n != 1 else ''} in {predictions} name a category_id the "
+            f"ground truth does not list ({ids}{more}); they count in no metric",
+            err=True,
+        )
     if plot is not None:
         rep.plot_slices(slices, plot, title=f"{predictions.name} on {dataset.name}")
     if json_out is not None:
