@@ -21,12 +21,45 @@ from synthgen.errors import UserError
 
 __all__ = ["app", "main"]
 
+class _Plain:
+    """Help as people read it: a flag shows no value type (no '<bool>'), and arguments are written
+    in upper case, an optional one in brackets, in the usage line and in the arguments panel."""
+
+    def get_params(self, ctx):
+        params = super().get_params(ctx)
+        for p in params:
+            if p.metavar is None and getattr(p, "is_flag", False):
+                p.metavar = ""
+            elif p.metavar is None and p.param_type_name == "argument":
+                p.metavar = p.name.upper()
+        return params
+
+    def collect_usage_pieces(self, ctx):
+        pieces = [self.options_metavar] if self.options_metavar else []
+        for p in self.get_params(ctx):
+            if p.param_type_name == "argument":
+                name = p.metavar + ("..." if p.nargs != 1 else "")
+                pieces.append(name if p.required else f"[{name}]")
+        return pieces
+
+
+class _Command(_Plain, typer.core.TyperCommand):
+    pass
+
+
+class _Group(_Plain, typer.core.TyperGroup):
+    def collect_usage_pieces(self, ctx):
+        return typer.core.TyperGroup.collect_usage_pieces(self, ctx)
+
+
 app = typer.Typer(
     name="synthgen",
     help="Object-detection test data whose right answer is known exactly.",
     add_completion=False,
     no_args_is_help=True,
     pretty_exceptions_enable=False,
+    cls=_Group,
+    context_settings={"help_option_names": ["-h", "--help"]},
 )
 
 
@@ -123,7 +156,7 @@ FormatsOpt = Annotated[
 ]
 SplitOpt = Annotated[
     Optional[str],
-    typer.Option("--split", help="Split the images, e.g. train=0.8,val=0.1,test=0.1 (one COCO file per split)."),
+    typer.Option("--split", help="Split the images, e.g. train=0.8,val=0.2 (one COCO file per split)."),
 ]
 
 
@@ -310,7 +343,12 @@ def jitter(
         float, typer.Option(help="Overlap in [0, 1] of true-positive and other scores (0: true positives rank first).")
     ] = 0.0,
     modes: Annotated[
-        str, typer.Option(help="Directions of localization error, comma-separated: shift, grow, shrink, aspect, free.")
+        str,
+        typer.Option(
+            help="Directions of localization error, comma-separated, from: shift, grow, shrink, aspect, free "
+            "(default: all five).",
+            show_default=False,
+        ),
     ] = "shift,grow,shrink,aspect,free",
     keep_inside: Annotated[bool, typer.Option(help="Keep every predicted box inside its image.")] = True,
 ) -> None:
@@ -396,7 +434,7 @@ def score(
         typer.Option(
             "--pred-dir",
             help="Score a sweep: DATASET is the sweep directory and this directory holds one results file "
-            "per subset, at the subset's relative path plus .json (e.g. 'objects.size=[4, 8].json').",
+            "per subset, at the subset's relative path plus .json (e.g. objects.size=[4,8].json).",
         ),
     ] = None,
 ) -> None:
@@ -490,7 +528,10 @@ def export(
         Optional[int], typer.Option(help="Seed for splits and random token order (default: the manifest's).")
     ] = None,
     bins: Annotated[int, typer.Option("--bins", help="Token bins per axis.")] = 1000,
-    order: Annotated[TokenOrder, typer.Option(help="Object order in token sequences.")] = TokenOrder.random,
+    order: Annotated[
+        TokenOrder,
+        typer.Option(metavar="ORDER", help="Object order in token sequences: random, raster, area or distance."),
+    ] = TokenOrder.random,
     masks: Annotated[MaskMode, typer.Option(help="Instance masks as id PNGs or per-object RLE lines.")] = MaskMode.png,
     pad_to: Annotated[
         Optional[int],
@@ -615,7 +656,7 @@ def show(
     out: Annotated[Path, typer.Option("--out", "-o", help="Contact sheet to write (PNG).")] = ...,
     images: Annotated[
         Optional[int],
-        typer.Option("--images", "-n", help="Number of images: the first N by image id [default: 16].", min=1),
+        typer.Option("--images", "-n", help="Number of images: the first N by image id (default: 16).", min=1),
     ] = None,
     ids: Annotated[
         Optional[str],
@@ -712,6 +753,11 @@ def stats(
         fig = report.stats_figure(ds.coco, title=title)
         report.save_figure(fig, plot)
         typer.echo(f"wrote {plot}")
+
+
+for _info in app.registered_commands:  # every command's help in the plain style above
+    if _info.cls in (None, typer.core.TyperCommand):
+        _info.cls = _Command
 
 
 def main() -> None:
