@@ -388,7 +388,7 @@ class _Checker:
         n = len(found)
         if n not in (len(anns), len(plain)):
             ref = plain if abs(n - len(plain)) < abs(n - len(anns)) else anns
-            missing, extra = _unmatched([self._ref_object(stem, a) for a in ref], found, tol)
+            missing, extra = _unmatched([self._ref_object(a) for a in ref], found, tol)
             detail = []
             if missing:
                 detail.append(f"not found: annotation id {_listing(missing)}")
@@ -404,7 +404,7 @@ class _Checker:
         if size is not None and size != self.ref_sizes[stem]:
             self.add(path, "size", f"must be the image size in annotations.json {self.ref_sizes[stem]}", size)
 
-    def _ref_object(self, stem: str, ann: dict) -> tuple:
+    def _ref_object(self, ann: dict) -> tuple:
         """(annotation id, category name, xyxy box or None) of a reference annotation."""
         bbox = ann.get("bbox")
         box = None

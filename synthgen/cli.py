@@ -21,6 +21,7 @@ from synthgen.errors import UserError
 
 __all__ = ["app", "main"]
 
+
 class _Plain:
     """Help as people read it: a flag shows no value type (no '<bool>'), and arguments are written
     in upper case, an optional one in brackets, in the usage line and in the arguments panel."""

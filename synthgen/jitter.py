@@ -56,6 +56,7 @@ import numpy as np
 
 from synthgen.errors import ConfigError, check_number, check_range
 from synthgen.geometry import as_boxes, box_iou, boxes_valid
+from synthgen.score import IOU_THRESHOLDS
 
 __all__ = [
     "NOISE_STREAM",
@@ -92,8 +93,8 @@ __all__ = [
 #: Largest allowed difference between a requested and an achieved IoU.
 IOU_TOLERANCE = 1e-9
 
-#: The IoU thresholds of COCO-style AP: ``linspace(0.5, 0.95, 10)`` (pycocotools ``cocoeval.py``).
-COCO_IOU_THRESHOLDS = tuple(float(t) for t in np.linspace(0.5, 0.95, 10))
+#: The IoU thresholds of COCO-style AP, 0.5, 0.55, ..., 0.95 (their home is :mod:`synthgen.score`).
+COCO_IOU_THRESHOLDS = tuple(float(t) for t in IOU_THRESHOLDS)
 
 #: How far :func:`clear_of_thresholds` moves a range end that sits on a COCO threshold:
 #: far above :data:`IOU_TOLERANCE` and the rounding of any float64 IoU, far below any

@@ -136,6 +136,11 @@ def test_plugin_loads_in_an_outside_project(pytester, monkeypatch):
             assert len(preds) == len(coco["annotations"]) - len(truth["missed"])
         """
     )
+    _run_as_outside_project(pytester, monkeypatch).assert_outcomes(passed=5)
+
+
+def _run_as_outside_project(pytester, monkeypatch):
+    """Run pytest in a subprocess on the files made in ``pytester``, with synthgen's plugin as installed."""
     from importlib.metadata import entry_points
 
     installed = any(ep.value == "synthgen.testing" for ep in entry_points(group="pytest11"))
@@ -145,8 +150,7 @@ def test_plugin_loads_in_an_outside_project(pytester, monkeypatch):
 
         monkeypatch.setenv("PYTHONPATH", str(Path(__file__).resolve().parent.parent))
         args += ["-p", "synthgen.testing"]
-    result = pytester.runpytest_subprocess(*args)
-    result.assert_outcomes(passed=5)
+    return pytester.runpytest_subprocess(*args)
 
 
 @settings(max_examples=100, deadline=None)
@@ -215,15 +219,7 @@ def test_marker_mistakes_fail_with_one_line(pytester, monkeypatch):
             pass
         """
     )
-    from importlib.metadata import entry_points
-
-    args = ["-p", "no:cacheprovider"]
-    if not any(ep.value == "synthgen.testing" for ep in entry_points(group="pytest11")):
-        from pathlib import Path
-
-        monkeypatch.setenv("PYTHONPATH", str(Path(__file__).resolve().parent.parent))
-        args += ["-p", "synthgen.testing"]
-    result = pytester.runpytest_subprocess(*args)
+    result = _run_as_outside_project(pytester, monkeypatch)
     result.assert_outcomes(errors=6)
     text = result.stdout.str()
     for line in [

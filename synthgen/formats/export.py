@@ -307,7 +307,8 @@ def export(
         # A folder of its own is a whole dataset: its images and its COCO file, then the formats.
         links = _image_links(coco, dataset_dir, out)
         _check_options(coco, formats, n_bins, order, masks)  # refused before any image is linked
-        done["images"] = _link_images(links, _output_dir(out))
+        _output_dir(out)
+        done["images"] = _link_images(links)
         formats = ("coco", *(f for f in formats if f != "coco"))
     done.update(write_formats(
         coco,
@@ -348,7 +349,7 @@ def _image_links(coco: dict, dataset_dir: Path, out: Path) -> list[tuple[Path, P
     return links
 
 
-def _link_images(links: list[tuple[Path, Path]], out: Path) -> int:
+def _link_images(links: list[tuple[Path, Path]]) -> int:
     """Hard-link each source to its target, copying where the file system cannot link; returns the count."""
     for src, dst in links:
         dst.parent.mkdir(parents=True, exist_ok=True)
