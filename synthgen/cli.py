@@ -384,7 +384,8 @@ def jitter(
         raise _option_error(exc) from None
     typer.echo(orjson.dumps(summary, option=orjson.OPT_INDENT_2).decode())
     for name, change in summary["nudged"].items():
-        if tuple(change["asked"]) != getattr(DetectorSpec(), name):  # a range the user gave
+        lo, hi = change["asked"]
+        if lo == hi:  # one IoU on a threshold: half the boxes would have fallen on each side; say so
             option = _JITTER_OPTIONS[f"jitter.{name}"]
             asked, used = (",".join(f"{v:g}" for v in change[k]) for k in ("asked", "used"))
             typer.echo(

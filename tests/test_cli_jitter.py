@@ -154,7 +154,7 @@ def test_option_defaults_are_the_library_defaults(tmp_path):
 
     ds = dataset(tmp_path / "ds")
     res = run("jitter", ds, "--out", tmp_path / "p.json")
-    assert res.exit_code == 0 and res.stderr == ""  # the defaults' own nudges are recorded, not announced
+    assert res.exit_code == 0 and res.stderr == ""  # nudges of ranges (not points) are recorded, not announced
     spec = json.loads((tmp_path / "p.truth.json").read_text())["spec"]
     used, _ = clear_spec(DetectorSpec())  # as used: range ends moved off COCO's thresholds
     expected = {f.name: getattr(used, f.name) for f in dataclasses.fields(DetectorSpec)}
