@@ -8,7 +8,8 @@ the dataset directory ``DIR`` (or a COCO file given directly):
 ======  ====================================================================
 COCO    ``annotations.json``, ``annotations.<split>.json``, ``annotations/*.json``
 VOC     ``voc/**/*.xml`` or ``Annotations/**/*.xml``
-YOLO    ``yolo/**/*.txt`` with ``yolo/labels.txt`` (or ``labels/`` + ``classes.txt``)
+YOLO    ``yolo/**/*.txt`` with ``yolo/labels.txt`` (or ``labels/**/*.txt`` with ``classes.txt``
+        or the ``names`` of ``data.yaml``)
 tokens  ``tokens.jsonl`` (and ``tokens.<split>.jsonl``) with ``tokens.vocab.json``
 masks   ``masks/**/*.png`` (instance ids) or ``masks.jsonl`` (per-object RLE)
 images  ``images/`` (or ``JPEGImages/`` for VOC, or beside the COCO file)
@@ -18,10 +19,15 @@ Rules: referenced image files exist and decode, with the size the annotations
 give; boxes are finite, non-empty and inside their image (to 1e-6 px or 1e-6
 of the normalized side); ids are unique and positive; annotations refer to
 existing images and categories; class names and indices agree between
-formats; every format holds the same number of images and, per image, of
-objects as the COCO file; files listed in a synthgen ``manifest.json`` exist
-and match their sha256 digests.  The box conventions are those of
-:mod:`synthgen.formats`.
+formats; every format holds the same images as the COCO file and, per image,
+its objects (all annotations, or all but ``iscrowd`` regions, which formats
+without an ignore convention leave out): a mismatch is one problem naming the
+image and the objects on either side, paired by category and box; every
+annotation keeps a pixel of its instance-id mask (the rule of
+:mod:`synthgen.formats.masks`); files listed in a synthgen ``manifest.json``
+exist and match their sha256 digests (a mismatch shows both digests).  Every
+bad line of a file is its own problem, and the file's good lines are still
+checked.  The box conventions are those of :mod:`synthgen.formats`.
 """
 
 from __future__ import annotations
@@ -43,6 +49,7 @@ from synthgen.formats import rle
 from synthgen.formats import tokens as tokens_fmt
 from synthgen.formats import voc as voc_fmt
 from synthgen.formats import yolo as yolo_fmt
+from synthgen.formats._common import bad_record, read_input
 from synthgen.formats._common import inside_dataset as _inside
 from synthgen.formats._common import is_int as _is_int
 from synthgen.formats._common import is_number as _is_num
@@ -51,6 +58,8 @@ from synthgen.formats.coco import structure_problems
 __all__ = ["Problem", "CheckReport", "check_dataset"]
 
 _TOL = 1e-6
+# YOLO dataset files naming the classes, beside images/ and labels/ (common practice)
+_DATA_YAML = ("data.yaml", "data.yml", "dataset.yaml")
 _IMAGE_SUFFIXES = (".png", ".jpg", ".jpeg", ".bmp", ".tif", ".tiff", ".webp")
 
 
@@ -132,8 +141,12 @@ class _Checker:
         self._stem_index: dict[str, Path] | None = None
         # From the main COCO file, the reference for the other formats.
         self.ref_objects: dict[str, int] | None = None  # image stem -> annotation count
+        self.ref_anns: dict[str, list[dict]] = {}  # image stem -> its annotations, in file order
+        self.ref_files: dict[str, str] = {}  # image stem -> file_name
+        self.mismatched: set[str] = set()  # formats with a per-image count problem
         self.ref_sizes: dict[str, tuple[int, int]] = {}  # image stem -> (W, H)
         self.ref_names: list[str] | None = None  # category names by id order
+        self.ref_cat_names: dict = {}  # category id -> name
         self.ref_ids: dict[int, str] = {}  # image id -> stem
 
     # -- helpers ----------------------------------------------------------------
@@ -227,7 +240,7 @@ class _Checker:
         cat_ids = {c.get("id") for c in cats}
         files = Counter(im.get("file_name") for im in images)
         size_of = {}
-        per_image = Counter()
+        per_image: dict = {}
         for i, im in enumerate(images):
             record = f"images[{i}] (id {im.get('id')!r})"
             w, h = im.get("width"), im.get("height")
@@ -251,7 +264,7 @@ class _Checker:
                 if _is_int(image_id):
                     self.add(path, record, "image_id must name an image", image_id)
                 continue
-            per_image[image_id] += 1
+            per_image.setdefault(image_id, []).append(a)
             if a.get("category_id") not in cat_ids and _is_int(a.get("category_id")):
                 self.add(path, record, "category_id must name a category", a.get("category_id"))
             if "iscrowd" not in a:
@@ -275,13 +288,16 @@ class _Checker:
         if reference:  # several reference files (splits without a whole-dataset file) add up
             if self.ref_names is None:
                 self.ref_names = [c.get("name") for c in sorted(cats, key=lambda c: _sort_key(c.get("id")))]
+                self.ref_cat_names = {c.get("id"): c.get("name") for c in cats}
             if self.ref_objects is None:
                 self.ref_objects = {}
             for im in images:
                 fn = im.get("file_name")
                 if isinstance(fn, str) and im.get("id") in size_of:
                     stem = Path(fn).with_suffix("").as_posix()
-                    self.ref_objects[stem] = per_image[im["id"]]
+                    self.ref_anns[stem] = per_image.get(im["id"], [])
+                    self.ref_objects[stem] = len(self.ref_anns[stem])
+                    self.ref_files[stem] = fn
                     self.ref_sizes[stem] = size_of[im["id"]]
                     self.ref_ids[im["id"]] = stem
             total = self.counts.setdefault("coco", {"files": 0, "images": 0, "objects": 0})
@@ -347,21 +363,64 @@ class _Checker:
                 for block in iter(lambda: f.read(1 << 20), b""):
                     h.update(block)
             if h.hexdigest() != digest:
-                self.add(path, f"files[{name!r}]", "file must match its sha256 digest", name)
+                self.add(path, f"files[{name!r}]", f"file must match its sha256 digest {digest}", h.hexdigest())
         self.counts["manifest"] = {"files": len(files)}
 
     # -- object counts against the reference ------------------------------------------
-    def compare(self, fmt: str, path: Path, stem: str, n_objects: int, size: tuple[int, int] | None = None) -> None:
+    def compare(
+        self, fmt: str, path: Path, stem: str, found: list, size: tuple[int, int] | None = None, *,
+        record: str = "", tol: float = 0.5, what: str = "objects",
+    ) -> None:
+        """Hold one image's objects in a format against the reference annotations.
+
+        ``found`` lists the format's objects as ``(where, category name, xyxy
+        box in pixels or None)``; a count that differs from the reference (all
+        annotations, or all but crowd regions, which some formats leave out)
+        is one problem naming the image and the objects on either side.
+        """
         if self.ref_objects is None:
             return
         if stem not in self.ref_objects:
-            self.add(path, "", "must belong to an image of annotations.json", stem)
+            self.add(path, record, "must belong to an image of annotations.json", stem)
             return
-        want = self.ref_objects[stem]
-        if n_objects != want:
-            self.add(path, "", f"must hold as many objects as annotations.json ({want})", n_objects)
+        anns = self.ref_anns[stem]
+        plain = [a for a in anns if a.get("iscrowd", 0) != 1]
+        n = len(found)
+        if n not in (len(anns), len(plain)):
+            ref = plain if abs(n - len(plain)) < abs(n - len(anns)) else anns
+            missing, extra = _unmatched([self._ref_object(a) for a in ref], found, tol)
+            detail = []
+            if missing:
+                detail.append(f"not found: annotation id {_listing(missing)}")
+            if extra:
+                detail.append(f"not in annotations.json: {_listing(extra)}")
+            self.add(
+                path, record,
+                f"must hold as many {what} as annotations.json gives image {self.ref_files[stem]} ({len(ref)})"
+                + "".join(f"; {d}" for d in detail),
+                n,
+            )
+            self.mismatched.add(fmt)
         if size is not None and size != self.ref_sizes[stem]:
             self.add(path, "size", f"must be the image size in annotations.json {self.ref_sizes[stem]}", size)
+
+    def _ref_object(self, ann: dict) -> tuple:
+        """(annotation id, category name, xyxy box or None) of a reference annotation."""
+        bbox = ann.get("bbox")
+        box = None
+        if isinstance(bbox, list) and len(bbox) == 4 and all(_is_num(v) for v in bbox):
+            box = (bbox[0], bbox[1], bbox[0] + bbox[2], bbox[1] + bbox[3])
+        return ann.get("id"), self.ref_cat_names.get(ann.get("category_id")), box
+
+    def compare_total(self, fmt: str, where: Path) -> None:
+        """A format whose object total differs from the reference's, unexplained by any per-image problem."""
+        if self.ref_objects is None or fmt in self.mismatched or fmt not in self.counts:
+            return
+        want = sum(self.ref_objects.values())
+        plain = sum(1 for anns in self.ref_anns.values() for a in anns if a.get("iscrowd", 0) != 1)
+        got = self.counts[fmt]["objects"]
+        if got not in (want, plain):
+            self.add(where, "", f"must hold as many objects in all as the images of annotations.json ({want})", got)
 
     def missing(self, fmt: str, seen: set[str], where: str) -> None:
         if self.ref_objects is None:
@@ -406,21 +465,29 @@ class _Checker:
                     self.add(p, f"{record} bndbox", "box must be non-empty (xmin <= xmax, ymin <= ymax)", raw[i].tolist())
                 elif xmin < 1 or ymin < 1 or xmax > w or ymax > h:
                     self.add(p, f"{record} bndbox", f"box must lie inside the image [1, {w}] x [1, {h}]", raw[i].tolist())
-            self.compare("voc", p, stem, n, (w, h))
+            found = [(f"object[{i}]", doc["names"][i], tuple(doc["boxes"][i].tolist())) for i in range(n)]
+            self.compare("voc", p, stem, found, (w, h), tol=1.0)
         self.missing("voc", seen, self.rel(d) + "/{stem}.xml")
         self.counts["voc"] = {"files": len(files), "images": len(files), "objects": n_obj}
+        self.compare_total("voc", d)
 
     # -- YOLO ---------------------------------------------------------------------
     def yolo(self, d: Path) -> None:
-        labels_path = next((d / n for n in (yolo_fmt.LABELS_FILE, "classes.txt") if (d / n).is_file()), None)
-        if labels_path is None and (self.root / "classes.txt").is_file():
-            labels_path = self.root / "classes.txt"
+        places = [d / yolo_fmt.LABELS_FILE, d / "classes.txt", self.root / "classes.txt"]
+        places += [self.root / n for n in _DATA_YAML]
+        labels_path = next((p for p in places if p.is_file()), None)
         labels = None
         if labels_path is None:
-            self.add(d / yolo_fmt.LABELS_FILE, "", "class-name file must exist", "<missing>")
+            self.add(
+                d / yolo_fmt.LABELS_FILE, "", f"class-name file must exist (or classes.txt, or {_DATA_YAML[0]})",
+                "<missing>",
+            )
         else:
             try:
-                labels = yolo_fmt.read_labels(labels_path)
+                if labels_path.suffix in (".yaml", ".yml"):
+                    labels = yolo_fmt.read_data_yaml(labels_path)
+                else:
+                    labels = yolo_fmt.read_labels(labels_path)
             except InputFileError as e:
                 self.add_error(e)
             if labels is not None and self.ref_names is not None and labels != self.ref_names:
@@ -434,27 +501,38 @@ class _Checker:
             stem = p.relative_to(d).with_suffix("").as_posix()
             seen.add(stem)
             try:
-                classes, boxes = yolo_fmt.read_yolo(p)
+                classes, boxes, lines, bad = yolo_fmt.parse_yolo(p)
             except InputFileError as e:
                 self.add_error(e)
                 continue
+            for e in bad:  # every bad line on its own; the good ones are still checked
+                self.add_error(e)
             n_obj += classes.size
             if self.find_image_by_stem(stem) is None and self.find_image(stem) is None:
                 self.add(p, "", "image file must exist (same base name in images/)", stem)
-            lines = [i + 1 for i, t in enumerate(p.read_text(encoding="utf-8").splitlines()) if t.split()]
+            names = labels if labels is not None else self.ref_names
             for i in range(classes.size):
                 record = f"line {lines[i]}"
                 c = int(classes[i])
                 xc, yc, w, h = boxes[i].tolist()
                 if labels is not None and not 0 <= c < len(labels):
-                    self.add(p, record, f"class must be in [0, {len(labels) - 1}] (labels.txt)", c)
+                    self.add(p, record, f"class must be in [0, {len(labels) - 1}] ({labels_path.name})", c)
                 if w <= 0 or h <= 0:
                     self.add(p, record, "box must be non-empty (w > 0 and h > 0)", boxes[i].tolist())
                 elif xc - w / 2 < -_TOL or yc - h / 2 < -_TOL or xc + w / 2 > 1 + _TOL or yc + h / 2 > 1 + _TOL:
                     self.add(p, record, "box must lie inside the image (normalized [0, 1])", boxes[i].tolist())
-            self.compare("yolo", p, stem, int(classes.size))
+            if stem in self.ref_sizes:
+                pixels = yolo_fmt.denormalize_boxes(boxes, *self.ref_sizes[stem])
+                found = [
+                    (f"line {lines[i]}", _name(names, int(classes[i])), tuple(pixels[i].tolist()))
+                    for i in range(classes.size)
+                ]
+            else:
+                found = [(f"line {n}", None, None) for n in lines]
+            self.compare("yolo", p, stem, found)
         self.missing("yolo", seen, self.rel(d) + "/{stem}.txt")
         self.counts["yolo"] = {"files": len(files), "images": len(files), "objects": n_obj}
+        self.compare_total("yolo", d)
 
     # -- tokens --------------------------------------------------------------------
     def tokens(self, path: Path, vocab_path: Path, *, reference: bool) -> None:
@@ -463,7 +541,7 @@ class _Checker:
             return
         try:
             vocab = tokens_fmt.read_vocabulary(vocab_path)
-            lines = tokens_fmt.read_tokens(path, vocab_path)
+            lines, bad = tokens_fmt.parse_tokens(path, vocab_path)
         except InputFileError as e:
             self.add_error(e)
             return
@@ -472,25 +550,36 @@ class _Checker:
             if names != self.ref_names:
                 self.add(vocab_path, "classes", "must be the categories of annotations.json by id", names)
         seen, n_obj = set(), 0
-        for i, line in enumerate(lines):
-            real = int((~line["is_noise"]).sum())
-            n_obj += real
+        for e in bad:  # every bad line on its own; its image is not reported missing as well
+            self.add_error(e)
+            stem = self.ref_ids.get(e.image_id) if _is_int(e.image_id) else None
+            if stem is not None:
+                seen.add(stem)
+        n_bins = vocab["n_bins"]
+        for line in lines:
+            record = f"line {line['line_number']}"
+            real = ~line["is_noise"]
+            n_obj += int(real.sum())
             stem = self.ref_ids.get(line.get("image_id"))
             if self.ref_objects is not None and stem is None:
-                self.add(path, f"line {i + 1}", "image_id must name an image of annotations.json", line.get("image_id"))
+                self.add(path, record, "image_id must name an image of annotations.json", line.get("image_id"))
                 continue
             if stem is None:
                 continue
             if stem in seen:
-                self.add(path, f"line {i + 1}", "each image must have one line", line.get("image_id"))
+                self.add(path, record, "each image must have one line", line.get("image_id"))
             seen.add(stem)
-            if real != self.ref_objects[stem]:
-                self.add(path, f"line {i + 1}", f"must hold as many objects as annotations.json ({self.ref_objects[stem]})", real)
-            if (line["width"], line["height"]) != self.ref_sizes[stem]:
-                self.add(path, f"line {i + 1}", f"width, height must match annotations.json {self.ref_sizes[stem]}", (line["width"], line["height"]))
+            width, height = line["width"], line["height"]
+            names = [self.ref_cat_names.get(c) for c in line["category_ids"][real].tolist()]
+            found = [(f"object {j}", names[j], tuple(b)) for j, b in enumerate(line["boxes"][real].tolist())]
+            # a dequantized coordinate is within half a bin of the true one
+            self.compare("tokens", path, stem, found, record=record, tol=max(width, height) / n_bins)
+            if (width, height) != self.ref_sizes[stem]:
+                self.add(path, record, f"width, height must match annotations.json {self.ref_sizes[stem]}", (width, height))
         if reference:
             self.missing("tokens", seen, self.rel(path) + " (image {stem})")
-            self.counts["tokens"] = {"files": 1, "images": len(lines), "objects": n_obj}
+            self.counts["tokens"] = {"files": 1, "images": len(lines) + len(bad), "objects": n_obj}
+            self.compare_total("tokens", path)
 
     # -- masks ---------------------------------------------------------------------
     def masks_png(self, d: Path) -> None:
@@ -506,16 +595,29 @@ class _Checker:
                 continue
             n_obj += int(np.count_nonzero(np.bincount(ids.ravel())[1:])) if ids.size else 0
             if self.ref_objects is None or stem not in self.ref_objects:
-                self.compare("masks", p, stem, 0)
+                self.compare("masks", p, stem, [])
                 continue
             h, w = ids.shape
             if (w, h) != self.ref_sizes[stem]:
                 self.add(p, "", f"mask size (width, height) must match annotations.json {self.ref_sizes[stem]}", (w, h))
+                continue
+            anns = self.ref_anns[stem]
             top = int(ids.max()) if ids.size else 0
-            if top > self.ref_objects[stem]:
-                self.add(p, "", f"instance ids must be at most the image's annotation count ({self.ref_objects[stem]})", top)
+            if top > len(anns):
+                self.add(p, "", f"instance ids must be at most the image's annotation count ({len(anns)})", top)
+                continue
+            lost = masks_fmt.lost_annotations(anns, ids)
+            if lost:
+                self.add(
+                    p, "",
+                    f"every annotation of image {self.ref_files[stem]} with segmentation pixels must keep one "
+                    "(unless each is another annotation's only pixel); none for annotation id "
+                    + _listing([anns[i - 1].get("id") for i in lost]),
+                    [f"id {i}" for i in lost] if len(lost) <= 5 else len(lost),
+                )
+                self.mismatched.add("masks")
         self.missing("masks", seen, self.rel(d) + "/{stem}.png")
-        # objects = instances with at least one pixel (one drawn over entirely has none)
+        # objects = instances with at least one pixel
         self.counts["masks"] = {"files": len(files), "images": len(files), "objects": n_obj}
 
     def masks_rle(self, path: Path) -> None:
@@ -530,17 +632,110 @@ class _Checker:
             stem = self.ref_ids.get(line.get("image_id"))
             if stem is None:
                 continue
-            if len(line["masks"]) != self.ref_objects[stem]:
-                self.add(path, f"line {i + 1}", f"must hold as many masks as annotations.json ({self.ref_objects[stem]})", len(line["masks"]))
+            by_id = {a.get("id"): a for a in self.ref_anns[stem]}
+            found = [
+                (f"masks[{j}]", self.ref_cat_names.get(by_id.get(m.get("id"), {}).get("category_id")),
+                 _id_box(by_id.get(m.get("id"))))
+                for j, m in enumerate(line["masks"])
+            ]
+            self.compare("masks", path, stem, found, record=f"line {i + 1}", what="masks")
             for m in line["decoded"]:
                 if (m.shape[1], m.shape[0]) != self.ref_sizes[stem]:
                     self.add(path, f"line {i + 1}", f"mask size must match annotations.json {self.ref_sizes[stem]}", m.shape)
                     break
         self.counts["masks"] = {"files": 1, "images": len(lines), "objects": n_obj}
+        self.compare_total("masks", path)
+
+
+def _id_box(ann: dict | None) -> tuple | None:
+    """The xyxy box of a reference annotation an RLE mask names by id (None when it names none)."""
+    if ann is None:
+        return None
+    x, y, w, h = ann["bbox"]
+    return (x, y, x + w, y + h)
+
+
+def _name(names: list | None, index: int):
+    return names[index] if names is not None and 0 <= index < len(names) else None
+
+
+def _listing(items: list, limit: int = 8) -> str:
+    """``"3, 7, 9"``, or the first ``limit`` and how many more.
+
+    >>> _listing([1, 2, 3]), _listing(list(range(10)), limit=2)
+    ('1, 2, 3', '0, 1 and 8 more')
+    """
+    shown = ", ".join(str(v) for v in items[:limit])
+    return shown if len(items) <= limit else f"{shown} and {len(items) - limit} more"
+
+
+def _unmatched(ref: list[tuple], found: list[tuple], tol: float) -> tuple[list, list]:
+    """Pair a format's objects with reference annotations; return what stays unpaired on each side.
+
+    Parameters
+    ----------
+    ref : list of (annotation id, category name, xyxy box or None)
+    found : list of (where, category name, xyxy box or None)
+    tol : float
+        Largest coordinate difference, in pixels, of a pair matched by box.
+
+    Returns
+    -------
+    missing : list
+        Annotation ids no object of the format stands for.
+    extra : list
+        ``where`` of the format's objects no annotation stands for.
+
+    Objects pair first by category and box (nearest within ``tol``), then the
+    rest by category alone, then by nothing.
+
+    Examples
+    --------
+    >>> ref = [(1, "ring", (0, 0, 4, 4)), (2, "ring", (5, 5, 9, 9)), (3, "star", (1, 1, 2, 2))]
+    >>> _unmatched(ref, [("line 1", "ring", (5, 5, 9, 9)), ("line 2", "cross", (0, 0, 1, 1))], 0.5)
+    ([1, 3], ['line 2'])
+    """
+    left = list(range(len(ref)))
+    pending = []
+    for j, (_, label, box) in enumerate(found):
+        best, best_d = None, tol
+        if box is not None:
+            for i in left:
+                if ref[i][1] == label and ref[i][2] is not None:
+                    d = max(abs(a - b) for a, b in zip(ref[i][2], box))
+                    if d <= best_d:
+                        best, best_d = i, d
+        if best is None:
+            pending.append(j)
+        else:
+            left.remove(best)
+    extra = []
+    for j in pending:
+        i = next((i for i in left if ref[i][1] == found[j][1]), None)
+        if i is None:
+            extra.append(found[j][0])
+        else:
+            left.remove(i)
+    return [ref[i][0] for i in left], extra
 
 
 def _sort_key(v):
     return (0, v) if _is_int(v) else (1, 0)
+
+
+def _usable_coco_file(path: Path) -> None:
+    """Raise InputFileError unless ``path`` parses as JSON holding an object (a file given alone
+    that is not even that leaves nothing to check)."""
+    raw = read_input(path)
+    try:
+        doc = orjson.loads(raw)
+    except orjson.JSONDecodeError as e:
+        try:  # NaN, Infinity and overflowing numbers are for the checker to name
+            doc = json.loads(raw)
+        except ValueError:
+            raise bad_record(path, f"line {e.lineno}, column {e.colno}", "must be valid JSON", e.msg) from None
+    if not isinstance(doc, dict):
+        raise bad_record(path, "top level", "must be a COCO JSON object", type(doc).__name__)
 
 
 def check_dataset(path, *, decode_images: bool = True) -> CheckReport:
@@ -561,8 +756,8 @@ def check_dataset(path, *, decode_images: bool = True) -> CheckReport:
     Raises
     ------
     synthgen.errors.InputFileError
-        When ``path`` does not exist or holds no format this module knows
-        (unusable input).
+        When ``path`` does not exist, holds no format this module knows, or is
+        a file that is not JSON holding an object (unusable input).
     """
     path = Path(path)
     if not path.exists():
@@ -570,6 +765,7 @@ def check_dataset(path, *, decode_images: bool = True) -> CheckReport:
     if path.is_file():
         if path.suffix.lower() != ".json":
             raise InputFileError(path, "must be a dataset directory or a COCO .json file")
+        _usable_coco_file(path)
         root, coco_files = path.parent, [path]
     else:
         root = path

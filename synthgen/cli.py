@@ -21,12 +21,46 @@ from synthgen.errors import UserError, require_extra
 
 __all__ = ["app", "main"]
 
+
+class _Plain:
+    """Help as people read it: a flag shows no value type (no '<bool>'), and arguments are written
+    in upper case, an optional one in brackets, in the usage line and in the arguments panel."""
+
+    def get_params(self, ctx):
+        params = super().get_params(ctx)
+        for p in params:
+            if p.metavar is None and getattr(p, "is_flag", False):
+                p.metavar = ""
+            elif p.metavar is None and p.param_type_name == "argument":
+                p.metavar = p.name.upper()
+        return params
+
+    def collect_usage_pieces(self, ctx):
+        pieces = [self.options_metavar] if self.options_metavar else []
+        for p in self.get_params(ctx):
+            if p.param_type_name == "argument":
+                name = p.metavar + ("..." if p.nargs != 1 else "")
+                pieces.append(name if p.required else f"[{name}]")
+        return pieces
+
+
+class _Command(_Plain, typer.core.TyperCommand):
+    pass
+
+
+class _Group(_Plain, typer.core.TyperGroup):
+    def collect_usage_pieces(self, ctx):
+        return typer.core.TyperGroup.collect_usage_pieces(self, ctx)
+
+
 app = typer.Typer(
     name="synthgen",
     help="Object-detection test data whose right answer is known exactly.",
     add_completion=False,
     no_args_is_help=True,
     pretty_exceptions_enable=False,
+    cls=_Group,
+    context_settings={"help_option_names": ["-h", "--help"]},
 )
 
 
@@ -142,7 +176,7 @@ FormatsOpt = Annotated[
 ]
 SplitOpt = Annotated[
     Optional[str],
-    typer.Option("--split", help="Split the images, e.g. train=0.8,val=0.1,test=0.1 (one COCO file per split)."),
+    typer.Option("--split", help="Split the images, e.g. train=0.8,val=0.2 (one COCO file per split)."),
 ]
 
 
@@ -329,13 +363,22 @@ def jitter(
         float, typer.Option(help="Background boxes have IoU below this with every ground-truth box.")
     ] = 0.1,
     background_size: Annotated[
-        str, typer.Option(help="Side LO,HI of background boxes as a fraction of the image's shorter side.")
-    ] = "0.05,0.3",
+        str,
+        typer.Option(
+            help="Size of background boxes: 'objects' (each takes the size of a ground-truth box drawn at random) "
+            "or LO,HI, the side as a fraction of the image's shorter side.",
+        ),
+    ] = "objects",
     score_overlap: Annotated[
         float, typer.Option(help="Overlap in [0, 1] of true-positive and other scores (0: true positives rank first).")
     ] = 0.0,
     modes: Annotated[
-        str, typer.Option(help="Directions of localization error, comma-separated: shift, grow, shrink, aspect, free.")
+        str,
+        typer.Option(
+            help="Directions of localization error, comma-separated, from: shift, grow, shrink, aspect, free "
+            "(default: all five).",
+            show_default=False,
+        ),
     ] = "shift,grow,shrink,aspect,free",
     keep_inside: Annotated[bool, typer.Option(help="Keep every predicted box inside its image.")] = True,
 ) -> None:
@@ -360,7 +403,7 @@ def jitter(
             duplicate_iou=_pair(duplicate_iou, "--duplicate-iou"),
             background=background,
             background_iou=background_iou,
-            background_size=_pair(background_size, "--background-size"),
+            background_size=None if background_size == "objects" else _pair(background_size, "--background-size"),
             relabel=relabel,
             score_overlap=score_overlap,
             keep_inside=keep_inside,
@@ -369,6 +412,24 @@ def jitter(
     except ConfigError as exc:
         raise _option_error(exc) from None
     typer.echo(orjson.dumps(summary, option=orjson.OPT_INDENT_2).decode())
+    for name, change in summary["nudged"].items():
+        lo, hi = change["asked"]
+        if lo == hi:  # one IoU on a threshold: half the boxes would have fallen on each side; say so
+            option = _JITTER_OPTIONS[f"jitter.{name}"]
+            asked, used = (",".join(f"{v:g}" for v in change[k]) for k in ("asked", "used"))
+            typer.echo(
+                f"synthgen: note: {option} {asked} ends on a COCO IoU threshold; used {used}, so every box is "
+                "on a known side of it (recorded under 'nudged')",
+                err=True,
+            )
+    if summary["ambiguous"]:
+        n = summary["ambiguous"]
+        typer.echo(
+            f"synthgen: note: 'ambiguous': {n} prediction{'s' if n != 1 else ''} also overlap another ground-truth "
+            "box at IoU >= 0.5 (less than their own); an evaluator may pair such a box with that other object when "
+            "its own is already taken, so counts per kind can differ from an evaluator's by up to this number",
+            err=True,
+        )
 
 @app.command()
 @reported
@@ -404,7 +465,7 @@ def score(
         typer.Option(
             "--pred-dir",
             help="Score a sweep: DATASET is the sweep directory and this directory holds one results file "
-            "per subset, at the subset's relative path plus .json (e.g. 'objects.size=[4, 8].json').",
+            "per subset, at the subset's relative path plus .json (e.g. objects.size=[4,8].json).",
         ),
     ] = None,
 ) -> None:
@@ -439,6 +500,14 @@ def score(
         raise UserError("option '--plot' needs at least one --by FACT to plot")
     evaluation, slices = score_files(dataset, predictions, by or ())
     rep.print_report(evaluation, slices)
+    if evaluation.n_unknown_category:
+        n, ids = evaluation.n_unknown_category, ", ".join(map(str, evaluation.unknown_category_ids[:10]))
+        more = "" if len(evaluation.unknown_category_ids) <= 10 else ", ..."
+        typer.echo(
+            f"synthgen: warning: {n} prediction{'s' if n != 1 else ''} in {predictions} name a category_id the "
+            f"ground truth does not list ({ids}{more}); they count in no metric",
+            err=True,
+        )
     if plot is not None:
         rep.plot_slices(slices, plot, title=f"{predictions.name} on {dataset.name}")
     if json_out is not None:
@@ -481,13 +550,23 @@ def check(
 def export(
     dataset: Annotated[Path, typer.Argument(help="Dataset directory written by make.", show_default=False)],
     formats: FormatsOpt = "voc,yolo",
-    out: Annotated[Optional[Path], typer.Option("--out", "-o", help="Output directory (default: the dataset).")] = None,
+    out: Annotated[
+        Optional[Path],
+        typer.Option(
+            "--out", "-o",
+            help="Output directory (default: the dataset). Another directory becomes a dataset of its own: "
+            "images hard-linked (or copied), annotations.json, the formats.",
+        ),
+    ] = None,
     split: SplitOpt = None,
     seed: Annotated[
         Optional[int], typer.Option(help="Seed for splits and random token order (default: the manifest's).")
     ] = None,
     bins: Annotated[int, typer.Option("--bins", help="Token bins per axis.")] = 1000,
-    order: Annotated[TokenOrder, typer.Option(help="Object order in token sequences.")] = TokenOrder.random,
+    order: Annotated[
+        TokenOrder,
+        typer.Option(metavar="ORDER", help="Object order in token sequences: random, raster, area or distance."),
+    ] = TokenOrder.random,
     masks: Annotated[MaskMode, typer.Option(help="Instance masks as id PNGs or per-object RLE lines.")] = MaskMode.png,
     pad_to: Annotated[
         Optional[int],
@@ -518,8 +597,11 @@ def export(
         dataset, format_names, out=out, split=fractions, seed=seed, n_bins=bins, order=order.value, masks=masks.value,
         noise=noise,
     )
+    linked = done.pop("images", None)
     written = ", ".join(f"{k} ({n} images)" for k, n in done.items()) or "nothing new"
-    typer.echo(f"wrote {written} to {out if out is not None else dataset}")
+    where = out if out is not None else dataset
+    took = "" if linked is None else f"; {linked} image{'s' if linked != 1 else ''} linked or copied into {where / 'images'}"
+    typer.echo(f"wrote {written} to {where}{took}")
 
 
 @app.command()
@@ -614,7 +696,7 @@ def show(
     out: Annotated[Path, typer.Option("--out", "-o", help="Contact sheet to write (PNG).")] = ...,
     images: Annotated[
         Optional[int],
-        typer.Option("--images", "-n", help="Number of images: the first N by image id [default: 16].", min=1),
+        typer.Option("--images", "-n", help="Number of images: the first N by image id (default: 16).", min=1),
     ] = None,
     ids: Annotated[
         Optional[str],
@@ -716,6 +798,11 @@ def stats(
         fig = report.stats_figure(ds.coco, title=title)
         report.save_figure(fig, plot)
         typer.echo(f"wrote {plot}")
+
+
+for _info in app.registered_commands:  # every command's help in the plain style above
+    if _info.cls in (None, typer.core.TyperCommand):
+        _info.cls = _Command
 
 
 def main() -> None:

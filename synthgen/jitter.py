@@ -56,12 +56,17 @@ import numpy as np
 
 from synthgen.errors import ConfigError, check_number, check_range
 from synthgen.geometry import as_boxes, box_iou, boxes_valid
+from synthgen.score import IOU_THRESHOLDS
 
 __all__ = [
     "NOISE_STREAM",
     "noise_padder",
     "IOU_TOLERANCE",
+    "COCO_IOU_THRESHOLDS",
+    "COCO_MARGIN",
+    "clear_of_thresholds",
     "MAX_BACKGROUND",
+    "FALLBACK_BACKGROUND_SIZE",
     "ERROR_MODES",
     "DETECTION_KINDS",
     "OUTCOMES",
@@ -87,6 +92,14 @@ __all__ = [
 
 #: Largest allowed difference between a requested and an achieved IoU.
 IOU_TOLERANCE = 1e-9
+
+#: The IoU thresholds of COCO-style AP, 0.5, 0.55, ..., 0.95 (their home is :mod:`synthgen.score`).
+COCO_IOU_THRESHOLDS = tuple(float(t) for t in IOU_THRESHOLDS)
+
+#: How far :func:`clear_of_thresholds` moves a range end that sits on a COCO threshold:
+#: far above :data:`IOU_TOLERANCE` and the rounding of any float64 IoU, far below any
+#: difference a detector's user could mean.
+COCO_MARGIN = 1e-6
 
 #: Directions of error for :func:`to_iou`:
 #: ``shift`` moves the box without changing its size; ``grow`` scales it up
@@ -583,6 +596,46 @@ def _directions(modes: tuple[str, ...], n: int, rng: np.random.Generator) -> tup
     return d, names
 
 
+def clear_of_thresholds(iou, thresholds=COCO_IOU_THRESHOLDS, margin: float = COCO_MARGIN) -> tuple[float, float]:
+    """An IoU range moved off the evaluation thresholds its ends sit on.
+
+    A box made at IoU exactly ``t`` comes out at ``t`` plus or minus a few
+    1e-15, so an evaluator's ``IoU >= t`` test passes for about half of them.
+    An end within 1e-9 of a threshold ``t`` is therefore moved inward by
+    ``margin``: a low end to ``t + margin`` (every box matched at ``t``, as
+    the ``>=`` rule means), a high end to ``t - margin`` (none matched at
+    ``t``); a one-point range ``[t, t]`` becomes ``[t + margin, t + margin]``.
+
+    Parameters
+    ----------
+    iou : (lo, hi)
+    thresholds : sequence of float
+        Default: COCO's ``0.5, 0.55, ..., 0.95``.
+    margin : float
+
+    Returns
+    -------
+    (lo, hi)
+        The range to draw from (the same when no end touches a threshold).
+
+    Examples
+    --------
+    >>> clear_of_thresholds((0.5, 0.5)), clear_of_thresholds((0.55, 0.7)), clear_of_thresholds((0.52, 0.68))
+    ((0.500001, 0.500001), (0.550001, 0.699999), (0.52, 0.68))
+    """
+    lo, hi = (float(v) for v in iou)
+
+    def touches(v: float) -> float | None:
+        return next((t for t in thresholds if abs(v - t) <= 1e-9), None)
+
+    t_lo, t_hi = touches(lo), touches(hi)
+    if lo == hi:
+        return (round(t_lo + margin, 12),) * 2 if t_lo is not None else (lo, hi)
+    new_lo = round(t_lo + margin, 12) if t_lo is not None else lo
+    new_hi = round(t_hi - margin, 12) if t_hi is not None else hi
+    return (new_lo, new_hi) if new_lo <= new_hi else (lo, hi)
+
+
 def _draw_targets(lo: float, hi: float, n: int, rng: np.random.Generator) -> np.ndarray:
     return lo + (hi - lo) * rng.random(n)
 
@@ -866,12 +919,22 @@ def _group_max_iou(pred, pred_img, exclude, truth, truth_img) -> np.ndarray:
 
 
 def _random_boxes(cw, ch, size, aspect, rng) -> np.ndarray:
-    """Random boxes inside canvases ``cw x ch`` (shape (K,) each), side a fraction of the shorter side."""
+    """Random boxes inside canvases ``cw x ch`` (shape (K,) each).
+
+    ``size`` is either ``(lo, hi)``, the side as a fraction of the shorter
+    side (aspect log-uniform in ``aspect``), or a float array of shape (M, 2):
+    sizes ``(w, h)`` in pixels, one drawn uniformly per box.
+    """
     k = len(cw)
-    side = rng.uniform(size[0], size[1], k) * np.minimum(cw, ch)
-    a = np.exp(rng.uniform(np.log(aspect[0]), np.log(aspect[1]), k))
-    w = np.minimum(side * np.sqrt(a), cw)
-    h = np.minimum(side / np.sqrt(a), ch)
+    if isinstance(size, np.ndarray):
+        wh = size[rng.integers(len(size), size=k)]  # (K, 2)
+        w = np.minimum(wh[:, 0], cw)
+        h = np.minimum(wh[:, 1], ch)
+    else:
+        side = rng.uniform(size[0], size[1], k) * np.minimum(cw, ch)
+        a = np.exp(rng.uniform(np.log(aspect[0]), np.log(aspect[1]), k))
+        w = np.minimum(side * np.sqrt(a), cw)
+        h = np.minimum(side / np.sqrt(a), ch)
     x0 = rng.random(k) * (cw - w)
     y0 = rng.random(k) * (ch - h)
     return np.stack([x0, y0, x0 + w, y0 + h], axis=1)
@@ -882,8 +945,25 @@ def _check_fraction_range(value, name: str, *, lo_open: bool = True) -> tuple[fl
     return float(value[0]), float(value[1])
 
 
+#: Background box side as a fraction of the shorter image side when there are no true boxes to size them by.
+FALLBACK_BACKGROUND_SIZE = (0.05, 0.3)
+
+
+def _background_sizes(truth: np.ndarray, size):
+    """What :func:`_random_boxes` draws sizes from: ``size`` as given, or the truth's ``(w, h)`` when None."""
+    if size is not None:
+        return size
+    if len(truth) == 0:
+        return FALLBACK_BACKGROUND_SIZE
+    return np.stack([truth[:, 2] - truth[:, 0], truth[:, 3] - truth[:, 1]], axis=1)  # (N, 2)
+
+
 def _place_background(truth, truth_img, counts, cw_img, ch_img, max_iou, size, aspect, rng):
-    """Background boxes for each image; returns (boxes, image, other_iou, shortfall)."""
+    """Background boxes for each image; returns (boxes, image, other_iou, shortfall).
+
+    ``size`` as for :func:`_random_boxes`, or None for the sizes of ``truth``.
+    """
+    size = _background_sizes(truth, size)
     img = np.repeat(np.arange(len(counts)), counts)
     k = len(img)
     boxes = np.empty((k, 4))
@@ -908,7 +988,7 @@ def background_boxes(
     rng: np.random.Generator,
     canvas,
     max_iou: float = 0.1,
-    size=(0.05, 0.3),
+    size=None,
     aspect=(0.5, 2.0),
 ) -> Placed:
     """Random boxes whose IoU with every true box is below a bound (background false positives).
@@ -924,11 +1004,13 @@ def background_boxes(
         Image size in pixels; boxes lie inside it.
     max_iou : float
         Bound in (0, 1]: every box has IoU ``< max_iou`` with every true box.
-    size : (lo, hi)
+    size : (lo, hi), optional
         Side length ``sqrt(w h)`` as a fraction of the canvas's shorter side,
-        ``0 < lo <= hi <= 1``.
+        ``0 < lo <= hi <= 1``.  Default: sized like the true boxes (each box
+        takes the width and height of a true box drawn uniformly), or
+        :data:`FALLBACK_BACKGROUND_SIZE` when there are none.
     aspect : (lo, hi)
-        Range of ``w / h`` (log-uniform), ``0 < lo <= hi``.
+        Range of ``w / h`` (log-uniform), ``0 < lo <= hi``, for ``size`` ranges.
 
     Returns
     -------
@@ -943,7 +1025,8 @@ def background_boxes(
     t = as_boxes(truth)
     _arg(check_number, "n", n, lo=0, integer=True)
     _arg(check_number, "max_iou", max_iou, lo=0, lo_open=True, hi=1)
-    size = _check_fraction_range(size, "size")
+    if size is not None:
+        size = _check_fraction_range(size, "size")
     _arg(check_range, "aspect", tuple(aspect), lo=0, lo_open=True)
     cw, ch = _canvas_arrays(canvas, 1)
     boxes, _, other, short = _place_background(
@@ -1146,7 +1229,8 @@ def pad_with_noise(
     _arg(check_number, "jittered", jittered, lo=0, hi=1)
     if np.any(lab == noise_label):
         raise ValueError(f"'noise_label' {noise_label} is also a true label")
-    size = _check_fraction_range(size, "size")
+    if size is not None:
+        size = _check_fraction_range(size, "size")
     _arg(check_range, "aspect", tuple(aspect), lo=0, lo_open=True)
     m = int(length) - n
     k_jit = _count(jittered, m) if n else 0
@@ -1234,8 +1318,11 @@ class DetectorSpec:
         :data:`MAX_BACKGROUND`.
     background_iou : float
         Background boxes have IoU below this with every true box, in (0, 1].
-    background_size : (lo, hi)
-        Background box side as a fraction of the image's shorter side.
+    background_size : (lo, hi) or None
+        Background box side as a fraction of the image's shorter side; None
+        (the default) sizes them like the true boxes: each takes the width and
+        height of a true box drawn uniformly from the whole input, so a sweep
+        of tiny objects gets tiny false positives too.
     relabel : float
         Fraction of true boxes whose only prediction has another class.
     score_overlap : float
@@ -1253,7 +1340,7 @@ class DetectorSpec:
     duplicate_iou: tuple[float, float] = (0.5, 0.9)
     background: float = 0.0
     background_iou: float = 0.1
-    background_size: tuple[float, float] = (0.05, 0.3)
+    background_size: tuple[float, float] | None = None
     relabel: float = 0.0
     score_overlap: float = 0.0
     keep_inside: bool = True
@@ -1265,7 +1352,8 @@ class DetectorSpec:
         for key in ("miss", "localization", "duplicates", "relabel", "score_overlap"):
             check_number(f"jitter.{key}", getattr(self, key), lo=0, hi=1)
         for key in ("iou", "near_iou", "duplicate_iou", "background_size"):
-            check_range(f"jitter.{key}", getattr(self, key), lo=0, lo_open=True, hi=1)
+            if key != "background_size" or self.background_size is not None:
+                check_range(f"jitter.{key}", getattr(self, key), lo=0, lo_open=True, hi=1)
         check_number("jitter.background", self.background, lo=0)
         if self.background > MAX_BACKGROUND:
             raise ConfigError("jitter.background", f"must be at most {MAX_BACKGROUND} boxes per image", self.background)

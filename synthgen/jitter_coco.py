@@ -12,8 +12,10 @@ Truth sidecar (JSON object, ``format`` = :data:`SIDECAR_FORMAT`)
 ``seed`` : int
     Seed the predictions were made from.
 ``spec`` : object
-    The :class:`~synthgen.jitter.DetectorSpec` fields as resolved (ranges as
-    2-lists).
+    The :class:`~synthgen.jitter.DetectorSpec` fields as used (ranges as
+    2-lists): an IoU range end on a COCO threshold (0.5, 0.55, ..., 0.95) is
+    moved inward by :data:`~synthgen.jitter.COCO_MARGIN` (1e-6), so that every
+    box is on a known side of it; ``summary.nudged`` says what was asked.
 ``predictions`` : list of objects, one per entry of the results file, same order
     ``index`` (position in the results file), ``image_id``, ``category_id``,
     ``bbox`` (as in the results file), ``score``, ``kind`` (one of
@@ -35,7 +37,9 @@ Summary (JSON object)
 ``predictions``; ``kinds`` and ``outcomes`` (count per name, every name
 present); ``iou`` (``[min, max]`` of the recorded IoU per sourced kind, null
 when there is none); ``ambiguous`` (sourced predictions with ``other_iou >=
-0.5``, which an evaluator may match to another box); ``background_shortfall``.
+0.5``, which an evaluator may match to another box); ``background_shortfall``;
+``nudged`` (range name -> ``{"asked": [lo, hi], "used": [lo, hi]}`` for every
+IoU range moved off a COCO threshold, empty when none was).
 
 Randomness: one generator from ``SeedSequence(seed, spawn_key=(JITTER_STREAM,))``,
 a stream apart from the per-image streams ``spawn_key=(k,)`` of dataset
@@ -54,7 +58,7 @@ import orjson
 from synthgen.errors import InputFileError, UserError, check_number
 from synthgen.formats._common import bad_record as _problem
 from synthgen.formats.coco import bbox_from_xyxy, read_coco, structure_problems, write_bytes_atomic, xyxy_from_bbox
-from synthgen.jitter import DETECTION_KINDS, OUTCOMES, DetectorSpec, simulate_detections
+from synthgen.jitter import DETECTION_KINDS, OUTCOMES, DetectorSpec, clear_of_thresholds, simulate_detections
 
 __all__ = ["SIDECAR_FORMAT", "JITTER_STREAM", "jitter_dataset", "write_jitter_outputs", "jitter_files", "truth_path_for"]
 
@@ -125,6 +129,31 @@ def _parse(coco, source: str, keep_inside: bool):
     return boxes, labels, image, ids, sizes, np.array(sorted(known), dtype=np.int64), crowd
 
 
+#: The DetectorSpec ranges whose ends :func:`clear_spec` moves off COCO's thresholds.
+IOU_RANGES = ("iou", "near_iou", "duplicate_iou")
+
+
+def clear_spec(spec: DetectorSpec) -> tuple[DetectorSpec, dict]:
+    """``spec`` with its IoU ranges moved off COCO's thresholds (:func:`synthgen.jitter.clear_of_thresholds`).
+
+    Returns the spec to use and, per moved range, ``{"asked": [lo, hi], "used": [lo, hi]}``.
+
+    Examples
+    --------
+    >>> _, nudged = clear_spec(DetectorSpec(iou=(0.5, 0.5)))
+    >>> nudged
+    {'iou': {'asked': [0.5, 0.5], 'used': [0.500001, 0.500001]}, 'duplicate_iou': {'asked': [0.5, 0.9], 'used': [0.500001, 0.899999]}}
+    """
+    changes, nudged = {}, {}
+    for name in IOU_RANGES:
+        asked = getattr(spec, name)
+        used = clear_of_thresholds(asked)
+        if used != tuple(asked):
+            changes[name] = used
+            nudged[name] = {"asked": list(asked), "used": list(used)}
+    return (dataclasses.replace(spec, **changes) if changes else spec), nudged
+
+
 def _num(v: float):
     return None if not math.isfinite(v) else float(v)
 
@@ -173,6 +202,7 @@ def jitter_dataset(
         raise UserError(f"{source}: relabelling needs at least 2 categories (got {classes.tolist()})")
     if spec.background > 0 and len(classes) == 0:
         raise UserError(f"{source}: background boxes need at least one category (got none)")
+    spec, nudged = clear_spec(spec)
     rng = np.random.Generator(np.random.PCG64(np.random.SeedSequence(int(seed), spawn_key=(JITTER_STREAM,))))
     det = simulate_detections(boxes, labels, sizes, rng=rng, spec=spec, image=image, classes=classes)
 
@@ -216,6 +246,7 @@ def jitter_dataset(
         "iou": iou_ranges,
         "ambiguous": int(((det.source >= 0) & (det.other_iou >= 0.5)).sum()),
         "background_shortfall": int(det.background_shortfall),
+        "nudged": nudged,
     }
     sidecar = {
         "format": SIDECAR_FORMAT,

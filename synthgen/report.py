@@ -25,14 +25,25 @@ pixels on and 3 off, with the halo beside the dashes only.
 
 Colours
 ~~~~~~~
-:data:`CATEGORY_COLOURS` were chosen for this module by a greedy max-min search
-over sRGB colours of lightness 55 to 92 and chroma at least 40 (so that they
-show on dark and mid-tone images), starting from a sky blue: each colour is as
-far as possible (CIEDE2000) from the others as seen with normal colour vision
-and as simulated for protanopia, deuteranopia and tritanopia.
-:data:`PREDICTION_COLOURS` (white for a true positive, then four hues) were
-picked by hand and checked the same way.  ``tests/test_report.py`` checks that
-every pair stays at least 12 CIEDE2000 units apart in all four views.
+:data:`CATEGORY_COLOURS` were chosen for this module by a max-min search (greedy
+start, then swapping one colour at a time, from several random starts) over
+sRGB colours on a 17-step grid with lightness 55 to 92 and chroma at least 40
+(so that they show on dark and mid-tone images): the smallest CIEDE2000
+difference of any pair, as seen with normal colour vision and as simulated for
+protanopia, deuteranopia and tritanopia, is as large as possible (14.4), under
+the constraint that every two colours differ in CIELAB hue angle by at least
+30 degrees.  The constraint is for 1-pixel outlines: on a line that thin,
+colours that differ mostly in lightness or chroma (a mint and a green, a
+magenta and a pink) look alike, and hue is what tells them apart.  Colours go
+to a sheet's categories in order, so the palette is ordered farthest-first
+(each colour the farthest from those before it): any first few are as far apart
+as the palette allows (the first four: 15.7 units, 71 degrees), and with all
+seven shape kinds the ones easy to confuse by outline get far-apart hues
+(triangle and star 105 degrees, polygon and cross 147, ellipse and ring
+106).  :data:`PREDICTION_COLOURS` (white
+for a true positive, then four hues) were picked by hand and checked the same
+way.  ``tests/test_report.py`` checks that every pair of categories stays at
+least 14 CIEDE2000 units and 30 degrees of hue apart (predictions: 12 units).
 Categories beyond the palette's length reuse colours in order; the legend says
 which is which.
 
@@ -94,13 +105,13 @@ __all__ = [
 
 #: Category outline colours, RGB (see the module docstring for how they were chosen).
 CATEGORY_COLOURS: tuple[tuple[int, int, int], ...] = (
-    (64, 160, 255),  # sky blue
-    (255, 140, 0),  # orange
-    (0, 255, 187),  # mint
-    (255, 17, 187),  # magenta
-    (0, 153, 102),  # green
-    (238, 238, 102),  # pale yellow
-    (255, 170, 221),  # pink
+    (68, 170, 255),  # sky blue (hue 267 in CIELAB)
+    (255, 51, 0),  # vermilion (43)
+    (221, 238, 153),  # pale lime (115)
+    (0, 255, 238),  # cyan (186)
+    (255, 153, 170),  # rose pink (10)
+    (51, 153, 85),  # leaf green (148)
+    (187, 102, 170),  # mauve (333)
 )
 
 #: What a prediction is: the names ``synthgen jitter`` uses for its simulated detections.

@@ -11,7 +11,8 @@ ground truth and returns an :class:`Evaluation`:
 * ``confusion``: detections matched at IoU 0.5 to an object of another class;
 * :meth:`Evaluation.slice_by`: recall, AP and mean IoU per bin of any
   per-object fact synthgen records under ``annotation["synthgen"]`` (or the
-  annotation's own ``"area"``).
+  annotation's own ``"area"``); for COCO files without those facts, the ones
+  a COCO annotation determines are derived (:data:`DERIVED_FACTS`).
 
 The matching rules
 ------------------
@@ -71,6 +72,8 @@ __all__ = [
     "STAT_NAMES",
     "DEFAULT_EDGES",
     "BOX_FACTS",
+    "DERIVED_FACTS",
+    "derive_fact",
     "CategoryResult",
     "Confusion",
     "BinResult",
@@ -264,6 +267,7 @@ class _Preds:
     cat: np.ndarray  # (N,) category index, -1 when not a ground-truth category
     box: np.ndarray  # (N, 4) COCO [x, y, w, h]
     score: np.ndarray  # (N,)
+    unknown: tuple = ()  # sorted category ids of predictions that name no ground-truth category
 
 
 def _is_int(v) -> bool:
@@ -489,7 +493,10 @@ def _parse_predictions(predictions, name: str, truth: _Truth) -> _Preds:
     pos = np.searchsorted(truth.image_ids, img)
     in_gt = _member(truth.cat_ids, cat)
     cpos = np.searchsorted(truth.cat_ids, cat)
-    return _Preds(img=pos.astype(np.int64), cat=np.where(in_gt, cpos, -1).astype(np.int64), box=box, score=score)
+    return _Preds(
+        img=pos.astype(np.int64), cat=np.where(in_gt, cpos, -1).astype(np.int64), box=box, score=score,
+        unknown=tuple(np.unique(cat[~in_gt]).tolist()),
+    )
 
 
 # --------------------------------------------------------------------------- matching
@@ -779,6 +786,8 @@ class Evaluation:
     n_unknown_category : int
         Predictions whose category is not a ground-truth category (left out
         of every metric, as in the reference).
+    unknown_category_ids : tuple of int
+        Those predictions' category ids, sorted, each once.
     """
 
     def __init__(self, truth: _Truth, preds: _Preds, problem: _Problem):
@@ -794,6 +803,7 @@ class Evaluation:
         self.stats = _summarize(self.precision, self.recall)
         self.n_predictions = len(preds.score)
         self.n_unknown_category = int(np.count_nonzero(preds.cat < 0))
+        self.unknown_category_ids = preds.unknown
         self.per_category = self._per_category()
         self._all_range = (gt_ignore[0], det_out[0])
 
@@ -879,12 +889,15 @@ class Evaluation:
             raw = [r["area"] for r in recs]
         else:
             raw = [r.get("synthgen", {}).get(fact) if isinstance(r.get("synthgen"), Mapping) else None for r in recs]
+        if fact in DERIVED_FACTS and any(v is None for v in raw):
+            derived = derive_fact(fact, self._truth)
+            raw = [d if v is None else v for v, d in zip(raw, derived)]
         present = [v for v in raw if v is not None]
         if not present:
             known = sorted({k for r in recs if isinstance(r.get("synthgen"), Mapping) for k in r["synthgen"]})
             raise UserError(
                 f"slice fact '{fact}' is not recorded for any object; facts in this dataset: "
-                + ", ".join(["area", *known])
+                + ", ".join(dict.fromkeys(["area", *DERIVED_FACTS, *known]))
             )
         if all(isinstance(v, (bool, str)) for v in present):
             kinds = {type(v) for v in present}
@@ -1022,12 +1035,74 @@ class Evaluation:
                 "crowd": int(np.count_nonzero(self._truth.crowd)),
                 "predictions": self.n_predictions,
                 "predictions_unknown_category": self.n_unknown_category,
+                "unknown_category_ids": list(self.unknown_category_ids),
                 "predictions_evaluated": int(len(self._pb.rec)),
             },
         }
         if slices:
             out["slices"] = {fact: [b.to_dict() for b in bins] for fact, bins in slices.items()}
         return out
+
+
+#: Facts that follow from a COCO annotation alone, derived for objects that do not record them
+#: (a COCO file from another tool): ``size`` the bbox's longer side, ``kind`` the category name,
+#: ``max_iou`` and ``neighbours`` from the bboxes of the image's other non-crowd annotations
+#: (largest IoU, and how many overlap it), as synthgen computes them from the annotated boxes.
+DERIVED_FACTS = ("size", "kind", "max_iou", "neighbours")
+
+
+def derive_fact(fact: str, truth: _Truth) -> list:
+    """Values of a fact in :data:`DERIVED_FACTS` for every ground-truth object, from its annotation.
+
+    Returns a list of length G (float, or the category name for ``kind``);
+    crowd regions get None for the box-relation facts.
+    """
+    if fact == "kind":
+        return [truth.cat_names[k] for k in truth.cat.tolist()]
+    if fact == "size":
+        return np.maximum(truth.box[:, 2], truth.box[:, 3]).tolist()
+    best, count = _box_relations(xyxy_from_bbox(truth.box), truth.img, truth.crowd)
+    values = best if fact == "max_iou" else count.astype(np.float64)
+    return [None if c else v for v, c in zip(values.tolist(), truth.crowd.tolist())]
+
+
+def _box_relations(boxes: np.ndarray, img: np.ndarray, crowd: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Per box: largest IoU with another non-crowd box of its image, and how many of them it overlaps.
+
+    Parameters
+    ----------
+    boxes : ndarray of shape (G, 4)
+        xyxy.
+    img : ndarray of int, shape (G,)
+    crowd : ndarray of bool, shape (G,)
+
+    Returns
+    -------
+    best : ndarray of float64, shape (G,)
+    count : ndarray of int64, shape (G,)
+
+    Examples
+    --------
+    >>> b = np.array([[0, 0, 2, 2], [1, 1, 3, 3], [5, 5, 6, 6], [0, 0, 2, 2.0]])
+    >>> best, count = _box_relations(b, np.array([0, 0, 0, 1]), np.zeros(4, bool))
+    >>> best.round(4).tolist(), count.tolist()
+    ([0.1429, 0.1429, 0.0, 0.0], [1, 1, 0, 0])
+    """
+    from synthgen.geometry import pairwise_iou
+
+    best = np.zeros(len(boxes))
+    count = np.zeros(len(boxes), dtype=np.int64)
+    order = np.argsort(img, kind="stable")
+    starts = np.flatnonzero(np.r_[True, img[order][1:] != img[order][:-1]]) if len(img) else np.zeros(0, int)
+    for idx in np.split(order, starts[1:]):
+        keep = idx[~crowd[idx]]
+        if len(keep) < 2:
+            continue
+        iou = pairwise_iou(boxes[keep], boxes[keep])  # (n, n)
+        np.fill_diagonal(iou, 0.0)
+        best[keep] = iou.max(axis=1)
+        count[keep] = np.count_nonzero(iou > 0, axis=1)
+    return best, count
 
 
 def _geometric_edges(values: np.ndarray, base: float) -> np.ndarray:

@@ -32,6 +32,8 @@ __all__ = [
     "small_config",
     "small_scene",
     "small_dataset",
+    "MARKER_KEYS",
+    "check_marker_options",
     "boxes",
     "box_pairs",
     "scenes",
@@ -157,11 +159,18 @@ def small_config(
     images: int = 4,
     overrides: tuple[str, ...] | list[str] = (),
 ):
-    """A small, fast :class:`synthgen.config.Config` (more keys through ``overrides``)."""
+    """A small, fast :class:`synthgen.config.Config` (more keys through ``overrides``).
+
+    Raises
+    ------
+    synthgen.errors.ConfigError
+        A bad value, naming this function's keyword (``'size'``) when the
+        keyword's own shape is wrong, else the config key it sets.
+    """
     from synthgen.config import load_config
 
-    c = (count, count) if isinstance(count, int) else tuple(count)
-    s = (size, size) if isinstance(size, (int, float)) else tuple(size)
+    c = _number_or_pair("count", count)
+    s = _number_or_pair("size", size)
     return load_config(
         overrides=[
             f"canvas.width={width}",
@@ -174,6 +183,20 @@ def small_config(
             *overrides,
         ]
     )
+
+
+def _number_or_pair(name: str, value) -> tuple:
+    """``v -> (v, v)``, ``(lo, hi) -> (lo, hi)``; anything else is a ConfigError naming ``name``."""
+    from synthgen.errors import ConfigError
+
+    def num(v):
+        return isinstance(v, (int, float)) and not isinstance(v, bool)
+
+    if num(value):
+        return (value, value)
+    if isinstance(value, (tuple, list)) and len(value) == 2 and all(num(v) for v in value):
+        return tuple(value)
+    raise ConfigError(name, "must be a number or a pair (min, max)", value)
 
 
 def small_scene(index: int = 0, **kwargs):
@@ -411,6 +434,78 @@ except ImportError:  # plain helpers work without pytest
     pytest = None
 
 
+#: Settings of the ``synth`` marker (and of indirect parameter dicts).
+MARKER_KEYS = ("width", "height", "count", "size", "layout", "seed", "images", "overrides", "formats", "detector", "index")
+
+# config key a small_config keyword sets -> the keyword, to word errors as the marker's
+_MARKER_OF_CONFIG = {
+    "canvas.width": "width",
+    "canvas.height": "height",
+    "objects.count": "count",
+    "objects.size": "size",
+    "objects.layout": "layout",
+    "seed": "seed",
+    "count": "images",
+}
+
+
+def check_marker_options(opts: dict) -> None:
+    """Raise :class:`~synthgen.errors.UserError` for a setting the ``synth`` marker does not know.
+
+    The message is the one line the command-line tool gives for a misspelt
+    config key: the setting, the rule, the value and the closest known name.
+
+    Examples
+    --------
+    >>> check_marker_options({"sizes": (2, 4)})
+    Traceback (most recent call last):
+    ...
+    synthgen.errors.UserError: synth marker setting 'sizes' is not a known setting (got [2, 4]); did you mean 'size'?
+    """
+    from synthgen.errors import UserError, _show
+
+    for key, value in opts.items():
+        if key not in MARKER_KEYS:
+            raise UserError(
+                f"synth marker setting '{key}' is not a known setting (got {_show(value)}); "
+                + _closest(key, MARKER_KEYS)
+            )
+    detector = opts.get("detector", {})
+    if not isinstance(detector, dict):
+        raise UserError(f"synth marker setting 'detector' must be a dict of DetectorSpec fields (got {_show(detector)})")
+    from synthgen.jitter import DetectorSpec
+
+    fields = DetectorSpec.__dataclass_fields__
+    for key, value in detector.items():
+        if key not in fields:
+            raise UserError(
+                f"synth marker setting 'detector.{key}' is not a DetectorSpec field (got {_show(value)}); "
+                + _closest(key, list(fields))
+            )
+
+
+def _closest(name: str, known) -> str:
+    """``"did you mean 'x'?"`` for the closest known name, else the list of known names."""
+    import difflib
+
+    close = difflib.get_close_matches(name, list(known), n=1)
+    return f"did you mean '{close[0]}'?" if close else "known: " + ", ".join(known)
+
+
+def _marker_error(exc) -> str:
+    """The one-line message of a bad marker value, naming the marker's setting where it can."""
+    from synthgen.errors import ConfigError, _show
+
+    if isinstance(exc, ConfigError):
+        name = _MARKER_OF_CONFIG.get(exc.key, exc.key)
+        if exc.key.startswith("jitter."):
+            name = "detector." + exc.key.removeprefix("jitter.")
+        hint = str(exc).split("; ", 1)[1] if "; " in str(exc) else ""
+        return f"synth marker setting '{name}' {exc.rule} (got {_show(exc.value)})" + (f"; {hint}" if hint else "")
+    text = str(exc)
+    return text if text.startswith("synth marker") else f"synth marker: {text}"
+
+
 def _options(request) -> dict:
     """Keywords for the fixtures: ``@pytest.mark.synth(...)`` then an indirect parameter dict."""
     opts: dict = {}
@@ -420,7 +515,19 @@ def _options(request) -> dict:
     param = getattr(request, "param", None)
     if isinstance(param, dict):
         opts.update(param)
+    _settle(check_marker_options, opts)
     return opts
+
+
+def _settle(fn, *args, **kwargs):
+    """``fn(*args, **kwargs)``; a user error fails the test with one line and no traceback."""
+    from synthgen.errors import UserError
+
+    try:
+        return fn(*args, **kwargs)
+    except UserError as exc:
+        message = _marker_error(exc)
+    pytest.fail(message, pytrace=False)  # outside the except block: no chained exception shown
 
 
 if pytest is not None:
@@ -444,7 +551,7 @@ if pytest is not None:
         index = opts.pop("index", 0)
         opts.pop("formats", None)
         opts.pop("detector", None)
-        return small_scene(index, **opts)
+        return _settle(small_scene, index, **opts)
 
     @pytest.fixture
     def synth_predictions(request, tmp_path):
@@ -466,11 +573,11 @@ if pytest is not None:
         detector = dict(opts.pop("detector", {}))
         opts.pop("formats", None)
         opts.pop("index", None)
-        path = small_dataset(tmp_path / "synth", **opts)
+        spec = _settle(DetectorSpec, **detector)
+        path = _settle(small_dataset, tmp_path / "synth", **opts)
         import json
 
         coco = json.loads((path / "annotations.json").read_text())
-        spec = DetectorSpec(**detector)
         predictions, truth, _ = jitter_dataset(coco, seed=opts.get("seed", 0), spec=spec)
         return coco, predictions, truth
 
@@ -481,4 +588,4 @@ if pytest is not None:
         formats = tuple(opts.pop("formats", ("coco",)))
         opts.pop("index", None)
         opts.pop("detector", None)
-        return small_dataset(tmp_path / "synth", formats=formats, **opts)
+        return _settle(small_dataset, tmp_path / "synth", formats=formats, **opts)

@@ -1,5 +1,6 @@
 """synthgen check: each seeded fault is found and named; clean datasets pass."""
 
+import numpy as np
 import orjson
 import pytest
 
@@ -319,3 +320,182 @@ def test_unreadable_yolo_file_is_one_line_without_a_value(tmp_path):
     (tmp_path / "yolo" / "000001.txt").write_bytes(b"\xff\xfe0 0.5 0.5 0.1 0.1\n")
     (p,) = _only(check_dataset(tmp_path), "cannot be read as UTF-8")
     assert str(p) == "yolo/000001.txt: cannot be read as UTF-8 text (invalid start byte at byte 0)"
+
+
+# -- every count mismatch is named (issue 13 item 3) ------------------------------------
+def test_a_yolo_file_missing_an_object_names_the_image_and_the_annotation(tmp_path):
+    """A YOLO file short of one line is one problem naming the image file and the annotation id it lacks."""
+    make_dataset(tmp_path)
+    export(tmp_path, ["yolo"])
+    path = tmp_path / "yolo" / "000000.txt"
+    lines = path.read_text().splitlines(keepends=True)
+    path.write_text(lines[0] + lines[2])  # drop annotation id 2 (the second of image 000000)
+    (p,) = _only(check_dataset(tmp_path), "as many objects")
+    assert p.file == "yolo/000000.txt" and p.value == 2
+    assert "image 000000.png (3)" in p.rule and "not found: annotation id 2" in p.rule
+
+
+def test_a_yolo_line_no_annotation_stands_for_is_named(tmp_path):
+    """An extra YOLO line is named by its line number."""
+    make_dataset(tmp_path)
+    export(tmp_path, ["yolo"])
+    path = tmp_path / "yolo" / "000002.txt"
+    path.write_text(path.read_text() + "2 0.5 0.5 0.1 0.1\n")
+    (p,) = _only(check_dataset(tmp_path), "as many objects")
+    assert p.file == "yolo/000002.txt" and "not in annotations.json: line 3" in p.rule
+
+
+def test_a_token_line_missing_an_object_names_it(tmp_path):
+    """A token line without one object's five tokens names the annotation whose box is gone."""
+    make_dataset(tmp_path)
+    export(tmp_path, ["tokens"], order="raster", n_bins=40)
+    path = tmp_path / "tokens.jsonl"
+    lines = [orjson.loads(t) for t in path.read_bytes().splitlines()]
+    gone = lines[0]["annotation_ids"][1]
+    lines[0]["tokens"] = lines[0]["tokens"][:5] + lines[0]["tokens"][10:]
+    path.write_bytes(b"\n".join(orjson.dumps(x) for x in lines) + b"\n")
+    (p,) = _only(check_dataset(tmp_path), "as many objects")
+    assert (p.file, p.record) == ("tokens.jsonl", "line 1")
+    assert f"not found: annotation id {gone}" in p.rule
+
+
+def test_an_unreadable_format_file_leaves_no_silent_total_mismatch(tmp_path):
+    """When a format's object total differs from the COCO file's, a problem says so (the summary never disagrees silently)."""
+    make_dataset(tmp_path)
+    export(tmp_path, ["yolo"])
+    (tmp_path / "yolo" / "000000.txt").write_bytes(b"\xff\xfe")
+    report = check_dataset(tmp_path)
+    (p,) = _only(report, "as many objects in all")
+    assert (p.file, p.value) == ("yolo", 2)
+    assert report.counts["yolo"]["objects"] == 2 and report.counts["coco"]["objects"] == 5
+
+
+def _covered_pair(tmp_path):
+    """One image: a 2x2 square whose pixels all lie under a 4x4 square drawn above it."""
+    return make_dataset(tmp_path, images=[(12, 10, [((2, 2, 4, 4), 1), ((1, 1, 5, 5), 2)])])
+
+
+def test_an_annotation_every_upper_one_covers_keeps_a_mask_pixel(tmp_path):
+    """The id mask gives a covered annotation one pixel back, taken from the upper one (which keeps 15)."""
+    from synthgen.formats.masks import instance_id_image
+
+    coco = _covered_pair(tmp_path)
+    ids = instance_id_image(coco["annotations"], 10, 12)
+    assert np.bincount(ids.ravel(), minlength=3).tolist() == [120 - 16, 1, 15]
+    assert ids[2, 2] == 1  # the first of its pixels in column-major order (COCO RLE order)
+    export(tmp_path, ["masks"])
+    assert check_dataset(tmp_path).problems == ()
+
+
+def test_an_annotation_whose_pixels_are_others_only_pixels_may_have_none(tmp_path):
+    """Two one-pixel objects on the same pixel: the lower cannot have it, and check accepts that (README rule)."""
+    from synthgen.formats.masks import instance_id_image, lost_annotations
+
+    coco = make_dataset(tmp_path, images=[(12, 10, [((3, 3, 4, 4), 1), ((3, 3, 4, 4), 2)])])
+    ids = instance_id_image(coco["annotations"], 10, 12)
+    assert np.bincount(ids.ravel(), minlength=3).tolist() == [119, 0, 1]
+    assert lost_annotations(coco["annotations"], ids) == []
+    export(tmp_path, ["masks"])
+    assert check_dataset(tmp_path).problems == ()
+
+
+def test_check_names_an_annotation_a_mask_lost_against_the_rule(tmp_path):
+    """An id mask where the upper object simply wins (no pixel left for the lower) is a problem naming both."""
+    from PIL import Image
+
+    _covered_pair(tmp_path)
+    export(tmp_path, ["masks"])
+    ids = np.zeros((10, 12), np.uint16)
+    ids[1:5, 1:5] = 2
+    Image.fromarray(ids).save(tmp_path / "masks" / "000000.png")
+    (p,) = _only(check_dataset(tmp_path), "must keep one")
+    assert p.file == "masks/000000.png" and "image 000000.png" in p.rule
+    assert "annotation id 1" in p.rule and p.value == ["id 1"]
+
+
+# -- corrupt files: every bad line on its own (issue 13 item 4) ----------------------------
+def test_every_bad_yolo_line_is_reported(tmp_path):
+    """A 4-field line does not hide a class-9 line after it; good lines are still counted."""
+    make_dataset(tmp_path)
+    export(tmp_path, ["yolo"])
+    path = tmp_path / "yolo" / "000000.txt"
+    lines = path.read_text().splitlines()
+    lines[0] = " ".join(lines[0].split()[:4])
+    lines[1] = "9 " + lines[1].split(" ", 1)[1]
+    path.write_text("\n".join(lines) + "\n")
+    report = check_dataset(tmp_path)
+    assert [(p.record, p.rule) for p in report.problems if p.record] == [
+        ("line 1", "must be 'class xc yc w h' (5 fields)"),
+        ("line 2", "class must be in [0, 2] (labels.txt)"),
+    ]
+    assert report.counts["yolo"]["objects"] == 4  # lines 2 and 3 of image 0 and both of image 2
+
+
+def test_a_bad_token_line_names_the_token_and_keeps_the_others(tmp_path):
+    """A token outside the vocabulary is reported as itself; the other lines still count."""
+    make_dataset(tmp_path)
+    export(tmp_path, ["tokens"], order="raster")
+    path = tmp_path / "tokens.jsonl"
+    lines = [orjson.loads(t) for t in path.read_bytes().splitlines()]
+    lines[0]["tokens"][6] = 5000
+    path.write_bytes(b"\n".join(orjson.dumps(x) for x in lines) + b"\n")
+    report = check_dataset(tmp_path)
+    p, total = report.problems
+    assert (p.file, p.record, p.value) == ("tokens.jsonl", "line 1", [5000])
+    assert p.rule == "tokens must be in the vocabulary [0, 1004]"  # 1000 bins, 3 classes, noise, end
+    assert report.counts["tokens"] == {"files": 1, "images": 3, "objects": 2}
+    assert (total.file, total.value) == ("tokens.jsonl", 2) and "as many objects in all" in total.rule
+
+
+def test_a_json_file_given_alone_that_is_not_json_is_unusable(tmp_path):
+    """check FILE.json on a file that is not JSON (or not an object) raises InputFileError: exit 2, not 1."""
+    (tmp_path / "a.json").write_text("images: none")
+    with pytest.raises(InputFileError, match=r"a\.json: line 1, column 1: must be valid JSON"):
+        check_dataset(tmp_path / "a.json")
+    (tmp_path / "b.json").write_text("[1, 2]")
+    with pytest.raises(InputFileError, match=r"b\.json: top level: must be a COCO JSON object \(got 'list'\)"):
+        check_dataset(tmp_path / "b.json")
+
+
+# -- the common YOLO layout with data.yaml (issue 13 item 5) ------------------------------
+def _yolo_layout(root, yaml_text):
+    from PIL import Image
+
+    for sub in ("images/train", "labels/train"):
+        (root / sub).mkdir(parents=True)
+    Image.new("RGB", (20, 10)).save(root / "images" / "train" / "a.jpg")
+    (root / "labels" / "train" / "a.txt").write_text("0 0.5 0.5 0.2 0.2\n2 0.25 0.5 0.1 0.2\n")
+    (root / "data.yaml").write_text(yaml_text)
+
+
+@pytest.mark.parametrize(
+    "yaml_text",
+    [
+        # both spellings of 'names' in the common YOLO training tools' data.yaml (common practice)
+        "path: .\ntrain: images/train\nval: images/train\nnc: 3\nnames: [bolt, nut, washer]\n",
+        "path: .\ntrain: images/train\nnames:\n  0: bolt\n  1: nut\n  2: washer\n",
+    ],
+)
+def test_yolo_layout_reads_class_names_from_data_yaml(tmp_path, yaml_text):
+    """images/ + labels/ + data.yaml is checked with the class names of data.yaml (list or mapping)."""
+    _yolo_layout(tmp_path, yaml_text)
+    report = check_dataset(tmp_path)
+    assert report.formats == ("yolo",) and report.problems == ()
+    assert report.counts["yolo"] == {"files": 1, "images": 1, "objects": 2}
+
+
+def test_a_class_past_data_yaml_names_is_reported(tmp_path):
+    """A class index past the names of data.yaml is reported against data.yaml."""
+    _yolo_layout(tmp_path, "names: [bolt, nut]\n")
+    (p,) = check_dataset(tmp_path).problems
+    assert (p.file, p.record, p.rule, p.value) == ("labels/train/a.txt", "line 2", "class must be in [0, 1] (data.yaml)", 2)
+
+
+def test_a_data_yaml_without_usable_names_is_reported(tmp_path):
+    """data.yaml that is not YAML, or whose nc disagrees with its names, is a problem naming it."""
+    _yolo_layout(tmp_path, "names: [bolt, nut\n")
+    (p,) = _only(check_dataset(tmp_path), "must be valid YAML")
+    assert p.file == "data.yaml"
+    (tmp_path / "data.yaml").write_text("nc: 4\nnames: [bolt, nut, washer]\n")
+    (p,) = check_dataset(tmp_path).problems
+    assert (p.file, p.record, p.value) == ("data.yaml", "nc", 4)

@@ -7,6 +7,7 @@ import json
 import shutil
 
 import numpy as np
+import orjson
 import pytest
 from pycocotools import mask as cocomask
 from typer.testing import CliRunner
@@ -129,9 +130,13 @@ def test_check_finds_a_file_changed_after_make(made, tmp_path):
     path = bad / "yolo" / "000000.txt"
     path.write_text(path.read_text() + "\n")  # same labels, different bytes
     report = check_dataset(bad)
-    assert [(p.file, p.record, p.rule) for p in report.problems] == [
-        ("manifest.json", "files['yolo/000000.txt']", "file must match its sha256 digest")
+    manifest = orjson.loads((bad / "manifest.json").read_bytes())
+    expected = manifest["files"]["yolo/000000.txt"]
+    actual = hashlib.sha256(path.read_bytes()).hexdigest()  # hashlib: the outside reference
+    assert [(p.file, p.record, p.rule, p.value) for p in report.problems] == [
+        ("manifest.json", "files['yolo/000000.txt']", f"file must match its sha256 digest {expected}", actual)
     ]
+    assert expected in str(report.problems[0]) and actual in str(report.problems[0])
 
 
 def test_check_quick_reads_headers_only(made):
@@ -185,3 +190,13 @@ def test_pad_to_needs_tokens(tmp_path):
     assert run("make", "--out", out, *SMALL).exit_code == 0
     res = run("export", out, "--formats", "voc", "--pad-to", 5)
     assert res.exit_code == 2 and "--pad-to" in res.stderr
+
+
+def test_export_elsewhere_then_check_it(made, tmp_path):
+    """export DIR --out OTHER gives a folder check passes on its own, and says how many images it took along."""
+    res = run("export", made, "--formats", "yolo,tokens", "--out", tmp_path / "o")
+    assert res.exit_code == 0, res.output
+    assert res.stdout.strip().endswith(f"4 images linked or copied into {tmp_path / 'o' / 'images'}")
+    res = run("check", tmp_path / "o")
+    assert res.exit_code == 0, res.output
+    assert "coco 4 images" in res.stdout and "yolo 4 images" in res.stdout and "no problems" in res.stdout

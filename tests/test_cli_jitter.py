@@ -150,9 +150,41 @@ def test_option_defaults_are_the_library_defaults(tmp_path):
     import dataclasses
 
     from synthgen.jitter import DetectorSpec
+    from synthgen.jitter_coco import clear_spec
 
     ds = dataset(tmp_path / "ds")
-    assert run("jitter", ds, "--out", tmp_path / "p.json").exit_code == 0
+    res = run("jitter", ds, "--out", tmp_path / "p.json")
+    assert res.exit_code == 0 and res.stderr == ""  # nudges of ranges (not points) are recorded, not announced
     spec = json.loads((tmp_path / "p.truth.json").read_text())["spec"]
-    expected = {f.name: getattr(DetectorSpec(), f.name) for f in dataclasses.fields(DetectorSpec)}
+    used, _ = clear_spec(DetectorSpec())  # as used: range ends moved off COCO's thresholds
+    expected = {f.name: getattr(used, f.name) for f in dataclasses.fields(DetectorSpec)}
     assert spec == {k: list(v) if isinstance(v, tuple) else v for k, v in expected.items()}
+
+
+def test_a_range_on_a_coco_threshold_is_nudged_with_a_note(tmp_path):
+    """--iou 0.5,0.5 draws at 0.5 + 1e-6 and says so on stderr; the summary records what was asked and used."""
+    ds = dataset(tmp_path / "ds")
+    res = run("jitter", ds, "--out", tmp_path / "p.json", "--iou", "0.5,0.5")
+    assert res.exit_code == 0, res.output
+    assert "note: --iou 0.5,0.5 ends on a COCO IoU threshold; used 0.500001,0.500001" in res.stderr
+    summary = json.loads(res.stdout)
+    assert summary["nudged"]["iou"] == {"asked": [0.5, 0.5], "used": [0.500001, 0.500001]}
+    side = json.loads((tmp_path / "p.truth.json").read_text())
+    assert all(abs(p["iou"] - 0.500001) < 1e-9 for p in side["predictions"])
+
+
+def test_ambiguous_predictions_are_explained(tmp_path):
+    """When predictions also overlap another object at IoU >= 0.5, a note says what 'ambiguous' means."""
+    root = tmp_path / "ds"
+    root.mkdir()
+    anns = [  # two nearly identical boxes: every box made from one overlaps the other at IoU > 0.5
+        {"id": 1, "image_id": 1, "category_id": 1, "bbox": [10.0, 10.0, 40.0, 40.0], "area": 1600.0, "iscrowd": 0},
+        {"id": 2, "image_id": 1, "category_id": 1, "bbox": [11.0, 10.0, 40.0, 40.0], "area": 1600.0, "iscrowd": 0},
+    ]
+    coco = {"images": [{"id": 1, "file_name": "a.png", "width": 64, "height": 64}], "annotations": anns,
+            "categories": [{"id": 1, "name": "ring", "supercategory": "shape"}]}
+    (root / "annotations.json").write_text(json.dumps(coco))
+    res = run("jitter", root, "--out", tmp_path / "p.json", "--iou", "0.9,0.95")
+    assert res.exit_code == 0, res.output
+    assert json.loads(res.stdout)["ambiguous"] == 2
+    assert "note: 'ambiguous': 2 predictions also overlap another ground-truth box at IoU >= 0.5" in res.stderr

@@ -176,3 +176,48 @@ def test_huge_finite_boxes_score_without_warnings(small_dataset, tmp_path):
     stats = json.loads((tmp_path / "s.json").read_text())["stats"]
     ref = coco_reference(gt, preds)  # reference: pycocotools COCOeval (its areas overflow to inf as well)
     assert np.allclose(list(stats.values()), ref.stats, atol=1e-9)
+
+
+def _foreign(ds, tmp_path):
+    """The dataset's COCO file as another tool writes it: no synthgen facts anywhere."""
+    gt = json.loads((ds / "annotations.json").read_text())
+    for a in gt["annotations"]:
+        a.pop("synthgen", None)
+    for im in gt["images"]:
+        im.pop("synthgen", None)
+    path = tmp_path / "foreign.json"
+    path.write_text(json.dumps(gt))
+    return path, gt
+
+
+def test_score_derives_size_and_kind_for_a_coco_file_without_facts(small_dataset, tmp_path):
+    """--by size and --by kind work on a COCO file without synthgen's facts: derived from bbox and category."""
+    ds, _ = small_dataset
+    pred, _ = _predictions(ds, tmp_path)
+    foreign, gt = _foreign(ds, tmp_path)
+    res = run("score", foreign, pred, "--by", "size", "--by", "kind", "--by", "neighbours", "--json", tmp_path / "o.json")
+    assert res.exit_code == 0, res.output
+    out = json.loads((tmp_path / "o.json").read_text())
+    names = {c["id"]: c["name"] for c in gt["categories"]}
+    want = {}
+    for a in gt["annotations"]:
+        want[names[a["category_id"]]] = want.get(names[a["category_id"]], 0) + 1
+    assert {b["label"]: b["n_gt"] for b in out["slices"]["kind"]} == want
+    assert sum(b["n_gt"] for b in out["slices"]["size"]) == len(gt["annotations"])
+    assert sum(b["n_gt"] for b in out["slices"]["neighbours"]) == len(gt["annotations"])
+
+
+def test_predictions_with_an_unknown_category_are_counted_and_reported(small_dataset, tmp_path):
+    """Predictions naming a category_id the ground truth does not list: a warning with their count and ids."""
+    ds, _ = small_dataset
+    _, preds = _predictions(ds, tmp_path)
+    preds[0]["category_id"] = 99
+    preds[1]["category_id"] = 42
+    preds[2]["category_id"] = 99
+    path = tmp_path / "odd.json"
+    path.write_text(json.dumps(preds))
+    res = run("score", ds, path, "--json", tmp_path / "o.json")
+    assert res.exit_code == 0, res.output
+    assert f"warning: 3 predictions in {path} name a category_id the ground truth does not list (42, 99)" in res.stderr
+    counts = json.loads((tmp_path / "o.json").read_text())["counts"]
+    assert counts["predictions_unknown_category"] == 3 and counts["unknown_category_ids"] == [42, 99]

@@ -150,3 +150,47 @@ def test_masks_of_annotations_without_segmentation_are_refused_before_writing(tm
         export(tmp_path / "d", ["voc", "masks"], out=tmp_path / "o", masks=mode)
     assert not (tmp_path / "o").exists()
     export(tmp_path / "d", ["voc"], out=tmp_path / "o")  # formats without masks still work
+
+
+def test_export_to_another_directory_is_a_dataset_of_its_own(tmp_path):
+    """export --out OTHER links the images and writes annotations.json, so check passes on OTHER alone."""
+    from synthgen.check import check_dataset
+
+    make_dataset(tmp_path / "d")
+    done = export(tmp_path / "d", ["yolo"], out=tmp_path / "o", split={"a": 2 / 3, "b": 1 / 3})
+    assert done["images"] == 3 and done["coco"] == 3
+    for name in ("000000.png", "000001.png", "000002.png"):
+        src, dst = tmp_path / "d" / "images" / name, tmp_path / "o" / "images" / name
+        assert dst.read_bytes() == src.read_bytes()
+    report = check_dataset(tmp_path / "o")
+    assert report.problems == () and report.formats == ("coco", "yolo")
+    # the YOLO split lists point at the exported folder's own images
+    listed = (tmp_path / "o" / "yolo" / "splits" / "a.txt").read_text().split()
+    assert listed and all((tmp_path / "o" / p).is_file() and p.startswith("images/") for p in listed)
+    # once more into the same folder: the images are already there, nothing new to link
+    assert export(tmp_path / "d", ["voc"], out=tmp_path / "o")["images"] == 0
+
+
+def test_export_refuses_to_replace_another_image_in_the_output(tmp_path):
+    """A different file where an exported image goes is refused before anything is written."""
+    make_dataset(tmp_path / "d")
+    (tmp_path / "o" / "images").mkdir(parents=True)
+    (tmp_path / "o" / "images" / "000001.png").write_bytes(b"my own picture")
+    with pytest.raises(InputFileError, match=r"000001\.png: already exists and is not the image"):
+        export(tmp_path / "d", ["yolo"], out=tmp_path / "o")
+    assert [p.name for p in (tmp_path / "o").rglob("*")] == ["images", "000001.png"]
+
+
+def test_export_copies_where_it_cannot_link(tmp_path, monkeypatch):
+    """Across file systems (os.link fails), the images are copied."""
+    import os
+
+    def no_link(src, dst):
+        raise OSError(18, "Invalid cross-device link")
+
+    make_dataset(tmp_path / "d")
+    monkeypatch.setattr(os, "link", no_link)
+    assert export(tmp_path / "d", ["voc"], out=tmp_path / "o")["images"] == 3
+    dst = tmp_path / "o" / "images" / "000000.png"
+    assert dst.read_bytes() == (tmp_path / "d" / "images" / "000000.png").read_bytes()
+    assert dst.stat().st_nlink == 1

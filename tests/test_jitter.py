@@ -592,3 +592,37 @@ def test_every_function_accepts_empty_input():
     assert len(pad_with_noise(empty, [], 0, rng=rng, canvas=(8, 8), noise_label=0)) == 0
     det = simulate_detections(empty, [], np.zeros((0, 2)), rng=rng, spec=DetectorSpec(miss=0.5, duplicates=0.5))
     assert len(det) == 0 and det.missed.shape == (0,)
+
+
+def test_background_boxes_are_sized_like_the_objects_by_default():
+    """Without background_size, each background box has the width and height of a true box (tiny objects, tiny false positives)."""
+    rng = np.random.default_rng(5)
+    n = 60
+    w = rng.uniform(1.0, 4.0, n)
+    h = rng.uniform(1.0, 4.0, n)
+    x = rng.uniform(0, 190, n)
+    y = rng.uniform(0, 190, n)
+    truth = np.stack([x, y, x + w, y + h], axis=1)
+    image = np.arange(n) % 3
+    det = simulate_detections(
+        truth, np.ones(n, dtype=np.int64), (200, 200), rng=np.random.default_rng(1),
+        spec=DetectorSpec(background=30.0), image=image,
+    )
+    bg = det.boxes[det.kind == "background"]
+    assert len(bg) > 50
+    sizes = {(round(a, 9), round(b, 9)) for a, b in zip(w, h)}
+    assert all((round(b[2] - b[0], 9), round(b[3] - b[1], 9)) in sizes for b in bg)
+    # a fraction range still sizes them by the image's shorter side: 5-30% of 200 px
+    det = simulate_detections(
+        truth, np.ones(n, dtype=np.int64), (200, 200), rng=np.random.default_rng(1),
+        spec=DetectorSpec(background=30.0, background_size=(0.05, 0.3)), image=image,
+    )
+    side = np.sqrt(np.prod(np.diff(det.boxes[det.kind == "background"].reshape(-1, 2, 2), axis=1)[:, 0], axis=1))
+    assert side.min() >= 10 - 1e-9 and side.max() <= 60 + 1e-9
+
+
+def test_background_boxes_without_truth_fall_back_to_a_fraction_of_the_image():
+    """With no true box to copy, background boxes take 5-30% of the shorter side."""
+    out = background_boxes(np.zeros((0, 4)), 40, rng=np.random.default_rng(2), canvas=(100, 80))
+    side = np.sqrt((out.boxes[:, 2] - out.boxes[:, 0]) * (out.boxes[:, 3] - out.boxes[:, 1]))
+    assert side.min() >= 0.05 * 80 - 1e-9 and side.max() <= 0.3 * 80 + 1e-9

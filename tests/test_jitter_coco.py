@@ -234,3 +234,47 @@ def test_jitter_files_malformed_json_writes_nothing(tmp_path):
     with pytest.raises(InputFileError, match="annotations.json: is not valid JSON"):
         jitter_files(tmp_path / "ds", tmp_path / "pred.json")
     assert os.listdir(tmp_path) == ["ds"]
+
+
+def grid_coco(n_side: int = 14) -> dict:
+    """One 1000 x 1000 image with n_side^2 boxes of assorted sizes on a grid, none overlapping."""
+    anns = []
+    for r in range(n_side):
+        for c in range(n_side):
+            w, h = 12.0 + (r * 7 + c * 3) % 40, 10.0 + (r * 5 + c * 11) % 38
+            anns.append({"id": len(anns) + 1, "image_id": 1, "category_id": 1 + (r + c) % 2,
+                         "bbox": [c * 70.0 + 3.5, r * 70.0 + 1.25, w, h], "area": w * h, "iscrowd": 0})
+    return {
+        "images": [{"id": 1, "file_name": "000000.png", "width": 1000, "height": 1000}],
+        "annotations": anns,
+        "categories": [{"id": 1, "name": "ring", "supercategory": "shape"}, {"id": 2, "name": "star", "supercategory": "shape"}],
+    }
+
+
+@pytest.mark.parametrize(
+    ("iou", "matched", "missed"),
+    [
+        ((0.5, 0.5), [0.5], []),          # a point on a threshold: every box matched there
+        ((0.7, 0.7), [0.5, 0.7], [0.75]),  # 0.7 is linspace's 0.7000000000000001
+        ((0.55, 0.7), [0.5, 0.55], [0.7]),  # a high end on a threshold: no box matched there
+    ],
+)
+def test_ranges_on_coco_thresholds_land_on_a_known_side(iou, matched, missed):
+    """pycocotools matches every box at the thresholds the range reaches and none at those it stops on."""
+    coco = grid_coco()
+    preds, sidecar, summary = jitter_dataset(coco, seed=4, spec=DetectorSpec(iou=iou))
+    ev = evaluate(coco, preds)
+    thresholds = ev.params.iouThrs.tolist()  # pycocotools: linspace(0.5, 0.95, 10)
+    recall = ev.eval["recall"][:, :, 0, -1]  # [iouThr, category, area 'all', maxDets 100]
+    for t in matched:
+        assert (recall[thresholds.index(min(thresholds, key=lambda v: abs(v - t)))] == 1.0).all()
+    for t in missed:
+        assert (recall[thresholds.index(min(thresholds, key=lambda v: abs(v - t)))] == 0.0).all()
+    assert summary["nudged"]["iou"]["asked"] == list(iou)
+    assert sidecar["spec"]["iou"] == summary["nudged"]["iou"]["used"]
+
+
+def test_ranges_off_the_thresholds_are_kept():
+    """A range whose ends are not COCO thresholds is used as asked and nothing is recorded."""
+    preds, sidecar, summary = jitter_dataset(hand_coco(), seed=1, spec=DetectorSpec(iou=(0.52, 0.68), duplicate_iou=(0.62, 0.78)))
+    assert summary["nudged"] == {} and sidecar["spec"]["iou"] == [0.52, 0.68]

@@ -424,3 +424,40 @@ def test_slices_of_a_dataset_without_objects_are_empty_bins():
     assert ev.slice_by("shininess") == []
     # pycocotools (REFERENCE.md: COCO-style AP): a category without ground truth scores -1
     assert ev.stats[0] == -1.0
+
+
+def test_derived_facts_equal_the_recorded_ones(small_dataset):
+    """On synthgen's own data with the facts removed, kind, max_iou and neighbours derive to the recorded values,
+    and max_iou agrees with box IoUs from shapely polygons (outside reference)."""
+    import json
+
+    import shapely
+
+    from synthgen.score import evaluate
+
+    ds, _ = small_dataset
+    gt = json.loads((ds / "annotations.json").read_text())
+    bare = json.loads(json.dumps(gt))
+    for a in bare["annotations"]:
+        a.pop("synthgen")
+    preds = [{"image_id": a["image_id"], "category_id": a["category_id"], "bbox": a["bbox"], "score": 1.0}
+             for a in gt["annotations"]]
+    with_facts, without = evaluate(gt, preds), evaluate(bare, preds)
+    for fact in ("kind", "max_iou", "neighbours"):
+        recorded, _ = with_facts.fact_values(fact)
+        derived, _ = without.fact_values(fact)
+        if fact == "kind":
+            assert derived.tolist() == recorded.tolist()
+        else:
+            np.testing.assert_allclose(derived, recorded, rtol=0, atol=1e-12)
+    size, _ = without.fact_values("size")
+    assert size.tolist() == [max(a["bbox"][2], a["bbox"][3]) for a in gt["annotations"]]
+    max_iou, _ = without.fact_values("max_iou")
+    assert (max_iou > 0).any()  # the small dataset has overlapping boxes, so the check is not vacuous
+    for i, a in enumerate(gt["annotations"]):
+        x, y, w, h = a["bbox"]
+        pa = shapely.box(x, y, x + w, y + h)
+        others = [shapely.box(b["bbox"][0], b["bbox"][1], b["bbox"][0] + b["bbox"][2], b["bbox"][1] + b["bbox"][3])
+                  for b in gt["annotations"] if b["image_id"] == a["image_id"] and b["id"] != a["id"]]
+        ref = max((pa.intersection(pb).area / pa.union(pb).area for pb in others), default=0.0)
+        assert abs(max_iou[i] - ref) < 1e-9

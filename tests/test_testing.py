@@ -136,6 +136,11 @@ def test_plugin_loads_in_an_outside_project(pytester, monkeypatch):
             assert len(preds) == len(coco["annotations"]) - len(truth["missed"])
         """
     )
+    _run_as_outside_project(pytester, monkeypatch).assert_outcomes(passed=5)
+
+
+def _run_as_outside_project(pytester, monkeypatch):
+    """Run pytest in a subprocess on the files made in ``pytester``, with synthgen's plugin as installed."""
     from importlib.metadata import entry_points
 
     installed = any(ep.value == "synthgen.testing" for ep in entry_points(group="pytest11"))
@@ -145,8 +150,7 @@ def test_plugin_loads_in_an_outside_project(pytester, monkeypatch):
 
         monkeypatch.setenv("PYTHONPATH", str(Path(__file__).resolve().parent.parent))
         args += ["-p", "synthgen.testing"]
-    result = pytester.runpytest_subprocess(*args)
-    result.assert_outcomes(passed=5)
+    return pytester.runpytest_subprocess(*args)
 
 
 @settings(max_examples=100, deadline=None)
@@ -182,3 +186,50 @@ def test_box_pairs_at_the_far_edge_stay_inside_the_canvas():
         # shapely: the canvas polygon covers both boxes, and their IoU is the requested one
         assert canvas.covers(sbox(*a)) and canvas.covers(sbox(*b))
         assert shapely_iou(a, b) == pytest.approx(t, abs=1e-9)
+
+
+def test_marker_mistakes_fail_with_one_line(pytester, monkeypatch):
+    """A misspelt marker key or a bad value fails the test with the CLI's one-line message, no traceback."""
+    pytester.makepyfile(
+        """
+        import pytest
+
+        @pytest.mark.synth(sizes=(2, 4))
+        def test_misspelt(synth_scene):
+            pass
+
+        @pytest.mark.synth(overlap="lots")
+        def test_unknown(synth_dataset):
+            pass
+
+        @pytest.mark.synth(layout="lots")
+        def test_bad_layout(synth_scene):
+            pass
+
+        @pytest.mark.synth(size="big")
+        def test_bad_size(synth_dataset):
+            pass
+
+        @pytest.mark.synth(detector={"mis": 0.2})
+        def test_detector_key(synth_predictions):
+            pass
+
+        @pytest.mark.synth(detector={"iou": (0.9, 0.5)})
+        def test_detector_value(synth_predictions):
+            pass
+        """
+    )
+    result = _run_as_outside_project(pytester, monkeypatch)
+    result.assert_outcomes(errors=6)
+    text = result.stdout.str()
+    for line in [
+        "synth marker setting 'sizes' is not a known setting (got [2, 4]); did you mean 'size'?",
+        "synth marker setting 'overlap' is not a known setting (got 'lots'); known: width, height, count,",
+        "synth marker setting 'layout' must be one of scatter, separated, pairs, grid, clusters (got 'lots')",
+        "synth marker setting 'size' must be a number or a pair (min, max) (got 'big')",
+        "synth marker setting 'detector.mis' is not a DetectorSpec field (got 0.2); did you mean 'miss'?",
+        "synth marker setting 'detector.iou' must be",
+    ]:
+        assert line in text, text
+    assert "Traceback" not in text and "TypeError" not in text and "synthgen/testing.py" not in text
+    assert "During handling" not in text and "synth marker: synth marker" not in text

@@ -5,7 +5,8 @@ segmentations are in it), so ``make`` and ``export`` share this one path.
 
 Output layout under the output directory ``OUT`` (``DIR`` for export in place)::
 
-    OUT/annotations.json                    coco (export only writes it when OUT is not DIR)
+    OUT/images/<file_name>                  export to another OUT: hard links to DIR's images (or copies)
+    OUT/annotations.json                    coco (export always writes it when OUT is not DIR)
     OUT/voc/<stem>.xml                      voc
     OUT/yolo/<stem>.txt, OUT/yolo/labels.txt  yolo
     OUT/tokens.jsonl, OUT/tokens.vocab.json tokens
@@ -18,7 +19,9 @@ files are written to a temporary file and renamed.
 
 from __future__ import annotations
 
+import filecmp
 import os
+import shutil
 from collections.abc import Callable, Iterable, Mapping
 from pathlib import Path
 
@@ -105,18 +108,8 @@ def write_formats(
         Format (or ``"split:<name>"``) -> number of images written.
     """
     formats = parse_formats(list(formats)) if formats else ()
-    check_choice("masks", masks, masks_fmt.MASK_MODES)
-    if "tokens" in formats:
-        tokens_fmt.check_token_options(n_bins, order)
-    if "masks" in formats and masks == "png":
-        _check_png_ids(coco)
-    out = Path(out)
-    if out.exists() and not out.is_dir():
-        raise InputFileError(out, "cannot be written: it is a file, not a directory")
-    try:
-        out.mkdir(parents=True, exist_ok=True)
-    except OSError as e:
-        raise InputFileError(out, f"cannot be created ({e.strerror or e})") from None
+    _check_options(coco, formats, n_bins, order, masks)
+    out = _output_dir(out)
     images_dir = Path(images_dir) if images_dir is not None else out / "images"
     labels = assign_splits(len(coco["images"]), dict(split), seed=seed) if split else None
     parts = split_coco(coco, labels, names=list(split)) if split else {}
@@ -160,6 +153,27 @@ def write_formats(
         }
         write_bytes_atomic(out / "splits.json", orjson.dumps(doc, option=orjson.OPT_INDENT_2))
     return done
+
+
+def _check_options(coco: dict, formats, n_bins: int, order: str, masks: str) -> None:
+    """Raise, before anything is written, for options the writers would refuse."""
+    check_choice("masks", masks, masks_fmt.MASK_MODES)
+    if "tokens" in formats:
+        tokens_fmt.check_token_options(n_bins, order)
+    if "masks" in formats and masks == "png":
+        _check_png_ids(coco)
+
+
+def _output_dir(out) -> Path:
+    """Make the output directory (and its parents); a path that is or lies under a file is an InputFileError."""
+    out = Path(out)
+    if out.exists() and not out.is_dir():
+        raise InputFileError(out, "cannot be written: it is a file, not a directory")
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+    except OSError as e:
+        raise InputFileError(out, f"cannot be created ({e.strerror or e})") from None
+    return out
 
 
 def _check_png_ids(coco: dict) -> None:
@@ -251,7 +265,12 @@ def export(
     formats : iterable of str
         Any of ``FORMATS``.
     out : str or Path, optional
-        Output directory (default: ``dataset_dir`` itself).
+        Output directory (default: ``dataset_dir`` itself).  Another directory
+        becomes a dataset of its own: ``out/images/`` gets every image (hard
+        links where the file system allows, so no space is spent and editing
+        one edits both; copies otherwise), ``out/annotations.json`` the COCO
+        file, then the formats asked for.  An image already there with the same
+        bytes is kept; one with other bytes is refused before anything is written.
     seed : int, optional
         Root seed for splits and random token order; default the ``seed`` of
         ``dataset_dir/manifest.json``, else 0.
@@ -261,12 +280,14 @@ def export(
     Returns
     -------
     dict
-        Format -> number of images written.
+        Format -> number of images written (``"images"``: images linked or
+        copied into another ``out``).
 
     Raises
     ------
     synthgen.errors.InputFileError
-        When ``dataset_dir`` has no readable ``annotations.json``.
+        When ``dataset_dir`` has no readable ``annotations.json``, misses an
+        image, or ``out`` holds a different file where an image goes.
     """
     dataset_dir = Path(dataset_dir)
     if not dataset_dir.is_dir():
@@ -278,17 +299,63 @@ def export(
     formats = list(formats)
     formats = parse_formats(formats) if formats or not split else ()  # splits alone are fine
     _check_input(coco, dataset_dir / "annotations.json", formats)
-    if out.resolve() == dataset_dir.resolve():
+    in_place = out.resolve() == dataset_dir.resolve()
+    done: dict[str, int] = {}
+    if in_place:
         formats = tuple(f for f in formats if f != "coco")  # already there
-    return write_formats(
+    else:
+        # A folder of its own is a whole dataset: its images and its COCO file, then the formats.
+        links = _image_links(coco, dataset_dir, out)
+        _check_options(coco, formats, n_bins, order, masks)  # refused before any image is linked
+        _output_dir(out)
+        done["images"] = _link_images(links)
+        formats = ("coco", *(f for f in formats if f != "coco"))
+    done.update(write_formats(
         coco,
         out,
         formats,
-        images_dir=dataset_dir / "images",
+        images_dir=dataset_dir / "images" if in_place else out / "images",
         split=split,
         seed=seed,
         n_bins=n_bins,
         order=order,
         noise=noise,
         masks=masks,
-    )
+    ))
+    return done
+
+
+def _image_links(coco: dict, dataset_dir: Path, out: Path) -> list[tuple[Path, Path]]:
+    """(source, target) of every image to link into ``out/images``, checked before anything is written.
+
+    A source is ``images/<file_name>`` of the dataset (or ``<file_name>`` beside
+    its annotations.json); a target that already holds the same bytes is left
+    alone, one that holds other bytes is refused.
+    """
+    links = []
+    for im in coco["images"]:
+        name = im["file_name"]
+        src = next((p for p in (dataset_dir / "images" / name, dataset_dir / name) if p.is_file()), None)
+        if src is None:
+            raise InputFileError(dataset_dir / "images" / name, "does not exist (export --out takes every image along)")
+        dst = out / "images" / name
+        if dst.exists():
+            if dst.is_file() and (os.path.samefile(src, dst) or filecmp.cmp(src, dst, shallow=False)):
+                continue
+            raise InputFileError(
+                dst, f"already exists and is not the image {src} it would become; remove it or choose another --out"
+            )
+        links.append((src, dst))
+    return links
+
+
+def _link_images(links: list[tuple[Path, Path]]) -> int:
+    """Hard-link each source to its target, copying where the file system cannot link; returns the count."""
+    for src, dst in links:
+        dst.parent.mkdir(parents=True, exist_ok=True)
+        try:
+            os.link(src, dst)
+        except OSError:  # another file system, or links not allowed: copy through a temporary name
+            with staged_file(dst) as tmp:
+                shutil.copyfile(src, tmp)
+    return len(links)

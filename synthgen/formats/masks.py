@@ -8,8 +8,14 @@ of that image in annotation order (the order of ``annotations`` in the COCO
 file, which for synthgen is draw order, bottom first).  Each annotation's mask
 is its ``segmentation`` (RLE, or a polygon filled with Pillow for other tools'
 files).  Where masks share pixels (anti-aliased edges of overlapping objects)
-the later annotation, the one drawn on top, wins.  At most 65,535 annotations
-per image.
+the later annotation, the one drawn on top, wins, with one exception: an
+annotation whose every pixel an upper one won (a small object whose visible
+part lies under the soft edges of the objects above it) takes back one of its
+pixels, the one whose owner has the most pixels (the first in column-major
+order among equals), provided that owner keeps at least one.  So every
+annotation with a non-empty segmentation owns at least one pixel, unless each
+of its pixels is the only pixel of another annotation (:func:`lost_annotations`
+tells which break that rule).  At most 65,535 annotations per image.
 
 ``rle`` mode: ``masks.jsonl``, one line per image: ``image_id``,
 ``file_name``, and ``masks``, a list in annotation order of ``{"id",
@@ -35,6 +41,7 @@ __all__ = [
     "MAX_IDS",
     "annotation_mask",
     "instance_id_image",
+    "lost_annotations",
     "write_instance_pngs",
     "write_mask_rles",
     "read_instance_png",
@@ -82,12 +89,60 @@ def instance_id_image(annotations: list[dict], height: int, width: int) -> np.nd
         raise ValueError(f"an instance-id PNG holds at most {MAX_IDS} annotations (got {len(annotations)})")
     flat = np.zeros(width * height, dtype=np.uint16)  # column-major, as RLE runs are
     for i, a in enumerate(annotations, start=1):
-        seg = a.get("segmentation")
-        if isinstance(seg, dict) and list(seg.get("size", [])) == [height, width]:
-            flat[rle.flat_indices(seg)] = i  # cost grows with the mask, not the canvas
-        else:
-            flat[annotation_mask(a, height, width).ravel(order="F")] = i
+        flat[_pixels(a, height, width)] = i
+    counts = np.bincount(flat, minlength=len(annotations) + 1)
+    for i in np.flatnonzero(counts[1:] == 0) + 1:  # annotations every upper one covered
+        idx = _pixels(annotations[i - 1], height, width)
+        if idx.size == 0:
+            continue
+        owners = flat[idx]
+        k = int(np.argmax(counts[owners]))  # the first pixel whose owner can best spare one
+        if counts[owners[k]] > 1:
+            counts[owners[k]] -= 1
+            counts[i] = 1
+            flat[idx[k]] = i
     return flat.reshape(width, height).T.copy()
+
+
+def _pixels(ann: dict, height: int, width: int) -> np.ndarray:
+    """Column-major flat indices of an annotation's segmentation pixels, int64 (A,)."""
+    seg = ann.get("segmentation")
+    if isinstance(seg, dict) and list(seg.get("size", [])) == [height, width]:
+        return rle.flat_indices(seg)  # cost grows with the mask, not the canvas
+    return np.flatnonzero(annotation_mask(ann, height, width).ravel(order="F"))
+
+
+def lost_annotations(annotations: list[dict], ids: np.ndarray) -> list[int]:
+    """Positions (1-based) of annotations an instance-id image leaves without a pixel against the rule.
+
+    The rule (module docstring): an annotation with a non-empty segmentation
+    owns at least one pixel of ``ids``, unless each of its pixels is the only
+    pixel of another annotation.
+
+    Parameters
+    ----------
+    annotations : list of dict
+        The image's COCO annotations, in annotation order.
+    ids : ndarray of int, shape (H, W)
+        The instance-id image.
+
+    Returns
+    -------
+    list of int
+        1-based positions (the ids the annotations should have), increasing.
+    """
+    height, width = ids.shape
+    flat = ids.T.ravel()  # column-major
+    counts = np.bincount(flat, minlength=len(annotations) + 1)
+    lost = []
+    for i in np.flatnonzero(counts[1 : len(annotations) + 1] == 0) + 1:
+        try:
+            idx = _pixels(annotations[i - 1], height, width)
+        except ValueError:  # no usable segmentation: nothing to own
+            continue
+        if idx.size and not (counts[flat[idx]] == 1).all():
+            lost.append(int(i))
+    return lost
 
 
 def write_instance_pngs(coco: dict, out_dir) -> int:

@@ -65,6 +65,7 @@ __all__ = [
     "check_token_options",
     "write_tokens",
     "read_vocabulary",
+    "parse_tokens",
     "read_tokens",
 ]
 
@@ -389,6 +390,105 @@ def read_vocabulary(path) -> dict:
     return vocab
 
 
+def parse_tokens(path, vocab_path) -> tuple[list[dict], list]:
+    """Decode a token file line by line, keeping every good line and every problem.
+
+    Parameters
+    ----------
+    path, vocab_path : str or Path
+
+    Returns
+    -------
+    lines : list of dict
+        One per good line: the line's fields plus ``line_number`` (1-based),
+        ``boxes`` (float64
+        (N + M, 4), xyxy bin centres in pixels), ``category_ids`` (int64
+        (N + M,), -1 for noise objects) and ``is_noise`` (bool (N + M,)), in
+        sequence order.
+    problems : list of synthgen.errors.InputFileError
+        One per bad line, naming the line, the rule and the offending value
+        (the token itself for a token outside the vocabulary); each carries
+        ``image_id`` (the line's, or None when it has none).
+
+    Raises
+    ------
+    synthgen.errors.InputFileError
+        When the token file cannot be read or the vocabulary is malformed.
+    """
+    path = Path(path)
+    vocab = read_vocabulary(vocab_path)
+    raw = read_input(path)
+    out, problems = [], []
+    for n, text in enumerate(raw.splitlines(), start=1):
+        if not text.strip():
+            continue
+        try:
+            line = orjson.loads(text)
+        except orjson.JSONDecodeError as e:
+            err = bad_record(path, f"line {n}", "must be valid JSON", e.msg)
+            err.image_id = None
+            problems.append(err)
+            continue
+        found = _line_problem(line, vocab)
+        if found is not None:
+            err = bad_record(path, f"line {n}", *found)
+            err.image_id = line.get("image_id") if isinstance(line, dict) else None
+            problems.append(err)
+            continue
+        line["line_number"] = n
+        out.append(_decode_line(line, vocab))
+    return out, problems
+
+
+def _line_problem(line, vocab: dict) -> tuple[str, object] | None:
+    """(rule, value) of the first rule a parsed token line breaks, or None."""
+    n_bins = vocab["n_bins"]
+    noise_token = vocab["ranges"]["noise"][0]
+    end_token = vocab["ranges"]["end"][0]
+    classes = {c["token"] for c in vocab["classes"]}
+    if not isinstance(line, dict) or not isinstance(line.get("tokens"), list):
+        return "must be an object with a 'tokens' list", type(line).__name__
+    for key in ("width", "height"):
+        if not is_int(line.get(key)) or line[key] <= 0:
+            return f"'{key}' must be a positive whole number", line.get(key)
+    tokens = line["tokens"]
+    bad = [t for t in tokens if not is_int(t)]
+    if bad:
+        return "tokens must be integers", bad[:5]
+    top = max(end_token, noise_token, *classes, n_bins - 1)
+    outside = [t for t in tokens if not 0 <= t <= top]
+    if outside:
+        return f"tokens must be in the vocabulary [0, {top}]", outside[:5]
+    if (len(tokens) - 1) % 5 or not tokens:
+        return f"must be 5 tokens per object then the end token {end_token} (a length of 5 k + 1)", len(tokens)
+    if tokens[-1] != end_token:
+        return f"must end with the end token {end_token}", tokens[-1]
+    q = np.array(tokens[:-1], dtype=np.int64).reshape(-1, 5)
+    coords, cls = q[:, :4], q[:, 4]
+    wrong = coords[(coords < 0) | (coords >= n_bins)]
+    if wrong.size:
+        return f"coordinate tokens must be in [0, {n_bins - 1}]", wrong.tolist()[:5]
+    known = np.array([t in classes or t == noise_token for t in cls.tolist()], dtype=bool)
+    if not known.all():
+        return "class tokens must be a class or the noise token", cls[~known].tolist()[:5]
+    return None
+
+
+def _decode_line(line: dict, vocab: dict) -> dict:
+    """A checked token line with its boxes, category ids and noise flags added."""
+    n_bins = vocab["n_bins"]
+    category_of = {c["token"]: c["category_id"] for c in vocab["classes"]}
+    q = np.array(line["tokens"][:-1], dtype=np.int64).reshape(-1, 5)
+    coords, cls = q[:, :4], q[:, 4]
+    boxes = np.empty(coords.shape, dtype=np.float64)
+    boxes[:, 0::2] = dequantize(coords[:, 0::2], line["width"], n_bins)
+    boxes[:, 1::2] = dequantize(coords[:, 1::2], line["height"], n_bins)
+    line["boxes"] = boxes
+    line["category_ids"] = np.array([category_of.get(t, -1) for t in cls.tolist()], dtype=np.int64)
+    line["is_noise"] = cls == vocab["ranges"]["noise"][0]
+    return line
+
+
 def read_tokens(path, vocab_path) -> list[dict]:
     """Decode a token file back to boxes.
 
@@ -399,56 +499,16 @@ def read_tokens(path, vocab_path) -> list[dict]:
     Returns
     -------
     list of dict, one per line
-        The line's fields plus ``boxes`` (float64 (N + M, 4), xyxy bin centres
-        in pixels), ``category_ids`` (int64 (N + M,), -1 for noise objects) and
-        ``is_noise`` (bool (N + M,)), in sequence order.
+        As :func:`parse_tokens` returns them.
 
     Raises
     ------
     synthgen.errors.InputFileError
         When a line is not JSON, or its tokens break the vocabulary (a
-        coordinate token in a class slot, a missing end token, ...).
+        coordinate token in a class slot, a missing end token, ...): the
+        first such line (see :func:`parse_tokens` for all of them).
     """
-    path = Path(path)
-    vocab = read_vocabulary(vocab_path)
-    n_bins = vocab["n_bins"]
-    category_of = {c["token"]: c["category_id"] for c in vocab["classes"]}
-    noise_token = vocab["ranges"]["noise"][0]
-    end_token = vocab["ranges"]["end"][0]
-    raw = read_input(path)
-    out = []
-    for n, text in enumerate(raw.splitlines(), start=1):
-        if not text.strip():
-            continue
-        record = f"line {n}"
-        try:
-            line = orjson.loads(text)
-        except orjson.JSONDecodeError as e:
-            raise bad_record(path, record, "must be valid JSON", e.msg) from None
-        if not isinstance(line, dict) or not isinstance(line.get("tokens"), list):
-            raise bad_record(path, record, "must be an object with a 'tokens' list", type(line).__name__)
-        for key in ("width", "height"):
-            if not is_int(line.get(key)) or line[key] <= 0:
-                raise bad_record(path, record, f"'{key}' must be a positive whole number", line.get(key))
-        tokens = line["tokens"]
-        if not all(is_int(t) for t in tokens):
-            raise bad_record(path, record, "tokens must be integers", tokens[:10])
-        if not tokens or tokens[-1] != end_token or (len(tokens) - 1) % 5:
-            raise bad_record(path, record, f"must be 5 tokens per object then the end token {end_token}", len(tokens))
-        q = np.array(tokens[:-1], dtype=np.int64).reshape(-1, 5)
-        coords, cls = q[:, :4], q[:, 4]
-        if ((coords < 0) | (coords >= n_bins)).any():
-            raise bad_record(path, record, f"coordinate tokens must be in [0, {n_bins - 1}]", coords.tolist()[:3])
-        known = np.array([t in category_of or t == noise_token for t in cls.tolist()], dtype=bool)
-        if not known.all():
-            raise bad_record(path, record, "class tokens must be a class or the noise token", cls[~known].tolist())
-        boxes = np.empty(coords.shape, dtype=np.float64)
-        boxes[:, 0::2] = dequantize(coords[:, 0::2], line["width"], n_bins)
-        boxes[:, 1::2] = dequantize(coords[:, 1::2], line["height"], n_bins)
-        is_noise = cls == noise_token
-        line["boxes"] = boxes
-        line["category_ids"] = np.array([category_of.get(t, -1) for t in cls.tolist()], dtype=np.int64)
-        line["is_noise"] = is_noise
-        out.append(line)
-    return out
-
+    lines, problems = parse_tokens(path, vocab_path)
+    if problems:
+        raise problems[0]
+    return lines

@@ -37,8 +37,10 @@ __all__ = [
     "normalize_boxes",
     "denormalize_boxes",
     "write_yolo",
+    "parse_yolo",
     "read_yolo",
     "read_labels",
+    "read_data_yaml",
 ]
 
 LABELS_FILE = "labels.txt"
@@ -139,6 +141,118 @@ def read_labels(path) -> list[str]:
     return [line.strip() for line in lines]
 
 
+def parse_yolo(path) -> tuple[np.ndarray, np.ndarray, list[int], list]:
+    r"""Read one YOLO txt file line by line, keeping every good line and every problem.
+
+    Parameters
+    ----------
+    path : str or Path
+
+    Returns
+    -------
+    classes : ndarray of int64, shape (N,)
+        Class index of each good line.
+    boxes : ndarray of float64, shape (N, 4)
+        Normalized ``(xc, yc, w, h)`` of each good line.
+    line_numbers : list of int, length N
+        1-based line number of each good line.
+    problems : list of synthgen.errors.InputFileError
+        One per bad line (naming the file, the line, the rule and the value),
+        in file order.
+
+    Raises
+    ------
+    synthgen.errors.InputFileError
+        When the file cannot be read as UTF-8 text.
+
+    Examples
+    --------
+    >>> import tempfile, pathlib
+    >>> f = pathlib.Path(tempfile.mkdtemp()) / "a.txt"
+    >>> _ = f.write_text("0 0.5 0.5 0.2\n9 0.5 0.5 0.2 0.2\n")
+    >>> classes, boxes, lines, problems = parse_yolo(f)
+    >>> classes.tolist(), lines, [e.record for e in problems]
+    ([9], [2], ['line 1'])
+    """
+    path = Path(path)
+    text = read_input_text(path)
+    classes, rows, numbers, problems = [], [], [], []
+    for n, line in enumerate(text.splitlines(), start=1):
+        parts = line.split()
+        if not parts:
+            continue
+        problem = _line_problem(parts)
+        if problem is not None:
+            rule, value = problem
+            problems.append(bad_record(path, f"line {n}", rule, value if value is not None else line))
+            continue
+        classes.append(int(parts[0]))
+        rows.append([float(v) for v in parts[1:]])
+        numbers.append(n)
+    return np.array(classes, dtype=np.int64), as_boxes(rows), numbers, problems
+
+
+def _line_problem(parts: list[str]) -> tuple[str, object] | None:
+    """(rule, value) a split YOLO line breaks, or None; value None means the whole line."""
+    if len(parts) != 5:
+        return "must be 'class xc yc w h' (5 fields)", None
+    try:
+        int(parts[0])
+    except ValueError:
+        return "class must be a whole number", parts[0]
+    try:
+        vals = [float(v) for v in parts[1:]]
+    except ValueError:
+        return "xc yc w h must be numbers", " ".join(parts[1:])
+    if not all(math.isfinite(v) for v in vals):
+        return "xc yc w h must be finite", " ".join(parts[1:])
+    return None
+
+
+def read_data_yaml(path) -> list[str]:
+    r"""Class names from a YOLO dataset file (``data.yaml``), in class-index order.
+
+    The file is YAML with ``names`` either a list (index = position) or a
+    mapping index -> name (indices 0 .. n-1); ``nc``, when present, must be the
+    number of names.  Other keys (``path``, ``train``, ``val``, ...) are not
+    read.
+
+    Raises
+    ------
+    synthgen.errors.InputFileError
+        When the file is not YAML, has no usable ``names``, or ``nc`` disagrees.
+
+    Examples
+    --------
+    >>> import tempfile, pathlib
+    >>> f = pathlib.Path(tempfile.mkdtemp()) / "data.yaml"
+    >>> _ = f.write_text("nc: 2\nnames: {0: bolt, 1: washer}\n")
+    >>> read_data_yaml(f)
+    ['bolt', 'washer']
+    """
+    import yaml
+
+    path = Path(path)
+    try:
+        doc = yaml.safe_load(read_input_text(path))
+    except yaml.YAMLError as e:
+        mark = getattr(e, "problem_mark", None)
+        where = f"line {mark.line + 1}" if mark is not None else ""
+        raise bad_record(path, where, "must be valid YAML", str(getattr(e, "problem", e))) from None
+    names = doc.get("names") if isinstance(doc, dict) else None
+    if isinstance(names, dict):
+        keys = sorted(names, key=lambda k: (not isinstance(k, int), k if isinstance(k, int) else 0))
+        if keys != list(range(len(names))):
+            raise bad_record(path, "names", "must map the class indices 0 .. n-1 to names", keys)
+        names = [names[k] for k in keys]
+    if not (isinstance(names, list) and all(isinstance(n, (str, int, float)) for n in names)):
+        raise bad_record(path, "names", "must be a list of class names or a mapping index -> name", names)
+    nc = doc.get("nc")
+    if nc is not None and nc != len(names):
+        raise bad_record(path, "nc", f"must be the number of names ({len(names)})", nc)
+    return [str(n) for n in names]
+
+
 def read_yolo(path, width: float | None = None, height: float | None = None) -> tuple[np.ndarray, np.ndarray]:
     """Read one YOLO txt file.
 
@@ -158,32 +272,12 @@ def read_yolo(path, width: float | None = None, height: float | None = None) -> 
     ------
     synthgen.errors.InputFileError
         When a line does not hold an integer class and four finite numbers;
-        the message names the file and the line.
+        the message names the file and the first such line (see
+        :func:`parse_yolo` for every bad line at once).
     """
-    path = Path(path)
-    text = read_input_text(path)
-    classes, rows = [], []
-    for n, line in enumerate(text.splitlines(), start=1):
-        parts = line.split()
-        if not parts:
-            continue
-        record = f"line {n}"
-        if len(parts) != 5:
-            raise bad_record(path, record, "must be 'class xc yc w h' (5 fields)", line)
-        try:
-            cls = int(parts[0])
-        except ValueError:
-            raise bad_record(path, record, "class must be a whole number", parts[0]) from None
-        try:
-            vals = [float(v) for v in parts[1:]]
-        except ValueError:
-            raise bad_record(path, record, "xc yc w h must be numbers", " ".join(parts[1:])) from None
-        if not all(math.isfinite(v) for v in vals):
-            raise bad_record(path, record, "xc yc w h must be finite", " ".join(parts[1:]))
-        classes.append(cls)
-        rows.append(vals)
-    cls_arr = np.array(classes, dtype=np.int64)
-    boxes = as_boxes(rows)
+    cls_arr, boxes, _, problems = parse_yolo(path)
+    if problems:
+        raise problems[0]
     if width is not None and height is not None:
         boxes = denormalize_boxes(boxes, width, height)
     return cls_arr, boxes
