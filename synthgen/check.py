@@ -19,7 +19,9 @@ give; boxes are finite, non-empty and inside their image (to 1e-6 px or 1e-6
 of the normalized side); ids are unique and positive; annotations refer to
 existing images and categories; class names and indices agree between
 formats; every format holds the same number of images and, per image, of
-objects as the COCO file; files listed in a synthgen ``manifest.json`` exist
+objects as the COCO file (ignore regions, ``iscrowd`` 1, count in VOC as
+``difficult`` objects and in the masks, and are absent from YOLO and token
+files); files listed in a synthgen ``manifest.json`` exist
 and match their sha256 digests.  The box conventions are those of
 :mod:`synthgen.formats`.
 """
@@ -97,7 +99,8 @@ class CheckReport:
     formats : tuple of str
         Formats found, e.g. ``("coco", "voc")``.
     counts : dict
-        Format -> ``{"files": n, "images": n, "objects": n}``.
+        Format -> ``{"files": n, "images": n, "objects": n}`` (COCO also
+        ``"ignored"``: the ignore regions, which ``objects`` leaves out).
     problems : tuple of Problem
     """
 
@@ -116,7 +119,8 @@ class CheckReport:
         parts = []
         for f in self.formats:
             c = self.counts.get(f, {})
-            parts.append(f"{f} {c.get('images', 0)} images / {c.get('objects', 0)} objects")
+            ignored = f" (+{c['ignored']} ignore regions)" if c.get("ignored") else ""
+            parts.append(f"{f} {c.get('images', 0)} images / {c.get('objects', 0)} objects{ignored}")
         n = len(self.problems)
         verdict = "no problems" if n == 0 else f"{n} problem{'s' if n != 1 else ''}"
         return f"{self.root}: {'; '.join(parts)}: {verdict}"
@@ -132,6 +136,7 @@ class _Checker:
         self._stem_index: dict[str, Path] | None = None
         # From the main COCO file, the reference for the other formats.
         self.ref_objects: dict[str, int] | None = None  # image stem -> annotation count
+        self.ref_crowd: dict[str, int] = {}  # image stem -> ignore regions (iscrowd 1) among them
         self.ref_sizes: dict[str, tuple[int, int]] = {}  # image stem -> (W, H)
         self.ref_names: list[str] | None = None  # category names by id order
         self.ref_ids: dict[int, str] = {}  # image id -> stem
@@ -228,6 +233,7 @@ class _Checker:
         files = Counter(im.get("file_name") for im in images)
         size_of = {}
         per_image = Counter()
+        crowd_per_image = Counter()
         for i, im in enumerate(images):
             record = f"images[{i}] (id {im.get('id')!r})"
             w, h = im.get("width"), im.get("height")
@@ -252,6 +258,7 @@ class _Checker:
                     self.add(path, record, "image_id must name an image", image_id)
                 continue
             per_image[image_id] += 1
+            crowd_per_image[image_id] += a.get("iscrowd") == 1
             if a.get("category_id") not in cat_ids and _is_int(a.get("category_id")):
                 self.add(path, record, "category_id must name a category", a.get("category_id"))
             if "iscrowd" not in a:
@@ -282,12 +289,15 @@ class _Checker:
                 if isinstance(fn, str) and im.get("id") in size_of:
                     stem = Path(fn).with_suffix("").as_posix()
                     self.ref_objects[stem] = per_image[im["id"]]
+                    self.ref_crowd[stem] = crowd_per_image[im["id"]]
                     self.ref_sizes[stem] = size_of[im["id"]]
                     self.ref_ids[im["id"]] = stem
-            total = self.counts.setdefault("coco", {"files": 0, "images": 0, "objects": 0})
+            total = self.counts.setdefault("coco", {"files": 0, "images": 0, "objects": 0, "ignored": 0})
+            crowd = sum(a.get("iscrowd") == 1 for a in anns)
             total["files"] += 1
             total["images"] += len(images)
-            total["objects"] += len(anns)
+            total["objects"] += len(anns) - crowd
+            total["ignored"] += crowd
         return coco
 
     def _unique_positive(self, path: Path, kind: str, records: list[dict]) -> None:
@@ -351,15 +361,23 @@ class _Checker:
         self.counts["manifest"] = {"files": len(files)}
 
     # -- object counts against the reference ------------------------------------------
-    def compare(self, fmt: str, path: Path, stem: str, n_objects: int, size: tuple[int, int] | None = None) -> None:
+    def expected(self, stem: str, *, crowd: bool) -> int:
+        """Annotations of an image in the reference, with or without its ignore regions."""
+        return self.ref_objects[stem] - (0 if crowd else self.ref_crowd.get(stem, 0))
+
+    def compare(
+        self, fmt: str, path: Path, stem: str, n_objects: int, size: tuple[int, int] | None = None, *, crowd: bool = True
+    ) -> None:
+        """Check a file's object count (``crowd``: the format holds ignore regions too) and image size."""
         if self.ref_objects is None:
             return
         if stem not in self.ref_objects:
             self.add(path, "", "must belong to an image of annotations.json", stem)
             return
-        want = self.ref_objects[stem]
+        want = self.expected(stem, crowd=crowd)
         if n_objects != want:
-            self.add(path, "", f"must hold as many objects as annotations.json ({want})", n_objects)
+            what = "annotations.json" if crowd else "annotations.json without ignore regions"
+            self.add(path, "", f"must hold as many objects as {what} ({want})", n_objects)
         if size is not None and size != self.ref_sizes[stem]:
             self.add(path, "size", f"must be the image size in annotations.json {self.ref_sizes[stem]}", size)
 
@@ -452,7 +470,7 @@ class _Checker:
                     self.add(p, record, "box must be non-empty (w > 0 and h > 0)", boxes[i].tolist())
                 elif xc - w / 2 < -_TOL or yc - h / 2 < -_TOL or xc + w / 2 > 1 + _TOL or yc + h / 2 > 1 + _TOL:
                     self.add(p, record, "box must lie inside the image (normalized [0, 1])", boxes[i].tolist())
-            self.compare("yolo", p, stem, int(classes.size))
+            self.compare("yolo", p, stem, int(classes.size), crowd=False)
         self.missing("yolo", seen, self.rel(d) + "/{stem}.txt")
         self.counts["yolo"] = {"files": len(files), "images": len(files), "objects": n_obj}
 
@@ -484,8 +502,9 @@ class _Checker:
             if stem in seen:
                 self.add(path, f"line {i + 1}", "each image must have one line", line.get("image_id"))
             seen.add(stem)
-            if real != self.ref_objects[stem]:
-                self.add(path, f"line {i + 1}", f"must hold as many objects as annotations.json ({self.ref_objects[stem]})", real)
+            want = self.expected(stem, crowd=False)
+            if real != want:
+                self.add(path, f"line {i + 1}", f"must hold as many objects as annotations.json without ignore regions ({want})", real)
             if (line["width"], line["height"]) != self.ref_sizes[stem]:
                 self.add(path, f"line {i + 1}", f"width, height must match annotations.json {self.ref_sizes[stem]}", (line["width"], line["height"]))
         if reference:
@@ -504,18 +523,23 @@ class _Checker:
             except InputFileError as e:
                 self.add_error(e)
                 continue
-            n_obj += int(np.count_nonzero(np.bincount(ids.ravel())[1:])) if ids.size else 0
+            numbered = ids[ids != masks_fmt.IGNORE_ID]
+            n_obj += int(np.count_nonzero(np.bincount(numbered)[1:])) if numbered.size else 0
             if self.ref_objects is None or stem not in self.ref_objects:
                 self.compare("masks", p, stem, 0)
                 continue
             h, w = ids.shape
             if (w, h) != self.ref_sizes[stem]:
                 self.add(p, "", f"mask size (width, height) must match annotations.json {self.ref_sizes[stem]}", (w, h))
-            top = int(ids.max()) if ids.size else 0
-            if top > self.ref_objects[stem]:
-                self.add(p, "", f"instance ids must be at most the image's annotation count ({self.ref_objects[stem]})", top)
+            top = int(numbered.max()) if numbered.size else 0
+            want = self.expected(stem, crowd=False)
+            if top > want:
+                self.add(p, "", f"instance ids must be at most the image's object count ({want})", top)
+            if self.ref_crowd.get(stem, 0) == 0 and numbered.size < ids.size:
+                self.add(p, "", f"ignore value {masks_fmt.IGNORE_ID} must mark ignore regions of annotations.json "
+                         "(this image has none)", masks_fmt.IGNORE_ID)
         self.missing("masks", seen, self.rel(d) + "/{stem}.png")
-        # objects = instances with at least one pixel (one drawn over entirely has none)
+        # objects = instances with at least one pixel (one drawn over entirely has none); ignore regions not counted
         self.counts["masks"] = {"files": len(files), "images": len(files), "objects": n_obj}
 
     def masks_rle(self, path: Path) -> None:

@@ -201,26 +201,16 @@ def make(
         f"wrote {summary.images} images{what}, {summary.objects} objects to {summary.out}{kept} "
         f"in {summary.seconds:.2f} s ({summary.images_per_second:.1f} images/s)"
     )
-    _warn_shortfall(cfg, summary.dropped)
-    if summary.objects == 0 and summary.images and cfg.objects.count[1] > 0:
-        lost = ", ".join(f"{k} {v}" for k, v in summary.dropped.items() if v) or "none"
-        typer.echo(
-            f"synthgen: warning: no object passed the annotation rules (objects.min_visible, "
-            f"objects.min_area); dropped: {lost}",
-            err=True,
-        )
+    _warn_drops(summary.objects, summary.dropped, summary.ignored)
 
 
-def _warn_shortfall(cfg, dropped: dict, where: str = "") -> None:
-    """One warning line on stderr when a layout could not place every requested object."""
-    n = int(dropped.get("no_room", 0))
-    if n:
-        typer.echo(
-            f"synthgen: warning: {where}{n} requested objects found no room (objects.layout = "
-            f"'{cfg.objects.layout}', objects.attempts = {cfg.objects.attempts}); they are not drawn and "
-            "the manifest counts them under counts.dropped.no_room",
-            err=True,
-        )
+def _warn_drops(objects: int, dropped: dict, ignored: int, where: str = "") -> None:
+    """One warning line on stderr when more than a tenth of the objects were not annotated."""
+    from synthgen.dataset import drop_warning
+
+    line = drop_warning(objects, dropped, ignored)
+    if line is not None:
+        typer.echo(f"synthgen: warning: {where}{line} (manifest: counts.dropped)", err=True)
 
 
 # config key of each DetectorSpec field -> the jitter option that sets it
@@ -526,8 +516,8 @@ def sweep(
         f"wrote {summary.subsets} datasets ({summary.images} images, {summary.objects} objects) "
         f"to {summary.out} in {summary.seconds:.2f} s"
     )
-    for (rel, _, cfg), record in zip(plan, summary.records):
-        _warn_shortfall(cfg, record["dropped"], where=f"{rel}: ")
+    for (rel, _, _cfg), record in zip(plan, summary.records):
+        _warn_drops(record["objects"], record["dropped"], record["ignored"], where=f"{rel}: ")
 
 
 @app.command()

@@ -46,7 +46,7 @@ class SweepSummary:
     images: int
     objects: int
     seconds: float
-    records: tuple = ()  # per subset: path, values, images, objects, dropped (as in sweep.json)
+    records: tuple = ()  # per subset: path, values, images, objects, ignored, dropped (as in sweep.json)
 
 
 def _split_values(raw: str) -> list[str]:
@@ -237,6 +237,7 @@ def run_sweep(
                 "values": values,
                 "images": summary.images,
                 "objects": summary.objects,
+                "ignored": summary.ignored,
                 "dropped": summary.dropped,
             }
         )
