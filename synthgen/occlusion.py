@@ -21,12 +21,13 @@ Bits are packed per pixel: ``ceil(s^2 / 8)`` bytes, sample ``(i, j)`` at bit
 from __future__ import annotations
 
 import math
+from typing import NamedTuple
 
 import numpy as np
 
 from synthgen import shapes as shapes_mod
 
-__all__ = ["SampleBuffer", "sample_bits", "patch_bounds"]
+__all__ = ["SampleBuffer", "sample_bits", "sample_bits_many", "patch_bounds"]
 
 #: Number of set bits of every byte value.
 _POPCOUNT = np.array([v.bit_count() for v in range(256)], dtype=np.uint8)
@@ -131,6 +132,35 @@ def sample_bits(cov, inside: np.ndarray | None = None, edges: tuple | None = Non
     return bits
 
 
+def sample_bits_many(covs, insides) -> list:
+    """:func:`sample_bits` of many shapes, ``[sample_bits(c, m) for c, m in zip(covs, insides)]``.
+
+    Shapes that come with their sample mask are packed together, a group of
+    equal patch sizes at a time (the same bits as one by one).
+
+    Parameters
+    ----------
+    covs : sequence of synthgen.shapes.Coverage
+    insides : sequence of (ndarray or tuple or None)
+        Per shape, its whole-patch sample mask, its ``edges`` tuple from
+        ``coverage_many``, or None.
+    """
+    out: list = [None] * len(covs)
+    groups: dict = {}
+    for k, (cov, inside) in enumerate(zip(covs, insides)):
+        if isinstance(inside, np.ndarray):
+            groups.setdefault(cov.values.shape, []).append(k)
+        else:
+            out[k] = sample_bits(cov, edges=inside)
+    for (h, w), ks in groups.items():
+        s = covs[ks[0]].samples
+        flags = np.stack([insides[k] for k in ks]).reshape(len(ks), h, s, w, s)
+        packed = _pack(flags.transpose(0, 1, 3, 2, 4).reshape(len(ks), h, w, s * s))
+        for j, k in enumerate(ks):
+            out[k] = packed[j]
+    return out
+
+
 class SampleBuffer:
     """The sub-pixel samples of a canvas that the objects walked so far cover.
 
@@ -206,12 +236,91 @@ class SampleBuffer:
             return visible, None
         return visible, _seen_box(bits & ~taken, support, s, cov.row0, cov.col0)
 
+    def visible_many(self, covs, bits) -> tuple[list, np.ndarray, _Pixels]:
+        """:meth:`visible` of shapes whose patches do not meet, in one pass over all their pixels.
+
+        The values are those :meth:`visible` gives one shape at a time: the
+        same element-wise arithmetic on the same numbers.
+
+        Parameters
+        ----------
+        covs : sequence of synthgen.shapes.Coverage
+            Patches that share no pixel.
+        bits : sequence of ndarray
+            :func:`sample_bits` of each.
+
+        Returns
+        -------
+        results : list of (visible, sample_box)
+            As :meth:`visible` returns them, one per shape.
+        hides : ndarray of bool, shape (K,)
+            Per shape, whether every sample of its patch was covered already
+            (what :meth:`hides` says of its patch).
+        pixels : object
+            The pixels gathered, for :meth:`cover_many`.
+        """
+        s = self.samples
+        k = len(covs)
+        hs = np.array([c.values.shape[0] for c in covs])
+        ws = np.array([c.values.shape[1] for c in covs])
+        sizes = hs * ws
+        starts = np.cumsum(sizes) - sizes
+        seg = np.repeat(np.arange(k), sizes)  # patch of each listed pixel (each patch row by row)
+        local = np.arange(seg.size) - starts[seg]
+        rr = np.array([c.row0 for c in covs])[seg] + local // ws[seg]
+        cc = np.array([c.col0 for c in covs])[seg] + local % ws[seg]
+        own = np.concatenate([b.reshape(-1, b.shape[-1]) for b in bits])  # (M, nb)
+        taken = self.taken[rr, cc]  # (M, nb)
+        hides = np.bincount(seg, weights=~self.full[rr, cc], minlength=k) == 0
+        hidden = own & taken
+        lost = _POPCOUNT[hidden].sum(axis=1, dtype=np.int32)  # (M,)
+        occluded = np.bincount(seg, weights=lost > 0, minlength=k) > 0
+        values = np.concatenate([c.values.ravel() for c in covs])  # (M,) float32
+        visible = values - lost.astype(np.float32) / (s * s)
+        np.clip(visible, 0.0, 1.0, out=visible)
+        results = []
+        for t, cov in enumerate(covs):
+            if not occluded[t]:
+                results.append((cov.values, None))
+                continue
+            a, b = int(starts[t]), int(starts[t] + sizes[t])
+            vis = visible[a:b].reshape(cov.values.shape)
+            support = vis > 0
+            box = None
+            if support.any():
+                seen = (own[a:b] & ~taken[a:b]).reshape(cov.values.shape + (own.shape[1],))
+                box = _seen_box(seen, support, s, cov.row0, cov.col0)
+            results.append((vis, box))
+        return results, hides, _Pixels(rr, cc, seg, own, taken)
+
+    def cover_many(self, pixels: _Pixels, which) -> None:
+        """:meth:`cover` the shapes ``which`` (bool per shape) of a :meth:`visible_many` call."""
+        sel = np.asarray(which, dtype=bool)[pixels.seg]
+        rr, cc = pixels.rr[sel], pixels.cc[sel]
+        now = pixels.taken[sel] | pixels.own[sel]  # the patches share no pixel: no index repeats
+        self.taken[rr, cc] = now
+        self.full[rr, cc] = (now == self._all).all(axis=1)
+
     def cover(self, cov, bits: np.ndarray) -> None:
         """Mark the samples of a shape as covered, for the objects walked after it (drawn below it)."""
         taken = self._view(cov)
         np.bitwise_or(taken, bits, out=taken)
         h, w = cov.values.shape
         self.full[cov.row0 : cov.row0 + h, cov.col0 : cov.col0 + w] = (taken == self._all).all(axis=2)
+
+
+#: Patches up to this many pixels get the box of their visible samples from all their samples at once.
+_SMALL_BOX_PIXELS = 256
+
+
+class _Pixels(NamedTuple):
+    """Pixels of patches gathered by :meth:`SampleBuffer.visible_many`, each (M,) or (M, nb)."""
+
+    rr: np.ndarray
+    cc: np.ndarray
+    seg: np.ndarray
+    own: np.ndarray
+    taken: np.ndarray
 
 
 def _seen_box(seen: np.ndarray, support: np.ndarray, s: int, row0: int, col0: int) -> np.ndarray:
@@ -221,6 +330,17 @@ def _seen_box(seen: np.ndarray, support: np.ndarray, s: int, row0: int, col0: in
     edges, so only they are unpacked.  The values are those of
     ``synthgen.geometry.mask_box(samples, origin=(col0, row0), scale=1 / s)``.
     """
+    h, w = support.shape
+    if h * w <= _SMALL_BOX_PIXELS:  # few pixels: unpack them all at once (fewer calls)
+        cells = _unpack(seen, s).transpose(0, 2, 1, 3).reshape(h * s, w * s)
+        rows = np.flatnonzero(cells.any(axis=1))
+        cols = np.flatnonzero(cells.any(axis=0))
+        scale = 1.0 / s
+        return np.array(
+            [col0 + cols[0] * scale, row0 + rows[0] * scale, col0 + (cols[-1] + 1) * scale,
+             row0 + (rows[-1] + 1) * scale],
+            dtype=np.float64,
+        )
     rows = np.flatnonzero(support.any(axis=1))
     cols = np.flatnonzero(support.any(axis=0))
     top, bottom, left, right = int(rows[0]), int(rows[-1]), int(cols[0]), int(cols[-1])

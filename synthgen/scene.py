@@ -47,7 +47,7 @@ from synthgen.backgrounds import render_background
 from synthgen.clutter import render_clutter
 from synthgen.degrade import degrade_owned
 from synthgen.geometry import box_iou, clip_boxes, mask_box
-from synthgen.occlusion import SampleBuffer, patch_bounds, sample_bits
+from synthgen.occlusion import SampleBuffer, patch_bounds, sample_bits_many
 from synthgen.shapes import (
     KINDS,
     Shape,
@@ -574,10 +574,13 @@ class _Drawn:
     visible: np.ndarray | None = None  # visible coverage, float32 (h, w), for shown objects
     sample_box: np.ndarray | None = None  # box of visible samples when occluded
     contrast: float = 0.0
+    alone: bool = False  # its patch meets no other object's patch
 
 
-#: Shapes whose coverage :func:`_measure` computes together (bounds the sample masks held at once).
-_MEASURE_CHUNK = 512
+#: Shapes whose geometry :func:`_measure` holds at once.
+_MEASURE_CHUNK = 4096
+#: Patch pixels whose coverage :func:`_measure` computes together (bounds the coverage and sample masks held at once).
+_MEASURE_PIXELS = 1 << 21
 
 
 def _verdict(full_cov: float, vis_cov: float, spec) -> str | None:
@@ -606,46 +609,156 @@ def _measure(shapes, styles, extras, config, height: int, width: int) -> list:
     computed a chunk of shapes at a time and dropped as soon as an object
     turns out not to be shown.  So time and memory follow the canvas and the
     objects that show, plus a small cost per object, however many end hidden.
+
+    Within a chunk the objects go in levels (an object's level is one more
+    than the highest level of the objects above it whose patches meet its
+    own), so the patches of one level never meet and a level's small patches
+    are judged together (:meth:`synthgen.occlusion.SampleBuffer.visible_many`).
     """
     spec = config.objects
     s = config.render.samples
     erase = spec.dropped == "erase"
     buffer = SampleBuffer(height, width, s)
+    level_map = np.zeros((height, width), dtype=np.int32)
     walked = []
+    base = 1
     for stop in range(len(shapes), 0, -_MEASURE_CHUNK):
-        chunk = range(max(0, stop - _MEASURE_CHUNK), stop)
+        chunk = range(stop - 1, max(0, stop - _MEASURE_CHUNK) - 1, -1)  # top first
         geoms = dict(zip(chunk, shapes_mod._geoms([shapes[i] for i in chunk])))  # built in bulk, held per chunk
         patches = {i: patch_bounds(geoms[i].box, height, width) for i in chunk}
-        todo = [i for i in chunk if patches[i] is not None and not buffer.hides(*patches[i])]
-        insides: list = []
-        edges: list = []
-        covs = shapes_mod.coverage_many(
-            [shapes[i] for i in todo], height, width, samples=s, strokes=[styles[i]["stroke"] for i in todo],
-            insides=insides, edges=edges, _geometry=[geoms[i] for i in todo],
-        )
-        computed = {i: got for i, *got in zip(todo, covs, insides, edges)}
-        del covs, insides, edges
-        for i in reversed(chunk):
+        on_canvas = [i for i in chunk if patches[i] is not None]
+        alone: set = set()
+        if stop == len(shapes) and stop <= _MEASURE_CHUNK and len(on_canvas) >= _ALONE_MIN:
+            # one chunk for the whole image: a patch that meets no other needs no occlusion work at all
+            lonely = _lonely([patches[i] for i in on_canvas])
+            alone = {i for i, one in zip(on_canvas, lonely.tolist()) if one}
+        judged: dict = {}
+        for part in _runs(on_canvas, patches):
+            base = _walk(part, shapes, styles, patches, geoms, buffer, level_map, base, judged, spec, erase, alone)
+        for i in chunk:
             if patches[i] is None:  # off the canvas
                 continue
-            cov, inside, edge = computed.pop(i, (None, None, None))
-            if cov is None or buffer.hides(*patches[i]):
+            if i not in judged:
                 walked.append(_Drawn(shapes[i], styles[i], geoms[i].box, extras[i], i, 0.0, 0.0, "hidden", False))
                 continue
-            bits = sample_bits(cov, inside, edge)
-            visible, sample_box = buffer.visible(cov, bits)
-            full_cov = float(cov.values.sum())
-            vis_cov = full_cov if visible is cov.values else float(visible.sum())
-            verdict = _verdict(full_cov, vis_cov, spec)
-            shown = vis_cov > 0 and (verdict is None or not erase)
-            if shown:
-                buffer.cover(cov, bits)
+            cov, visible, sample_box, full_cov, vis_cov, verdict, shown = judged[i]
             d = _Drawn(shapes[i], styles[i], geoms[i].box, extras[i], i, full_cov, vis_cov, verdict, shown)
             if shown:
-                d.cov, d.visible, d.sample_box = cov, visible, sample_box
+                d.cov, d.visible, d.sample_box, d.alone = cov, visible, sample_box, i in alone
             walked.append(d)
     walked.reverse()
     return walked
+
+
+def _lonely(rects) -> np.ndarray:
+    """Which patches ``(row0, col0, row1, col1)`` share no pixel with another: bool (N,).
+
+    From the pairs of patches that meet (:func:`_overlapping_pair_blocks`),
+    given up (all False, the safe answer) once the pairs outnumber
+    :data:`_LONELY_PAIRS` per patch, so crowded scenes never pay for all their pairs.
+    """
+    r = np.array(rects, dtype=np.int64).reshape(-1, 4)
+    boxes = r[:, [1, 0, 3, 2]]  # (col0, row0, col1, row1): xyxy of the pixel ranges
+    met = np.zeros(len(r), dtype=bool)
+    pairs = 0
+    for ii, jj in _overlapping_pair_blocks(boxes):
+        met[ii] = True
+        met[jj] = True
+        pairs += ii.size
+        if pairs > _LONELY_PAIRS * len(r):
+            return np.zeros(len(r), dtype=bool)
+    return ~met
+
+
+#: Pairs of meeting patches per patch up to which :func:`_lonely` looks for lonely ones.
+_LONELY_PAIRS = 8
+
+
+def _runs(order: list, patches: dict):
+    """Consecutive runs of ``order`` whose patches hold at most :data:`_MEASURE_PIXELS` pixels (one shape at least)."""
+    run, pixels = [], 0
+    for i in order:
+        r0, c0, r1, c1 = patches[i]
+        area = (r1 - r0) * (c1 - c0)
+        if run and pixels + area > _MEASURE_PIXELS:
+            yield run
+            run, pixels = [], 0
+        run.append(i)
+        pixels += area
+    if run:
+        yield run
+
+
+def _walk(part, shapes, styles, patches, geoms, buffer, level_map, base: int, judged: dict, spec, erase: bool,
+          alone=frozenset()) -> int:
+    """Judge the shapes ``part`` (top first) against ``buffer``; fill ``judged``; return the next free level.
+
+    Shapes whose patch is covered already are left out (hidden); the others'
+    coverage is computed together, then they are judged level by level.
+    Shapes in ``alone`` have patches that meet no other shape's: nothing
+    hides them and they hide nothing, so they are judged from their coverage.
+    """
+    height, width = level_map.shape
+    s = buffer.samples
+    todo = [i for i in part if i in alone or not buffer.hides(*patches[i])]
+    insides: list = []
+    edges: list = []
+    covs = shapes_mod.coverage_many(
+        [shapes[i] for i in todo], height, width, samples=s, strokes=[styles[i]["stroke"] for i in todo],
+        insides=insides, edges=edges, _geometry=[geoms[i] for i in todo],
+    )
+    covs = dict(zip(todo, covs))
+    for i in todo:
+        if i in alone:
+            judged[i] = _judge(covs[i], covs[i].values, None, False, spec, erase)
+    todo = [i for i in todo if i not in alone]
+    bits = dict(zip(todo, sample_bits_many(
+        [covs[i] for i in todo], [m if e is None else e for i, m, e in zip(covs, insides, edges) if i not in alone])))
+    del insides, edges
+    levels: list = []
+    for i in todo:  # top first: the level map holds the levels of the objects above
+        r0, c0, r1, c1 = patches[i]
+        view = level_map[r0:r1, c0:c1]
+        level = max(int(view.max()) + 1, base)
+        view[...] = level
+        while len(levels) <= level - base:
+            levels.append([])
+        levels[level - base].append(i)
+    for group in levels:
+        small = [i for i in group if covs[i].values.size <= _SMALL_PATCH] if len(group) >= _BULK_WALK_MIN else []
+        for i in group:
+            if not small or covs[i].values.size > _SMALL_PATCH:
+                hides = buffer.hides(*patches[i])
+                visible, sample_box = (None, None) if hides else buffer.visible(covs[i], bits[i])
+                judged[i] = _judge(covs[i], visible, sample_box, hides, spec, erase)
+                if judged[i][-1]:
+                    buffer.cover(covs[i], bits[i])
+        if small:
+            results, hides, pixels = buffer.visible_many([covs[i] for i in small], [bits[i] for i in small])
+            for i, (visible, sample_box), hide in zip(small, results, hides.tolist()):
+                judged[i] = _judge(covs[i], visible, sample_box, hide, spec, erase)
+            buffer.cover_many(pixels, [judged[i][-1] for i in small])
+    return base + len(levels)
+
+
+def _judge(cov, visible, sample_box, hides: bool, spec, erase: bool):
+    """``(cov, visible, sample_box, full_cov, vis_cov, verdict, shown)`` of one object under the objects above it.
+
+    ``hides``: every sample of its patch was covered already (then ``visible``
+    is not looked at and the object is hidden).
+    """
+    if hides:
+        return cov, None, None, 0.0, 0.0, "hidden", False
+    full_cov = float(cov.values.sum())
+    vis_cov = full_cov if visible is cov.values else float(visible.sum())
+    verdict = _verdict(full_cov, vis_cov, spec)
+    return cov, visible, sample_box, full_cov, vis_cov, verdict, vis_cov > 0 and (verdict is None or not erase)
+
+
+#: From this many objects in a level, :func:`_measure` judges their small patches together.
+_BULK_WALK_MIN = 8
+#: From this many objects on the canvas, :func:`_measure` looks for patches that meet no other first.
+_ALONE_MIN = 64
 
 
 def visible_box(exact: np.ndarray, sample_box: np.ndarray | None) -> np.ndarray | None:
@@ -730,7 +843,7 @@ def _paint(canvas: np.ndarray, drawn, cands: np.ndarray, lums: np.ndarray, min_c
     styles = [d.style for d in drawn]
     contrasts: dict = {}
     if len(drawn) >= _BULK_DRAW_MIN:
-        for group in _levels(covs, canvas.shape[0], canvas.shape[1]):
+        for group in _levels(covs, canvas.shape[0], canvas.shape[1], [d.alone for d in drawn]):
             small = [i for i in group if covs[i].values.size <= _SMALL_PATCH]
             if len(small) < 2:
                 small = []
@@ -798,18 +911,22 @@ def _draw_one(canvas, cov, style, cand, lum, min_contrast: float) -> float:
     return contrast
 
 
-def _levels(covs, height: int, width: int) -> list:
+def _levels(covs, height: int, width: int, alone) -> list:
     """Positions of ``covs`` by painting level, lowest first (lists of positions, in order within a level).
 
     A level map of the canvas holds, per pixel, the level of the last patch
     that met it; levels only grow along the painting order at any pixel, so the
     highest level among the earlier patches that meet a patch is the map's
     maximum over it.  Time follows the patches' total size, not the number of
-    pairs that meet.
+    pairs that meet.  A patch known to meet no other (``alone``, bool per
+    patch) is level 0 without looking.
     """
     level_map = np.full((height, width), -1, dtype=np.int32)
-    groups: list = []
+    groups: list = [[]]
     for pos, cov in enumerate(covs):
+        if alone[pos]:
+            groups[0].append(pos)
+            continue
         h, w = cov.values.shape
         view = level_map[cov.row0 : cov.row0 + h, cov.col0 : cov.col0 + w]
         level = int(view.max()) + 1

@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 
 from synthgen.geometry import mask_box
-from synthgen.occlusion import SampleBuffer, patch_bounds, sample_bits
+from synthgen.occlusion import SampleBuffer, patch_bounds, sample_bits, sample_bits_many
 from synthgen.shapes import KINDS, Shape, coverage, coverage_many
 
 
@@ -71,13 +71,16 @@ def test_buffer_walk_equals_a_whole_canvas_sample_count(seed, samples):
 
 @pytest.mark.parametrize("samples", [1, 2, 4, 5, 8])
 def test_sample_bits_agree_on_every_path(samples):
-    """Packed sample bits are the same from coverage_many's masks, its pixel classes, and point tests."""
+    """Packed sample bits are the same from coverage_many's masks, its pixel classes, point tests, and in bulk."""
     height, width = 60, 80
     shapes, strokes = _random_shapes(7, 120, height, width)
     insides: list = []
     edges: list = []
     covs = coverage_many(shapes, height, width, samples=samples, strokes=strokes, insides=insides, edges=edges)
     paths = {"mask": 0, "classes": 0}
+    many = sample_bits_many([c for c in covs if c is not None],
+                            [m if e is None else e for c, m, e in zip(covs, insides, edges) if c is not None])
+    many = iter(many)
     for cov, inside, edge in zip(covs, insides, edges):
         if cov is None:
             continue
@@ -87,6 +90,7 @@ def test_sample_bits_agree_on_every_path(samples):
                            axis=-1, bitorder="little")
         assert np.array_equal(sample_bits(cov), want)
         assert np.array_equal(sample_bits(cov, inside, edge), want)
+        assert np.array_equal(next(many), want)
         paths["mask" if inside is not None else "classes"] += edge is not None or inside is not None
     assert paths["mask"] > 20 and (paths["classes"] > 10 or samples == 1)
 
