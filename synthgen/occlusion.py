@@ -29,6 +29,9 @@ from synthgen import shapes as shapes_mod
 
 __all__ = ["SampleBuffer", "sample_bits", "sample_bits_many", "patch_bounds"]
 
+#: Unsigned integer types as wide as a packed pixel of that many bytes.
+_WORDS = {1: np.uint8, 2: np.uint16, 4: np.uint32, 8: np.uint64}
+
 #: Number of set bits of every byte value.
 _POPCOUNT = np.array([v.bit_count() for v in range(256)], dtype=np.uint8)
 
@@ -117,14 +120,14 @@ def sample_bits(cov, inside: np.ndarray | None = None, edges: tuple | None = Non
     if inside is not None:
         flags = inside.reshape(h, s, w, s).transpose(0, 2, 1, 3).reshape(h, w, ss)
         return _pack(flags)
-    bits = np.zeros((h, w, _bytes_per_pixel(s)), dtype=np.uint8)
+    every = _pack(np.ones(ss, dtype=bool))  # the bytes of a pixel all of whose samples are set
     if edges is not None:
         interior, rr, cc, flags = edges
-        bits[interior] = _pack(np.ones(ss, dtype=bool))
+        bits = np.multiply(interior[..., None], every, dtype=np.uint8)  # (h, w, nb)
         if rr.size:
             bits[rr, cc] = _pack(flags.transpose(2, 0, 1).reshape(rr.size, ss))
         return bits
-    bits[v >= 1] = _pack(np.ones(ss, dtype=bool))
+    bits = np.multiply((v >= 1)[..., None], every, dtype=np.uint8)
     rr, cc = np.nonzero((v > 0) & (v < 1))
     if rr.size:
         flags = _point_samples(cov, rr + cov.row0, cc + cov.col0).reshape(rr.size, ss)
@@ -299,14 +302,21 @@ class SampleBuffer:
         rr, cc = pixels.rr[sel], pixels.cc[sel]
         now = pixels.taken[sel] | pixels.own[sel]  # the patches share no pixel: no index repeats
         self.taken[rr, cc] = now
-        self.full[rr, cc] = (now == self._all).all(axis=1)
+        self.full[rr, cc] = self._covered(now)
 
     def cover(self, cov, bits: np.ndarray) -> None:
         """Mark the samples of a shape as covered, for the objects walked after it (drawn below it)."""
         taken = self._view(cov)
         np.bitwise_or(taken, bits, out=taken)
         h, w = cov.values.shape
-        self.full[cov.row0 : cov.row0 + h, cov.col0 : cov.col0 + w] = (taken == self._all).all(axis=2)
+        self.full[cov.row0 : cov.row0 + h, cov.col0 : cov.col0 + w] = self._covered(taken)
+
+    def _covered(self, taken: np.ndarray) -> np.ndarray:
+        """Bool (..., ) of packed pixels (..., nb): all samples set."""
+        nb = taken.shape[-1]
+        if nb in _WORDS:  # one integer per pixel: one comparison instead of nb and a reduction
+            return taken.view(_WORDS[nb])[..., 0] == self._all.view(_WORDS[nb])[0]
+        return (taken == self._all).all(axis=-1)
 
 
 #: Patches up to this many pixels get the box of their visible samples from all their samples at once.

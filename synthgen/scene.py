@@ -1,11 +1,17 @@
-"""One image: sample objects from the config, place them, draw them in z-order, measure them.
+"""One image: sample objects from the config, place them, judge what shows, draw them in z-order, annotate them.
 
-The composer draws objects bottom to top.  Occlusion is measured on the
-supersampled coverage (see :class:`synthgen.shapes.Coverage`): a sub-pixel
-sample of an object is hidden when any object drawn later covers the same
-sample.  From that come, per object, the visible coverage, the visible
-fraction, the visible box and the pixel box (box kinds are defined in
-:mod:`synthgen.geometry`).
+Occlusion is measured on the supersampled coverage (see
+:class:`synthgen.shapes.Coverage`): a sub-pixel sample of an object is hidden
+when any object drawn later covers the same sample (:mod:`synthgen.occlusion`).
+From that come, per object, the visible coverage, the visible fraction, the
+visible box and the pixel box (box kinds are defined in :mod:`synthgen.geometry`).
+The composer first walks the objects from the top down and judges each
+against the annotation rules (``objects.min_visible``, ``objects.min_area``):
+an object that passes is annotated; one that fails but still shows becomes an
+ignore region (:class:`IgnoreRegions`, COCO ``iscrowd`` 1), or with
+``objects.dropped = "erase"`` is left out of the picture; one that shows no
+sample is hidden and not drawn.  Then it paints what shows, bottom to top, so
+every pixel an object changes lies in an annotation or an ignore region.
 
 Randomness: :func:`image_rng` gives image ``k`` its own generator from
 ``SeedSequence(seed, spawn_key=(k,))``; :func:`compose` spawns one child per
@@ -31,7 +37,8 @@ Difficulty dials handled here (placement itself is in :mod:`synthgen.layout`):
   objects, from its own random stream.
 * When a layout cannot place every requested object, the image's
   ``dropped["no_room"]`` counts them (so the manifest totals them); the
-  command line prints one warning line for the run.
+  command line prints one warning line for the run when more than a tenth of
+  its objects were dropped for any reason.
 """
 
 from __future__ import annotations
@@ -627,14 +634,13 @@ def _measure(shapes, styles, extras, config, height: int, width: int) -> list:
         geoms = dict(zip(chunk, shapes_mod._geoms([shapes[i] for i in chunk])))  # built in bulk, held per chunk
         patches = {i: patch_bounds(geoms[i].box, height, width) for i in chunk}
         on_canvas = [i for i in chunk if patches[i] is not None]
-        alone: set = set()
-        if stop == len(shapes) and stop <= _MEASURE_CHUNK and len(on_canvas) >= _ALONE_MIN:
-            # one chunk for the whole image: a patch that meets no other needs no occlusion work at all
-            lonely = _lonely([patches[i] for i in on_canvas])
-            alone = {i for i, one in zip(on_canvas, lonely.tolist()) if one}
+        clear: tuple = (set(), set())
+        if stop == len(shapes) and stop <= _MEASURE_CHUNK:
+            # one chunk for the whole image: the patches that meet show what nothing hides or is hidden by
+            clear = _clear_sides(on_canvas, patches)
         judged: dict = {}
         for part in _runs(on_canvas, patches):
-            base = _walk(part, shapes, styles, patches, geoms, buffer, level_map, base, judged, spec, erase, alone)
+            base = _walk(part, shapes, styles, patches, geoms, buffer, level_map, base, judged, spec, erase, clear)
         for i in chunk:
             if patches[i] is None:  # off the canvas
                 continue
@@ -644,34 +650,36 @@ def _measure(shapes, styles, extras, config, height: int, width: int) -> list:
             cov, visible, sample_box, full_cov, vis_cov, verdict, shown = judged[i]
             d = _Drawn(shapes[i], styles[i], geoms[i].box, extras[i], i, full_cov, vis_cov, verdict, shown)
             if shown:
-                d.cov, d.visible, d.sample_box, d.alone = cov, visible, sample_box, i in alone
+                d.cov, d.visible, d.sample_box, d.alone = cov, visible, sample_box, i in clear[0] and i in clear[1]
             walked.append(d)
     walked.reverse()
     return walked
 
 
-def _lonely(rects) -> np.ndarray:
-    """Which patches ``(row0, col0, row1, col1)`` share no pixel with another: bool (N,).
+def _clear_sides(order: list, patches: dict) -> tuple[set, set]:
+    """The shapes of ``order`` (top first) whose patch meets no patch above it, and those it meets none below.
 
     From the pairs of patches that meet (:func:`_overlapping_pair_blocks`),
-    given up (all False, the safe answer) once the pairs outnumber
-    :data:`_LONELY_PAIRS` per patch, so crowded scenes never pay for all their pairs.
+    given up (empty sets, the safe answer) once the pairs outnumber
+    :data:`_CONTACT_PAIRS` per patch, so crowded scenes never pay for all their pairs.
     """
-    r = np.array(rects, dtype=np.int64).reshape(-1, 4)
+    r = np.array([patches[i] for i in order], dtype=np.int64).reshape(-1, 4)
     boxes = r[:, [1, 0, 3, 2]]  # (col0, row0, col1, row1): xyxy of the pixel ranges
-    met = np.zeros(len(r), dtype=bool)
+    has_below = np.zeros(len(r), dtype=bool)  # pairs (a, b) with a < b: a lies above b
+    has_above = np.zeros(len(r), dtype=bool)
     pairs = 0
     for ii, jj in _overlapping_pair_blocks(boxes):
-        met[ii] = True
-        met[jj] = True
+        has_below[ii] = True
+        has_above[jj] = True
         pairs += ii.size
-        if pairs > _LONELY_PAIRS * len(r):
-            return np.zeros(len(r), dtype=bool)
-    return ~met
+        if pairs > _CONTACT_PAIRS * len(r):
+            return set(), set()
+    return ({i for i, v in zip(order, has_above.tolist()) if not v},
+            {i for i, v in zip(order, has_below.tolist()) if not v})
 
 
-#: Pairs of meeting patches per patch up to which :func:`_lonely` looks for lonely ones.
-_LONELY_PAIRS = 8
+#: Pairs of meeting patches per patch up to which :func:`_clear_sides` looks at them.
+_CONTACT_PAIRS = 8
 
 
 def _runs(order: list, patches: dict):
@@ -690,17 +698,19 @@ def _runs(order: list, patches: dict):
 
 
 def _walk(part, shapes, styles, patches, geoms, buffer, level_map, base: int, judged: dict, spec, erase: bool,
-          alone=frozenset()) -> int:
+          clear: tuple = (frozenset(), frozenset())) -> int:
     """Judge the shapes ``part`` (top first) against ``buffer``; fill ``judged``; return the next free level.
 
     Shapes whose patch is covered already are left out (hidden); the others'
     coverage is computed together, then they are judged level by level.
-    Shapes in ``alone`` have patches that meet no other shape's: nothing
-    hides them and they hide nothing, so they are judged from their coverage.
+    ``clear`` holds the shapes whose patch meets no patch above it (nothing
+    can hide them: they are judged from their coverage) and those whose patch
+    meets none below (they need not enter the buffer).
     """
     height, width = level_map.shape
     s = buffer.samples
-    todo = [i for i in part if i in alone or not buffer.hides(*patches[i])]
+    free_above, free_below = clear
+    todo = [i for i in part if i in free_above or not buffer.hides(*patches[i])]
     insides: list = []
     edges: list = []
     covs = shapes_mod.coverage_many(
@@ -708,30 +718,37 @@ def _walk(part, shapes, styles, patches, geoms, buffer, level_map, base: int, ju
         insides=insides, edges=edges, _geometry=[geoms[i] for i in todo],
     )
     covs = dict(zip(todo, covs))
-    for i in todo:
-        if i in alone:
-            judged[i] = _judge(covs[i], covs[i].values, None, False, spec, erase)
-    todo = [i for i in todo if i not in alone]
-    bits = dict(zip(todo, sample_bits_many(
-        [covs[i] for i in todo], [m if e is None else e for i, m, e in zip(covs, insides, edges) if i not in alone])))
+    samples = {i: m if e is None else e for i, m, e in zip(todo, insides, edges)}
     del insides, edges
-    levels: list = []
-    for i in todo:  # top first: the level map holds the levels of the objects above
-        r0, c0, r1, c1 = patches[i]
-        view = level_map[r0:r1, c0:c1]
-        level = max(int(view.max()) + 1, base)
-        view[...] = level
-        while len(levels) <= level - base:
-            levels.append([])
-        levels[level - base].append(i)
+    for i in todo:
+        if i in free_above and i in free_below:  # alone: no occlusion either way
+            judged[i] = _judge(covs[i], covs[i].values, None, False, spec, erase)
+    todo = [i for i in todo if i not in judged]
+    bits = dict(zip(todo, sample_bits_many([covs[i] for i in todo], [samples[i] for i in todo])))
+    del samples
+    if len(todo) < _BULK_WALK_MIN * 4:  # few shapes: one at a time, top first
+        levels = [[i] for i in todo]
+    else:
+        levels = []
+        for i in todo:  # top first: the level map holds the levels of the objects above
+            r0, c0, r1, c1 = patches[i]
+            view = level_map[r0:r1, c0:c1]
+            level = max(int(view.max()) + 1, base)
+            view[...] = level
+            while len(levels) <= level - base:
+                levels.append([])
+            levels[level - base].append(i)
     for group in levels:
         small = [i for i in group if covs[i].values.size <= _SMALL_PATCH] if len(group) >= _BULK_WALK_MIN else []
         for i in group:
             if not small or covs[i].values.size > _SMALL_PATCH:
-                hides = buffer.hides(*patches[i])
-                visible, sample_box = (None, None) if hides else buffer.visible(covs[i], bits[i])
+                if i in free_above:
+                    hides, (visible, sample_box) = False, (covs[i].values, None)
+                else:
+                    hides = buffer.hides(*patches[i])
+                    visible, sample_box = (None, None) if hides else buffer.visible(covs[i], bits[i])
                 judged[i] = _judge(covs[i], visible, sample_box, hides, spec, erase)
-                if judged[i][-1]:
+                if judged[i][-1] and i not in free_below:
                     buffer.cover(covs[i], bits[i])
         if small:
             results, hides, pixels = buffer.visible_many([covs[i] for i in small], [bits[i] for i in small])
@@ -757,8 +774,6 @@ def _judge(cov, visible, sample_box, hides: bool, spec, erase: bool):
 
 #: From this many objects in a level, :func:`_measure` judges their small patches together.
 _BULK_WALK_MIN = 8
-#: From this many objects on the canvas, :func:`_measure` looks for patches that meet no other first.
-_ALONE_MIN = 64
 
 
 def visible_box(exact: np.ndarray, sample_box: np.ndarray | None) -> np.ndarray | None:

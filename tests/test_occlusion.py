@@ -33,7 +33,7 @@ def _whole_mask(cov, height: int, width: int) -> np.ndarray:
     return m
 
 
-@pytest.mark.parametrize("samples", [1, 3, 4, 8])
+@pytest.mark.parametrize("samples", [1, 3, 4, 6, 8])  # 1, 2, 2, 5 and 8 bytes of sample bits per pixel
 @pytest.mark.parametrize("seed", range(3))
 def test_buffer_walk_equals_a_whole_canvas_sample_count(seed, samples):
     """Walking top-down, each shape's visible coverage and sample box equal a plain count on canvas-sized masks.
