@@ -588,6 +588,9 @@ class _Drawn:
 _MEASURE_CHUNK = 4096
 #: Patch pixels whose coverage :func:`_measure` computes together (bounds the coverage and sample masks held at once).
 _MEASURE_PIXELS = 1 << 21
+#: ... and at most this many times the canvas: once patches cover the canvas a few times over,
+#: the shapes below are mostly hidden, and the next run skips them before computing their coverage.
+_MEASURE_DEPTH = 2
 
 
 def _verdict(full_cov: float, vis_cov: float, spec) -> str | None:
@@ -639,7 +642,7 @@ def _measure(shapes, styles, extras, config, height: int, width: int) -> list:
             # one chunk for the whole image: the patches that meet show what nothing hides or is hidden by
             clear = _clear_sides(on_canvas, patches)
         judged: dict = {}
-        for part in _runs(on_canvas, patches):
+        for part in _runs(on_canvas, patches, min(_MEASURE_PIXELS, _MEASURE_DEPTH * height * width)):
             base = _walk(part, shapes, styles, patches, geoms, buffer, level_map, base, judged, spec, erase, clear)
         for i in chunk:
             if patches[i] is None:  # off the canvas
@@ -682,13 +685,13 @@ def _clear_sides(order: list, patches: dict) -> tuple[set, set]:
 _CONTACT_PAIRS = 8
 
 
-def _runs(order: list, patches: dict):
-    """Consecutive runs of ``order`` whose patches hold at most :data:`_MEASURE_PIXELS` pixels (one shape at least)."""
+def _runs(order: list, patches: dict, budget: int):
+    """Consecutive runs of ``order`` whose patches hold at most ``budget`` pixels (one shape at least)."""
     run, pixels = [], 0
     for i in order:
         r0, c0, r1, c1 = patches[i]
         area = (r1 - r0) * (c1 - c0)
-        if run and pixels + area > _MEASURE_PIXELS:
+        if run and pixels + area > budget:
             yield run
             run, pixels = [], 0
         run.append(i)
