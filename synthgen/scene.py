@@ -29,10 +29,11 @@ Difficulty dials handled here (placement itself is in :mod:`synthgen.layout`):
   ring unless rings are the only kind) is moved along a random direction
   toward its target until the share of the target's sub-pixel samples it
   covers lies in the range (:func:`place_occluder`); one too small to cover
-  enough even when centred is enlarged, up to the top of ``objects.size``.  Target and occluder share an ``occlusion_id``;
-  the target records ``occlusion_goal`` and ``occluder_hides`` (the share its
-  own occluder covers), the occluder ``occluder: true``; the measured
-  ``visible_fraction`` counts every object above the target.
+  enough even when centred is enlarged, up to the top of ``objects.size``.
+  Target and occluder share an ``occlusion_id``; the target records
+  ``occlusion_goal`` and ``occluder_hides`` (the share its own occluder
+  covers), the occluder ``occluder: true``; the measured ``visible_fraction``
+  counts every object above the target.
 * Clutter (:mod:`synthgen.clutter`) is drawn on the background before the
   objects, from its own random stream.
 * When a layout cannot place every requested object, the image's
@@ -616,14 +617,15 @@ def _measure(shapes, styles, extras, config, height: int, width: int) -> list:
     not (it is not drawn), so an object below it is judged by what is drawn
     above it in the final picture.  An object whose whole patch is covered
     already is hidden without computing its coverage; the others' coverage is
-    computed a chunk of shapes at a time and dropped as soon as an object
-    turns out not to be shown.  So time and memory follow the canvas and the
-    objects that show, plus a small cost per object, however many end hidden.
+    computed a run of shapes at a time (:func:`_runs`) and dropped as soon as
+    an object turns out not to be shown.  So time and memory follow the
+    canvas and the objects that show, plus a small cost per object, however
+    many end hidden.
 
-    Within a chunk the objects go in levels (an object's level is one more
-    than the highest level of the objects above it whose patches meet its
-    own), so the patches of one level never meet and a level's small patches
-    are judged together (:meth:`synthgen.occlusion.SampleBuffer.visible_many`).
+    Within a run the objects go in levels (an object's level is one more than
+    the highest level of the objects above it whose patches meet its own), so
+    the patches of one level never meet and a level's small patches are
+    judged together (:meth:`synthgen.occlusion.SampleBuffer.visible_many`).
     """
     spec = config.objects
     s = config.render.samples
