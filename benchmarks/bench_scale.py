@@ -161,7 +161,7 @@ def bench_coco_write(tmp: Path, n_images: int, n_objects: int) -> None:
     out = tmp / "annotations.json"
     rss_before = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
     start = time.perf_counter()
-    n, _, _, _ = write_coco_streamed(out, store, range(n_images), info=coco_info(cfg), categories=categories(cfg))
+    n, _, _, _, _ = write_coco_streamed(out, store, range(n_images), info=coco_info(cfg), categories=categories(cfg))
     t_write = time.perf_counter() - start
     rss_after = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
     store.close()

@@ -20,10 +20,11 @@ give; boxes are finite, non-empty and inside their image (to 1e-6 px or 1e-6
 of the normalized side); ids are unique and positive; annotations refer to
 existing images and categories; class names and indices agree between
 formats; every format holds the same images as the COCO file and, per image,
-its objects (all annotations, or all but ``iscrowd`` regions, which formats
-without an ignore convention leave out): a mismatch is one problem naming the
-image and the objects on either side, paired by category and box; every
-annotation keeps a pixel of its instance-id mask (the rule of
+its objects (ignore regions, ``iscrowd`` 1, count in VOC as ``difficult``
+objects, in ``masks.jsonl`` and as the ignore value of the instance-id masks,
+and are absent from YOLO and token files): a mismatch is one problem naming the
+image and the objects on either side, paired by category and box; every object
+keeps a pixel of its instance-id mask (the rule of
 :mod:`synthgen.formats.masks`); files listed in a synthgen ``manifest.json``
 exist and match their sha256 digests (a mismatch shows both digests).  Every
 bad line of a file is its own problem, and the file's good lines are still
@@ -106,7 +107,8 @@ class CheckReport:
     formats : tuple of str
         Formats found, e.g. ``("coco", "voc")``.
     counts : dict
-        Format -> ``{"files": n, "images": n, "objects": n}``.
+        Format -> ``{"files": n, "images": n, "objects": n}`` (COCO also
+        ``"ignored"``: the ignore regions, which ``objects`` leaves out).
     problems : tuple of Problem
     """
 
@@ -125,7 +127,8 @@ class CheckReport:
         parts = []
         for f in self.formats:
             c = self.counts.get(f, {})
-            parts.append(f"{f} {c.get('images', 0)} images / {c.get('objects', 0)} objects")
+            ignored = f" (+{c['ignored']} ignore regions)" if c.get("ignored") else ""
+            parts.append(f"{f} {c.get('images', 0)} images / {c.get('objects', 0)} objects{ignored}")
         n = len(self.problems)
         verdict = "no problems" if n == 0 else f"{n} problem{'s' if n != 1 else ''}"
         return f"{self.root}: {'; '.join(parts)}: {verdict}"
@@ -300,10 +303,12 @@ class _Checker:
                     self.ref_files[stem] = fn
                     self.ref_sizes[stem] = size_of[im["id"]]
                     self.ref_ids[im["id"]] = stem
-            total = self.counts.setdefault("coco", {"files": 0, "images": 0, "objects": 0})
+            total = self.counts.setdefault("coco", {"files": 0, "images": 0, "objects": 0, "ignored": 0})
+            crowd = sum(a.get("iscrowd") == 1 for a in anns)
             total["files"] += 1
             total["images"] += len(images)
-            total["objects"] += len(anns)
+            total["objects"] += len(anns) - crowd
+            total["ignored"] += crowd
         return coco
 
     def _unique_positive(self, path: Path, kind: str, records: list[dict]) -> None:
@@ -369,14 +374,14 @@ class _Checker:
     # -- object counts against the reference ------------------------------------------
     def compare(
         self, fmt: str, path: Path, stem: str, found: list, size: tuple[int, int] | None = None, *,
-        record: str = "", tol: float = 0.5, what: str = "objects",
+        record: str = "", tol: float = 0.5, what: str = "objects", crowd: bool = True,
     ) -> None:
         """Hold one image's objects in a format against the reference annotations.
 
         ``found`` lists the format's objects as ``(where, category name, xyxy
-        box in pixels or None)``; a count that differs from the reference (all
-        annotations, or all but crowd regions, which some formats leave out)
-        is one problem naming the image and the objects on either side.
+        box in pixels or None)``; ``crowd`` says whether the format holds the
+        ignore regions (``iscrowd`` 1) too.  A count that differs from the
+        reference is one problem naming the image and the objects on either side.
         """
         if self.ref_objects is None:
             return
@@ -384,19 +389,19 @@ class _Checker:
             self.add(path, record, "must belong to an image of annotations.json", stem)
             return
         anns = self.ref_anns[stem]
-        plain = [a for a in anns if a.get("iscrowd", 0) != 1]
+        ref = anns if crowd else [a for a in anns if a.get("iscrowd", 0) != 1]
         n = len(found)
-        if n not in (len(anns), len(plain)):
-            ref = plain if abs(n - len(plain)) < abs(n - len(anns)) else anns
+        if n != len(ref):
             missing, extra = _unmatched([self._ref_object(a) for a in ref], found, tol)
             detail = []
             if missing:
                 detail.append(f"not found: annotation id {_listing(missing)}")
             if extra:
                 detail.append(f"not in annotations.json: {_listing(extra)}")
+            without = "" if crowd else " without ignore regions"
             self.add(
                 path, record,
-                f"must hold as many {what} as annotations.json gives image {self.ref_files[stem]} ({len(ref)})"
+                f"must hold as many {what} as annotations.json{without} gives image {self.ref_files[stem]} ({len(ref)})"
                 + "".join(f"; {d}" for d in detail),
                 n,
             )
@@ -529,7 +534,7 @@ class _Checker:
                 ]
             else:
                 found = [(f"line {n}", None, None) for n in lines]
-            self.compare("yolo", p, stem, found)
+            self.compare("yolo", p, stem, found, crowd=False)
         self.missing("yolo", seen, self.rel(d) + "/{stem}.txt")
         self.counts["yolo"] = {"files": len(files), "images": len(files), "objects": n_obj}
         self.compare_total("yolo", d)
@@ -573,7 +578,7 @@ class _Checker:
             names = [self.ref_cat_names.get(c) for c in line["category_ids"][real].tolist()]
             found = [(f"object {j}", names[j], tuple(b)) for j, b in enumerate(line["boxes"][real].tolist())]
             # a dequantized coordinate is within half a bin of the true one
-            self.compare("tokens", path, stem, found, record=record, tol=max(width, height) / n_bins)
+            self.compare("tokens", path, stem, found, record=record, tol=max(width, height) / n_bins, crowd=False)
             if (width, height) != self.ref_sizes[stem]:
                 self.add(path, record, f"width, height must match annotations.json {self.ref_sizes[stem]}", (width, height))
         if reference:
@@ -593,7 +598,8 @@ class _Checker:
             except InputFileError as e:
                 self.add_error(e)
                 continue
-            n_obj += int(np.count_nonzero(np.bincount(ids.ravel())[1:])) if ids.size else 0
+            numbered = ids[ids != masks_fmt.IGNORE_ID]
+            n_obj += int(np.count_nonzero(np.bincount(numbered)[1:])) if numbered.size else 0
             if self.ref_objects is None or stem not in self.ref_objects:
                 self.compare("masks", p, stem, [])
                 continue
@@ -602,22 +608,27 @@ class _Checker:
                 self.add(p, "", f"mask size (width, height) must match annotations.json {self.ref_sizes[stem]}", (w, h))
                 continue
             anns = self.ref_anns[stem]
-            top = int(ids.max()) if ids.size else 0
-            if top > len(anns):
-                self.add(p, "", f"instance ids must be at most the image's annotation count ({len(anns)})", top)
+            n_plain = sum(a.get("iscrowd", 0) != 1 for a in anns)
+            top = int(numbered.max()) if numbered.size else 0
+            if top > n_plain:
+                self.add(p, "", f"instance ids must be at most the image's object count ({n_plain})", top)
                 continue
+            if n_plain == len(anns) and numbered.size < ids.size:
+                self.add(p, "", f"ignore value {masks_fmt.IGNORE_ID} must mark ignore regions of annotations.json "
+                         "(this image has none)", masks_fmt.IGNORE_ID)
             lost = masks_fmt.lost_annotations(anns, ids)
             if lost:
+                plain = [a for a in anns if a.get("iscrowd", 0) != 1]
                 self.add(
                     p, "",
-                    f"every annotation of image {self.ref_files[stem]} with segmentation pixels must keep one "
+                    f"every object of image {self.ref_files[stem]} with segmentation pixels must keep one "
                     "(unless each is another annotation's only pixel); none for annotation id "
-                    + _listing([anns[i - 1].get("id") for i in lost]),
+                    + _listing([plain[i - 1].get("id") for i in lost]),
                     [f"id {i}" for i in lost] if len(lost) <= 5 else len(lost),
                 )
                 self.mismatched.add("masks")
         self.missing("masks", seen, self.rel(d) + "/{stem}.png")
-        # objects = instances with at least one pixel
+        # objects = instances with at least one pixel (one drawn over entirely has none); ignore regions not counted
         self.counts["masks"] = {"files": len(files), "images": len(files), "objects": n_obj}
 
     def masks_rle(self, path: Path) -> None:

@@ -259,14 +259,7 @@ def make(
         f"wrote {_count(summary.images, 'image')}{what}, {_count(summary.objects, 'object')} to {summary.out} "
         f"in {summary.seconds:.2f} s{how}"
     )
-    _warn_shortfall(cfg, summary.dropped)
-    if summary.objects == 0 and summary.images and cfg.objects.count[1] > 0:
-        lost = ", ".join(f"{k} {v}" for k, v in summary.dropped.items() if v) or "none"
-        typer.echo(
-            f"synthgen: warning: no object passed the annotation rules (objects.min_visible, "
-            f"objects.min_area); dropped: {lost}",
-            err=True,
-        )
+    _warn_drops(summary.objects, summary.dropped, summary.ignored)
 
 
 def _count(n: int, word: str) -> str:
@@ -274,16 +267,13 @@ def _count(n: int, word: str) -> str:
     return f"{n} {word}{'' if n == 1 else 's'}"
 
 
-def _warn_shortfall(cfg, dropped: dict, where: str = "") -> None:
-    """One warning line on stderr when a layout could not place every requested object."""
-    n = int(dropped.get("no_room", 0))
-    if n:
-        typer.echo(
-            f"synthgen: warning: {where}{n} requested objects found no room (objects.layout = "
-            f"'{cfg.objects.layout}', objects.attempts = {cfg.objects.attempts}); they are not drawn and "
-            "the manifest counts them under counts.dropped.no_room",
-            err=True,
-        )
+def _warn_drops(objects: int, dropped: dict, ignored: int, where: str = "") -> None:
+    """One warning line on stderr when more than a tenth of the objects were not annotated."""
+    from synthgen.dataset import drop_warning
+
+    line = drop_warning(objects, dropped, ignored)
+    if line is not None:
+        typer.echo(f"synthgen: warning: {where}{line} (manifest: counts.dropped)", err=True)
 
 
 # config key of each DetectorSpec field -> the jitter option that sets it
@@ -645,8 +635,8 @@ def sweep(
         f"wrote {_count(summary.subsets, 'dataset')} ({_count(summary.images, 'image')}, "
         f"{_count(summary.objects, 'object')}) to {summary.out}{kept} in {summary.seconds:.2f} s"
     )
-    for (rel, _, cfg), record in zip(plan, summary.records):
-        _warn_shortfall(cfg, record["dropped"], where=f"{rel}: ")
+    for (rel, _, _cfg), record in zip(plan, summary.records):
+        _warn_drops(record["objects"], record["dropped"], record["ignored"], where=f"{rel}: ")
 
 
 @app.command()

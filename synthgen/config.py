@@ -36,7 +36,9 @@ __all__ = [
     "OutputSpec",
     "Config",
     "LAYOUTS",
+    "DROPPED",
     "MAX_CANVAS_SIDE",
+    "object_room",
     "build",
     "load_config",
     "parse_override",
@@ -54,6 +56,7 @@ LAYOUTS = ("scatter", "separated", "pairs", "grid", "clusters")
 MARKS = ("line", "blob", "texture")
 SIZE_LAWS = ("uniform", "log-uniform")
 BOX_KINDS = ("visible", "full")
+DROPPED = ("ignore", "erase")
 IMAGE_FORMATS = ("png", "jpeg")
 
 
@@ -82,7 +85,10 @@ class ObjectSpec:
     hi] with hi > 0 puts an occluder over a share ``occlusion_share`` of the
     placed objects so that each hides a fraction in [lo, hi] of its target
     (targets hidden beyond ``1 - min_visible`` are still dropped, so lower
-    ``min_visible`` for heavy occlusion).
+    ``min_visible`` for heavy occlusion).  ``dropped`` says what becomes of an
+    object that ``min_visible`` or ``min_area`` drops but that still shows:
+    ``"ignore"`` draws it and marks its pixels as an ignore region (COCO
+    ``iscrowd`` 1), ``"erase"`` leaves it out of the picture.
     """
 
     count: tuple[int, int] = (3, 12)
@@ -101,6 +107,7 @@ class ObjectSpec:
     sides: tuple[int, int] = (3, 8)
     inner: tuple[float, float] = (0.35, 0.65)
     box: str = "visible"
+    dropped: str = "ignore"  # what becomes of a dropped object that still shows: ignore region, or erased
     max_iou: float = 0.0  # largest exact-box IoU of two objects, in [0, 1] (0: none overlap)
     attempts: int = 100  # candidate centres per object before it is left out (no_room)
     pair_iou: tuple[float, float] = (0.3, 0.7)  # box IoU range within a pair, in (0, 1]
@@ -130,6 +137,7 @@ class ObjectSpec:
         check_range("objects.sides", self.sides, lo=3, hi=64, integer=True)
         check_range("objects.inner", self.inner, lo=0, lo_open=True, hi=0.95)
         check_choice("objects.box", self.box, BOX_KINDS)
+        check_choice("objects.dropped", self.dropped, DROPPED)
         check_number("objects.max_iou", self.max_iou, lo=0, hi=1)
         check_number("objects.attempts", self.attempts, lo=1, hi=100_000, integer=True)
         check_range("objects.pair_iou", self.pair_iou, lo=0, lo_open=True, hi=1)
@@ -216,6 +224,42 @@ class Config:
         as_tuples(self)
         check_number("seed", self.seed, lo=0, hi=2**63 - 1, integer=True)
         check_number("count", self.count, lo=1, hi=MAX_IMAGES, integer=True)
+        _check_room(self)
+
+
+def object_room(config: Config) -> int:
+    """The most objects one image of ``config`` can annotate, whatever their size and place.
+
+    An annotated object shows at least ``objects.min_area`` px^2 of visible
+    coverage and at least one sub-pixel sample (``1 / render.samples^2``
+    px^2), and no sample shows two objects, so at most ``W H / max(min_area,
+    1 / s^2)`` objects fit on a ``W x H`` canvas.
+
+    Examples
+    --------
+    >>> object_room(build(Config, {"canvas": {"width": 64, "height": 64}}))
+    4096
+    """
+    s = config.render.samples
+    need = max(config.objects.min_area, 1.0 / (s * s))
+    return math.floor(config.canvas.width * config.canvas.height / need + 1e-9)
+
+
+def _check_room(config: Config) -> None:
+    """Refuse a request for more objects per image than the canvas can ever show annotated."""
+    room = object_room(config)
+    if config.objects.count[0] > room:
+        w, h = config.canvas.width, config.canvas.height
+        s = config.render.samples
+        if config.objects.min_area >= 1.0 / (s * s):
+            why = f"each annotated object needs objects.min_area = {config.objects.min_area:g} px^2 of it to itself"
+        else:
+            why = f"each annotated object needs a sub-pixel sample, 1/{s * s} px^2 at render.samples = {s}, to itself"
+        raise ConfigError(
+            "objects.count",
+            f"must ask for at most {room} objects per image on a {w}x{h} canvas ({why})",
+            config.objects.count,
+        )
 
 
 def _check_names(key: str, names: tuple[str, ...], allowed: tuple[str, ...]) -> None:

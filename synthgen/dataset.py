@@ -77,6 +77,8 @@ from synthgen.shards import (
 
 __all__ = [
     "MakeSummary",
+    "DROP_KEYS",
+    "drop_warning",
     "make_dataset",
     "merge_shards",
     "image_name",
@@ -117,7 +119,9 @@ class MakeSummary:
     """What a run wrote.
 
     ``images`` counts the images of this run (of its shard); ``kept`` how many
-    of them a resumed run found intact and did not render again.
+    of them a resumed run found intact and did not render again.  ``objects``
+    counts the annotated objects, ``ignored`` the ignore regions, ``dropped``
+    the requested objects not annotated, by reason (the ignore regions among them).
     """
 
     out: Path
@@ -127,6 +131,7 @@ class MakeSummary:
     seconds: float
     kept: int = 0
     shard: Shard = field(default_factory=Shard)
+    ignored: int = 0
 
     @property
     def rendered(self) -> int:
@@ -137,6 +142,54 @@ class MakeSummary:
     def images_per_second(self) -> float:
         """Rendered images per second (kept images took no rendering)."""
         return self.rendered / self.seconds if self.seconds > 0 else float("inf")
+
+
+#: The config keys that govern each reason a requested object is not annotated.
+DROP_KEYS = {
+    "no_room": ("objects.layout", "objects.attempts"),
+    "outside": ("objects.layout",),
+    "hidden": ("objects.count", "objects.layout"),
+    "min_visible": ("objects.min_visible",),
+    "min_area": ("objects.min_area", "objects.size"),
+}
+
+
+def drop_warning(objects: int, dropped: Mapping[str, int], ignored: int = 0) -> str | None:
+    """One line on the objects a run did not annotate, when they are more than a tenth of all it drew on.
+
+    Parameters
+    ----------
+    objects : int
+        Annotated objects.
+    dropped : mapping
+        Objects not annotated, by reason (``MakeSummary.dropped``).
+    ignored : int
+        How many of the dropped objects show and are marked as ignore regions.
+
+    Returns
+    -------
+    str or None
+        The counts by reason, each with the keys that govern it; None when at
+        most a tenth of the objects were dropped.
+
+    Examples
+    --------
+    >>> print(drop_warning(394, {"hidden": 1173, "min_visible": 433, "no_room": 0}, ignored=433))
+    1606 of 2000 objects (80%) were not annotated: hidden 1173 (objects.count, objects.layout), min_visible 433 (objects.min_visible); 433 of them show and are marked as ignore regions (iscrowd 1)
+    >>> drop_warning(95, {"hidden": 5}) is None
+    True
+    """
+    lost = sum(int(n) for n in dropped.values())
+    total = objects + lost
+    if lost * 10 <= total:
+        return None
+    reasons = ", ".join(
+        f"{reason} {n} ({', '.join(DROP_KEYS.get(reason, ()))})" for reason, n in dropped.items() if n
+    )
+    line = f"{lost} of {total} objects ({100 * lost / total:.0f}%) were not annotated: {reasons}"
+    if ignored:
+        line += f"; {ignored} of them show and are marked as ignore regions (iscrowd 1)"
+    return line
 
 
 def usable_cores() -> int:
@@ -157,22 +210,32 @@ def image_name(config: Config, index: int) -> str:
 
 
 def scene_annotations(scene: Scene, height: int, width: int) -> list[dict]:
-    """COCO annotation records (without ``id`` and ``image_id``) for a scene's objects."""
-    bboxes = bbox_from_xyxy(scene.boxes)
-    segmentations = rle.encode_patches(scene.masks, height, width)  # all masks in one pass
-    return [
-        {
-            "category_id": category,
-            "bbox": bbox,
-            "area": area,
-            "iscrowd": 0,
-            "segmentation": segmentation,
-            "synthgen": facts,
-        }
-        for category, bbox, area, segmentation, facts in zip(
-            scene.categories.tolist(), bboxes, scene.areas.tolist(), segmentations, scene.facts
+    """COCO annotation records (without ``id`` and ``image_id``) for a scene's objects and ignore regions.
+
+    Objects have ``iscrowd`` 0; ignore regions (:class:`synthgen.scene.IgnoreRegions`)
+    ``iscrowd`` 1.  Records are in draw order (``synthgen.z``), bottom first,
+    so that where masks share a pixel the later record is the one on top.
+    """
+    parts = ((scene, 0), (scene.ignored, 1))
+    records = []
+    for part, crowd in parts:
+        segmentations = rle.encode_patches(part.masks, height, width)  # all masks in one pass
+        records.extend(
+            {
+                "category_id": category,
+                "bbox": bbox,
+                "area": area,
+                "iscrowd": crowd,
+                "segmentation": segmentation,
+                "synthgen": facts,
+            }
+            for category, bbox, area, segmentation, facts in zip(
+                part.categories.tolist(), bbox_from_xyxy(part.boxes), part.areas.tolist(), segmentations, part.facts
+            )
         )
-    ]
+    if len(scene.ignored.facts):
+        records.sort(key=lambda r: r["synthgen"]["z"])
+    return records
 
 
 def write_file_atomic(path: Path, data: bytes) -> None:
@@ -322,11 +385,13 @@ def build_manifest(
     files: dict,
     libraries: dict | None = None,
     outputs: dict | None = None,
+    ignored: int = 0,
 ) -> dict:
     """The manifest dict; nothing in it depends on how the work was split or when it ran.
 
     ``libraries`` are the versions that rendered the images (default: this process's);
-    ``outputs`` the formats and split written (default: COCO JSON only).
+    ``outputs`` the formats and split written (default: COCO JSON only); ``ignored``
+    the number of ignore regions.
     """
     return {
         "tool": "synthgen",
@@ -334,7 +399,7 @@ def build_manifest(
         "seed": config.seed,
         "config": to_dict(config),
         "versions": versions() if libraries is None else libraries,
-        "counts": {"images": config.count, "objects": n_objects, "dropped": dropped},
+        "counts": {"images": config.count, "objects": n_objects, "ignored": ignored, "dropped": dropped},
         "outputs": outputs if outputs is not None else {"formats": ["coco"], "split": None},
         "files": dict(sorted(files.items())),
     }
@@ -361,11 +426,11 @@ def finish_dataset(
 
     Returns
     -------
-    (n_objects, dropped)
+    (n_objects, dropped, ignored)
     """
     out = Path(out)
     try:
-        n_objects, digest, dropped, files = write_coco_streamed(
+        n_objects, digest, dropped, files, ignored = write_coco_streamed(
             out / "annotations.json", store, range(config.count), info=coco_info(config), categories=categories(config)
         )
         files["annotations.json"] = digest
@@ -374,7 +439,7 @@ def finish_dataset(
             write_formats(read_coco(out / "annotations.json"), out, extra, split=split, seed=config.seed)
             files.update(_format_digests(out))
         outputs = {"formats": ["coco", *extra], "split": dict(split) if split else None}
-        manifest = build_manifest(config, n_objects, dropped, files, libraries, outputs)
+        manifest = build_manifest(config, n_objects, dropped, files, libraries, outputs, ignored)
         _write_small(out / "manifest.json", _dump_manifest(manifest))
     except OSError as exc:
         raise _write_error(exc, out) from None
@@ -382,7 +447,7 @@ def finish_dataset(
         store.close()
     remove_state(out)
     _remove_temporaries(out)
-    return n_objects, dropped
+    return n_objects, dropped, ignored
 
 
 def _format_digests(out: Path) -> dict:
@@ -799,7 +864,8 @@ def make_dataset(
             if kept is not None:
                 counts = read_json(out / "manifest.json", "manifest")["counts"]
                 return MakeSummary(out, counts["images"], counts["objects"], counts["dropped"],
-                                   time.perf_counter() - start, kept=kept, shard=shard)
+                                   time.perf_counter() - start, kept=kept, shard=shard,
+                                   ignored=counts.get("ignored", 0))
             # The annotations are damaged too: render every image again.
             (out / "manifest.json").unlink(missing_ok=True)
         mine = shard.indices(config.count)
@@ -818,10 +884,11 @@ def make_dataset(
             backend.close()
 
     if shard.whole:
-        n_objects, dropped = finish_dataset(config, out, store, formats=formats, split=split)
+        n_objects, dropped, ignored = finish_dataset(config, out, store, formats=formats, split=split)
     else:
-        n_objects, dropped = _finish_shard(config, out, shard, store)
-    return MakeSummary(out, len(mine), n_objects, dropped, time.perf_counter() - start, kept=kept, shard=shard)
+        n_objects, dropped, ignored = _finish_shard(config, out, shard, store)
+    return MakeSummary(out, len(mine), n_objects, dropped, time.perf_counter() - start, kept=kept, shard=shard,
+                       ignored=ignored)
 
 
 def _known_records(config: Config, out: Path, shard: Shard, *, resume_from: bool) -> tuple[RecordStore, int]:
@@ -891,11 +958,12 @@ def _repair_finished(config: Config, out: Path) -> int | None:
 
 def _finish_shard(config: Config, out: Path, shard: Shard, store: RecordStore) -> tuple[int, dict]:
     """Write the shard manifest: config, versions, shard, counts, files, and the journal's digest."""
-    n_objects, dropped, files = 0, {}, {}
+    n_objects, ignored, dropped, files = 0, 0, {}, {}
     with store:
         for k in shard.indices(config.count):
             header, fragments = store.read(k)
-            n_objects += len(fragments) - 1
+            ignored += header.get("ignored", 0)
+            n_objects += len(fragments) - 1 - header.get("ignored", 0)
             for reason, n in header["dropped"].items():
                 dropped[reason] = dropped.get(reason, 0) + n
             files.update(header["files"])
@@ -907,7 +975,8 @@ def _finish_shard(config: Config, out: Path, shard: Shard, store: RecordStore) -
         "seed": config.seed,
         "config": to_dict(config),
         "versions": versions(),
-        "counts": {"images": len(shard.indices(config.count)), "objects": n_objects, "dropped": dropped},
+        "counts": {"images": len(shard.indices(config.count)), "objects": n_objects, "ignored": ignored,
+                   "dropped": dropped},
         "journal": {"path": journal.relative_to(out).as_posix(), "sha256": sha256_file(journal)},
         "files": dict(sorted(files.items())),
     }
@@ -916,7 +985,7 @@ def _finish_shard(config: Config, out: Path, shard: Shard, store: RecordStore) -
     except OSError as exc:
         raise _write_error(exc, out) from None
     _remove_temporaries(out)
-    return n_objects, dropped
+    return n_objects, dropped, ignored
 
 
 # --------------------------------------------------------------------------- merging shards
@@ -1036,8 +1105,8 @@ def merge_shards(dirs: Sequence[Path], out: Path | None = None, *, overwrite: bo
     except BaseException:
         store.close()
         raise
-    n_objects, dropped = finish_dataset(config, out, store, libraries)
-    return MakeSummary(out, config.count, n_objects, dropped, time.perf_counter() - start)
+    n_objects, dropped, ignored = finish_dataset(config, out, store, libraries)
+    return MakeSummary(out, config.count, n_objects, dropped, time.perf_counter() - start, ignored=ignored)
 
 
 def _check_shard_files(found: list[_ShardInput], config: Config, store: RecordStore, out: Path) -> list[tuple]:

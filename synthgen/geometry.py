@@ -42,6 +42,8 @@ __all__ = [
     "box_area",
     "box_iou",
     "pairwise_iou",
+    "pairwise_ioa",
+    "box_ioa",
     "clip_boxes",
     "mask_box",
     "boxes_valid",
@@ -153,6 +155,47 @@ def pairwise_iou(a, b) -> np.ndarray:
     inter = box_intersection(a, b)  # (N, M)
     union = box_area(a)[:, None] + box_area(b)[None, :] - inter  # (N, M)
     return _ratio(inter, union)
+
+
+def pairwise_ioa(a, b) -> np.ndarray:
+    """Intersection over the area of the box of ``a``, for every box in ``a`` with every box in ``b``.
+
+    The overlap COCO evaluation uses for a crowd region (an ignore region):
+    ``|A n B| / |A|`` for a detection ``A`` and the region's box ``B``; 0 for
+    an empty ``A``.
+
+    Parameters
+    ----------
+    a : array_like of shape (N, 4)
+    b : array_like of shape (M, 4)
+
+    Returns
+    -------
+    ndarray of shape (N, M)
+
+    Examples
+    --------
+    >>> pairwise_ioa([[1, 1, 3, 3]], [[0, 0, 10, 10], [2, 0, 10, 10]]).tolist()
+    [[1.0, 0.5]]
+    """
+    a = as_boxes(a)
+    inter = box_intersection(a, b)  # (N, M)
+    return _ratio(inter, np.broadcast_to(box_area(a)[:, None], inter.shape))
+
+
+def box_ioa(a, b) -> np.ndarray:
+    """Element-wise intersection over the area of the box of ``a`` (see :func:`pairwise_ioa`).
+
+    Parameters
+    ----------
+    a, b : array_like of shape (N, 4)
+
+    Returns
+    -------
+    ndarray of shape (N,)
+    """
+    a = as_boxes(a)
+    return _ratio(_overlap(a, as_boxes(b)), box_area(a))
 
 
 def box_iou(a, b) -> np.ndarray:

@@ -55,7 +55,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from synthgen.errors import ConfigError, check_number, check_range
-from synthgen.geometry import as_boxes, box_iou, boxes_valid
+from synthgen.geometry import as_boxes, box_ioa, box_iou, boxes_valid
 from synthgen.score import IOU_THRESHOLDS
 
 __all__ = [
@@ -886,8 +886,11 @@ def duplicates(
 # --------------------------------------------------------------------------- distractors
 
 
-def _group_max_iou(pred, pred_img, exclude, truth, truth_img) -> np.ndarray:
+def _group_max_iou(pred, pred_img, exclude, truth, truth_img, measure=box_iou) -> np.ndarray:
     """Largest IoU of each prediction with the truth boxes of its image, skipping ``exclude``.
+
+    ``measure`` (element-wise over box pairs) replaces the IoU, e.g. by
+    :func:`synthgen.geometry.box_ioa` for the overlap with ignore regions.
 
     Parameters
     ----------
@@ -912,7 +915,7 @@ def _group_max_iou(pred, pred_img, exclude, truth, truth_img) -> np.ndarray:
     pi = np.repeat(np.arange(len(pred)), cnt)  # one row per (prediction, truth of its image) pair
     offset = np.arange(cnt.sum()) - np.repeat(np.cumsum(cnt) - cnt, cnt)
     gi = order[np.repeat(start, cnt) + offset]
-    v = box_iou(pred[pi], truth[gi])
+    v = measure(pred[pi], truth[gi])
     v[gi == exclude[pi]] = 0.0
     np.maximum.at(out, pi, v)
     return out
@@ -958,27 +961,34 @@ def _background_sizes(truth: np.ndarray, size):
     return np.stack([truth[:, 2] - truth[:, 0], truth[:, 3] - truth[:, 1]], axis=1)  # (N, 2)
 
 
-def _place_background(truth, truth_img, counts, cw_img, ch_img, max_iou, size, aspect, rng):
+def _place_background(truth, truth_img, counts, cw_img, ch_img, max_iou, size, aspect, rng, ignore=None):
     """Background boxes for each image; returns (boxes, image, other_iou, shortfall).
 
     ``size`` as for :func:`_random_boxes`, or None for the sizes of ``truth``.
+    ``ignore``: ``(boxes (K, 4), image (K,))`` of ignore regions; a background
+    box also keeps below ``max_iou`` of its own area on each of them, so that
+    a COCO evaluation does not ignore it (crowd matching) but counts it false.
     """
     size = _background_sizes(truth, size)
     img = np.repeat(np.arange(len(counts)), counts)
     k = len(img)
     boxes = np.empty((k, 4))
     other = np.full(k, np.inf)
+    clear = np.zeros(k, dtype=bool)
     todo = np.arange(k)
     for _ in range(_ROUNDS):
         if todo.size == 0:
             break
         cand = _random_boxes(cw_img[img[todo]], ch_img[img[todo]], size, aspect, rng)
         o = _group_max_iou(cand, img[todo], np.full(todo.size, -1), truth, truth_img)
+        ok = o < max_iou
+        if ignore is not None and len(ignore[0]):
+            ok &= _group_max_iou(cand, img[todo], np.full(todo.size, -1), ignore[0], ignore[1], box_ioa) < max_iou
         boxes[todo] = cand
         other[todo] = o
-        todo = todo[o >= max_iou]
-    keep = other < max_iou
-    return boxes[keep], img[keep], other[keep], int(k - keep.sum())
+        clear[todo] = ok
+        todo = todo[~ok]
+    return boxes[clear], img[clear], other[clear], int(k - clear.sum())
 
 
 def background_boxes(
@@ -1386,6 +1396,7 @@ def simulate_detections(
     spec: DetectorSpec = DetectorSpec(),
     image=None,
     classes=None,
+    ignore=None,
 ) -> Detections:
     """Predictions of an imaginary detector whose every mistake is known.
 
@@ -1405,6 +1416,11 @@ def simulate_detections(
         Image index of each true box, in ``0 .. M - 1``; all 0 by default.
     classes : array_like of int, optional
         Labels for wrong-class and background boxes; default: the labels seen.
+    ignore : (array_like of shape (K, 4), array_like of int, shape (K,)), optional
+        Ignore regions (COCO ``iscrowd`` 1) and their image indices: no
+        prediction is made from them, and background boxes keep below
+        ``background_iou`` of their own area on them, so that an evaluator
+        counts them as false positives rather than ignoring them.
 
     Returns
     -------
@@ -1469,8 +1485,10 @@ def simulate_detections(
     sourced(np.sort(r_dup.permutation(detected)[:k_dup]), spec.duplicate_iou, "duplicate", r_dup)
 
     counts = r_bg.poisson(spec.background, n_img) if spec.background > 0 else np.zeros(n_img, dtype=np.int64)
+    if ignore is not None:
+        ignore = (as_boxes(ignore[0]), np.asarray(ignore[1], dtype=np.int64).reshape(-1))
     bg, bg_img, bg_other, short = _place_background(
-        t, img, counts, cw_img, ch_img, spec.background_iou, spec.background_size, (0.5, 2.0), r_bg
+        t, img, counts, cw_img, ch_img, spec.background_iou, spec.background_size, (0.5, 2.0), r_bg, ignore
     )
     if bg_img.size and cls.size == 0:
         raise ValueError("background boxes need at least one class ('classes' is empty)")

@@ -22,7 +22,9 @@ Truth sidecar (JSON object, ``format`` = :data:`SIDECAR_FORMAT`)
     :data:`~synthgen.jitter.DETECTION_KINDS`), ``gt_id`` (annotation id of the
     source box, null for background), ``iou`` (IoU with the source box, null for
     background), ``other_iou`` (largest IoU with any other non-crowd annotation
-    of the image, any category).
+    of the image, any category), ``crowd_overlap`` (largest share of its own
+    box area that an ignore region's box, ``iscrowd`` 1, of the image covers:
+    the overlap COCO evaluation matches crowd regions by).
 ``ground_truth`` : list of objects, one per non-crowd annotation, in file order
     ``gt_id``, ``image_id``, ``category_id``, ``outcome`` (one of
     :data:`~synthgen.jitter.OUTCOMES`).
@@ -37,9 +39,11 @@ Summary (JSON object)
 ``predictions``; ``kinds`` and ``outcomes`` (count per name, every name
 present); ``iou`` (``[min, max]`` of the recorded IoU per sourced kind, null
 when there is none); ``ambiguous`` (sourced predictions with ``other_iou >=
-0.5``, which an evaluator may match to another box); ``background_shortfall``;
-``nudged`` (range name -> ``{"asked": [lo, hi], "used": [lo, hi]}`` for every
-IoU range moved off a COCO threshold, empty when none was).
+0.5``, which an evaluator may match to another box, or with ``crowd_overlap >=
+0.5``, which it may ignore); ``background_shortfall``; ``nudged`` (range name ->
+``{"asked": [lo, hi], "used": [lo, hi]}`` for every IoU range moved off a COCO
+threshold, empty when none was).  Background boxes are kept off the ignore
+regions (``crowd_overlap`` below ``background_iou``).
 
 Randomness: one generator from ``SeedSequence(seed, spawn_key=(JITTER_STREAM,))``,
 a stream apart from the per-image streams ``spawn_key=(k,)`` of dataset
@@ -58,7 +62,8 @@ import orjson
 from synthgen.errors import InputFileError, UserError, check_number
 from synthgen.formats._common import bad_record as _problem
 from synthgen.formats.coco import bbox_from_xyxy, read_coco, structure_problems, write_bytes_atomic, xyxy_from_bbox
-from synthgen.jitter import DETECTION_KINDS, OUTCOMES, DetectorSpec, clear_of_thresholds, simulate_detections
+from synthgen.geometry import box_ioa
+from synthgen.jitter import DETECTION_KINDS, OUTCOMES, DetectorSpec, _group_max_iou, clear_of_thresholds, simulate_detections
 
 __all__ = ["SIDECAR_FORMAT", "JITTER_STREAM", "jitter_dataset", "write_jitter_outputs", "jitter_files", "truth_path_for"]
 
@@ -72,7 +77,7 @@ _EDGE_SLACK = 1e-6
 
 
 def _parse(coco, source: str, keep_inside: bool):
-    """Arrays of the non-crowd ground truth; raises InputFileError for malformed input."""
+    """Arrays of the non-crowd ground truth and the crowd boxes; raises InputFileError for malformed input."""
     for record, rule, value in structure_problems(coco):
         raise _problem(source, record, rule, value)
     images = coco["images"]
@@ -92,7 +97,7 @@ def _parse(coco, source: str, keep_inside: bool):
     known = set(cat_ids)
     seen = set()
     keep = []
-    crowd = 0
+    crowd = []
     for i, a in enumerate(coco["annotations"]):
         rec = f"annotations[{i}] (id {a['id']})"
         if a["id"] in seen:
@@ -106,7 +111,7 @@ def _parse(coco, source: str, keep_inside: bool):
         if not (all(math.isfinite(v) for v in (x, y, w, h)) and w > 0 and h > 0):
             raise _problem(source, rec, "'bbox' must be finite with width and height > 0", a["bbox"])
         if a.get("iscrowd", 0) == 1:
-            crowd += 1
+            crowd.append(a)
             continue
         if keep_inside:
             W, H = sizes[index_of[a["image_id"]]]
@@ -126,7 +131,11 @@ def _parse(coco, source: str, keep_inside: bool):
         boxes[:, 1::2] = np.clip(boxes[:, 1::2], 0.0, sizes[image, 1][:, None])
     labels = np.array([a["category_id"] for a in keep], dtype=np.int64)
     ids = np.array([a["id"] for a in keep], dtype=np.int64)
-    return boxes, labels, image, ids, sizes, np.array(sorted(known), dtype=np.int64), crowd
+    ignore = (
+        xyxy_from_bbox([a["bbox"] for a in crowd]).reshape(-1, 4),
+        np.array([index_of[a["image_id"]] for a in crowd], dtype=np.int64),
+    )
+    return boxes, labels, image, ids, sizes, np.array(sorted(known), dtype=np.int64), ignore
 
 
 #: The DetectorSpec ranges whose ends :func:`clear_spec` moves off COCO's thresholds.
@@ -197,14 +206,15 @@ def jitter_dataset(
         A bad seed.
     """
     check_number("seed", seed, lo=0, integer=True)
-    boxes, labels, image, ids, sizes, classes, crowd = _parse(coco, source, spec.keep_inside)
+    boxes, labels, image, ids, sizes, classes, ignore = _parse(coco, source, spec.keep_inside)
     if spec.relabel > 0 and len(classes) < 2:
         raise UserError(f"{source}: relabelling needs at least 2 categories (got {classes.tolist()})")
     if spec.background > 0 and len(classes) == 0:
         raise UserError(f"{source}: background boxes need at least one category (got none)")
     spec, nudged = clear_spec(spec)
     rng = np.random.Generator(np.random.PCG64(np.random.SeedSequence(int(seed), spawn_key=(JITTER_STREAM,))))
-    det = simulate_detections(boxes, labels, sizes, rng=rng, spec=spec, image=image, classes=classes)
+    det = simulate_detections(boxes, labels, sizes, rng=rng, spec=spec, image=image, classes=classes, ignore=ignore)
+    on_crowd = _group_max_iou(det.boxes, det.image, np.full(len(det), -1), ignore[0], ignore[1], box_ioa)
 
     image_ids = [im["id"] for im in coco["images"]]
     bboxes = bbox_from_xyxy(det.boxes)
@@ -226,6 +236,7 @@ def jitter_dataset(
             "gt_id": int(ids[src]) if src >= 0 else None,
             "iou": _num(det.iou[i]),
             "other_iou": float(det.other_iou[i]),
+            "crowd_overlap": float(on_crowd[i]),
         })
     truth = [
         {"gt_id": int(ids[g]), "image_id": image_ids[int(image[g])], "category_id": int(labels[g]),
@@ -239,12 +250,12 @@ def jitter_dataset(
     summary = {
         "images": len(image_ids),
         "ground_truth": len(ids),
-        "ignored_crowd": crowd,
+        "ignored_crowd": len(ignore[1]),
         "predictions": len(det),
         "kinds": {k: int((det.kind == k).sum()) for k in DETECTION_KINDS},
         "outcomes": {k: int((det.outcome == k).sum()) for k in OUTCOMES},
         "iou": iou_ranges,
-        "ambiguous": int(((det.source >= 0) & (det.other_iou >= 0.5)).sum()),
+        "ambiguous": int(((det.source >= 0) & ((det.other_iou >= 0.5) | (on_crowd >= 0.5))).sum()),
         "background_shortfall": int(det.background_shortfall),
         "nudged": nudged,
     }

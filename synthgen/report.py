@@ -53,6 +53,10 @@ A prediction is one of :data:`PREDICTION_KINDS`.  With a truth sidecar written
 by ``synthgen jitter`` the kind is read from it (:func:`read_truth_sidecar`);
 otherwise :func:`classify_predictions` decides by a greedy match at IoU 0.5.
 
+Ignore regions (annotations with ``iscrowd`` 1) are drawn solid in grey, not
+in their category's colour, and are left out of the object counts, the zoom
+crops and the statistics.
+
 Statistics
 ----------
 :func:`dataset_stats` summarises a COCO dict as plain JSON-ready values,
@@ -75,7 +79,7 @@ from pathlib import Path
 import numpy as np
 
 from synthgen.errors import InputFileError, UserError, require_extra
-from synthgen.geometry import as_boxes, pairwise_iou
+from synthgen.geometry import as_boxes, pairwise_ioa, pairwise_iou
 
 __all__ = [
     "CATEGORY_COLOURS",
@@ -114,8 +118,9 @@ CATEGORY_COLOURS: tuple[tuple[int, int, int], ...] = (
     (187, 102, 170),  # mauve (333)
 )
 
-#: What a prediction is: the names ``synthgen jitter`` uses for its simulated detections.
-PREDICTION_KINDS = ("true_positive", "duplicate", "localization", "wrong_class", "background")
+#: What a prediction is: the names ``synthgen jitter`` uses for its simulated detections, and
+#: ``ignored`` for one that COCO evaluation matches to an ignore region (neither true nor false).
+PREDICTION_KINDS = ("true_positive", "duplicate", "localization", "wrong_class", "background", "ignored")
 
 #: Prediction outline colours by kind, RGB; drawn dashed.
 PREDICTION_COLOURS: dict[str, tuple[int, int, int]] = {
@@ -124,6 +129,7 @@ PREDICTION_COLOURS: dict[str, tuple[int, int, int]] = {
     "localization": (0, 170, 255),  # azure
     "wrong_class": (255, 40, 120),  # rose
     "background": (140, 80, 230),  # violet
+    "ignored": (185, 185, 185),  # light grey, like the ignore regions
 }
 
 _KIND_LABELS = {
@@ -132,6 +138,7 @@ _KIND_LABELS = {
     "localization": "localization error",
     "wrong_class": "wrong class",
     "background": "background",
+    "ignored": "on an ignore region",
 }
 
 #: COCO size ranges by the ground truth's ``area`` in px^2, both ends inclusive
@@ -471,11 +478,14 @@ def classify_predictions(coco: Mapping, preds: Predictions, *, iou: float = 0.5,
     order, as the COCO evaluation does; REFERENCE.md: COCO-style AP).  Each
     takes the free ground truth of its own class with the highest IoU
     ``>= iou`` (among equal IoUs the later annotation, as pycocotools does)
-    and is a ``true_positive``; otherwise it is a ``duplicate`` when
-    a taken box of its class has IoU ``>= iou``, ``wrong_class`` when a box of
-    another class has IoU ``>= iou``, ``localization`` when a box of its class
-    has IoU in ``[near, iou)``, and ``background`` otherwise.  Crowd
-    annotations are left out; there is no cap on detections per image.
+    and is a ``true_positive``; otherwise it is ``ignored`` when an ignore
+    region (``iscrowd`` 1) of its class covers at least ``iou`` of its own box
+    area (COCO's overlap with a crowd region; the COCO evaluation counts such a
+    detection neither way), a ``duplicate`` when a taken box of its class has
+    IoU ``>= iou``, ``wrong_class`` when a box of another class has IoU
+    ``>= iou``, ``localization`` when a box of its class has IoU in ``[near,
+    iou)``, and ``background`` otherwise.  There is no cap on detections per
+    image.
 
     Parameters
     ----------
@@ -508,7 +518,9 @@ def classify_predictions(coco: Mapping, preds: Predictions, *, iou: float = 0.5,
         p_idx = np.flatnonzero(preds.image_id == image_id)
         p_idx = p_idx[np.argsort(-preds.score[p_idx], kind="stable")]
         g_idx = np.flatnonzero((gt_img == image_id) & usable)
+        c_idx = np.flatnonzero((gt_img == image_id) & crowd)
         ious = pairwise_iou(preds.boxes[p_idx], gt_boxes[g_idx])  # (P_i, G_i)
+        on_crowd = pairwise_ioa(preds.boxes[p_idx], gt_boxes[c_idx]) >= iou  # (P_i, C_i)
         taken = np.zeros(len(g_idx), dtype=bool)
         for row, p in enumerate(p_idx):
             same = gt_cat[g_idx] == preds.category_id[p]
@@ -519,6 +531,8 @@ def classify_predictions(coco: Mapping, preds: Predictions, *, iou: float = 0.5,
                 best = len(score) - 1 - int(np.argmax(score))  # the last of equal IoUs
                 taken[best] = True
                 kinds[p] = "true_positive"
+            elif (on_crowd[row] & (gt_cat[c_idx] == preds.category_id[p])).any():
+                kinds[p] = "ignored"
             elif (same & (v >= iou)).any():
                 kinds[p] = "duplicate"
             elif (~same & (v >= iou)).any():
@@ -813,6 +827,7 @@ class _Overlay:
     boxes: np.ndarray  # (N, 4) truth, xyxy
     image_id: np.ndarray  # (N,)
     category_id: np.ndarray  # (N,)
+    crowd: np.ndarray  # (N,) bool: an ignore region (iscrowd 1)
     colours: np.ndarray  # (N, 3) uint8
     area: np.ndarray  # (N,) the annotation's area, or its box's where it has none
     category_names: dict
@@ -822,10 +837,11 @@ class _Overlay:
 
     @classmethod
     def build(cls, coco: Mapping, predictions: Predictions | None, missed=None) -> _Overlay:
-        boxes, img, cat, _, anns = _truth_arrays(coco)
+        boxes, img, cat, crowd, anns = _truth_arrays(coco)
         cats = sorted(coco.get("categories", []), key=lambda c: c["id"])
         order = {c["id"]: i for i, c in enumerate(cats)}
-        colours = np.array([_category_colour(order.get(int(c), len(order))) for c in cat], dtype=np.uint8)
+        colours = np.array([_MUTED if is_crowd else _category_colour(order.get(int(c), len(order)))
+                            for c, is_crowd in zip(cat, crowd)], dtype=np.uint8)
         box_area = (boxes[:, 2] - boxes[:, 0]) * (boxes[:, 3] - boxes[:, 1])
         area = np.array([float(a["area"]) if _num(a.get("area")) and a["area"] > 0 else b
                          for a, b in zip(anns, box_area)])
@@ -836,7 +852,7 @@ class _Overlay:
         if missed is not None:
             missed_flags = np.array([a.get("id") in missed for a in anns], dtype=bool)
         return cls(
-            boxes, img, cat, colours.reshape(-1, 3), area, {c["id"]: c["name"] for c in cats},
+            boxes, img, cat, crowd, colours.reshape(-1, 3), area, {c["id"]: c["name"] for c in cats},
             predictions, None if pred_colours is None else pred_colours.reshape(-1, 3), missed_flags,
         )
 
@@ -866,8 +882,12 @@ def _render_tile(ds: Dataset, image: Mapping, overlay: _Overlay, scale: float, s
     pix, sx, sy = _scaled(_load_image(ds, image), scale)
     image_id = int(image["id"])
     boxes, colours, dashed = overlay.for_image(image_id)
-    n_obj = int(np.count_nonzero(overlay.image_id == image_id))
+    here = overlay.image_id == image_id
+    n_obj = int(np.count_nonzero(here & ~overlay.crowd))
     caption = f"id {image_id} · {n_obj} object{'s' if n_obj != 1 else ''}"
+    n_ignored = int(np.count_nonzero(here & overlay.crowd))
+    if n_ignored:
+        caption += f" · {n_ignored} ignored"
     if show_factor and scale != 1:
         caption += f" · x{scale:g}" if scale > 1 else f" · x{scale:.2f}"
     p = overlay.predictions
@@ -920,7 +940,7 @@ def _enlarged_crop(img: np.ndarray, centre: tuple[float, float], z: int, side: i
 def _zoom_crops(ds: Dataset, chosen, overlay: _Overlay, tile_scales: dict, count: int, side: int = _ZOOM_SIDE):
     """Enlarged crops of the smallest objects of the chosen images: (pixels, line 1, line 2, Placement)."""
     ids = [int(im["id"]) for im in chosen]
-    sel = np.flatnonzero(np.isin(overlay.image_id, ids))
+    sel = np.flatnonzero(np.isin(overlay.image_id, ids) & ~overlay.crowd)
     if sel.size == 0 or count <= 0:
         return []
     b = overlay.boxes[sel]
@@ -1069,8 +1089,11 @@ def contact_sheet(
     # Legend: the categories present in these images, then the prediction kinds present
     probe = ImageDraw.Draw(Image.new("RGB", (8, 8)))
     cats = sorted(ds.coco.get("categories", []), key=lambda c: c["id"])
-    present = set(overlay.category_id[np.isin(overlay.image_id, list(auto))].tolist())
+    shown = np.isin(overlay.image_id, list(auto))
+    present = set(overlay.category_id[shown & ~overlay.crowd].tolist())
     cat_items = [(c["name"], _category_colour(i), False) for i, c in enumerate(cats) if c["id"] in present]
+    if (shown & overlay.crowd).any():
+        cat_items.append(("ignore region", _MUTED, False))
     truth_label = "truth (solid):" if predictions is not None else "categories:"
     if len(cats) > len(CATEGORY_COLOURS):
         truth_label = truth_label[:-1] + f" (colours repeat after {len(CATEGORY_COLOURS)}):"
@@ -1183,8 +1206,12 @@ def _objects_per_image(image_ids: np.ndarray, ann_image_ids: np.ndarray) -> np.n
 
 
 def _object_facts(coco: Mapping) -> dict:
-    """Per-object arrays the statistics and figures are built from."""
+    """Per-object arrays the statistics and figures are built from (objects only; ``crowd`` counts the ignore regions)."""
     boxes, img, cat, crowd, anns = _truth_arrays(coco)
+    keep = ~crowd
+    n_crowd = int(crowd.sum())
+    boxes, img, cat = boxes[keep], img[keep], cat[keep]
+    anns = [a for a, k in zip(anns, keep.tolist()) if k]
     wh = boxes[:, 2:] - boxes[:, :2]
     longer = wh.max(axis=1) if len(boxes) else np.zeros(0)
     has_area = np.array([_num(a.get("area")) for a in anns], dtype=bool)
@@ -1196,7 +1223,7 @@ def _object_facts(coco: Mapping) -> dict:
     trunc = [f.get("truncated") for f in facts]
     trunc_known = np.array([isinstance(t, bool) for t in trunc], dtype=bool)
     return {
-        "boxes": boxes, "image_id": img, "category_id": cat, "crowd": crowd,
+        "boxes": boxes, "image_id": img, "category_id": cat, "crowd": n_crowd,
         "longer": longer, "area": area, "area_from_field": has_area,
         "visible_fraction": vis,
         "truncated": np.array([bool(t) for t in trunc], dtype=bool), "truncated_known": trunc_known,
@@ -1285,7 +1312,8 @@ def dataset_stats(coco: Mapping, manifest: Mapping | None = None) -> dict:
     Returns
     -------
     dict
-        ``images``, ``objects``, ``objects_per_image`` (min/median/max/mean),
+        ``images``, ``objects``, ``ignore_regions`` (annotations with
+        ``iscrowd`` 1, left out of everything else), ``objects_per_image`` (min/median/max/mean),
         ``per_category`` (id, name, count, in id order), ``size`` (quantiles of
         the annotated box's longer side, px), ``area_ranges`` (COCO small /
         medium / large counts by the ``area`` field, both ends inclusive, so an
@@ -1359,14 +1387,15 @@ def dataset_stats(coco: Mapping, manifest: Mapping | None = None) -> dict:
     size = None
     if len(f["longer"]):
         size = _quantiles(f["longer"]) | {"measure": "longer side of the annotated box, px"}
-    if f["crowd"].any():
-        notes.append(f"{int(f['crowd'].sum())} crowd annotations (iscrowd 1) are counted with the others")
+    if f["crowd"]:
+        notes.append(f"{f['crowd']} ignore regions (iscrowd 1) are left out of these statistics")
 
     settings, more = _settings(coco, manifest)
     notes.extend(more)
     return {
         "images": len(images),
         "objects": int(len(f["boxes"])),
+        "ignore_regions": f["crowd"],
         "objects_per_image": _quantiles(per_image) if len(per_image) else None,
         "per_category": per_category,
         "size": size,
@@ -1416,6 +1445,8 @@ def stats_tables(stats: Mapping, title: str = "dataset"):
     overview.add_column("value", justify="right")
     add(overview, "images", str(stats["images"]))
     add(overview, "objects", str(n_obj))
+    if stats.get("ignore_regions"):
+        add(overview, "ignore regions (iscrowd 1)", str(stats["ignore_regions"]))
     add(overview, "categories", str(len(stats["per_category"])))
     vf, mi, tr = stats.get("visible_fraction"), stats.get("max_iou"), stats.get("truncated")
     if vf:

@@ -1,11 +1,17 @@
-"""One image: sample objects from the config, place them, draw them in z-order, measure them.
+"""One image: sample objects from the config, place them, judge what shows, draw them in z-order, annotate them.
 
-The composer draws objects bottom to top.  Occlusion is measured on the
-supersampled coverage (see :class:`synthgen.shapes.Coverage`): a sub-pixel
-sample of an object is hidden when any object drawn later covers the same
-sample.  From that come, per object, the visible coverage, the visible
-fraction, the visible box and the pixel box (box kinds are defined in
-:mod:`synthgen.geometry`).
+Occlusion is measured on the supersampled coverage (see
+:class:`synthgen.shapes.Coverage`): a sub-pixel sample of an object is hidden
+when any object drawn later covers the same sample (:mod:`synthgen.occlusion`).
+From that come, per object, the visible coverage, the visible fraction, the
+visible box and the pixel box (box kinds are defined in :mod:`synthgen.geometry`).
+The composer first walks the objects from the top down and judges each
+against the annotation rules (``objects.min_visible``, ``objects.min_area``):
+an object that passes is annotated; one that fails but still shows becomes an
+ignore region (:class:`IgnoreRegions`, COCO ``iscrowd`` 1), or with
+``objects.dropped = "erase"`` is left out of the picture; one that shows no
+sample is hidden and not drawn.  Then it paints what shows, bottom to top, so
+every pixel an object changes lies in an annotation or an ignore region.
 
 Randomness: :func:`image_rng` gives image ``k`` its own generator from
 ``SeedSequence(seed, spawn_key=(k,))``; :func:`compose` spawns one child per
@@ -19,18 +25,21 @@ Difficulty dials handled here (placement itself is in :mod:`synthgen.layout`):
   ``objects.pair_iou`` otherwise); the achieved box IoU is recorded as
   ``pair_iou`` on both, with ``pair_id``.
 * ``objects.occlusion``: an occluder (an extra, filled, annotated object
-  drawn above every placed object; never a ring unless rings are the only
-  kind) is moved along a random direction toward its target until the share
-  of the target's sub-pixel samples it covers lies in the range
-  (:func:`place_occluder`).  Target and occluder share an ``occlusion_id``;
-  the target records ``occlusion_goal`` and ``occluder_hides`` (the share its
-  own occluder covers), the occluder ``occluder: true``; the measured
-  ``visible_fraction`` counts every object above the target.
+  drawn above every placed object, with a size from ``objects.size``; never a
+  ring unless rings are the only kind) is moved along a random direction
+  toward its target until the share of the target's sub-pixel samples it
+  covers lies in the range (:func:`place_occluder`); one too small to cover
+  enough even when centred is enlarged, up to the top of ``objects.size``.
+  Target and occluder share an ``occlusion_id``; the target records
+  ``occlusion_goal`` and ``occluder_hides`` (the share its own occluder
+  covers), the occluder ``occluder: true``; the measured ``visible_fraction``
+  counts every object above the target.
 * Clutter (:mod:`synthgen.clutter`) is drawn on the background before the
   objects, from its own random stream.
 * When a layout cannot place every requested object, the image's
   ``dropped["no_room"]`` counts them (so the manifest totals them); the
-  command line prints one warning line for the run.
+  command line prints one warning line for the run when more than a tenth of
+  its objects were dropped for any reason.
 """
 
 from __future__ import annotations
@@ -45,7 +54,8 @@ from synthgen import shapes as shapes_mod
 from synthgen.backgrounds import render_background
 from synthgen.clutter import render_clutter
 from synthgen.degrade import degrade_owned
-from synthgen.geometry import box_iou, clip_boxes, mask_box, pairwise_iou
+from synthgen.geometry import box_iou, clip_boxes, mask_box
+from synthgen.occlusion import SampleBuffer, patch_bounds, sample_bits_many
 from synthgen.shapes import (
     KINDS,
     Shape,
@@ -59,6 +69,7 @@ from synthgen.shapes import (
 
 __all__ = [
     "Scene",
+    "IgnoreRegions",
     "image_rng",
     "compose",
     "render_scene",
@@ -89,6 +100,23 @@ def luminance(rgb) -> np.ndarray:
 
 
 @dataclass(frozen=True, slots=True)
+class IgnoreRegions:
+    """Objects drawn with visible pixels that the annotation rules dropped: regions a detector is not scored on.
+
+    They become COCO annotations with ``iscrowd: 1`` (see the README's table of
+    what is annotated).  Same conventions as the fields of :class:`Scene`; each
+    fact dict also says ``ignored``: the rule that dropped the object
+    (``"min_visible"`` or ``"min_area"``).
+    """
+
+    boxes: np.ndarray = field(default_factory=lambda: np.zeros((0, 4)))
+    categories: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
+    areas: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    facts: tuple = ()
+    masks: tuple = ()
+
+
+@dataclass(frozen=True, slots=True)
 class Scene:
     """A composed image and its exact annotations.
 
@@ -108,7 +136,11 @@ class Scene:
         Support (coverage > 0) of each object's visible coverage, as a patch
         whose top-left pixel is ``(row0, col0)``; its tight box is the pixel box.
     info : dict
-        Image-level facts: background, degradations, dropped objects by reason.
+        Image-level facts: background, degradations, ``dropped`` (objects not
+        annotated, by reason) and ``ignored`` (how many of those are ignore
+        regions, by reason).
+    ignored : IgnoreRegions
+        Dropped objects that still show (``objects.dropped = "ignore"``).
     """
 
     image: np.ndarray
@@ -118,6 +150,7 @@ class Scene:
     facts: tuple
     masks: tuple
     info: dict = field(default_factory=dict)
+    ignored: IgnoreRegions = field(default_factory=IgnoreRegions)
 
 
 def image_rng(seed: int, index: int) -> np.random.Generator:
@@ -248,15 +281,28 @@ def _own(canvas: np.ndarray) -> np.ndarray:
 
 
 def _compose_on(image: np.ndarray, shapes, config, *, rng: np.random.Generator, styles=None, extras=None) -> Scene:
-    """:func:`compose_shapes` drawing on ``image`` (H, W, 3) uint8 itself, modified in place."""
+    """:func:`compose_shapes` drawing on ``image`` (H, W, 3) uint8 itself, modified in place.
+
+    Occlusion does not depend on colours, so it is settled first, from the top
+    object down (:func:`_measure`): which objects are annotated, which show
+    but are dropped, which are hidden.  Then the objects that show are painted
+    bottom to top (hidden ones have no visible sample and are not painted; with
+    ``objects.dropped = "erase"`` neither are dropped ones, and they hide
+    nothing below them), and annotated.
+    """
     if styles is None:
         styles = [dict(_FLAT) for _ in shapes]
     if extras is None:
         extras = [{} for _ in shapes]
-    drawn, pairs = _draw(image, shapes, styles, extras, config, rng)
-    _measure_occlusion(drawn, pairs)
-    kept, dropped = _annotate(drawn, len(shapes) - len(drawn), config)
-    return _assemble(image, kept, {"dropped": dropped})
+    height, width = image.shape[:2]
+    # Candidate fill colours for every object at once, shown or not: (N, 2, 8, 3).
+    cands = rng.uniform(0.0, 255.0, size=(len(shapes), 2, 8, 3))
+    lums = cands @ LUMA / 255.0  # (N, 2, 8)
+    measured = _measure(shapes, styles, extras, config, height, width)
+    shown = [d for d in measured if d.shown]
+    _paint(image, shown, cands, lums, config.objects.min_contrast)
+    kept, ignored, info = _annotate(measured, len(shapes) - len(measured), config)
+    return _assemble(image, kept, ignored, info)
 
 
 _FLAT = {"fill": "flat", "outline": False, "stroke": 0.0, "fill_angle": 0.0, "period": 4.0}
@@ -376,6 +422,7 @@ def place_occluder(
     *,
     samples: int = 4,
     stroke: float = 0.0,
+    max_size: float = math.inf,
 ) -> tuple[Shape, float] | None:
     """Move (and if needed enlarge) ``occluder`` so that it covers a share of ``target`` in ``hidden``.
 
@@ -385,7 +432,7 @@ def place_occluder(
     ``direction`` (radians, clockwise on screen from +x) from the target's
     centre; the distance is found by bisection, aiming at ``goal``.  When even
     a centred occluder covers less than ``goal``, it is enlarged by 1.5x up to
-    six times.
+    six times, never beyond ``max_size``.
 
     Parameters
     ----------
@@ -403,6 +450,9 @@ def place_occluder(
         Supersampling factor (``render.samples``).
     stroke : float
         The target's outline band, px (0 for filled).
+    max_size : float
+        Largest size (longer side of the exact box, px) the occluder may be
+        enlarged to; one given larger keeps its size.
 
     Returns
     -------
@@ -439,9 +489,9 @@ def place_occluder(
     occ = occluder
     best = share(occ, 0.0)
     for _ in range(6):
-        if best[1] >= goal:
+        if best[1] >= goal or occ.size >= max_size:
             break
-        occ = replace(occ, size=occ.size * 1.5)
+        occ = replace(occ, size=min(occ.size * 1.5, max_size))
         best = share(occ, 0.0)
     if best[1] <= goal:
         return _exact_share(best, xs_all, ys_all, stride)
@@ -496,7 +546,7 @@ def _add_occluders(shapes, styles, extras, config, rng: np.random.Generator):
     for k, t in enumerate(chosen.tolist()):
         got = place_occluder(
             shapes[t], occ_shapes[k], (lo, hi), float(goals[k]), float(angles[k]), height, width,
-            samples=config.render.samples, stroke=styles[t]["stroke"],
+            samples=config.render.samples, stroke=styles[t]["stroke"], max_size=spec.size[1],
         )
         if got is None:
             continue
@@ -512,28 +562,250 @@ def _add_occluders(shapes, styles, extras, config, rng: np.random.Generator):
     return shapes, styles, extras, {"occluders": placed, "missed": missed}
 
 
-# --------------------------------------------------------------------------- drawing
+# --------------------------------------------------------------------------- occlusion, from the top down
 
 
 @dataclass(slots=True)
 class _Drawn:
+    """One object on the canvas, as measured by :func:`_measure` (coverage only while it is shown)."""
+
     shape: Shape
     style: dict
-    cov: object  # synthgen.shapes.Coverage
     box: np.ndarray  # unclipped exact box (4,)
-    contrast: float
     extra: dict
-    visible: np.ndarray | None = None  # visible coverage, float32 (h, w)
+    index: int  # position in the list of shapes given (for its candidate colours)
+    full_cov: float  # coverage sum, px^2
+    vis_cov: float  # visible coverage sum, px^2
+    verdict: str | None  # None: annotated; else the rule that dropped it (a key of `dropped`)
+    shown: bool  # painted: some sample is visible, and it is not erased
+    cov: object = None  # synthgen.shapes.Coverage, kept for shown objects
+    visible: np.ndarray | None = None  # visible coverage, float32 (h, w), for shown objects
     sample_box: np.ndarray | None = None  # box of visible samples when occluded
-    inside: np.ndarray | None = None  # sub-sample mask of the whole patch, when already known
+    contrast: float = 0.0
+    alone: bool = False  # its patch meets no other object's patch
 
-    def inside_of(self, r0: int, c0: int, r1: int, c1: int) -> np.ndarray:
-        """``cov.inside(r0, c0, r1, c1)``, cut from the known whole-patch mask when there is one."""
-        if self.inside is None:
-            return self.cov.inside(r0, c0, r1, c1)
-        s = self.cov.samples
-        pr, pc = self.cov.row0, self.cov.col0
-        return self.inside[(r0 - pr) * s : (r1 - pr) * s, (c0 - pc) * s : (c1 - pc) * s]
+
+#: Shapes whose geometry :func:`_measure` holds at once.
+_MEASURE_CHUNK = 4096
+#: Patch pixels whose coverage :func:`_measure` computes together (bounds the coverage and sample masks held at once).
+_MEASURE_PIXELS = 1 << 21
+#: ... and at most this many times the canvas: once patches cover the canvas a few times over,
+#: the shapes below are mostly hidden, and the next run skips them before computing their coverage.
+_MEASURE_DEPTH = 2
+
+
+def _verdict(full_cov: float, vis_cov: float, spec) -> str | None:
+    """The annotation rule an object fails (a reason of ``dropped``), or None when it is annotated."""
+    if full_cov <= 0:  # too small to cover any sample: nothing of it is drawn
+        return "min_area"
+    if vis_cov <= 0:
+        return "hidden"
+    if vis_cov / full_cov < spec.min_visible:
+        return "min_visible"
+    if vis_cov < spec.min_area:
+        return "min_area"
+    return None
+
+
+def _measure(shapes, styles, extras, config, height: int, width: int) -> list:
+    """Visible coverage and verdict of every shape on the canvas, in draw order (one ``_Drawn`` each).
+
+    The objects are walked from the top down against a
+    :class:`synthgen.occlusion.SampleBuffer` of the samples covered by the
+    objects above.  An object that shows enters the buffer, so it hides what
+    lies below it; with ``objects.dropped = "erase"`` a dropped object does
+    not (it is not drawn), so an object below it is judged by what is drawn
+    above it in the final picture.  An object whose whole patch is covered
+    already is hidden without computing its coverage; the others' coverage is
+    computed a run of shapes at a time (:func:`_runs`) and dropped as soon as
+    an object turns out not to be shown.  So time and memory follow the
+    canvas and the objects that show, plus a small cost per object, however
+    many end hidden.
+
+    Within a run the objects go in levels (an object's level is one more than
+    the highest level of the objects above it whose patches meet its own), so
+    the patches of one level never meet and a level's small patches are
+    judged together (:meth:`synthgen.occlusion.SampleBuffer.visible_many`).
+    """
+    spec = config.objects
+    s = config.render.samples
+    erase = spec.dropped == "erase"
+    buffer = SampleBuffer(height, width, s)
+    level_map = np.zeros((height, width), dtype=np.int32)
+    walked = []
+    base = 1
+    for stop in range(len(shapes), 0, -_MEASURE_CHUNK):
+        chunk = range(stop - 1, max(0, stop - _MEASURE_CHUNK) - 1, -1)  # top first
+        geoms = dict(zip(chunk, shapes_mod._geoms([shapes[i] for i in chunk])))  # built in bulk, held per chunk
+        patches = {i: patch_bounds(geoms[i].box, height, width) for i in chunk}
+        on_canvas = [i for i in chunk if patches[i] is not None]
+        clear: tuple = (set(), set())
+        if stop == len(shapes) and stop <= _MEASURE_CHUNK:
+            # one chunk for the whole image: the patches that meet show what nothing hides or is hidden by
+            clear = _clear_sides(on_canvas, patches)
+        judged: dict = {}
+        for part in _runs(on_canvas, patches, min(_MEASURE_PIXELS, _MEASURE_DEPTH * height * width)):
+            base = _walk(part, shapes, styles, patches, geoms, buffer, level_map, base, judged, spec, erase, clear)
+        for i in chunk:
+            if patches[i] is None:  # off the canvas
+                continue
+            if i not in judged:
+                walked.append(_Drawn(shapes[i], styles[i], geoms[i].box, extras[i], i, 0.0, 0.0, "hidden", False))
+                continue
+            cov, visible, sample_box, full_cov, vis_cov, verdict, shown = judged[i]
+            d = _Drawn(shapes[i], styles[i], geoms[i].box, extras[i], i, full_cov, vis_cov, verdict, shown)
+            if shown:
+                d.cov, d.visible, d.sample_box, d.alone = cov, visible, sample_box, i in clear[0] and i in clear[1]
+            walked.append(d)
+    walked.reverse()
+    return walked
+
+
+def _clear_sides(order: list, patches: dict) -> tuple[set, set]:
+    """The shapes of ``order`` (top first) whose patch meets no patch above it, and those it meets none below.
+
+    From the pairs of patches that meet (:func:`_overlapping_pair_blocks`),
+    given up (empty sets, the safe answer) once the pairs outnumber
+    :data:`_CONTACT_PAIRS` per patch, so crowded scenes never pay for all their pairs.
+    """
+    r = np.array([patches[i] for i in order], dtype=np.int64).reshape(-1, 4)
+    boxes = r[:, [1, 0, 3, 2]]  # (col0, row0, col1, row1): xyxy of the pixel ranges
+    has_below = np.zeros(len(r), dtype=bool)  # pairs (a, b) with a < b: a lies above b
+    has_above = np.zeros(len(r), dtype=bool)
+    pairs = 0
+    for ii, jj in _overlapping_pair_blocks(boxes):
+        has_below[ii] = True
+        has_above[jj] = True
+        pairs += ii.size
+        if pairs > _CONTACT_PAIRS * len(r):
+            return set(), set()
+    return ({i for i, v in zip(order, has_above.tolist()) if not v},
+            {i for i, v in zip(order, has_below.tolist()) if not v})
+
+
+#: Pairs of meeting patches per patch up to which :func:`_clear_sides` looks at them.
+_CONTACT_PAIRS = 8
+
+
+def _runs(order: list, patches: dict, budget: int):
+    """Consecutive runs of ``order`` whose patches hold at most ``budget`` pixels (one shape at least)."""
+    run, pixels = [], 0
+    for i in order:
+        r0, c0, r1, c1 = patches[i]
+        area = (r1 - r0) * (c1 - c0)
+        if run and pixels + area > budget:
+            yield run
+            run, pixels = [], 0
+        run.append(i)
+        pixels += area
+    if run:
+        yield run
+
+
+def _walk(part, shapes, styles, patches, geoms, buffer, level_map, base: int, judged: dict, spec, erase: bool,
+          clear: tuple = (frozenset(), frozenset())) -> int:
+    """Judge the shapes ``part`` (top first) against ``buffer``; fill ``judged``; return the next free level.
+
+    Shapes whose patch is covered already are left out (hidden); the others'
+    coverage is computed together, then they are judged level by level.
+    ``clear`` holds the shapes whose patch meets no patch above it (nothing
+    can hide them: they are judged from their coverage) and those whose patch
+    meets none below (they need not enter the buffer).
+    """
+    height, width = level_map.shape
+    s = buffer.samples
+    free_above, free_below = clear
+    todo = [i for i in part if i in free_above or not buffer.hides(*patches[i])]
+    insides: list = []
+    edges: list = []
+    covs = shapes_mod.coverage_many(
+        [shapes[i] for i in todo], height, width, samples=s, strokes=[styles[i]["stroke"] for i in todo],
+        insides=insides, edges=edges, _geometry=[geoms[i] for i in todo],
+    )
+    covs = dict(zip(todo, covs))
+    samples = {i: m if e is None else e for i, m, e in zip(todo, insides, edges)}
+    del insides, edges
+    for i in todo:
+        if i in free_above and i in free_below:  # alone: no occlusion either way
+            judged[i] = _judge(covs[i], covs[i].values, None, False, spec, erase)
+    todo = [i for i in todo if i not in judged]
+    bits = dict(zip(todo, sample_bits_many([covs[i] for i in todo], [samples[i] for i in todo])))
+    del samples
+    if len(todo) < _BULK_WALK_MIN * 4:  # few shapes: one at a time, top first
+        levels = [[i] for i in todo]
+    else:
+        levels = []
+        for i in todo:  # top first: the level map holds the levels of the objects above
+            r0, c0, r1, c1 = patches[i]
+            view = level_map[r0:r1, c0:c1]
+            level = max(int(view.max()) + 1, base)
+            view[...] = level
+            while len(levels) <= level - base:
+                levels.append([])
+            levels[level - base].append(i)
+    for group in levels:
+        small = [i for i in group if covs[i].values.size <= _SMALL_PATCH] if len(group) >= _BULK_WALK_MIN else []
+        for i in group:
+            if not small or covs[i].values.size > _SMALL_PATCH:
+                if i in free_above:
+                    hides, (visible, sample_box) = False, (covs[i].values, None)
+                else:
+                    hides = buffer.hides(*patches[i])
+                    visible, sample_box = (None, None) if hides else buffer.visible(covs[i], bits[i])
+                judged[i] = _judge(covs[i], visible, sample_box, hides, spec, erase)
+                if judged[i][-1] and i not in free_below:
+                    buffer.cover(covs[i], bits[i])
+        if small:
+            results, hides, pixels = buffer.visible_many([covs[i] for i in small], [bits[i] for i in small])
+            for i, (visible, sample_box), hide in zip(small, results, hides.tolist()):
+                judged[i] = _judge(covs[i], visible, sample_box, hide, spec, erase)
+            buffer.cover_many(pixels, [judged[i][-1] for i in small])
+    return base + len(levels)
+
+
+def _judge(cov, visible, sample_box, hides: bool, spec, erase: bool):
+    """``(cov, visible, sample_box, full_cov, vis_cov, verdict, shown)`` of one object under the objects above it.
+
+    ``hides``: every sample of its patch was covered already (then ``visible``
+    is not looked at and the object is hidden).
+    """
+    if hides:
+        return cov, None, None, 0.0, 0.0, "hidden", False
+    full_cov = float(cov.values.sum())
+    vis_cov = full_cov if visible is cov.values else float(visible.sum())
+    verdict = _verdict(full_cov, vis_cov, spec)
+    return cov, visible, sample_box, full_cov, vis_cov, verdict, vis_cov > 0 and (verdict is None or not erase)
+
+
+#: From this many objects in a level, :func:`_measure` judges their small patches together.
+_BULK_WALK_MIN = 8
+
+
+def visible_box(exact: np.ndarray, sample_box: np.ndarray | None) -> np.ndarray | None:
+    """The visible box: the exact (clipped) box, tightened to the visible samples when occluded.
+
+    Parameters
+    ----------
+    exact : ndarray of shape (4,)
+        Exact box clipped to the canvas.
+    sample_box : ndarray of shape (4,) or None
+        Tight box of the visible sub-pixel sample cells; None when nothing hides
+        the object.
+
+    Returns
+    -------
+    ndarray of shape (4,) or None (when nothing is visible)
+    """
+    if sample_box is None:
+        return exact.copy()
+    out = np.concatenate([np.maximum(exact[:2], sample_box[:2]), np.minimum(exact[2:], sample_box[2:])])
+    if out[2] <= out[0] or out[3] <= out[1]:
+        return None
+    return out
+
+
+
+# --------------------------------------------------------------------------- painting
 
 
 def _pick_colours(under_lum: float, min_contrast: float, cands: np.ndarray, lum: np.ndarray):
@@ -568,40 +840,30 @@ def _pick_colours(under_lum: float, min_contrast: float, cands: np.ndarray, lum:
 _SMALL_PATCH = 256
 
 
-def _draw(canvas: np.ndarray, shapes, styles, extras, config, rng: np.random.Generator):
-    """Draw shapes bottom to top onto ``canvas`` (modified in place); return what was drawn.
+def _paint(canvas: np.ndarray, drawn, cands: np.ndarray, lums: np.ndarray, min_contrast: float) -> None:
+    """Paint the shown objects ``drawn`` bottom to top onto ``canvas`` (in place); set their ``contrast``.
 
-    Returns the drawn objects (list of ``_Drawn``, in draw order) and, when
-    known, the pairs of them whose patches meet (else None).
+    ``cands`` (N, 2, 8, 3) and ``lums`` (N, 2, 8) are the candidate fill colours
+    of every shape given to the composer, indexed by ``_Drawn.index``.
 
-    Each shape's colours depend on the canvas under it as drawn so far, so a
-    shape is drawn after every earlier shape whose patch meets its own.  Many
-    small shapes are drawn in bulk: shapes are put in levels (a shape's level
+    Each shape's colours depend on the canvas under it as painted so far, so a
+    shape is painted after every earlier shape whose patch meets its own.  Many
+    small shapes are painted in bulk: shapes are put in levels (a shape's level
     is one more than the highest level of the earlier shapes whose patches it
     meets), the patches of one level never meet, and a level's small patches
     are read, coloured, blended and written back in one pass over their pixels
     with the same arithmetic as one shape at a time (:func:`_draw_one`,
     :func:`_draw_level`).
     """
-    height, width = canvas.shape[:2]
-    samples = config.render.samples
-    min_contrast = config.objects.min_contrast
-    # Candidate fill colours for every object at once, drawn or not: (N, 2, 8, 3).
-    cands = rng.uniform(0.0, 255.0, size=(len(shapes), 2, 8, 3))
-    lums = cands @ LUMA / 255.0  # (N, 2, 8)
-    # Coverage does not depend on the canvas: all patches at once (tiny shapes in bulk).
-    insides: list = []
-    geoms = shapes_mod._geoms(shapes)
-    covs = shapes_mod.coverage_many(
-        shapes, height, width, samples=samples, strokes=[st["stroke"] for st in styles], insides=insides,
-        _geometry=geoms,
-    )
-    live = [i for i, cov in enumerate(covs) if cov is not None]
+    if not drawn:
+        return
+    order = np.array([d.index for d in drawn])
+    cands, lums = cands[order], lums[order]  # by position in `drawn`
+    covs = [d.cov for d in drawn]
+    styles = [d.style for d in drawn]
     contrasts: dict = {}
-    pairs = None
-    if len(live) >= _BULK_DRAW_MIN:
-        groups, pairs = _levels(covs, live)
-        for group in groups:
+    if len(drawn) >= _BULK_DRAW_MIN:
+        for group in _levels(covs, canvas.shape[0], canvas.shape[1], [d.alone for d in drawn]):
             small = [i for i in group if covs[i].values.size <= _SMALL_PATCH]
             if len(small) < 2:
                 small = []
@@ -611,19 +873,13 @@ def _draw(canvas: np.ndarray, shapes, styles, extras, config, rng: np.random.Gen
             if small:
                 contrasts.update(_draw_level(canvas, small, covs, styles, cands, lums, min_contrast))
     else:
-        for i in live:
+        for i in range(len(drawn)):
             contrasts[i] = _draw_one(canvas, covs[i], styles[i], cands[i], lums[i], min_contrast)
-    # exact (unclipped) boxes, the values exact_box gives, built in one array
-    boxes = np.array([geoms[i].box for i in live], dtype=np.float64).reshape(-1, 4)
-    drawn = [
-        _Drawn(shape=shapes[i], style=styles[i], cov=covs[i], box=boxes[t], contrast=contrasts[i],
-               extra=extras[i], inside=insides[i])
-        for t, i in enumerate(live)
-    ]
-    return drawn, pairs
+    for i, d in enumerate(drawn):
+        d.contrast = contrasts[i]
 
 
-#: From this many shapes on, :func:`_draw` draws small patches in bulk.
+#: From this many shapes on, :func:`_paint` paints small patches in bulk.
 _BULK_DRAW_MIN = 32
 
 
@@ -675,27 +931,30 @@ def _draw_one(canvas, cov, style, cand, lum, min_contrast: float) -> float:
     return contrast
 
 
-def _levels(covs, live):
-    """The live shapes by drawing level, lowest first (lists of indices, in draw order within a level).
+def _levels(covs, height: int, width: int, alone) -> list:
+    """Positions of ``covs`` by painting level, lowest first (lists of positions, in order within a level).
 
-    Also returns the pairs ``(i, j)`` of positions in ``live`` whose patches meet
-    (from :func:`_overlapping_pairs`).
+    A level map of the canvas holds, per pixel, the level of the last patch
+    that met it; levels only grow along the painting order at any pixel, so the
+    highest level among the earlier patches that meet a patch is the map's
+    maximum over it.  Time follows the patches' total size, not the number of
+    pairs that meet.  A patch known to meet no other (``alone``, bool per
+    patch) is level 0 without looking.
     """
-    rects = np.array(
-        [(covs[i].col0, covs[i].row0, covs[i].col0 + covs[i].values.shape[1], covs[i].row0 + covs[i].values.shape[0])
-         for i in live],
-        dtype=np.int64,
-    ).reshape(-1, 4)
-    ii, jj = _overlapping_pairs(rects)  # positions in `live`, i < j
-    level = [0] * len(live)
-    order = np.argsort(jj, kind="stable")
-    for a, b in zip(ii[order].tolist(), jj[order].tolist()):  # by later shape: earlier levels are final
-        if level[a] + 1 > level[b]:
-            level[b] = level[a] + 1
-    groups: list = [[] for _ in range(max(level, default=-1) + 1)]
-    for pos, i in enumerate(live):
-        groups[level[pos]].append(i)
-    return groups, (ii, jj)
+    level_map = np.full((height, width), -1, dtype=np.int32)
+    groups: list = [[]]
+    for pos, cov in enumerate(covs):
+        if alone[pos]:
+            groups[0].append(pos)
+            continue
+        h, w = cov.values.shape
+        view = level_map[cov.row0 : cov.row0 + h, cov.col0 : cov.col0 + w]
+        level = int(view.max()) + 1
+        view[...] = level
+        if level == len(groups):
+            groups.append([])
+        groups[level].append(pos)
+    return groups
 
 
 def _draw_level(canvas, idx, covs, styles, cands, lums, min_contrast: float) -> dict:
@@ -800,29 +1059,23 @@ def _paint_pixels(fill, sel, kinds, seg, rr, cc, colours, idx, styles) -> None:
     fill[sel] = vals
 
 
-def _patch_rects(drawn) -> np.ndarray:
-    """Pixel rectangles of the coverage patches (N, 4) as ints (col0, row0, col1, row1)."""
-    rects = np.zeros((len(drawn), 4), dtype=np.int64)
-    for i, d in enumerate(drawn):
-        h, w = d.cov.values.shape
-        rects[i] = (d.cov.col0, d.cov.row0, d.cov.col0 + w, d.cov.row0 + h)
-    return rects
+# --------------------------------------------------------------------------- annotation
 
 
-def _overlapping_pairs(boxes: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Index pairs ``(i, j)``, ``i < j``, of boxes (N, 4) whose intersection has positive area.
+def _overlapping_pair_blocks(boxes: np.ndarray):
+    """Index pairs ``(i, j)``, ``i < j``, of boxes (N, 4) whose intersection has positive area, a block at a time.
 
-    Sorted by ``i`` then ``j``.  Boxes are sorted by ``x0``; a block of them is
-    tested only against the later boxes that start before the block's largest
-    ``x1``, so the work follows the number of near pairs, not N^2.
+    Yields ``(i, j)`` int arrays.  Boxes are sorted by ``x0``; a block of them
+    is tested only against the later boxes that start before the block's
+    largest ``x1``, so the work follows the number of near pairs, not N^2, and
+    memory one block's pairs.
     """
     n = len(boxes)
     if n < 2:
-        return np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.int64)
+        return
     order = np.argsort(boxes[:, 0], kind="stable")
     b = boxes[order]
     x0, y0, x1, y1 = b[:, 0], b[:, 1], b[:, 2], b[:, 3]
-    ii, jj = [], []
     step = 128
     for s0 in range(0, n, step):
         s1 = min(n, s0 + step)
@@ -839,273 +1092,74 @@ def _overlapping_pairs(boxes: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         r, c = r + s0, c + s0
         keep = c > r
         a, z = order[r[keep]], order[c[keep]]
-        ii.append(np.minimum(a, z))
-        jj.append(np.maximum(a, z))
-    if not ii:
-        return np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.int64)
-    i, j = np.concatenate(ii), np.concatenate(jj)
-    k = np.lexsort((j, i))
-    return i[k], j[k]
+        yield np.minimum(a, z), np.maximum(a, z)
 
 
-def _above(rects: np.ndarray, pairs=None) -> list:
-    """For each patch, the indices of the later patches that overlap it (list of int arrays).
+def _full_boxes(drawn, width: int, height: int) -> np.ndarray:
+    """Exact boxes (N, 4) of ``drawn`` clipped to the canvas: for a shape cut by the border, the tight box of its part on the canvas."""
+    raw = np.array([d.box for d in drawn], dtype=np.float64).reshape(-1, 4)
+    full = clip_boxes(raw, width, height)
+    cut = (raw[:, 0] < 0) | (raw[:, 1] < 0) | (raw[:, 2] > width) | (raw[:, 3] > height)
+    for z in np.flatnonzero(cut).tolist():
+        # the tight box of the part on the canvas, which for a rotated shape can be smaller than its full box clipped
+        part = clipped_box(drawn[z].shape, height, width)
+        if part is not None:
+            full[z] = part
+    return full
 
-    ``pairs``: the result of ``_overlapping_pairs(rects)`` when the caller has it already.
+
+#: Reasons an object is dropped; those that can leave visible pixels become ignore regions.
+_DROP_REASONS = ("outside", "hidden", "min_visible", "min_area")
+_IGNORABLE = ("min_visible", "min_area")
+
+
+def _annotate(measured, outside: int, config):
+    """Annotations of the objects that pass the rules and ignore regions of the shown rest; counts of the drops.
+
+    Returns ``(kept, ignored, info)``: lists of ``(box, area, facts, mask)`` in
+    draw order, and ``{"dropped": {reason: n}, "ignored": {reason: n}}``.
     """
-    ii, jj = _overlapping_pairs(rects) if pairs is None else pairs
-    bounds = np.searchsorted(ii, np.arange(len(rects) + 1))
-    return [jj[bounds[i] : bounds[i + 1]] for i in range(len(rects))]
-
-
-def _point_samples(cov, rr: np.ndarray, cc: np.ndarray) -> np.ndarray:
-    """Sub-sample inside-tests of canvas pixels ``(rr, cc)`` (K,) -> bool (K, s, s) [row, col].
-
-    The same sample positions and point test as :meth:`synthgen.shapes.Coverage.inside`.
-    """
-    s = cov.samples
-    offs = (np.arange(s) + 0.5) / s
-    xs = cc.astype(np.float64)[:, None, None] + offs[None, None, :]  # (K, 1, s)
-    ys = rr.astype(np.float64)[:, None, None] + offs[None, :, None]  # (K, s, 1)
-    # The region behind Coverage.inside (private to shapes.py): the same exact point test.
-    region = shapes_mod._region(cov.shape, cov.stroke)
-    return np.broadcast_to(region.contains(xs, ys), (rr.size, s, s))
-
-
-class _Cover:
-    """What one object above covers of a lower object's patch, by pixel class."""
-
-    __slots__ = ("cov", "r0", "c0", "full", "part")
-
-    def __init__(self, cov, r0, c0, full, part):
-        self.cov, self.r0, self.c0, self.full, self.part = cov, r0, c0, full, part
-
-
-def _visible_samples(d: _Drawn, covers, rr: np.ndarray, cc: np.ndarray) -> np.ndarray:
-    """Visible sub-samples of ``d`` at its local pixels ``(rr, cc)``: bool (K, s, s).
-
-    A sample is visible when it is inside ``d`` and inside none of ``covers``.
-    Pixels a shape covers fully or not at all are settled from its coverage
-    values; only partly covered pixels are point-tested.
-    """
-    s = d.cov.samples
-    v = d.cov.values[rr, cc]
-    R, C = rr + d.cov.row0, cc + d.cov.col0
-    vis = np.zeros((rr.size, s, s), dtype=bool)
-    vis[v >= 1] = True
-    part = (v > 0) & (v < 1)
-    if part.any():
-        vis[part] = _point_samples(d.cov, R[part], C[part])
-    for u in covers:
-        h, w = u.full.shape
-        lr, lc = rr - u.r0, cc - u.c0
-        inside = (lr >= 0) & (lr < h) & (lc >= 0) & (lc < w)
-        if not inside.any():
-            continue
-        k = np.flatnonzero(inside)
-        full = u.full[lr[k], lc[k]]
-        vis[k[full]] = False
-        kp = k[u.part[lr[k], lc[k]]]
-        if kp.size:
-            vis[kp] &= ~_point_samples(u.cov, R[kp], C[kp])
-    return vis
-
-
-def _occlude(d: _Drawn, ups) -> None:
-    """Visible coverage and visible-sample box of ``d`` under the drawn objects ``ups``."""
-    v = d.cov.values
-    h, w = v.shape
-    s = d.cov.samples
-    ss = s * s
-    pr0, pc0 = d.cov.row0, d.cov.col0
-    full = np.zeros((h, w), dtype=bool)
-    anypart = np.zeros((h, w), dtype=bool)
-    covers = []
-    for u in ups:
-        uh, uw = u.cov.values.shape
-        ur0, uc0 = u.cov.row0, u.cov.col0
-        r0, c0 = max(pr0, ur0), max(pc0, uc0)
-        r1, c1 = min(pr0 + h, ur0 + uh), min(pc0 + w, uc0 + uw)
-        uv = u.cov.values[r0 - ur0 : r1 - ur0, c0 - uc0 : c1 - uc0]
-        uf = uv >= 1
-        up = (uv > 0) & ~uf
-        full[r0 - pr0 : r1 - pr0, c0 - pc0 : c1 - pc0] |= uf
-        anypart[r0 - pr0 : r1 - pr0, c0 - pc0 : c1 - pc0] |= up
-        covers.append(_Cover(u.cov, r0 - pr0, c0 - pc0, uf, up))
-    own = v > 0
-    gone = own & full
-    mixed = own & ~full & anypart
-    if not (gone.any() or mixed.any()):
-        d.visible = v
-        return
-    own_count = np.rint(v * ss).astype(np.int32)
-    hidden = np.where(gone, own_count, 0)
-    if mixed.any():
-        rr, cc = np.nonzero(mixed)
-        seen = _visible_samples(d, covers, rr, cc).sum(axis=(1, 2), dtype=np.int32)
-        hidden[rr, cc] = own_count[rr, cc] - seen
-    if not hidden.any():
-        d.visible = v
-        return
-    vis = v - hidden.astype(np.float32) / ss
-    np.clip(vis, 0.0, 1.0, out=vis)
-    d.visible = vis
-    # Box of the visible samples: only the outermost visible pixel rows and
-    # columns can hold its edges, so only they are sampled.
-    support = vis > 0
-    rows = np.flatnonzero(support.any(axis=1))
-    if rows.size == 0:
-        d.sample_box = None
-        return
-    cols = np.flatnonzero(support.any(axis=0))
-    # The outermost visible pixel column on each side and row on each side, sampled in one pass.
-    left, right, top, bottom = cols[0], cols[-1], rows[0], rows[-1]
-    r_l, r_r = np.flatnonzero(support[:, left]), np.flatnonzero(support[:, right])
-    c_t, c_b = np.flatnonzero(support[top, :]), np.flatnonzero(support[bottom, :])
-    rr = np.concatenate([r_l, r_r, np.full(c_t.size, top), np.full(c_b.size, bottom)])
-    cc = np.concatenate([np.full(r_l.size, left), np.full(r_r.size, right), c_t, c_b])
-    seen = _visible_samples(d, covers, rr, cc)  # (K, s, s)
-    a, b, c = r_l.size, r_l.size + r_r.size, r_l.size + r_r.size + c_t.size
-    j_left = np.flatnonzero(seen[:a].any(axis=(0, 1)))[0]
-    j_right = np.flatnonzero(seen[a:b].any(axis=(0, 1)))[-1]
-    i_top = np.flatnonzero(seen[b:c].any(axis=(0, 2)))[0]
-    i_bottom = np.flatnonzero(seen[c:].any(axis=(0, 2)))[-1]
-    scale = 1.0 / s
-    d.sample_box = np.array(
-        [
-            pc0 + (left * s + j_left) * scale,
-            pr0 + (top * s + i_top) * scale,
-            pc0 + (right * s + j_right + 1) * scale,
-            pr0 + (bottom * s + i_bottom + 1) * scale,
-        ],
-        dtype=np.float64,
-    )
-
-
-#: Patches up to this many pixels are occluded by testing all their samples at once
-#: (fewer calls); bigger ones test only the pixels that two shapes cover in part.
-_SMALL_OCCLUDED = 64
-
-
-def _occlude_small(d: _Drawn, ups) -> None:
-    """:func:`_occlude` for a small patch: every sample of ``d`` against every object above."""
-    v = d.cov.values
-    h, w = v.shape
-    s = d.cov.samples
-    pr0, pc0 = d.cov.row0, d.cov.col0
-    own = d.inside_of(pr0, pc0, pr0 + h, pc0 + w)  # (h s, w s)
-    occ = np.zeros_like(own)
-    for u in ups:
-        uh, uw = u.cov.values.shape
-        r0, c0 = max(pr0, u.cov.row0), max(pc0, u.cov.col0)
-        r1, c1 = min(pr0 + h, u.cov.row0 + uh), min(pc0 + w, u.cov.col0 + uw)
-        occ[(r0 - pr0) * s : (r1 - pr0) * s, (c0 - pc0) * s : (c1 - pc0) * s] |= u.inside_of(r0, c0, r1, c1)
-    seen = own & ~occ
-    lost = (own & occ).reshape(h, s, w, s).sum(axis=(1, 3), dtype=np.int32)
-    if not lost.any():
-        d.visible = v
-        return
-    vis = v - lost.astype(np.float32) / (s * s)
-    np.clip(vis, 0.0, 1.0, out=vis)
-    d.visible = vis
-    d.sample_box = mask_box(seen, origin=(pc0, pr0), scale=1.0 / s)
-
-
-def _measure_occlusion(drawn, pairs=None) -> None:
-    """Fill in each drawn object's visible coverage from the samples of the objects above it."""
-    if not drawn:
-        return
-    for d, above in zip(drawn, _above(_patch_rects(drawn), pairs)):
-        if above.size == 0:
-            d.visible = d.cov.values
-        elif d.cov.values.size <= _SMALL_OCCLUDED:
-            _occlude_small(d, [drawn[j] for j in above.tolist()])
-        else:
-            _occlude(d, [drawn[j] for j in above.tolist()])
-
-
-def visible_box(exact: np.ndarray, sample_box: np.ndarray | None) -> np.ndarray | None:
-    """The visible box: the exact (clipped) box, tightened to the visible samples when occluded.
-
-    Parameters
-    ----------
-    exact : ndarray of shape (4,)
-        Exact box clipped to the canvas.
-    sample_box : ndarray of shape (4,) or None
-        Tight box of the visible sub-pixel sample cells; None when nothing hides
-        the object.
-
-    Returns
-    -------
-    ndarray of shape (4,) or None (when nothing is visible)
-    """
-    if sample_box is None:
-        return exact.copy()
-    out = np.concatenate([np.maximum(exact[:2], sample_box[:2]), np.minimum(exact[2:], sample_box[2:])])
-    if out[2] <= out[0] or out[3] <= out[1]:
-        return None
-    return out
-
-
-def _annotate(drawn, outside: int, config):
-    """Per-object facts for the objects that pass the annotation rules; counts of the rest."""
     width, height = config.canvas.width, config.canvas.height
     spec = config.objects
-    dropped = {"outside": outside, "hidden": 0, "min_visible": 0, "min_area": 0}
-    full_boxes = clip_boxes(np.array([d.box for d in drawn]).reshape(-1, 4), width, height)  # (N, 4)
-    for z, d in enumerate(drawn):
-        b = d.box
-        if b[0] < 0 or b[1] < 0 or b[2] > width or b[3] > height:
-            # cut by the border: the exact box is the tight box of the part on the canvas,
-            # which for a rotated shape can be smaller than its full box clipped
-            cut = clipped_box(d.shape, height, width)
-            if cut is not None:
-                full_boxes[z] = cut
-    pair_iou = _pair_ious(drawn, full_boxes)
-    supports, pboxes = _supports_and_pixel_boxes(drawn)
-    raw = np.array([d.box for d in drawn]).reshape(-1, 4)
+    dropped = dict.fromkeys(_DROP_REASONS, 0)
+    dropped["outside"] = outside
+    ignored_counts = dict.fromkeys(_IGNORABLE, 0)
+    for d in measured:
+        if d.verdict is not None:
+            dropped[d.verdict] += 1
+            if d.shown:
+                ignored_counts[d.verdict] += 1
+    zs = [z for z, d in enumerate(measured) if d.shown]
+    shown = [measured[z] for z in zs]
+    full_boxes = _full_boxes(shown, width, height)
+    pair_iou = _pair_ious(measured, width, height)
+    supports, pboxes = _supports_and_pixel_boxes(shown)
+    raw = np.array([d.box for d in shown]).reshape(-1, 4)
     sizes = np.maximum(raw[:, 2] - raw[:, 0], raw[:, 3] - raw[:, 1]).tolist()
     cut = ((raw[:, 0] < 0) | (raw[:, 1] < 0) | (raw[:, 2] > width) | (raw[:, 3] > height)).tolist()
     full_lists = full_boxes.tolist()
     visible_boxes = spec.box == "visible"
-    min_visible, min_area = spec.min_visible, spec.min_area
-    kept = []
-    for z, d in enumerate(drawn):
-        full_cov = float(d.cov.values.sum())
-        if full_cov <= 0:  # too small to cover any sample
-            dropped["min_area"] += 1
-            continue
-        vis_cov = full_cov if d.visible is d.cov.values else float(d.visible.sum())
-        fraction = vis_cov / full_cov
-        full_list = full_lists[z]
-        if vis_cov <= 0:
-            vbox = None
-        elif d.sample_box is None:  # nothing hides it: the visible box is the exact box
+    kept, ignored = [], []
+    for t, (z, d) in enumerate(zip(zs, shown)):
+        full_list = full_lists[t]
+        pbox = pboxes[t]  # never None: a shown object has a visible sample
+        if d.sample_box is None:  # nothing hides it: the visible box is the exact box
             vbox = full_list
         else:
-            vbox = visible_box(full_boxes[z], d.sample_box)
-        pbox = pboxes[z]
-        if vbox is None or pbox is None or vis_cov <= 0:
-            dropped["hidden"] += 1
-            continue
-        if fraction < min_visible:
-            dropped["min_visible"] += 1
-            continue
-        if vis_cov < min_area:
-            dropped["min_area"] += 1
-            continue
+            vbox = visible_box(full_boxes[t], d.sample_box)
+            vbox = pbox if vbox is None else vbox.tolist()  # (float slack only: samples lie in the exact box)
         shape = d.shape
         facts = {
             "kind": shape.kind,
             "z": z,
             "full_box": full_list,
-            "visible_box": list(full_list) if d.sample_box is None else vbox.tolist(),
+            "visible_box": list(vbox),
             "pixel_box": pbox,
-            "size": sizes[z],
+            "size": sizes[t],
             "aspect": shape.aspect / natural_aspect(shape.kind, shape.sides, shape.inner),
             "rotation": shape.angle,
-            "visible_fraction": min(fraction, 1.0),
-            "truncated": cut[z],
+            "visible_fraction": min(d.vis_cov / d.full_cov, 1.0),
+            "truncated": cut[t],
             "contrast": d.contrast,
             "fill": d.style["fill"],
             "outline": d.style["outline"],
@@ -1117,9 +1171,13 @@ def _annotate(drawn, outside: int, config):
         # The mask patch is cropped to the pixel box (less to run-length encode).
         c0, r0, c1, r1 = int(pbox[0]), int(pbox[1]), int(pbox[2]), int(pbox[3])
         pr, pc = r0 - d.cov.row0, c0 - d.cov.col0
-        mask = (r0, c0, supports[z][pr : pr + r1 - r0, pc : pc + c1 - c0])
-        kept.append((box, vis_cov, facts, mask))
-    return kept, dropped
+        mask = (r0, c0, supports[t][pr : pr + r1 - r0, pc : pc + c1 - c0])
+        if d.verdict is None:
+            kept.append((box, d.vis_cov, facts, mask))
+        else:
+            facts["ignored"] = d.verdict
+            ignored.append((box, d.vis_cov, facts, mask))
+    return kept, ignored, {"dropped": dropped, "ignored": ignored_counts}
 
 
 def _supports_and_pixel_boxes(drawn):
@@ -1164,39 +1222,46 @@ def _supports_and_pixel_boxes(drawn):
 _BULK_SUPPORT_PIXELS = 1024
 
 
-def _pair_ious(drawn, full_boxes: np.ndarray) -> dict:
-    """IoU of the exact (clipped) boxes of each drawn pair, by ``pair_id``."""
+def _pair_ious(measured, width: int, height: int) -> dict:
+    """IoU of the exact (clipped) boxes of each pair of objects on the canvas, by ``pair_id``."""
     members: dict = {}
-    for z, d in enumerate(drawn):
+    for d in measured:
         if "pair_id" in d.extra:
-            members.setdefault(d.extra["pair_id"], []).append(z)
-    out = {}
-    for pid, zs in members.items():
-        if len(zs) == 2:
-            out[pid] = float(pairwise_iou(full_boxes[zs[:1]], full_boxes[zs[1:]])[0, 0])
-    return out
+            members.setdefault(d.extra["pair_id"], []).append(d)
+    pairs = [(pid, ds) for pid, ds in members.items() if len(ds) == 2]
+    if not pairs:
+        return {}
+    full = _full_boxes([d for _, ds in pairs for d in ds], width, height)  # (2 P, 4)
+    ious = box_iou(full[0::2], full[1::2])  # (P,)
+    return {pid: float(v) for (pid, _), v in zip(pairs, ious.tolist())}
 
 
-def _assemble(image, kept, info) -> Scene:
-    n = len(kept)
-    boxes = np.array([k[0] for k in kept], dtype=np.float64).reshape(n, 4)
-    # Only boxes that overlap have a positive IoU: compute it for those pairs alone.
-    ii, jj = _overlapping_pairs(boxes)
-    iou = box_iou(boxes[ii], boxes[jj])  # (P,)
-    best = np.zeros(n)
-    np.maximum.at(best, ii, iou)
-    np.maximum.at(best, jj, iou)
-    hit = iou > 0
-    count = np.bincount(ii[hit], minlength=n) + np.bincount(jj[hit], minlength=n)
-    for i, k in enumerate(kept):
-        k[2]["max_iou"] = float(best[i])
-        k[2]["neighbours"] = int(count[i])
-    return Scene(
-        image=image,
-        boxes=boxes,
-        categories=np.array([category_id(k[2]["kind"]) for k in kept], dtype=np.int64),
-        areas=np.array([k[1] for k in kept], dtype=np.float64),
-        facts=tuple(k[2] for k in kept),
-        masks=tuple(k[3] for k in kept),
-        info=info,
+def _regions(items) -> tuple:
+    """Boxes (N, 4), category ids, areas, facts and masks of ``(box, area, facts, mask)`` items."""
+    n = len(items)
+    return (
+        np.array([k[0] for k in items], dtype=np.float64).reshape(n, 4),
+        np.array([category_id(k[2]["kind"]) for k in items], dtype=np.int64),
+        np.array([k[1] for k in items], dtype=np.float64),
+        tuple(k[2] for k in items),
+        tuple(k[3] for k in items),
     )
+
+
+def _assemble(image, kept, ignored, info) -> Scene:
+    boxes, categories, areas, facts, masks = _regions(kept)
+    n = len(kept)
+    # Only boxes that overlap have a positive IoU: compute it for those pairs alone, a block at a time.
+    best = np.zeros(n)
+    count = np.zeros(n, dtype=np.int64)
+    for ii, jj in _overlapping_pair_blocks(boxes):
+        iou = box_iou(boxes[ii], boxes[jj])  # (P,)
+        np.maximum.at(best, ii, iou)
+        np.maximum.at(best, jj, iou)
+        hit = iou > 0
+        count += np.bincount(ii[hit], minlength=n) + np.bincount(jj[hit], minlength=n)
+    for i, f in enumerate(facts):
+        f["max_iou"] = float(best[i])
+        f["neighbours"] = int(count[i])
+    return Scene(image=image, boxes=boxes, categories=categories, areas=areas, facts=facts, masks=masks, info=info,
+                 ignored=IgnoreRegions(*_regions(ignored)))

@@ -1108,7 +1108,9 @@ class Coverage:
         return mask
 
 
-def coverage(shape: Shape, height: int, width: int, *, samples: int = 4, stroke: float = 0.0) -> Coverage | None:
+def coverage(
+    shape: Shape, height: int, width: int, *, samples: int = 4, stroke: float = 0.0, _sampled: list | None = None
+) -> Coverage | None:
     """Anti-aliased coverage of ``shape`` on a ``(height, width)`` canvas.
 
     Parameters
@@ -1158,13 +1160,18 @@ def coverage(shape: Shape, height: int, width: int, *, samples: int = 4, stroke:
         inside = region.contains(_grid(col0, col1, s)[None, :], _grid(row0, row1, s)[:, None])
         counts = inside.reshape(h, s, w, s).sum(axis=(1, 3))
         values = (counts / (s * s)).astype(np.float32)
+        if _sampled is not None:  # (callers that reuse the samples: the whole-patch mask)
+            _sampled.append(inside)
     else:
-        values = _classified(region, row0, col0, h, w, s)
+        parts = _classify(region, row0, col0, h, w, s)
+        values = _classified(*parts, s)
+        if _sampled is not None:  # (interior, rr, cc, inside), as _classify returns them
+            _sampled.append(parts)
     return Coverage(row0, col0, values, s, shape, stroke)
 
 
 def coverage_many(
-    shapes, height: int, width: int, *, samples: int = 4, strokes=None, insides=None, _geometry=None
+    shapes, height: int, width: int, *, samples: int = 4, strokes=None, insides=None, edges=None, _geometry=None
 ) -> list:
     """:func:`coverage` of many shapes at once: ``[coverage(shape, ...) for shape in shapes]``.
 
@@ -1188,7 +1195,14 @@ def coverage_many(
     insides : list or None
         When a list, it is filled with one entry per shape: the sub-sample
         mask of the whole patch (what ``cov.inside(row0, col0, row0 + h,
-        col0 + w)`` returns, read-only) for the shapes tested in bulk, else None.
+        col0 + w)`` returns, read-only) for the shapes whose every sample was
+        tested, else None.
+    edges : list or None
+        When a list, it is filled with one entry per shape: for the shapes
+        whose pixels were settled by class (big patches), ``(interior, rr, cc,
+        inside)``: bool (h, w) marking the pixels whose samples all lie inside,
+        the patch rows and columns (K,) of the pixels that were sub-sampled,
+        and their samples, bool (s, s, K) [sub-row, sub-column, pixel]; else None.
 
     Returns
     -------
@@ -1202,6 +1216,8 @@ def coverage_many(
     out: list = [None] * n
     if insides is not None:
         insides[:] = [None] * n
+    if edges is not None:
+        edges[:] = [None] * n
     groups: dict = {}
     W, H = float(width), float(height)
     geoms = _geoms(shapes) if _geometry is None else _geometry  # (callers that hold them already)
@@ -1218,7 +1234,15 @@ def coverage_many(
         region = g.region if stroke <= 0.0 else _region(shape, stroke)  # as _region gives
         sig = _signature(region) if h * w <= _GRID_MAX_PIXELS else None
         if sig is None:
-            out[i] = coverage(shape, height, width, samples=s, stroke=stroke)
+            sampled: list | None = [] if insides is not None or edges is not None else None
+            out[i] = coverage(shape, height, width, samples=s, stroke=stroke, _sampled=sampled)
+            if sampled:
+                if isinstance(sampled[0], tuple):
+                    if edges is not None:
+                        edges[i] = sampled[0]
+                elif insides is not None:
+                    sampled[0].flags.writeable = False
+                    insides[i] = sampled[0]
             continue
         # grouped by patch height too, so that padding to the group's patch stays small
         groups.setdefault((sig, h), []).append((i, row0, col0, h, w, region))
@@ -1368,9 +1392,8 @@ def _classify(region, row0: int, col0: int, h: int, w: int, s: int):
     return interior, rr, cc, inside
 
 
-def _classified(region, row0: int, col0: int, h: int, w: int, s: int) -> np.ndarray:
-    """Coverage values (h, w) float32 by :func:`_classify`."""
-    interior, rr, cc, inside = _classify(region, row0, col0, h, w, s)
+def _classified(interior, rr, cc, inside, s: int) -> np.ndarray:
+    """Coverage values (h, w) float32 from what :func:`_classify` returns."""
     values = interior.astype(np.float32)
     values[rr, cc] = inside.sum(axis=(0, 1)) / (s * s)
     return values

@@ -17,7 +17,8 @@ writes, byte for byte.
 Journal record
 --------------
 One line per image: ``HEADER \\t PAYLOAD \\n``.  ``HEADER`` is compact JSON
-``{"index": k, "files": {relative path: sha256}, "dropped": {...}, "lens": [...]}``;
+``{"index": k, "files": {relative path: sha256}, "dropped": {...}, "ignored": n, "lens": [...]}``
+(``ignored``: how many of the annotations are ignore regions, ``iscrowd`` 1);
 ``PAYLOAD`` is the image's COCO image record followed by its annotation records
 (without ``id`` and ``image_id``), each as compact JSON, with byte lengths
 ``lens``.  Compact JSON from orjson escapes every control character, so neither
@@ -204,7 +205,8 @@ def encode_record(index: int, files: dict, dropped: dict, image: dict, annotatio
         ``HEADER \\t PAYLOAD \\n`` (see the module docstring).
     """
     parts = [orjson.dumps(image, option=_JSON)] + [orjson.dumps(a, option=_JSON) for a in annotations]
-    header = {"index": int(index), "files": files, "dropped": dropped, "lens": [len(p) for p in parts]}
+    ignored = sum(1 for a in annotations if a.get("iscrowd") == 1)
+    header = {"index": int(index), "files": files, "dropped": dropped, "ignored": ignored, "lens": [len(p) for p in parts]}
     return orjson.dumps(header, option=_JSON) + b"\t" + b"".join(parts) + b"\n"
 
 
@@ -414,13 +416,15 @@ def write_coco_streamed(path: Path, store: RecordStore, indices, *, info: dict, 
 
     Returns
     -------
-    (n_objects, sha256 hex, dropped, files)
-        Annotation count, digest of the file, ``{reason: count}`` summed in
-        index order, and ``{relative path: sha256}`` of the images' files.
+    (n_objects, sha256 hex, dropped, files, ignored)
+        Number of objects (annotations with ``iscrowd`` 0), digest of the
+        file, ``{reason: count}`` summed in index order, ``{relative path:
+        sha256}`` of the images' files, and the number of ignore regions
+        (annotations with ``iscrowd`` 1).
     """
     dropped: dict[str, int] = {}
     files: dict[str, str] = {}
-    n_objects = 0
+    ignored = 0
     with AtomicWriter(path) as w:
         w.write(b'{"info":' + orjson.dumps(info, option=_JSON) + b',"images":[')
         for i, k in enumerate(indices):
@@ -428,6 +432,7 @@ def write_coco_streamed(path: Path, store: RecordStore, indices, *, info: dict, 
             w.write(fragments[0] if i == 0 else b"," + fragments[0])
             for reason, n in header["dropped"].items():
                 dropped[reason] = dropped.get(reason, 0) + n
+            ignored += header.get("ignored", 0)
             files.update(header["files"])
         w.write(b'],"annotations":[')
         next_id = 1
@@ -442,9 +447,9 @@ def write_coco_streamed(path: Path, store: RecordStore, indices, *, info: dict, 
                 chunk.append(b'{"id":%d,"image_id":%d,%s' % (next_id, image_id, frag[1:]))
                 next_id += 1
             w.write((b"," if next_id - 1 > len(chunk) else b"") + b",".join(chunk))
-        n_objects = next_id - 1
+        n_objects = next_id - 1 - ignored
         w.write(b'],"categories":' + orjson.dumps(categories, option=_JSON) + b"}")
-    return n_objects, w.sha256.hexdigest(), dropped, files
+    return n_objects, w.sha256.hexdigest(), dropped, files, ignored
 
 
 # --------------------------------------------------------------------------- configs

@@ -48,7 +48,7 @@ class SweepSummary:
     images: int
     objects: int
     seconds: float
-    records: tuple = ()  # per subset: path, values, images, objects, dropped (as in sweep.json)
+    records: tuple = ()  # per subset: path, values, images, objects, ignored, dropped (as in sweep.json)
     kept: int = 0  # images a resumed sweep found intact and did not render again
 
 
@@ -279,6 +279,7 @@ def run_sweep(
                 "values": values,
                 "images": summary.images,
                 "objects": summary.objects,
+                "ignored": summary.ignored,
                 "dropped": summary.dropped,
             }
         )

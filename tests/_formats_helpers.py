@@ -39,6 +39,15 @@ def rect_annotation(ann_id, image_id, box, category_id, width, height, *, visibl
     }
 
 
+def mark_ignored(coco: dict, ann_ids) -> dict:
+    """Make the annotations ``ann_ids`` ignore regions (``iscrowd`` 1, as synthgen writes dropped objects that show)."""
+    for a in coco["annotations"]:
+        if a["id"] in ann_ids:
+            a["iscrowd"] = 1
+            a["synthgen"]["ignored"] = "min_visible"
+    return coco
+
+
 def build_coco(images, categories=(1, 2, 3)):
     """COCO dict from ``[(width, height, [(box, category_id), ...]), ...]``."""
     coco = {
@@ -67,11 +76,14 @@ DEFAULT_IMAGES = [
 ]
 
 
-def make_dataset(root: Path, images=DEFAULT_IMAGES, categories=(1, 2, 3)) -> dict:
-    """Write ``root/images/*.png`` and ``root/annotations.json``; return the COCO dict."""
+def make_dataset(root: Path, images=DEFAULT_IMAGES, categories=(1, 2, 3), ignored=()) -> dict:
+    """Write ``root/images/*.png`` and ``root/annotations.json``; return the COCO dict.
+
+    ``ignored``: annotation ids to write as ignore regions (:func:`mark_ignored`).
+    """
     root = Path(root)
     (root / "images").mkdir(parents=True, exist_ok=True)
-    coco = build_coco(images, categories)
+    coco = mark_ignored(build_coco(images, categories), ignored)
     rng = np.random.default_rng(0)
     for im in coco["images"]:
         pixels = rng.integers(0, 256, (im["height"], im["width"], 3), dtype=np.uint8)

@@ -130,12 +130,15 @@ def _styled_scene(seed: int, n: int):
 
 @pytest.mark.parametrize("seed", range(8))
 def test_bulk_drawing_equals_one_shape_at_a_time(seed, monkeypatch):
-    """compose_shapes drawing in bulk gives the same image bytes, boxes, areas, facts and masks."""
+    """compose_shapes judging occlusion and drawing in bulk gives the same image bytes, boxes, areas, facts and masks."""
     from synthgen import scene
 
     canvas, shapes, styles, extras, config = _styled_scene(seed, 150)
     bulk = scene.compose_shapes(canvas, shapes, config, rng=np.random.default_rng(seed), styles=styles, extras=extras)
+    assert len(bulk.ignored.facts) > 0 and bulk.info["dropped"]["hidden"] > 0
     monkeypatch.setattr(scene, "_BULK_DRAW_MIN", 10**9)
+    monkeypatch.setattr(scene, "_BULK_WALK_MIN", 10**9)
+    monkeypatch.setattr(scene, "_CONTACT_PAIRS", -1)  # no shortcuts for patches that meet nothing above or below
     plain = scene.compose_shapes(canvas, shapes, config, rng=np.random.default_rng(seed), styles=styles, extras=extras)
     assert bulk.image.tobytes() == plain.image.tobytes()
     assert np.array_equal(bulk.boxes, plain.boxes)
@@ -146,6 +149,7 @@ def test_bulk_drawing_equals_one_shape_at_a_time(seed, monkeypatch):
     for (r0, c0, m0), (r1, c1, m1) in zip(bulk.masks, plain.masks):
         assert (r0, c0) == (r1, c1) and np.array_equal(m0, m1)
     assert bulk.info == plain.info
+    assert np.array_equal(bulk.ignored.boxes, plain.ignored.boxes) and bulk.ignored.facts == plain.ignored.facts
 
 
 @pytest.mark.parametrize("seed", range(3))
@@ -168,3 +172,27 @@ def test_coverage_many_sample_masks_equal_inside(seed):
         assert np.array_equal(cut, cov.inside(r0, c0, r1, c1))
         checked += 1
     assert checked > 100
+
+
+@pytest.mark.parametrize("seed", range(4))
+def test_clear_sides_equal_a_double_loop(seed):
+    """The patches the walk treats as meeting nothing above (or below) are exactly those (plain double loop)."""
+    from synthgen.scene import _clear_sides
+
+    rng = np.random.default_rng(seed)
+    n = 300
+    r0, c0 = rng.integers(0, 200, n), rng.integers(0, 300, n)
+    rects = np.stack([r0, c0, r0 + rng.integers(1, 12, n), c0 + rng.integers(1, 12, n)], axis=1).tolist()
+
+    def meet(a, b):
+        return max(a[0], b[0]) < min(a[2], b[2]) and max(a[1], b[1]) < min(a[3], b[3])
+
+    order = list(range(n))[::-1]  # top first, as the walk goes
+    patches = dict(enumerate(rects))
+    above, below = _clear_sides(order, patches)
+    want_above = {i for i in order if not any(meet(rects[i], rects[j]) for j in range(i + 1, n))}
+    want_below = {i for i in order if not any(meet(rects[i], rects[j]) for j in range(i))}
+    assert above == want_above and below == want_below
+    assert 0 < len(above & below) < len(above) < n
+    crowded = {i: [0, 0, 50, 50] for i in range(40)}  # every pair meets: too many pairs, the safe answer
+    assert _clear_sides(list(crowded), crowded) == (set(), set())

@@ -31,9 +31,31 @@ def test_clean_dataset_in_every_format_passes(tmp_path):
     assert report.problems == ()
     assert report.ok
     assert report.formats == ("coco", "voc", "yolo", "tokens", "masks")
-    assert report.counts["coco"] == {"files": 1, "images": 3, "objects": 5}
+    assert report.counts["coco"] == {"files": 1, "images": 3, "objects": 5, "ignored": 0}
     assert report.counts["voc"]["objects"] == report.counts["yolo"]["objects"] == 5
     assert "no problems" in report.summary()
+
+
+def test_ignore_regions_pass_in_every_format_and_are_counted_apart(tmp_path):
+    """Ignore regions (iscrowd 1): VOC holds them as difficult, YOLO and tokens leave them out, masks mark them."""
+    make_dataset(tmp_path, ignored={2, 5})
+    export(tmp_path, ["voc", "yolo", "tokens", "masks"])
+    report = check_dataset(tmp_path)
+    assert report.problems == ()
+    assert report.counts["coco"] == {"files": 1, "images": 3, "objects": 3, "ignored": 2}
+    assert report.counts["voc"]["objects"] == 5 and report.counts["yolo"]["objects"] == 3
+    assert report.counts["tokens"]["objects"] == 3 and report.counts["masks"]["objects"] == 3
+    assert "(+2 ignore regions)" in report.summary()
+
+
+def test_an_ignore_region_written_as_a_yolo_object_is_found(tmp_path):
+    """A YOLO file that lists an ignore region as an object disagrees with the COCO file."""
+    make_dataset(tmp_path, ignored={2})
+    export(tmp_path, ["yolo"])
+    label = tmp_path / "yolo" / "000000.txt"
+    label.write_text(label.read_text() + "1 0.5 0.5 0.5 0.5\n")
+    (p,) = _only(check_dataset(tmp_path), "without ignore regions")
+    assert p.file == "yolo/000000.txt" and p.value == 3
 
 
 def test_clean_dataset_with_rle_masks_passes(tmp_path):
@@ -296,7 +318,7 @@ def test_split_files_alone_are_the_reference_together(tmp_path):
     (tmp_path / "annotations.json").unlink()
     report = check_dataset(tmp_path)
     assert report.problems == ()
-    assert report.counts["coco"] == {"files": 2, "images": 3, "objects": 5}
+    assert report.counts["coco"] == {"files": 2, "images": 3, "objects": 5, "ignored": 0}
 
 
 def test_split_files_alone_must_not_share_images(tmp_path):

@@ -90,12 +90,32 @@ def test_parser_errors_are_one_line_too(tmp_path, args, pattern):
     assert res.stderr.startswith(pattern) and len(res.stderr.strip().splitlines()) == 1
 
 
+def test_an_impossible_object_count_exits_2_before_writing(tmp_path):
+    """10000 objects on a 64x64 canvas cannot all show: one line naming objects.count and the canvas, exit 2."""
+    res = run("make", "--out", str(tmp_path / "d"), "--quiet", "--set", "canvas.width=64", "--set", "canvas.height=64",
+              "--set", "objects.count=[10000,10000]")
+    assert res.exit_code == 2 and res.stderr.count("\n") == 1
+    assert "'objects.count' must ask for at most 4096 objects per image on a 64x64 canvas" in res.stderr
+    assert not (tmp_path / "d").exists()
+
+
+def test_no_warning_when_at_most_a_tenth_is_dropped(tmp_path):
+    """A run that annotates 90 % or more of its objects prints no warning."""
+    res = run("make", "--out", str(tmp_path / "d"), "--count", "2", "--quiet", "--set", "objects.count=[3,3]",
+              "--set", "objects.size=[10,12]", "--set", "objects.layout=separated")
+    assert res.exit_code == 0 and res.stderr == ""
+
+
 def test_a_run_without_objects_says_why(tmp_path):
-    """When every object is dropped, one warning line names the rules and the counts."""
+    """When every object is dropped, one warning line gives the counts by reason and the keys to change."""
     res = run("make", "--out", str(tmp_path / "d"), "--count", "2", "--quiet", "--set", "canvas.width=1",
-              "--set", "canvas.height=1", "--set", "objects.size=[0.2,0.2]", "--set", "objects.min_area=1")
+              "--set", "canvas.height=1", "--set", "objects.count=[1,1]", "--set", "objects.size=[0.2,0.2]",
+              "--set", "objects.min_area=1")
     assert res.exit_code == 0
-    assert "synthgen: warning: no object passed the annotation rules" in res.stderr
+    assert res.stderr.count("\n") == 1
+    assert res.stderr.startswith(
+        "synthgen: warning: 2 of 2 objects (100%) were not annotated: min_area 2 (objects.min_area, objects.size)"
+    )
 
 
 def test_one_image_is_singular(tmp_path):

@@ -66,8 +66,10 @@ def test_voc_and_yolo_of_a_rendered_dataset_match_its_coco_file(made):
             rows, cols = np.flatnonzero(m.any(1)), np.flatnonzero(m.any(0))
             # tight box (min_col, min_row, max_col + 1, max_row + 1) back from VOC's 1-based inclusive indices
             assert box.tolist() == [cols[0], rows[0], cols[-1] + 1, rows[-1] + 1]
+        # VOC marks ignore regions difficult (REFERENCE.md: Pascal VOC XML); YOLO has no such flag and leaves them out
+        assert doc["difficult"].tolist() == [a["iscrowd"] == 1 for a in anns]
         _, boxes = yolo.read_yolo(made / "yolo" / f"{stem}.txt", im["width"], im["height"])
-        want = xyxy_from_bbox([a["bbox"] for a in anns])
+        want = xyxy_from_bbox([a["bbox"] for a in anns if a["iscrowd"] == 0]).reshape(-1, 4)
         np.testing.assert_allclose(boxes, want, rtol=0, atol=1e-5)
 
 
@@ -174,7 +176,7 @@ def test_export_pads_token_sequences_with_training_noise(tmp_path):
     rows = read_tokens(tmp_path / "t" / "tokens.jsonl", tmp_path / "t" / "tokens.vocab.json")
     coco = json.loads((out / "annotations.json").read_text())
     for row, im in zip(rows, coco["images"]):
-        n = sum(a["image_id"] == im["id"] for a in coco["annotations"])
+        n = sum(a["image_id"] == im["id"] and a["iscrowd"] == 0 for a in coco["annotations"])  # no ignore regions
         assert len(row["boxes"]) == max(12, n) and int(row["is_noise"].sum()) == max(12, n) - n
         w = np.asarray(row["weights"][:-1]).reshape(-1, 5)  # 5 tokens per object, then the end token
         assert (w[row["is_noise"], :4] == 0).all() and (w[~row["is_noise"]] == 1).all()

@@ -126,3 +126,28 @@ def test_shipped_presets_load(path):
     for key, value in given.items():
         # RULES.md conventions: a scalar v given for a [min, max] range means [v, v]
         assert resolved[key] in (value, [value, value], list(value) if isinstance(value, list) else value), key
+
+
+@pytest.mark.parametrize(
+    ("overrides", "room"),
+    [
+        (["canvas.width=64", "canvas.height=64"], 4096),  # objects.min_area = 1 px^2 each
+        (["canvas.width=64", "canvas.height=64", "objects.min_area=0"], 65536),  # one of 4 x 4 samples each
+        (["canvas.width=64", "canvas.height=48", "objects.min_area=2.5"], 1228),
+    ],
+)
+def test_more_objects_than_the_canvas_can_show_is_refused(overrides, room):
+    """objects.count beyond what the canvas can ever show annotated is one error naming the key and the canvas."""
+    assert load_config(overrides=[*overrides, f"objects.count=[{room},{room}]"]).objects.count[0] == room
+    with pytest.raises(ConfigError, match=r"config key 'objects.count' must ask for at most %d objects per image "
+                       r"on a 64x\d\d canvas \(each annotated object needs .*\) \(got \[%d, %d\]\)" % (room, room + 1,
+                                                                                                      room + 1)):
+        load_config(overrides=[*overrides, f"objects.count=[{room + 1},{room + 1}]"])
+
+
+def test_dropped_objects_policy_is_checked():
+    """objects.dropped takes "ignore" (the default) or "erase"; anything else names the choices."""
+    assert load_config().objects.dropped == "ignore"
+    assert load_config(overrides=["objects.dropped=erase"]).objects.dropped == "erase"
+    with pytest.raises(ConfigError, match="objects.dropped"):
+        load_config(overrides=["objects.dropped=hide"])

@@ -227,7 +227,11 @@ def _valid_overrides():
         "output.image_format": st.sampled_from(["png", "jpeg"]),
         "seed": st.integers(0, 2**63 - 1),
     }
-    return st.fixed_dictionaries(fields).map(lambda d: ["count=2"] + [f"{k}={toml(v)}" for k, v in d.items()])
+    def fit(d):  # at most one object per pixel (objects.min_area = 1): more is refused up front
+        room = d["canvas.width"] * d["canvas.height"]
+        return dict(d, **{"objects.count": [min(c, room) for c in d["objects.count"]]})
+
+    return st.fixed_dictionaries(fields).map(lambda d: ["count=2"] + [f"{k}={toml(v)}" for k, v in fit(d).items()])
 
 
 def test_any_valid_config_makes_a_dataset_pycocotools_accepts():
@@ -291,3 +295,28 @@ def test_resume_with_other_formats_is_refused(tmp_path, small_config):
     make_dataset(small_config, out, workers=1, formats=("coco", "voc"))
     with pytest.raises(UserError, match="written with formats coco,voc .*'synthgen export'"):
         make_dataset(small_config, out, workers=1, resume=True)
+
+
+def test_manifest_counts_objects_and_ignore_regions_apart(tmp_path):
+    """counts.objects are the iscrowd-0 annotations, counts.ignored the iscrowd-1 ones; shards merge to the same."""
+    from synthgen.config import load_config
+    from synthgen.dataset import merge_shards
+    from synthgen.shards import Shard
+
+    cfg = load_config("configs/tiny.toml", ["count=3", "objects.count=[300,400]"])
+    summary = make_dataset(cfg, tmp_path / "one", workers=1)
+    coco = json.loads((tmp_path / "one" / "annotations.json").read_text())
+    counts = json.loads((tmp_path / "one" / "manifest.json").read_text())["counts"]
+    crowd = sum(a["iscrowd"] for a in coco["annotations"])
+    assert crowd > 0 and counts["ignored"] == summary.ignored == crowd
+    assert counts["objects"] == summary.objects == len(coco["annotations"]) - crowd
+    assert crowd == sum(sum(im["synthgen"]["ignored"].values()) for im in coco["images"])
+    assert crowd <= counts["dropped"]["min_visible"] + counts["dropped"]["min_area"]
+    for im in coco["images"]:  # draw order, bottom first, objects and ignore regions together
+        zs = [a["synthgen"]["z"] for a in coco["annotations"] if a["image_id"] == im["id"]]
+        assert zs == sorted(zs)
+    for k in range(2):
+        make_dataset(cfg, tmp_path / "parts", workers=1, shard=Shard(k, 2))
+    merged = merge_shards([tmp_path / "parts"], tmp_path / "merged")
+    assert (merged.objects, merged.ignored) == (summary.objects, summary.ignored)
+    assert (tmp_path / "merged" / "manifest.json").read_bytes() == (tmp_path / "one" / "manifest.json").read_bytes()

@@ -6,7 +6,7 @@ from PIL import Image
 from pycocotools import mask as cocomask
 
 from synthgen.formats import masks, rle
-from tests._formats_helpers import build_coco
+from tests._formats_helpers import build_coco, mark_ignored
 
 
 IMAGES = [(40, 30, [((3, 2, 7, 5), 1), ((5, 3, 20, 25), 2), ((0, 0, 40, 1), 3)]), (40, 30, [])]
@@ -58,3 +58,18 @@ def test_polygon_segmentations_are_filled(tmp_path):
     ids = masks.instance_id_image(coco["annotations"], 20, 20)
     assert ids[5, 5] == 1 and ids[15, 15] == 0
     assert rle.area(rle.encode(ids == 1)) == int((ids == 1).sum())
+
+
+def test_ignore_regions_get_the_ignore_value_and_objects_keep_their_numbers(tmp_path):
+    """An ignore region (iscrowd 1) is painted 65535; the objects are numbered 1, 2, ... among themselves."""
+    coco = mark_ignored(build_coco(IMAGES), {2})
+    masks.write_instance_pngs(coco, tmp_path)
+    ids = masks.read_instance_png(tmp_path / "000000.png")
+    want = np.zeros((30, 40), np.uint16)
+    want[2:5, 3:7] = 1
+    want[3:25, 5:20] = masks.IGNORE_ID  # drawn after the first object, so it wins where they overlap
+    want[0:1, 0:40] = 2
+    np.testing.assert_array_equal(ids, want)
+    masks.write_mask_rles(coco, tmp_path / "masks.jsonl")
+    (line, _) = masks.read_mask_rles(tmp_path / "masks.jsonl")
+    assert [m["iscrowd"] for m in line["masks"]] == [0, 1, 0]

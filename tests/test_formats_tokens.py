@@ -7,7 +7,7 @@ import pytest
 from synthgen.errors import ConfigError, InputFileError
 from synthgen.formats import tokens
 from synthgen.formats.coco import xyxy_from_bbox
-from tests._formats_helpers import build_coco
+from tests._formats_helpers import build_coco, mark_ignored
 
 
 @pytest.mark.parametrize("n_bins", [16, 100, 1000])
@@ -195,3 +195,12 @@ def test_json_true_is_not_a_whole_number(tmp_path, field, value, match):
     (tmp_path / "v.json").write_bytes(orjson.dumps(vocab))
     with pytest.raises(InputFileError, match=match):
         tokens.read_tokens(tmp_path / "t.jsonl", tmp_path / "v.json")
+
+
+def test_ignore_regions_are_left_out(tmp_path):
+    """An ignore region (iscrowd 1) is no object of the sequence: only the objects are encoded."""
+    coco = mark_ignored(build_coco([(64, 48, [((5, 4, 12, 20), 1), ((20, 0, 64, 48), 3), ((1, 1, 3, 3), 2)])]), {2})
+    tokens.write_tokens(coco, tmp_path / "t.jsonl", tmp_path / "v.json", n_bins=64, order="raster")
+    (line,) = tokens.read_tokens(tmp_path / "t.jsonl", tmp_path / "v.json")
+    assert line["n_objects"] == 2 and sorted(line["annotation_ids"]) == [1, 3]
+    assert line["category_ids"].tolist() == [2, 1]  # raster order: (1, 1) before (5, 4)

@@ -8,7 +8,7 @@ import pytest
 from synthgen.errors import InputFileError
 from synthgen.formats import voc
 from synthgen.formats.coco import xyxy_from_bbox
-from tests._formats_helpers import build_coco
+from tests._formats_helpers import build_coco, mark_ignored
 
 
 def _write(tmp_path, images):
@@ -114,3 +114,14 @@ def test_reader_rejects_malformed_xml(tmp_path):
     path.write_text("<annotation><size>")
     with pytest.raises(InputFileError, match=r"bad\.xml: must be well-formed XML"):
         voc.read_voc(path)
+
+
+def test_ignore_regions_are_difficult_objects(tmp_path):
+    """An ignore region (COCO iscrowd 1) is written with difficult 1, which VOC evaluation leaves out.
+
+    REFERENCE.md: Pascal VOC XML -- difficult objects are ignored in evaluation.
+    """
+    coco = mark_ignored(build_coco([(40, 30, [((3, 2, 7, 5), 1), ((10, 10, 30, 25), 2)])]), {2})
+    voc.write_voc(coco, tmp_path)
+    doc = voc.read_voc(tmp_path / "000000.xml")
+    assert doc["difficult"].tolist() == [False, True] and doc["names"] == ["rectangle", "ellipse"]

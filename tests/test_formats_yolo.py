@@ -6,7 +6,7 @@ import pytest
 from synthgen.errors import InputFileError
 from synthgen.formats import yolo
 from synthgen.formats.coco import xyxy_from_bbox
-from tests._formats_helpers import build_coco
+from tests._formats_helpers import build_coco, mark_ignored
 
 
 def test_lines_follow_the_normalization_rule(tmp_path):
@@ -82,3 +82,12 @@ def test_reader_rejects_a_file_that_is_not_utf8(tmp_path):
     path.write_bytes(b"0 0.5 0.5 0.1 0.1\n\xe9\n")
     with pytest.raises(InputFileError, match=r"a.txt: cannot be read as UTF-8 text \(invalid .* at byte 18\)"):
         yolo.read_yolo(path)
+
+
+def test_ignore_regions_are_left_out(tmp_path):
+    """YOLO txt has no ignore flag (REFERENCE.md: YOLO txt), so an ignore region (iscrowd 1) gets no line."""
+    coco = mark_ignored(build_coco([(64, 48, [((5, 4, 12, 20), 1), ((20, 0, 64, 48), 3), ((1, 1, 3, 3), 2)])]), {2})
+    yolo.write_yolo(coco, tmp_path)
+    classes, boxes = yolo.read_yolo(tmp_path / "000000.txt", 64, 48)
+    assert classes.tolist() == [0, 1]
+    np.testing.assert_allclose(boxes, [[5, 4, 12, 20], [1, 1, 3, 3]], atol=1e-6)

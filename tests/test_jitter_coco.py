@@ -278,3 +278,25 @@ def test_ranges_off_the_thresholds_are_kept():
     """A range whose ends are not COCO thresholds is used as asked and nothing is recorded."""
     preds, sidecar, summary = jitter_dataset(hand_coco(), seed=1, spec=DetectorSpec(iou=(0.52, 0.68), duplicate_iou=(0.62, 0.78)))
     assert summary["nudged"] == {} and sidecar["spec"]["iou"] == [0.52, 0.68]
+
+
+def test_background_boxes_stay_off_ignore_regions_so_evaluators_count_them():
+    """Background predictions cover less than background_iou of their area with any ignore region.
+
+    pycocotools cocoeval.py: a detection whose box lies at least half (IoU threshold 0.5) inside a crowd
+    region of its category is ignored, not counted false; the sidecar calls every background box a false
+    positive, so none may be ignored.  Here an ignore region covers most of the second image.
+    """
+    coco = hand_coco()
+    coco["annotations"].append({"id": 99, "image_id": 2, "category_id": 1, "bbox": [0.0, 20.0, 90.0, 70.0],
+                                "area": 6300.0, "iscrowd": 1})
+    spec = DetectorSpec(background=6.0, background_size=(0.1, 0.3))
+    preds, sidecar, summary = jitter_dataset(coco, seed=3, spec=spec)
+    bg = [r for r in sidecar["predictions"] if r["kind"] == "background"]
+    assert len(bg) > 8 and summary["ignored_crowd"] == 2
+    assert all(r["crowd_overlap"] < spec.background_iou for r in bg)
+    assert any(r["crowd_overlap"] > 0 for r in sidecar["predictions"] if r["image_id"] == 2)
+    ev = evaluate(coco, preds, iou_thrs=[0.5])
+    whole = [e for e in ev.evalImgs if e is not None and e["aRng"] == ev.params.areaRng[0]]  # area range "all"
+    ignored = {d for e in whole for d, ig in zip(e["dtIds"], e["dtIgnore"][0]) if ig}
+    assert not ignored & {r["index"] + 1 for r in bg}  # loadRes numbers results from 1

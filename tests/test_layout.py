@@ -165,7 +165,9 @@ def test_cli_warns_on_stderr_and_succeeds(tmp_path):
         capture_output=True, text=True, env=env,
     )
     assert res.returncode == 0, res.stderr
-    assert res.stderr.count("synthgen: warning: 297 requested objects found no room") == 1
+    assert res.stderr.count(
+        "synthgen: warning: 297 of 300 objects (99%) were not annotated: no_room 297 (objects.layout, objects.attempts)"
+    ) == 1
     assert len(res.stderr.strip().splitlines()) == 1 and res.stdout.startswith("wrote 3 images")
     assert json.loads((tmp_path / "d" / "manifest.json").read_text())["counts"]["dropped"]["no_room"] == 3 * 99
 

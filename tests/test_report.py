@@ -202,6 +202,81 @@ def test_classify_names_each_kind_of_prediction():
     assert missed == {2, 3}
 
 
+def test_classify_calls_predictions_on_ignore_regions_ignored_as_pycocotools_does():
+    """With ignore regions (iscrowd 1), true positives and ignored predictions are those pycocotools finds at IoU 0.5.
+
+    pycocotools cocoeval.py: a detection matched to a crowd region (intersection over the detection's
+    area >= the threshold, same category) gets dtIgnore, unless a free non-crowd box matches it first.
+    """
+    from pycocotools.coco import COCO
+    from pycocotools.cocoeval import COCOeval
+
+    rng = np.random.default_rng(12)
+    anns, preds = [], []
+    for image_id in (1, 2, 3):
+        for _ in range(25):
+            x, y = rng.uniform(0, 150, 2)
+            w, h = rng.uniform(4, 40, 2)
+            a = {"id": len(anns) + 1, "image_id": image_id, "category_id": int(rng.integers(1, 3)),
+                 "bbox": [x, y, w, h], "area": w * h, "iscrowd": int(rng.random() < 0.3)}
+            anns.append(a)
+            for _ in range(rng.integers(0, 3)):
+                px, py = x + rng.normal(0, 0.1) * w, y + rng.normal(0, 0.1) * h
+                pw, ph = w * np.exp(rng.normal(0, 0.2)), h * np.exp(rng.normal(0, 0.2))
+                preds.append({"image_id": image_id, "category_id": int(rng.choice([a["category_id"], 1, 2])),
+                              "bbox": [px, py, pw, ph], "score": float(rng.uniform())})
+    coco = {"images": [{"id": i, "width": 200, "height": 200, "file_name": f"{i}.png"} for i in (1, 2, 3)],
+            "annotations": anns, "categories": [{"id": 1, "name": "a"}, {"id": 2, "name": "b"}]}
+    boxes = np.array([p["bbox"] for p in preds])
+    boxes[:, 2:] += boxes[:, :2]
+    p = report.Predictions(boxes, np.array([q["image_id"] for q in preds]), np.array([q["category_id"] for q in preds]),
+                           np.array([q["score"] for q in preds]), ("",) * len(preds))
+    kinds = report.classify_predictions(coco, p)[0].kind
+
+    gt = COCO()
+    gt.dataset = json.loads(json.dumps(coco))
+    gt.createIndex()
+    ev = COCOeval(gt, gt.loadRes([dict(q) for q in preds]), "bbox")
+    ev.params.iouThrs = np.array([0.5])
+    ev.params.areaRng, ev.params.areaRngLbl = [[0, 1e10]], ["all"]
+    ev.evaluate()
+    tp, ignored = set(), set()
+    for e in ev.evalImgs:
+        if e is not None:
+            for d, m, ig in zip(e["dtIds"], e["dtMatches"][0], e["dtIgnore"][0]):
+                (ignored if ig else tp if m > 0 else set()).add(d)
+    ours_tp = {i + 1 for i, k in enumerate(kinds) if k == "true_positive"}  # loadRes numbers results from 1
+    ours_ignored = {i + 1 for i, k in enumerate(kinds) if k == "ignored"}
+    assert len(ours_ignored) > 10 and len(ours_tp) > 20
+    assert ours_tp == tp and ours_ignored == ignored
+
+
+def test_stats_leave_ignore_regions_out(known_boxes):
+    """Ignore regions (iscrowd 1) are counted apart and left out of every object statistic."""
+    coco = dict(known_boxes.coco)
+    coco["annotations"] = [dict(a) for a in coco["annotations"]]
+    coco["annotations"][1]["iscrowd"] = 1
+    s = report.dataset_stats(coco)
+    assert (s["objects"], s["ignore_regions"]) == (1, 1)
+    assert [c["count"] for c in s["per_category"]] == [1, 0] and s["size"]["max"] == 6.0
+    assert any("1 ignore regions (iscrowd 1) are left out" in n for n in s["notes"])
+
+
+def test_sheet_draws_ignore_regions_in_grey_and_counts_them_apart(tmp_path):
+    """An ignore region's box is drawn in the muted grey, not its category's colour; the caption counts it apart."""
+    images = [{"id": 1, "file_name": "a.png", "width": 20, "height": 16}]
+    anns = [
+        {"id": 1, "image_id": 1, "category_id": 1, "bbox": [2, 3, 5, 6], "area": 30.0, "iscrowd": 0},
+        {"id": 2, "image_id": 1, "category_id": 1, "bbox": [11, 4, 3, 8], "area": 24.0, "iscrowd": 1},
+    ]
+    _write_dataset(tmp_path / "ds", images, anns, [{"id": 1, "name": "plate"}])
+    sheet = report.contact_sheet(report.open_dataset(tmp_path / "ds"), scale=1)
+    t = sheet.tiles[0]
+    tile = sheet.pixels[t.top : t.top + t.height, t.left : t.left + t.width]
+    assert _pixels_of(tile, report._MUTED) == _outline_set(11, 4, 13, 11)
+    assert _pixels_of(tile, report.CATEGORY_COLOURS[0]) == _outline_set(2, 3, 6, 8)
+
+
 def test_classify_true_positives_agree_with_pycocotools(small_dataset):
     """Predictions called true positives are exactly those pycocotools matches at IoU 0.5."""
     from pycocotools.coco import COCO

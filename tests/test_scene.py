@@ -327,3 +327,167 @@ def test_aspect_one_keeps_polygons_regular():
         ring = outline(s)[0]
         radii = np.hypot(ring[:, 0] - ring[:, 0].mean(), ring[:, 1] - ring[:, 1].mean())
         assert np.ptp(radii) < 1e-9 * s.size
+
+
+# --------------------------------------------------------------------------- nothing visible goes unannotated
+
+
+def _coco_union(scene, height, width, *, crowd: bool) -> np.ndarray:
+    """Union of the segmentations of a scene's COCO annotations (with or without ignore regions), bool (H, W).
+
+    The masks are decoded by pycocotools from the RLE written to the COCO file (REFERENCE.md: COCO JSON).
+    """
+    from pycocotools import mask as cocomask
+
+    from synthgen.dataset import scene_annotations
+
+    out = np.zeros((height, width), dtype=bool)
+    for a in scene_annotations(scene, height, width):
+        if a["iscrowd"] and not crowd:
+            continue
+        seg = dict(a["segmentation"], counts=a["segmentation"]["counts"].encode())
+        out |= cocomask.decode(seg).astype(bool)
+    return out
+
+
+def _drawn_pixels(cfg, index: int) -> tuple[np.ndarray, object]:
+    """Pixels the objects changed, found without synthgen's masks: the image against the same image with no objects.
+
+    The background (and clutter) come from their own random streams, so the
+    run with objects.count = [0, 0] has the very same canvas under the objects.
+    """
+    from dataclasses import replace
+
+    scene = render_scene(cfg, index)
+    bare = render_scene(replace(cfg, objects=replace(cfg.objects, count=(0, 0))), index)
+    return np.any(scene.image != bare.image, axis=2), scene
+
+
+@pytest.mark.parametrize(
+    "extra",
+    [
+        [],  # configs/tiny.toml: 1-8 px specks, min_visible 0.5, min_area 0.5
+        ["canvas.width=640", "canvas.height=480", "objects.size=[2,40]", "objects.outline=0.3",
+         "objects.min_visible=0.3", "objects.min_area=4"],
+    ],
+)
+def test_every_drawn_pixel_is_annotated_or_ignored(extra):
+    """Each pixel an object changed lies in an annotation's segmentation or an ignore region (issue 12, part 1).
+
+    Dense scenes (300-500 objects) hide and shrink many objects below the annotation rules; the dropped
+    ones that still show must be ignore regions, or a detector finding them is charged a false positive.
+    """
+    cfg = load_config("configs/tiny.toml", ["objects.count=[300,500]", *extra])
+    height, width = cfg.canvas.height, cfg.canvas.width
+    only_crowd = 0
+    for index in range(3):
+        changed, scene = _drawn_pixels(cfg, index)
+        union = _coco_union(scene, height, width, crowd=True)
+        assert not (changed & ~union).any(), f"image {index}: {int((changed & ~union).sum())} drawn pixels unannotated"
+        only_crowd += int((changed & ~_coco_union(scene, height, width, crowd=False)).sum())
+        assert len(scene.ignored.facts) == sum(scene.info["ignored"].values()) > 0
+        assert {f["ignored"] for f in scene.ignored.facts} <= {"min_visible", "min_area"}
+    assert only_crowd > 50  # without the ignore regions these drawn pixels would have no annotation
+
+
+def test_erased_objects_leave_no_trace():
+    """objects.dropped = "erase": every changed pixel belongs to an annotated object; no ignore region is written."""
+    cfg = load_config("configs/tiny.toml", ["objects.count=[300,500]", "objects.dropped=erase"])
+    for index in range(2):
+        changed, scene = _drawn_pixels(cfg, index)
+        assert len(scene.ignored.facts) == 0 and sum(scene.info["ignored"].values()) == 0
+        assert scene.info["dropped"]["min_visible"] + scene.info["dropped"]["min_area"] > 0
+        union = _coco_union(scene, cfg.canvas.height, cfg.canvas.width, crowd=False)
+        assert not (changed & ~union).any()
+
+
+def test_erase_judges_each_object_by_the_final_picture():
+    """With erase, an annotated object's visible fraction counts only the objects left in the picture above it.
+
+    Reference: every sub-sample of the canvas tested against each kept shape with Coverage.inside (no
+    buffer, no patches), the plain rule; a kept object's facts must match the picture as drawn.
+    """
+    from synthgen.scene import _sample_objects, _moved
+
+    cfg = load_config(overrides=["canvas.width=48", "canvas.height=40", "objects.min_visible=0.6",
+                                 "objects.min_area=3", "objects.size=[2,24]", "objects.dropped=erase"])
+    rng = np.random.default_rng(4)
+    s = cfg.render.samples
+    checked = erased = 0
+    for _ in range(4):
+        shapes, styles = _sample_objects(cfg, rng, n=30)
+        shapes = [_moved(sh, c) for sh, c in zip(shapes, rng.uniform(size=(30, 2)) * (48, 40))]
+        scene = compose_shapes(grey(cfg), shapes, cfg, rng=np.random.default_rng(0), styles=styles)
+        erased += scene.info["dropped"]["min_visible"] + scene.info["dropped"]["min_area"]
+        kept = {f["z"] for f in scene.facts}  # z = position in `shapes`: every centre lies on the canvas
+        masks = {}
+        for z in kept:
+            cov = coverage(shapes[z], 40, 48, samples=s, stroke=styles[z]["stroke"])
+            m = np.zeros((40 * s, 48 * s), dtype=bool)
+            h, w = cov.values.shape
+            m[cov.row0 * s : (cov.row0 + h) * s, cov.col0 * s : (cov.col0 + w) * s] = cov.inside(
+                cov.row0, cov.col0, cov.row0 + h, cov.col0 + w)
+            masks[z] = m
+        for f in scene.facts:
+            above = np.zeros_like(masks[f["z"]])
+            for z in kept:
+                if z > f["z"]:
+                    above |= masks[z]
+            seen = masks[f["z"]] & ~above
+            assert f["visible_fraction"] == pytest.approx(seen.sum() / masks[f["z"]].sum(), abs=1e-12)
+            assert f["visible_fraction"] >= cfg.objects.min_visible
+            checked += 1
+    assert checked >= 40 and erased >= 10
+
+
+def test_ignore_region_is_the_visible_support_with_its_reason():
+    """A dropped object that shows becomes an ignore region: its mask, box and visible area, and why (issue 12, part 1)."""
+    cfg = load_config(overrides=["canvas.width=64", "canvas.height=48", "objects.min_visible=0.5"])
+    part = Shape("rectangle", cx=10.0, cy=10.0, size=10.0)  # box [5, 5, 15, 15]
+    over = Shape("rectangle", cx=14.0, cy=10.0, size=10.0)  # hides its 6 right columns: 40 % shows
+    scene = compose_shapes(grey(cfg), [part, over], cfg, rng=np.random.default_rng(0))
+    assert len(scene.boxes) == 1 and scene.facts[0]["z"] == 1
+    (facts,) = scene.ignored.facts
+    assert facts["ignored"] == "min_visible" and facts["z"] == 0
+    assert facts["visible_fraction"] == pytest.approx(0.4)
+    assert scene.ignored.boxes.tolist() == [[5.0, 5.0, 9.0, 15.0]]
+    assert scene.ignored.areas.tolist() == [40.0]
+    row0, col0, mask = scene.ignored.masks[0]
+    assert (row0, col0, mask.shape, bool(mask.all())) == (5, 5, (10, 4), True)
+    assert scene.info["dropped"]["min_visible"] == 1 and scene.info["ignored"] == {"min_visible": 1, "min_area": 0}
+    erased = compose_shapes(grey(cfg), [part, over], load_config(overrides=[
+        "canvas.width=64", "canvas.height=48", "objects.min_visible=0.5", "objects.dropped=erase"]),
+        rng=np.random.default_rng(0))
+    assert len(erased.ignored.facts) == 0 and (erased.image[5:15, 5:9] == 128).all()
+
+
+def test_dense_canvas_renders_the_most_objects_the_check_allows():
+    """4096 objects of 12-120 px on a 64x64 canvas (the most objects.min_area = 1 admits) finish and add up."""
+    cfg = load_config(overrides=["canvas.width=64", "canvas.height=64", "objects.count=[4096,4096]"])
+    changed, scene = _drawn_pixels(cfg, 0)
+    assert len(scene.boxes) + sum(scene.info["dropped"].values()) == 4096
+    assert scene.info["dropped"]["hidden"] > 3900
+    assert not (changed & ~_coco_union(scene, 64, 64, crowd=True)).any()
+
+
+# --------------------------------------------------------------------------- sizes stay as asked
+
+
+@pytest.mark.parametrize("layout", ["scatter", "separated", "pairs", "grid", "clusters"])
+def test_no_annotated_size_leaves_its_range(layout):
+    """Every annotated object, occluders included, keeps its size fact inside objects.size (issue 12, part 3).
+
+    Big targets with a small occluder range used to get their occluders grown 1.5x at a time, past the range.
+    """
+    lo, hi = 16.0, 96.0
+    cfg = load_config(overrides=[
+        "canvas.width=320", "canvas.height=240", f"objects.layout={layout}", "objects.count=[6,10]",
+        f"objects.size=[{lo},{hi}]", "objects.occlusion=[0.5,0.9]", "objects.min_visible=0", "objects.max_iou=0.3",
+    ])
+    occluders = 0
+    for index in range(6):
+        scene = render_scene(cfg, index)
+        for f in (*scene.facts, *scene.ignored.facts):
+            assert lo * (1 - 1e-12) <= f["size"] <= hi * (1 + 1e-12), f
+            occluders += bool(f.get("occluder"))
+    assert occluders >= 10

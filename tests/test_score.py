@@ -461,3 +461,42 @@ def test_derived_facts_equal_the_recorded_ones(small_dataset):
                   for b in gt["annotations"] if b["image_id"] == a["image_id"] and b["id"] != a["id"]]
         ref = max((pa.intersection(pb).area / pa.union(pb).area for pb in others), default=0.0)
         assert abs(max_iou[i] - ref) < 1e-9
+
+
+# ----------------------------------------------------------------- ignore regions of rendered datasets
+
+
+@pytest.fixture(scope="module")
+def dense_coco(tmp_path_factory):
+    """COCO ground truth of three dense tiny-object images (configs/tiny.toml, 300-500 objects each)."""
+    from synthgen.config import load_config
+    from synthgen.dataset import make_dataset
+
+    out = tmp_path_factory.mktemp("dense") / "ds"
+    make_dataset(load_config("configs/tiny.toml", ["count=3", "objects.count=[300,500]"]), out, workers=1)
+    return json.loads((out / "annotations.json").read_text())
+
+
+def test_finding_every_visible_speck_loses_nothing(dense_coco):
+    """Truth fed back plus one confident prediction on every ignore region: AP 1.0 in pycocotools and here.
+
+    REFERENCE.md: COCO-style AP (truth fed back gives every stat 1.0) and pycocotools' crowd rule: a
+    detection matched to an iscrowd region is ignored, neither true nor false.  Without the ignore
+    regions the same predictions are charged as false positives.
+    """
+    anns = dense_coco["annotations"]
+    crowd = [a for a in anns if a["iscrowd"] == 1]
+    objects = [a for a in anns if a["iscrowd"] == 0]
+    assert len(crowd) > 30 and len(objects) > 100
+    preds = [_pred(a["image_id"], a["category_id"], a["bbox"], 0.9) for a in objects]
+    preds += [_pred(a["image_id"], a["category_id"], a["bbox"], 0.99) for a in crowd]  # ranked above the objects
+    ref = coco_reference(dense_coco, preds)  # reference: pycocotools 2.0.x COCOeval
+    mine = evaluate(dense_coco, preds).stats
+    for stats in (ref.stats, mine):
+        assert stats[0] == pytest.approx(1.0, abs=1e-9) and stats[1] == pytest.approx(1.0, abs=1e-9)
+        assert stats[8] == pytest.approx(1.0, abs=1e-9)
+    np.testing.assert_allclose(mine, ref.stats, rtol=0, atol=1e-9)
+    unmarked = dict(dense_coco, annotations=objects)  # the specks drawn but not annotated at all
+    worse = coco_reference(unmarked, preds)
+    assert worse.stats[0] < 0.99  # the specks found become false positives, ranked first
+    np.testing.assert_allclose(evaluate(unmarked, preds).stats, worse.stats, rtol=0, atol=1e-9)

@@ -180,7 +180,8 @@ def _check_png_ids(coco: dict) -> None:
     """Refuse, before writing anything, an image with more objects than a uint16 id PNG can number."""
     counts: dict = {}
     for a in coco["annotations"]:
-        counts[a["image_id"]] = counts.get(a["image_id"], 0) + 1
+        if a.get("iscrowd", 0) != 1:  # ignore regions share one value
+            counts[a["image_id"]] = counts.get(a["image_id"], 0) + 1
     worst = max(counts.items(), key=lambda kv: kv[1], default=(None, 0))
     if worst[1] > masks_fmt.MAX_IDS:
         raise UserError(

@@ -3,24 +3,27 @@
 Rule
 ----
 ``png`` mode: ``masks/<image stem>.png``, single-channel **uint16**, the image's
-size.  0 is background; pixel value ``i`` (1-based) is the ``i``-th annotation
-of that image in annotation order (the order of ``annotations`` in the COCO
-file, which for synthgen is draw order, bottom first).  Each annotation's mask
-is its ``segmentation`` (RLE, or a polygon filled with Pillow for other tools'
-files).  Where masks share pixels (anti-aliased edges of overlapping objects)
-the later annotation, the one drawn on top, wins, with one exception: an
-annotation whose every pixel an upper one won (a small object whose visible
-part lies under the soft edges of the objects above it) takes back one of its
-pixels, the one whose owner has the most pixels (the first in column-major
-order among equals), provided that owner keeps at least one.  So every
-annotation with a non-empty segmentation owns at least one pixel, unless each
-of its pixels is the only pixel of another annotation (:func:`lost_annotations`
-tells which break that rule).  At most 65,535 annotations per image.
+size.  0 is background; pixel value ``i`` (1-based) is the ``i``-th object
+annotation (``iscrowd`` 0) of that image in annotation order (the order of
+``annotations`` in the COCO file, which for synthgen is draw order, bottom
+first); :data:`IGNORE_ID` (65535) marks the pixels of ignore regions
+(``iscrowd`` 1), which a consumer should leave out of its loss and scores.
+Each annotation's mask is its ``segmentation`` (RLE, or a polygon filled with
+Pillow for other tools' files).  Where masks share pixels (anti-aliased edges
+of overlapping objects) the later annotation, the one drawn on top, wins, with
+one exception: an object whose every pixel an upper annotation won (a small
+object whose visible part lies under the soft edges of the objects above it)
+takes back one of its pixels, the one whose owner has the most pixels (the
+first in column-major order among equals), provided that owner keeps at least
+one.  So every object with a non-empty segmentation owns at least one pixel,
+unless each of its pixels is the only pixel of another annotation
+(:func:`lost_annotations` tells which break that rule).  At most 65,534
+objects per image.
 
 ``rle`` mode: ``masks.jsonl``, one line per image: ``image_id``,
 ``file_name``, and ``masks``, a list in annotation order of ``{"id",
-"category_id", "size": [H, W], "counts"}`` (COCO compressed RLE, see
-:mod:`synthgen.formats.rle`), exactly each annotation's own mask with no
+"category_id", "iscrowd", "size": [H, W], "counts"}`` (COCO compressed RLE,
+see :mod:`synthgen.formats.rle`), exactly each annotation's own mask with no
 overlap resolution.
 """
 
@@ -39,6 +42,7 @@ from synthgen.formats._common import annotations_by_image, bad_record, read_inpu
 __all__ = [
     "MASK_MODES",
     "MAX_IDS",
+    "IGNORE_ID",
     "annotation_mask",
     "instance_id_image",
     "lost_annotations",
@@ -49,8 +53,10 @@ __all__ = [
 ]
 
 MASK_MODES = ("png", "rle")
-#: Most annotations one instance-id PNG (uint16) can number.
-MAX_IDS = 65535
+#: Pixel value of ignore regions (annotations with ``iscrowd`` 1) in an instance-id PNG.
+IGNORE_ID = 65535
+#: Most objects one instance-id PNG (uint16) can number (the largest value marks ignore regions).
+MAX_IDS = IGNORE_ID - 1
 
 
 def annotation_mask(ann: dict, height: int, width: int) -> np.ndarray:
@@ -83,16 +89,21 @@ def instance_id_image(annotations: list[dict], height: int, width: int) -> np.nd
     Returns
     -------
     ndarray of uint16, shape (H, W)
-        0 background, ``i`` = the ``i``-th annotation (1-based); later ones win.
+        0 background, ``i`` = the ``i``-th object annotation (1-based),
+        :data:`IGNORE_ID` an ignore region; later annotations win.
     """
-    if len(annotations) > MAX_IDS:
-        raise ValueError(f"an instance-id PNG holds at most {MAX_IDS} annotations (got {len(annotations)})")
+    crowd = [a.get("iscrowd", 0) == 1 for a in annotations]
+    n_objects = len(annotations) - sum(crowd)
+    if n_objects > MAX_IDS:
+        raise ValueError(f"an instance-id PNG holds at most {MAX_IDS} objects (got {n_objects})")
     flat = np.zeros(width * height, dtype=np.uint16)  # column-major, as RLE runs are
-    for i, a in enumerate(annotations, start=1):
-        flat[_pixels(a, height, width)] = i
-    counts = np.bincount(flat, minlength=len(annotations) + 1)
-    for i in np.flatnonzero(counts[1:] == 0) + 1:  # annotations every upper one covered
-        idx = _pixels(annotations[i - 1], height, width)
+    ids = np.cumsum([not c for c in crowd]).tolist()
+    for a, is_crowd, number in zip(annotations, crowd, ids):
+        flat[_pixels(a, height, width)] = IGNORE_ID if is_crowd else number
+    objects = [a for a, c in zip(annotations, crowd) if not c]
+    counts = np.bincount(flat, minlength=IGNORE_ID + 1)
+    for i in np.flatnonzero(counts[1 : n_objects + 1] == 0) + 1:  # objects every upper annotation covered
+        idx = _pixels(objects[i - 1], height, width)
         if idx.size == 0:
             continue
         owners = flat[idx]
@@ -113,9 +124,9 @@ def _pixels(ann: dict, height: int, width: int) -> np.ndarray:
 
 
 def lost_annotations(annotations: list[dict], ids: np.ndarray) -> list[int]:
-    """Positions (1-based) of annotations an instance-id image leaves without a pixel against the rule.
+    """Positions (1-based, among the objects) of objects an instance-id image leaves without a pixel against the rule.
 
-    The rule (module docstring): an annotation with a non-empty segmentation
+    The rule (module docstring): an object (``iscrowd`` 0) with a non-empty segmentation
     owns at least one pixel of ``ids``, unless each of its pixels is the only
     pixel of another annotation.
 
@@ -129,15 +140,16 @@ def lost_annotations(annotations: list[dict], ids: np.ndarray) -> list[int]:
     Returns
     -------
     list of int
-        1-based positions (the ids the annotations should have), increasing.
+        1-based positions among the image's objects (the ids they should have), increasing.
     """
     height, width = ids.shape
+    objects = [a for a in annotations if a.get("iscrowd", 0) != 1]
     flat = ids.T.ravel()  # column-major
-    counts = np.bincount(flat, minlength=len(annotations) + 1)
+    counts = np.bincount(flat, minlength=IGNORE_ID + 1)
     lost = []
-    for i in np.flatnonzero(counts[1 : len(annotations) + 1] == 0) + 1:
+    for i in np.flatnonzero(counts[1 : len(objects) + 1] == 0) + 1:
         try:
-            idx = _pixels(annotations[i - 1], height, width)
+            idx = _pixels(objects[i - 1], height, width)
         except ValueError:  # no usable segmentation: nothing to own
             continue
         if idx.size and not (counts[flat[idx]] == 1).all():
@@ -168,7 +180,8 @@ def write_mask_rles(coco: dict, path) -> int:
             seg = a.get("segmentation")
             if not (isinstance(seg, dict) and isinstance(seg.get("counts"), str)):
                 seg = rle.encode(annotation_mask(a, h, w))
-            masks.append({"id": a["id"], "category_id": a["category_id"], "size": [h, w], "counts": seg["counts"]})
+            masks.append({"id": a["id"], "category_id": a["category_id"], "iscrowd": int(a.get("iscrowd", 0)),
+                          "size": [h, w], "counts": seg["counts"]})
         lines.append(orjson.dumps({"image_id": im["id"], "file_name": im["file_name"], "masks": masks}))
     Path(path).write_bytes(b"\n".join(lines) + (b"\n" if lines else b""))
     return len(lines)
@@ -187,7 +200,7 @@ def read_instance_png(path) -> np.ndarray:
         raise bad_record(path, "", "must be a readable PNG", str(e)) from None
     if arr.ndim != 2:
         raise bad_record(path, "", "must be a single-channel image", arr.shape)
-    if arr.dtype.kind not in "ui" or (arr.size and (arr.min() < 0 or arr.max() > MAX_IDS)):
+    if arr.dtype.kind not in "ui" or (arr.size and (arr.min() < 0 or arr.max() > IGNORE_ID)):
         raise bad_record(path, "", "must hold integer instance ids in [0, 65535]", str(arr.dtype))
     return arr.astype(np.uint16, copy=False)
 

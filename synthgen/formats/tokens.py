@@ -20,7 +20,8 @@ edges.  Token ids (with ``C`` categories, in order of category id):
 
 A sequence is, per object, ``x0 y0 x1 y1 class`` from the annotated (visible)
 box, objects in the chosen ``order``, then any noise objects (class token
-``noise``) in the order given, then ``end``.  Orders:
+``noise``) in the order given, then ``end``.  Ignore regions (annotations with
+``iscrowd`` 1) are no objects and are left out.  Orders:
 
 * ``random``: a permutation drawn for image ``k`` from
   ``SeedSequence(seed, spawn_key=(k, ORDER_STREAM))`` (a child of the image's
@@ -297,7 +298,7 @@ def write_tokens(
     by_image = annotations_by_image(coco)
     lines = []
     for pos, im in enumerate(coco["images"]):
-        anns = by_image.get(im["id"], [])
+        anns = [a for a in by_image.get(im["id"], []) if a.get("iscrowd", 0) != 1]
         bbox = np.array([a["bbox"] for a in anns], dtype=np.float64).reshape(-1, 4)
         xyxy = bbox.copy()
         xyxy[:, 2:] += bbox[:, :2]

@@ -20,7 +20,9 @@ the bbox rounded outwards to whole pixels.
 Per object: ``name`` (the category name), ``pose`` ``Unspecified``,
 ``truncated`` 1 when the object is cut by the image border
 (``synthgen.truncated``), ``occluded`` 1 when objects above it hide part of it
-(``synthgen.visible_fraction < 1``), ``difficult`` 0.  Files are
+(``synthgen.visible_fraction < 1``), ``difficult`` 0 for an object and 1 for an
+ignore region (a COCO annotation with ``iscrowd`` 1): VOC's evaluation neither
+counts a difficult object nor charges a detection of it.  Files are
 ``voc/<image stem>.xml``; ``size/depth`` is 3.
 """
 
@@ -120,7 +122,7 @@ def voc_document(image: dict, annotations: list[dict], names: dict[int, str]) ->
         ET.SubElement(obj, "pose").text = "Unspecified"
         ET.SubElement(obj, "truncated").text = _flag(bool(facts.get("truncated", False)))
         ET.SubElement(obj, "occluded").text = _flag(float(facts.get("visible_fraction", 1.0)) < _OCCLUDED_BELOW)
-        ET.SubElement(obj, "difficult").text = "0"
+        ET.SubElement(obj, "difficult").text = _flag(a.get("iscrowd", 0) == 1)
         bnd = ET.SubElement(obj, "bndbox")
         for tag, v in zip(("xmin", "ymin", "xmax", "ymax"), box):
             ET.SubElement(bnd, tag).text = str(int(v))

@@ -5,7 +5,8 @@ Rule
 ``yolo/labels.txt`` lists the category names, one per line, in order of
 category id; a class index is the 0-based line number in that file.  Each image
 gets ``yolo/<image stem>.txt`` (an empty file when it has no objects) with one
-line per annotation, in annotation order::
+line per annotation, in annotation order, leaving out ignore regions (``iscrowd``
+1: YOLO txt has no way to mark a region as ignored)::
 
     class xc yc w h
 
@@ -92,12 +93,14 @@ def yolo_lines(annotations: list[dict], width: int, height: int, class_of: dict[
     Parameters
     ----------
     annotations : list of dict
-        COCO annotations of the image (``bbox`` = ``[x, y, w, h]``).
+        COCO annotations of the image (``bbox`` = ``[x, y, w, h]``); those with
+        ``iscrowd`` 1 are left out.
     width, height : int
         Image size in pixels.
     class_of : dict
         Category id -> 0-based class index.
     """
+    annotations = [a for a in annotations if a.get("iscrowd", 0) != 1]
     if not annotations:
         return ""
     bbox = np.array([a["bbox"] for a in annotations], dtype=np.float64)
