@@ -4,7 +4,8 @@ The composer draws objects bottom to top.  Occlusion is measured on the
 supersampled coverage (see :class:`synthgen.shapes.Coverage`): a sub-pixel
 sample of an object is hidden when any object drawn later covers the same
 sample.  From that come, per object, the visible coverage, the visible
-fraction, the visible box and the pixel box (box kinds are defined in
+fraction and the pixel box; the visible box comes from the continuous
+outlines (:func:`synthgen.occlusion.visible_box`; box kinds are defined in
 :mod:`synthgen.geometry`).
 
 Randomness: :func:`image_rng` gives image ``k`` its own generator from
@@ -46,6 +47,7 @@ from synthgen.backgrounds import render_background
 from synthgen.clutter import render_clutter
 from synthgen.degrade import degrade_owned
 from synthgen.geometry import box_iou, clip_boxes, mask_box, pairwise_iou
+from synthgen.occlusion import visible_box
 from synthgen.shapes import (
     KINDS,
     Shape,
@@ -524,7 +526,6 @@ class _Drawn:
     contrast: float
     extra: dict
     visible: np.ndarray | None = None  # visible coverage, float32 (h, w)
-    sample_box: np.ndarray | None = None  # box of visible samples when occluded
     inside: np.ndarray | None = None  # sub-sample mask of the whole patch, when already known
 
     def inside_of(self, r0: int, c0: int, r1: int, c1: int) -> np.ndarray:
@@ -912,7 +913,7 @@ def _visible_samples(d: _Drawn, covers, rr: np.ndarray, cc: np.ndarray) -> np.nd
 
 
 def _occlude(d: _Drawn, ups) -> None:
-    """Visible coverage and visible-sample box of ``d`` under the drawn objects ``ups``."""
+    """Visible coverage of ``d`` under the drawn objects ``ups``."""
     v = d.cov.values
     h, w = v.shape
     s = d.cov.samples
@@ -950,36 +951,6 @@ def _occlude(d: _Drawn, ups) -> None:
     vis = v - hidden.astype(np.float32) / ss
     np.clip(vis, 0.0, 1.0, out=vis)
     d.visible = vis
-    # Box of the visible samples: only the outermost visible pixel rows and
-    # columns can hold its edges, so only they are sampled.
-    support = vis > 0
-    rows = np.flatnonzero(support.any(axis=1))
-    if rows.size == 0:
-        d.sample_box = None
-        return
-    cols = np.flatnonzero(support.any(axis=0))
-    # The outermost visible pixel column on each side and row on each side, sampled in one pass.
-    left, right, top, bottom = cols[0], cols[-1], rows[0], rows[-1]
-    r_l, r_r = np.flatnonzero(support[:, left]), np.flatnonzero(support[:, right])
-    c_t, c_b = np.flatnonzero(support[top, :]), np.flatnonzero(support[bottom, :])
-    rr = np.concatenate([r_l, r_r, np.full(c_t.size, top), np.full(c_b.size, bottom)])
-    cc = np.concatenate([np.full(r_l.size, left), np.full(r_r.size, right), c_t, c_b])
-    seen = _visible_samples(d, covers, rr, cc)  # (K, s, s)
-    a, b, c = r_l.size, r_l.size + r_r.size, r_l.size + r_r.size + c_t.size
-    j_left = np.flatnonzero(seen[:a].any(axis=(0, 1)))[0]
-    j_right = np.flatnonzero(seen[a:b].any(axis=(0, 1)))[-1]
-    i_top = np.flatnonzero(seen[b:c].any(axis=(0, 2)))[0]
-    i_bottom = np.flatnonzero(seen[c:].any(axis=(0, 2)))[-1]
-    scale = 1.0 / s
-    d.sample_box = np.array(
-        [
-            pc0 + (left * s + j_left) * scale,
-            pr0 + (top * s + i_top) * scale,
-            pc0 + (right * s + j_right + 1) * scale,
-            pr0 + (bottom * s + i_bottom + 1) * scale,
-        ],
-        dtype=np.float64,
-    )
 
 
 #: Patches up to this many pixels are occluded by testing all their samples at once
@@ -1000,7 +971,6 @@ def _occlude_small(d: _Drawn, ups) -> None:
         r0, c0 = max(pr0, u.cov.row0), max(pc0, u.cov.col0)
         r1, c1 = min(pr0 + h, u.cov.row0 + uh), min(pc0 + w, u.cov.col0 + uw)
         occ[(r0 - pr0) * s : (r1 - pr0) * s, (c0 - pc0) * s : (c1 - pc0) * s] |= u.inside_of(r0, c0, r1, c1)
-    seen = own & ~occ
     lost = (own & occ).reshape(h, s, w, s).sum(axis=(1, 3), dtype=np.int32)
     if not lost.any():
         d.visible = v
@@ -1008,7 +978,6 @@ def _occlude_small(d: _Drawn, ups) -> None:
     vis = v - lost.astype(np.float32) / (s * s)
     np.clip(vis, 0.0, 1.0, out=vis)
     d.visible = vis
-    d.sample_box = mask_box(seen, origin=(pc0, pr0), scale=1.0 / s)
 
 
 def _measure_occlusion(drawn, pairs=None) -> None:
@@ -1022,29 +991,6 @@ def _measure_occlusion(drawn, pairs=None) -> None:
             _occlude_small(d, [drawn[j] for j in above.tolist()])
         else:
             _occlude(d, [drawn[j] for j in above.tolist()])
-
-
-def visible_box(exact: np.ndarray, sample_box: np.ndarray | None) -> np.ndarray | None:
-    """The visible box: the exact (clipped) box, tightened to the visible samples when occluded.
-
-    Parameters
-    ----------
-    exact : ndarray of shape (4,)
-        Exact box clipped to the canvas.
-    sample_box : ndarray of shape (4,) or None
-        Tight box of the visible sub-pixel sample cells; None when nothing hides
-        the object.
-
-    Returns
-    -------
-    ndarray of shape (4,) or None (when nothing is visible)
-    """
-    if sample_box is None:
-        return exact.copy()
-    out = np.concatenate([np.maximum(exact[:2], sample_box[:2]), np.minimum(exact[2:], sample_box[2:])])
-    if out[2] <= out[0] or out[3] <= out[1]:
-        return None
-    return out
 
 
 def _annotate(drawn, outside: int, config):
@@ -1069,6 +1015,7 @@ def _annotate(drawn, outside: int, config):
     full_lists = full_boxes.tolist()
     visible_boxes = spec.box == "visible"
     min_visible, min_area = spec.min_visible, spec.min_area
+    above = None
     kept = []
     for z, d in enumerate(drawn):
         full_cov = float(d.cov.values.sum())
@@ -1078,14 +1025,8 @@ def _annotate(drawn, outside: int, config):
         vis_cov = full_cov if d.visible is d.cov.values else float(d.visible.sum())
         fraction = vis_cov / full_cov
         full_list = full_lists[z]
-        if vis_cov <= 0:
-            vbox = None
-        elif d.sample_box is None:  # nothing hides it: the visible box is the exact box
-            vbox = full_list
-        else:
-            vbox = visible_box(full_boxes[z], d.sample_box)
         pbox = pboxes[z]
-        if vbox is None or pbox is None or vis_cov <= 0:
+        if pbox is None or vis_cov <= 0:
             dropped["hidden"] += 1
             continue
         if fraction < min_visible:
@@ -1094,12 +1035,23 @@ def _annotate(drawn, outside: int, config):
         if vis_cov < min_area:
             dropped["min_area"] += 1
             continue
+        if above is None:
+            above = _above(full_boxes)  # later objects whose exact boxes overlap each one's
+        if above[z].size == 0:  # nothing above it: the visible box is the exact box
+            vbox = full_list
+        else:
+            ups = [(drawn[j].shape, drawn[j].style["stroke"]) for j in above[z].tolist()]
+            got = visible_box(d.shape, ups, height, width, stroke=d.style["stroke"], exact=full_boxes[z])
+            if got is None:  # only a sliver thinner than the sampling, and not even that in the geometry
+                dropped["hidden"] += 1
+                continue
+            vbox = got.tolist()
         shape = d.shape
         facts = {
             "kind": shape.kind,
             "z": z,
             "full_box": full_list,
-            "visible_box": list(full_list) if d.sample_box is None else vbox.tolist(),
+            "visible_box": list(vbox),
             "pixel_box": pbox,
             "size": sizes[z],
             "aspect": shape.aspect / natural_aspect(shape.kind, shape.sides, shape.inner),
