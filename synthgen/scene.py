@@ -47,6 +47,7 @@ from synthgen.backgrounds import render_background
 from synthgen.clutter import render_clutter
 from synthgen.degrade import degrade_owned
 from synthgen.geometry import box_iou, clip_boxes, mask_box, pairwise_iou
+from synthgen.kinds import identifiable, stroke_limit
 from synthgen.occlusion import visible_box
 from synthgen.shapes import (
     KINDS,
@@ -267,12 +268,18 @@ _FLAT = {"fill": "flat", "outline": False, "stroke": 0.0, "fill_angle": 0.0, "pe
 # --------------------------------------------------------------------------- sampling
 
 
-def _sample_objects(config, rng: np.random.Generator, n: int | None = None):
-    """Draw each object's shape parameters and paint style, all centred at the origin."""
+def _sample_objects(config, rng: np.random.Generator, n: int | None = None, kinds=None):
+    """Draw each object's shape parameters and paint style, all centred at the origin.
+
+    Each kind's own parameters come from its range in the config (polygon sides,
+    star points and inner ratio, ring hole, cross bar; :mod:`synthgen.kinds`).
+    ``kinds`` (names) replaces ``objects.shapes`` as the kinds to draw from.
+    """
     spec = config.objects
     if n is None:
         n = int(rng.integers(spec.count[0], spec.count[1] + 1))
-    kinds = rng.choice(len(spec.shapes), size=n)
+    pool = spec.shapes if kinds is None else tuple(kinds)
+    picks = rng.choice(len(pool), size=n)
     lo, hi = spec.size
     if spec.size_law == "log-uniform":
         sizes = np.exp(rng.uniform(np.log(lo), np.log(hi), size=n))
@@ -280,41 +287,59 @@ def _sample_objects(config, rng: np.random.Generator, n: int | None = None):
         sizes = rng.uniform(lo, hi, size=n)
     aspects = np.exp(rng.uniform(np.log(spec.aspect[0]), np.log(spec.aspect[1]), size=n))
     angles = rng.uniform(0.0, 360.0, size=n) if spec.rotate else np.zeros(n)
-    sides = rng.integers(spec.sides[0], spec.sides[1] + 1, size=n)
-    inner = rng.uniform(spec.inner[0], spec.inner[1], size=n)
+    counts = rng.random(size=n)  # where in its kind's range of sides or points
+    ratios = rng.random(size=n)  # where in its kind's range of inner, hole or bar ratio
     fills = rng.choice(len(spec.fills), size=n)
     outline = rng.random(size=n) < spec.outline
     strokes = rng.uniform(spec.stroke[0], spec.stroke[1], size=n)
     fill_angles = rng.uniform(0.0, 180.0, size=n)
     periods = rng.uniform(2.0, 8.0, size=n)
+    names = [pool[k] for k in picks.tolist()]
+    count_range = {"polygon": spec.sides, "star": spec.points}
+    ratio_range = {"star": spec.inner, "ring": spec.hole, "cross": spec.bar}
+    sides = [_whole_in(count_range[k], u) if k in count_range else 5 for k, u in zip(names, counts.tolist())]
+    inner = [_within(ratio_range[k], u) if k in ratio_range else 0.5 for k, u in zip(names, ratios.tolist())]
     # Plain Python values (the same floats as float(array[i])); the config's ranges
     # already guarantee what Shape checks, so shapes are built without re-checking
     # unless a value is off (then Shape raises its usual error).
     trusted = bool(
         n == 0
         or (np.isfinite(sizes).all() and (sizes > 0).all() and np.isfinite(aspects).all() and (aspects > 0).all()
-            and np.isfinite(angles).all() and (inner > 0).all() and (inner < 1).all() and (sides >= 3).all())
+            and np.isfinite(angles).all() and 0 < min(inner) and max(inner) < 1 and min(sides) >= 3)
     )
     make = shapes_mod._trusted if trusted else Shape
-    names = [spec.shapes[k] for k in kinds.tolist()]
     fill_names = [spec.fills[k] for k in fills.tolist()]
     shapes, styles = [], []
     for kind, size, asp, angle, side, inr, is_outline, fill, stroke, fill_angle, period in zip(
-        names, sizes.tolist(), aspects.tolist(), angles.tolist(), sides.tolist(), inner.tolist(),
+        names, sizes.tolist(), aspects.tolist(), angles.tolist(), sides, inner,
         outline.tolist(), fill_names, strokes.tolist(), fill_angles.tolist(), periods.tolist(),
     ):
         # objects.aspect stretches a kind's natural proportions: 1 keeps polygons and stars regular
-        shapes.append(make(kind, 0.0, 0.0, size, asp * natural_aspect(kind, side, inr), angle, side, inr))
+        shape = make(kind, 0.0, 0.0, size, asp * natural_aspect(kind, side, inr), angle, side, inr)
+        shapes.append(shape)
+        # a ring's outline would be two nested rings: rings are always filled (synthgen.kinds)
+        is_outline = is_outline and kind != "ring"
         styles.append(
             {
                 "fill": "flat" if is_outline else fill,
                 "outline": is_outline,
-                "stroke": float(min(stroke, max(size / 4.0, 0.5))) if is_outline else 0.0,
+                "stroke": float(min(stroke, stroke_limit(size, shape.aspect))) if is_outline else 0.0,
                 "fill_angle": fill_angle,
                 "period": float(max(period, size / 8.0)),
             }
         )
     return shapes, styles
+
+
+def _whole_in(bounds, u: float) -> int:
+    """The whole number at ``u`` in [0, 1) of the inclusive range ``bounds``, each equally likely."""
+    lo, hi = bounds
+    return int(lo) + min(int(u * (hi - lo + 1)), int(hi - lo))
+
+
+def _within(bounds, u: float) -> float:
+    """The number at ``u`` in [0, 1) of the range ``bounds``."""
+    return bounds[0] + u * (bounds[1] - bounds[0])
 
 
 #: Layouts that read the objects' box sizes.
@@ -485,11 +510,9 @@ def _add_occluders(shapes, styles, extras, config, rng: np.random.Generator):
     height, width = config.canvas.height, config.canvas.width
     n = len(shapes)
     chosen = np.flatnonzero(rng.random(size=n) < spec.occlusion_share)
-    occ_shapes, occ_styles = _sample_objects(config, rng, n=len(chosen))
     # A ring centred on its target would hide nothing through its hole: occluders use the other kinds.
     solid = [k for k in spec.shapes if k != "ring"]
-    if solid:
-        occ_shapes = [o if o.kind != "ring" else replace(o, kind=solid[i % len(solid)]) for i, o in enumerate(occ_shapes)]
+    occ_shapes, occ_styles = _sample_objects(config, rng, n=len(chosen), kinds=solid or None)
     lo, hi = spec.occlusion
     goals = rng.uniform(lo, hi, size=len(chosen))
     angles = rng.uniform(0.0, 2.0 * math.pi, size=len(chosen))
@@ -1061,6 +1084,7 @@ def _annotate(drawn, outside: int, config):
             "contrast": d.contrast,
             "fill": d.style["fill"],
             "outline": d.style["outline"],
+            "identifiable": identifiable(shape, d.style["stroke"]),
             **d.extra,
         }
         if "pair_id" in d.extra and d.extra["pair_id"] in pair_iou:

@@ -82,6 +82,7 @@ __all__ = [
     "exact_area",
     "clipped_box",
     "natural_aspect",
+    "own_size",
     "outline",
     "sample_inside",
     "coverage",
@@ -838,6 +839,24 @@ def exact_area(shape: Shape) -> float:
     16.0
     """
     return float(_geom(shape).area)
+
+
+def own_size(shape: Shape) -> tuple[float, float]:
+    """Width and height (px) of the shape in its own frame, before rotation (their ratio is ``aspect``).
+
+    Examples
+    --------
+    >>> own_size(Shape("rectangle", 0.0, 0.0, 10.0, aspect=0.5, angle=90.0))  # lying on its side
+    (5.0, 10.0)
+    >>> [round(v, 6) for v in own_size(Shape("ellipse", 0.0, 0.0, 10.0, aspect=2.0, angle=30.0))]
+    [11.094004, 5.547002]
+    """
+    g = _geom(shape)
+    if g.ellipse is not None:
+        return 2.0 * g.ellipse.a, 2.0 * g.ellipse.b
+    m = g._map[0]  # columns: images of the natural frame's unit vectors
+    v = g._verts
+    return (float(np.ptp(v[0]) * math.hypot(m[0, 0], m[1, 0])), float(np.ptp(v[1]) * math.hypot(m[0, 1], m[1, 1])))
 
 
 def natural_aspect(kind: str, sides: int = 5, inner: float = 0.5) -> float:
