@@ -77,38 +77,38 @@ MEASURED_ASPECT = (0.25, 4.0)
 MEASURED_STROKE = 1.0
 """Thinnest outline band (px) over which :data:`IDENTIFIABLE_BREADTH` was measured."""
 
-#: The parameter ranges each config key may narrow: key -> (kinds it defines, range, whole numbers, why).
+#: The parameter ranges a config may narrow: key -> (range, whole numbers, what lies beyond it).
 _KEYS = {
-    "objects.sides": (("polygon",), SIDES, True, "fewer sides draw a triangle or a rectangle, more an ellipse"),
-    "objects.points": (("star",), POINTS, True, "fewer points draw a triangle or a cross, more a blob"),
-    "objects.inner": (("star",), STAR_INNER, False, "a fuller star is a polygon, a thinner one a set of lines"),
-    "objects.hole": (("ring",), RING_HOLE, False, "a wider hole is an outlined ellipse, a smaller one an ellipse"),
-    "objects.bar": (("cross",), CROSS_BAR, False, "thicker bars draw an octagon, thinner ones lines"),
+    "objects.sides": (SIDES, True, "polygons of fewer sides are triangles or rectangles, of more ellipses"),
+    "objects.points": (POINTS, True, "stars of fewer points are triangles or crosses, of more blobs"),
+    "objects.inner": (STAR_INNER, False, "fuller stars are polygons, thinner ones sets of lines"),
+    "objects.hole": (RING_HOLE, False, "rings with wider holes are outlined ellipses, with smaller ones ellipses"),
+    "objects.bar": (CROSS_BAR, False, "crosses with thicker bars are octagons, with thinner ones lines"),
 }
 
 # Smallest breadth (px) at which each kind, filled (False) or outline-only (True), is told from
 # every other kind.  Measured by `python tools/measure_identifiable.py --per-class 40 --seed 1`
-# (about 20 minutes on one core): objects of every kind, style and parameter range above, aspect
+# (about half an hour on one core): objects of every kind, style and parameter range above, aspect
 # in MEASURED_ASPECT, any rotation, outline bands from MEASURED_STROKE to OUTLINE_SHARE of the
 # breadth, rendered alone at 4 x 4 samples per pixel on a ladder of breadths from 3 to 64 px and
 # described by scikit-image (regionprops solidity and holes, moment invariants of the silhouette
 # that no stretch or rotation changes); a nearest-centroid classifier trained on objects at or
-# above these breadths labels every held-out object at or above them, and every object of a
-# fresh set, with its own kind.
+# above these breadths labels every held-out object at or above them, and every object of two
+# fresh sets in a row, with its own kind.
 IDENTIFIABLE_BREADTH = {
     ("rectangle", False): 5.0,
-    ("ellipse", False): 16.0,
+    ("ellipse", False): 14.0,
     ("triangle", False): 3.0,
-    ("polygon", False): 8.0,
-    ("star", False): 16.0,
-    ("ring", False): 14.0,
-    ("cross", False): 14.0,
+    ("polygon", False): 6.0,
+    ("star", False): 14.0,
+    ("ring", False): 12.0,
+    ("cross", False): 20.0,
     ("rectangle", True): 8.0,
-    ("ellipse", True): 14.0,
+    ("ellipse", True): 16.0,
     ("triangle", True): 8.0,
     ("polygon", True): 8.0,
     ("star", True): 12.0,
-    ("cross", True): 10.0,
+    ("cross", True): 12.0,
 }
 
 
@@ -124,11 +124,12 @@ def breadth(shape: Shape) -> float:
 
 
 def stroke_limit(size: float, aspect: float) -> float:
-    """Thickest outline band (px) for a shape of ``size`` and (absolute) ``aspect``: at most :data:`OUTLINE_SHARE` of its breadth.
+    """Thickest outline band (px) for a shape of ``size`` and (absolute) ``aspect``.
 
-    The breadth is at least ``size * min(aspect, 1) / sqrt(1 + aspect^2)`` (the
-    turned box's longer side is at most the own box's diagonal), so this needs
-    no geometry; bands are never thinner than 0.5 px, however small the shape.
+    At most :data:`OUTLINE_SHARE` of the shape's breadth, which is at least
+    ``size * min(aspect, 1) / sqrt(1 + aspect^2)`` (the turned box's longer side
+    is at most the own box's diagonal), so this needs no geometry; bands are
+    never thinner than 0.5 px, however small the shape.
     """
     return max(OUTLINE_SHARE * size * min(aspect, 1.0) / math.sqrt(1.0 + aspect * aspect), 0.5)
 
@@ -179,7 +180,7 @@ def check_parameters(spec) -> None:
     ``spec`` is a :class:`synthgen.config.ObjectSpec`; its ``sides``, ``points``,
     ``inner``, ``hole`` and ``bar`` may narrow the ranges above, never widen them.
     """
-    for key, (_kinds, bounds, integer, why) in _KEYS.items():
+    for key, (bounds, integer, why) in _KEYS.items():
         value = getattr(spec, key.split(".")[1])
         try:
             check_range(key, value, lo=bounds[0], hi=bounds[1], integer=integer)

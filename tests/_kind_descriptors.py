@@ -29,10 +29,58 @@ import numpy as np
 from skimage.measure import moments_central, regionprops
 from skimage.morphology import dilation
 
-from synthgen.shapes import coverage, exact_box
+from synthgen import kinds
+from synthgen.shapes import KINDS, Shape, coverage, exact_box, natural_aspect
 
 #: Names of the descriptors, in order.
 NAMES = ("solidity", "holes", "ellipse_fill", "radial", "fold3", "fold4", "fold5to8")
+
+
+_COUNTS = {"polygon": kinds.SIDES, "star": kinds.POINTS}
+_HALVES = {"ring": kinds.RING_HOLE, "cross": kinds.CROSS_BAR}
+
+
+def classes() -> list[tuple[str, bool, int]]:
+    """Classes ``(kind, outline-only, part)``: a part is a side or point count, or the lower (0) or upper (1)
+    half of a ring's hole or a cross's bar range; rings are never outline-only."""
+    out = []
+    for outline in (False, True):
+        for kind in KINDS:
+            if kind == "ring" and outline:
+                continue
+            if kind in _COUNTS:
+                out += [(kind, outline, n) for n in range(_COUNTS[kind][0], _COUNTS[kind][1] + 1)]
+            else:
+                out += [(kind, outline, part) for part in ((0, 1) if kind in _HALVES else (0,))]
+    return out
+
+
+def sample(cls, b: float, rng: np.random.Generator):
+    """A random object of class ``cls`` (see :func:`classes`) with breadth ``b`` px: ``(shape, stroke)``.
+
+    Aspect log-uniform in ``kinds.MEASURED_ASPECT`` times the kind's natural one, any rotation,
+    random sub-pixel position; an outline band log-uniform from ``kinds.MEASURED_STROKE`` to
+    ``kinds.OUTLINE_SHARE`` of the breadth.
+    """
+    kind, outline, part = cls
+    sides = part if kind in _COUNTS else 5
+    inner = 0.5
+    if kind == "star":
+        inner = float(rng.uniform(*kinds.STAR_INNER))
+    elif kind in _HALVES:
+        lo, hi = _HALVES[kind]
+        mid = (lo + hi) / 2.0
+        inner = float(rng.uniform(lo, mid) if part == 0 else rng.uniform(mid, hi))
+    lo, hi = kinds.MEASURED_ASPECT
+    aspect = math.exp(rng.uniform(math.log(lo), math.log(hi))) * natural_aspect(kind, sides, inner)
+    angle = float(rng.uniform(0.0, 360.0))
+    size = 10.0 * b / kinds.breadth(Shape(kind, 0.0, 0.0, 10.0, aspect, angle, sides, inner))  # breadth ~ size
+    shape = Shape(kind, float(rng.uniform(0, 1)), float(rng.uniform(0, 1)), size, aspect, angle, sides, inner)
+    stroke = 0.0
+    if outline:
+        top = kinds.OUTLINE_SHARE * b
+        stroke = float(math.exp(rng.uniform(math.log(kinds.MEASURED_STROKE), math.log(top))))
+    return shape, stroke
 
 
 def render(shape, stroke: float = 0.0, samples: int = 4) -> np.ndarray:

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import math
 
 import numpy as np
 import pytest
@@ -14,7 +13,7 @@ from synthgen.config import load_config
 from synthgen.errors import ConfigError
 from synthgen.scene import _sample_objects, render_scene
 from synthgen.shapes import KINDS, Shape, natural_aspect, own_size
-from tests._kind_descriptors import NearestCentroid, descriptors, render
+from tests._kind_descriptors import NearestCentroid, classes, descriptors, render, sample
 
 # --------------------------------------------------------------------------- ranges
 
@@ -122,45 +121,25 @@ def test_scene_facts_carry_identifiable():
 
 
 def _objects(rng, breadths, per_class):
-    """Rendered objects of every kind, style and parameter range at the given breadths (and the table's)."""
-    x, labels, kinds_of = [], [], []
-    for outline in (False, True):
-        for kind in KINDS:
-            if kind == "ring" and outline:
-                continue
-            least = kinds.IDENTIFIABLE_BREADTH[kind, outline]
-            for b in breadths(least):
-                for _ in range(per_class):
-                    sides = int(rng.integers(kinds.SIDES[0], kinds.SIDES[1] + 1))
-                    inner = {"star": kinds.STAR_INNER, "ring": kinds.RING_HOLE, "cross": kinds.CROSS_BAR}.get(kind)
-                    inner = float(rng.uniform(*inner)) if inner else 0.5
-                    lo, hi = kinds.MEASURED_ASPECT
-                    aspect = math.exp(rng.uniform(math.log(lo), math.log(hi))) * natural_aspect(kind, sides, inner)
-                    angle = float(rng.uniform(0, 360))
-                    probe = Shape(kind, 0.0, 0.0, 10.0, aspect, angle, sides, inner)
-                    shape = Shape(kind, float(rng.uniform(0, 1)), float(rng.uniform(0, 1)),
-                                  10.0 * b / kinds.breadth(probe), aspect, angle, sides, inner)
-                    stroke = 0.0
-                    if outline:
-                        top = kinds.OUTLINE_SHARE * b
-                        stroke = float(math.exp(rng.uniform(math.log(kinds.MEASURED_STROKE), math.log(top))))
-                    x.append(descriptors(render(shape, stroke)))
-                    # one centroid per kind, style and part of its range: side or point count, half of a ratio
-                    ratio = {"ring": kinds.RING_HOLE, "cross": kinds.CROSS_BAR}.get(kind)
-                    part = sides if kind in ("polygon", "star") else int(inner > sum(ratio) / 2) if ratio else 0
-                    labels.append((kind, outline, part))
-                    kinds_of.append(kind)
-    return np.array(x), labels, kinds_of
+    """Descriptors, classes and kinds of rendered objects of every class at ``breadths(least breadth)``."""
+    x, labels = [], []
+    for cls in classes():
+        for b in breadths(kinds.IDENTIFIABLE_BREADTH[cls[0], cls[1]]):
+            for _ in range(per_class):
+                x.append(descriptors(render(*sample(cls, b, rng))))
+                labels.append(cls)
+    return np.array(x), labels, [c[0] for c in labels]
 
 
 def test_kinds_are_told_apart_by_their_pixels():
     """Objects at or above their identifiable breadth: a nearest-centroid classifier never confuses two kinds.
 
     Outside reference: scikit-image (regionprops solidity and holes, moments_central) measures
-    every rendered object (tests/_kind_descriptors.py); the classifier is trained on one set of
-    objects at the table's breadths and up, and labels a held-out set drawn independently, at
-    random breadths from the table's value to three times it, any aspect in MEASURED_ASPECT,
-    any rotation, and outline bands from MEASURED_STROKE to OUTLINE_SHARE of the breadth.
+    every rendered object (tests/_kind_descriptors.py); the classifier, one centroid per kind,
+    style and part of its parameter range, is trained on objects at the table's breadths and up,
+    and labels a held-out set drawn independently at random breadths from the table's value to
+    three times it, any aspect in MEASURED_ASPECT, any rotation, and outline bands from
+    MEASURED_STROKE to OUTLINE_SHARE of the breadth.
     """
     rng = np.random.default_rng(2026)
     x, labels, _ = _objects(rng, lambda least: [least, 1.5 * least, 2 * least, 3 * least], 6)
@@ -169,4 +148,4 @@ def test_kinds_are_told_apart_by_their_pixels():
     predicted = [label[0] for label in model.predict(held)]
     confused = [(t, p) for t, p in zip(truth, predicted) if t != p]
     assert confused == []
-    assert len(truth) == 4 * 8 * 13
+    assert len(truth) == 4 * 8 * len(classes())

@@ -75,7 +75,7 @@ def test_ring_cut_by_a_wall():
 
 
 def test_visible_box_under_a_circle_crossing():
-    """A square whose top edge a circle hides except its ends: sides at the crossings (Pythagoras)."""
+    """A square under a disc: corners in view keep its box; with them hidden, its top is a crossing (Pythagoras)."""
     low = square(30, 30, 20)  # [20, 20, 40, 40]
     disc = circle(30, 14, 10)  # covers y <= 14 + sqrt(100 - dx^2) near the top edge
     # the top edge y = 20 is hidden where |x - 30| < sqrt(100 - 36) = 8; the corners (20, 20)
@@ -90,12 +90,12 @@ def test_visible_box_under_a_circle_crossing():
 
 
 def test_outline_band_shows_through_a_filled_shape():
-    """An outline-only square under a smaller filled square keeps its frame: the box is unchanged."""
+    """An outline-only square keeps its box under a square inside its hole, and under an outline whose hole shows it."""
     frame = square(30, 30, 20)
     inside = square(30, 30, 12)  # covers only the hole and nothing of the 2 px frame
     assert visible_box(frame, [(inside, 0.0)], 64, 64, stroke=2.0).tolist() == [20.0, 20.0, 40.0, 40.0]
-    # a filled square above an outline does not hide what its own hole shows: the frame [20, 20, 40, 40]
-    # lies partly under the upper outline's hole
+    # an outline above hides only its band: the frame's top is above it, its sides and bottom show
+    # through its hole
     upper = square(30, 40, 30)  # outline [15, 25, 45, 55] with a 3 px band: its hole is [18, 28, 42, 52]
     assert visible_box(frame, [(upper, 3.0)], 64, 64, stroke=2.0).tolist() == [20.0, 20.0, 40.0, 40.0]
 

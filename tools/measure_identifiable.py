@@ -14,17 +14,17 @@ classifier, one centroid per kind, style and part, labels them:
 3. class by class, the threshold moves one step down the ladder when every held-out object
    still gets its own kind, and stays otherwise; repeat until no threshold moves;
 4. fresh objects (new seeds) at or above the thresholds are labelled; a class with a
-   mislabelled one moves above that breadth, until a fresh set is labelled without error.
+   mislabelled one moves above that breadth, until two fresh sets in a row are labelled
+   without error.
 
 A kind's threshold for a style is the largest over its parts.
 
-    python tools/measure_identifiable.py [--per-class 40] [--seed 1]
+    python tools/measure_identifiable.py [--per-class 40] [--seed 1]    (about half an hour on one core)
 """
 
 from __future__ import annotations
 
 import argparse
-import math
 import sys
 from pathlib import Path
 
@@ -33,54 +33,9 @@ import numpy as np
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))  # for tests/_kind_descriptors.py
 
 from synthgen import kinds  # noqa: E402
-from synthgen.shapes import KINDS, Shape, natural_aspect  # noqa: E402
-from tests._kind_descriptors import NearestCentroid, descriptors, render  # noqa: E402
+from tests._kind_descriptors import NearestCentroid, classes, descriptors, render, sample  # noqa: E402
 
 LADDER = (3, 4, 5, 6, 7, 8, 10, 12, 14, 16, 20, 24, 28, 32, 40, 48, 64)
-RATIOS = {"star": kinds.STAR_INNER, "ring": kinds.RING_HOLE, "cross": kinds.CROSS_BAR}
-COUNTS = {"polygon": kinds.SIDES, "star": kinds.POINTS}
-
-
-def classes() -> list[tuple[str, bool, int]]:
-    """(kind, outline-only, part): parts are side or point counts, or the lower (0) and upper (1) half of a ratio."""
-    out = []
-    for outline in (False, True):
-        for kind in KINDS:
-            if kind == "ring" and outline:
-                continue  # rings are never drawn outline-only
-            if kind in COUNTS:
-                out += [(kind, outline, n) for n in range(COUNTS[kind][0], COUNTS[kind][1] + 1)]
-            elif kind in RATIOS:
-                out += [(kind, outline, 0), (kind, outline, 1)]
-            else:
-                out.append((kind, outline, 0))
-    return out
-
-
-def sample(cls, b: float, rng: np.random.Generator):
-    """One object of class ``cls`` with breadth ``b`` px: (shape, stroke)."""
-    kind, outline, part = cls
-    sides = part if kind in COUNTS else 5
-    inner = 0.5
-    if kind in RATIOS:
-        lo, hi = RATIOS[kind]
-        mid = (lo + hi) / 2.0
-        inner = float(rng.uniform(lo, mid) if part == 0 else rng.uniform(mid, hi))
-    if kind == "star":
-        inner = float(rng.uniform(*kinds.STAR_INNER))
-    lo, hi = kinds.MEASURED_ASPECT
-    aspect = math.exp(rng.uniform(math.log(lo), math.log(hi))) * natural_aspect(kind, sides, inner)
-    angle = float(rng.uniform(0.0, 360.0))
-    probe = Shape(kind, 0.0, 0.0, 10.0, aspect, angle, sides, inner)
-    size = 10.0 * b / kinds.breadth(probe)
-    shape = Shape(kind, float(rng.uniform(0, 1)), float(rng.uniform(0, 1)), size, aspect, angle, sides, inner)
-    stroke = 0.0
-    if outline:
-        top = kinds.OUTLINE_SHARE * b
-        stroke = float(math.exp(rng.uniform(math.log(kinds.MEASURED_STROKE), math.log(top))))
-    return shape, stroke
-
-
 def render_all(cls, per_class: int, rng: np.random.Generator) -> dict:
     """Descriptors of ``2 * per_class`` objects per class and breadth: (class, breadth) -> (training, held out)."""
     data = {}
@@ -103,7 +58,10 @@ def train(data, threshold) -> NearestCentroid:
 def clean(cls, data, threshold, model) -> bool:
     """Whether ``model`` labels every held-out object at or above the thresholds with its kind."""
     return all(
-        cls[p][0] == cls[ci][0] for (ci, b), (_, held) in data.items() if b >= threshold[ci] for p in model.predict(held)
+        cls[p][0] == cls[ci][0]
+        for (ci, b), (_, held) in data.items()
+        if b >= threshold[ci]
+        for p in model.predict(held)
     )
 
 
@@ -127,7 +85,7 @@ def measure(cls, data):
 
 
 def check(cls, threshold, model, per_class: int, seed: int) -> dict:
-    """Fresh objects of each class at or above its threshold: the largest breadth at which one is mislabelled, per class."""
+    """Fresh objects of each class at or above its threshold: per class, the largest breadth with one mislabelled."""
     rng = np.random.default_rng(seed)
     worst = {}
     for ci, c in enumerate(cls):
@@ -149,16 +107,18 @@ def main() -> None:
     data = render_all(cls, args.per_class, np.random.default_rng(args.seed))
     threshold = measure(cls, data)
     # fresh sets: a class with a mislabelled object moves above that breadth, until a set is clean
-    for round_ in range(1, 21):
+    clean_in_a_row = 0
+    for round_ in range(1, 31):
         worst = check(cls, threshold, train(data, threshold), args.per_class, args.seed + round_)
         print(f"fresh set {round_}: {len(worst)} classes with a mislabelled object", file=sys.stderr)
-        if not worst:
+        clean_in_a_row = 0 if worst else clean_in_a_row + 1
+        if clean_in_a_row == 2:
             break
         for ci, b in worst.items():
             above = [v for v in LADDER if v > b]
             threshold[ci] = above[0] if above else 2 * LADDER[-1]
     else:
-        raise SystemExit("no fresh set came out clean")
+        raise SystemExit("no two fresh sets in a row came out clean")
     table = {}
     for ci, (kind, outline, _part) in enumerate(cls):
         table[kind, outline] = max(table.get((kind, outline), 0), threshold[ci])
