@@ -26,6 +26,7 @@ from typing import Any
 from synthgen.backgrounds import BackgroundSpec
 from synthgen.degrade import DegradeSpec
 from synthgen.errors import ConfigError, InputFileError, as_tuples, check_choice, check_number, check_range
+from synthgen.kinds import CROSS_BAR, POINTS, RING_HOLE, SIDES, STAR_INNER, check_parameters
 from synthgen.shapes import FILLS, KINDS
 
 __all__ = [
@@ -104,8 +105,11 @@ class ObjectSpec:
     fills: tuple[str, ...] = FILLS
     outline: float = 0.15
     stroke: tuple[float, float] = (1.5, 4.0)
-    sides: tuple[int, int] = (3, 8)
-    inner: tuple[float, float] = (0.35, 0.65)
+    sides: tuple[int, int] = SIDES  # polygon sides; these five keep the kinds apart (synthgen.kinds)
+    points: tuple[int, int] = POINTS  # star points
+    inner: tuple[float, float] = STAR_INNER  # star inner / outer radius
+    hole: tuple[float, float] = RING_HOLE  # ring hole / outer size
+    bar: tuple[float, float] = CROSS_BAR  # cross bar thickness / length
     box: str = "visible"
     dropped: str = "ignore"  # what becomes of a dropped object that still shows: ignore region, or erased
     max_iou: float = 0.0  # largest exact-box IoU of two objects, in [0, 1] (0: none overlap)
@@ -134,8 +138,7 @@ class ObjectSpec:
         _check_names("objects.fills", self.fills, FILLS)
         check_number("objects.outline", self.outline, lo=0, hi=1)
         check_range("objects.stroke", self.stroke, lo=0, lo_open=True)
-        check_range("objects.sides", self.sides, lo=3, hi=64, integer=True)
-        check_range("objects.inner", self.inner, lo=0, lo_open=True, hi=0.95)
+        check_parameters(self)
         check_choice("objects.box", self.box, BOX_KINDS)
         check_choice("objects.dropped", self.dropped, DROPPED)
         check_number("objects.max_iou", self.max_iou, lo=0, hi=1)

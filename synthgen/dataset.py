@@ -368,6 +368,7 @@ def versions() -> dict:
     """Versions of Python and of the libraries whose output ends up in the files."""
     import cv2
     import PIL
+    import shapely
 
     return {
         "synthgen": __version__,
@@ -375,6 +376,7 @@ def versions() -> dict:
         "numpy": np.__version__,
         "pillow": PIL.__version__,
         "opencv": cv2.__version__,
+        "shapely": shapely.__version__,  # visible boxes (GEOS polygon arithmetic)
     }
 
 

@@ -3,8 +3,10 @@
 Occlusion is measured on the supersampled coverage (see
 :class:`synthgen.shapes.Coverage`): a sub-pixel sample of an object is hidden
 when any object drawn later covers the same sample (:mod:`synthgen.occlusion`).
-From that come, per object, the visible coverage, the visible fraction, the
-visible box and the pixel box (box kinds are defined in :mod:`synthgen.geometry`).
+From that come, per object, the visible coverage, the visible fraction and
+the pixel box.  The visible box comes from the continuous outlines of the
+object and of the drawn objects above it (:func:`synthgen.visible.visible_box`);
+box kinds are defined in :mod:`synthgen.geometry`.
 The composer first walks the objects from the top down and judges each
 against the annotation rules (``objects.min_visible``, ``objects.min_area``):
 an object that passes is annotated; one that fails but still shows becomes an
@@ -55,7 +57,9 @@ from synthgen.backgrounds import render_background
 from synthgen.clutter import render_clutter
 from synthgen.degrade import degrade_owned
 from synthgen.geometry import box_iou, clip_boxes, mask_box
+from synthgen.kinds import identifiable, stroke_limit
 from synthgen.occlusion import SampleBuffer, patch_bounds, sample_bits_many
+from synthgen.visible import visible_box
 from synthgen.shapes import (
     KINDS,
     Shape,
@@ -76,7 +80,6 @@ __all__ = [
     "compose_shapes",
     "plan_objects",
     "place_occluder",
-    "visible_box",
     "category_id",
     "luminance",
     "LUMA",
@@ -311,12 +314,18 @@ _FLAT = {"fill": "flat", "outline": False, "stroke": 0.0, "fill_angle": 0.0, "pe
 # --------------------------------------------------------------------------- sampling
 
 
-def _sample_objects(config, rng: np.random.Generator, n: int | None = None):
-    """Draw each object's shape parameters and paint style, all centred at the origin."""
+def _sample_objects(config, rng: np.random.Generator, n: int | None = None, kinds=None):
+    """Draw each object's shape parameters and paint style, all centred at the origin.
+
+    Each kind's own parameters come from its range in the config (polygon sides,
+    star points and inner ratio, ring hole, cross bar; :mod:`synthgen.kinds`).
+    ``kinds`` (names) replaces ``objects.shapes`` as the kinds to draw from.
+    """
     spec = config.objects
     if n is None:
         n = int(rng.integers(spec.count[0], spec.count[1] + 1))
-    kinds = rng.choice(len(spec.shapes), size=n)
+    pool = spec.shapes if kinds is None else tuple(kinds)
+    picks = rng.choice(len(pool), size=n)
     lo, hi = spec.size
     if spec.size_law == "log-uniform":
         sizes = np.exp(rng.uniform(np.log(lo), np.log(hi), size=n))
@@ -324,41 +333,59 @@ def _sample_objects(config, rng: np.random.Generator, n: int | None = None):
         sizes = rng.uniform(lo, hi, size=n)
     aspects = np.exp(rng.uniform(np.log(spec.aspect[0]), np.log(spec.aspect[1]), size=n))
     angles = rng.uniform(0.0, 360.0, size=n) if spec.rotate else np.zeros(n)
-    sides = rng.integers(spec.sides[0], spec.sides[1] + 1, size=n)
-    inner = rng.uniform(spec.inner[0], spec.inner[1], size=n)
+    counts = rng.random(size=n)  # where in its kind's range of sides or points
+    ratios = rng.random(size=n)  # where in its kind's range of inner, hole or bar ratio
     fills = rng.choice(len(spec.fills), size=n)
     outline = rng.random(size=n) < spec.outline
     strokes = rng.uniform(spec.stroke[0], spec.stroke[1], size=n)
     fill_angles = rng.uniform(0.0, 180.0, size=n)
     periods = rng.uniform(2.0, 8.0, size=n)
+    names = [pool[k] for k in picks.tolist()]
+    count_range = {"polygon": spec.sides, "star": spec.points}
+    ratio_range = {"star": spec.inner, "ring": spec.hole, "cross": spec.bar}
+    sides = [_whole_in(count_range[k], u) if k in count_range else 5 for k, u in zip(names, counts.tolist())]
+    inner = [_within(ratio_range[k], u) if k in ratio_range else 0.5 for k, u in zip(names, ratios.tolist())]
     # Plain Python values (the same floats as float(array[i])); the config's ranges
     # already guarantee what Shape checks, so shapes are built without re-checking
     # unless a value is off (then Shape raises its usual error).
     trusted = bool(
         n == 0
         or (np.isfinite(sizes).all() and (sizes > 0).all() and np.isfinite(aspects).all() and (aspects > 0).all()
-            and np.isfinite(angles).all() and (inner > 0).all() and (inner < 1).all() and (sides >= 3).all())
+            and np.isfinite(angles).all() and 0 < min(inner) and max(inner) < 1 and min(sides) >= 3)
     )
     make = shapes_mod._trusted if trusted else Shape
-    names = [spec.shapes[k] for k in kinds.tolist()]
     fill_names = [spec.fills[k] for k in fills.tolist()]
     shapes, styles = [], []
     for kind, size, asp, angle, side, inr, is_outline, fill, stroke, fill_angle, period in zip(
-        names, sizes.tolist(), aspects.tolist(), angles.tolist(), sides.tolist(), inner.tolist(),
+        names, sizes.tolist(), aspects.tolist(), angles.tolist(), sides, inner,
         outline.tolist(), fill_names, strokes.tolist(), fill_angles.tolist(), periods.tolist(),
     ):
         # objects.aspect stretches a kind's natural proportions: 1 keeps polygons and stars regular
-        shapes.append(make(kind, 0.0, 0.0, size, asp * natural_aspect(kind, side, inr), angle, side, inr))
+        shape = make(kind, 0.0, 0.0, size, asp * natural_aspect(kind, side, inr), angle, side, inr)
+        shapes.append(shape)
+        # a ring's outline would be two nested rings: rings are always filled (synthgen.kinds)
+        is_outline = is_outline and kind != "ring"
         styles.append(
             {
                 "fill": "flat" if is_outline else fill,
                 "outline": is_outline,
-                "stroke": float(min(stroke, max(size / 4.0, 0.5))) if is_outline else 0.0,
+                "stroke": float(min(stroke, stroke_limit(size, shape.aspect))) if is_outline else 0.0,
                 "fill_angle": fill_angle,
                 "period": float(max(period, size / 8.0)),
             }
         )
     return shapes, styles
+
+
+def _whole_in(bounds, u: float) -> int:
+    """The whole number at ``u`` in [0, 1) of the inclusive range ``bounds``, each equally likely."""
+    lo, hi = bounds
+    return int(lo) + min(int(u * (hi - lo + 1)), int(hi - lo))
+
+
+def _within(bounds, u: float) -> float:
+    """The number at ``u`` in [0, 1) of the range ``bounds``."""
+    return bounds[0] + u * (bounds[1] - bounds[0])
 
 
 #: Layouts that read the objects' box sizes.
@@ -533,11 +560,9 @@ def _add_occluders(shapes, styles, extras, config, rng: np.random.Generator):
     height, width = config.canvas.height, config.canvas.width
     n = len(shapes)
     chosen = np.flatnonzero(rng.random(size=n) < spec.occlusion_share)
-    occ_shapes, occ_styles = _sample_objects(config, rng, n=len(chosen))
     # A ring centred on its target would hide nothing through its hole: occluders use the other kinds.
     solid = [k for k in spec.shapes if k != "ring"]
-    if solid:
-        occ_shapes = [o if o.kind != "ring" else replace(o, kind=solid[i % len(solid)]) for i, o in enumerate(occ_shapes)]
+    occ_shapes, occ_styles = _sample_objects(config, rng, n=len(chosen), kinds=solid or None)
     lo, hi = spec.occlusion
     goals = rng.uniform(lo, hi, size=len(chosen))
     angles = rng.uniform(0.0, 2.0 * math.pi, size=len(chosen))
@@ -779,30 +804,6 @@ def _judge(cov, visible, sample_box, hides: bool, spec, erase: bool):
 
 #: From this many objects in a level, :func:`_measure` judges their small patches together.
 _BULK_WALK_MIN = 8
-
-
-def visible_box(exact: np.ndarray, sample_box: np.ndarray | None) -> np.ndarray | None:
-    """The visible box: the exact (clipped) box, tightened to the visible samples when occluded.
-
-    Parameters
-    ----------
-    exact : ndarray of shape (4,)
-        Exact box clipped to the canvas.
-    sample_box : ndarray of shape (4,) or None
-        Tight box of the visible sub-pixel sample cells; None when nothing hides
-        the object.
-
-    Returns
-    -------
-    ndarray of shape (4,) or None (when nothing is visible)
-    """
-    if sample_box is None:
-        return exact.copy()
-    out = np.concatenate([np.maximum(exact[:2], sample_box[:2]), np.minimum(exact[2:], sample_box[2:])])
-    if out[2] <= out[0] or out[3] <= out[1]:
-        return None
-    return out
-
 
 
 # --------------------------------------------------------------------------- painting
@@ -1139,15 +1140,20 @@ def _annotate(measured, outside: int, config):
     cut = ((raw[:, 0] < 0) | (raw[:, 1] < 0) | (raw[:, 2] > width) | (raw[:, 3] > height)).tolist()
     full_lists = full_boxes.tolist()
     visible_boxes = spec.box == "visible"
+    above = _drawn_above(full_boxes)
     kept, ignored = [], []
     for t, (z, d) in enumerate(zip(zs, shown)):
         full_list = full_lists[t]
         pbox = pboxes[t]  # never None: a shown object has a visible sample
-        if d.sample_box is None:  # nothing hides it: the visible box is the exact box
+        ups = above.get(t)
+        if ups is None:  # nothing drawn above meets its exact box: the visible box is the exact box
             vbox = full_list
         else:
-            vbox = visible_box(full_boxes[t], d.sample_box)
-            vbox = pbox if vbox is None else vbox.tolist()  # (float slack only: samples lie in the exact box)
+            ups = [(shown[u].shape, shown[u].style["stroke"]) for u in ups]
+            got = visible_box(d.shape, ups, height, width, stroke=d.style["stroke"], exact=full_boxes[t])
+            # None only when the geometry leaves no area where some sample still showed (floating
+            # point at a shared edge): the pixel box within the exact box stands in
+            vbox = got.tolist() if got is not None else _within_box(pbox, full_list)
         shape = d.shape
         facts = {
             "kind": shape.kind,
@@ -1163,6 +1169,7 @@ def _annotate(measured, outside: int, config):
             "contrast": d.contrast,
             "fill": d.style["fill"],
             "outline": d.style["outline"],
+            "identifiable": identifiable(shape, d.style["stroke"]),
             **d.extra,
         }
         if "pair_id" in d.extra and d.extra["pair_id"] in pair_iou:
@@ -1178,6 +1185,33 @@ def _annotate(measured, outside: int, config):
             facts["ignored"] = d.verdict
             ignored.append((box, d.vis_cov, facts, mask))
     return kept, ignored, {"dropped": dropped, "ignored": ignored_counts}
+
+
+def _drawn_above(boxes: np.ndarray) -> dict:
+    """For each drawn object, the later drawn objects whose exact boxes overlap its own.
+
+    ``boxes`` (N, 4) are the exact (clipped) boxes of the objects painted, in
+    draw order; the result maps a position to the ascending positions above it
+    (positions with nothing above are left out).  Built from the pairs of
+    overlapping boxes (:func:`_overlapping_pair_blocks`), so the work follows
+    the number of such pairs, not N^2.  Objects that are not painted (hidden,
+    erased) are not in ``boxes``: they hide nothing.
+    """
+    blocks = list(_overlapping_pair_blocks(boxes))
+    lo = np.concatenate([b[0] for b in blocks] or [np.zeros(0, dtype=np.int64)])
+    hi = np.concatenate([b[1] for b in blocks] or [np.zeros(0, dtype=np.int64)])
+    if lo.size == 0:
+        return {}
+    order = np.lexsort((hi, lo))
+    lo, hi = lo[order], hi[order]
+    starts = np.flatnonzero(np.r_[True, lo[1:] != lo[:-1]])
+    return dict(zip(lo[starts].tolist(), (part.tolist() for part in np.split(hi, starts[1:]))))
+
+
+def _within_box(box: list, bound: list) -> list:
+    """``box`` (x0, y0, x1, y1) cut to ``bound``, or ``bound`` itself when they do not overlap."""
+    out = [max(box[0], bound[0]), max(box[1], bound[1]), min(box[2], bound[2]), min(box[3], bound[3])]
+    return out if out[0] < out[2] and out[1] < out[3] else list(bound)
 
 
 def _supports_and_pixel_boxes(drawn):

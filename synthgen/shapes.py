@@ -82,6 +82,7 @@ __all__ = [
     "exact_area",
     "clipped_box",
     "natural_aspect",
+    "own_size",
     "outline",
     "sample_inside",
     "coverage",
@@ -457,11 +458,12 @@ class _Band:
 
 
 class _Geom:
-    __slots__ = ("box", "area", "region", "ellipse", "hole", "_verts", "_nring", "_map")
+    __slots__ = ("box", "area", "region", "ellipse", "hole", "_verts", "_nring", "_map", "scale")
 
-    def __init__(self, box, area, region, ellipse=None, hole=0.0, verts=None, nring=0, affine=None):
+    def __init__(self, box, area, region, ellipse=None, hole=0.0, verts=None, nring=0, affine=None, scale=1.0):
         self.box = box  # tuple (x0, y0, x1, y1), unclipped
         self.area = area
+        self.scale = scale  # px per unit of the own frame (width aspect, height 1)
         self.region = region  # fill region
         self.ellipse = ellipse  # _Ellipse for ellipse / ring, else None
         self.hole = hole  # ring hole ratio, else 0.0
@@ -578,8 +580,8 @@ def _build(shape: Shape) -> _Geom:
         if kind == "ring":
             q = shape.inner
             hole = _Ellipse(shape.cx, shape.cy, cos, sin, q * a, q * b)
-            return _Geom(box, math.pi * a * b * (1.0 - q * q), _Diff(ell, hole), ell, q)
-        return _Geom(box, math.pi * a * b, ell, ell)
+            return _Geom(box, math.pi * a * b * (1.0 - q * q), _Diff(ell, hole), ell, q, scale=k)
+        return _Geom(box, math.pi * a * b, ell, ell, scale=k)
 
     if kind == "star":
         verts, groups, area0, ex, ey = _star(shape.sides, shape.inner)
@@ -618,6 +620,7 @@ def _build(shape: Shape) -> _Geom:
         verts=verts,
         nring=verts.shape[1],
         affine=(k * lin, np.array([tx, ty])),
+        scale=k,
     )
 
 
@@ -728,6 +731,7 @@ def _build_polygon_group(kind: str, sides: int, shapes) -> list:
         parts.append((nx, ny, (col(k) * lc) * inv_len + (nx * col(tx) + ny * col(ty))))
     maps = col(k) * lin
     shifts = np.stack([tx, ty], axis=1)
+    scales = k.tolist()
     shared = verts.ndim == 2
     nring = verts.shape[-1]
     out = []
@@ -741,6 +745,7 @@ def _build_polygon_group(kind: str, sides: int, shapes) -> list:
                 verts=verts if shared else verts[i],
                 nring=nring,
                 affine=(maps[i], shifts[i]),
+                scale=scales[i],
             )
         )
     return out
@@ -838,6 +843,20 @@ def exact_area(shape: Shape) -> float:
     16.0
     """
     return float(_geom(shape).area)
+
+
+def own_size(shape: Shape) -> tuple[float, float]:
+    """Width and height (px) of the shape in its own frame, before rotation (their ratio is ``aspect``).
+
+    Examples
+    --------
+    >>> own_size(Shape("rectangle", 0.0, 0.0, 10.0, aspect=0.5, angle=90.0))  # lying on its side
+    (5.0, 10.0)
+    >>> [round(v, 6) for v in own_size(Shape("ellipse", 0.0, 0.0, 10.0, aspect=2.0, angle=30.0))]
+    [11.094004, 5.547002]
+    """
+    k = _geom(shape).scale
+    return k * shape.aspect, k
 
 
 def natural_aspect(kind: str, sides: int = 5, inner: float = 0.5) -> float:

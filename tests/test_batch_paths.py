@@ -86,6 +86,7 @@ def test_bulk_geometry_equals_one_by_one(seed, monkeypatch):
         want = sh._build(shape)
         assert got.box == want.box
         assert got.area == want.area
+        assert got.scale == want.scale
         for a, b in zip(_region_arrays(got.region), _region_arrays(want.region), strict=True):
             assert np.array_equal(a, b)
         if want.ring is None:

@@ -33,7 +33,8 @@ def test_score_prints_tables_and_writes_json(small_dataset, tmp_path):
     assert "COCO box metrics" in res.stdout and "by kind" in res.stdout
     out = json.loads((tmp_path / "out.json").read_text())
     assert abs(out["stats"]["AP"] - 1.0) < 1e-9
-    assert sum(b["n_gt"] for b in out["slices"]["kind"]) == out["counts"]["ground_truth"]
+    # slices count objects; ignore regions (iscrowd 1) are in the ground truth but in no slice
+    assert sum(b["n_gt"] for b in out["slices"]["kind"]) == out["counts"]["ground_truth"] - out["counts"]["crowd"]
 
 
 def test_score_plot_is_a_png_of_the_stated_size(small_dataset, tmp_path):
@@ -199,12 +200,13 @@ def test_score_derives_size_and_kind_for_a_coco_file_without_facts(small_dataset
     assert res.exit_code == 0, res.output
     out = json.loads((tmp_path / "o.json").read_text())
     names = {c["id"]: c["name"] for c in gt["categories"]}
+    objects = [a for a in gt["annotations"] if not a["iscrowd"]]  # slices hold objects, not ignore regions
     want = {}
-    for a in gt["annotations"]:
+    for a in objects:
         want[names[a["category_id"]]] = want.get(names[a["category_id"]], 0) + 1
     assert {b["label"]: b["n_gt"] for b in out["slices"]["kind"]} == want
-    assert sum(b["n_gt"] for b in out["slices"]["size"]) == len(gt["annotations"])
-    assert sum(b["n_gt"] for b in out["slices"]["neighbours"]) == len(gt["annotations"])
+    assert sum(b["n_gt"] for b in out["slices"]["size"]) == len(objects)
+    assert sum(b["n_gt"] for b in out["slices"]["neighbours"]) == len(objects)
 
 
 def test_predictions_with_an_unknown_category_are_counted_and_reported(small_dataset, tmp_path):

@@ -44,7 +44,8 @@ def test_core_install_leaves_test_kit_and_figures_to_extras():
     extras = {k: _names(v) for k, v in PYPROJECT["optional-dependencies"].items()}
     assert not core & {"pytest", "hypothesis", "matplotlib", "dask"}
     assert extras["testing"] == {"pytest", "hypothesis"} and extras["plots"] == {"matplotlib"}
-    assert extras["testing"] | extras["plots"] | extras["cluster"] | {"pycocotools", "shapely"} <= extras["test"]
+    assert extras["testing"] | extras["plots"] | extras["cluster"] | {"pycocotools"} <= extras["test"]
+    assert {"shapely", "pyyaml"} <= core  # visible boxes are computed with shapely; check reads data.yaml
 
 
 def _run_without(tmp_path, modules: list[str], code: str) -> subprocess.CompletedProcess:

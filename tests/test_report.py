@@ -309,11 +309,12 @@ def test_classify_true_positives_agree_with_pycocotools(small_dataset):
     ev.params.iouThrs = np.array([0.5])
     ev.params.areaRng, ev.params.areaRngLbl = [[0, 1e10]], ["all"]
     ev.evaluate()
-    # pycocotools cocoeval.py: evalImgs[...]["dtMatches"][t] is the matched gt id, 0 when unmatched
+    # pycocotools cocoeval.py: evalImgs[...]["dtMatches"][t] is the matched gt id, 0 when unmatched;
+    # "dtIgnore"[t] marks a detection matched to an ignore region (iscrowd 1), which is no true positive
     matched_dt = set()
     for e in ev.evalImgs:
         if e is not None:
-            matched_dt |= {d for d, m in zip(e["dtIds"], e["dtMatches"][0]) if m > 0}
+            matched_dt |= {d for d, m, ig in zip(e["dtIds"], e["dtMatches"][0], e["dtIgnore"][0]) if m > 0 and not ig}
     ours = {i + 1 for i, k in enumerate(p.kind) if k == "true_positive"}  # loadRes numbers results from 1
     assert len(ours) > 20 and len(preds) - len(ours) > 10
     assert ours == matched_dt
@@ -368,7 +369,8 @@ def test_stats_equal_an_independent_count(small_dataset):
     out, _ = small_dataset
     coco = json.loads((out / "annotations.json").read_text())
     s = report.dataset_stats(coco)
-    anns = coco["annotations"]
+    anns = [a for a in coco["annotations"] if not a["iscrowd"]]  # objects; ignore regions are counted apart
+    assert s["ignore_regions"] == len(coco["annotations"]) - len(anns)
     per_image = np.array([sum(a["image_id"] == im["id"] for a in anns) for im in coco["images"]])
     assert s["images"] == len(coco["images"])
     assert s["objects"] == len(anns)

@@ -1,0 +1,188 @@
+"""Shape kinds that can be told apart by their pixels.
+
+Every kind is defined so that no choice of its parameters draws the outline of
+another kind (the shapes themselves are described in :mod:`synthgen.shapes`):
+
+* rectangle: four right-angled corners, the only convex kind with four;
+* ellipse: no corner (a polygon keeps corners of at most 135 degrees);
+* triangle: three corners (polygons start at five sides);
+* polygon: :data:`SIDES` = 5 to 8 sides (``objects.sides``): 3 would be a
+  triangle, 4 a rectangle turned 45 degrees, many an ellipse;
+* star: :data:`POINTS` = 5 to 8 points (``objects.points``) with inner / outer
+  radius :data:`STAR_INNER` = 0.3 to 0.55 (``objects.inner``), so it is at most
+  0.68 solid (area over convex hull; every convex kind is 1): fuller stars are
+  polygons, 4 points make a cross and 3 a triangle;
+* ring: hole :data:`RING_HOLE` = 0.3 to 0.6 of its size (``objects.hole``), the
+  only filled kind with a hole; smaller holes vanish, bigger ones make an
+  outlined ellipse; never drawn outline-only (that would be two nested rings);
+* cross: bars :data:`CROSS_BAR` = 0.2 to 0.4 of its length thick
+  (``objects.bar``), 0.53 to 0.78 solid with four arms: thicker bars make an
+  octagon, thinner ones two lines.
+
+A config may narrow these ranges, never widen them.  The outline-only style
+draws a band at most :data:`OUTLINE_SHARE` (1/8) of the shape's breadth (the
+shorter side of its own box, before rotation) thick, so its hole spans at
+least three quarters of the shape on both axes while a ring's spans at most
+0.6: an outlined ellipse is never a ring.  Fills (flat, gradient, stripes)
+change no silhouette: both colours of a fill keep ``objects.min_contrast`` from
+what lies under the object.
+
+Below some size any kind is a blob.  :data:`IDENTIFIABLE_BREADTH` holds, per kind
+and style, the smallest breadth at which simple shape descriptors tell the kind
+from every other kind on rendered samples; :func:`identifiable` is the
+per-object fact built on it.
+"""
+
+from __future__ import annotations
+
+import math
+
+from synthgen import shapes as shapes_mod
+from synthgen.errors import ConfigError, check_range
+from synthgen.shapes import Shape, natural_aspect
+
+__all__ = [
+    "SIDES",
+    "POINTS",
+    "STAR_INNER",
+    "RING_HOLE",
+    "CROSS_BAR",
+    "OUTLINE_SHARE",
+    "MEASURED_ASPECT",
+    "MEASURED_STROKE",
+    "IDENTIFIABLE_BREADTH",
+    "breadth",
+    "stroke_limit",
+    "identifiable",
+    "check_parameters",
+]
+
+SIDES = (5, 8)
+"""Sides of a polygon."""
+POINTS = (5, 8)
+"""Points of a star."""
+STAR_INNER = (0.3, 0.55)
+"""Inner / outer radius of a star."""
+RING_HOLE = (0.3, 0.6)
+"""Hole / outer semi-axes of a ring."""
+CROSS_BAR = (0.2, 0.4)
+"""Bar thickness / length of a cross."""
+
+OUTLINE_SHARE = 0.125
+"""Largest outline band, as a share of the shape's breadth (outline-only style)."""
+
+MEASURED_ASPECT = (0.25, 4.0)
+"""Aspects (relative to the kind's natural proportions) over which :data:`IDENTIFIABLE_BREADTH` was measured."""
+
+MEASURED_STROKE = 1.0
+"""Thinnest outline band (px) over which :data:`IDENTIFIABLE_BREADTH` was measured."""
+
+#: The parameter ranges a config may narrow: key -> (range, whole numbers, what lies beyond it).
+_KEYS = {
+    "objects.sides": (SIDES, True, "polygons of fewer sides are triangles or rectangles, of more ellipses"),
+    "objects.points": (POINTS, True, "stars of fewer points are triangles or crosses, of more blobs"),
+    "objects.inner": (STAR_INNER, False, "fuller stars are polygons, thinner ones sets of lines"),
+    "objects.hole": (RING_HOLE, False, "rings with wider holes are outlined ellipses, with smaller ones ellipses"),
+    "objects.bar": (CROSS_BAR, False, "crosses with thicker bars are octagons, with thinner ones lines"),
+}
+
+# Smallest breadth (px) at which each kind, filled (False) or outline-only (True), is told from
+# every other kind.  Measured by `python tools/measure_identifiable.py --per-class 40 --seed 1`
+# (about half an hour on one core): objects of every kind, style and parameter range above, aspect
+# in MEASURED_ASPECT, any rotation, outline bands from MEASURED_STROKE to OUTLINE_SHARE of the
+# breadth, rendered alone at 4 x 4 samples per pixel on a ladder of breadths from 3 to 64 px and
+# described by scikit-image (regionprops solidity and holes, moment invariants of the silhouette
+# that no stretch or rotation changes); a nearest-centroid classifier trained on objects at or
+# above these breadths labels every held-out object at or above them, and every object of two
+# fresh sets in a row, with its own kind.
+IDENTIFIABLE_BREADTH = {
+    ("rectangle", False): 5.0,
+    ("ellipse", False): 14.0,
+    ("triangle", False): 3.0,
+    ("polygon", False): 6.0,
+    ("star", False): 14.0,
+    ("ring", False): 12.0,
+    ("cross", False): 20.0,
+    ("rectangle", True): 8.0,
+    ("ellipse", True): 16.0,
+    ("triangle", True): 8.0,
+    ("polygon", True): 8.0,
+    ("star", True): 12.0,
+    ("cross", True): 12.0,
+}
+
+
+def breadth(shape: Shape) -> float:
+    """The shorter side (px) of the shape's own box, before rotation.
+
+    Examples
+    --------
+    >>> breadth(Shape("rectangle", 0.0, 0.0, 20.0, aspect=0.5, angle=30.0))  # doctest: +ELLIPSIS
+    8.96...
+    """
+    return min(shapes_mod.own_size(shape))
+
+
+def stroke_limit(size: float, aspect: float) -> float:
+    """Thickest outline band (px) for a shape of ``size`` and (absolute) ``aspect``.
+
+    At most :data:`OUTLINE_SHARE` of the shape's breadth, which is at least
+    ``size * min(aspect, 1) / sqrt(1 + aspect^2)`` (the turned box's longer side
+    is at most the own box's diagonal), so this needs no geometry; bands are
+    never thinner than 0.5 px, however small the shape.
+    """
+    return max(OUTLINE_SHARE * size * min(aspect, 1.0) / math.sqrt(1.0 + aspect * aspect), 0.5)
+
+
+def _within(value, bounds) -> bool:
+    return bounds[0] <= value <= bounds[1]
+
+
+def identifiable(shape: Shape, stroke: float = 0.0) -> bool:
+    """Whether the kind of ``shape`` (drawn with outline band ``stroke`` px, 0: filled) can be told from its pixels.
+
+    True when its parameters lie in its kind's ranges, its aspect and outline
+    band lie in the measured ranges, and its breadth is at least
+    :data:`IDENTIFIABLE_BREADTH` of its kind and style.  Occlusion and the
+    canvas border are not considered (see the ``visible_fraction`` and
+    ``truncated`` facts).
+
+    Examples
+    --------
+    >>> identifiable(Shape("ellipse", 0.0, 0.0, 40.0))
+    True
+    >>> identifiable(Shape("ellipse", 0.0, 0.0, 3.0))
+    False
+    >>> identifiable(Shape("polygon", 0.0, 0.0, 40.0, sides=3))  # a triangle by any other name
+    False
+    """
+    kind = shape.kind
+    if kind == "polygon" and not _within(shape.sides, SIDES):
+        return False
+    if kind == "star" and not (_within(shape.sides, POINTS) and _within(shape.inner, STAR_INNER)):
+        return False
+    if kind == "ring" and not (_within(shape.inner, RING_HOLE) and stroke <= 0.0):
+        return False
+    if kind == "cross" and not _within(shape.inner, CROSS_BAR):
+        return False
+    relative = shape.aspect / natural_aspect(kind, shape.sides, shape.inner)
+    if not _within(relative, MEASURED_ASPECT):
+        return False
+    b = breadth(shape)
+    if stroke > 0.0 and not (MEASURED_STROKE <= stroke <= OUTLINE_SHARE * b * (1.0 + 1e-9)):
+        return False
+    return b >= IDENTIFIABLE_BREADTH[(kind, stroke > 0.0)]
+
+
+def check_parameters(spec) -> None:
+    """Raise :class:`~synthgen.errors.ConfigError` unless each kind's parameter range in ``spec`` keeps the kinds apart.
+
+    ``spec`` is a :class:`synthgen.config.ObjectSpec`; its ``sides``, ``points``,
+    ``inner``, ``hole`` and ``bar`` may narrow the ranges above, never widen them.
+    """
+    for key, (bounds, integer, why) in _KEYS.items():
+        value = getattr(spec, key.split(".")[1])
+        try:
+            check_range(key, value, lo=bounds[0], hi=bounds[1], integer=integer)
+        except ConfigError as err:
+            raise ConfigError(key, err.rule, value, hint=why) from None
