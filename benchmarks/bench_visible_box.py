@@ -9,9 +9,11 @@ drawn above overlaps (their exact boxes meet), measured in this run:
 * ``err old`` and ``old > 1/s``: the same for the rule synthgen used before,
   the exact box cut to the tight box of the visible sub-pixel sample cells,
   and the share of those objects it put more than one sample spacing off;
-* ``us/call``: CPU time of :func:`synthgen.visible.visible_box` per such
-  object, ``us/object`` the same spread over every object of the images, and
-  ``share``: its part of the CPU time of rendering the images (``render_scene``).
+* ``us/call``: CPU time of the visible boxes in ``render_scene``
+  (:func:`synthgen.visible.visible_boxes`) per object measured there (an
+  annotated object that a drawn object above overlaps), ``us/object`` the
+  same spread over every annotated object of the images, and ``share``: its
+  part of the CPU time of rendering the images.
 
     python benchmarks/bench_visible_box.py [--images 8]
 """
@@ -94,25 +96,25 @@ def accuracy(cfg, images: int):
 
 
 def cost(cfg, images: int):
-    """CPU seconds of visible_box per call, calls, objects and the CPU seconds of the images."""
+    """CPU seconds of the visible boxes, objects measured, objects annotated and the CPU seconds of the images."""
     spent, calls = [0.0], [0]
-    plain = scene_mod.visible_box
+    plain = scene_mod.visible_boxes
 
-    def timed(*args, **kwargs):
+    def timed(items, *args, **kwargs):
         start = time.process_time()
-        out = plain(*args, **kwargs)
+        out = plain(items, *args, **kwargs)
         spent[0] += time.process_time() - start
-        calls[0] += 1
+        calls[0] += len(items)
         return out
 
     render_scene(cfg, images)  # warm caches and imports
-    scene_mod.visible_box = timed
+    scene_mod.visible_boxes = timed
     try:
         start = time.process_time()
         objects = sum(len(render_scene(cfg, k).boxes) for k in range(images))
         total = time.process_time() - start
     finally:
-        scene_mod.visible_box = plain
+        scene_mod.visible_boxes = plain
     return spent[0], calls[0], objects, total
 
 

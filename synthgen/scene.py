@@ -59,7 +59,7 @@ from synthgen.degrade import degrade_owned
 from synthgen.geometry import box_iou, clip_boxes, mask_box
 from synthgen.kinds import identifiable, stroke_limit
 from synthgen.occlusion import SampleBuffer, patch_bounds, sample_bits_many
-from synthgen.visible import visible_box
+from synthgen.visible import visible_boxes
 from synthgen.shapes import (
     KINDS,
     Shape,
@@ -107,7 +107,9 @@ class IgnoreRegions:
     """Objects drawn with visible pixels that the annotation rules dropped: regions a detector is not scored on.
 
     They become COCO annotations with ``iscrowd: 1`` (see the README's table of
-    what is annotated).  Same conventions as the fields of :class:`Scene`; each
+    what is annotated).  Same conventions as the fields of :class:`Scene`, but
+    that ``boxes`` are pixel boxes (the boxes of the masks; exact boxes with
+    ``objects.box = "full"``) and the facts hold no ``visible_box``; each
     fact dict also says ``ignored``: the rule that dropped the object
     (``"min_visible"`` or ``"min_area"``).
     """
@@ -1139,27 +1141,19 @@ def _annotate(measured, outside: int, config):
     sizes = np.maximum(raw[:, 2] - raw[:, 0], raw[:, 3] - raw[:, 1]).tolist()
     cut = ((raw[:, 0] < 0) | (raw[:, 1] < 0) | (raw[:, 2] > width) | (raw[:, 3] > height)).tolist()
     full_lists = full_boxes.tolist()
-    visible_boxes = spec.box == "visible"
-    above = _drawn_above(full_boxes)
+    box_visible = spec.box == "visible"
+    vboxes = _visible_boxes(shown, full_boxes, pboxes, config)
     kept, ignored = [], []
     for t, (z, d) in enumerate(zip(zs, shown)):
         full_list = full_lists[t]
         pbox = pboxes[t]  # never None: a shown object has a visible sample
-        ups = above.get(t)
-        if ups is None:  # nothing drawn above meets its exact box: the visible box is the exact box
-            vbox = full_list
-        else:
-            ups = [(shown[u].shape, shown[u].style["stroke"]) for u in ups]
-            got = visible_box(d.shape, ups, height, width, stroke=d.style["stroke"], exact=full_boxes[t])
-            # None only when the geometry leaves no area where some sample still showed (floating
-            # point at a shared edge): the pixel box within the exact box stands in
-            vbox = got.tolist() if got is not None else _within_box(pbox, full_list)
+        vbox = vboxes[t]
         shape = d.shape
         facts = {
             "kind": shape.kind,
             "z": z,
             "full_box": full_list,
-            "visible_box": list(vbox),
+            "visible_box": vbox,
             "pixel_box": pbox,
             "size": sizes[t],
             "aspect": shape.aspect / natural_aspect(shape.kind, shape.sides, shape.inner),
@@ -1174,17 +1168,51 @@ def _annotate(measured, outside: int, config):
         }
         if "pair_id" in d.extra and d.extra["pair_id"] in pair_iou:
             facts["pair_iou"] = pair_iou[d.extra["pair_id"]]
-        box = vbox if visible_boxes else full_list
         # The mask patch is cropped to the pixel box (less to run-length encode).
         c0, r0, c1, r1 = int(pbox[0]), int(pbox[1]), int(pbox[2]), int(pbox[3])
         pr, pc = r0 - d.cov.row0, c0 - d.cov.col0
         mask = (r0, c0, supports[t][pr : pr + r1 - r0, pc : pc + c1 - c0])
         if d.verdict is None:
-            kept.append((box, d.vis_cov, facts, mask))
+            kept.append((vbox if box_visible else full_list, d.vis_cov, facts, mask))
         else:
+            # An ignore region stands for pixels that show: its box is the box of its segmentation
+            # (the pixel box), which holds every pixel it changed.  Its geometric visible box would
+            # cost several times an object's (most of it lies under many shapes) and is not recorded.
+            del facts["visible_box"]
             facts["ignored"] = d.verdict
-            ignored.append((box, d.vis_cov, facts, mask))
+            ignored.append((pbox if box_visible else full_list, d.vis_cov, facts, mask))
     return kept, ignored, {"dropped": dropped, "ignored": ignored_counts}
+
+
+def _visible_boxes(shown, full_boxes: np.ndarray, pboxes: list, config) -> list:
+    """Visible box (list of 4 floats) of each annotated object of ``shown``; None for ignore regions.
+
+    An object that nothing drawn above overlaps (exact boxes) shows its exact
+    box; the others get the box from the geometry
+    (:func:`synthgen.visible.visible_boxes`, all at once), against the drawn
+    objects above whose exact boxes meet theirs, starting from the box of
+    their visible samples.
+    """
+    height, width = config.canvas.height, config.canvas.width
+    above = _drawn_above(full_boxes)
+    out: list = [None] * len(shown)
+    todo, items = [], []
+    for t, d in enumerate(shown):
+        if d.verdict is not None:  # an ignore region: the box of its segmentation (see _annotate)
+            continue
+        ups = above.get(t)
+        if ups is None:  # nothing drawn above meets its exact box: the visible box is the exact box
+            out[t] = full_boxes[t].tolist()
+            continue
+        ups = [(shown[u].shape, shown[u].style["stroke"]) for u in ups]
+        todo.append(t)
+        inside = _centres_box(d.sample_box, config.render.samples)
+        items.append((d.shape, d.style["stroke"], ups, full_boxes[t], inside))
+    for t, got in zip(todo, visible_boxes(items, height, width)):
+        # None only when the geometry leaves no area where some sample still showed (floating
+        # point at a shared edge): the pixel box within the exact box stands in
+        out[t] = got.tolist() if got is not None else _within_box(pboxes[t], full_boxes[t].tolist())
+    return out
 
 
 def _drawn_above(boxes: np.ndarray) -> dict:
@@ -1206,6 +1234,18 @@ def _drawn_above(boxes: np.ndarray) -> dict:
     lo, hi = lo[order], hi[order]
     starts = np.flatnonzero(np.r_[True, lo[1:] != lo[:-1]])
     return dict(zip(lo[starts].tolist(), (part.tolist() for part in np.split(hi, starts[1:]))))
+
+
+def _centres_box(cells: np.ndarray | None, samples: int) -> np.ndarray | None:
+    """Box of the centres of the sample cells whose tight box is ``cells`` (None passes through).
+
+    The visible samples of an object are points in view, so this box lies
+    inside its visible box (:func:`synthgen.visible.visible_box`, ``inside``).
+    """
+    if cells is None:
+        return None
+    half = 0.5 / samples
+    return cells + np.array([half, half, -half, -half])
 
 
 def _within_box(box: list, bound: list) -> list:

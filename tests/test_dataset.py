@@ -52,11 +52,15 @@ def test_coco_records_follow_the_format(small_dataset):
     coco = json.loads((out / "annotations.json").read_text())
     assert [im["id"] for im in coco["images"]] == list(range(1, cfg.count + 1))
     assert [a["id"] for a in coco["annotations"]] == list(range(1, len(coco["annotations"]) + 1))
+    crowd = 0
     for a in coco["annotations"]:
-        x0, y0, x1, y1 = a["synthgen"]["visible_box"]
-        assert a["bbox"] == pytest.approx([x0, y0, x1 - x0, y1 - y0], abs=1e-9)
-        # an ignore region (a dropped object that still shows) is iscrowd 1 and says why it was dropped
+        # an ignore region (a dropped object that still shows) is iscrowd 1, says why it was dropped
+        # and is boxed by its pixel box (the box of its segmentation); an object by its visible box
+        crowd += a["iscrowd"]
         assert a["iscrowd"] == ("ignored" in a["synthgen"]) and a["area"] > 0
+        x0, y0, x1, y1 = a["synthgen"]["pixel_box" if a["iscrowd"] else "visible_box"]
+        assert a["bbox"] == pytest.approx([x0, y0, x1 - x0, y1 - y0], abs=1e-9)
+    assert crowd >= 1  # the small dataset holds an ignore region, so both rules are checked
 
 
 def test_segmentation_decodes_to_the_pixel_box(small_dataset):

@@ -511,6 +511,35 @@ def test_thin_tip_in_plain_view_keeps_the_visible_box(cfg):
     assert scene.facts[0]["visible_box"] == scene.boxes[0].tolist()
 
 
+@pytest.mark.parametrize("dropped", ["ignore", "erase"])
+def test_visible_boxes_of_dense_scenes_equal_an_independent_computation(dropped):
+    """Every annotated object's visible box equals shapely's box of it minus the objects drawn above it.
+
+    Reference: tests/_visible_reference.py (shapely on dense polygons, built from the shape parameters);
+    the objects drawn above are the annotated ones and the ignore regions, not the hidden or erased ones.
+    """
+    from tests import _visible_reference as reference
+    from synthgen.scene import _moved, _sample_objects
+    from synthgen.visible import TOLERANCE
+
+    cfg = load_config(overrides=["canvas.width=64", "canvas.height=48", "objects.outline=0.3",
+                                 "objects.min_visible=0.4", "objects.size=[3,30]", f"objects.dropped={dropped}"])
+    rng = np.random.default_rng(21)
+    cut = 0
+    for _ in range(2):
+        shapes, styles = _sample_objects(cfg, rng, n=40)
+        shapes = [_moved(sh, c) for sh, c in zip(shapes, rng.uniform(size=(40, 2)) * (64, 48))]
+        scene = compose_shapes(grey(cfg), shapes, cfg, rng=np.random.default_rng(0), styles=styles)
+        drawn = sorted(f["z"] for f in (*scene.facts, *scene.ignored.facts))  # z = position in `shapes`
+        for f, box in zip(scene.facts, scene.boxes):
+            z = f["z"]
+            above = [(shapes[u], styles[u]["stroke"]) for u in drawn if u > z]
+            want = reference.visible(shapes[z], styles[z]["stroke"], above, 48, 64)
+            assert np.all(np.abs(box - want) <= TOLERANCE + 1e-4), (z, box, want)
+            cut += bool(np.any(np.abs(want - np.array(f["full_box"])) > 1e-6))
+    assert cut >= 10  # boxes the objects above actually cut
+
+
 def test_only_drawn_objects_cut_the_visible_box():
     """An erased object hides nothing: the object below it keeps its exact box; kept as an ignore region, it cuts it.
 
@@ -530,16 +559,24 @@ def test_only_drawn_objects_cut_the_visible_box():
             assert scene.ignored.boxes.tolist() == [[12.0, 5.0, 15.0, 15.0]]
 
 
-def test_ignore_region_box_keeps_a_thin_tip_in_view():
-    """An ignore region's box is the geometric visible box: the thin triangle's apex (32, 10) stays in it.
+def test_ignore_region_box_is_the_box_of_its_segmentation():
+    """An ignore region's box is its pixel box, the box of its RLE: it holds every pixel the region changed.
 
-    The triangle of the test above, with objects.min_visible = 0.8: its top 5/8, so (5/8)^2 < 0.8 of
-    its area, shows, so it is ignored; its box is [30.125, 10, 33.875, 35] (similar triangles).
+    The thin triangle of the test above under objects.min_visible = 0.8: its top 5/8, so (5/8)^2 < 0.8
+    of its area, shows, so it is ignored.  Its pixels: those that differ from the grey canvas, but for
+    the square's.
     """
     tri = Shape("triangle", cx=32.0, cy=30.0, size=40.0, aspect=0.15)
+    square = Shape("rectangle", 32.0, 45.0, 20.0)
     low_cfg = load_config(overrides=["canvas.width=64", "canvas.height=64", "objects.min_visible=0.8"])
-    scene = compose_shapes(grey(low_cfg), [tri, Shape("rectangle", 32.0, 45.0, 20.0)], low_cfg,
-                           rng=np.random.default_rng(0))
-    assert [f["ignored"] for f in scene.ignored.facts] == ["min_visible"]
-    np.testing.assert_allclose(scene.ignored.boxes[0], [30.125, 10.0, 33.875, 35.0], rtol=0, atol=1e-12)
-    assert scene.ignored.facts[0]["visible_box"] == scene.ignored.boxes[0].tolist()
+    scene = compose_shapes(grey(low_cfg), [tri, square], low_cfg, rng=np.random.default_rng(0))
+    (facts,) = scene.ignored.facts
+    assert facts["ignored"] == "min_visible" and "visible_box" not in facts
+    row0, col0, mask = scene.ignored.masks[0]
+    assert scene.ignored.boxes[0].tolist() == facts["pixel_box"] == mask_box(mask, origin=(col0, row0)).tolist()
+    changed = np.any(scene.image != grey(low_cfg), axis=2)
+    r0, c0, sq = scene.masks[0]
+    changed[r0 : r0 + sq.shape[0], c0 : c0 + sq.shape[1]] &= ~sq
+    rows, cols = np.nonzero(changed)
+    x0, y0, x1, y1 = scene.ignored.boxes[0]
+    assert rows.size and x0 <= cols.min() and cols.max() + 1 <= x1 and y0 <= rows.min() and rows.max() + 1 <= y1

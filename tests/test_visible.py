@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 import shapely
 
-from synthgen.visible import TOLERANCE, region_polygons, visible_box
+from synthgen.visible import TOLERANCE, region_polygons, visible_box, visible_boxes
 from synthgen.shapes import KINDS, Shape, natural_aspect
 from tests import _visible_reference as reference
 
@@ -132,17 +132,41 @@ def _scene_shapes(rng, n, width, height, kinds=KINDS, outline=0.4):
     return shapes, strokes
 
 
+def _points_in_view(shape, stroke, above, height, width):
+    """Box of a point inside each part of the visible part (shapely reference), or None: a box known to be in view."""
+    part = reference.region(shape, stroke).intersection(shapely.box(0, 0, width, height))
+    if above:
+        part = part.difference(shapely.union_all([reference.region(u, s) for u, s in above]))
+    pieces = [p for p in shapely.get_parts(part) if p.area > 0]
+    if not pieces:
+        return None
+    pts = np.array([p.representative_point().coords[0] for p in pieces])
+    return np.concatenate([pts.min(axis=0), pts.max(axis=0)])
+
+
 def _check_scene(shapes, strokes, height, width, atol):
+    """Each shape's visible box under the later ones against the reference, with and without a box known in view.
+
+    All shapes are also measured together (visible_boxes), which must give the same boxes as one at a time.
+    """
     checked = 0
+    items = []
     for i, (shape, stroke) in enumerate(zip(shapes, strokes)):
         above = list(zip(shapes[i + 1 :], strokes[i + 1 :]))
-        got = visible_box(shape, above, height, width, stroke=stroke)
         want = reference.visible(shape, stroke, above, height, width)  # reference: shapely, built independently
-        if want is None or got is None:
-            assert want is None and got is None, (shape, stroke, got, want)
-            continue
-        assert np.all(np.abs(got - want) <= atol), (shape, stroke, got, want)
-        checked += 1
+        inside = _points_in_view(shape, stroke, above, height, width) if want is not None else None
+        for hint in (None, inside):
+            got = visible_box(shape, above, height, width, stroke=stroke, inside=hint)
+            if want is None or got is None:
+                assert want is None and got is None, (shape, stroke, got, want)
+                continue
+            assert np.all(np.abs(got - want) <= atol), (shape, stroke, hint, got, want)
+        items.append((shape, stroke, above, None, inside))
+        checked += want is not None
+    together = visible_boxes(items, height, width)
+    for (shape, stroke, above, _, inside), got in zip(items, together):
+        alone = visible_box(shape, above, height, width, stroke=stroke, inside=inside)
+        assert (got is None and alone is None) or np.array_equal(got, alone)
     return checked
 
 
