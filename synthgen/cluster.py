@@ -44,15 +44,16 @@ class DaskBackend:
         """Worker threads in the cluster (at least 1)."""
         return max(1, sum(self.client.nthreads().values()))
 
-    def run(self, config, out: Path, blocks: list[list[int]]) -> Iterator[list[bytes]]:
+    def run(self, render_block, config, out: Path, blocks: list[list[int]]) -> Iterator[list[bytes]]:
         """Journal lines of each block, in order of completion.
+
+        ``render_block(config, block, out)`` is the unit of work (the caller's, so this
+        module does not import the run that uses it).
 
         At most four blocks per worker thread are in flight, so the client's
         memory does not grow with the number of images.
         """
         from distributed import as_completed
-
-        from synthgen.dataset import render_block
 
         out = str(Path(out).resolve())
         shared_config = self.client.scatter(config, broadcast=True)
@@ -105,7 +106,7 @@ def connect(address: str, *, workers: int | None = None) -> DaskBackend:
     except ImportError:
         raise UserError(f"option '--cluster' needs dask.distributed, which is not installed: {INSTALL_HINT}") from None
     if address == "local":
-        from synthgen.dataset import usable_cores
+        from synthgen.pool import usable_cores
 
         local = distributed.LocalCluster(
             n_workers=workers or usable_cores(), threads_per_worker=1, processes=True, dashboard_address=None

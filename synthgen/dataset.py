@@ -54,7 +54,7 @@ from synthgen.formats.coco import bbox_from_xyxy, read_coco, write_bytes_atomic
 from synthgen.formats.export import parse_formats, write_formats
 from synthgen.formats.splits import check_fractions
 from synthgen.formats.images import EXTENSIONS, encode_image
-from synthgen.pool import run_unordered
+from synthgen.pool import run_unordered, usable_cores
 from synthgen.scene import Scene, category_id, render_scene
 from synthgen.shards import (
     RUN_RECORD,
@@ -190,14 +190,6 @@ def drop_warning(objects: int, dropped: Mapping[str, int], ignored: int = 0) -> 
     if ignored:
         line += f"; {ignored} of them show and are marked as ignore regions (iscrowd 1)"
     return line
-
-
-def usable_cores() -> int:
-    """Number of cores this process may run on."""
-    try:
-        return max(1, len(os.sched_getaffinity(0)))
-    except AttributeError:  # not on Linux
-        return max(1, os.cpu_count() or 1)
 
 
 def image_name(config: Config, index: int) -> str:
@@ -876,7 +868,7 @@ def make_dataset(
         todo = store.missing(mine)
         procs = local_processes(len(todo), workers) if backend is None else backend.workers
         blocks = blocks_of(todo, _block_size(len(todo), procs))
-        results = _run_local(config, out, blocks, procs) if backend is None else backend.run(config, out, blocks)
+        results = _run_local(config, out, blocks, procs) if backend is None else backend.run(render_block, config, out, blocks)
         report = None if progress is None else (lambda done: progress(kept + done, len(mine)))
         _append_records(journal_path(out, shard), end, results, store, report)
     except OSError as exc:

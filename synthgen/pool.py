@@ -30,7 +30,7 @@ import time
 import traceback
 from collections.abc import Callable, Iterable, Iterator
 
-__all__ = ["run_unordered", "WorkerFailed"]
+__all__ = ["run_unordered", "usable_cores", "WorkerFailed"]
 
 # The child's whole program before it can unpickle anything: take the caller's
 # import path (so synthgen imports from the same place), then serve.
@@ -45,6 +45,14 @@ _BOOT = (
 
 class WorkerFailed(RuntimeError):
     """A worker process ended without answering (killed, out of memory, crashed), or could not start."""
+
+
+def usable_cores() -> int:
+    """Number of cores this process may run on."""
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except AttributeError:  # not on Linux
+        return max(1, os.cpu_count() or 1)
 
 
 def run_unordered(
