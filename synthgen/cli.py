@@ -11,9 +11,9 @@ import functools
 import os
 import sys
 import traceback
-from enum import Enum
+from enum import StrEnum
 from pathlib import Path
-from typing import Annotated, Optional
+from typing import Annotated
 
 import typer
 
@@ -158,11 +158,11 @@ def _progress(total: int, quiet: bool, label: str):
 
 
 ConfigArg = Annotated[
-    Optional[Path],
+    Path | None,
     typer.Argument(help="TOML config; keys not given take built-in defaults (see configs/).", show_default=False),
 ]
 SetOpt = Annotated[
-    Optional[list[str]],
+    list[str] | None,
     typer.Option("--set", help="Override a config key with a TOML value, e.g. --set objects.count=[5,10]. Repeatable."),
 ]
 
@@ -175,7 +175,7 @@ FormatsOpt = Annotated[
     ),
 ]
 SplitOpt = Annotated[
-    Optional[str],
+    str | None,
     typer.Option("--split", help="Split the images, e.g. train=0.8,val=0.2 (one COCO file per split)."),
 ]
 
@@ -201,24 +201,24 @@ def _formats_and_split(formats: str, split: str | None):
 def make(
     config: ConfigArg = None,
     out: Annotated[Path, typer.Option("--out", "-o", help="Output directory.")] = ...,
-    count: Annotated[Optional[int], typer.Option(help="Number of images (same as --set count=N).")] = None,
-    seed: Annotated[Optional[int], typer.Option(help="Root seed (same as --set seed=S).")] = None,
+    count: Annotated[int | None, typer.Option(help="Number of images (same as --set count=N).")] = None,
+    seed: Annotated[int | None, typer.Option(help="Root seed (same as --set seed=S).")] = None,
     set_: SetOpt = None,
     overwrite: Annotated[bool, typer.Option("--overwrite", help="Replace the dataset in a non-empty output directory.")] = False,
     resume: Annotated[
         bool,
         typer.Option("--resume", help="Continue an interrupted run in DIR: keep intact images, render the rest."),
     ] = False,
-    workers: Annotated[Optional[int], typer.Option(help="Processes to render with (default: usable cores).")] = None,
+    workers: Annotated[int | None, typer.Option(help="Processes to render with (default: usable cores).")] = None,
     shard: Annotated[
-        Optional[str],
+        str | None,
         typer.Option(
             "--shard", metavar="K/N",
             help="Render only shard K of N (images whose index % N == K) and a shard manifest; join with `merge`.",
         ),
     ] = None,
     cluster: Annotated[
-        Optional[str],
+        str | None,
         typer.Option(
             "--cluster", metavar="ADDRESS|local",
             help="Render on a Dask cluster (scheduler address, or 'local'); needs pip install 'synthgen-shapes\\[cluster]'.",
@@ -317,14 +317,14 @@ def _pair(text: str, option: str) -> tuple[float, float]:
 
 
 # -- check and export -----------------------------------------------------------------
-class TokenOrder(str, Enum):
+class TokenOrder(StrEnum):
     random = "random"
     raster = "raster"
     area = "area"
     distance = "distance"
 
 
-class MaskMode(str, Enum):
+class MaskMode(StrEnum):
     png = "png"
     rle = "rle"
 
@@ -335,7 +335,7 @@ def jitter(
     dataset: Annotated[Path, typer.Argument(help="Dataset directory holding annotations.json.", show_default=False)],
     out: Annotated[Path, typer.Option("--out", "-o", help="COCO results file to write (JSON array).")] = ...,
     truth: Annotated[
-        Optional[Path],
+        Path | None,
         typer.Option(help="Sidecar saying what each prediction is (default: OUT with .truth.json).", show_default=False),
     ] = None,
     seed: Annotated[int, typer.Option(help="Seed; the same seed gives the same files byte for byte.")] = 0,
@@ -429,11 +429,11 @@ def score(
         typer.Argument(help="Dataset directory (reads its annotations.json), a COCO JSON file, or with --pred-dir a sweep directory."),
     ],
     predictions: Annotated[
-        Optional[Path],
+        Path | None,
         typer.Argument(help="COCO results JSON: an array of records with image_id, category_id, bbox (x, y, width, height) and score.", show_default=False),
     ] = None,
     by: Annotated[
-        Optional[list[str]],
+        list[str] | None,
         typer.Option(
             "--by",
             help="Also score per bin of a per-object fact: FACT (default bins) or FACT:E0,E1,... "
@@ -441,9 +441,9 @@ def score(
             "contrast, kind, truncated, ... Repeatable.",
         ),
     ] = None,
-    json_out: Annotated[Optional[Path], typer.Option("--json", help="Write every metric to this JSON file.")] = None,
+    json_out: Annotated[Path | None, typer.Option("--json", help="Write every metric to this JSON file.")] = None,
     plot: Annotated[
-        Optional[Path],
+        Path | None,
         typer.Option(
             "--plot",
             help="Write a PNG: recall and AP per bin, one 480x360 px panel per --by fact, 3 per row; "
@@ -451,7 +451,7 @@ def score(
         ),
     ] = None,
     pred_dir: Annotated[
-        Optional[Path],
+        Path | None,
         typer.Option(
             "--pred-dir",
             help="Score a sweep: DATASET is the sweep directory and this directory holds one results file "
@@ -541,7 +541,7 @@ def export(
     dataset: Annotated[Path, typer.Argument(help="Dataset directory written by make.", show_default=False)],
     formats: FormatsOpt = "voc,yolo",
     out: Annotated[
-        Optional[Path],
+        Path | None,
         typer.Option(
             "--out", "-o",
             help="Output directory (default: the dataset). Another directory becomes a dataset of its own: "
@@ -550,7 +550,7 @@ def export(
     ] = None,
     split: SplitOpt = None,
     seed: Annotated[
-        Optional[int], typer.Option(help="Seed for splits and random token order (default: the manifest's).")
+        int | None, typer.Option(help="Seed for splits and random token order (default: the manifest's).")
     ] = None,
     bins: Annotated[int, typer.Option("--bins", help="Token bins per axis.")] = 1000,
     order: Annotated[
@@ -559,7 +559,7 @@ def export(
     ] = TokenOrder.random,
     masks: Annotated[MaskMode, typer.Option(help="Instance masks as id PNGs or per-object RLE lines.")] = MaskMode.png,
     pad_to: Annotated[
-        Optional[int],
+        int | None,
         typer.Option(
             "--pad-to", min=0,
             help="Token sequences: pad each image to this many objects with training noise objects "
@@ -607,14 +607,14 @@ def sweep(
         ),
     ] = ...,
     out: Annotated[Path, typer.Option("--out", "-o", help="Sweep directory: one dataset per combination, and sweep.json.")] = ...,
-    count: Annotated[Optional[int], typer.Option(help="Images per dataset (same as --set count=N).")] = None,
-    seed: Annotated[Optional[int], typer.Option(help="Root seed of every dataset (same as --set seed=S).")] = None,
+    count: Annotated[int | None, typer.Option(help="Images per dataset (same as --set count=N).")] = None,
+    seed: Annotated[int | None, typer.Option(help="Root seed of every dataset (same as --set seed=S).")] = None,
     set_: SetOpt = None,
     overwrite: Annotated[bool, typer.Option("--overwrite", help="Replace the datasets of a non-empty sweep directory.")] = False,
     resume: Annotated[
         bool, typer.Option("--resume", help="Continue an interrupted sweep in DIR: keep intact images, render the rest.")
     ] = False,
-    workers: Annotated[Optional[int], typer.Option(help="Processes to render with (default: usable cores).", min=1)] = None,
+    workers: Annotated[int | None, typer.Option(help="Processes to render with (default: usable cores).", min=1)] = None,
     quiet: Annotated[bool, typer.Option("--quiet", "-q", help="No progress bar.")] = False,
 ) -> None:
     """Render one dataset per combination of varied config values, under DIR/<key>=<value>/."""
@@ -644,7 +644,7 @@ def sweep(
 def merge(
     dirs: Annotated[list[Path], typer.Argument(help="Directories written by make --shard K/N (all K of one N).")],
     out: Annotated[
-        Optional[Path],
+        Path | None,
         typer.Option("--out", "-o", help="Output directory (default: merge in place when one directory is given)."),
     ] = None,
     overwrite: Annotated[bool, typer.Option("--overwrite", help="Replace a dataset in a non-empty --out.")] = False,
@@ -685,19 +685,19 @@ def show(
     dataset: DatasetArg,
     out: Annotated[Path, typer.Option("--out", "-o", help="Contact sheet to write (PNG).")] = ...,
     images: Annotated[
-        Optional[int],
+        int | None,
         typer.Option("--images", "-n", help="Number of images: the first N by image id (default: 16).", min=1),
     ] = None,
     ids: Annotated[
-        Optional[str],
+        str | None,
         typer.Option("--ids", help="Comma-separated COCO image ids to show, e.g. 3,7,9 (instead of --images)."),
     ] = None,
     pred: Annotated[
-        Optional[Path],
+        Path | None,
         typer.Option("--pred", help="COCO results file; predictions are drawn dashed, coloured by what each is."),
     ] = None,
     truth: Annotated[
-        Optional[Path],
+        Path | None,
         typer.Option(
             "--truth",
             help="Sidecar from `synthgen jitter` saying what each prediction is (default: match at IoU 0.5).",
@@ -707,14 +707,14 @@ def show(
         bool, typer.Option("--zoom", help="Add enlarged crops of the smallest objects (nearest neighbour).")
     ] = False,
     image_dir: Annotated[
-        Optional[Path],
+        Path | None,
         typer.Option("--image-dir", help="Directory holding the images, if not beside the annotation file."),
     ] = None,
     cols: Annotated[
-        Optional[int], typer.Option("--cols", help="Tiles per row (default: about the square root of the count).", min=1)
+        int | None, typer.Option("--cols", help="Tiles per row (default: about the square root of the count).", min=1)
     ] = None,
     scale: Annotated[
-        Optional[float],
+        float | None,
         typer.Option(
             "--scale",
             help="Tile pixels per image pixel (default: small images enlarged by a whole factor, large shrunk).",
@@ -761,10 +761,10 @@ def show(
 def stats(
     dataset: DatasetArg,
     json_out: Annotated[
-        Optional[Path], typer.Option("--json", help="Also write the statistics as JSON to this file.")
+        Path | None, typer.Option("--json", help="Also write the statistics as JSON to this file.")
     ] = None,
     plot: Annotated[
-        Optional[Path], typer.Option("--plot", help="Also write a figure of histograms (PNG, 1200x700 px).")
+        Path | None, typer.Option("--plot", help="Also write a figure of histograms (PNG, 1200x700 px).")
     ] = None,
 ) -> None:
     """Summarise a dataset: counts, sizes, COCO area ranges, visibility, overlap, settings used."""

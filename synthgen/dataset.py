@@ -52,8 +52,8 @@ from synthgen.errors import InputFileError, UserError, make_output_dir
 from synthgen.formats import rle
 from synthgen.formats.coco import bbox_from_xyxy, read_coco, write_bytes_atomic
 from synthgen.formats.export import parse_formats, write_formats
-from synthgen.formats.splits import check_fractions
 from synthgen.formats.images import EXTENSIONS, encode_image
+from synthgen.formats.splits import check_fractions
 from synthgen.pool import run_unordered, usable_cores
 from synthgen.scene import Scene, category_id, render_scene
 from synthgen.shards import (

@@ -63,7 +63,14 @@ from synthgen.errors import InputFileError, UserError, check_number
 from synthgen.formats._common import bad_record as _problem
 from synthgen.formats.coco import bbox_from_xyxy, read_coco, structure_problems, write_bytes_atomic, xyxy_from_bbox
 from synthgen.geometry import box_ioa
-from synthgen.jitter import DETECTION_KINDS, OUTCOMES, DetectorSpec, _group_max_iou, clear_of_thresholds, simulate_detections
+from synthgen.jitter import (
+    DETECTION_KINDS,
+    OUTCOMES,
+    DetectorSpec,
+    _group_max_iou,
+    clear_of_thresholds,
+    simulate_detections,
+)
 
 __all__ = ["SIDECAR_FORMAT", "JITTER_STREAM", "jitter_dataset", "write_jitter_outputs", "jitter_files", "truth_path_for"]
 

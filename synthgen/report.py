@@ -1656,7 +1656,7 @@ def stats_figure(coco: Mapping, *, width: float = 12.0, height: float = 7.0, tit
         cc = Counter(f["category_id"].tolist())
         names = [c["name"] for c in cats][::-1]
         vals = [cc.get(c["id"], 0) for c in cats][::-1]
-        colours = ["#%02x%02x%02x" % _category_colour(i) for i in range(len(cats))][::-1]
+        colours = ["#{:02x}{:02x}{:02x}".format(*_category_colour(i)) for i in range(len(cats))][::-1]
         ax.barh(np.arange(len(cats)), vals, color=colours, edgecolor="#333333", linewidth=0.5)
         ax.set_xlim(0, max(max(vals), 1) * 1.05)
         ax.set_yticks(np.arange(len(cats)), names, fontsize=8 if len(cats) <= 20 else 6)

@@ -59,7 +59,6 @@ from synthgen.degrade import degrade_owned
 from synthgen.geometry import box_iou, clip_boxes, mask_box
 from synthgen.kinds import identifiable, stroke_limit
 from synthgen.occlusion import SampleBuffer, patch_bounds, sample_bits_many
-from synthgen.visible import visible_boxes
 from synthgen.shapes import (
     KINDS,
     Shape,
@@ -70,6 +69,7 @@ from synthgen.shapes import (
     paint,
     sample_inside,
 )
+from synthgen.visible import visible_boxes
 
 __all__ = [
     "Scene",

@@ -654,6 +654,11 @@ def _build_many(shapes) -> list:
 _BULK_BUILD_MIN = 8
 
 
+def _col(a: np.ndarray) -> np.ndarray:
+    """(N,) -> (N, 1, 1), to broadcast one value per shape over its pieces."""
+    return a[:, None, None]
+
+
 def _build_polygon_group(kind: str, sides: int, shapes) -> list:
     """:func:`_build` for shapes of one polygon kind (and one side count), as arrays over the shapes."""
     n = len(shapes)
@@ -718,18 +723,17 @@ def _build_polygon_group(kind: str, sides: int, shapes) -> list:
     ty = cy - k * (hi[:, 1] + lo[:, 1]) / 2.0
     boxes = np.stack([cx - k * wx / 2.0, cy - k * wy / 2.0, cx + k * wx / 2.0, cy + k * wy / 2.0], axis=1).tolist()
     areas = (area0 * sx * sy * k * k).tolist()
-    col = (lambda a: a[:, None, None])
     parts = []
     for lnx, lny, lc in groups:
-        mx = lnx / col(sx)
-        my = lny / col(sy)
+        mx = lnx / _col(sx)
+        my = lny / _col(sy)
         inv_len = 1.0 / np.sqrt(mx * mx + my * my)
         ux = mx * inv_len
         uy = my * inv_len
-        nx = col(cos) * ux - col(sin) * uy
-        ny = col(sin) * ux + col(cos) * uy
-        parts.append((nx, ny, (col(k) * lc) * inv_len + (nx * col(tx) + ny * col(ty))))
-    maps = col(k) * lin
+        nx = _col(cos) * ux - _col(sin) * uy
+        ny = _col(sin) * ux + _col(cos) * uy
+        parts.append((nx, ny, (_col(k) * lc) * inv_len + (nx * _col(tx) + ny * _col(ty))))
+    maps = _col(k) * lin
     shifts = np.stack([tx, ty], axis=1)
     scales = k.tolist()
     shared = verts.ndim == 2
@@ -1281,11 +1285,11 @@ def coverage_many(
             inside = _contains_many(sig, [it[5] for it in chunk], xs, ys)
             counts = _block_counts(inside, len(chunk), hm, wm, s)
             values = (counts / (s * s)).astype(np.float32)
-            for k, (i, row0, col0, h, w, _region_) in enumerate(chunk):
+            for k, (i, row0, col0, h, w, _) in enumerate(chunk):
                 out[i] = Coverage(row0, col0, values[k, :h, :w].copy(), s, shapes[i], strokes[i])
             if insides is not None:
                 inside.flags.writeable = False
-                for k, (i, _r, _c, h, w, _region_) in enumerate(chunk):
+                for k, (i, _r, _c, h, w, _) in enumerate(chunk):
                     insides[i] = inside[k, : h * s, : w * s]
     return out
 
@@ -1442,7 +1446,6 @@ def _sparse_pieces(nx, ny, c, cols: np.ndarray, rows: np.ndarray, s: int, margin
 
     ``nx``, ``ny``, ``c`` (E, P) are the pieces' half-planes, edge-major, so that gathers stay contiguous.
     """
-    k = cols.size
     offs = _offsets(s)
     fp = ((nx[:, :, None] * (cols + 0.5) - c[:, :, None]) + ny[:, :, None] * (rows + 0.5)).max(axis=0)  # (P, K)
     kk, pp = np.nonzero((fp <= margin).T)  # pairs (pixel, piece), sorted by pixel

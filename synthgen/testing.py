@@ -19,7 +19,6 @@ shares none of its code.
 
 from __future__ import annotations
 
-import math
 from pathlib import Path
 
 import numpy as np

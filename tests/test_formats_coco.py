@@ -12,7 +12,6 @@ from synthgen.formats import coco as cf
 from synthgen.formats import rle
 
 
-
 def _tiny():
     m = np.zeros((6, 8), bool)
     m[2:5, 3:7] = True

@@ -296,7 +296,7 @@ def test_gaussian_center_size_log_spread():
     """The log of each side's scale factor has standard deviation 'size'; centres move by 'center' * side."""
     b = big_sample()
     r = gaussian_center_size(b, 0.1, 0.2, rng=np.random.default_rng(0))
-    w, h = b[:, 2] - b[:, 0], b[:, 3] - b[:, 1]
+    w = b[:, 2] - b[:, 0]
     w2, h2 = r.boxes[:, 2] - r.boxes[:, 0], r.boxes[:, 3] - r.boxes[:, 1]
     assert np.log(w2 / w).std() == pytest.approx(0.2, rel=0.03)
     dcx = (r.boxes[:, 0] + r.boxes[:, 2] - b[:, 0] - b[:, 2]) / 2 / w
