@@ -44,16 +44,17 @@ import numpy as np
 import orjson
 from PIL import Image
 
+from synthgen._io import read_input
 from synthgen.errors import InputFileError
+from synthgen.errors import is_int as _is_int
+from synthgen.errors import is_number as _is_num
 from synthgen.formats import masks as masks_fmt
 from synthgen.formats import rle
 from synthgen.formats import tokens as tokens_fmt
 from synthgen.formats import voc as voc_fmt
 from synthgen.formats import yolo as yolo_fmt
-from synthgen.formats._common import bad_record, read_input
+from synthgen.formats._common import bad_record
 from synthgen.formats._common import inside_dataset as _inside
-from synthgen.formats._common import is_int as _is_int
-from synthgen.formats._common import is_number as _is_num
 from synthgen.formats.coco import structure_problems
 
 __all__ = ["Problem", "CheckReport", "check_dataset"]

@@ -231,7 +231,8 @@ def make(
     """Render a dataset: images, COCO JSON annotations and a manifest."""
     from synthgen.config import load_config
     from synthgen.dataset import make_dataset
-    from synthgen.shards import OutputWriteError, parse_shard
+    from synthgen.errors import OutputWriteError
+    from synthgen.shards import parse_shard
 
     overrides = _overrides(set_, count, seed)
     cfg = load_config(config, overrides)
@@ -464,7 +465,7 @@ def score(
     from rich.console import Console
 
     from synthgen import report_score as rep
-    from synthgen.formats.coco import write_bytes_atomic
+    from synthgen._io import write_atomic
     from synthgen.score import score_files, score_sweep
 
     if (predictions is None) == (pred_dir is None):
@@ -484,7 +485,7 @@ def score(
         if plot is not None:  # the figure first: a figure that cannot be drawn leaves no JSON behind
             rep.plot_sweep(points, plot)
         if json_out is not None:
-            write_bytes_atomic(json_out, orjson.dumps({"sweep": [p.to_dict() for p in points]}, option=orjson.OPT_INDENT_2))
+            write_atomic(json_out, orjson.dumps({"sweep": [p.to_dict() for p in points]}, option=orjson.OPT_INDENT_2))
         return
     if plot is not None and not by:
         raise UserError("option '--plot' needs at least one --by FACT to plot")
@@ -501,7 +502,7 @@ def score(
     if plot is not None:
         rep.plot_slices(slices, plot, title=f"{predictions.name} on {dataset.name}")
     if json_out is not None:
-        write_bytes_atomic(json_out, orjson.dumps(evaluation.to_dict(slices), option=orjson.OPT_INDENT_2))
+        write_atomic(json_out, orjson.dumps(evaluation.to_dict(slices), option=orjson.OPT_INDENT_2))
 
 
 def _check_output_file(option: str, path: Path | None) -> None:
@@ -651,7 +652,7 @@ def merge(
 ) -> None:
     """Join shard outputs into the dataset a single run writes, byte for byte."""
     from synthgen.dataset import merge_shards
-    from synthgen.shards import OutputWriteError
+    from synthgen.errors import OutputWriteError
 
     try:
         summary = merge_shards(dirs, out, overwrite=overwrite)

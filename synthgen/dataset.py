@@ -47,10 +47,11 @@ import numpy as np
 import orjson
 
 from synthgen import __version__
+from synthgen._io import named_os_errors, sha256_file, write_atomic, write_unsynced
 from synthgen.config import Config, build, to_dict
-from synthgen.errors import InputFileError, UserError, make_output_dir
+from synthgen.errors import InputFileError, OutputWriteError, UserError, make_output_dir
 from synthgen.formats import rle
-from synthgen.formats.coco import bbox_from_xyxy, read_coco, write_bytes_atomic
+from synthgen.formats.coco import bbox_from_xyxy, read_coco
 from synthgen.formats.export import parse_formats, write_formats
 from synthgen.formats.images import EXTENSIONS, encode_image
 from synthgen.formats.splits import check_fractions
@@ -59,7 +60,6 @@ from synthgen.scene import Scene, category_id, render_scene
 from synthgen.shards import (
     RUN_RECORD,
     STATE_DIR,
-    OutputWriteError,
     RecordStore,
     Shard,
     decode_record,
@@ -69,7 +69,6 @@ from synthgen.shards import (
     journal_path,
     read_json,
     remove_state,
-    sha256_file,
     shard_manifest_path,
     state_dir,
     write_coco_streamed,
@@ -230,22 +229,6 @@ def scene_annotations(scene: Scene, height: int, width: int) -> list[dict]:
     return records
 
 
-def write_file_atomic(path: Path, data: bytes) -> None:
-    """Write ``data`` to ``path`` under a temporary name in the same directory, then rename.
-
-    No fsync: a killed process cannot leave a truncated file under ``path``, and
-    damage from a power cut is caught by the digests on ``--resume``.
-    """
-    tmp = path.parent / f".{path.name}.tmp"
-    try:
-        with _naming(path):
-            tmp.write_bytes(data)
-            os.replace(tmp, path)
-    except BaseException:
-        tmp.unlink(missing_ok=True)  # give back the space of a partial file
-        raise
-
-
 def render_image_record(config: Config, index: int, images_dir: Path | None = None) -> dict:
     """Render image ``index``, optionally write its file, and return its records.
 
@@ -261,7 +244,7 @@ def render_image_record(config: Config, index: int, images_dir: Path | None = No
     data = encode_image(scene.image, out.image_format, png_level=out.png_level, jpeg_quality=out.jpeg_quality)
     name = image_name(config, index)
     if images_dir is not None:
-        write_file_atomic(Path(images_dir) / name, data)
+        write_unsynced(Path(images_dir) / name, data)
     height, width = scene.image.shape[:2]
     image = {
         "id": index + 1,
@@ -635,7 +618,7 @@ def _files_of_earlier_run(out: Path) -> set[str]:
                     owned.update(rec[0]["files"])
     images = out / "images"
     if owned and images.is_dir():
-        owned.update(p.relative_to(out).as_posix() for p in images.glob(".*.tmp"))  # write_file_atomic's names
+        owned.update(p.relative_to(out).as_posix() for p in images.glob(".*.tmp"))  # write_unsynced's names
     return owned
 
 
@@ -672,8 +655,8 @@ def _remove_temporaries(out: Path) -> None:
 
 def _write_small(path: Path, data: bytes) -> None:
     """Write a manifest or run record atomically (temp file, fsync, rename); errors name ``path``."""
-    with _naming(path):
-        write_bytes_atomic(path, data)
+    with named_os_errors(path):
+        write_atomic(path, data)
 
 
 def _write_all(raw, data: bytes) -> None:
@@ -681,17 +664,6 @@ def _write_all(raw, data: bytes) -> None:
     view = memoryview(data)
     while view:
         view = view[raw.write(view):]
-
-
-@contextlib.contextmanager
-def _naming(path: Path):
-    """Attach ``path`` to an OSError raised without a file name (e.g. by a buffered write)."""
-    try:
-        yield
-    except OSError as exc:
-        if exc.filename:
-            raise
-        raise OSError(exc.errno, exc.strerror or str(exc), str(path)) from None
 
 
 def _write_error(exc: OSError, out: Path) -> OutputWriteError:
@@ -916,7 +888,7 @@ def _append_records(journal: Path, end: int, results, store: RecordStore, report
         jf.truncate(end)  # drop a record cut short by a crash
         offset = jf.seek(end)
         for lines in results:
-            with _naming(journal):
+            with named_os_errors(journal):
                 for line in lines:
                     _write_all(jf, line)
                     store.add(journal, orjson.loads(line[: line.index(b"\t")])["index"], offset, len(line))
@@ -924,7 +896,7 @@ def _append_records(journal: Path, end: int, results, store: RecordStore, report
             done += len(lines)
             if report is not None:
                 report(done)
-        with _naming(journal):
+        with named_os_errors(journal):
             os.fsync(jf.fileno())
 
 
@@ -1140,7 +1112,7 @@ def _copy_all(copies: list[tuple], out: Path) -> None:
             data = src.read_bytes()
             if hashlib.sha256(data).hexdigest() != digest:  # changed since it was checked
                 raise _damaged_shard_file(src, shard)
-            write_file_atomic(out / rel, data)
+            write_unsynced(out / rel, data)
             written.append(out / rel)
     except BaseException:
         for path in written:

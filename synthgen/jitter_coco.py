@@ -59,9 +59,10 @@ from pathlib import Path
 import numpy as np
 import orjson
 
+from synthgen._io import write_atomic
 from synthgen.errors import InputFileError, UserError, check_number
 from synthgen.formats._common import bad_record as _problem
-from synthgen.formats.coco import bbox_from_xyxy, read_coco, structure_problems, write_bytes_atomic, xyxy_from_bbox
+from synthgen.formats.coco import bbox_from_xyxy, read_coco, structure_problems, xyxy_from_bbox
 from synthgen.geometry import box_ioa
 from synthgen.jitter import (
     DETECTION_KINDS,
@@ -318,8 +319,8 @@ def write_jitter_outputs(out, truth, predictions: list[dict], sidecar: dict) -> 
     _check_outputs(out, truth)
     pred_bytes = orjson.dumps(predictions)
     truth_bytes = orjson.dumps(sidecar)
-    write_bytes_atomic(truth, truth_bytes)
-    write_bytes_atomic(out, pred_bytes)
+    write_atomic(truth, truth_bytes)
+    write_atomic(out, pred_bytes)
 
 
 def jitter_files(dataset, out, *, truth=None, seed: int = 0, spec: DetectorSpec = DetectorSpec()) -> dict:

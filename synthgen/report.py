@@ -78,7 +78,8 @@ from pathlib import Path
 
 import numpy as np
 
-from synthgen.errors import InputFileError, UserError, require_extra
+from synthgen._io import write_atomic
+from synthgen.errors import InputFileError, UserError, is_int, require_extra
 from synthgen.geometry import as_boxes, pairwise_ioa, pairwise_iou
 
 __all__ = [
@@ -317,7 +318,7 @@ def read_predictions(path) -> Predictions:
         if not isinstance(r, dict):
             raise InputFileError(path, f"record {i} must be an object (got {type(r).__name__})")
         for key in ("image_id", "category_id"):
-            if not (isinstance(r.get(key), int) and not isinstance(r.get(key), bool)):
+            if not is_int(r.get(key)):
                 got = r.get(key, "<missing>")
                 raise InputFileError(path, f"record {i}: '{key}' must be an integer (got {got!r})")
         b = r.get("bbox")
@@ -1707,22 +1708,6 @@ def _empty(ax, text: str) -> None:
 # --------------------------------------------------------------------------- saving
 
 
-def _write_file(path, data: bytes) -> None:
-    """Write atomically, then give the file the permissions a plain ``open`` would (umask applied).
-
-    The atomic writer's temporary file is created private (0600); a picture or
-    table for people should be readable like any other file the user makes.
-    """
-    import os
-
-    from synthgen.formats.coco import write_bytes_atomic
-
-    write_bytes_atomic(path, data)
-    mask = os.umask(0)
-    os.umask(mask)
-    os.chmod(path, 0o666 & ~mask)
-
-
 def save_png(image: np.ndarray, path, *, optimize: bool = False) -> None:
     """Write an ``(H, W, 3)`` uint8 array as a PNG, atomically.
 
@@ -1734,7 +1719,7 @@ def save_png(image: np.ndarray, path, *, optimize: bool = False) -> None:
 
     buf = io.BytesIO()
     Image.fromarray(np.asarray(image, dtype=np.uint8)).save(buf, format="PNG", optimize=optimize)
-    _write_file(path, buf.getvalue())
+    write_atomic(path, buf.getvalue())
 
 
 def save_figure(fig, path, *, dpi: int = 100) -> None:
@@ -1744,11 +1729,11 @@ def save_figure(fig, path, *, dpi: int = 100) -> None:
     FigureCanvasAgg(fig)
     buf = io.BytesIO()
     fig.savefig(buf, format="png", dpi=dpi)
-    _write_file(path, buf.getvalue())
+    write_atomic(path, buf.getvalue())
 
 
 def save_json(obj, path) -> None:
     """Write JSON-ready values (e.g. :func:`dataset_stats` output) indented, atomically."""
     import orjson
 
-    _write_file(path, orjson.dumps(obj, option=orjson.OPT_INDENT_2 | orjson.OPT_SERIALIZE_NUMPY) + b"\n")
+    write_atomic(path, orjson.dumps(obj, option=orjson.OPT_INDENT_2 | orjson.OPT_SERIALIZE_NUMPY) + b"\n")

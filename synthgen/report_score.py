@@ -6,10 +6,12 @@ backend switch), so it works headless and inside other programs.
 
 from __future__ import annotations
 
+import io
 import math
 from collections.abc import Mapping, Sequence
 from pathlib import Path
 
+from synthgen._io import write_atomic
 from synthgen.errors import InputFileError, UserError, require_extra
 from synthgen.score import STAT_NAMES, BinResult, Evaluation, SweepPoint
 
@@ -77,12 +79,16 @@ def _new_figure(n_panels: int):
 
 
 def _save(fig, path) -> None:
-    """Write ``fig`` as a PNG; a path that cannot be written is the user's mistake."""
+    """Write ``fig`` as a PNG, atomically; a path that cannot be written is the user's mistake."""
     path = Path(path)
     if path.is_dir():
         raise InputFileError(path, "cannot be written: it is a directory")
+    if not path.parent.is_dir():  # a figure never creates folders
+        raise InputFileError(path, "cannot be written (No such file or directory)")
+    buf = io.BytesIO()
+    fig.savefig(buf, dpi=_DPI, format="png")
     try:
-        fig.savefig(path, dpi=_DPI, format="png")
+        write_atomic(path, buf.getvalue())
     except OSError as e:
         raise InputFileError(path, f"cannot be written ({e.strerror or e})") from None
 

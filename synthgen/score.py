@@ -59,8 +59,8 @@ from pathlib import Path
 
 import numpy as np
 
-from synthgen.errors import InputFileError, UserError
-from synthgen.formats._common import read_input
+from synthgen._io import read_input
+from synthgen.errors import InputFileError, UserError, is_int, is_number
 from synthgen.formats.coco import xyxy_from_bbox
 from synthgen.geometry import box_iou
 
@@ -270,14 +270,6 @@ class _Preds:
     unknown: tuple = ()  # sorted category ids of predictions that name no ground-truth category
 
 
-def _is_int(v) -> bool:
-    return isinstance(v, (int, np.integer)) and not isinstance(v, (bool, np.bool_))
-
-
-def _is_real(v) -> bool:
-    return isinstance(v, (int, float, np.integer, np.floating)) and not isinstance(v, (bool, np.bool_))
-
-
 def _int_array(values) -> np.ndarray | None:
     arr = np.asarray(values)
     if arr.ndim != 1 or arr.dtype.kind not in "iu":
@@ -302,7 +294,7 @@ def _show(v) -> str:
 
 def _check_box(name: str, where: str, bbox) -> None:
     rule = "'bbox' must be [x, y, width, height]: 4 finite numbers with width >= 0 and height >= 0"
-    ok = isinstance(bbox, (list, tuple)) and len(bbox) == 4 and all(_is_real(v) for v in bbox)
+    ok = isinstance(bbox, (list, tuple)) and len(bbox) == 4 and all(is_number(v) for v in bbox)
     ok = ok and all(math.isfinite(v) for v in bbox) and bbox[2] >= 0 and bbox[3] >= 0
     if not ok:
         raise InputFileError(name, f"{where}: {rule} (got {_show(bbox)})")
@@ -316,12 +308,12 @@ def _parse_truth(coco_gt, name: str) -> _Truth:
             raise InputFileError(name, f"'{key}' must be a list (got {_show(coco_gt.get(key))})")
     image_ids = []
     for i, im in enumerate(coco_gt["images"]):
-        if not isinstance(im, Mapping) or not _is_int(im.get("id")):
+        if not isinstance(im, Mapping) or not is_int(im.get("id")):
             raise InputFileError(name, f"images[{i}]: 'id' must be an integer (got {_show(im)})")
         image_ids.append(int(im["id"]))
     cats = {}
     for i, c in enumerate(coco_gt["categories"]):
-        if not isinstance(c, Mapping) or not _is_int(c.get("id")):
+        if not isinstance(c, Mapping) or not is_int(c.get("id")):
             raise InputFileError(name, f"categories[{i}]: 'id' must be an integer (got {_show(c)})")
         cats[int(c["id"])] = str(c.get("name", c["id"]))
     image_arr = np.unique(np.asarray(image_ids, dtype=np.int64))
@@ -394,22 +386,22 @@ def _scan_annotations(anns: list, name: str, image_set: set, cat_index: dict):
             if key not in a:
                 raise InputFileError(name, f"{where}: missing key '{key}'")
         aid = a["id"]
-        if not _is_int(aid) or aid == 0:
+        if not is_int(aid) or aid == 0:
             # COCO evaluation stores matches by id and reads 0 as "unmatched".
             raise InputFileError(name, f"{where}: 'id' must be a non-zero integer (got {_show(aid)})")
         if aid in seen_ids:
             raise InputFileError(name, f"{where}: 'id' must be unique (got {aid} again)")
         seen_ids.add(aid)
-        if not _is_int(a["image_id"]) or a["image_id"] not in image_set:
+        if not is_int(a["image_id"]) or a["image_id"] not in image_set:
             raise InputFileError(
                 name, f"{where}: 'image_id' must be the id of a listed image (got {_show(a['image_id'])})"
             )
-        if not _is_int(a["category_id"]) or a["category_id"] not in cat_index:
+        if not is_int(a["category_id"]) or a["category_id"] not in cat_index:
             raise InputFileError(
                 name, f"{where}: 'category_id' must be the id of a listed category (got {_show(a['category_id'])})"
             )
         _check_box(name, where, a["bbox"])
-        if not _is_real(a["area"]) or not math.isfinite(a["area"]):
+        if not is_number(a["area"]) or not math.isfinite(a["area"]):
             raise InputFileError(name, f"{where}: 'area' must be a finite number (got {_show(a['area'])})")
         if a["iscrowd"] not in (0, 1) or isinstance(a["iscrowd"], float):
             raise InputFileError(name, f"{where}: 'iscrowd' must be 0 or 1 (got {_show(a['iscrowd'])})")
@@ -441,16 +433,16 @@ def _bad_prediction(predictions, name: str, truth: _Truth) -> None:
         for key in _PRED_KEYS:
             if key not in p:
                 raise InputFileError(name, f"{where}: missing key '{key}'")
-        if not _is_int(p["image_id"]):
+        if not is_int(p["image_id"]):
             raise InputFileError(name, f"{where}: 'image_id' must be an integer (got {_show(p['image_id'])})")
         if p["image_id"] not in known:
             raise InputFileError(
                 name, f"{where}: 'image_id' must be the id of an image in the ground truth (got {p['image_id']})"
             )
-        if not _is_int(p["category_id"]):
+        if not is_int(p["category_id"]):
             raise InputFileError(name, f"{where}: 'category_id' must be an integer (got {_show(p['category_id'])})")
         _check_box(name, where, p["bbox"])
-        if not _is_real(p["score"]) or not math.isfinite(p["score"]):
+        if not is_number(p["score"]) or not math.isfinite(p["score"]):
             raise InputFileError(name, f"{where}: 'score' must be a finite number (got {_show(p['score'])})")
 
 
@@ -904,7 +896,7 @@ class Evaluation:
             if len(kinds) > 1:
                 raise UserError(f"slice fact '{fact}' mixes value types {sorted(k.__name__ for k in kinds)}")
             return np.array(raw, dtype=object), True
-        if all(_is_real(v) for v in present):
+        if all(is_number(v) for v in present):
             return np.array([np.nan if v is None else float(v) for v in raw], dtype=np.float64), False
         raise UserError(f"slice fact '{fact}' must hold numbers, booleans or strings (got e.g. {_show(present[0])})")
 

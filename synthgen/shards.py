@@ -33,7 +33,6 @@ whole COCO dict (:func:`synthgen.dataset.build_coco`).
 
 from __future__ import annotations
 
-import hashlib
 import os
 import re
 import shutil
@@ -43,9 +42,8 @@ from pathlib import Path
 import numpy as np
 import orjson
 
-from synthgen.errors import InputFileError, UserError
-from synthgen.formats._common import fsync_dir as _fsync_dir
-from synthgen.formats._common import temp_beside
+from synthgen._io import AtomicWriter, sha256_file
+from synthgen.errors import InputFileError, OutputWriteError, UserError
 
 __all__ = [
     "Shard",
@@ -77,26 +75,6 @@ RUN_RECORD = "run.json"
 _SHARD_TEXT = re.compile(r"^\s*(\d+)\s*/\s*(\d+)\s*$")
 _SHARD_FILE = re.compile(r"^shard-(\d+)-of-(\d+)\.json$")
 _JSON = orjson.OPT_SERIALIZE_NUMPY
-
-
-class OutputWriteError(Exception):
-    """Writing the output failed (disk full, permission denied...): exit code 1.
-
-    Parameters
-    ----------
-    path : str or Path
-        The file or directory that could not be written.
-    reason : str
-        The system's reason, e.g. ``"No space left on device"``.
-    """
-
-    def __init__(self, path, reason: str):
-        self.path = str(path)
-        self.reason = reason
-        super().__init__(
-            f"cannot write {path}: {reason}; the images finished so far are kept, "
-            "run the same command with --resume to continue"
-        )
 
 
 @dataclass(frozen=True, slots=True)
@@ -349,55 +327,6 @@ class RecordStore:
 # --------------------------------------------------------------------------- writing
 
 
-class AtomicWriter:
-    """A file written under a temporary name, fsync'ed and renamed over ``path`` on success.
-
-    Use as a context manager; on an exception the temporary file is removed and
-    ``path`` is untouched.  ``sha256`` holds the digest of what was written.
-    """
-
-    def __init__(self, path: Path, buffering: int = 1 << 20):
-        self.path = Path(path)
-        self._buffering = buffering
-        self.sha256 = hashlib.sha256()
-
-    def __enter__(self):
-        fd, self._tmp = temp_beside(self.path)
-        self._f = os.fdopen(fd, "wb", buffering=self._buffering)
-        return self
-
-    def write(self, data: bytes) -> None:
-        self.sha256.update(data)
-        try:
-            self._f.write(data)
-        except OSError as exc:
-            raise self._named(exc) from None
-
-    def _named(self, exc: OSError) -> OSError:
-        return OSError(exc.errno, exc.strerror or str(exc), str(self.path))
-
-    def __exit__(self, exc_type, exc, tb):
-        try:
-            if exc_type is None:
-                self._f.flush()
-                os.fsync(self._f.fileno())
-            self._f.close()
-            if exc_type is None:
-                os.replace(self._tmp, self.path)
-                _fsync_dir(self.path.parent)
-        except OSError as err:
-            raise self._named(err) from None
-        finally:
-            if not self._f.closed:
-                try:
-                    self._f.close()
-                except OSError:
-                    pass
-            if os.path.exists(self._tmp):
-                os.unlink(self._tmp)
-        return False
-
-
 def write_coco_streamed(path: Path, store: RecordStore, indices, *, info: dict, categories: list[dict]):
     """Write the COCO file of images ``indices`` from their journal records, atomically.
 
@@ -514,13 +443,3 @@ def remove_state(out: Path) -> None:
     shutil.rmtree(state_dir(out), ignore_errors=True)
 
 
-def sha256_file(path: Path) -> str | None:
-    """sha256 hex of a file's bytes, or None when it cannot be read."""
-    h = hashlib.sha256()
-    try:
-        with open(path, "rb") as f:
-            for block in iter(lambda: f.read(1 << 20), b""):
-                h.update(block)
-    except OSError:
-        return None
-    return h.hexdigest()

@@ -222,8 +222,8 @@ def run_sweep(
     """
     import orjson
 
+    from synthgen._io import write_atomic
     from synthgen.dataset import make_dataset
-    from synthgen.formats.coco import write_bytes_atomic
     from synthgen.shards import describe_differences, read_json, state_dir
 
     start = time.perf_counter()
@@ -256,7 +256,7 @@ def run_sweep(
     make_output_dir(out)
     (out / "sweep.json").unlink(missing_ok=True)  # until every subset is done again, it does not look finished
     make_output_dir(state_dir(out))
-    write_bytes_atomic(record_path, orjson.dumps(asked, option=orjson.OPT_INDENT_2))
+    write_atomic(record_path, orjson.dumps(asked, option=orjson.OPT_INDENT_2))
     total = sum(cfg.count for _, _, cfg in plan)
     done = 0
     kept = 0
@@ -293,7 +293,7 @@ def run_sweep(
         "subsets": subsets,
         "base": asked["base"],
     }
-    write_bytes_atomic(out / "sweep.json", orjson.dumps(record, option=orjson.OPT_INDENT_2))
+    write_atomic(out / "sweep.json", orjson.dumps(record, option=orjson.OPT_INDENT_2))
     shutil.rmtree(state_dir(out), ignore_errors=True)
     return SweepSummary(
         out=out, subsets=len(plan), images=done, objects=n_objects, seconds=time.perf_counter() - start,

@@ -182,7 +182,7 @@ def test_a_failed_copy_removes_what_merge_copied(tmp_path, tiny_config, monkeypa
 
     for k in (0, 1):
         make_dataset(tiny_config, tmp_path / f"s{k}", workers=1, shard=Shard(k, 2))
-    real, calls = dataset.write_file_atomic, []
+    real, calls = dataset.write_unsynced, []
 
     def failing(path, data):
         calls.append(path)
@@ -190,7 +190,7 @@ def test_a_failed_copy_removes_what_merge_copied(tmp_path, tiny_config, monkeypa
             raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC), str(path))
         real(path, data)
 
-    monkeypatch.setattr(dataset, "write_file_atomic", failing)
+    monkeypatch.setattr(dataset, "write_unsynced", failing)
     with pytest.raises(dataset.OutputWriteError, match="No space left"):
         merge_shards([tmp_path / "s0", tmp_path / "s1"], tmp_path / "m")
     assert not (tmp_path / "m").exists()
@@ -327,7 +327,7 @@ def test_write_error_mid_run_exits_1_and_stays_resumable(tmp_path, monkeypatch, 
     """A failing image write exits 1 with one line naming the file; --resume then completes the dataset."""
     import synthgen.dataset as dataset
 
-    real = dataset.write_file_atomic
+    real = dataset.write_unsynced
     calls = []
 
     def failing(path, data):
@@ -337,7 +337,7 @@ def test_write_error_mid_run_exits_1_and_stays_resumable(tmp_path, monkeypatch, 
             raise OSError(code, os.strerror(code), str(path.parent / f".{path.name}.tmp"))
         real(path, data)
 
-    monkeypatch.setattr(dataset, "write_file_atomic", failing)
+    monkeypatch.setattr(dataset, "write_unsynced", failing)
     out = tmp_path / "d"
     res = CliRunner().invoke(app, ["make", "--out", str(out), "--workers", "1", "-q", *TINY_CLI])
     assert res.exit_code == 1
@@ -345,7 +345,7 @@ def test_write_error_mid_run_exits_1_and_stays_resumable(tmp_path, monkeypatch, 
     assert f"cannot write {out / 'images' / '.000004.png.tmp'}: {reason}" in line and "--resume" in line
     assert not (out / "manifest.json").exists()
 
-    monkeypatch.setattr(dataset, "write_file_atomic", real)
+    monkeypatch.setattr(dataset, "write_unsynced", real)
     res = CliRunner().invoke(app, ["make", "--out", str(out), "--workers", "1", "-q", "--resume", *TINY_CLI])
     assert res.exit_code == 0, res.output
     assert "4 kept from before" in res.stdout

@@ -30,10 +30,10 @@ from pathlib import Path
 import numpy as np
 import orjson
 
+from synthgen._io import read_input, write_atomic
 from synthgen.errors import InputFileError
-from synthgen.formats._common import is_int as _is_int
-from synthgen.formats._common import is_number as _is_num
-from synthgen.formats._common import read_input, staged_file
+from synthgen.errors import is_int as _is_int
+from synthgen.errors import is_number as _is_num
 from synthgen.geometry import as_boxes
 
 __all__ = [
@@ -42,7 +42,6 @@ __all__ = [
     "structure_problems",
     "bbox_from_xyxy",
     "xyxy_from_bbox",
-    "write_bytes_atomic",
 ]
 
 
@@ -95,19 +94,6 @@ def xyxy_from_bbox(bboxes) -> np.ndarray:
     return out
 
 
-def write_bytes_atomic(path, data: bytes) -> None:
-    """Write ``data`` to ``path`` through a fsync'ed temporary file and a rename.
-
-    Parameters
-    ----------
-    path : str or Path
-        Final file name (its directory is created when missing).
-    data : bytes
-    """
-    with staged_file(Path(path)) as tmp:
-        tmp.write_bytes(data)
-
-
 def write_coco(path, coco: dict, *, indent: bool = False) -> None:
     """Write a COCO dict as JSON, atomically.
 
@@ -124,7 +110,7 @@ def write_coco(path, coco: dict, *, indent: bool = False) -> None:
     option = orjson.OPT_SERIALIZE_NUMPY
     if indent:
         option |= orjson.OPT_INDENT_2
-    write_bytes_atomic(path, orjson.dumps(coco, option=option))
+    write_atomic(path, orjson.dumps(coco, option=option))
 
 
 def read_coco(path) -> dict:

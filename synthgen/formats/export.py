@@ -27,13 +27,14 @@ from pathlib import Path
 
 import orjson
 
-from synthgen.errors import ConfigError, InputFileError, UserError, check_choice
+from synthgen._io import staged_dir, staged_file, write_atomic
+from synthgen.errors import ConfigError, InputFileError, UserError, check_choice, is_int
 from synthgen.formats import masks as masks_fmt
 from synthgen.formats import tokens as tokens_fmt
 from synthgen.formats import voc as voc_fmt
 from synthgen.formats import yolo as yolo_fmt
-from synthgen.formats._common import bad_record, inside_dataset, sidecar_name, staged_dir, staged_file
-from synthgen.formats.coco import read_coco, write_bytes_atomic, write_coco
+from synthgen.formats._common import bad_record, inside_dataset, sidecar_name
+from synthgen.formats.coco import read_coco, write_coco
 from synthgen.formats.splits import assign_splits, coco_split_name, split_coco
 
 __all__ = ["FORMATS", "parse_formats", "write_formats", "export"]
@@ -151,7 +152,7 @@ def write_formats(
             "fractions": dict(split),
             "splits": {name: [im["file_name"] for im in part["images"]] for name, part in parts.items()},
         }
-        write_bytes_atomic(out / "splits.json", orjson.dumps(doc, option=orjson.OPT_INDENT_2))
+        write_atomic(out / "splits.json", orjson.dumps(doc, option=orjson.OPT_INDENT_2))
     return done
 
 
@@ -237,7 +238,7 @@ def _manifest_seed(dataset_dir: Path) -> int | None:
         seed = orjson.loads(path.read_bytes()).get("seed")
     except (orjson.JSONDecodeError, AttributeError):
         raise InputFileError(path, "is not a valid manifest (JSON object)") from None
-    return seed if isinstance(seed, int) and not isinstance(seed, bool) else None
+    return seed if is_int(seed) else None
 
 
 def dataset_seed(dataset_dir) -> int:

@@ -35,9 +35,10 @@ import numpy as np
 import orjson
 from PIL import Image, ImageDraw
 
+from synthgen._io import read_input
 from synthgen.errors import InputFileError
 from synthgen.formats import rle
-from synthgen.formats._common import annotations_by_image, bad_record, read_input, sidecar_name
+from synthgen.formats._common import annotations_by_image, bad_record, sidecar_name
 
 __all__ = [
     "MASK_MODES",

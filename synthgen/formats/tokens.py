@@ -44,14 +44,13 @@ from pathlib import Path
 import numpy as np
 import orjson
 
-from synthgen.errors import check_choice, check_number
+from synthgen._io import read_input
+from synthgen.errors import check_choice, check_number, is_int
 from synthgen.formats._common import (
     annotations_by_image,
     bad_record,
     categories_in_order,
     image_index,
-    is_int,
-    read_input,
 )
 from synthgen.geometry import as_boxes, box_area
 

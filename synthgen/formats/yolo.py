@@ -23,11 +23,11 @@ from pathlib import Path
 
 import numpy as np
 
+from synthgen._io import read_input_text
 from synthgen.formats._common import (
     annotations_by_image,
     bad_record,
     categories_in_order,
-    read_input_text,
     sidecar_name,
 )
 from synthgen.geometry import as_boxes
