@@ -35,6 +35,7 @@ import cv2
 import numpy as np
 
 from synthgen.errors import ConfigError, as_tuples, check_number, check_range
+from synthgen.seeding import NOISE_BANK_SEED, stream
 
 __all__ = [
     "NoiseSpec",
@@ -62,7 +63,6 @@ DEGRADE_ORDER = ("brightness", "contrast", "vignette", "blur", "noise", "jpeg")
 NOISE_BANK_SHAPE = (1024, 1536, 3)
 """``(H, W, 3)`` of the per-process bank of standard normal values used by :func:`add_noise`."""
 
-_NOISE_BANK_SEED = 0x5EED_0A15E
 
 
 # --------------------------------------------------------------------------- specs
@@ -408,7 +408,7 @@ def gaussian_blur(image: np.ndarray, sigma: float) -> np.ndarray:
 @functools.cache
 def _noise_bank() -> np.ndarray:
     """A fixed float32 array of standard normals, identical in every process and run."""
-    gen = np.random.Generator(np.random.PCG64(np.random.SeedSequence(_NOISE_BANK_SEED)))
+    gen = stream(NOISE_BANK_SEED)
     bank = gen.standard_normal(NOISE_BANK_SHAPE, dtype=np.float32)
     bank.flags.writeable = False
     return bank

@@ -57,6 +57,7 @@ import numpy as np
 from synthgen.errors import ConfigError, check_number, check_range
 from synthgen.geometry import as_boxes, box_ioa, box_iou, boxes_valid
 from synthgen.score import IOU_THRESHOLDS
+from synthgen.seeding import NOISE_STREAM, stream
 
 __all__ = [
     "NOISE_STREAM",
@@ -1528,8 +1529,6 @@ def simulate_detections(
     )
 
 
-#: ``spawn_key`` tail of the training-noise stream of image k: ``(k, NOISE_STREAM)`` (the bytes of "nois").
-NOISE_STREAM = 0x6E6F6973
 
 
 def noise_padder(seed: int, length: int, *, jittered: float = 0.5, shift: float = 0.2, scale: float = 0.4):
@@ -1551,7 +1550,7 @@ def noise_padder(seed: int, length: int, *, jittered: float = 0.5, shift: float 
         raise ValueError(f"length must be >= 0 (got {length})")
 
     def noise(k: int, boxes, category_ids, canvas) -> NoisePadded:
-        rng = np.random.Generator(np.random.PCG64(np.random.SeedSequence(seed, spawn_key=(int(k), NOISE_STREAM))))
+        rng = stream(seed, int(k), NOISE_STREAM)
         b = as_boxes(boxes)
         return pad_with_noise(
             b, np.asarray(category_ids, dtype=np.int64), max(length, len(b)), rng=rng, canvas=canvas,

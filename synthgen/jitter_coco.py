@@ -72,13 +72,12 @@ from synthgen.jitter import (
     clear_of_thresholds,
     simulate_detections,
 )
+from synthgen.seeding import JITTER_STREAM, stream
 
 __all__ = ["SIDECAR_FORMAT", "JITTER_STREAM", "jitter_dataset", "write_jitter_outputs", "jitter_files", "truth_path_for"]
 
 SIDECAR_FORMAT = "synthgen-jitter-truth/1"
 
-#: ``spawn_key`` of the jitter random stream (the bytes of "jitt").
-JITTER_STREAM = 0x6A697474
 
 # Boxes may overshoot their image by float rounding of x + w; beyond this (px) they are an error.
 _EDGE_SLACK = 1e-6
@@ -220,7 +219,7 @@ def jitter_dataset(
     if spec.background > 0 and len(classes) == 0:
         raise UserError(f"{source}: background boxes need at least one category (got none)")
     spec, nudged = clear_spec(spec)
-    rng = np.random.Generator(np.random.PCG64(np.random.SeedSequence(int(seed), spawn_key=(JITTER_STREAM,))))
+    rng = stream(seed, JITTER_STREAM)
     det = simulate_detections(boxes, labels, sizes, rng=rng, spec=spec, image=image, classes=classes, ignore=ignore)
     on_crowd = _group_max_iou(det.boxes, det.image, np.full(len(det), -1), ignore[0], ignore[1], box_ioa)
 

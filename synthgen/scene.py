@@ -59,6 +59,7 @@ from synthgen.degrade import degrade_owned
 from synthgen.geometry import box_iou, clip_boxes, mask_box
 from synthgen.kinds import identifiable, stroke_limit
 from synthgen.occlusion import SampleBuffer, patch_bounds, sample_bits_many
+from synthgen.seeding import STAGES, image_rng
 from synthgen.shapes import (
     KINDS,
     Shape,
@@ -88,8 +89,6 @@ __all__ = [
 #: Rec. 601 luma weights for R, G, B (common practice for perceived brightness).
 LUMA = np.array([0.299, 0.587, 0.114])
 
-#: Number of child generators :func:`compose` spawns (background, objects, clutter, degradation).
-STAGES = 4
 
 
 def category_id(kind: str) -> int:
@@ -156,16 +155,6 @@ class Scene:
     masks: tuple
     info: dict = field(default_factory=dict)
     ignored: IgnoreRegions = field(default_factory=IgnoreRegions)
-
-
-def image_rng(seed: int, index: int) -> np.random.Generator:
-    """The generator of image ``index`` of a run with root ``seed``.
-
-    ``SeedSequence(seed, spawn_key=(index,))`` makes every image's stream
-    independent of the others, so image ``k`` can be rebuilt alone and results
-    do not depend on worker count or order.
-    """
-    return np.random.Generator(np.random.PCG64(np.random.SeedSequence(seed, spawn_key=(index,))))
 
 
 def render_scene(config, index: int = 0) -> Scene:

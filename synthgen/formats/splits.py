@@ -31,11 +31,10 @@ import re
 import numpy as np
 
 from synthgen.errors import ConfigError
+from synthgen.seeding import SPLIT_STREAM, stream
 
 __all__ = ["SPLIT_STREAM", "parse_split", "check_fractions", "assign_splits", "split_coco", "coco_split_name"]
 
-# Spawn-key element of the stream that orders images for splitting.
-SPLIT_STREAM = 0x73706C
 
 _NAME = re.compile(r"^[A-Za-z][A-Za-z0-9_-]*$")
 
@@ -122,7 +121,7 @@ def assign_splits(n_images: int, fractions: dict[str, float], *, seed: int) -> l
     check_fractions(fractions, "split")
     names = list(fractions)
     sizes = _sizes(n_images, [fractions[k] for k in names])
-    rng = np.random.Generator(np.random.PCG64(np.random.SeedSequence(seed, spawn_key=(SPLIT_STREAM,))))
+    rng = stream(seed, SPLIT_STREAM)
     u = rng.random(n_images)
     ranked = np.argsort(u, kind="stable")
     label = np.empty(n_images, dtype=np.int64)

@@ -53,6 +53,7 @@ from synthgen.formats._common import (
     image_index,
 )
 from synthgen.geometry import as_boxes, box_area
+from synthgen.seeding import ORDER_STREAM, stream
 
 __all__ = [
     "ORDERS",
@@ -70,8 +71,6 @@ __all__ = [
 ]
 
 ORDERS = ("random", "raster", "area", "distance")
-# Spawn-key element of the per-image stream that draws the random order.
-ORDER_STREAM = 0x746F6B
 
 
 def quantize(values, length: float, n_bins: int) -> np.ndarray:
@@ -304,7 +303,7 @@ def write_tokens(
         rng = None
         if order == "random":
             k = image_index(im, pos)
-            rng = np.random.Generator(np.random.PCG64(np.random.SeedSequence(seed, spawn_key=(k, ORDER_STREAM))))
+            rng = stream(seed, k, ORDER_STREAM)
         perm = object_order(xyxy, order, rng=rng)
         cat_ids = [a["category_id"] for a in anns]
         if callable(noise):
