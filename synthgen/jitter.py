@@ -55,7 +55,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from synthgen.errors import ConfigError, check_number, check_range
-from synthgen.geometry import as_boxes, box_ioa, box_iou, boxes_valid
+from synthgen.geometry import as_boxes, box_ioa, box_iou, boxes_valid, group_max_overlap
 from synthgen.score import IOU_THRESHOLDS
 from synthgen.seeding import NOISE_STREAM, stream
 
@@ -887,41 +887,6 @@ def duplicates(
 # --------------------------------------------------------------------------- distractors
 
 
-def _group_max_iou(pred, pred_img, exclude, truth, truth_img, measure=box_iou) -> np.ndarray:
-    """Largest IoU of each prediction with the truth boxes of its image, skipping ``exclude``.
-
-    ``measure`` (element-wise over box pairs) replaces the IoU, e.g. by
-    :func:`synthgen.geometry.box_ioa` for the overlap with ignore regions.
-
-    Parameters
-    ----------
-    pred : ndarray of shape (P, 4)
-    pred_img : ndarray of int, shape (P,)
-    exclude : ndarray of int, shape (P,)
-        Truth index to leave out for each prediction (-1: none).
-    truth : ndarray of shape (N, 4)
-    truth_img : ndarray of int, shape (N,)
-
-    Returns
-    -------
-    ndarray of shape (P,), 0 where no other truth box shares the image.
-    """
-    out = np.zeros(len(pred))
-    if len(pred) == 0 or len(truth) == 0:
-        return out
-    order = np.argsort(truth_img, kind="stable")
-    sorted_img = truth_img[order]
-    start = np.searchsorted(sorted_img, pred_img, side="left")
-    cnt = np.searchsorted(sorted_img, pred_img, side="right") - start  # (P,)
-    pi = np.repeat(np.arange(len(pred)), cnt)  # one row per (prediction, truth of its image) pair
-    offset = np.arange(cnt.sum()) - np.repeat(np.cumsum(cnt) - cnt, cnt)
-    gi = order[np.repeat(start, cnt) + offset]
-    v = measure(pred[pi], truth[gi])
-    v[gi == exclude[pi]] = 0.0
-    np.maximum.at(out, pi, v)
-    return out
-
-
 def _random_boxes(cw, ch, size, aspect, rng) -> np.ndarray:
     """Random boxes inside canvases ``cw x ch`` (shape (K,) each).
 
@@ -981,10 +946,10 @@ def _place_background(truth, truth_img, counts, cw_img, ch_img, max_iou, size, a
         if todo.size == 0:
             break
         cand = _random_boxes(cw_img[img[todo]], ch_img[img[todo]], size, aspect, rng)
-        o = _group_max_iou(cand, img[todo], np.full(todo.size, -1), truth, truth_img)
+        o = group_max_overlap(cand, img[todo], truth, truth_img)
         ok = o < max_iou
         if ignore is not None and len(ignore[0]):
-            ok &= _group_max_iou(cand, img[todo], np.full(todo.size, -1), ignore[0], ignore[1], box_ioa) < max_iou
+            ok &= group_max_overlap(cand, img[todo], ignore[0], ignore[1], measure=box_ioa) < max_iou
         boxes[todo] = cand
         other[todo] = o
         clear[todo] = ok
@@ -1068,7 +1033,7 @@ def _from_sources(truth, truth_img, src, targets, modes, cw, ch, rng):
         s = src[todo]
         d, _ = _directions(modes, todo.size, rng)
         p, a, adj = _solve(truth[s], d, targets[todo], cw[s], ch[s])
-        o = _group_max_iou(p, truth_img[s], s, truth, truth_img)
+        o = group_max_overlap(p, truth_img[s], truth, truth_img, exclude=s)
         boxes[todo], iou[todo], other[todo], adjusted[todo] = p, a, o, adj
         todo = todo[o >= a]
     return boxes, iou, other, adjusted

@@ -63,12 +63,11 @@ from synthgen._io import write_atomic
 from synthgen.errors import InputFileError, UserError, check_number
 from synthgen.formats._common import bad_record as _problem
 from synthgen.formats.coco import bbox_from_xyxy, read_coco, structure_problems, xyxy_from_bbox
-from synthgen.geometry import box_ioa
+from synthgen.geometry import box_ioa, group_max_overlap
 from synthgen.jitter import (
     DETECTION_KINDS,
     OUTCOMES,
     DetectorSpec,
-    _group_max_iou,
     clear_of_thresholds,
     simulate_detections,
 )
@@ -221,7 +220,7 @@ def jitter_dataset(
     spec, nudged = clear_spec(spec)
     rng = stream(seed, JITTER_STREAM)
     det = simulate_detections(boxes, labels, sizes, rng=rng, spec=spec, image=image, classes=classes, ignore=ignore)
-    on_crowd = _group_max_iou(det.boxes, det.image, np.full(len(det), -1), ignore[0], ignore[1], box_ioa)
+    on_crowd = group_max_overlap(det.boxes, det.image, ignore[0], ignore[1], measure=box_ioa)
 
     image_ids = [im["id"] for im in coco["images"]]
     bboxes = bbox_from_xyxy(det.boxes)

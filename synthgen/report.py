@@ -80,7 +80,7 @@ import numpy as np
 
 from synthgen._io import write_atomic
 from synthgen.errors import InputFileError, UserError, is_int, require_extra
-from synthgen.geometry import as_boxes, pairwise_ioa, pairwise_iou
+from synthgen.geometry import as_boxes, box_longer_side, box_relations, pairwise_ioa, pairwise_iou
 
 __all__ = [
     "CATEGORY_COLOURS",
@@ -945,7 +945,7 @@ def _zoom_crops(ds: Dataset, chosen, overlay: _Overlay, tile_scales: dict, count
     if sel.size == 0 or count <= 0:
         return []
     b = overlay.boxes[sel]
-    longer = np.maximum(b[:, 2] - b[:, 0], b[:, 3] - b[:, 1])
+    longer = box_longer_side(b)
     # only objects an enlargement helps: at least x2, and more than their tile already shows
     tile_scale = np.array([tile_scales.get(int(g), 1.0) for g in overlay.image_id[sel]])
     helps = (longer <= _zoom_limit(side)) & (_zoom_factor(longer, side) > tile_scale)
@@ -1181,24 +1181,6 @@ def _quantiles(values: np.ndarray) -> dict:
             "p75": float(q[3]), "max": float(q[4]), "mean": float(v.mean())}
 
 
-def _max_iou_per_object(boxes: np.ndarray, image_ids: np.ndarray) -> np.ndarray:
-    """Largest box IoU of each box with another box of its image (0 when alone), shape (N,)."""
-    out = np.zeros(len(boxes))
-    if len(boxes) == 0:
-        return out
-    order = np.argsort(image_ids, kind="stable")
-    starts = np.flatnonzero(np.r_[True, np.diff(image_ids[order]) != 0])
-    ends = np.r_[starts[1:], len(order)]
-    for s, e in zip(starts, ends):
-        if e - s < 2:
-            continue
-        idx = order[s:e]
-        m = pairwise_iou(boxes[idx], boxes[idx])  # (k, k)
-        np.fill_diagonal(m, 0.0)
-        out[idx] = m.max(axis=1)
-    return out
-
-
 def _objects_per_image(image_ids: np.ndarray, ann_image_ids: np.ndarray) -> np.ndarray:
     """Annotations per image, in the order of ``image_ids`` (0 for an image without any), shape (I,)."""
     ids, counts = np.unique(ann_image_ids, return_counts=True)
@@ -1214,7 +1196,7 @@ def _object_facts(coco: Mapping) -> dict:
     boxes, img, cat = boxes[keep], img[keep], cat[keep]
     anns = [a for a, k in zip(anns, keep.tolist()) if k]
     wh = boxes[:, 2:] - boxes[:, :2]
-    longer = wh.max(axis=1) if len(boxes) else np.zeros(0)
+    longer = box_longer_side(boxes)
     has_area = np.array([_num(a.get("area")) for a in anns], dtype=bool)
     area = np.array([float(a["area"]) if h else 0.0 for a, h in zip(anns, has_area)])
     if len(anns):
@@ -1228,7 +1210,7 @@ def _object_facts(coco: Mapping) -> dict:
         "longer": longer, "area": area, "area_from_field": has_area,
         "visible_fraction": vis,
         "truncated": np.array([bool(t) for t in trunc], dtype=bool), "truncated_known": trunc_known,
-        "max_iou": _max_iou_per_object(boxes, img),
+        "max_iou": box_relations(boxes, img)[0],
     }
 
 

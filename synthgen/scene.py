@@ -56,7 +56,7 @@ from synthgen import shapes as shapes_mod
 from synthgen.backgrounds import render_background
 from synthgen.clutter import render_clutter
 from synthgen.degrade import degrade_owned
-from synthgen.geometry import box_iou, clip_boxes, mask_box
+from synthgen.geometry import box_iou, box_relations, clip_boxes, half_extents, mask_box, overlapping_pairs
 from synthgen.kinds import identifiable, stroke_limit
 from synthgen.occlusion import SampleBuffer, patch_bounds, sample_bits_many
 from synthgen.seeding import STAGES, image_rng
@@ -385,8 +385,7 @@ _BOX_LAYOUTS = frozenset({"separated", "pairs"})
 
 def _half_extents(shapes) -> np.ndarray:
     """Half width and half height (N, 2) of each shape's exact box (geometry built in bulk)."""
-    boxes = np.array([g.box for g in shapes_mod._geoms(shapes)], dtype=np.float64).reshape(-1, 4)
-    return np.stack([(boxes[:, 2] - boxes[:, 0]) / 2.0, (boxes[:, 3] - boxes[:, 1]) / 2.0], axis=1)
+    return half_extents(np.array([g.box for g in shapes_mod._geoms(shapes)], dtype=np.float64).reshape(-1, 4))
 
 
 def _moved(shape: Shape, centre) -> Shape:
@@ -680,7 +679,7 @@ def _measure(shapes, styles, extras, config, height: int, width: int) -> list:
 def _clear_sides(order: list, patches: dict) -> tuple[set, set]:
     """The shapes of ``order`` (top first) whose patch meets no patch above it, and those it meets none below.
 
-    From the pairs of patches that meet (:func:`_overlapping_pair_blocks`),
+    From the pairs of patches that meet (:func:`overlapping_pairs`),
     given up (empty sets, the safe answer) once the pairs outnumber
     :data:`_CONTACT_PAIRS` per patch, so crowded scenes never pay for all their pairs.
     """
@@ -689,7 +688,7 @@ def _clear_sides(order: list, patches: dict) -> tuple[set, set]:
     has_below = np.zeros(len(r), dtype=bool)  # pairs (a, b) with a < b: a lies above b
     has_above = np.zeros(len(r), dtype=bool)
     pairs = 0
-    for ii, jj in _overlapping_pair_blocks(boxes):
+    for ii, jj in overlapping_pairs(boxes):
         has_below[ii] = True
         has_above[jj] = True
         pairs += ii.size
@@ -1054,39 +1053,6 @@ def _paint_pixels(fill, sel, kinds, seg, rr, cc, colours, idx, styles) -> None:
 # --------------------------------------------------------------------------- annotation
 
 
-def _overlapping_pair_blocks(boxes: np.ndarray):
-    """Index pairs ``(i, j)``, ``i < j``, of boxes (N, 4) whose intersection has positive area, a block at a time.
-
-    Yields ``(i, j)`` int arrays.  Boxes are sorted by ``x0``; a block of them
-    is tested only against the later boxes that start before the block's
-    largest ``x1``, so the work follows the number of near pairs, not N^2, and
-    memory one block's pairs.
-    """
-    n = len(boxes)
-    if n < 2:
-        return
-    order = np.argsort(boxes[:, 0], kind="stable")
-    b = boxes[order]
-    x0, y0, x1, y1 = b[:, 0], b[:, 1], b[:, 2], b[:, 3]
-    step = 128
-    for s0 in range(0, n, step):
-        s1 = min(n, s0 + step)
-        stop = int(np.searchsorted(x0, x1[s0:s1].max(), side="left"))
-        if stop <= s0 + 1:
-            continue
-        cols = slice(s0, stop)
-        ov = (
-            (x0[cols][None, :] < x1[s0:s1, None])
-            & (y0[s0:s1, None] < y1[cols][None, :])
-            & (y0[cols][None, :] < y1[s0:s1, None])
-        )  # (rows, cols); x0[row] <= x0[col] holds by the sort
-        r, c = np.nonzero(ov)
-        r, c = r + s0, c + s0
-        keep = c > r
-        a, z = order[r[keep]], order[c[keep]]
-        yield np.minimum(a, z), np.maximum(a, z)
-
-
 def _full_boxes(drawn, width: int, height: int) -> np.ndarray:
     """Exact boxes (N, 4) of ``drawn`` clipped to the canvas: for a shape cut by the border, the tight box of its part on the canvas."""
     raw = np.array([d.box for d in drawn], dtype=np.float64).reshape(-1, 4)
@@ -1210,11 +1176,11 @@ def _drawn_above(boxes: np.ndarray) -> dict:
     ``boxes`` (N, 4) are the exact (clipped) boxes of the objects painted, in
     draw order; the result maps a position to the ascending positions above it
     (positions with nothing above are left out).  Built from the pairs of
-    overlapping boxes (:func:`_overlapping_pair_blocks`), so the work follows
+    overlapping boxes (:func:`overlapping_pairs`), so the work follows
     the number of such pairs, not N^2.  Objects that are not painted (hidden,
     erased) are not in ``boxes``: they hide nothing.
     """
-    blocks = list(_overlapping_pair_blocks(boxes))
+    blocks = list(overlapping_pairs(boxes))
     lo = np.concatenate([b[0] for b in blocks] or [np.zeros(0, dtype=np.int64)])
     hi = np.concatenate([b[1] for b in blocks] or [np.zeros(0, dtype=np.int64)])
     if lo.size == 0:
@@ -1313,16 +1279,7 @@ def _regions(items) -> tuple:
 
 def _assemble(image, kept, ignored, info) -> Scene:
     boxes, categories, areas, facts, masks = _regions(kept)
-    n = len(kept)
-    # Only boxes that overlap have a positive IoU: compute it for those pairs alone, a block at a time.
-    best = np.zeros(n)
-    count = np.zeros(n, dtype=np.int64)
-    for ii, jj in _overlapping_pair_blocks(boxes):
-        iou = box_iou(boxes[ii], boxes[jj])  # (P,)
-        np.maximum.at(best, ii, iou)
-        np.maximum.at(best, jj, iou)
-        hit = iou > 0
-        count += np.bincount(ii[hit], minlength=n) + np.bincount(jj[hit], minlength=n)
+    best, count = box_relations(boxes)
     for i, f in enumerate(facts):
         f["max_iou"] = float(best[i])
         f["neighbours"] = int(count[i])

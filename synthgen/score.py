@@ -62,7 +62,7 @@ import numpy as np
 from synthgen._io import read_input
 from synthgen.errors import InputFileError, UserError, is_int, is_number
 from synthgen.formats.coco import xyxy_from_bbox
-from synthgen.geometry import box_iou
+from synthgen.geometry import box_iou, box_relations
 
 __all__ = [
     "IOU_THRESHOLDS",
@@ -1053,48 +1053,11 @@ def derive_fact(fact: str, truth: _Truth) -> list:
         return [truth.cat_names[k] for k in truth.cat.tolist()]
     if fact == "size":
         return np.maximum(truth.box[:, 2], truth.box[:, 3]).tolist()
-    best, count = _box_relations(xyxy_from_bbox(truth.box), truth.img, truth.crowd)
+    keep = ~truth.crowd
+    best, count = np.zeros(len(keep)), np.zeros(len(keep), dtype=np.int64)
+    best[keep], count[keep] = box_relations(xyxy_from_bbox(truth.box)[keep], truth.img[keep])
     values = best if fact == "max_iou" else count.astype(np.float64)
     return [None if c else v for v, c in zip(values.tolist(), truth.crowd.tolist())]
-
-
-def _box_relations(boxes: np.ndarray, img: np.ndarray, crowd: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Per box: largest IoU with another non-crowd box of its image, and how many of them it overlaps.
-
-    Parameters
-    ----------
-    boxes : ndarray of shape (G, 4)
-        xyxy.
-    img : ndarray of int, shape (G,)
-    crowd : ndarray of bool, shape (G,)
-
-    Returns
-    -------
-    best : ndarray of float64, shape (G,)
-    count : ndarray of int64, shape (G,)
-
-    Examples
-    --------
-    >>> b = np.array([[0, 0, 2, 2], [1, 1, 3, 3], [5, 5, 6, 6], [0, 0, 2, 2.0]])
-    >>> best, count = _box_relations(b, np.array([0, 0, 0, 1]), np.zeros(4, bool))
-    >>> best.round(4).tolist(), count.tolist()
-    ([0.1429, 0.1429, 0.0, 0.0], [1, 1, 0, 0])
-    """
-    from synthgen.geometry import pairwise_iou
-
-    best = np.zeros(len(boxes))
-    count = np.zeros(len(boxes), dtype=np.int64)
-    order = np.argsort(img, kind="stable")
-    starts = np.flatnonzero(np.r_[True, img[order][1:] != img[order][:-1]]) if len(img) else np.zeros(0, int)
-    for idx in np.split(order, starts[1:]):
-        keep = idx[~crowd[idx]]
-        if len(keep) < 2:
-            continue
-        iou = pairwise_iou(boxes[keep], boxes[keep])  # (n, n)
-        np.fill_diagonal(iou, 0.0)
-        best[keep] = iou.max(axis=1)
-        count[keep] = np.count_nonzero(iou > 0, axis=1)
-    return best, count
 
 
 def _geometric_edges(values: np.ndarray, base: float) -> np.ndarray:
