@@ -18,6 +18,7 @@ from typing import Annotated
 import typer
 
 from synthgen.errors import UserError, require_extra
+from synthgen.facts import slice_facts
 
 __all__ = ["app", "main"]
 
@@ -438,8 +439,7 @@ def score(
         typer.Option(
             "--by",
             help="Also score per bin of a per-object fact: FACT (default bins) or FACT:E0,E1,... "
-            "(e.g. size:0,8,16,32,inf). Facts: area, size, visible_fraction, max_iou, neighbours, "
-            "contrast, kind, truncated, ... Repeatable.",
+            f"(e.g. size:0,8,16,32,inf). Facts: {', '.join(slice_facts())}. Repeatable.",
         ),
     ] = None,
     json_out: Annotated[Path | None, typer.Option("--json", help="Write every metric to this JSON file.")] = None,

@@ -61,6 +61,7 @@ import numpy as np
 
 from synthgen._io import read_input
 from synthgen.errors import InputFileError, UserError, is_int, is_number
+from synthgen.facts import DEFAULT_EDGES, GEOMETRIC_BASE
 from synthgen.formats.coco import xyxy_from_bbox
 from synthgen.geometry import box_iou, box_relations
 
@@ -116,19 +117,6 @@ STAT_NAMES = (
     "AR_medium",
     "AR_large",
 )
-
-#: Default bin edges per numeric fact (degrees for rotation, fractions
-#: otherwise).  ``size`` (px) and ``area`` (px^2) default to powers of 2 and of
-#: 4 spanning the objects' values (:data:`GEOMETRIC_BASE`); numeric facts not
-#: listed get quintile edges of the objects' values.
-GEOMETRIC_BASE = {"size": 2.0, "area": 4.0}
-DEFAULT_EDGES: dict[str, tuple[float, ...]] = {
-    "visible_fraction": (0.0, 0.25, 0.5, 0.75, 0.9, 1.0),
-    "max_iou": (0.0, 0.1, 0.3, 0.5, 0.7, 1.0),
-    "neighbours": (0.0, 1.0, 2.0, 4.0, 8.0, math.inf),
-    "contrast": (0.0, 0.1, 0.2, 0.4, 0.6, 1.0),
-    "rotation": (0.0, 90.0, 180.0, 270.0, 360.0),
-}
 
 #: Facts a detection box can be measured on, for assigning unmatched
 #: detections to a bin: box area ``w * h`` and longer side ``max(w, h)``.

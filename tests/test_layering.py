@@ -20,17 +20,17 @@ PACKAGE = Path(__file__).resolve().parent.parent / "synthgen"
 
 #: layer -> the other layers it may import.  Leaves import nothing of synthgen but leaves;
 #: the main line is config -> scene -> run, with formats below run; jitter, evaluate, report
-#: and testing are side branches that may use formats and the leaves, never the reverse;
-#: cli is on top.
+#: and testing are side branches that may use formats, scene (its facts table, kinds) and the
+#: leaves, never the reverse (ARCHITECTURE.md); cli is on top.
 ALLOWED: dict[str, frozenset[str]] = {
     "leaf": frozenset(),
     "config": frozenset({"leaf"}),
     "scene": frozenset({"leaf", "config"}),
     "formats": frozenset({"leaf"}),
     "run": frozenset({"leaf", "config", "scene", "formats"}),
-    "evaluate": frozenset({"leaf", "formats"}),
-    "jitter": frozenset({"leaf", "formats", "evaluate"}),
-    "report": frozenset({"leaf", "formats", "evaluate", "jitter"}),
+    "evaluate": frozenset({"leaf", "config", "scene", "formats"}),
+    "jitter": frozenset({"leaf", "config", "scene", "formats", "evaluate"}),
+    "report": frozenset({"leaf", "config", "scene", "formats", "evaluate", "jitter"}),
     "testing": frozenset({"leaf", "config", "scene", "run", "formats", "jitter", "evaluate"}),
     "cli": frozenset({"leaf", "config", "scene", "run", "formats", "jitter", "evaluate", "report", "testing"}),
 }
