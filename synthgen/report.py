@@ -80,7 +80,9 @@ import numpy as np
 
 from synthgen._io import write_atomic
 from synthgen.errors import InputFileError, UserError, is_int, require_extra
+from synthgen.formats.coco import AREA_RANGES
 from synthgen.geometry import as_boxes, box_longer_side, box_relations, pairwise_ioa, pairwise_iou
+from synthgen.jitter import DETECTION_KINDS
 
 __all__ = [
     "CATEGORY_COLOURS",
@@ -121,7 +123,7 @@ CATEGORY_COLOURS: tuple[tuple[int, int, int], ...] = (
 
 #: What a prediction is: the names ``synthgen jitter`` uses for its simulated detections, and
 #: ``ignored`` for one that COCO evaluation matches to an ignore region (neither true nor false).
-PREDICTION_KINDS = ("true_positive", "duplicate", "localization", "wrong_class", "background", "ignored")
+PREDICTION_KINDS = (*DETECTION_KINDS, "ignored")
 
 #: Prediction outline colours by kind, RGB; drawn dashed.
 PREDICTION_COLOURS: dict[str, tuple[int, int, int]] = {
@@ -144,7 +146,7 @@ _KIND_LABELS = {
 
 #: COCO size ranges by the ground truth's ``area`` in px^2, both ends inclusive
 #: (REFERENCE.md: COCO-style AP).
-COCO_AREA_RANGES = (("small", 0.0, 32.0**2), ("medium", 32.0**2, 96.0**2), ("large", 96.0**2, 1e10))
+COCO_AREA_RANGES = tuple(r for r in AREA_RANGES if r[0] != "all")
 
 _EPS = 1e-6  # px: float noise in x + w must not move an outline onto the next pixel
 _DASH = (4, 3)  # on, off pixels along a prediction's outline

@@ -88,6 +88,7 @@ __all__ = [
 
 #: Rec. 601 luma weights for R, G, B (common practice for perceived brightness).
 LUMA = np.array([0.299, 0.587, 0.114])
+_LUMA_R, _LUMA_G, _LUMA_B = (float(w) for w in LUMA)  # the same weights for scalar sums
 
 
 
@@ -890,7 +891,7 @@ def _under_luma(v: np.ndarray, patch: np.ndarray) -> float:
 
 
 def _luma3(r: float, g: float, b: float) -> float:
-    return (r * 0.299 + g * 0.587 + b * 0.114) / 255.0
+    return (r * _LUMA_R + g * _LUMA_G + b * _LUMA_B) / 255.0
 
 
 def _draw_one(canvas, cov, style, cand, lum, min_contrast: float) -> float:
@@ -977,7 +978,7 @@ def _draw_level(canvas, idx, covs, styles, cands, lums, min_contrast: float) -> 
     sums = [np.bincount(seg, weights=v64 * under8[:, ch], minlength=k) for ch in range(3)]
     covered = total > 0
     safe = np.where(covered, total, 1.0)
-    lum = ((sums[0] / safe) * 0.299 + (sums[1] / safe) * 0.587 + (sums[2] / safe) * 0.114) / 255.0
+    lum = ((sums[0] / safe) * _LUMA_R + (sums[1] / safe) * _LUMA_G + (sums[2] / safe) * _LUMA_B) / 255.0
     under_lum = np.where(covered, lum, 0.5)
     # colours: the first qualifying candidate of each colour slot, as _pick_colours
     idx_arr = np.array(idx)

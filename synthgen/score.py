@@ -62,7 +62,7 @@ import numpy as np
 from synthgen._io import read_input
 from synthgen.errors import InputFileError, UserError, is_int, is_number
 from synthgen.facts import DEFAULT_EDGES, GEOMETRIC_BASE
-from synthgen.formats.coco import xyxy_from_bbox
+from synthgen.formats.coco import AREA_RANGES, xyxy_from_bbox
 from synthgen.geometry import box_iou, box_relations
 
 __all__ = [
@@ -95,13 +95,6 @@ IOU_THRESHOLDS = np.linspace(0.5, 0.95, int(np.round((0.95 - 0.5) / 0.05)) + 1, 
 RECALL_POINTS = np.linspace(0.0, 1.00, int(np.round((1.00 - 0.0) / 0.01)) + 1, endpoint=True)
 #: Detections kept per image and category for the recall statistics.
 MAX_DETS = (1, 10, 100)
-#: COCO size ranges by ground-truth ``area`` in px^2, both ends inclusive.
-AREA_RANGES = (
-    ("all", 0**2, 1e5**2),
-    ("small", 0**2, 32**2),
-    ("medium", 32**2, 96**2),
-    ("large", 96**2, 1e5**2),
-)
 #: Names of the twelve statistics, in COCO's order.
 STAT_NAMES = (
     "AP",

@@ -37,6 +37,7 @@ from synthgen.errors import is_number as _is_num
 from synthgen.geometry import as_boxes
 
 __all__ = [
+    "AREA_RANGES",
     "write_coco",
     "read_coco",
     "structure_problems",
@@ -44,6 +45,15 @@ __all__ = [
     "xyxy_from_bbox",
 ]
 
+
+#: COCO size ranges by ground-truth ``area`` in px^2, both ends inclusive (the COCO
+#: detection evaluation's ``areaRng``: all, small < 32^2, medium, large >= 96^2).
+AREA_RANGES = (
+    ("all", 0**2, 1e5**2),
+    ("small", 0**2, 32**2),
+    ("medium", 32**2, 96**2),
+    ("large", 96**2, 1e5**2),
+)
 
 def bbox_from_xyxy(boxes) -> list[list[float]]:
     """COCO ``bbox`` lists from xyxy boxes.
