@@ -56,6 +56,7 @@ from synthgen.formats import yolo as yolo_fmt
 from synthgen.formats._common import bad_record
 from synthgen.formats._common import inside_dataset as _inside
 from synthgen.formats.coco import structure_problems
+from synthgen.formats.dataset_dir import ANNOTATIONS, MANIFEST, MASKS_RLE, TOKENS, TOKENS_VOCAB
 
 __all__ = ["Problem", "CheckReport", "check_dataset"]
 
@@ -782,8 +783,8 @@ def check_dataset(path, *, decode_images: bool = True) -> CheckReport:
     else:
         root = path
         coco_files = []
-        if (root / "annotations.json").is_file():
-            coco_files.append(root / "annotations.json")
+        if (root / ANNOTATIONS).is_file():
+            coco_files.append(root / ANNOTATIONS)
         coco_files += sorted(p for p in root.glob("annotations.*.json"))
         if (root / "annotations").is_dir():
             coco_files += sorted((root / "annotations").glob("*.json"))
@@ -793,7 +794,7 @@ def check_dataset(path, *, decode_images: bool = True) -> CheckReport:
         formats.append("coco")
         # The whole-dataset file is the reference for the other formats; without
         # one (only split files, or annotations/*.json), all the files together are.
-        whole = coco_files[0].name == "annotations.json"
+        whole = coco_files[0].name == ANNOTATIONS
         main = ck.coco(coco_files[0], reference=True) if whole else None
         parts = {}
         for p in coco_files[1:] if whole else coco_files:
@@ -810,20 +811,20 @@ def check_dataset(path, *, decode_images: bool = True) -> CheckReport:
     if yolo_dir is not None:
         formats.append("yolo")
         ck.yolo(yolo_dir)
-    if (root / "tokens.jsonl").is_file():
+    if (root / TOKENS).is_file():
         formats.append("tokens")
-        vocab = root / "tokens.vocab.json"
-        ck.tokens(root / "tokens.jsonl", vocab, reference=True)
+        vocab = root / TOKENS_VOCAB
+        ck.tokens(root / TOKENS, vocab, reference=True)
         for p in sorted(root.glob("tokens.*.jsonl")):
             ck.tokens(p, vocab, reference=False)
     if (root / "masks").is_dir():
         formats.append("masks")
         ck.masks_png(root / "masks")
-    elif (root / "masks.jsonl").is_file():
+    elif (root / MASKS_RLE).is_file():
         formats.append("masks")
-        ck.masks_rle(root / "masks.jsonl")
-    if formats and path.is_dir() and (root / "manifest.json").is_file():
-        ck.manifest(root / "manifest.json")
+        ck.masks_rle(root / MASKS_RLE)
+    if formats and path.is_dir() and (root / MANIFEST).is_file():
+        ck.manifest(root / MANIFEST)
     if not formats:
         raise InputFileError(
             path, "holds no dataset format synthgen knows (annotations.json, voc/, yolo/, tokens.jsonl, masks/)"

@@ -52,6 +52,7 @@ from synthgen.config import Config, build, to_dict
 from synthgen.errors import InputFileError, OutputWriteError, UserError, make_output_dir
 from synthgen.formats import rle
 from synthgen.formats.coco import bbox_from_xyxy, read_coco
+from synthgen.formats.dataset_dir import ANNOTATIONS, FORMAT_DIRS, FORMAT_ENTRIES, IMAGES_DIR, MANIFEST, OUTPUT_ENTRIES
 from synthgen.formats.export import parse_formats, write_formats
 from synthgen.formats.images import EXTENSIONS, encode_image
 from synthgen.formats.splits import check_fractions
@@ -94,21 +95,6 @@ __all__ = [
     "local_processes",
     "OUTPUT_ENTRIES",
 ]
-
-#: What a run writes at the top of its directory (``--overwrite`` removes only these and shard manifests).
-OUTPUT_ENTRIES = ("images", "annotations.json", "manifest.json", ".synthgen")
-#: What ``formats`` and ``split`` add (glob patterns; ``--overwrite`` removes these too).
-FORMAT_ENTRIES = (
-    "voc",
-    "yolo",
-    "masks",
-    "masks.jsonl",
-    "tokens.jsonl",
-    "tokens.vocab.json",
-    "tokens.*.jsonl",
-    "annotations.*.json",
-    "splits.json",
-)
 
 MANIFEST_VERSION = 1
 
@@ -305,7 +291,7 @@ def render_block(config: Config, indices: Sequence[int], out: str | Path) -> lis
     This is the unit of work of every backend (worker process, Dask task).
     """
     keep_freed_memory()
-    images_dir = Path(out) / "images"
+    images_dir = Path(out) / IMAGES_DIR
     return [journal_line(render_image_record(config, k, images_dir), k) for k in indices]
 
 
@@ -408,16 +394,16 @@ def finish_dataset(
     out = Path(out)
     try:
         n_objects, digest, dropped, files, ignored = write_coco_streamed(
-            out / "annotations.json", store, range(config.count), info=coco_info(config), categories=categories(config)
+            out / ANNOTATIONS, store, range(config.count), info=coco_info(config), categories=categories(config)
         )
-        files["annotations.json"] = digest
+        files[ANNOTATIONS] = digest
         extra = [f for f in formats if f != "coco"]
         if extra or split:
-            write_formats(read_coco(out / "annotations.json"), out, extra, split=split, seed=config.seed)
+            write_formats(read_coco(out / ANNOTATIONS), out, extra, split=split, seed=config.seed)
             files.update(_format_digests(out))
         outputs = {"formats": ["coco", *extra], "split": dict(split) if split else None}
         manifest = build_manifest(config, n_objects, dropped, files, libraries, outputs, ignored)
-        _write_small(out / "manifest.json", _dump_manifest(manifest))
+        _write_small(out / MANIFEST, _dump_manifest(manifest))
     except OSError as exc:
         raise _write_error(exc, out) from None
     finally:
@@ -480,7 +466,7 @@ def prepare_output(
     state = "new"
     if entries:
         run_file = state_dir(out) / RUN_RECORD
-        manifest_file = out / "manifest.json"
+        manifest_file = out / MANIFEST
         if manifest_file.exists():
             there, what = _config_of(manifest_file, "manifest"), "a finished dataset"
         elif run_file.exists():
@@ -523,7 +509,7 @@ def prepare_output(
             )
     make_output_dir(out)  # a path that cannot be a directory is bad input, found before any work
     try:
-        (out / "images").mkdir(exist_ok=True)
+        (out / IMAGES_DIR).mkdir(exist_ok=True)
         state_dir(out).mkdir(exist_ok=True)
         run_file = state_dir(out) / RUN_RECORD
         if not run_file.exists():
@@ -571,7 +557,7 @@ def _earlier_run_paths(out: Path) -> list[Path]:
     """
     owned = _files_of_earlier_run(out)
     stems = {PurePosixPath(rel).stem for rel in owned if rel.startswith("images/")}
-    replaced = [out / name for name in ("manifest.json", "annotations.json", "images", *FORMAT_DIRS)]
+    replaced = [out / name for name in (MANIFEST, ANNOTATIONS, "images", *FORMAT_DIRS)]
     replaced += [p for pattern in FORMAT_ENTRIES if pattern not in FORMAT_DIRS for p in sorted(out.glob(pattern))]
     for top in replaced:
         for path in sorted(top.rglob("*")) if top.is_dir() else [top] if top.exists() else []:
@@ -595,7 +581,6 @@ def _remove(paths: list[Path]) -> None:
 
 
 #: Folders written whole by the format writers (staged, then renamed over the old one).
-FORMAT_DIRS = ("voc", "yolo", "masks")
 
 
 def _files_of_earlier_run(out: Path) -> set[str]:
@@ -604,7 +589,7 @@ def _files_of_earlier_run(out: Path) -> set[str]:
     Includes those bookkeeping files themselves, and the temporary names of images being written.
     """
     owned: set[str] = set()
-    listings = [out / "manifest.json"] + [p for _, p in find_shard_manifests(out)]
+    listings = [out / MANIFEST] + [p for _, p in find_shard_manifests(out)]
     for path in listings:
         if path.is_file():
             files = read_json(path, "manifest").get("files")
@@ -616,7 +601,7 @@ def _files_of_earlier_run(out: Path) -> set[str]:
                 rec = decode_record(line)
                 if rec is not None and isinstance(rec[0].get("files"), dict):
                     owned.update(rec[0]["files"])
-    images = out / "images"
+    images = out / IMAGES_DIR
     if owned and images.is_dir():
         owned.update(p.relative_to(out).as_posix() for p in images.glob(".*.tmp"))  # write_unsynced's names
     return owned
@@ -647,7 +632,7 @@ def _derived_name(rel: str, stems: set[str]) -> bool:
 
 
 def _remove_temporaries(out: Path) -> None:
-    images = Path(out) / "images"
+    images = Path(out) / IMAGES_DIR
     if images.is_dir():
         for p in images.glob(".*.tmp"):
             p.unlink(missing_ok=True)
@@ -819,7 +804,7 @@ def make_dataset(
         state = prepare_output(out, config, shard, overwrite=overwrite, resume=resume)
         if state == "finished":
             wanted = {"formats": ["coco", *[f for f in formats if f != "coco"]], "split": dict(split) if split else None}
-            had = read_json(out / "manifest.json", "manifest").get("outputs", {"formats": ["coco"], "split": None})
+            had = read_json(out / MANIFEST, "manifest").get("outputs", {"formats": ["coco"], "split": None})
             if had != wanted:
                 raise UserError(
                     f"{out}: this finished dataset was written with formats {','.join(had['formats'])} and split "
@@ -828,12 +813,12 @@ def make_dataset(
                 )
             kept = _repair_finished(config, out)
             if kept is not None:
-                counts = read_json(out / "manifest.json", "manifest")["counts"]
+                counts = read_json(out / MANIFEST, "manifest")["counts"]
                 return MakeSummary(out, counts["images"], counts["objects"], counts["dropped"],
                                    time.perf_counter() - start, kept=kept, shard=shard,
                                    ignored=counts.get("ignored", 0))
             # The annotations are damaged too: render every image again.
-            (out / "manifest.json").unlink(missing_ok=True)
+            (out / MANIFEST).unlink(missing_ok=True)
         mine = shard.indices(config.count)
         store, end = _known_records(config, out, shard, resume_from=state == "unfinished")
         kept = _verify_kept(out, store, mine)
@@ -907,7 +892,7 @@ def _repair_finished(config: Config, out: Path) -> int | None:
     (or anything but images) is damaged, or a re-rendered image does not
     reproduce its recorded digest; the caller then renders the whole run again.
     """
-    files = read_json(out / "manifest.json", "manifest").get("files")
+    files = read_json(out / MANIFEST, "manifest").get("files")
     if not isinstance(files, dict):
         return None
     names = {f"images/{image_name(config, k)}": k for k in range(config.count)}
@@ -915,7 +900,7 @@ def _repair_finished(config: Config, out: Path) -> int | None:
     if any(rel not in names for rel in bad):
         return None
     for rel in bad:
-        if render_image_record(config, names[rel], out / "images")["files"][rel] != files[rel]:
+        if render_image_record(config, names[rel], out / IMAGES_DIR)["files"][rel] != files[rel]:
             return None
     remove_state(out)
     _remove_temporaries(out)
@@ -1104,10 +1089,10 @@ def _check_shard_files(found: list[_ShardInput], config: Config, store: RecordSt
 
 def _copy_all(copies: list[tuple], out: Path) -> None:
     """Copy the checked shard files into ``out``; on any failure remove what was copied, so ``out`` is as it was."""
-    made = [d for d in (out, out / "images") if not d.exists()]
+    made = [d for d in (out, out / IMAGES_DIR) if not d.exists()]
     written = []
     try:
-        make_output_dir(out / "images")
+        make_output_dir(out / IMAGES_DIR)
         for src, rel, digest, shard in copies:
             data = src.read_bytes()
             if hashlib.sha256(data).hexdigest() != digest:  # changed since it was checked

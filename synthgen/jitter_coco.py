@@ -63,6 +63,7 @@ from synthgen._io import write_atomic
 from synthgen.errors import InputFileError, UserError, check_number
 from synthgen.formats._common import bad_record as _problem
 from synthgen.formats.coco import bbox_from_xyxy, read_coco, structure_problems, xyxy_from_bbox
+from synthgen.formats.dataset_dir import ANNOTATIONS
 from synthgen.geometry import box_ioa, group_max_overlap
 from synthgen.jitter import (
     DETECTION_KINDS,
@@ -178,7 +179,7 @@ def _spec_json(spec: DetectorSpec) -> dict:
 
 
 def jitter_dataset(
-    coco: dict, *, seed: int, spec: DetectorSpec = DetectorSpec(), source: str = "annotations.json"
+    coco: dict, *, seed: int, spec: DetectorSpec = DetectorSpec(), source: str = ANNOTATIONS
 ) -> tuple[list[dict], dict, dict]:
     """Simulated detections for a COCO dataset, with a sidecar saying what each one is.
 
@@ -352,7 +353,7 @@ def jitter_files(dataset, out, *, truth=None, seed: int = 0, spec: DetectorSpec 
     if not dataset.is_dir():
         raise InputFileError(dataset, "is not a dataset directory (expected a directory holding annotations.json)")
     _check_outputs(out, truth)
-    ann = dataset / "annotations.json"
+    ann = dataset / ANNOTATIONS
     coco = read_coco(ann)
     predictions, sidecar, summary = jitter_dataset(coco, seed=seed, spec=spec, source=str(ann))
     write_jitter_outputs(out, truth, predictions, sidecar)

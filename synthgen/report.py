@@ -81,6 +81,7 @@ import numpy as np
 from synthgen._io import write_atomic
 from synthgen.errors import InputFileError, UserError, is_int, require_extra
 from synthgen.formats.coco import AREA_RANGES
+from synthgen.formats.dataset_dir import ANNOTATIONS, MANIFEST
 from synthgen.geometry import as_boxes, box_longer_side, box_relations, pairwise_ioa, pairwise_iou
 from synthgen.jitter import DETECTION_KINDS
 
@@ -190,7 +191,7 @@ class Dataset:
     @property
     def name(self) -> str:
         """A short name for titles: the dataset directory's name."""
-        if self.source.name != "annotations.json":
+        if self.source.name != ANNOTATIONS:
             return self.source.name
         return self.root.resolve().name or str(self.root)
 
@@ -223,13 +224,13 @@ def open_dataset(path, *, image_dir=None) -> Dataset:
     from synthgen.formats.coco import read_coco
 
     path = Path(path)
-    source = path / "annotations.json" if path.is_dir() else path
+    source = path / ANNOTATIONS if path.is_dir() else path
     if not source.exists():
         what = "has no annotations.json" if path.is_dir() else "does not exist"
         raise InputFileError(path, what)
     coco = read_coco(source)
     manifest = None
-    mpath = source.parent / "manifest.json"
+    mpath = source.parent / MANIFEST
     if mpath.is_file():
         import orjson
 

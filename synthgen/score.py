@@ -63,6 +63,7 @@ from synthgen._io import read_input
 from synthgen.errors import InputFileError, UserError, is_int, is_number
 from synthgen.facts import DEFAULT_EDGES, GEOMETRIC_BASE
 from synthgen.formats.coco import AREA_RANGES, xyxy_from_bbox
+from synthgen.formats.dataset_dir import ANNOTATIONS
 from synthgen.geometry import box_iou, box_relations
 
 __all__ = [
@@ -1177,7 +1178,7 @@ def read_ground_truth(path) -> tuple[dict, Path]:
     """
     path = Path(path)
     if path.is_dir():
-        path = path / "annotations.json"
+        path = path / ANNOTATIONS
     data = _read_json(path)
     if not isinstance(data, dict):
         raise InputFileError(path, f"must be a COCO JSON object (got {type(data).__name__})")
@@ -1308,7 +1309,7 @@ def score_sweep(sweep_dir, pred_dir, by: Sequence[str] = ()) -> list[SweepPoint]
     sweep_dir, pred_dir = Path(sweep_dir), Path(pred_dir)
     if not sweep_dir.is_dir():
         raise InputFileError(sweep_dir, "must be a sweep directory of subset datasets")
-    subsets = sorted(p.parent for p in sweep_dir.rglob("annotations.json") if p.parent != sweep_dir)
+    subsets = sorted(p.parent for p in sweep_dir.rglob(ANNOTATIONS) if p.parent != sweep_dir)
     if not subsets:
         raise InputFileError(sweep_dir, "holds no subset directories KEY=VALUE with an annotations.json")
     points = []

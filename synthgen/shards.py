@@ -44,6 +44,7 @@ import orjson
 
 from synthgen._io import AtomicWriter, sha256_file
 from synthgen.errors import InputFileError, OutputWriteError, UserError
+from synthgen.formats.dataset_dir import STATE_DIR
 
 __all__ = [
     "Shard",
@@ -67,8 +68,6 @@ __all__ = [
     "OutputWriteError",
 ]
 
-#: Hidden directory holding an unfinished run's progress.
-STATE_DIR = ".synthgen"
 #: The run record inside :data:`STATE_DIR`.
 RUN_RECORD = "run.json"
 

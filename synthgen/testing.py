@@ -576,7 +576,9 @@ if pytest is not None:
         path = _settle(small_dataset, tmp_path / "synth", **opts)
         import json
 
-        coco = json.loads((path / "annotations.json").read_text())
+        from synthgen.formats.dataset_dir import annotations_path
+
+        coco = json.loads(annotations_path(path).read_text())
         predictions, truth, _ = jitter_dataset(coco, seed=opts.get("seed", 0), spec=spec)
         return coco, predictions, truth
 

@@ -32,3 +32,19 @@ def test_luma_weights_are_written_once():
                 hits.append(f"{path.name}:{node.lineno}")
     assert len(hits) == 3, hits
     assert scene.LUMA.tolist() == [0.299, 0.587, 0.114]
+
+
+def test_dataset_file_names_are_written_once():
+    """No module but formats/dataset_dir spells a dataset file's name as a string literal."""
+    from synthgen.formats import dataset_dir
+
+    names = {dataset_dir.ANNOTATIONS, dataset_dir.MANIFEST, dataset_dir.SPLITS, dataset_dir.TOKENS}
+    names |= {dataset_dir.TOKENS_VOCAB, dataset_dir.MASKS_RLE, dataset_dir.STATE_DIR}
+    hits = []
+    for path in PACKAGE.rglob("*.py"):
+        if path.name == "dataset_dir.py":
+            continue
+        for node in ast.walk(ast.parse(path.read_text(encoding="utf-8"))):
+            if isinstance(node, ast.Constant) and node.value in names:
+                hits.append(f"{path.relative_to(PACKAGE.parent)}:{node.lineno}: {node.value!r}")
+    assert hits == []

@@ -35,6 +35,15 @@ from synthgen.formats import voc as voc_fmt
 from synthgen.formats import yolo as yolo_fmt
 from synthgen.formats._common import bad_record, inside_dataset, sidecar_name
 from synthgen.formats.coco import read_coco, write_coco
+from synthgen.formats.dataset_dir import (
+    ANNOTATIONS,
+    MANIFEST,
+    MASKS_RLE,
+    SPLITS,
+    TOKENS,
+    TOKENS_VOCAB,
+    split_tokens_name,
+)
 from synthgen.formats.splits import assign_splits, coco_split_name, split_coco
 
 __all__ = ["FORMATS", "parse_formats", "write_formats", "export"]
@@ -118,7 +127,7 @@ def write_formats(
     done: dict[str, int] = {}
 
     if "coco" in formats:
-        write_coco(out / "annotations.json", coco)
+        write_coco(out / ANNOTATIONS, coco)
         done["coco"] = len(coco["images"])
     if "voc" in formats:
         with staged_dir(out / "voc") as tmp:
@@ -132,7 +141,7 @@ def write_formats(
                 paths = [Path(os.path.relpath(images_dir / im["file_name"], out)).as_posix() for im in part["images"]]
                 _write_list(tmp / "splits" / f"{name}.txt", paths)
     if "tokens" in formats:
-        with staged_file(out / "tokens.jsonl") as tmp, staged_file(out / "tokens.vocab.json") as vtmp:
+        with staged_file(out / TOKENS) as tmp, staged_file(out / TOKENS_VOCAB) as vtmp:
             done["tokens"] = tokens_fmt.write_tokens(coco, tmp, vtmp, n_bins=n_bins, order=order, seed=seed, noise=noise)
         if parts:
             _split_token_lines(out, parts)
@@ -141,7 +150,7 @@ def write_formats(
             with staged_dir(out / "masks") as tmp:
                 done["masks"] = masks_fmt.write_instance_pngs(coco, tmp)
         else:
-            with staged_file(out / "masks.jsonl") as tmp:
+            with staged_file(out / MASKS_RLE) as tmp:
                 done["masks"] = masks_fmt.write_mask_rles(coco, tmp)
     for name, part in parts.items():
         write_coco(out / coco_split_name(name), part)
@@ -152,7 +161,7 @@ def write_formats(
             "fractions": dict(split),
             "splits": {name: [im["file_name"] for im in part["images"]] for name, part in parts.items()},
         }
-        write_atomic(out / "splits.json", orjson.dumps(doc, option=orjson.OPT_INDENT_2))
+        write_atomic(out / SPLITS, orjson.dumps(doc, option=orjson.OPT_INDENT_2))
     return done
 
 
@@ -223,15 +232,15 @@ def _write_list(path: Path, items: list[str]) -> None:
 
 def _split_token_lines(out: Path, parts: dict[str, dict]) -> None:
     # Reuse the lines just written, so each split file holds the same bytes.
-    lines = {orjson.loads(t)["image_id"]: t for t in (out / "tokens.jsonl").read_bytes().splitlines() if t.strip()}
+    lines = {orjson.loads(t)["image_id"]: t for t in (out / TOKENS).read_bytes().splitlines() if t.strip()}
     for name, part in parts.items():
         chosen = [lines[im["id"]] for im in part["images"]]
-        with staged_file(out / f"tokens.{name}.jsonl") as tmp:
+        with staged_file(out / split_tokens_name(name)) as tmp:
             tmp.write_bytes(b"\n".join(chosen) + (b"\n" if chosen else b""))
 
 
 def _manifest_seed(dataset_dir: Path) -> int | None:
-    path = dataset_dir / "manifest.json"
+    path = dataset_dir / MANIFEST
     if not path.is_file():
         return None
     try:
@@ -294,13 +303,13 @@ def export(
     dataset_dir = Path(dataset_dir)
     if not dataset_dir.is_dir():
         raise InputFileError(dataset_dir, "is not a directory")
-    coco = read_coco(dataset_dir / "annotations.json")
+    coco = read_coco(dataset_dir / ANNOTATIONS)
     if seed is None:
         seed = dataset_seed(dataset_dir)
     out = Path(out) if out is not None else dataset_dir
     formats = list(formats)
     formats = parse_formats(formats) if formats or not split else ()  # splits alone are fine
-    _check_input(coco, dataset_dir / "annotations.json", formats)
+    _check_input(coco, dataset_dir / ANNOTATIONS, formats)
     in_place = out.resolve() == dataset_dir.resolve()
     done: dict[str, int] = {}
     if in_place:

@@ -31,6 +31,7 @@ import re
 import numpy as np
 
 from synthgen.errors import ConfigError
+from synthgen.formats.dataset_dir import split_annotations_name
 from synthgen.seeding import SPLIT_STREAM, stream
 
 __all__ = ["SPLIT_STREAM", "parse_split", "check_fractions", "assign_splits", "split_coco", "coco_split_name"]
@@ -40,12 +41,12 @@ _NAME = re.compile(r"^[A-Za-z][A-Za-z0-9_-]*$")
 
 
 def coco_split_name(split: str) -> str:
-    """File name of a split's COCO file.
+    """File name of a split's COCO file (:func:`synthgen.formats.dataset_dir.split_annotations_name`).
 
     >>> coco_split_name("train")
     'annotations.train.json'
     """
-    return f"annotations.{split}.json"
+    return split_annotations_name(split)
 
 
 def check_fractions(fractions: dict[str, float], key: str = "split") -> None:
