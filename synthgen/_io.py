@@ -38,6 +38,7 @@ __all__ = [
     "named_os_errors",
     "read_input",
     "read_input_text",
+    "read_json",
     "sha256_file",
 ]
 
@@ -244,6 +245,17 @@ def read_input_text(path) -> str:
         return raw.decode("utf-8")
     except UnicodeDecodeError as e:
         raise InputFileError(path, f"cannot be read as UTF-8 text ({e.reason} at byte {e.start})") from None
+
+
+def read_json(path):
+    """An input file parsed as JSON (see :func:`read_input`); invalid JSON is an InputFileError naming it."""
+    import orjson
+
+    data = read_input(path)
+    try:
+        return orjson.loads(data)
+    except orjson.JSONDecodeError as exc:
+        raise InputFileError(path, f"is not valid JSON ({exc})") from None
 
 
 def sha256_file(path: Path) -> str | None:

@@ -55,6 +55,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from synthgen.errors import ConfigError, check_number, check_range
+from synthgen.formats.results import DETECTION_KINDS
 from synthgen.geometry import as_boxes, box_ioa, box_iou, boxes_valid, group_max_overlap
 from synthgen.score import IOU_THRESHOLDS
 from synthgen.seeding import NOISE_STREAM, stream
@@ -109,8 +110,6 @@ COCO_MARGIN = 1e-6
 #: four edges by a random direction (a mix of all of these).
 ERROR_MODES = ("shift", "grow", "shrink", "aspect", "free")
 
-#: What a simulated detection is (see :class:`Detections`).
-DETECTION_KINDS = ("true_positive", "duplicate", "localization", "wrong_class", "background")
 
 #: What happened to a ground-truth box in a simulated detector (see :class:`Detections`).
 OUTCOMES = ("detected", "missed", "mislocated", "wrong_class")

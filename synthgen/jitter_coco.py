@@ -2,7 +2,7 @@
 
 :func:`jitter_dataset` turns a COCO ground-truth dict into a COCO results list
 (predictions), a *truth sidecar* that says what each prediction is, and a
-summary of the counts; :func:`write_jitter_outputs` writes them atomically;
+summary of the counts; :func:`synthgen.formats.results.write_results` writes them atomically;
 :func:`jitter_files` does both for a dataset directory.
 
 Truth sidecar (JSON object, ``format`` = :data:`SIDECAR_FORMAT`)
@@ -57,13 +57,12 @@ import math
 from pathlib import Path
 
 import numpy as np
-import orjson
 
-from synthgen._io import write_atomic
 from synthgen.errors import InputFileError, UserError, check_number
 from synthgen.formats._common import bad_record as _problem
 from synthgen.formats.coco import bbox_from_xyxy, read_coco, structure_problems, xyxy_from_bbox
 from synthgen.formats.dataset_dir import ANNOTATIONS
+from synthgen.formats.results import SIDECAR_FORMAT, check_result_paths, truth_path_for, write_results
 from synthgen.geometry import box_ioa, group_max_overlap
 from synthgen.jitter import (
     DETECTION_KINDS,
@@ -74,9 +73,8 @@ from synthgen.jitter import (
 )
 from synthgen.seeding import JITTER_STREAM, stream
 
-__all__ = ["SIDECAR_FORMAT", "JITTER_STREAM", "jitter_dataset", "write_jitter_outputs", "jitter_files", "truth_path_for"]
+__all__ = ["SIDECAR_FORMAT", "JITTER_STREAM", "jitter_dataset", "jitter_files", "truth_path_for"]
 
-SIDECAR_FORMAT = "synthgen-jitter-truth/1"
 
 
 # Boxes may overshoot their image by float rounding of x + w; beyond this (px) they are an error.
@@ -278,50 +276,6 @@ def jitter_dataset(
     return predictions, sidecar, summary
 
 
-def truth_path_for(out) -> Path:
-    """Default sidecar path next to a results file: ``PRED.json`` -> ``PRED.truth.json``."""
-    out = Path(out)
-    return out.with_name(out.stem + ".truth.json")
-
-
-def _check_outputs(out: Path, truth: Path) -> None:
-    for path in (out, truth):
-        if not path.parent.is_dir():
-            raise InputFileError(path, "cannot be written: its directory does not exist")
-        if path.is_dir():
-            raise InputFileError(path, "cannot be written: it is a directory")
-    if out.resolve() == truth.resolve():
-        raise InputFileError(truth, "the truth sidecar must not be the predictions file")
-
-
-def write_jitter_outputs(out, truth, predictions: list[dict], sidecar: dict) -> None:
-    """Write the results file and its truth sidecar, each atomically.
-
-    Both documents are serialized and both paths checked before anything is
-    written, so bad paths leave no file behind.
-
-    Parameters
-    ----------
-    out : str or Path
-        COCO results file (JSON array).
-    truth : str or Path
-        Truth sidecar (JSON object).
-    predictions, sidecar
-        As returned by :func:`jitter_dataset`.
-
-    Raises
-    ------
-    synthgen.errors.InputFileError
-        When a directory is missing or both paths are the same.
-    """
-    out, truth = Path(out), Path(truth)
-    _check_outputs(out, truth)
-    pred_bytes = orjson.dumps(predictions)
-    truth_bytes = orjson.dumps(sidecar)
-    write_atomic(truth, truth_bytes)
-    write_atomic(out, pred_bytes)
-
-
 def jitter_files(dataset, out, *, truth=None, seed: int = 0, spec: DetectorSpec = DetectorSpec()) -> dict:
     """Read ``DATASET/annotations.json``, simulate detections, write results and sidecar.
 
@@ -352,9 +306,9 @@ def jitter_files(dataset, out, *, truth=None, seed: int = 0, spec: DetectorSpec 
     truth = truth_path_for(out) if truth is None else Path(truth)
     if not dataset.is_dir():
         raise InputFileError(dataset, "is not a dataset directory (expected a directory holding annotations.json)")
-    _check_outputs(out, truth)
+    check_result_paths(out, truth)
     ann = dataset / ANNOTATIONS
     coco = read_coco(ann)
     predictions, sidecar, summary = jitter_dataset(coco, seed=seed, spec=spec, source=str(ann))
-    write_jitter_outputs(out, truth, predictions, sidecar)
+    write_results(out, truth, predictions, sidecar)
     return summary

@@ -82,8 +82,9 @@ from synthgen._io import write_atomic
 from synthgen.errors import InputFileError, UserError, is_int, require_extra
 from synthgen.formats.coco import AREA_RANGES
 from synthgen.formats.dataset_dir import ANNOTATIONS, MANIFEST
+from synthgen.formats.results import PREDICTION_KINDS, TruthSidecar, read_truth_sidecar
+from synthgen.formats.results import read_predictions as read_prediction_records
 from synthgen.geometry import as_boxes, box_longer_side, box_relations, pairwise_ioa, pairwise_iou
-from synthgen.jitter import DETECTION_KINDS
 
 __all__ = [
     "CATEGORY_COLOURS",
@@ -122,9 +123,6 @@ CATEGORY_COLOURS: tuple[tuple[int, int, int], ...] = (
     (187, 102, 170),  # mauve (333)
 )
 
-#: What a prediction is: the names ``synthgen jitter`` uses for its simulated detections, and
-#: ``ignored`` for one that COCO evaluation matches to an ignore region (neither true nor false).
-PREDICTION_KINDS = (*DETECTION_KINDS, "ignored")
 
 #: Prediction outline colours by kind, RGB; drawn dashed.
 PREDICTION_COLOURS: dict[str, tuple[int, int, int]] = {
@@ -304,19 +302,10 @@ def read_predictions(path) -> Predictions:
     synthgen.errors.InputFileError
         Naming the file and the first bad record.
     """
-    import orjson
-
     from synthgen.formats.coco import xyxy_from_bbox
 
     path = Path(path)
-    try:
-        data = orjson.loads(path.read_bytes())
-    except OSError as e:
-        raise InputFileError(path, f"cannot be read ({e.strerror or e})") from None
-    except orjson.JSONDecodeError as e:
-        raise InputFileError(path, f"is not valid JSON ({e.msg})") from None
-    if not isinstance(data, list):
-        raise InputFileError(path, f"must be a JSON array of prediction records (got {type(data).__name__})")
+    data = read_prediction_records(path)
     for i, r in enumerate(data):
         if not isinstance(r, dict):
             raise InputFileError(path, f"record {i} must be an object (got {type(r).__name__})")
@@ -340,127 +329,6 @@ def read_predictions(path) -> Predictions:
     )
 
 
-# Names other files may use for the same kinds.
-_KIND_ALIASES = {
-    "tp": "true_positive",
-    "true positive": "true_positive",
-    "truepositive": "true_positive",
-    "dup": "duplicate",
-    "localisation": "localization",
-    "localization_error": "localization",
-    "localisation_error": "localization",
-    "loc": "localization",
-    "mislocated": "localization",
-    "wrong_label": "wrong_class",
-    "class": "wrong_class",
-    "relabelled": "wrong_class",
-    "relabeled": "wrong_class",
-    "bg": "background",
-    "false_positive": "background",
-    "distractor": "background",
-}
-_SIDECAR_KIND_KEYS = ("kind", "what", "status", "type")
-_SIDECAR_LIST_KEYS = ("predictions", "records", "detections", "items")
-_SIDECAR_INDEX_KEYS = ("index", "prediction")
-
-
-def _kind_name(value) -> str | None:
-    if not isinstance(value, str):
-        return None
-    v = value.strip().lower().replace("-", "_")
-    if v in PREDICTION_KINDS:
-        return v
-    return _KIND_ALIASES.get(v, _KIND_ALIASES.get(v.replace("_", " ")))
-
-
-@dataclass(frozen=True, slots=True)
-class TruthSidecar:
-    """What a truth sidecar says.
-
-    Attributes
-    ----------
-    kinds : tuple of str
-        One of :data:`PREDICTION_KINDS` per prediction, in the results file's order.
-    missed : frozenset of int or None
-        Annotation ids no prediction was made from (None when the file does not say).
-    """
-
-    kinds: tuple[str, ...]
-    missed: frozenset | None = None
-
-
-def read_truth_sidecar(path, n_predictions: int) -> TruthSidecar:
-    """Read what each prediction is from a truth sidecar written by ``synthgen jitter``.
-
-    The file is read defensively.  Accepted shapes: a JSON array with one
-    record per prediction, in the predictions file's order, or an object holding
-    such an array under ``"predictions"`` (or ``"records"``, ``"detections"``,
-    ``"items"``).  A record gives the kind under ``"kind"`` (or ``"what"``,
-    ``"status"``, ``"type"``), one of :data:`PREDICTION_KINDS` or a close alias
-    (``"localization_error"``, ``"tp"``, ...); a record with an integer
-    ``"index"`` (or ``"prediction"``) refers to that position in the
-    predictions file instead of its own position.  A top-level ``"missed"``
-    list of annotation ids, when present, says which ground truth has no
-    prediction.  These are the keys ``synthgen jitter`` writes
-    (``synthgen.jitter_coco``, format ``synthgen-jitter-truth/1``).
-
-    Parameters
-    ----------
-    path : str or Path
-    n_predictions : int
-        Records in the predictions file.
-
-    Returns
-    -------
-    TruthSidecar
-
-    Raises
-    ------
-    synthgen.errors.InputFileError
-        When the file has no such records, a record's kind is unknown, or the
-        records do not cover every prediction.
-    """
-    import orjson
-
-    path = Path(path)
-    try:
-        data = orjson.loads(path.read_bytes())
-    except OSError as e:
-        raise InputFileError(path, f"cannot be read ({e.strerror or e})") from None
-    except orjson.JSONDecodeError as e:
-        raise InputFileError(path, f"is not valid JSON ({e.msg})") from None
-    records = data
-    if isinstance(data, dict):
-        records = next((data[k] for k in _SIDECAR_LIST_KEYS if isinstance(data.get(k), list)), None)
-    if not isinstance(records, list):
-        raise InputFileError(
-            path, "must be a JSON array of per-prediction records, or an object with one under 'predictions'"
-        )
-    kinds: list[str | None] = [None] * n_predictions
-    for i, r in enumerate(records):
-        if not isinstance(r, dict):
-            raise InputFileError(path, f"record {i} must be an object (got {type(r).__name__})")
-        raw = next((r[k] for k in _SIDECAR_KIND_KEYS if k in r), None)
-        kind = _kind_name(raw)
-        if kind is None:
-            raise InputFileError(
-                path, f"record {i}: the kind must be one of {', '.join(PREDICTION_KINDS)} (got {raw!r})"
-            )
-        j = next((r[k] for k in _SIDECAR_INDEX_KEYS if type(r.get(k)) is int), i)
-        if not 0 <= j < n_predictions:
-            raise InputFileError(
-                path, f"record {i} refers to prediction {j}, but the predictions file has {n_predictions}"
-            )
-        kinds[j] = kind
-    missing = [j for j, k in enumerate(kinds) if k is None]
-    if missing:
-        raise InputFileError(
-            path, f"says nothing about {len(missing)} of {n_predictions} predictions (first: prediction {missing[0]})"
-        )
-    missed = None
-    if isinstance(data, dict) and isinstance(data.get("missed"), list):
-        missed = frozenset(int(g) for g in data["missed"] if type(g) is int)
-    return TruthSidecar(tuple(kinds), missed)  # type: ignore[arg-type]
 
 
 def _truth_arrays(coco: Mapping):

@@ -59,11 +59,12 @@ from pathlib import Path
 
 import numpy as np
 
-from synthgen._io import read_input
+from synthgen._io import read_json
 from synthgen.errors import InputFileError, UserError, is_int, is_number
 from synthgen.facts import DEFAULT_EDGES, GEOMETRIC_BASE
 from synthgen.formats.coco import AREA_RANGES, xyxy_from_bbox
 from synthgen.formats.dataset_dir import ANNOTATIONS
+from synthgen.formats.results import read_predictions
 from synthgen.geometry import box_iou, box_relations
 
 __all__ = [
@@ -1133,35 +1134,6 @@ def evaluate(
 # --------------------------------------------------------------------------- files and options
 
 
-def _read_json(path: Path):
-    import orjson
-
-    data = read_input(path)
-    try:
-        return orjson.loads(data)
-    except orjson.JSONDecodeError as exc:
-        raise InputFileError(path, f"is not valid JSON ({exc})") from None
-
-
-def read_predictions(path) -> list:
-    """Load a COCO results file (a JSON array of records).
-
-    Raises
-    ------
-    InputFileError
-        When the file is missing, not JSON, or not an array.
-    """
-    path = Path(path)
-    data = _read_json(path)
-    if not isinstance(data, list):
-        raise InputFileError(
-            path,
-            "predictions must be a JSON array of {image_id, category_id, bbox, score} records "
-            f"(got {type(data).__name__})",
-        )
-    return data
-
-
 def read_ground_truth(path) -> tuple[dict, Path]:
     """Load COCO ground truth from a dataset directory or a JSON file.
 
@@ -1179,7 +1151,7 @@ def read_ground_truth(path) -> tuple[dict, Path]:
     path = Path(path)
     if path.is_dir():
         path = path / ANNOTATIONS
-    data = _read_json(path)
+    data = read_json(path)
     if not isinstance(data, dict):
         raise InputFileError(path, f"must be a COCO JSON object (got {type(data).__name__})")
     return data, path

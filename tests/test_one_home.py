@@ -19,8 +19,14 @@ def test_coco_area_ranges_live_in_formats_coco():
 
 
 def test_prediction_kinds_extend_the_detection_kinds():
-    """report's prediction kinds are jitter's detection kinds plus 'ignored'."""
-    assert report.PREDICTION_KINDS == (*jitter.DETECTION_KINDS, "ignored")
+    """The prediction kinds (formats/results) are jitter's detection kinds plus 'ignored'; one reader of results."""
+    from synthgen.formats import results
+
+    assert report.PREDICTION_KINDS is results.PREDICTION_KINDS
+    assert jitter.DETECTION_KINDS is results.DETECTION_KINDS
+    assert results.PREDICTION_KINDS == (*results.DETECTION_KINDS, "ignored")
+    assert score.read_predictions is results.read_predictions
+    assert report.read_truth_sidecar is results.read_truth_sidecar
 
 
 def test_luma_weights_are_written_once():
