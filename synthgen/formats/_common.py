@@ -2,7 +2,8 @@
 
 from __future__ import annotations
 
-from pathlib import PurePosixPath
+from dataclasses import dataclass, field
+from pathlib import Path, PurePosixPath
 
 import numpy as np
 
@@ -16,6 +17,8 @@ __all__ = [
     "bad_record",
     "sidecar_name",
     "inside_dataset",
+    "WriteJob",
+    "write_lines",
 ]
 
 
@@ -96,3 +99,28 @@ def pixel_box(ann: dict) -> np.ndarray:
     return np.array([np.floor(x), np.floor(y), np.ceil(x + w), np.ceil(y + h)], dtype=np.float64)
 
 
+@dataclass(frozen=True)
+class WriteJob:
+    """What every format writer of a dataset directory is given (see :mod:`synthgen.formats.registry`).
+
+    ``parts`` maps a split name to its COCO dict and ``stems`` to its images' file stems
+    (both empty without splits); the rest are the options of
+    :func:`synthgen.formats.export.write_formats`.
+    """
+
+    coco: dict
+    out: Path
+    images_dir: Path
+    parts: dict = field(default_factory=dict)
+    stems: dict = field(default_factory=dict)
+    seed: int = 0
+    n_bins: int = 1000
+    order: str = "random"
+    noise: object = None
+    masks: str = "png"
+
+
+def write_lines(path: Path, items: list[str]) -> None:
+    """Write one item per line (UTF-8, ``\\n`` after each), making the parent directory."""
+    path.parent.mkdir(parents=True, exist_ok=True)
+    path.write_text("".join(f"{s}\n" for s in items), encoding="utf-8")

@@ -27,28 +27,21 @@ from pathlib import Path
 
 import orjson
 
-from synthgen._io import staged_dir, staged_file, write_atomic
+from synthgen._io import staged_file, write_atomic
 from synthgen.errors import ConfigError, InputFileError, UserError, check_choice, is_int
 from synthgen.formats import masks as masks_fmt
 from synthgen.formats import tokens as tokens_fmt
-from synthgen.formats import voc as voc_fmt
-from synthgen.formats import yolo as yolo_fmt
-from synthgen.formats._common import bad_record, inside_dataset, sidecar_name
+from synthgen.formats._common import WriteJob, bad_record, inside_dataset, sidecar_name
 from synthgen.formats.coco import read_coco, write_coco
 from synthgen.formats.dataset_dir import (
     ANNOTATIONS,
     MANIFEST,
-    MASKS_RLE,
     SPLITS,
-    TOKENS,
-    TOKENS_VOCAB,
-    split_tokens_name,
 )
+from synthgen.formats.registry import FORMATS, REGISTRY
 from synthgen.formats.splits import assign_splits, coco_split_name, split_coco
 
 __all__ = ["FORMATS", "parse_formats", "write_formats", "export"]
-
-FORMATS = ("coco", "voc", "yolo", "tokens", "masks")
 
 
 def parse_formats(text: str | Iterable[str], *, key: str = "--formats") -> tuple[str, ...]:
@@ -126,32 +119,10 @@ def write_formats(
     stems = {name: [sidecar_name(im["file_name"], "") for im in part["images"]] for name, part in parts.items()}
     done: dict[str, int] = {}
 
-    if "coco" in formats:
-        write_coco(out / ANNOTATIONS, coco)
-        done["coco"] = len(coco["images"])
-    if "voc" in formats:
-        with staged_dir(out / "voc") as tmp:
-            done["voc"] = voc_fmt.write_voc(coco, tmp)
-            for name, names in stems.items():
-                _write_list(tmp / "ImageSets" / "Main" / f"{name}.txt", names)
-    if "yolo" in formats:
-        with staged_dir(out / "yolo") as tmp:
-            done["yolo"] = yolo_fmt.write_yolo(coco, tmp)
-            for name, part in parts.items():
-                paths = [Path(os.path.relpath(images_dir / im["file_name"], out)).as_posix() for im in part["images"]]
-                _write_list(tmp / "splits" / f"{name}.txt", paths)
-    if "tokens" in formats:
-        with staged_file(out / TOKENS) as tmp, staged_file(out / TOKENS_VOCAB) as vtmp:
-            done["tokens"] = tokens_fmt.write_tokens(coco, tmp, vtmp, n_bins=n_bins, order=order, seed=seed, noise=noise)
-        if parts:
-            _split_token_lines(out, parts)
-    if "masks" in formats:
-        if masks == "png":
-            with staged_dir(out / "masks") as tmp:
-                done["masks"] = masks_fmt.write_instance_pngs(coco, tmp)
-        else:
-            with staged_file(out / MASKS_RLE) as tmp:
-                done["masks"] = masks_fmt.write_mask_rles(coco, tmp)
+    job = WriteJob(coco, out, images_dir, parts, stems, seed, n_bins, order, noise, masks)
+    for name, fmt in REGISTRY.items():
+        if name in formats:
+            done[name] = fmt.write(job)
     for name, part in parts.items():
         write_coco(out / coco_split_name(name), part)
         done[f"split:{name}"] = len(part["images"])
@@ -223,20 +194,6 @@ def _check_input(coco: dict, path: Path, formats) -> None:
                 path, f"annotations[{i}] (id {a['id']})", "must have a 'segmentation' (polygons or RLE) to write masks",
                 "<missing>" if seg is None else seg,
             )
-
-
-def _write_list(path: Path, items: list[str]) -> None:
-    path.parent.mkdir(parents=True, exist_ok=True)
-    path.write_text("".join(f"{s}\n" for s in items), encoding="utf-8")
-
-
-def _split_token_lines(out: Path, parts: dict[str, dict]) -> None:
-    # Reuse the lines just written, so each split file holds the same bytes.
-    lines = {orjson.loads(t)["image_id"]: t for t in (out / TOKENS).read_bytes().splitlines() if t.strip()}
-    for name, part in parts.items():
-        chosen = [lines[im["id"]] for im in part["images"]]
-        with staged_file(out / split_tokens_name(name)) as tmp:
-            tmp.write_bytes(b"\n".join(chosen) + (b"\n" if chosen else b""))
 
 
 def _manifest_seed(dataset_dir: Path) -> int | None:
