@@ -50,14 +50,13 @@ from synthgen import __version__
 from synthgen._io import named_os_errors, sha256_file, write_atomic, write_unsynced
 from synthgen.config import Config, build, to_dict
 from synthgen.errors import InputFileError, OutputWriteError, UserError, make_output_dir
-from synthgen.formats import rle
-from synthgen.formats.coco import bbox_from_xyxy, read_coco
+from synthgen.formats.coco import assemble_coco, coco_categories, read_coco, scene_annotations
 from synthgen.formats.dataset_dir import ANNOTATIONS, FORMAT_DIRS, FORMAT_ENTRIES, IMAGES_DIR, MANIFEST, OUTPUT_ENTRIES
 from synthgen.formats.export import parse_formats, write_formats
 from synthgen.formats.images import EXTENSIONS, encode_image
 from synthgen.formats.splits import check_fractions
 from synthgen.pool import run_unordered, usable_cores
-from synthgen.scene import Scene, category_id, render_scene
+from synthgen.scene import category_id, render_scene
 from synthgen.shards import (
     RUN_RECORD,
     STATE_DIR,
@@ -186,35 +185,6 @@ def image_name(config: Config, index: int) -> str:
 # --------------------------------------------------------------------------- one image
 
 
-def scene_annotations(scene: Scene, height: int, width: int) -> list[dict]:
-    """COCO annotation records (without ``id`` and ``image_id``) for a scene's objects and ignore regions.
-
-    Objects have ``iscrowd`` 0; ignore regions (:class:`synthgen.scene.IgnoreRegions`)
-    ``iscrowd`` 1.  Records are in draw order (``synthgen.z``), bottom first,
-    so that where masks share a pixel the later record is the one on top.
-    """
-    parts = ((scene, 0), (scene.ignored, 1))
-    records = []
-    for part, crowd in parts:
-        segmentations = rle.encode_patches(part.masks, height, width)  # all masks in one pass
-        records.extend(
-            {
-                "category_id": category,
-                "bbox": bbox,
-                "area": area,
-                "iscrowd": crowd,
-                "segmentation": segmentation,
-                "synthgen": facts,
-            }
-            for category, bbox, area, segmentation, facts in zip(
-                part.categories.tolist(), bbox_from_xyxy(part.boxes), part.areas.tolist(), segmentations, part.facts
-            )
-        )
-    if len(scene.ignored.facts):
-        records.sort(key=lambda r: r["synthgen"]["z"])
-    return records
-
-
 def render_image_record(config: Config, index: int, images_dir: Path | None = None) -> dict:
     """Render image ``index``, optionally write its file, and return its records.
 
@@ -300,8 +270,7 @@ def render_block(config: Config, indices: Sequence[int], out: str | Path) -> lis
 
 def categories(config: Config) -> list[dict]:
     """COCO categories of the configured shape kinds, in canonical order with stable ids."""
-    kinds = sorted(config.objects.shapes, key=category_id)
-    return [{"id": category_id(k), "name": k, "supercategory": "shape"} for k in kinds]
+    return coco_categories((category_id(k), k) for k in config.objects.shapes)
 
 
 def coco_info(config: Config) -> dict:
@@ -315,14 +284,7 @@ def build_coco(config: Config, records) -> dict:
     The in-memory reference for :func:`synthgen.shards.write_coco_streamed`,
     which writes the same bytes without holding every record.
     """
-    images, annotations = [], []
-    next_id = 1
-    for rec in records:
-        images.append(rec["image"])
-        for ann in rec["annotations"]:
-            annotations.append({"id": next_id, "image_id": rec["image"]["id"], **ann})
-            next_id += 1
-    return {"info": coco_info(config), "images": images, "annotations": annotations, "categories": categories(config)}
+    return assemble_coco(coco_info(config), categories(config), records)
 
 
 def versions() -> dict:

@@ -28,7 +28,7 @@ tab nor newline occurs inside a header or payload.  A line that is cut short
 The annotation file is streamed from the records in index order, inserting
 ``"id"`` and ``"image_id"`` in front of each stored annotation, so memory does
 not grow with the number of images and the bytes equal ``orjson.dumps`` of the
-whole COCO dict (:func:`synthgen.dataset.build_coco`).
+whole COCO dict (:func:`synthgen.formats.coco.assemble_coco`).
 """
 
 from __future__ import annotations

@@ -344,7 +344,7 @@ def _coco_union(scene, height, width, *, crowd: bool) -> np.ndarray:
     """
     from pycocotools import mask as cocomask
 
-    from synthgen.dataset import scene_annotations
+    from synthgen.formats.coco import scene_annotations
 
     out = np.zeros((height, width), dtype=bool)
     for a in scene_annotations(scene, height, width):

@@ -34,10 +34,14 @@ from synthgen._io import read_input, write_atomic
 from synthgen.errors import InputFileError
 from synthgen.errors import is_int as _is_int
 from synthgen.errors import is_number as _is_num
+from synthgen.formats import rle
 from synthgen.geometry import as_boxes
 
 __all__ = [
     "AREA_RANGES",
+    "coco_categories",
+    "scene_annotations",
+    "assemble_coco",
     "write_coco",
     "read_coco",
     "structure_problems",
@@ -246,3 +250,66 @@ def _segmentation_ok(seg) -> bool:
             for p in seg
         )
     return False
+
+
+# --------------------------------------------------------------------------- building a dataset's COCO dict
+
+
+def coco_categories(pairs) -> list[dict]:
+    """COCO ``categories`` records from ``(id, name)`` pairs, by rising id (every synthgen category is a shape).
+
+    Examples
+    --------
+    >>> coco_categories([(3, "triangle"), (1, "rectangle")])[0]
+    {'id': 1, 'name': 'rectangle', 'supercategory': 'shape'}
+    """
+    return [{"id": i, "name": name, "supercategory": "shape"} for i, name in sorted(pairs)]
+
+
+def scene_annotations(scene, height: int, width: int) -> list[dict]:
+    """COCO annotation records (without ``id`` and ``image_id``) for a scene's objects and ignore regions.
+
+    ``scene`` is a :class:`synthgen.scene.Scene` (any object with its ``boxes``,
+    ``categories``, ``areas``, ``facts``, ``masks`` and ``ignored`` parts).
+
+    Objects have ``iscrowd`` 0; ignore regions (:class:`synthgen.scene.IgnoreRegions`)
+    ``iscrowd`` 1.  Records are in draw order (``synthgen.z``), bottom first,
+    so that where masks share a pixel the later record is the one on top.
+    """
+    parts = ((scene, 0), (scene.ignored, 1))
+    records = []
+    for part, crowd in parts:
+        segmentations = rle.encode_patches(part.masks, height, width)  # all masks in one pass
+        records.extend(
+            {
+                "category_id": category,
+                "bbox": bbox,
+                "area": area,
+                "iscrowd": crowd,
+                "segmentation": segmentation,
+                "synthgen": facts,
+            }
+            for category, bbox, area, segmentation, facts in zip(
+                part.categories.tolist(), bbox_from_xyxy(part.boxes), part.areas.tolist(), segmentations, part.facts
+            )
+        )
+    if len(scene.ignored.facts):
+        records.sort(key=lambda r: r["synthgen"]["z"])
+    return records
+
+
+def assemble_coco(info: dict, categories: list[dict], records) -> dict:
+    """The COCO dict from per-image records (``{"image": ..., "annotations": [...]}``) in index order.
+
+    Annotation ids start at 1 and run over all images in order.  The in-memory
+    reference for :func:`synthgen.shards.write_coco_streamed`, which writes the
+    same bytes without holding every record.
+    """
+    images, annotations = [], []
+    next_id = 1
+    for rec in records:
+        images.append(rec["image"])
+        for ann in rec["annotations"]:
+            annotations.append({"id": next_id, "image_id": rec["image"]["id"], **ann})
+            next_id += 1
+    return {"info": info, "images": images, "annotations": annotations, "categories": categories}
