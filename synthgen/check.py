@@ -45,7 +45,7 @@ import orjson
 from PIL import Image
 
 from synthgen._io import read_input
-from synthgen.errors import InputFileError
+from synthgen.errors import InputFileError, bad_record
 from synthgen.errors import is_int as _is_int
 from synthgen.errors import is_number as _is_num
 from synthgen.formats import masks as masks_fmt
@@ -53,7 +53,6 @@ from synthgen.formats import rle
 from synthgen.formats import tokens as tokens_fmt
 from synthgen.formats import voc as voc_fmt
 from synthgen.formats import yolo as yolo_fmt
-from synthgen.formats._common import bad_record
 from synthgen.formats._common import inside_dataset as _inside
 from synthgen.formats.coco import structure_problems
 from synthgen.formats.dataset_dir import ANNOTATIONS, MANIFEST, MASKS_RLE, TOKENS, TOKENS_VOCAB

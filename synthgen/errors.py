@@ -25,6 +25,7 @@ __all__ = [
     "make_output_dir",
     "require_extra",
     "OutputWriteError",
+    "bad_record",
     "is_int",
     "is_number",
 ]
@@ -92,6 +93,18 @@ class InputFileError(UserError):
         self.problem = problem
         super().__init__(f"{path}: {problem}")
 
+
+def bad_record(path, record: str, rule: str, value: object) -> InputFileError:
+    """An :class:`InputFileError` that also carries ``record``, ``rule`` and ``value``.
+
+    Readers of input files raise it so that :mod:`synthgen.check` can report the parts apart.
+    """
+    text = repr(value)
+    if len(text) > 60:
+        text = text[:57] + "..."
+    err = InputFileError(path, f"{record}: {rule} (got {text})" if record else f"{rule} (got {text})")
+    err.record, err.rule, err.value = record, rule, value
+    return err
 
 def make_output_dir(path) -> None:
     """Create output directory ``path`` and its parents; a path that cannot be one is an :class:`InputFileError`.

@@ -59,7 +59,7 @@ from pathlib import Path
 import numpy as np
 
 from synthgen.errors import InputFileError, UserError, check_number
-from synthgen.formats._common import bad_record as _problem
+from synthgen.errors import bad_record as _problem
 from synthgen.formats.coco import bbox_from_xyxy, read_coco, structure_problems, xyxy_from_bbox
 from synthgen.formats.dataset_dir import ANNOTATIONS
 from synthgen.formats.results import SIDECAR_FORMAT, check_result_paths, truth_path_for, write_results

@@ -7,7 +7,7 @@ from pathlib import Path, PurePosixPath
 
 import numpy as np
 
-from synthgen.errors import InputFileError, is_int
+from synthgen.errors import InputFileError, bad_record, is_int
 
 __all__ = [
     "annotations_by_image",
@@ -20,19 +20,6 @@ __all__ = [
     "WriteJob",
     "write_lines",
 ]
-
-
-def bad_record(path, record: str, rule: str, value: object) -> InputFileError:
-    """An :class:`InputFileError` that also carries ``record``, ``rule`` and ``value``.
-
-    Readers raise it so that :mod:`synthgen.check` can report the parts apart.
-    """
-    text = repr(value)
-    if len(text) > 60:
-        text = text[:57] + "..."
-    err = InputFileError(path, f"{record}: {rule} (got {text})" if record else f"{rule} (got {text})")
-    err.record, err.rule, err.value = record, rule, value
-    return err
 
 
 def annotations_by_image(coco: dict) -> dict[int, list[dict]]:
