@@ -30,7 +30,7 @@ _EXPORTS = {
     "DetectorSpec": "synthgen.jitter",
     "to_iou": "synthgen.jitter",
     "jitter_dataset": "synthgen.jitter_coco",
-    "check_dataset": "synthgen.check",
+    "check_dataset": "synthgen.formats.check",
     "export": "synthgen.formats",
     "run_sweep": "synthgen.sweep",
     "pairwise_iou": "synthgen.geometry",

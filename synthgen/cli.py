@@ -526,7 +526,7 @@ def check(
     ] = False,
 ) -> None:
     """Validate a dataset in COCO, VOC, YOLO, token or mask format (exit 0 clean, 1 problems, 2 unusable)."""
-    from synthgen.check import check_dataset
+    from synthgen.formats.check import check_dataset
 
     report = check_dataset(dataset, decode_images=not quick)
     for problem in report.problems:

@@ -97,7 +97,7 @@ class InputFileError(UserError):
 def bad_record(path, record: str, rule: str, value: object) -> InputFileError:
     """An :class:`InputFileError` that also carries ``record``, ``rule`` and ``value``.
 
-    Readers of input files raise it so that :mod:`synthgen.check` can report the parts apart.
+    Readers of input files raise it so that :mod:`synthgen.formats.check` can report the parts apart.
     """
     text = repr(value)
     if len(text) > 60:

@@ -64,7 +64,6 @@ LAYER_OF: dict[str, str] = {
     "synthgen.occlusion": "scene",
     "synthgen.visible": "scene",
     "synthgen.degrade": "scene",
-    "synthgen.check": "formats",
     "synthgen.dataset": "run",
     "synthgen.pool": "run",
     "synthgen.cluster": "run",

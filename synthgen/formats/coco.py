@@ -171,7 +171,7 @@ def structure_problems(coco) -> Iterator[tuple[str, str, object]]:
     """Ways in which ``coco`` is not shaped like a COCO file.
 
     Only types and required keys are checked here; whether boxes lie inside
-    their images, ids are unique etc. is :mod:`synthgen.check`'s job.
+    their images, ids are unique etc. is :mod:`synthgen.formats.check`'s job.
 
     Parameters
     ----------
