@@ -1,9 +1,10 @@
-"""The output formats, one entry each: name, the entries of a dataset directory it owns, its writer.
+"""The output formats, one entry each: name, the entries of a dataset directory it owns, its writer,
+its check rule.
 
 Adding a format is one :class:`Format` entry in :data:`REGISTRY` plus its own module
-(the writer from a COCO dict, the reader) and tests; ``make --formats``,
-``export``, ``--overwrite`` (which removes what the formats own) and the list of
-accepted names follow from the table.  A writer gets a
+(the writer from a COCO dict, the reader, the check rule) and tests; ``make --formats``,
+``export``, ``--overwrite`` (which removes what the formats own), ``synthgen check``
+and the list of accepted names follow from the table.  A writer gets a
 :class:`~synthgen.formats._common.WriteJob` and returns the number of images written;
 directories are built under a temporary name and swapped in whole, single files
 written to a temporary file and renamed (:mod:`synthgen._io`).
@@ -24,7 +25,8 @@ from synthgen.formats import tokens as tokens_fmt
 from synthgen.formats import voc as voc_fmt
 from synthgen.formats import yolo as yolo_fmt
 from synthgen.formats._common import WriteJob, write_lines
-from synthgen.formats.coco import write_coco
+from synthgen.formats.check_context import CheckContext
+from synthgen.formats.coco import check_coco, write_coco
 from synthgen.formats.dataset_dir import (
     ANNOTATIONS,
     MASKS_DIR,
@@ -51,11 +53,19 @@ class Format:
         Entries (glob patterns) at the top of a dataset directory that this format writes.
     write : callable
         ``write(job: WriteJob) -> int``, images written.
+    check : callable
+        ``check(ctx: CheckContext) -> bool``: look for the format in ``ctx.root``
+        (whoever wrote it), add each broken rule to ``ctx`` and return whether
+        the format was there (:mod:`synthgen.formats.check`).
+    looked_for : str
+        Where the check rule looks first, as ``synthgen check`` names it when it finds no format.
     """
 
     name: str
     owns: tuple[str, ...]
     write: Callable[[WriteJob], int]
+    check: Callable[[CheckContext], bool]
+    looked_for: str
 
 
 def _write_coco(job: WriteJob) -> int:
@@ -104,15 +114,15 @@ def _write_masks(job: WriteJob) -> int:
         return masks_fmt.write_mask_rles(job.coco, tmp)
 
 
-#: Every output format, in the order they are written.
+#: Every output format, in the order they are written (and checked: COCO, the reference, first).
 REGISTRY: dict[str, Format] = {
     f.name: f
     for f in (
-        Format("coco", (ANNOTATIONS,), _write_coco),
-        Format("voc", (VOC_DIR,), _write_voc),
-        Format("yolo", (YOLO_DIR,), _write_yolo),
-        Format("tokens", (TOKENS, TOKENS_VOCAB, split_tokens_name("*")), _write_tokens),
-        Format("masks", (MASKS_DIR, MASKS_RLE), _write_masks),
+        Format("coco", (ANNOTATIONS,), _write_coco, check_coco, ANNOTATIONS),
+        Format("voc", (VOC_DIR,), _write_voc, voc_fmt.check_voc, f"{VOC_DIR}/"),
+        Format("yolo", (YOLO_DIR,), _write_yolo, yolo_fmt.check_yolo, f"{YOLO_DIR}/"),
+        Format("tokens", (TOKENS, TOKENS_VOCAB, split_tokens_name("*")), _write_tokens, tokens_fmt.check_tokens, TOKENS),
+        Format("masks", (MASKS_DIR, MASKS_RLE), _write_masks, masks_fmt.check_masks, f"{MASKS_DIR}/"),
     )
 }
 
