@@ -33,3 +33,31 @@ def test_every_format_writes_what_it_owns(tmp_path):
         assert fmt.write(job) == 2
         made = sorted(p.name for p in out.iterdir())
         assert made and all(any(fnmatch.fnmatchcase(m, pat) for pat in fmt.owns) for m in made), (name, made)
+
+
+def test_check_walks_the_registry_and_a_new_entry_is_checked(tmp_path, monkeypatch):
+    """synthgen check asks every registry entry's check rule, in order, and names each looked_for when none is found."""
+    import pytest
+
+    from synthgen.errors import InputFileError
+    from synthgen.formats.check import check_dataset
+
+    def check_parts_list(ctx):
+        listing = ctx.root / "parts.lst"
+        if not listing.is_file():
+            return False
+        ctx.count("parts", 1, 1, 0)
+        ctx.add(listing, "line 1", "must name a part", "")
+        return True
+
+    extra = registry.Format("parts", ("parts.lst",), lambda job: 0, check_parts_list, "parts.lst")
+    table = {**registry.REGISTRY, "parts": extra}
+    monkeypatch.setattr(registry, "REGISTRY", table)
+    monkeypatch.setattr("synthgen.formats.check.REGISTRY", table)
+    with pytest.raises(InputFileError, match=r"\(annotations.json, voc/, yolo/, tokens.jsonl, masks/, parts.lst\)"):
+        check_dataset(tmp_path)
+    (tmp_path / "parts.lst").write_text("\n")
+    report = check_dataset(tmp_path)
+    assert report.formats == ("parts",)
+    assert [str(p) for p in report.problems] == ["parts.lst: line 1: must name a part (got '')"]
+    assert all(callable(f.check) and f.looked_for for f in registry.REGISTRY.values())
