@@ -10,6 +10,7 @@ the category names by id) that the other formats are held against with
 
 from __future__ import annotations
 
+from collections.abc import Callable, Iterator
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -116,6 +117,22 @@ class CheckContext:
                         if p.suffix.lower() in _IMAGE_SUFFIXES and p.is_file():
                             self._stem_index.setdefault(p.relative_to(d).with_suffix("").as_posix(), p)
         return self._stem_index.get(stem)
+
+    def read_each(self, d: Path, files: list[Path], read: Callable, seen: set[str]) -> Iterator[tuple[Path, str, object]]:
+        """``(file, stem, read(file))`` for each of a format's files under ``d``.
+
+        Each file's stem (its path below ``d`` without suffix) goes into ``seen``;
+        a file ``read`` cannot read (:class:`InputFileError`) is a problem and skipped.
+        """
+        for p in files:
+            stem = p.relative_to(d).with_suffix("").as_posix()
+            seen.add(stem)
+            try:
+                doc = read(p)
+            except InputFileError as e:
+                self.add_error(e)
+                continue
+            yield p, stem, doc
 
     def image_size(self, path: Path) -> tuple[int, int] | None:
         """(W, H) of an image file, or None (with a problem) when it does not decode."""

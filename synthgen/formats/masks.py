@@ -254,14 +254,7 @@ def check_masks(ctx: CheckContext) -> bool:
 def _check_pngs(ctx: CheckContext, d: Path) -> None:
     files = sorted(d.rglob("*.png"))
     seen, n_obj = set(), 0
-    for p in files:
-        stem = p.relative_to(d).with_suffix("").as_posix()
-        seen.add(stem)
-        try:
-            ids = read_instance_png(p)
-        except InputFileError as e:
-            ctx.add_error(e)
-            continue
+    for p, stem, ids in ctx.read_each(d, files, read_instance_png, seen):
         numbered = ids[ids != IGNORE_ID]
         n_obj += int(np.count_nonzero(np.bincount(numbered)[1:])) if numbered.size else 0
         if ctx.ref_objects is None or stem not in ctx.ref_objects:

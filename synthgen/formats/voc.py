@@ -253,14 +253,7 @@ def check_voc(ctx: CheckContext) -> bool:
     files = sorted(p for p in d.rglob("*.xml") if "ImageSets" not in p.relative_to(d).parts)
     seen, n_obj = set(), 0
     names_allowed = set(ctx.ref_names) if ctx.ref_names is not None else None
-    for p in files:
-        stem = p.relative_to(d).with_suffix("").as_posix()
-        seen.add(stem)
-        try:
-            doc = read_voc(p)
-        except InputFileError as e:
-            ctx.add_error(e)
-            continue
+    for p, stem, doc in ctx.read_each(d, files, read_voc, seen):
         w, h = doc["width"], doc["height"]
         n = len(doc["names"])
         n_obj += n

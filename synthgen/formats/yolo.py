@@ -310,38 +310,13 @@ def check_yolo(ctx: CheckContext) -> bool:
     d = next((ctx.root / n for n in (YOLO_DIR, "labels") if (ctx.root / n).is_dir()), None)
     if d is None:
         return False
-    places = [d / LABELS_FILE, d / "classes.txt", ctx.root / "classes.txt"]
-    places += [ctx.root / n for n in _DATA_YAML]
-    labels_path = next((p for p in places if p.is_file()), None)
-    labels = None
-    if labels_path is None:
-        ctx.add(
-            d / LABELS_FILE, "", f"class-name file must exist (or classes.txt, or {_DATA_YAML[0]})",
-            "<missing>",
-        )
-    else:
-        try:
-            if labels_path.suffix in (".yaml", ".yml"):
-                labels = read_data_yaml(labels_path)
-            else:
-                labels = read_labels(labels_path)
-        except InputFileError as e:
-            ctx.add_error(e)
-        if labels is not None and ctx.ref_names is not None and labels != ctx.ref_names:
-            ctx.add(labels_path, "", f"must list the categories of annotations.json by id {ctx.ref_names}", labels)
+    labels_path, labels = _check_class_names(ctx, d)
     skip = {labels_path}
     files = sorted(
         p for p in d.rglob("*.txt") if p not in skip and p.relative_to(d).parts[0] != "splits"
     )
     seen, n_obj = set(), 0
-    for p in files:
-        stem = p.relative_to(d).with_suffix("").as_posix()
-        seen.add(stem)
-        try:
-            classes, boxes, lines, bad = parse_yolo(p)
-        except InputFileError as e:
-            ctx.add_error(e)
-            continue
+    for p, stem, (classes, boxes, lines, bad) in ctx.read_each(d, files, parse_yolo, seen):
         for e in bad:  # every bad line on its own; the good ones are still checked
             ctx.add_error(e)
         n_obj += classes.size
@@ -371,3 +346,27 @@ def check_yolo(ctx: CheckContext) -> bool:
     ctx.count("yolo", len(files), len(files), n_obj)
     ctx.compare_total("yolo", d)
     return True
+
+
+def _check_class_names(ctx: CheckContext, d: Path) -> tuple[Path | None, list[str] | None]:
+    """The class-name file of a YOLO directory and its names (None when missing or unreadable, with a problem)."""
+    places = [d / LABELS_FILE, d / "classes.txt", ctx.root / "classes.txt"]
+    places += [ctx.root / n for n in _DATA_YAML]
+    labels_path = next((p for p in places if p.is_file()), None)
+    labels = None
+    if labels_path is None:
+        ctx.add(
+            d / LABELS_FILE, "", f"class-name file must exist (or classes.txt, or {_DATA_YAML[0]})",
+            "<missing>",
+        )
+    else:
+        try:
+            if labels_path.suffix in (".yaml", ".yml"):
+                labels = read_data_yaml(labels_path)
+            else:
+                labels = read_labels(labels_path)
+        except InputFileError as e:
+            ctx.add_error(e)
+        if labels is not None and ctx.ref_names is not None and labels != ctx.ref_names:
+            ctx.add(labels_path, "", f"must list the categories of annotations.json by id {ctx.ref_names}", labels)
+    return labels_path, labels
