@@ -296,54 +296,63 @@ def write_tokens(
     cats = categories_in_order(coco)
     class_token = {c["id"]: n_bins + i for i, c in enumerate(cats)}
     noise_token = n_bins + len(cats)
-    end_token = noise_token + 1
     sizes = {(im["width"], im["height"]) for im in coco["images"]}
     size = next(iter(sizes)) if len(sizes) == 1 else None
     by_image = annotations_by_image(coco)
     lines = []
     for pos, im in enumerate(coco["images"]):
         anns = [a for a in by_image.get(im["id"], []) if a.get("iscrowd", 0) != 1]
-        bbox = np.array([a["bbox"] for a in anns], dtype=np.float64).reshape(-1, 4)
-        xyxy = bbox.copy()
-        xyxy[:, 2:] += bbox[:, :2]
-        rng = None
-        if order == "random":
-            k = image_index(im, pos)
-            rng = stream(seed, k, ORDER_STREAM)
-        perm = object_order(xyxy, order, rng=rng)
-        cat_ids = [a["category_id"] for a in anns]
-        if callable(noise):
-            value = noise(image_index(im, pos), xyxy, np.array(cat_ids, dtype=np.int64), (im["width"], im["height"]))
-        else:
-            value = None if noise is None else noise.get(im["id"])
-        nboxes, nlabels = _noise_objects(value, cat_ids, im["id"])
-        tokens, weights = encode_objects(
-            xyxy[perm],
-            [class_token[anns[i]["category_id"]] for i in perm],
-            im["width"],
-            im["height"],
-            n_bins,
-            end_token=end_token,
-            noise_boxes=nboxes,
-            noise_token=noise_token,
-        )
-        line = {
-            "image_id": im["id"],
-            "file_name": im["file_name"],
-            "width": im["width"],
-            "height": im["height"],
-            "n_objects": len(anns),
-            "n_noise": 0 if nboxes is None else int(nboxes.shape[0]),
-            "annotation_ids": [anns[i]["id"] for i in perm],
-            "noise_labels": nlabels,
-            "tokens": tokens,
-            "weights": weights,
-        }
+        line = _image_line(im, pos, anns, class_token, noise_token, n_bins=n_bins, order=order, seed=seed, noise=noise)
         lines.append(orjson.dumps(line))
     Path(path).write_bytes(b"\n".join(lines) + (b"\n" if lines else b""))
     vocab = vocabulary(cats, n_bins, size, order=order, seed=seed)
     Path(vocab_path).write_bytes(orjson.dumps(vocab, option=orjson.OPT_INDENT_2))
     return len(lines)
+
+
+def _image_line(im: dict, pos: int, anns: list[dict], class_token: dict, noise_token: int, *, n_bins: int,
+                order: str, seed: int, noise) -> dict:
+    """One line of ``tokens.jsonl``: image ``im`` (at position ``pos``) with its non-crowd annotations ``anns``
+    (arguments as :func:`write_tokens`; ``class_token`` maps category id -> token; the end token follows
+    ``noise_token``)."""
+    end_token = noise_token + 1
+    bbox = np.array([a["bbox"] for a in anns], dtype=np.float64).reshape(-1, 4)
+    xyxy = bbox.copy()
+    xyxy[:, 2:] += bbox[:, :2]
+    rng = None
+    if order == "random":
+        k = image_index(im, pos)
+        rng = stream(seed, k, ORDER_STREAM)
+    perm = object_order(xyxy, order, rng=rng)
+    cat_ids = [a["category_id"] for a in anns]
+    if callable(noise):
+        value = noise(image_index(im, pos), xyxy, np.array(cat_ids, dtype=np.int64), (im["width"], im["height"]))
+    else:
+        value = None if noise is None else noise.get(im["id"])
+    nboxes, nlabels = _noise_objects(value, cat_ids, im["id"])
+    tokens, weights = encode_objects(
+        xyxy[perm],
+        [class_token[anns[i]["category_id"]] for i in perm],
+        im["width"],
+        im["height"],
+        n_bins,
+        end_token=end_token,
+        noise_boxes=nboxes,
+        noise_token=noise_token,
+    )
+    line = {
+        "image_id": im["id"],
+        "file_name": im["file_name"],
+        "width": im["width"],
+        "height": im["height"],
+        "n_objects": len(anns),
+        "n_noise": 0 if nboxes is None else int(nboxes.shape[0]),
+        "annotation_ids": [anns[i]["id"] for i in perm],
+        "noise_labels": nlabels,
+        "tokens": tokens,
+        "weights": weights,
+    }
+    return line
 
 
 def _noise_objects(value, cat_ids: list[int], image_id) -> tuple[np.ndarray | None, list[int]]:
