@@ -2,18 +2,14 @@
 
 :func:`check_dataset` looks for each format it knows (whoever wrote the files)
 and reports every rule a file breaks as a :class:`Problem` (file, record,
-rule, value), with a summary of what it found.  Places looked at, relative to
-the dataset directory ``DIR`` (or a COCO file given directly):
-
-======  ====================================================================
-COCO    ``annotations.json``, ``annotations.<split>.json``, ``annotations/*.json``
-VOC     ``voc/**/*.xml`` or ``Annotations/**/*.xml``
-YOLO    ``yolo/**/*.txt`` with ``yolo/labels.txt`` (or ``labels/**/*.txt`` with ``classes.txt``
-        or the ``names`` of ``data.yaml``)
-tokens  ``tokens.jsonl`` (and ``tokens.<split>.jsonl``) with ``tokens.vocab.json``
-masks   ``masks/**/*.png`` (instance ids) or ``masks.jsonl`` (per-object RLE)
-images  ``images/`` (or ``JPEGImages/`` for VOC, or beside the COCO file)
-======  ====================================================================
+rule, value), with a summary of what it found.  Each format's check rule
+(the ``check`` of its :mod:`synthgen.formats.registry` entry) says in its
+docstring where it looks, relative to the dataset directory ``DIR`` (or a COCO
+file given directly): :func:`~synthgen.formats.coco.check_coco`,
+:func:`~synthgen.formats.voc.check_voc`, :func:`~synthgen.formats.yolo.check_yolo`,
+:func:`~synthgen.formats.tokens.check_tokens`, :func:`~synthgen.formats.masks.check_masks`.
+Images are looked up in ``images/`` (or ``JPEGImages/`` for VOC, or beside the
+COCO file).
 
 Rules: referenced image files exist and decode, with the size the annotations
 give; boxes are finite, non-empty and inside their image (to 1e-6 px or 1e-6
