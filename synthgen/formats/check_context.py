@@ -20,10 +20,8 @@ from synthgen.errors import InputFileError
 from synthgen.errors import is_int as _is_int
 from synthgen.errors import is_number as _is_num
 
-__all__ = ["Problem", "CheckContext", "TOL", "listing", "name_at"]
+__all__ = ["Problem", "CheckContext", "listing", "name_at"]
 
-#: Slack of the inside-the-image rule: 1e-6 px, or 1e-6 of a normalized side.
-TOL = 1e-6
 _IMAGE_SUFFIXES = (".png", ".jpg", ".jpeg", ".bmp", ".tif", ".tiff", ".webp")
 
 
@@ -246,6 +244,7 @@ class CheckContext:
 
 
 def name_at(names: list | None, index: int):
+    """``names[index]``, or None when there are no names or the index is outside them."""
     return names[index] if names is not None and 0 <= index < len(names) else None
 
 

@@ -32,7 +32,8 @@ from synthgen.formats._common import (
     categories_in_order,
     sidecar_name,
 )
-from synthgen.formats.check_context import TOL, name_at
+from synthgen.formats.check_context import name_at
+from synthgen.formats.coco import BOX_TOL  # also the slack, as a fraction of a side, of YOLO boxes
 from synthgen.formats.dataset_dir import YOLO_DIR
 from synthgen.geometry import as_boxes
 
@@ -331,7 +332,8 @@ def check_yolo(ctx: CheckContext) -> bool:
                 ctx.add(p, record, f"class must be in [0, {len(labels) - 1}] ({labels_path.name})", c)
             if w <= 0 or h <= 0:
                 ctx.add(p, record, "box must be non-empty (w > 0 and h > 0)", boxes[i].tolist())
-            elif xc - w / 2 < -TOL or yc - h / 2 < -TOL or xc + w / 2 > 1 + TOL or yc + h / 2 > 1 + TOL:
+            # the slack of COCO's inside-the-image rule, as a fraction of the side
+            elif xc - w / 2 < -BOX_TOL or yc - h / 2 < -BOX_TOL or xc + w / 2 > 1 + BOX_TOL or yc + h / 2 > 1 + BOX_TOL:
                 ctx.add(p, record, "box must lie inside the image (normalized [0, 1])", boxes[i].tolist())
         if stem in ctx.ref_sizes:
             pixels = denormalize_boxes(boxes, *ctx.ref_sizes[stem])
