@@ -382,7 +382,7 @@ def jitter(
 
     from synthgen.errors import ConfigError
     from synthgen.jitter import DetectorSpec
-    from synthgen.jitter_coco import jitter_files
+    from synthgen.jitter.coco import jitter_files
 
     try:
         spec = DetectorSpec(

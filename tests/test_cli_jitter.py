@@ -151,7 +151,7 @@ def test_option_defaults_are_the_library_defaults(tmp_path):
     import dataclasses
 
     from synthgen.jitter import DetectorSpec
-    from synthgen.jitter_coco import clear_spec
+    from synthgen.jitter.coco import clear_spec
 
     ds = dataset(tmp_path / "ds")
     res = run("jitter", ds, "--out", tmp_path / "p.json")
