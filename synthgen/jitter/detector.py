@@ -7,11 +7,14 @@ gives scores whose true/false positive overlap is set.
 
 from __future__ import annotations
 
+import dataclasses
+import types
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 
 import numpy as np
 
-from synthgen.errors import ConfigError, check_number, check_range
+from synthgen.errors import ConfigError, as_tuples, check_choice, check_number, check_range
 from synthgen.formats.results import DETECTION_KINDS
 from synthgen.geometry import as_boxes
 from synthgen.jitter.iou import _arg, _canvas_arrays, _check_inside, _check_sources, _count, _freeze
@@ -23,6 +26,8 @@ __all__ = [
     "MAX_BACKGROUND",
     "Detections",
     "DetectorSpec",
+    "check_spec",
+    "parse_spec",
     "detection_scores",
     "simulate_detections",
 ]
@@ -197,35 +202,83 @@ class DetectorSpec:
     keep_inside: bool = True
 
     def __post_init__(self):
-        from synthgen.errors import as_tuples, check_choice
-
         as_tuples(self)
-        for key in ("miss", "localization", "duplicates", "relabel", "score_overlap"):
-            check_number(f"jitter.{key}", getattr(self, key), lo=0, hi=1)
-        for key in ("iou", "near_iou", "duplicate_iou", "background_size"):
-            if key != "background_size" or self.background_size is not None:
-                check_range(f"jitter.{key}", getattr(self, key), lo=0, lo_open=True, hi=1)
-        check_number("jitter.background", self.background, lo=0)
-        if self.background > MAX_BACKGROUND:
-            raise ConfigError("jitter.background", f"must be at most {MAX_BACKGROUND} boxes per image", self.background)
-        check_number("jitter.background_iou", self.background_iou, lo=0, lo_open=True, hi=1)
-        if not isinstance(self.modes, tuple) or not self.modes:
-            raise ConfigError("jitter.modes", "must be a non-empty list of " + ", ".join(ERROR_MODES), self.modes)
-        for m in self.modes:
-            check_choice("jitter.modes", m, ERROR_MODES)
-        if not isinstance(self.keep_inside, bool):
-            raise ConfigError("jitter.keep_inside", "must be true or false", self.keep_inside)
-        taken = self.miss + self.localization + self.relabel
-        if taken > 1 + 1e-12:
-            raise ConfigError(
-                "jitter.miss", "plus 'jitter.localization' plus 'jitter.relabel' must be at most 1", round(taken, 12)
-            )
-        if self.duplicates > 1 - taken + 1e-12:
-            raise ConfigError(
-                "jitter.duplicates",
-                f"must be at most 1 - miss - localization - relabel = {max(0.0, 1 - taken):.6g}",
-                self.duplicates,
-            )
+        check_spec(self)
+
+
+def config_key(field: str) -> str:
+    """The name a :class:`DetectorSpec` field has in error messages by default: ``jitter.<field>``."""
+    return f"jitter.{field}"
+
+
+_RATES = ("miss", "localization", "duplicates", "relabel", "score_overlap")
+_IOU_RANGES = ("iou", "near_iou", "duplicate_iou", "background_size")
+
+
+def check_spec(spec, key: Callable[[str], str] = config_key) -> None:
+    """Raise :class:`~synthgen.errors.ConfigError` unless ``spec`` holds a valid detector.
+
+    ``spec`` has the fields of :class:`DetectorSpec` as attributes (lists as tuples);
+    ``key`` names a field in the message, e.g. a command-line option (see :func:`parse_spec`).
+
+    Examples
+    --------
+    >>> check_spec(DetectorSpec())  # the defaults hold
+    """
+    for field in _RATES:
+        check_number(key(field), getattr(spec, field), lo=0, hi=1)
+    for field in _IOU_RANGES:
+        if field != "background_size" or spec.background_size is not None:
+            check_range(key(field), getattr(spec, field), lo=0, lo_open=True, hi=1)
+    check_number(key("background"), spec.background, lo=0)
+    if spec.background > MAX_BACKGROUND:
+        raise ConfigError(key("background"), f"must be at most {MAX_BACKGROUND} boxes per image", spec.background)
+    check_number(key("background_iou"), spec.background_iou, lo=0, lo_open=True, hi=1)
+    if not isinstance(spec.modes, tuple) or not spec.modes:
+        raise ConfigError(key("modes"), "must be a non-empty list of " + ", ".join(ERROR_MODES), spec.modes)
+    for m in spec.modes:
+        check_choice(key("modes"), m, ERROR_MODES)
+    if not isinstance(spec.keep_inside, bool):
+        raise ConfigError(key("keep_inside"), "must be true or false", spec.keep_inside)
+    taken = spec.miss + spec.localization + spec.relabel
+    if taken > 1 + 1e-12:
+        raise ConfigError(
+            key("miss"), f"plus '{key('localization')}' plus '{key('relabel')}' must be at most 1", round(taken, 12)
+        )
+    if spec.duplicates > 1 - taken + 1e-12:
+        raise ConfigError(
+            key("duplicates"),
+            f"must be at most 1 - miss - localization - relabel = {max(0.0, 1 - taken):.6g}",
+            spec.duplicates,
+        )
+
+
+def parse_spec(values: Mapping[str, object], *, key: Callable[[str], str] = config_key) -> DetectorSpec:
+    """A :class:`DetectorSpec` from field values, its errors naming each field by ``key(field)``.
+
+    A front end that reads the fields under its own names (command-line options, say) passes
+    the mapping from field to name here, so an error names what its user typed.
+
+    Examples
+    --------
+    >>> parse_spec({"miss": 0.2}).miss
+    0.2
+    >>> parse_spec({"iou": (0.9, 0.5)}, key={"iou": "--iou"}.get)
+    Traceback (most recent call last):
+    ...
+    synthgen.errors.ConfigError: option '--iou' must be [min, max] with 0 < min <= max <= 1 (got [0.9, 0.5])
+    >>> parse_spec({"miss": 0.7, "relabel": 0.5}, key=lambda field: "--" + field)
+    Traceback (most recent call last):
+    ...
+    synthgen.errors.ConfigError: option '--miss' plus '--localization' plus '--relabel' must be at most 1 (got 1.2)
+    """
+    fields = {f.name: f.default for f in dataclasses.fields(DetectorSpec)}
+    unknown = sorted(set(values) - set(fields))
+    if unknown:
+        raise TypeError(f"DetectorSpec has no field {unknown[0]!r}")
+    fields.update({k: tuple(v) if isinstance(v, list) else v for k, v in values.items()})
+    check_spec(types.SimpleNamespace(**fields), key)
+    return DetectorSpec(**values)
 
 
 def simulate_detections(
