@@ -328,6 +328,37 @@ def simulate_detections(
     again (same target IoU, new direction) until their source is the closest
     true box; background boxes until they clear the bound.
     """
+    t, lab, img, (cw_img, ch_img), (cw, ch), cls = _truth_arrays(truth, labels, canvas, image, classes, spec.keep_inside)
+    n, n_img = len(t), len(cw_img)
+    r_out, r_place, r_near, r_dup, r_bg, r_label, r_score = rng.spawn(7)
+    outcome = _outcomes(n, spec, r_out)
+    if (outcome == "wrong_class").any() and cls.size < 2:
+        raise ValueError(f"relabelling needs at least 2 classes (got {cls.tolist()})")
+    parts = _sourced_parts(t, lab, img, outcome, spec, cw, ch, (r_place, r_near, r_dup))
+    counts = r_bg.poisson(spec.background, n_img) if spec.background > 0 else np.zeros(n_img, dtype=np.int64)
+    if ignore is not None:
+        ignore = (as_boxes(ignore[0]), np.asarray(ignore[1], dtype=np.int64).reshape(-1))
+    bg, bg_img, bg_other, short = _place_background(
+        t, img, counts, cw_img, ch_img, spec.background_iou, spec.background_size, (0.5, 2.0), r_bg, ignore
+    )
+    if bg_img.size and cls.size == 0:
+        raise ValueError("background boxes need at least one class ('classes' is empty)")
+    k_bg = bg_img.size
+    parts.append((bg, np.zeros(k_bg, dtype=np.int64), bg_img, "background", np.full(k_bg, -1), np.full(k_bg, np.nan), bg_other))
+    boxes, out_lab, out_img, kind, source, iou, other = _gather(parts)
+    _draw_labels(out_lab, kind, cls, r_label)
+    scores = detection_scores(kind == "true_positive", spec.score_overlap, rng=r_score)
+    order = np.lexsort((-scores, out_img))
+    sorted_fields = (a[order] for a in (boxes, out_lab, scores, out_img, kind, source, iou, other))
+    return Detections(*sorted_fields, outcome=outcome, background_shortfall=short)
+
+
+def _truth_arrays(truth, labels, canvas, image, classes, keep_inside: bool):
+    """Checked arrays of :func:`simulate_detections`' input.
+
+    Returns the boxes, labels, image index, (width, height) per image, the bounds per box (the
+    image's size, or inf when boxes need not stay inside), and the sorted classes.
+    """
     t = as_boxes(truth)
     n = len(t)
     lab = np.asarray(labels, dtype=np.int64).reshape(-1)
@@ -342,7 +373,7 @@ def simulate_detections(
         raise ValueError(f"'image' must give each box an index in 0 .. {n_img - 1}")
     cw_img, ch_img = _canvas_arrays(c, n_img)
     _check_sources(t, "truth")
-    if spec.keep_inside:
+    if keep_inside:
         _check_inside(t, cw_img[img], ch_img[img])
         cw, ch = cw_img[img], ch_img[img]
     else:
@@ -350,23 +381,19 @@ def simulate_detections(
     cls = np.unique(lab if classes is None else np.asarray(classes, dtype=np.int64).reshape(-1))
     if not np.isin(lab, cls).all():
         raise ValueError(f"'labels' must all be in 'classes' (got {sorted(set(lab.tolist()) - set(cls.tolist()))})")
-    r_out, r_place, r_near, r_dup, r_bg, r_label, r_score = rng.spawn(7)
+    return t, lab, img, (cw_img, ch_img), (cw, ch), cls
 
-    # One outcome per true box, with exact counts.
-    perm = r_out.permutation(n)
-    k_miss = _count(spec.miss, n)
-    k_loc = min(_count(spec.localization, n), n - k_miss)
-    k_rel = min(_count(spec.relabel, n), n - k_miss - k_loc)
-    outcome = np.full(n, "detected", dtype="<U11")
-    outcome[perm[:k_miss]] = "missed"
-    outcome[perm[k_miss : k_miss + k_loc]] = "mislocated"
-    outcome[perm[k_miss + k_loc : k_miss + k_loc + k_rel]] = "wrong_class"
-    if k_rel and cls.size < 2:
-        raise ValueError(f"relabelling needs at least 2 classes (got {cls.tolist()})")
+
+def _sourced_parts(t, lab, img, outcome, spec: DetectorSpec, cw, ch, rngs) -> list[tuple]:
+    """Boxes made from true boxes: true positives and wrong-class boxes, near misses, duplicates (one part each).
+
+    Each part is ``(boxes, labels, image, kind, source, iou, other_iou)``; ``rngs`` holds one
+    generator per part, in that order.
+    """
+    r_place, r_near, r_dup = rngs
     detected = np.flatnonzero(outcome == "detected")
-    k_dup = min(_count(spec.duplicates, n), detected.size)
-
-    parts = []  # (boxes, labels, image, kind, source, iou, other_iou)
+    k_dup = min(_count(spec.duplicates, len(t)), detected.size)
+    parts = []
 
     def sourced(src, iou_range, kind, r):
         targets = _draw_targets(*iou_range, src.size, r)
@@ -377,46 +404,42 @@ def simulate_detections(
     sourced(main, spec.iou, np.where(outcome[main] == "detected", "true_positive", "wrong_class"), r_place)
     sourced(np.flatnonzero(outcome == "mislocated"), spec.near_iou, "localization", r_near)
     sourced(np.sort(r_dup.permutation(detected)[:k_dup]), spec.duplicate_iou, "duplicate", r_dup)
+    return parts
 
-    counts = r_bg.poisson(spec.background, n_img) if spec.background > 0 else np.zeros(n_img, dtype=np.int64)
-    if ignore is not None:
-        ignore = (as_boxes(ignore[0]), np.asarray(ignore[1], dtype=np.int64).reshape(-1))
-    bg, bg_img, bg_other, short = _place_background(
-        t, img, counts, cw_img, ch_img, spec.background_iou, spec.background_size, (0.5, 2.0), r_bg, ignore
+
+def _outcomes(n: int, spec: DetectorSpec, rng: np.random.Generator) -> np.ndarray:
+    """One outcome per true box (:data:`OUTCOMES`), with exact counts from the spec's rates."""
+    perm = rng.permutation(n)
+    k_miss = _count(spec.miss, n)
+    k_loc = min(_count(spec.localization, n), n - k_miss)
+    k_rel = min(_count(spec.relabel, n), n - k_miss - k_loc)
+    outcome = np.full(n, "detected", dtype="<U11")
+    outcome[perm[:k_miss]] = "missed"
+    outcome[perm[k_miss : k_miss + k_loc]] = "mislocated"
+    outcome[perm[k_miss + k_loc : k_miss + k_loc + k_rel]] = "wrong_class"
+    return outcome
+
+
+def _gather(parts) -> tuple[np.ndarray, ...]:
+    """The parts' (boxes, labels, image, kind, source, iou, other_iou) joined into one array each."""
+    return (
+        np.concatenate([p[0] for p in parts]).reshape(-1, 4),
+        np.concatenate([p[1] for p in parts]).astype(np.int64),
+        np.concatenate([p[2] for p in parts]).astype(np.int64),
+        np.concatenate([np.broadcast_to(np.asarray(p[3], dtype="<U13"), (len(p[0]),)) for p in parts]),
+        np.concatenate([p[4] for p in parts]).astype(np.int64),
+        np.concatenate([p[5] for p in parts]).astype(np.float64),
+        np.concatenate([p[6] for p in parts]).astype(np.float64),
     )
-    if bg_img.size and cls.size == 0:
-        raise ValueError("background boxes need at least one class ('classes' is empty)")
-    k_bg = bg_img.size
-    parts.append((bg, np.zeros(k_bg, dtype=np.int64), bg_img, "background", np.full(k_bg, -1), np.full(k_bg, np.nan), bg_other))
 
-    boxes = np.concatenate([p[0] for p in parts]).reshape(-1, 4)
-    out_lab = np.concatenate([p[1] for p in parts]).astype(np.int64)
-    out_img = np.concatenate([p[2] for p in parts]).astype(np.int64)
-    kind = np.concatenate([np.broadcast_to(np.asarray(p[3], dtype="<U13"), (len(p[0]),)) for p in parts])
-    source = np.concatenate([p[4] for p in parts]).astype(np.int64)
-    iou = np.concatenate([p[5] for p in parts]).astype(np.float64)
-    other = np.concatenate([p[6] for p in parts]).astype(np.float64)
 
+def _draw_labels(labels: np.ndarray, kind: np.ndarray, cls: np.ndarray, rng: np.random.Generator) -> None:
+    """In place: another class for each wrong-class box, any class for each background box."""
     wrong = kind == "wrong_class"
     if wrong.any():
-        pos = np.searchsorted(cls, out_lab[wrong])
-        j = r_label.integers(cls.size - 1, size=int(wrong.sum()))
-        out_lab[wrong] = cls[j + (j >= pos)]
+        pos = np.searchsorted(cls, labels[wrong])
+        j = rng.integers(cls.size - 1, size=int(wrong.sum()))
+        labels[wrong] = cls[j + (j >= pos)]
     is_bg = kind == "background"
     if is_bg.any():
-        out_lab[is_bg] = cls[r_label.integers(cls.size, size=int(is_bg.sum()))]
-    scores = detection_scores(kind == "true_positive", spec.score_overlap, rng=r_score)
-
-    order = np.lexsort((-scores, out_img))
-    return Detections(
-        boxes=boxes[order],
-        labels=out_lab[order],
-        scores=scores[order],
-        image=out_img[order],
-        kind=kind[order],
-        source=source[order],
-        iou=iou[order],
-        other_iou=other[order],
-        outcome=outcome,
-        background_shortfall=short,
-    )
+        labels[is_bg] = cls[rng.integers(cls.size, size=int(is_bg.sum()))]
