@@ -119,15 +119,7 @@ def pad_with_noise(
     b = as_boxes(boxes)
     lab = np.asarray(labels, dtype=np.int64).reshape(-1)
     n = len(b)
-    if lab.size != n:
-        raise ValueError(f"'labels' must have one entry per box ({n}) (got {lab.size})")
-    _arg(check_number, "length", length, lo=n, integer=True)
-    _arg(check_number, "jittered", jittered, lo=0, hi=1)
-    if np.any(lab == noise_label):
-        raise ValueError(f"'noise_label' {noise_label} is also a true label")
-    if size is not None:
-        size = _check_fraction_range(size, "size")
-    _arg(check_range, "aspect", tuple(aspect), lo=0, lo_open=True)
+    size = _check_padding(n, lab, length, noise_label, jittered, size, aspect)
     m = int(length) - n
     k_jit = _count(jittered, m) if n else 0
     cw, ch = _canvas_arrays(canvas, max(n, 1))
@@ -146,6 +138,20 @@ def pad_with_noise(
         source=np.concatenate([np.arange(n), noise_src[order]]).astype(np.int64),
         iou=np.concatenate([np.ones(n), noise_iou[order]]),
     )
+
+
+def _check_padding(n: int, lab: np.ndarray, length, noise_label: int, jittered, size, aspect):
+    """Raise ValueError on a bad argument of :func:`pad_with_noise`; return ``size`` as a checked range or None."""
+    if lab.size != n:
+        raise ValueError(f"'labels' must have one entry per box ({n}) (got {lab.size})")
+    _arg(check_number, "length", length, lo=n, integer=True)
+    _arg(check_number, "jittered", jittered, lo=0, hi=1)
+    if np.any(lab == noise_label):
+        raise ValueError(f"'noise_label' {noise_label} is also a true label")
+    if size is not None:
+        size = _check_fraction_range(size, "size")
+    _arg(check_range, "aspect", tuple(aspect), lo=0, lo_open=True)
+    return size
 
 
 def noise_padder(seed: int, length: int, *, jittered: float = 0.5, shift: float = 0.2, scale: float = 0.4):
