@@ -17,7 +17,7 @@ import numpy as np
 from synthgen.errors import ConfigError, as_tuples, check_choice, check_number, check_range
 from synthgen.formats.results import DETECTION_KINDS
 from synthgen.geometry import as_boxes
-from synthgen.jitter.iou import _arg, _canvas_arrays, _check_inside, _check_sources, _count, _freeze
+from synthgen.jitter.iou import BoxArrays, _arg, _canvas_arrays, _check_inside, _check_sources, _count
 from synthgen.jitter.models import ERROR_MODES, _draw_targets, _from_sources, _place_background
 
 __all__ = [
@@ -43,7 +43,7 @@ MAX_BACKGROUND = 10_000
 
 
 @dataclass(frozen=True, slots=True)
-class Detections:
+class Detections(BoxArrays):
     """Output of :func:`simulate_detections`: predictions that know what they are.
 
     Attributes
@@ -98,12 +98,6 @@ class Detections:
     other_iou: np.ndarray
     outcome: np.ndarray
     background_shortfall: int = 0
-
-    def __post_init__(self):
-        _freeze(self)
-
-    def __len__(self) -> int:
-        return len(self.boxes)
 
     @property
     def missed(self) -> np.ndarray:

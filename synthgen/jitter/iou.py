@@ -74,8 +74,20 @@ def _freeze(obj) -> None:
             value.flags.writeable = False
 
 
+class BoxArrays:
+    """Base of the jitter results: every array field is read-only; ``len`` is the number of boxes."""
+
+    __slots__ = ()
+
+    def __post_init__(self):
+        _freeze(self)
+
+    def __len__(self) -> int:
+        return len(self.boxes)
+
+
 @dataclass(frozen=True, slots=True)
-class Perturbed:
+class Perturbed(BoxArrays):
     """Boxes made from source boxes, each with its IoU to its source.
 
     Attributes
@@ -105,12 +117,6 @@ class Perturbed:
     target: np.ndarray
     mode: np.ndarray
     adjusted: np.ndarray
-
-    def __post_init__(self):
-        _freeze(self)
-
-    def __len__(self) -> int:
-        return len(self.boxes)
 
 
 def _arg(check, name: str, value, **rule) -> None:

@@ -21,6 +21,7 @@ import numpy as np
 from synthgen.errors import check_number, check_range
 from synthgen.geometry import as_boxes, box_ioa, box_iou, boxes_valid, group_max_overlap
 from synthgen.jitter.iou import (
+    BoxArrays,
     Perturbed,
     _arg,
     _canvas_arrays,
@@ -62,7 +63,7 @@ _ROUNDS = 64  # redraws for rejection sampling before giving up
 
 
 @dataclass(frozen=True, slots=True)
-class Placed:
+class Placed(BoxArrays):
     """Distractor boxes and how close they come to the truth.
 
     Attributes
@@ -84,12 +85,6 @@ class Placed:
     source: np.ndarray
     iou: np.ndarray
     other_iou: np.ndarray
-
-    def __post_init__(self):
-        _freeze(self)
-
-    def __len__(self) -> int:
-        return len(self.boxes)
 
 
 @dataclass(frozen=True, slots=True)
@@ -275,9 +270,18 @@ def gaussian_edges(boxes, sigma: float, *, rng: np.random.Generator, canvas=None
     return _noise_result(b, p, clipped, "gaussian_edges")
 
 
-def gaussian_center_size(
-    boxes, center: float, size: float, *, rng: np.random.Generator, canvas=None
-) -> Perturbed:
+def _moved_and_scaled(b: np.ndarray, offset: np.ndarray, sx: np.ndarray, sy: np.ndarray) -> np.ndarray:
+    """Boxes ``b`` (n, 4) with the centre moved by ``offset`` (n, 2) widths and heights, the sides scaled by ``sx``, ``sy``."""
+    w = b[:, 2] - b[:, 0]
+    h = b[:, 3] - b[:, 1]
+    cx = 0.5 * (b[:, 0] + b[:, 2]) + offset[:, 0] * w
+    cy = 0.5 * (b[:, 1] + b[:, 3]) + offset[:, 1] * h
+    w2 = 0.5 * w * sx
+    h2 = 0.5 * h * sy
+    return np.stack([cx - w2, cy - h2, cx + w2, cy + h2], axis=1)
+
+
+def gaussian_center_size(boxes, center: float, size: float, *, rng: np.random.Generator, canvas=None) -> Perturbed:
     """Gaussian noise on the centre (scaled by width and height) and log-normal noise on the size.
 
     Parameters
@@ -297,6 +301,7 @@ def gaussian_center_size(
     Returns
     -------
     Perturbed
+        As for :func:`gaussian_edges`: empty boxes are drawn again, ``adjusted`` marks clipped ones.
     """
     _arg(check_number, "center", center, lo=0)
     _arg(check_number, "size", size, lo=0)
@@ -306,13 +311,7 @@ def gaussian_center_size(
 
     def draw(i):
         z = rng.standard_normal((len(i), 4))
-        w = b[i, 2] - b[i, 0]
-        h = b[i, 3] - b[i, 1]
-        cx = 0.5 * (b[i, 0] + b[i, 2]) + z[:, 0] * center * w
-        cy = 0.5 * (b[i, 1] + b[i, 3]) + z[:, 1] * center * h
-        w2 = 0.5 * w * np.exp(z[:, 2] * size)
-        h2 = 0.5 * h * np.exp(z[:, 3] * size)
-        return np.stack([cx - w2, cy - h2, cx + w2, cy + h2], axis=1)
+        return _moved_and_scaled(b[i], z[:, :2] * center, np.exp(z[:, 2] * size), np.exp(z[:, 3] * size))
 
     p, clipped = _redraw(b, draw, cw, ch, "gaussian_center_size")
     return _noise_result(b, p, clipped, "gaussian_center_size")
@@ -349,13 +348,7 @@ def uniform_shift_scale(
 
     def draw(i):
         r = rng.uniform(-1.0, 1.0, (len(i), 4))
-        w = b[i, 2] - b[i, 0]
-        h = b[i, 3] - b[i, 1]
-        cx = 0.5 * (b[i, 0] + b[i, 2]) + r[:, 0] * shift * w
-        cy = 0.5 * (b[i, 1] + b[i, 3]) + r[:, 1] * shift * h
-        w2 = 0.5 * w * (1 + r[:, 2] * scale)
-        h2 = 0.5 * h * (1 + r[:, 3] * scale)
-        return np.stack([cx - w2, cy - h2, cx + w2, cy + h2], axis=1)
+        return _moved_and_scaled(b[i], r[:, :2] * shift, 1 + r[:, 2] * scale, 1 + r[:, 3] * scale)
 
     p, clipped = _redraw(b, draw, cw, ch, "uniform_shift_scale")
     return _noise_result(b, p, clipped, "uniform_shift_scale")

@@ -12,7 +12,7 @@ import numpy as np
 
 from synthgen.errors import check_number, check_range
 from synthgen.geometry import as_boxes
-from synthgen.jitter.iou import _arg, _canvas_arrays, _count, _freeze
+from synthgen.jitter.iou import BoxArrays, _arg, _canvas_arrays, _count
 from synthgen.jitter.models import _check_fraction_range, _random_boxes, uniform_shift_scale
 from synthgen.seeding import NOISE_STREAM, stream
 
@@ -25,7 +25,7 @@ __all__ = [
 
 
 @dataclass(frozen=True, slots=True)
-class NoisePadded:
+class NoisePadded(BoxArrays):
     """A box list padded to a fixed length with noise objects.
 
     The first ``N`` entries are the true objects in their given order; the
@@ -54,12 +54,6 @@ class NoisePadded:
     learn_box: np.ndarray
     source: np.ndarray
     iou: np.ndarray
-
-    def __post_init__(self):
-        _freeze(self)
-
-    def __len__(self) -> int:
-        return len(self.boxes)
 
 
 def pad_with_noise(
