@@ -17,8 +17,8 @@ import numpy as np
 from synthgen.errors import ConfigError, as_tuples, check_choice, check_number, check_range
 from synthgen.formats.results import DETECTION_KINDS
 from synthgen.geometry import as_boxes
-from synthgen.jitter.iou import BoxArrays, _arg, _canvas_arrays, _check_inside, _check_sources, _count
-from synthgen.jitter.models import ERROR_MODES, _draw_targets, _from_sources, _place_background
+from synthgen.jitter.iou import BoxArrays, canvas_arrays, check_arg, check_inside, check_sources, count_of
+from synthgen.jitter.models import ERROR_MODES, draw_targets, from_sources, place_background
 
 __all__ = [
     "DETECTION_KINDS",
@@ -130,7 +130,7 @@ def detection_scores(positive, overlap: float, *, rng: np.random.Generator) -> n
     >>> bool(s[0::2].min() > s[1::2].max())
     True
     """
-    _arg(check_number, "overlap", overlap, lo=0, hi=1)
+    check_arg(check_number, "overlap", overlap, lo=0, hi=1)
     pos = np.asarray(positive, dtype=bool).reshape(-1)
     width = 1.0 / (2.0 - overlap)
     u = rng.random(pos.size)  # [0, 1)
@@ -332,7 +332,7 @@ def simulate_detections(
     counts = r_bg.poisson(spec.background, n_img) if spec.background > 0 else np.zeros(n_img, dtype=np.int64)
     if ignore is not None:
         ignore = (as_boxes(ignore[0]), np.asarray(ignore[1], dtype=np.int64).reshape(-1))
-    bg, bg_img, bg_other, short = _place_background(
+    bg, bg_img, bg_other, short = place_background(
         t, img, counts, cw_img, ch_img, spec.background_iou, spec.background_size, (0.5, 2.0), r_bg, ignore
     )
     if bg_img.size and cls.size == 0:
@@ -365,10 +365,10 @@ def _truth_arrays(truth, labels, canvas, image, classes, keep_inside: bool):
     n_img = len(c)
     if img.size != n or (n and (img.min() < 0 or img.max() >= n_img)):
         raise ValueError(f"'image' must give each box an index in 0 .. {n_img - 1}")
-    cw_img, ch_img = _canvas_arrays(c, n_img)
-    _check_sources(t, "truth")
+    cw_img, ch_img = canvas_arrays(c, n_img)
+    check_sources(t, "truth")
     if keep_inside:
-        _check_inside(t, cw_img[img], ch_img[img])
+        check_inside(t, cw_img[img], ch_img[img])
         cw, ch = cw_img[img], ch_img[img]
     else:
         cw, ch = np.full(n, np.inf), np.full(n, np.inf)
@@ -386,12 +386,12 @@ def _sourced_parts(t, lab, img, outcome, spec: DetectorSpec, cw, ch, rngs) -> li
     """
     r_place, r_near, r_dup = rngs
     detected = np.flatnonzero(outcome == "detected")
-    k_dup = min(_count(spec.duplicates, len(t)), detected.size)
+    k_dup = min(count_of(spec.duplicates, len(t)), detected.size)
     parts = []
 
     def sourced(src, iou_range, kind, r):
-        targets = _draw_targets(*iou_range, src.size, r)
-        boxes, achieved, other, _ = _from_sources(t, img, src, targets, spec.modes, cw, ch, r)
+        targets = draw_targets(*iou_range, src.size, r)
+        boxes, achieved, other, _ = from_sources(t, img, src, targets, spec.modes, cw, ch, r)
         parts.append((boxes, lab[src], img[src], kind, src, achieved, other))
 
     main = np.flatnonzero((outcome == "detected") | (outcome == "wrong_class"))
@@ -404,9 +404,9 @@ def _sourced_parts(t, lab, img, outcome, spec: DetectorSpec, cw, ch, rngs) -> li
 def _outcomes(n: int, spec: DetectorSpec, rng: np.random.Generator) -> np.ndarray:
     """One outcome per true box (:data:`OUTCOMES`), with exact counts from the spec's rates."""
     perm = rng.permutation(n)
-    k_miss = _count(spec.miss, n)
-    k_loc = min(_count(spec.localization, n), n - k_miss)
-    k_rel = min(_count(spec.relabel, n), n - k_miss - k_loc)
+    k_miss = count_of(spec.miss, n)
+    k_loc = min(count_of(spec.localization, n), n - k_miss)
+    k_rel = min(count_of(spec.relabel, n), n - k_miss - k_loc)
     outcome = np.full(n, "detected", dtype="<U11")
     outcome[perm[:k_miss]] = "missed"
     outcome[perm[k_miss : k_miss + k_loc]] = "mislocated"

@@ -67,7 +67,7 @@ COCO_IOU_THRESHOLDS = tuple(float(t) for t in IOU_THRESHOLDS)
 COCO_MARGIN = 1e-6
 
 
-def _freeze(obj) -> None:
+def freeze_arrays(obj) -> None:
     for f in dataclasses.fields(obj):
         value = getattr(obj, f.name)
         if isinstance(value, np.ndarray):
@@ -80,7 +80,7 @@ class BoxArrays:
     __slots__ = ()
 
     def __post_init__(self):
-        _freeze(self)
+        freeze_arrays(self)
 
     def __len__(self) -> int:
         return len(self.boxes)
@@ -119,7 +119,10 @@ class Perturbed(BoxArrays):
     adjusted: np.ndarray
 
 
-def _arg(check, name: str, value, **rule) -> None:
+# -- shared by the jitter modules (not in __all__): argument checks, counts, the clipped path
+
+
+def check_arg(check, name: str, value, **rule) -> None:
     """Run a synthgen.errors check on a function argument; raise ValueError naming the argument."""
     try:
         check(name, value, **rule)
@@ -128,13 +131,13 @@ def _arg(check, name: str, value, **rule) -> None:
         raise ValueError(f"'{name}' {exc.rule} (got {shown!r})") from None
 
 
-def _check_sources(b: np.ndarray, what: str = "boxes") -> None:
+def check_sources(b: np.ndarray, what: str = "boxes") -> None:
     if not boxes_valid(b).all():
         i = int(np.flatnonzero(~boxes_valid(b))[0])
         raise ValueError(f"{what} must be finite with x0 < x1 and y0 < y1 (box {i} is {b[i].tolist()})")
 
 
-def _check_iou_range(iou, name: str = "iou") -> tuple[float, float]:
+def check_iou_range(iou, name: str = "iou") -> tuple[float, float]:
     if np.isscalar(iou):
         iou = (float(iou), float(iou))
     lo, hi = (float(v) for v in iou)
@@ -143,7 +146,7 @@ def _check_iou_range(iou, name: str = "iou") -> tuple[float, float]:
     return lo, hi
 
 
-def _canvas_arrays(canvas, n: int) -> tuple[np.ndarray, np.ndarray]:
+def canvas_arrays(canvas, n: int) -> tuple[np.ndarray, np.ndarray]:
     """Canvas width and height per box, shape (n,) each; inf when ``canvas`` is None."""
     if canvas is None:
         return np.full(n, np.inf), np.full(n, np.inf)
@@ -155,7 +158,7 @@ def _canvas_arrays(canvas, n: int) -> tuple[np.ndarray, np.ndarray]:
     return c[:, 0].copy(), c[:, 1].copy()
 
 
-def _check_inside(b: np.ndarray, cw: np.ndarray, ch: np.ndarray) -> None:
+def check_inside(b: np.ndarray, cw: np.ndarray, ch: np.ndarray) -> None:
     out = _outside(b, cw, ch)
     if out.any():
         i = int(np.flatnonzero(out)[0])
@@ -165,12 +168,12 @@ def _check_inside(b: np.ndarray, cw: np.ndarray, ch: np.ndarray) -> None:
         )
 
 
-def _count(rate: float, n: int) -> int:
+def count_of(rate: float, n: int) -> int:
     """``rate * n`` rounded half up: how many of ``n`` items a fraction selects."""
     return int(math.floor(rate * n + 0.5))
 
 
-def _sizes4(b: np.ndarray) -> np.ndarray:
+def sizes4(b: np.ndarray) -> np.ndarray:
     w = b[:, 2] - b[:, 0]
     h = b[:, 3] - b[:, 1]
     return np.stack([w, h, w, h], axis=1)  # (N, 4)
@@ -195,7 +198,7 @@ def _ray_step(d: np.ndarray, t: np.ndarray) -> np.ndarray:
     return 2 * qc / (qb + disc)  # the smaller root, without cancellation
 
 
-def _path(b, dwh, s, cw, ch) -> np.ndarray:
+def stopped_path(b, dwh, s, cw, ch) -> np.ndarray:
     """Boxes at step ``s`` along ``dwh`` (pixels per unit step), edges stopped at the canvas."""
     p = b + s[:, None] * dwh
     p[:, 0::2] = np.clip(p[:, 0::2], _floor(cw)[:, None], cw[:, None])
@@ -220,11 +223,11 @@ def _bisect(b, dwh, t, cw, ch, s_hi) -> np.ndarray:
         mid = 0.5 * (lo + hi)
         if np.all((mid == lo) | (mid == hi)):
             break
-        above = box_iou(b, _path(b, dwh, mid, cw, ch)) >= t
+        above = box_iou(b, stopped_path(b, dwh, mid, cw, ch)) >= t
         lo = np.where(above, mid, lo)
         hi = np.where(above, hi, mid)
-    p_lo = _path(b, dwh, lo, cw, ch)
-    p_hi = _path(b, dwh, hi, cw, ch)
+    p_lo = stopped_path(b, dwh, lo, cw, ch)
+    p_hi = stopped_path(b, dwh, hi, cw, ch)
     take_hi = np.abs(box_iou(b, p_hi) - t) < np.abs(box_iou(b, p_lo) - t)
     return np.where(take_hi[:, None], p_hi, p_lo)
 
@@ -248,18 +251,18 @@ def _bracket(b, d, wh, t, cw, ch) -> np.ndarray:
         gap = np.stack([b[held, 0], b[held, 1], cw[held] - b[held, 2], ch[held] - b[held, 3]], axis=1)  # (K, 4)
         speed = np.abs(d[held]) * wh[held]
         s_end = np.where(speed > 0, gap / np.where(speed > 0, speed, 1.0), 0.0).max(axis=1)
-        floor = box_iou(b[held], _path(b[held], d[held] * wh[held], s_end, cw[held], ch[held]))
+        floor = box_iou(b[held], stopped_path(b[held], d[held] * wh[held], s_end, cw[held], ch[held]))
         s_hi[held] = np.where(floor <= t[held], s_end, np.nan)
     return s_hi
 
 
-def _solve(b, d, t, cw, ch):
+def solve_iou(b, d, t, cw, ch):
     """Boxes along directions ``d`` at IoU ``t`` with their sources ``b``.
 
     Returns (boxes (N, 4), achieved IoU (N,), adjusted (N,) bool).
     """
     n = len(b)
-    wh = _sizes4(b)
+    wh = sizes4(b)
     p = b + _ray_step(d, t)[:, None] * d * wh
     adjusted = _outside(p, cw, ch)
     # Boxes the canvas stops, and (rarely) closed-form steps that lost precision, go to bisection.
@@ -326,15 +329,15 @@ def box_at_iou(boxes, directions, targets, *, canvas=None) -> Perturbed:
     t = np.broadcast_to(np.asarray(targets, dtype=np.float64), (n,)).copy()
     if d.shape != (n, 4):
         raise ValueError(f"'directions' must have shape ({n}, 4) (got {d.shape})")
-    _check_sources(b)
+    check_sources(b)
     if not (np.isfinite(d).all() and (np.abs(d).max(axis=1, initial=0) > 0).all()) and n:
         raise ValueError("'directions' must be finite and not all zero in any row")
     if n and not ((t > 0) & (t <= 1)).all():
         raise ValueError(f"'targets' must lie in (0, 1] (got {t[~((t > 0) & (t <= 1))][0]!r})")
-    cw, ch = _canvas_arrays(canvas, n)
+    cw, ch = canvas_arrays(canvas, n)
     if canvas is not None:
-        _check_inside(b, cw, ch)
-    p, iou, adjusted = _solve(b, d, t, cw, ch)
+        check_inside(b, cw, ch)
+    p, iou, adjusted = solve_iou(b, d, t, cw, ch)
     return Perturbed(p, np.arange(n), iou, t, np.full(n, "given"), adjusted)
 
 

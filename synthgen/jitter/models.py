@@ -23,16 +23,16 @@ from synthgen.geometry import as_boxes, box_ioa, box_iou, boxes_valid, group_max
 from synthgen.jitter.iou import (
     BoxArrays,
     Perturbed,
-    _arg,
-    _canvas_arrays,
-    _check_inside,
-    _check_iou_range,
-    _check_sources,
-    _count,
-    _freeze,
-    _path,
-    _sizes4,
-    _solve,
+    canvas_arrays,
+    check_arg,
+    check_inside,
+    check_iou_range,
+    check_sources,
+    count_of,
+    freeze_arrays,
+    sizes4,
+    solve_iou,
+    stopped_path,
 )
 
 __all__ = [
@@ -106,7 +106,7 @@ class Relabelled:
     changed: np.ndarray
 
     def __post_init__(self):
-        _freeze(self)
+        freeze_arrays(self)
 
 
 def _check_modes(modes) -> tuple[str, ...]:
@@ -149,7 +149,7 @@ def _directions(modes: tuple[str, ...], n: int, rng: np.random.Generator) -> tup
     return d, names
 
 
-def _draw_targets(lo: float, hi: float, n: int, rng: np.random.Generator) -> np.ndarray:
+def draw_targets(lo: float, hi: float, n: int, rng: np.random.Generator) -> np.ndarray:
     return lo + (hi - lo) * rng.random(n)
 
 
@@ -192,15 +192,15 @@ def to_iou(boxes, iou, *, rng: np.random.Generator, modes=ERROR_MODES, canvas=No
     """
     b = as_boxes(boxes)
     n = len(b)
-    lo, hi = _check_iou_range(iou)
+    lo, hi = check_iou_range(iou)
     modes = _check_modes(modes)
-    _check_sources(b)
-    cw, ch = _canvas_arrays(canvas, n)
+    check_sources(b)
+    cw, ch = canvas_arrays(canvas, n)
     if canvas is not None:
-        _check_inside(b, cw, ch)
-    t = _draw_targets(lo, hi, n, rng)
+        check_inside(b, cw, ch)
+    t = draw_targets(lo, hi, n, rng)
     d, names = _directions(modes, n, rng)
-    p, achieved, adjusted = _solve(b, d, t, cw, ch)
+    p, achieved, adjusted = solve_iou(b, d, t, cw, ch)
     return Perturbed(p, np.arange(n), achieved, t, names, adjusted)
 
 
@@ -217,7 +217,7 @@ def _redraw(b: np.ndarray, draw, cw, ch, what: str) -> tuple[np.ndarray, np.ndar
         if todo.size == 0:
             break
         raw = draw(todo)
-        p = _path(raw, np.zeros_like(raw), np.zeros(len(raw)), cw[todo], ch[todo])
+        p = stopped_path(raw, np.zeros_like(raw), np.zeros(len(raw)), cw[todo], ch[todo])
         ok = boxes_valid(p)
         out[todo[ok]] = p[ok]
         clipped[todo[ok]] = np.any(p[ok] != raw[ok], axis=1)
@@ -261,11 +261,11 @@ def gaussian_edges(boxes, sigma: float, *, rng: np.random.Generator, canvas=None
     >>> r.boxes.tolist(), r.iou.tolist()
     ([[0.0, 0.0, 10.0, 20.0]], [1.0])
     """
-    _arg(check_number, "sigma", sigma, lo=0)
+    check_arg(check_number, "sigma", sigma, lo=0)
     b = as_boxes(boxes)
-    _check_sources(b)
-    wh = _sizes4(b)
-    cw, ch = _canvas_arrays(canvas, len(b))
+    check_sources(b)
+    wh = sizes4(b)
+    cw, ch = canvas_arrays(canvas, len(b))
     p, clipped = _redraw(b, lambda i: b[i] + rng.standard_normal((len(i), 4)) * sigma * wh[i], cw, ch, "gaussian_edges")
     return _noise_result(b, p, clipped, "gaussian_edges")
 
@@ -303,11 +303,11 @@ def gaussian_center_size(boxes, center: float, size: float, *, rng: np.random.Ge
     Perturbed
         As for :func:`gaussian_edges`: empty boxes are drawn again, ``adjusted`` marks clipped ones.
     """
-    _arg(check_number, "center", center, lo=0)
-    _arg(check_number, "size", size, lo=0)
+    check_arg(check_number, "center", center, lo=0)
+    check_arg(check_number, "size", size, lo=0)
     b = as_boxes(boxes)
-    _check_sources(b)
-    cw, ch = _canvas_arrays(canvas, len(b))
+    check_sources(b)
+    cw, ch = canvas_arrays(canvas, len(b))
 
     def draw(i):
         z = rng.standard_normal((len(i), 4))
@@ -340,11 +340,11 @@ def uniform_shift_scale(
     -------
     Perturbed
     """
-    _arg(check_number, "shift", shift, lo=0)
-    _arg(check_number, "scale", scale, lo=0, hi=1, hi_open=True)
+    check_arg(check_number, "shift", shift, lo=0)
+    check_arg(check_number, "scale", scale, lo=0, hi=1, hi_open=True)
     b = as_boxes(boxes)
-    _check_sources(b)
-    cw, ch = _canvas_arrays(canvas, len(b))
+    check_sources(b)
+    cw, ch = canvas_arrays(canvas, len(b))
 
     def draw(i):
         r = rng.uniform(-1.0, 1.0, (len(i), 4))
@@ -386,13 +386,13 @@ def duplicates(
     src = np.repeat(np.arange(n), k)
     c = None
     if canvas is not None:
-        cw, ch = _canvas_arrays(canvas, n)
+        cw, ch = canvas_arrays(canvas, n)
         c = np.stack([cw, ch], axis=1)[src]
     r = to_iou(b[src], iou, rng=rng, modes=modes, canvas=c)
     return Perturbed(r.boxes.copy(), src, r.iou.copy(), r.target.copy(), r.mode.copy(), r.adjusted.copy())
 
 
-def _random_boxes(cw, ch, size, aspect, rng) -> np.ndarray:
+def random_boxes(cw, ch, size, aspect, rng) -> np.ndarray:
     """Random boxes inside canvases ``cw x ch`` (shape (K,) each).
 
     ``size`` is either ``(lo, hi)``, the side as a fraction of the shorter
@@ -414,8 +414,8 @@ def _random_boxes(cw, ch, size, aspect, rng) -> np.ndarray:
     return np.stack([x0, y0, x0 + w, y0 + h], axis=1)
 
 
-def _check_fraction_range(value, name: str, *, lo_open: bool = True) -> tuple[float, float]:
-    _arg(check_range, name, tuple(value), lo=0, lo_open=lo_open, hi=1)
+def check_fraction_range(value, name: str, *, lo_open: bool = True) -> tuple[float, float]:
+    check_arg(check_range, name, tuple(value), lo=0, lo_open=lo_open, hi=1)
     return float(value[0]), float(value[1])
 
 
@@ -424,7 +424,7 @@ FALLBACK_BACKGROUND_SIZE = (0.05, 0.3)
 
 
 def _background_sizes(truth: np.ndarray, size):
-    """What :func:`_random_boxes` draws sizes from: ``size`` as given, or the truth's ``(w, h)`` when None."""
+    """What :func:`random_boxes` draws sizes from: ``size`` as given, or the truth's ``(w, h)`` when None."""
     if size is not None:
         return size
     if len(truth) == 0:
@@ -432,10 +432,10 @@ def _background_sizes(truth: np.ndarray, size):
     return np.stack([truth[:, 2] - truth[:, 0], truth[:, 3] - truth[:, 1]], axis=1)  # (N, 2)
 
 
-def _place_background(truth, truth_img, counts, cw_img, ch_img, max_iou, size, aspect, rng, ignore=None):
+def place_background(truth, truth_img, counts, cw_img, ch_img, max_iou, size, aspect, rng, ignore=None):
     """Background boxes for each image; returns (boxes, image, other_iou, shortfall).
 
-    ``size`` as for :func:`_random_boxes`, or None for the sizes of ``truth``.
+    ``size`` as for :func:`random_boxes`, or None for the sizes of ``truth``.
     ``ignore``: ``(boxes (K, 4), image (K,))`` of ignore regions; a background
     box also keeps below ``max_iou`` of its own area on each of them, so that
     a COCO evaluation does not ignore it (crowd matching) but counts it false.
@@ -450,7 +450,7 @@ def _place_background(truth, truth_img, counts, cw_img, ch_img, max_iou, size, a
     for _ in range(_ROUNDS):
         if todo.size == 0:
             break
-        cand = _random_boxes(cw_img[img[todo]], ch_img[img[todo]], size, aspect, rng)
+        cand = random_boxes(cw_img[img[todo]], ch_img[img[todo]], size, aspect, rng)
         o = group_max_overlap(cand, img[todo], truth, truth_img)
         ok = o < max_iou
         if ignore is not None and len(ignore[0]):
@@ -504,13 +504,13 @@ def background_boxes(
         When fewer than ``n`` boxes could be placed (the truth leaves no room).
     """
     t = as_boxes(truth)
-    _arg(check_number, "n", n, lo=0, integer=True)
-    _arg(check_number, "max_iou", max_iou, lo=0, lo_open=True, hi=1)
+    check_arg(check_number, "n", n, lo=0, integer=True)
+    check_arg(check_number, "max_iou", max_iou, lo=0, lo_open=True, hi=1)
     if size is not None:
-        size = _check_fraction_range(size, "size")
-    _arg(check_range, "aspect", tuple(aspect), lo=0, lo_open=True)
-    cw, ch = _canvas_arrays(canvas, 1)
-    boxes, _, other, short = _place_background(
+        size = check_fraction_range(size, "size")
+    check_arg(check_range, "aspect", tuple(aspect), lo=0, lo_open=True)
+    cw, ch = canvas_arrays(canvas, 1)
+    boxes, _, other, short = place_background(
         t, np.zeros(len(t), dtype=np.int64), np.array([n]), cw, ch, max_iou, size, aspect, rng
     )
     if short:
@@ -521,7 +521,7 @@ def background_boxes(
     return Placed(boxes, np.full(n, -1), np.full(n, np.nan), other)
 
 
-def _from_sources(truth, truth_img, src, targets, modes, cw, ch, rng):
+def from_sources(truth, truth_img, src, targets, modes, cw, ch, rng):
     """Boxes from ``truth[src]`` at IoU ``targets``, redrawn until no other true box is closer.
 
     Returns (boxes (K, 4), iou (K,), other_iou (K,), adjusted (K,)).
@@ -537,7 +537,7 @@ def _from_sources(truth, truth_img, src, targets, modes, cw, ch, rng):
             break
         s = src[todo]
         d, _ = _directions(modes, todo.size, rng)
-        p, a, adj = _solve(truth[s], d, targets[todo], cw[s], ch[s])
+        p, a, adj = solve_iou(truth[s], d, targets[todo], cw[s], ch[s])
         o = group_max_overlap(p, truth_img[s], truth, truth_img, exclude=s)
         boxes[todo], iou[todo], other[todo], adjusted[todo] = p, a, o, adj
         todo = todo[o >= a]
@@ -581,14 +581,14 @@ def near_misses(
     src = np.asarray(sources, dtype=np.int64).reshape(-1)
     if src.size and (src.min() < 0 or src.max() >= len(t)):
         raise ValueError(f"'sources' must index 'truth' (0 .. {len(t) - 1})")
-    lo, hi = _check_iou_range(iou)
+    lo, hi = check_iou_range(iou)
     modes = _check_modes(modes)
-    _check_sources(t, "truth")
-    cw, ch = _canvas_arrays(canvas, len(t))
+    check_sources(t, "truth")
+    cw, ch = canvas_arrays(canvas, len(t))
     if canvas is not None:
-        _check_inside(t, cw, ch)
-    targets = _draw_targets(lo, hi, src.size, rng)
-    boxes, achieved, other, _ = _from_sources(t, np.zeros(len(t), dtype=np.int64), src, targets, modes, cw, ch, rng)
+        check_inside(t, cw, ch)
+    targets = draw_targets(lo, hi, src.size, rng)
+    boxes, achieved, other, _ = from_sources(t, np.zeros(len(t), dtype=np.int64), src, targets, modes, cw, ch, rng)
     if (other >= achieved).any():
         i = int(np.flatnonzero(other >= achieved)[0])
         raise ValueError(
@@ -622,12 +622,12 @@ def relabel(labels, rate: float, classes, *, rng: np.random.Generator) -> Relabe
     >>> int(r.changed.sum()), bool(np.all((r.labels != r.original) == r.changed))
     (2, True)
     """
-    _arg(check_number, "rate", rate, lo=0, hi=1)
+    check_arg(check_number, "rate", rate, lo=0, hi=1)
     lab = np.asarray(labels, dtype=np.int64).reshape(-1)
     cls = np.unique(np.asarray(classes, dtype=np.int64).reshape(-1))
     if not np.isin(lab, cls).all():
         raise ValueError(f"'labels' must all be in 'classes' (got {sorted(set(lab.tolist()) - set(cls.tolist()))})")
-    k = _count(rate, lab.size)
+    k = count_of(rate, lab.size)
     if k and cls.size < 2:
         raise ValueError(f"relabelling needs at least 2 classes (got {cls.tolist()})")
     chosen = np.sort(rng.permutation(lab.size)[:k])

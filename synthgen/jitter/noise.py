@@ -12,8 +12,8 @@ import numpy as np
 
 from synthgen.errors import check_number, check_range
 from synthgen.geometry import as_boxes
-from synthgen.jitter.iou import BoxArrays, _arg, _canvas_arrays, _count
-from synthgen.jitter.models import _check_fraction_range, _random_boxes, uniform_shift_scale
+from synthgen.jitter.iou import BoxArrays, canvas_arrays, check_arg, count_of
+from synthgen.jitter.models import check_fraction_range, random_boxes, uniform_shift_scale
 from synthgen.seeding import NOISE_STREAM, stream
 
 __all__ = [
@@ -115,11 +115,11 @@ def pad_with_noise(
     n = len(b)
     size = _check_padding(n, lab, length, noise_label, jittered, size, aspect)
     m = int(length) - n
-    k_jit = _count(jittered, m) if n else 0
-    cw, ch = _canvas_arrays(canvas, max(n, 1))
+    k_jit = count_of(jittered, m) if n else 0
+    cw, ch = canvas_arrays(canvas, max(n, 1))
     src = rng.integers(n, size=k_jit) if n else np.zeros(0, dtype=np.int64)
     jit = uniform_shift_scale(b[src], shift, scale, rng=rng, canvas=(cw[0], ch[0]))
-    rand = _random_boxes(np.full(m - k_jit, cw[0]), np.full(m - k_jit, ch[0]), size, aspect, rng)
+    rand = random_boxes(np.full(m - k_jit, cw[0]), np.full(m - k_jit, ch[0]), size, aspect, rng)
     noise_boxes = np.concatenate([jit.boxes, rand])
     noise_src = np.concatenate([src, np.full(m - k_jit, -1)])
     noise_iou = np.concatenate([jit.iou, np.full(m - k_jit, np.nan)])
@@ -138,13 +138,13 @@ def _check_padding(n: int, lab: np.ndarray, length, noise_label: int, jittered, 
     """Raise ValueError on a bad argument of :func:`pad_with_noise`; return ``size`` as a checked range or None."""
     if lab.size != n:
         raise ValueError(f"'labels' must have one entry per box ({n}) (got {lab.size})")
-    _arg(check_number, "length", length, lo=n, integer=True)
-    _arg(check_number, "jittered", jittered, lo=0, hi=1)
+    check_arg(check_number, "length", length, lo=n, integer=True)
+    check_arg(check_number, "jittered", jittered, lo=0, hi=1)
     if np.any(lab == noise_label):
         raise ValueError(f"'noise_label' {noise_label} is also a true label")
     if size is not None:
-        size = _check_fraction_range(size, "size")
-    _arg(check_range, "aspect", tuple(aspect), lo=0, lo_open=True)
+        size = check_fraction_range(size, "size")
+    check_arg(check_range, "aspect", tuple(aspect), lo=0, lo_open=True)
     return size
 
 
