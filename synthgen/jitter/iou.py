@@ -68,6 +68,7 @@ COCO_MARGIN = 1e-6
 
 
 def freeze_arrays(obj) -> None:
+    """Make every ndarray field of the dataclass instance ``obj`` read-only."""
     for f in dataclasses.fields(obj):
         value = getattr(obj, f.name)
         if isinstance(value, np.ndarray):
