@@ -29,7 +29,7 @@ _EXPORTS = {
     "simulate_detections": "synthgen.jitter",
     "DetectorSpec": "synthgen.jitter",
     "to_iou": "synthgen.jitter",
-    "jitter_dataset": "synthgen.jitter_coco",
+    "jitter_dataset": "synthgen.jitter.coco",
     "check_dataset": "synthgen.formats.check",
     "export": "synthgen.formats",
     "run_sweep": "synthgen.sweep",

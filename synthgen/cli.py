@@ -278,32 +278,22 @@ def _warn_drops(objects: int, dropped: dict, ignored: int, where: str = "") -> N
         typer.echo(f"synthgen: warning: {where}{line} (manifest: counts.dropped)", err=True)
 
 
-# config key of each DetectorSpec field -> the jitter option that sets it
+# DetectorSpec field -> the jitter option that sets it (errors about a field name its option)
 _JITTER_OPTIONS = {
-    "jitter.iou": "--iou",
-    "jitter.miss": "--miss",
-    "jitter.duplicates": "--duplicates",
-    "jitter.background": "--background",
-    "jitter.relabel": "--relabel",
-    "jitter.localization": "--localization",
-    "jitter.near_iou": "--near-iou",
-    "jitter.duplicate_iou": "--duplicate-iou",
-    "jitter.background_iou": "--background-iou",
-    "jitter.background_size": "--background-size",
-    "jitter.score_overlap": "--score-overlap",
-    "jitter.modes": "--modes",
-    "jitter.keep_inside": "--keep-inside",
-    "seed": "--seed",
+    "iou": "--iou",
+    "miss": "--miss",
+    "duplicates": "--duplicates",
+    "background": "--background",
+    "relabel": "--relabel",
+    "localization": "--localization",
+    "near_iou": "--near-iou",
+    "duplicate_iou": "--duplicate-iou",
+    "background_iou": "--background-iou",
+    "background_size": "--background-size",
+    "score_overlap": "--score-overlap",
+    "modes": "--modes",
+    "keep_inside": "--keep-inside",
 }
-
-
-def _option_error(exc) -> UserError:
-    """A ConfigError about a jitter setting, reworded to name the command-line option."""
-    value = list(exc.value) if isinstance(exc.value, tuple) else exc.value
-    text = f"option '{_JITTER_OPTIONS.get(exc.key, exc.key)}' {exc.rule} (got {value!r})"
-    for key, option in _JITTER_OPTIONS.items():
-        text = text.replace(f"'{key}'", f"'{option}'")
-    return UserError(text)
 
 
 def _pair(text: str, option: str) -> tuple[float, float]:
@@ -380,34 +370,35 @@ def jitter(
     """
     import orjson
 
-    from synthgen.errors import ConfigError
-    from synthgen.jitter import DetectorSpec
-    from synthgen.jitter_coco import jitter_files
+    from synthgen.errors import check_number
+    from synthgen.jitter import parse_spec
+    from synthgen.jitter.coco import jitter_files
 
-    try:
-        spec = DetectorSpec(
-            miss=miss,
-            iou=_pair(iou, "--iou"),
-            modes=tuple(m.strip() for m in modes.split(",") if m.strip()),
-            localization=localization,
-            near_iou=_pair(near_iou, "--near-iou"),
-            duplicates=duplicates,
-            duplicate_iou=_pair(duplicate_iou, "--duplicate-iou"),
-            background=background,
-            background_iou=background_iou,
-            background_size=None if background_size == "objects" else _pair(background_size, "--background-size"),
-            relabel=relabel,
-            score_overlap=score_overlap,
-            keep_inside=keep_inside,
-        )
-        summary = jitter_files(dataset, out, truth=truth, seed=seed, spec=spec)
-    except ConfigError as exc:
-        raise _option_error(exc) from None
+    spec = parse_spec(
+        {
+            "miss": miss,
+            "iou": _pair(iou, "--iou"),
+            "modes": tuple(m.strip() for m in modes.split(",") if m.strip()),
+            "localization": localization,
+            "near_iou": _pair(near_iou, "--near-iou"),
+            "duplicates": duplicates,
+            "duplicate_iou": _pair(duplicate_iou, "--duplicate-iou"),
+            "background": background,
+            "background_iou": background_iou,
+            "background_size": None if background_size == "objects" else _pair(background_size, "--background-size"),
+            "relabel": relabel,
+            "score_overlap": score_overlap,
+            "keep_inside": keep_inside,
+        },
+        key=_JITTER_OPTIONS.__getitem__,
+    )
+    check_number("--seed", seed, lo=0, integer=True)
+    summary = jitter_files(dataset, out, truth=truth, seed=seed, spec=spec)
     typer.echo(orjson.dumps(summary, option=orjson.OPT_INDENT_2).decode())
     for name, change in summary["nudged"].items():
         lo, hi = change["asked"]
         if lo == hi:  # one IoU on a threshold: half the boxes would have fallen on each side; say so
-            option = _JITTER_OPTIONS[f"jitter.{name}"]
+            option = _JITTER_OPTIONS[name]
             asked, used = (",".join(f"{v:g}" for v in change[k]) for k in ("asked", "used"))
             typer.echo(
                 f"synthgen: note: {option} {asked} ends on a COCO IoU threshold; used {used}, so every box is "

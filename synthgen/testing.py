@@ -566,7 +566,7 @@ if pytest is not None:
         only true positives at IoU 0.7-0.95.
         """
         from synthgen.jitter import DetectorSpec
-        from synthgen.jitter_coco import jitter_dataset
+        from synthgen.jitter.coco import jitter_dataset
 
         opts = _options(request)
         detector = dict(opts.pop("detector", {}))

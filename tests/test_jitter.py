@@ -626,3 +626,18 @@ def test_background_boxes_without_truth_fall_back_to_a_fraction_of_the_image():
     out = background_boxes(np.zeros((0, 4)), 40, rng=np.random.default_rng(2), canvas=(100, 80))
     side = np.sqrt((out.boxes[:, 2] - out.boxes[:, 0]) * (out.boxes[:, 3] - out.boxes[:, 1]))
     assert side.min() >= 0.05 * 80 - 1e-9 and side.max() <= 0.3 * 80 + 1e-9
+
+
+def test_documented_names_import_from_the_package():
+    """README (Boxes that are wrong by a known amount) names these functions of ``synthgen.jitter``;
+    the package re-exports every public name of its modules, and nothing private."""
+    import synthgen.jitter as pkg
+    from synthgen.jitter import detector, iou, models, noise
+
+    readme = ["to_iou", "duplicates", "background_boxes", "near_misses", "relabel", "gaussian_edges",
+              "uniform_shift_scale", "pad_with_noise", "simulate_detections", "DetectorSpec", "noise_padder"]
+    assert all(callable(getattr(pkg, name)) for name in readme)
+    modules = (iou, models, noise, detector)
+    assert sorted(pkg.__all__) == sorted(n for m in modules for n in m.__all__)
+    assert all(getattr(pkg, n) is getattr(m, n) for m in modules for n in m.__all__)
+    assert not any(n.startswith("_") for n in pkg.__all__)

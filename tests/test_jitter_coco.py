@@ -1,4 +1,4 @@
-"""Tests for synthgen.jitter_coco: simulated detections for a COCO dataset, its sidecar and its files."""
+"""Tests for synthgen.jitter.coco: simulated detections for a COCO dataset, its sidecar and its files."""
 
 from __future__ import annotations
 
@@ -11,7 +11,7 @@ import shapely
 from synthgen.errors import ConfigError, InputFileError, UserError
 from synthgen.formats.results import write_results
 from synthgen.jitter import DETECTION_KINDS, IOU_TOLERANCE, OUTCOMES, DetectorSpec
-from synthgen.jitter_coco import SIDECAR_FORMAT, jitter_dataset, jitter_files, truth_path_for
+from synthgen.jitter.coco import SIDECAR_FORMAT, jitter_dataset, jitter_files, truth_path_for
 from tests._coco_cases import coco_reference
 
 

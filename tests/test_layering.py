@@ -70,7 +70,6 @@ LAYER_OF: dict[str, str] = {
     "synthgen.shards": "run",
     "synthgen.sweep": "run",
     "synthgen.score": "evaluate",
-    "synthgen.jitter_coco": "jitter",
     "synthgen.report_score": "report",
 }
 

@@ -560,7 +560,7 @@ def test_saved_pictures_are_readable_by_others(tmp_path):
 def test_matching_agrees_with_what_the_jitter_sidecar_says(small_dataset):
     """On simulated detections, greedy matching names each unambiguous prediction as the simulator built it."""
     from synthgen.jitter import DetectorSpec
-    from synthgen.jitter_coco import jitter_dataset
+    from synthgen.jitter.coco import jitter_dataset
 
     out, _ = small_dataset
     coco = json.loads((out / "annotations.json").read_text())

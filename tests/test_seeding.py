@@ -30,8 +30,9 @@ def test_stream_keys_are_distinct_and_named_once():
 
 def test_modules_use_the_table():
     """The modules that draw from a named stream take its key from synthgen.seeding."""
-    from synthgen import jitter, jitter_coco, scene
+    from synthgen import jitter, scene
     from synthgen.formats import splits, tokens
+    from synthgen.jitter import coco as jitter_coco
 
     assert tokens.ORDER_STREAM is seeding.ORDER_STREAM
     assert splits.SPLIT_STREAM is seeding.SPLIT_STREAM

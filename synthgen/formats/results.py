@@ -167,7 +167,7 @@ def read_truth_sidecar(path, n_predictions: int) -> TruthSidecar:
     predictions file instead of its own position.  A top-level ``"missed"``
     list of annotation ids, when present, says which ground truth has no
     prediction.  These are the keys ``synthgen jitter`` writes
-    (``synthgen.jitter_coco``, format ``synthgen-jitter-truth/1``).
+    (``synthgen.jitter.coco``, format ``synthgen-jitter-truth/1``).
 
     Parameters
     ----------

@@ -176,6 +176,48 @@ def _spec_json(spec: DetectorSpec) -> dict:
     return {f.name: (list(v) if isinstance(v := getattr(spec, f.name), tuple) else v) for f in dataclasses.fields(spec)}
 
 
+def _prediction_records(det, ids, image_ids, on_crowd) -> tuple[list[dict], list[dict]]:
+    """The COCO results entries of ``det`` and the sidecar's record of each (same order)."""
+    bboxes = bbox_from_xyxy(det.boxes)
+    predictions = []
+    records = []
+    for i in range(len(det)):
+        src = int(det.source[i])
+        pred = {
+            "image_id": image_ids[int(det.image[i])],
+            "category_id": int(det.labels[i]),
+            "bbox": bboxes[i],
+            "score": float(det.scores[i]),
+        }
+        predictions.append(pred)
+        records.append({
+            "index": i,
+            **pred,
+            "kind": str(det.kind[i]),
+            "gt_id": int(ids[src]) if src >= 0 else None,
+            "iou": _num(det.iou[i]),
+            "other_iou": float(det.other_iou[i]),
+            "crowd_overlap": float(on_crowd[i]),
+        })
+    return predictions, records
+
+
+def _detection_counts(det, on_crowd) -> dict:
+    """The summary's counts of ``det``: predictions, per kind and outcome, IoU ranges, ambiguous, shortfall."""
+    iou_ranges = {}
+    for kind in DETECTION_KINDS[:-1]:
+        v = det.iou[det.kind == kind]
+        iou_ranges[kind] = [float(v.min()), float(v.max())] if v.size else None
+    return {
+        "predictions": len(det),
+        "kinds": {k: int((det.kind == k).sum()) for k in DETECTION_KINDS},
+        "outcomes": {k: int((det.outcome == k).sum()) for k in OUTCOMES},
+        "iou": iou_ranges,
+        "ambiguous": int(((det.source >= 0) & ((det.other_iou >= 0.5) | (on_crowd >= 0.5))).sum()),
+        "background_shortfall": int(det.background_shortfall),
+    }
+
+
 def jitter_dataset(
     coco: dict, *, seed: int, spec: DetectorSpec = DetectorSpec(), source: str = ANNOTATIONS
 ) -> tuple[list[dict], dict, dict]:
@@ -222,46 +264,17 @@ def jitter_dataset(
     on_crowd = group_max_overlap(det.boxes, det.image, ignore[0], ignore[1], measure=box_ioa)
 
     image_ids = [im["id"] for im in coco["images"]]
-    bboxes = bbox_from_xyxy(det.boxes)
-    predictions = []
-    records = []
-    for i in range(len(det)):
-        src = int(det.source[i])
-        pred = {
-            "image_id": image_ids[int(det.image[i])],
-            "category_id": int(det.labels[i]),
-            "bbox": bboxes[i],
-            "score": float(det.scores[i]),
-        }
-        predictions.append(pred)
-        records.append({
-            "index": i,
-            **pred,
-            "kind": str(det.kind[i]),
-            "gt_id": int(ids[src]) if src >= 0 else None,
-            "iou": _num(det.iou[i]),
-            "other_iou": float(det.other_iou[i]),
-            "crowd_overlap": float(on_crowd[i]),
-        })
+    predictions, records = _prediction_records(det, ids, image_ids, on_crowd)
     truth = [
         {"gt_id": int(ids[g]), "image_id": image_ids[int(image[g])], "category_id": int(labels[g]),
          "outcome": str(det.outcome[g])}
         for g in range(len(ids))
     ]
-    iou_ranges = {}
-    for kind in DETECTION_KINDS[:-1]:
-        v = det.iou[det.kind == kind]
-        iou_ranges[kind] = [float(v.min()), float(v.max())] if v.size else None
     summary = {
         "images": len(image_ids),
         "ground_truth": len(ids),
         "ignored_crowd": len(ignore[1]),
-        "predictions": len(det),
-        "kinds": {k: int((det.kind == k).sum()) for k in DETECTION_KINDS},
-        "outcomes": {k: int((det.outcome == k).sum()) for k in OUTCOMES},
-        "iou": iou_ranges,
-        "ambiguous": int(((det.source >= 0) & ((det.other_iou >= 0.5) | (on_crowd >= 0.5))).sum()),
-        "background_shortfall": int(det.background_shortfall),
+        **_detection_counts(det, on_crowd),
         "nudged": nudged,
     }
     sidecar = {
