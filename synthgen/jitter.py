@@ -55,9 +55,9 @@ from dataclasses import dataclass
 import numpy as np
 
 from synthgen.errors import ConfigError, check_number, check_range
+from synthgen.evaluate.cocoeval import IOU_THRESHOLDS
 from synthgen.formats.results import DETECTION_KINDS
 from synthgen.geometry import as_boxes, box_ioa, box_iou, boxes_valid, group_max_overlap
-from synthgen.score import IOU_THRESHOLDS
 from synthgen.seeding import NOISE_STREAM, stream
 
 __all__ = [
@@ -95,7 +95,7 @@ __all__ = [
 #: Largest allowed difference between a requested and an achieved IoU.
 IOU_TOLERANCE = 1e-9
 
-#: The IoU thresholds of COCO-style AP, 0.5, 0.55, ..., 0.95 (their home is :mod:`synthgen.score`).
+#: The IoU thresholds of COCO-style AP, 0.5, 0.55, ..., 0.95 (their home is :mod:`synthgen.evaluate`).
 COCO_IOU_THRESHOLDS = tuple(float(t) for t in IOU_THRESHOLDS)
 
 #: How far :func:`clear_of_thresholds` moves a range end that sits on a COCO threshold:

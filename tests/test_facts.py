@@ -6,7 +6,8 @@ from pathlib import Path
 
 import numpy as np
 
-from synthgen import facts, score
+from synthgen import facts
+from synthgen.evaluate import cocoeval as score
 
 README = Path(__file__).resolve().parent.parent / "README.md"
 

@@ -70,9 +70,7 @@ LAYER_OF: dict[str, str] = {
     "synthgen.cluster": "run",
     "synthgen.shards": "run",
     "synthgen.sweep": "run",
-    "synthgen.score": "evaluate",
     "synthgen.jitter_coco": "jitter",
-    "synthgen.report_score": "report",
 }
 
 #: (importer, imported) arrows allowed until the move that removes them lands.

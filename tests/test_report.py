@@ -273,7 +273,7 @@ def test_sheet_draws_ignore_regions_in_grey_and_counts_them_apart(tmp_path):
     sheet = report.contact_sheet(report.open_dataset(tmp_path / "ds"), scale=1)
     t = sheet.tiles[0]
     tile = sheet.pixels[t.top : t.top + t.height, t.left : t.left + t.width]
-    assert _pixels_of(tile, report._MUTED) == _outline_set(11, 4, 13, 11)
+    assert _pixels_of(tile, report.sheet._MUTED) == _outline_set(11, 4, 13, 11)
     assert _pixels_of(tile, report.CATEGORY_COLOURS[0]) == _outline_set(2, 3, 6, 8)
 
 
@@ -320,7 +320,7 @@ def test_classify_true_positives_agree_with_pycocotools(small_dataset):
     assert ours == matched_dt
 
     # and the project's own evaluator agrees per category: recall at IoU 0.5 = true positives / objects
-    from synthgen.score import evaluate
+    from synthgen.evaluate.cocoeval import evaluate
 
     ev = evaluate(coco, preds)
     for k, cat in enumerate(ev.per_category):

@@ -1,4 +1,4 @@
-"""Tests for synthgen.score: COCO box metrics against pycocotools, known answers, slices."""
+"""Tests for synthgen.evaluate: COCO box metrics against pycocotools, known answers, slices."""
 
 from __future__ import annotations
 
@@ -16,7 +16,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 from _coco_cases import coco_reference, random_case  # noqa: E402
 
 from synthgen.errors import InputFileError, UserError  # noqa: E402
-from synthgen.score import (  # noqa: E402
+from synthgen.evaluate.cocoeval import (  # noqa: E402
     IOU_THRESHOLDS,
     STAT_NAMES,
     _coco_iou,
@@ -433,7 +433,7 @@ def test_derived_facts_equal_the_recorded_ones(small_dataset):
 
     import shapely
 
-    from synthgen.score import evaluate
+    from synthgen.evaluate.cocoeval import evaluate
 
     ds, _ = small_dataset
     gt = json.loads((ds / "annotations.json").read_text())
