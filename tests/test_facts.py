@@ -7,7 +7,7 @@ from pathlib import Path
 import numpy as np
 
 from synthgen import facts
-from synthgen.evaluate import cocoeval as score
+from synthgen.evaluate import slices as score
 
 README = Path(__file__).resolve().parent.parent / "README.md"
 

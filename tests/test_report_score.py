@@ -10,7 +10,7 @@ from PIL import Image
 from rich.console import Console
 
 from synthgen.errors import InputFileError, UserError
-from synthgen.evaluate.cocoeval import SweepPoint, evaluate
+from synthgen.evaluate import SweepPoint, evaluate
 from synthgen.report.figures import figure_size_px, plot_slices, plot_sweep, print_report
 
 

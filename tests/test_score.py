@@ -21,8 +21,8 @@ from synthgen.evaluate.cocoeval import (  # noqa: E402
     STAT_NAMES,
     _coco_iou,
     evaluate,
-    parse_slice_spec,
 )
+from synthgen.evaluate.slices import parse_slice_spec  # noqa: E402
 
 N_RANDOM = 400  # random cases compared with pycocotools in the main equality test
 

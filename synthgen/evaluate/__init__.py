@@ -5,22 +5,20 @@ The entry points are importable from here::
     from synthgen.evaluate import evaluate, read_ground_truth, read_predictions, score_files, score_sweep
 """
 
+from synthgen.evaluate.classify import Confusion
 from synthgen.evaluate.cocoeval import (
     IOU_THRESHOLDS,
     MAX_DETS,
     STAT_NAMES,
-    BinResult,
     CategoryResult,
-    Confusion,
     Evaluation,
-    SweepPoint,
     evaluate,
-    parse_slice_spec,
     read_ground_truth,
     read_predictions,
     score_files,
-    score_sweep,
 )
+from synthgen.evaluate.slices import BinResult, parse_slice_spec
+from synthgen.evaluate.sweep import SweepPoint, score_sweep
 
 __all__ = [
     "IOU_THRESHOLDS",

@@ -1,5 +1,10 @@
 """Matching detections to ground truth, COCO box metrics, and metrics per slice.
 
+This module parses (through :mod:`synthgen.evaluate.parse`), matches, accumulates and
+summarizes; :mod:`synthgen.evaluate.slices` says which objects and detections fall in each
+bin of a fact, :mod:`synthgen.evaluate.classify` tables the confusion between classes, and
+:mod:`synthgen.evaluate.sweep` scores a sweep.
+
 :func:`evaluate` scores a results list (COCO results format: records
 ``{image_id, category_id, bbox: [x, y, w, h], score}``) against a COCO JSON
 ground truth and returns an :class:`Evaluation`:
@@ -12,7 +17,7 @@ ground truth and returns an :class:`Evaluation`:
 * :meth:`Evaluation.slice_by`: recall, AP and mean IoU per bin of any
   per-object fact synthgen records under ``annotation["synthgen"]`` (or the
   annotation's own ``"area"``); for COCO files without those facts, the ones
-  a COCO annotation determines are derived (:data:`DERIVED_FACTS`).
+  a COCO annotation determines are derived (:data:`synthgen.evaluate.slices.DERIVED_FACTS`).
 
 The matching rules
 ------------------
@@ -60,12 +65,18 @@ from pathlib import Path
 import numpy as np
 
 from synthgen._io import read_json
-from synthgen.errors import InputFileError, UserError, is_int, is_number
-from synthgen.facts import DEFAULT_EDGES, GEOMETRIC_BASE
-from synthgen.formats.coco import AREA_RANGES, xyxy_from_bbox
+from synthgen.errors import InputFileError
+from synthgen.evaluate.classify import Confusion, confusion_counts
+from synthgen.evaluate.parse import Preds, Truth, parse_predictions, parse_truth
+from synthgen.evaluate.slices import (
+    BinResult,
+    fact_values,
+    parse_slice_spec,
+    slice_bins,
+)
+from synthgen.formats.coco import AREA_RANGES
 from synthgen.formats.dataset_dir import ANNOTATIONS
 from synthgen.formats.results import read_predictions
-from synthgen.geometry import box_iou, box_relations
 
 __all__ = [
     "IOU_THRESHOLDS",
@@ -73,21 +84,12 @@ __all__ = [
     "MAX_DETS",
     "AREA_RANGES",
     "STAT_NAMES",
-    "DEFAULT_EDGES",
-    "BOX_FACTS",
-    "DERIVED_FACTS",
-    "derive_fact",
     "CategoryResult",
-    "Confusion",
-    "BinResult",
     "Evaluation",
     "evaluate",
-    "parse_slice_spec",
     "read_predictions",
     "read_ground_truth",
     "score_files",
-    "score_sweep",
-    "SweepPoint",
 ]
 
 #: IoU thresholds 0.50, 0.55, ..., 0.95, built exactly as the reference does
@@ -112,10 +114,6 @@ STAT_NAMES = (
     "AR_medium",
     "AR_large",
 )
-
-#: Facts a detection box can be measured on, for assigning unmatched
-#: detections to a bin: box area ``w * h`` and longer side ``max(w, h)``.
-BOX_FACTS = ("area", "size")
 
 _MAX_DET = MAX_DETS[-1]
 _EPS = np.spacing(1)
@@ -145,333 +143,6 @@ class CategoryResult:
     def to_dict(self) -> dict:
         """Plain JSON-able dictionary."""
         return {f: getattr(self, f) for f in self.__slots__}
-
-
-@dataclass(frozen=True, slots=True)
-class Confusion:
-    """Detections by predicted class (columns) and the class of the object they hit (rows).
-
-    A detection that is a true positive at IoU 0.5 counts on the diagonal.  A
-    false positive at IoU 0.5 counts in the row of the non-crowd object of
-    *another* class in the same image with which it has the highest IoU, when
-    that IoU is at least 0.5, and otherwise in the last row, ``"none"``
-    (background, poor localisation or a duplicate).  Detections matched to
-    crowd objects, and those beyond the 100 per image and category the
-    evaluation keeps, are not counted.
-
-    Attributes
-    ----------
-    names : tuple of str
-        Category names, in category id order (K of them).
-    counts : ndarray of int, shape (K + 1, K)
-        ``counts[i, j]``: detections of class ``j`` hitting an object of class
-        ``i``; row ``K`` is ``"none"``.
-    """
-
-    names: tuple[str, ...]
-    counts: np.ndarray
-
-    @property
-    def confused(self) -> int:
-        """Number of detections that hit an object of another class."""
-        k = len(self.names)
-        block = self.counts[:k]
-        return int(block.sum() - np.trace(block))
-
-    def to_dict(self) -> dict:
-        """Plain JSON-able dictionary."""
-        return {
-            "rows": [*self.names, "none"],
-            "columns": list(self.names),
-            "counts": self.counts.tolist(),
-            "confused": self.confused,
-        }
-
-
-@dataclass(frozen=True, slots=True)
-class BinResult:
-    """Metrics of one bin of a per-object fact.
-
-    ``lo``/``hi`` bound a numeric bin ``[lo, hi)`` (the last bin includes
-    ``hi``); ``value`` names a categorical bin.  Recalls are pooled over
-    categories (found objects / objects in the bin, up to 100 detections per
-    image and category); APs are COCO's mean over categories with objects in
-    the bin; ``mean_iou`` averages the IoU of the pairs matched at IoU 0.5.
-    Undefined values are NaN.
-    """
-
-    fact: str
-    label: str
-    lo: float | None
-    hi: float | None
-    value: object
-    n_gt: int
-    n_found50: int
-    recall50: float
-    recall75: float
-    ap50: float
-    ap: float
-    mean_iou: float
-
-    def to_dict(self) -> dict:
-        """Plain JSON-able dictionary (NaN and infinities become None)."""
-        return {f: _json_value(getattr(self, f)) for f in self.__slots__}
-
-
-def _json_value(v):
-    if isinstance(v, float) and not math.isfinite(v):
-        return None
-    if isinstance(v, np.generic):
-        return _json_value(v.item())
-    return v
-
-
-# --------------------------------------------------------------------------- input parsing
-
-
-@dataclass(frozen=True, slots=True)
-class _Truth:
-    """Ground truth, restricted to listed images and categories, in file order."""
-
-    image_ids: np.ndarray  # (I,) sorted unique image ids
-    cat_ids: np.ndarray  # (K,) sorted unique category ids
-    cat_names: tuple[str, ...]
-    img: np.ndarray  # (G,) image index
-    cat: np.ndarray  # (G,) category index
-    box: np.ndarray  # (G, 4) COCO [x, y, w, h]
-    area: np.ndarray  # (G,) the annotation's "area"
-    crowd: np.ndarray  # (G,) bool
-    records: tuple  # (G,) the annotation dicts, for facts
-
-
-@dataclass(frozen=True, slots=True)
-class _Preds:
-    img: np.ndarray  # (N,) image index
-    cat: np.ndarray  # (N,) category index, -1 when not a ground-truth category
-    box: np.ndarray  # (N, 4) COCO [x, y, w, h]
-    score: np.ndarray  # (N,)
-    unknown: tuple = ()  # sorted category ids of predictions that name no ground-truth category
-
-
-def _int_array(values) -> np.ndarray | None:
-    arr = np.asarray(values)
-    if arr.ndim != 1 or arr.dtype.kind not in "iu":
-        return None
-    return arr.astype(np.int64)
-
-
-def _real_array(values, shape_tail=()) -> np.ndarray | None:
-    try:
-        arr = np.asarray(values)
-    except ValueError:  # ragged
-        return None
-    if arr.dtype.kind not in "iuf" or arr.shape[1:] != shape_tail or arr.ndim != 1 + len(shape_tail):
-        return None
-    return arr.astype(np.float64)
-
-
-def _show(v) -> str:
-    text = repr(v)
-    return text if len(text) <= 60 else text[:57] + "..."
-
-
-def _check_box(name: str, where: str, bbox) -> None:
-    rule = "'bbox' must be [x, y, width, height]: 4 finite numbers with width >= 0 and height >= 0"
-    ok = isinstance(bbox, (list, tuple)) and len(bbox) == 4 and all(is_number(v) for v in bbox)
-    ok = ok and all(math.isfinite(v) for v in bbox) and bbox[2] >= 0 and bbox[3] >= 0
-    if not ok:
-        raise InputFileError(name, f"{where}: {rule} (got {_show(bbox)})")
-
-
-def _parse_truth(coco_gt, name: str) -> _Truth:
-    if not isinstance(coco_gt, Mapping):
-        raise InputFileError(name, "must be a COCO JSON object with 'images', 'annotations', 'categories'")
-    for key in ("images", "annotations", "categories"):
-        if not isinstance(coco_gt.get(key), list):
-            raise InputFileError(name, f"'{key}' must be a list (got {_show(coco_gt.get(key))})")
-    image_ids = []
-    for i, im in enumerate(coco_gt["images"]):
-        if not isinstance(im, Mapping) or not is_int(im.get("id")):
-            raise InputFileError(name, f"images[{i}]: 'id' must be an integer (got {_show(im)})")
-        image_ids.append(int(im["id"]))
-    cats = {}
-    for i, c in enumerate(coco_gt["categories"]):
-        if not isinstance(c, Mapping) or not is_int(c.get("id")):
-            raise InputFileError(name, f"categories[{i}]: 'id' must be an integer (got {_show(c)})")
-        cats[int(c["id"])] = str(c.get("name", c["id"]))
-    image_arr = np.unique(np.asarray(image_ids, dtype=np.int64))
-    cat_arr = np.asarray(sorted(cats), dtype=np.int64)
-    cat_index = {c: k for k, c in enumerate(cat_arr.tolist())}
-
-    anns = coco_gt["annotations"]
-    cols = _fast_annotations(anns, image_arr, cat_arr)
-    if cols is None:
-        cols = _scan_annotations(anns, name, set(image_ids), cat_index)
-    img, cat, box, area, crowd = cols
-    return _Truth(
-        image_ids=image_arr,
-        cat_ids=cat_arr,
-        cat_names=tuple(cats[c] for c in cat_arr.tolist()),
-        img=np.searchsorted(image_arr, img).astype(np.int64),
-        cat=np.searchsorted(cat_arr, cat).astype(np.int64),
-        box=box,
-        area=area,
-        crowd=crowd,
-        records=tuple(anns),
-    )
-
-
-_ANN_KEYS = ("id", "image_id", "category_id", "bbox", "area", "iscrowd")
-
-
-def _member(sorted_ids: np.ndarray, values: np.ndarray) -> np.ndarray:
-    if len(sorted_ids) == 0:
-        return np.zeros(len(values), dtype=bool)
-    pos = np.minimum(np.searchsorted(sorted_ids, values), len(sorted_ids) - 1)
-    return sorted_ids[pos] == values
-
-
-def _fast_annotations(anns: list, image_arr: np.ndarray, cat_arr: np.ndarray):
-    """Columns of well-formed annotations, or None to fall back to the record scan."""
-    n = len(anns)
-    if n == 0:
-        return (np.zeros(0, np.int64), np.zeros(0, np.int64), np.zeros((0, 4)), np.zeros(0), np.zeros(0, bool))
-    try:
-        raw = [[a[k] for a in anns] for k in _ANN_KEYS]
-    except (KeyError, TypeError, IndexError):
-        return None
-    ids, img, cat, crowd = (_int_array(raw[i]) for i in (0, 1, 2, 5))
-    box, area = _real_array(raw[3], (4,)), _real_array(raw[4])
-    if any(v is None for v in (ids, img, cat, crowd, box, area)):
-        return None
-    ok = (
-        np.all(ids != 0)
-        and len(np.unique(ids)) == n
-        and np.all(_member(image_arr, img))
-        and np.all(_member(cat_arr, cat))
-        and np.isfinite(box).all()
-        and np.all(box[:, 2:] >= 0)
-        and np.isfinite(area).all()
-        and np.all((crowd == 0) | (crowd == 1))
-    )
-    return (img, cat, box, area, crowd.astype(bool)) if ok else None
-
-
-def _scan_annotations(anns: list, name: str, image_set: set, cat_index: dict):
-    """Check annotations one by one; raise for the first bad one, else return columns."""
-    seen_ids = set()
-    img, cat, box, area, crowd = [], [], [], [], []
-    for i, a in enumerate(anns):
-        where = f"annotations[{i}]"
-        if not isinstance(a, Mapping):
-            raise InputFileError(name, f"{where}: must be an object (got {_show(a)})")
-        for key in _ANN_KEYS:
-            if key not in a:
-                raise InputFileError(name, f"{where}: missing key '{key}'")
-        aid = a["id"]
-        if not is_int(aid) or aid == 0:
-            # COCO evaluation stores matches by id and reads 0 as "unmatched".
-            raise InputFileError(name, f"{where}: 'id' must be a non-zero integer (got {_show(aid)})")
-        if aid in seen_ids:
-            raise InputFileError(name, f"{where}: 'id' must be unique (got {aid} again)")
-        seen_ids.add(aid)
-        if not is_int(a["image_id"]) or a["image_id"] not in image_set:
-            raise InputFileError(
-                name, f"{where}: 'image_id' must be the id of a listed image (got {_show(a['image_id'])})"
-            )
-        if not is_int(a["category_id"]) or a["category_id"] not in cat_index:
-            raise InputFileError(
-                name, f"{where}: 'category_id' must be the id of a listed category (got {_show(a['category_id'])})"
-            )
-        _check_box(name, where, a["bbox"])
-        if not is_number(a["area"]) or not math.isfinite(a["area"]):
-            raise InputFileError(name, f"{where}: 'area' must be a finite number (got {_show(a['area'])})")
-        if a["iscrowd"] not in (0, 1) or isinstance(a["iscrowd"], float):
-            raise InputFileError(name, f"{where}: 'iscrowd' must be 0 or 1 (got {_show(a['iscrowd'])})")
-        img.append(int(a["image_id"]))
-        cat.append(int(a["category_id"]))
-        box.append([float(v) for v in a["bbox"]])
-        area.append(float(a["area"]))
-        crowd.append(bool(a["iscrowd"]))
-    g = len(img)
-    return (
-        np.asarray(img, dtype=np.int64),
-        np.asarray(cat, dtype=np.int64),
-        np.asarray(box, dtype=np.float64).reshape(g, 4),
-        np.asarray(area, dtype=np.float64),
-        np.asarray(crowd, dtype=bool),
-    )
-
-
-_PRED_KEYS = ("image_id", "category_id", "bbox", "score")
-
-
-def _bad_prediction(predictions, name: str, truth: _Truth) -> None:
-    """Scan records one by one and raise for the first that breaks a rule."""
-    known = set(truth.image_ids.tolist())
-    for i, p in enumerate(predictions):
-        where = f"record {i}"
-        if not isinstance(p, Mapping):
-            raise InputFileError(name, f"{where}: must be an object {{image_id, category_id, bbox, score}} (got {_show(p)})")
-        for key in _PRED_KEYS:
-            if key not in p:
-                raise InputFileError(name, f"{where}: missing key '{key}'")
-        if not is_int(p["image_id"]):
-            raise InputFileError(name, f"{where}: 'image_id' must be an integer (got {_show(p['image_id'])})")
-        if p["image_id"] not in known:
-            raise InputFileError(
-                name, f"{where}: 'image_id' must be the id of an image in the ground truth (got {p['image_id']})"
-            )
-        if not is_int(p["category_id"]):
-            raise InputFileError(name, f"{where}: 'category_id' must be an integer (got {_show(p['category_id'])})")
-        _check_box(name, where, p["bbox"])
-        if not is_number(p["score"]) or not math.isfinite(p["score"]):
-            raise InputFileError(name, f"{where}: 'score' must be a finite number (got {_show(p['score'])})")
-
-
-def _parse_predictions(predictions, name: str, truth: _Truth) -> _Preds:
-    if not isinstance(predictions, list):
-        raise InputFileError(
-            name,
-            "predictions must be a JSON array of {image_id, category_id, bbox, score} records "
-            f"(got {type(predictions).__name__})",
-        )
-    n = len(predictions)
-    try:
-        cols = [[p[k] for p in predictions] for k in _PRED_KEYS]
-    except (KeyError, TypeError, IndexError):
-        cols = None
-    arrays = None
-    if cols is not None:
-        img = _int_array(cols[0]) if n else np.zeros(0, np.int64)
-        cat = _int_array(cols[1]) if n else np.zeros(0, np.int64)
-        box = _real_array(cols[2], (4,)) if n else np.zeros((0, 4))
-        score = _real_array(cols[3]) if n else np.zeros(0)
-        if img is not None and cat is not None and box is not None and score is not None:
-            arrays = (img, cat, box, score)
-    ok = arrays is not None
-    if ok:
-        img, cat, box, score = arrays
-        ok = bool(
-            np.all(_member(truth.image_ids, img))
-            and np.isfinite(box).all()
-            and np.all(box[:, 2:] >= 0)
-            and np.isfinite(score).all()
-        )
-    if not ok:
-        # Find and report the first bad record; records that pass are read one by one.
-        _bad_prediction(predictions, name, truth)
-        img = np.array([int(p["image_id"]) for p in predictions], dtype=np.int64)
-        cat = np.array([int(p["category_id"]) for p in predictions], dtype=np.int64)
-        box = np.array([[float(v) for v in p["bbox"]] for p in predictions], dtype=np.float64).reshape(n, 4)
-        score = np.array([float(p["score"]) for p in predictions], dtype=np.float64)
-    pos = np.searchsorted(truth.image_ids, img)
-    in_gt = _member(truth.cat_ids, cat)
-    cpos = np.searchsorted(truth.cat_ids, cat)
-    return _Preds(
-        img=pos.astype(np.int64), cat=np.where(in_gt, cpos, -1).astype(np.int64), box=box, score=score,
-        unknown=tuple(np.unique(cat[~in_gt]).tolist()),
-    )
 
 
 # --------------------------------------------------------------------------- matching
@@ -530,7 +201,7 @@ class _Problem:
     cat_start: np.ndarray  # (K + 1,) first position of each category in acc_order
 
 
-def _build_problem(truth: _Truth, preds: _Preds) -> _Problem:
+def _build_problem(truth: Truth, preds: Preds) -> _Problem:
     k_cats = len(truth.cat_ids)
     idx = np.flatnonzero(preds.cat >= 0)
     group = preds.img[idx] * k_cats + preds.cat[idx]
@@ -631,7 +302,7 @@ def _match(pb: _Problem, gt_ignore: np.ndarray, crowd: np.ndarray) -> np.ndarray
 
 def _accumulate(
     pb: _Problem,
-    truth: _Truth,
+    truth: Truth,
     gt_ignore: np.ndarray,
     det_out: np.ndarray,
     matched: np.ndarray,
@@ -765,7 +436,7 @@ class Evaluation:
         Those predictions' category ids, sorted, each once.
     """
 
-    def __init__(self, truth: _Truth, preds: _Preds, problem: _Problem):
+    def __init__(self, truth: Truth, preds: Preds, problem: _Problem):
         self._truth = truth
         self._preds = preds
         self._pb = problem
@@ -813,75 +484,16 @@ class Evaluation:
         return out
 
     def _confusion(self, gt_ignore: np.ndarray, det_out: np.ndarray) -> Confusion:
-        t, pb = self._truth, self._pb
-        n_k = len(t.cat_ids)
-        counts = np.zeros((n_k + 1, n_k), dtype=np.int64)
         m = self._matched[0, _T50]  # (D,)
         hit = m >= 0
         tp = hit & ~_ignored_match(gt_ignore[None], m[None])[0]
-        np.add.at(counts, (pb.cat[tp], pb.cat[tp]), 1)
-        fp = np.flatnonzero(~hit & ~det_out)
-        # Pairs of each false positive with every non-crowd object of its image.
-        g_order = np.argsort(t.img, kind="stable")
-        g_img = t.img[g_order]
-        lo = np.searchsorted(g_img, pb.img[fp], side="left")
-        cnt = np.searchsorted(g_img, pb.img[fp], side="right") - lo
-        q_det = np.repeat(fp, cnt)
-        q_gt = g_order[np.repeat(lo, cnt) + np.arange(len(q_det)) - np.repeat(np.cumsum(cnt) - cnt, cnt)]
-        keep = (t.cat[q_gt] != pb.cat[q_det]) & ~t.crowd[q_gt]
-        q_det, q_gt = q_det[keep], q_gt[keep]
-        iou = box_iou(xyxy_from_bbox(pb.box)[q_det], xyxy_from_bbox(t.box)[q_gt])
-        ok = iou >= 0.5
-        q_det, q_gt, iou = q_det[ok], q_gt[ok], iou[ok]
-        # Best IoU per detection (the first in file order among equals).
-        order = np.lexsort((q_gt, -iou, q_det))
-        q_det, q_gt = q_det[order], q_gt[order]
-        first = np.r_[True, q_det[1:] != q_det[:-1]] if len(q_det) else np.zeros(0, bool)
-        q_det, q_gt = q_det[first], q_gt[first]
-        np.add.at(counts, (t.cat[q_gt], pb.cat[q_det]), 1)
-        explained = np.zeros(len(pb.rec), dtype=bool)
-        explained[q_det] = True
-        rest = fp[~explained[fp]]
-        np.add.at(counts, (np.full(len(rest), n_k), pb.cat[rest]), 1)
-        return Confusion(names=t.cat_names, counts=counts)
+        return confusion_counts(self._truth, self._pb, hit, tp, det_out)
 
     # ---- slices
 
     def fact_values(self, fact: str) -> tuple[np.ndarray, bool]:
-        """Values of a per-object fact for every ground-truth object.
-
-        Returns
-        -------
-        values : ndarray of shape (G,)
-            float64 for numeric facts (NaN where missing), object otherwise
-            (None where missing).
-        categorical : bool
-        """
-        recs = self._truth.records
-        if not recs:  # no objects (an empty subset of a sweep, say): no fact can be missing
-            return np.zeros(0, dtype=np.float64), False
-        if fact == "area":
-            raw = [r["area"] for r in recs]
-        else:
-            raw = [r.get("synthgen", {}).get(fact) if isinstance(r.get("synthgen"), Mapping) else None for r in recs]
-        if fact in DERIVED_FACTS and any(v is None for v in raw):
-            derived = derive_fact(fact, self._truth)
-            raw = [d if v is None else v for v, d in zip(raw, derived)]
-        present = [v for v in raw if v is not None]
-        if not present:
-            known = sorted({k for r in recs if isinstance(r.get("synthgen"), Mapping) for k in r["synthgen"]})
-            raise UserError(
-                f"slice fact '{fact}' is not recorded for any object; facts in this dataset: "
-                + ", ".join(dict.fromkeys(["area", *DERIVED_FACTS, *known]))
-            )
-        if all(isinstance(v, (bool, str)) for v in present):
-            kinds = {type(v) for v in present}
-            if len(kinds) > 1:
-                raise UserError(f"slice fact '{fact}' mixes value types {sorted(k.__name__ for k in kinds)}")
-            return np.array(raw, dtype=object), True
-        if all(is_number(v) for v in present):
-            return np.array([np.nan if v is None else float(v) for v in raw], dtype=np.float64), False
-        raise UserError(f"slice fact '{fact}' must hold numbers, booleans or strings (got e.g. {_show(present[0])})")
+        """Values of a per-object fact for every ground-truth object (:func:`synthgen.evaluate.slices.fact_values`)."""
+        return fact_values(fact, self._truth)
 
     def slice_by(self, fact: str, edges: Sequence[float] | None = None) -> list[BinResult]:
         """Metrics per bin of a per-object fact.
@@ -894,7 +506,7 @@ class Evaluation:
         edges : sequence of float, optional
             Increasing bin edges for a numeric fact: bins ``[e0, e1)``, ...,
             ``[e_{n-1}, e_n]`` (the last one closed); objects outside every
-            bin are in none.  Defaults to :data:`DEFAULT_EDGES`, powers of 2
+            bin are in none.  Defaults to :data:`synthgen.facts.DEFAULT_EDGES`, powers of 2
             (size) or 4 (area) spanning the values, or, for other numeric
             facts, quintiles of the values.  Categorical facts (strings,
             booleans) are binned by value and take no edges.
@@ -907,27 +519,7 @@ class Evaluation:
         """
         values, categorical = self.fact_values(fact)
         t, pb = self._truth, self._pb
-        if categorical:
-            if edges is not None:
-                raise UserError(f"slice fact '{fact}' is categorical and takes no bin edges (got {list(edges)})")
-            levels = sorted({v for v in values if v is not None}, key=lambda v: (str(type(v)), v))
-            in_bin = np.stack([np.array([v is not None and v == lv and type(v) is type(lv) for v in values], bool)
-                               for lv in levels]) if len(values) else np.zeros((len(levels), 0), bool)
-            bins = [(str(lv), None, None, lv) for lv in levels]
-            det_out = np.zeros((len(levels), len(pb.rec)), dtype=bool)
-        else:
-            e = self._edges(fact, values, edges)
-            if len(e) < 2:  # a fact without default edges, on no objects
-                return []
-            bins = [(_bin_label(e, i), float(e[i]), float(e[i + 1]), None) for i in range(len(e) - 1)]
-            in_bin = _bin_masks(values, e)
-            if fact in BOX_FACTS:
-                w, h = pb.box[:, 2], pb.box[:, 3]
-                with np.errstate(over="ignore"):  # an absurd box's area is inf: above every bin
-                    det_val = w * h if fact == "area" else np.maximum(w, h)
-                det_out = ~_bin_masks(det_val, e)
-            else:
-                det_out = np.zeros((len(bins), len(pb.rec)), dtype=bool)
+        bins, in_bin, det_out = slice_bins(fact, values, categorical, edges, pb.box)
         if not bins:
             return []
         gt_ignore = t.crowd[None, :] | ~in_bin  # (A, G)
@@ -971,25 +563,6 @@ class Evaluation:
     def _matched_for(self, gt_ignore: np.ndarray) -> np.ndarray:
         return _match(self._pb, gt_ignore, self._truth.crowd)
 
-    @staticmethod
-    def _edges(fact: str, values: np.ndarray, edges) -> np.ndarray:
-        if edges is None:
-            if fact in DEFAULT_EDGES:
-                return np.asarray(DEFAULT_EDGES[fact], dtype=np.float64)
-            finite = values[np.isfinite(values)]
-            if fact in GEOMETRIC_BASE:
-                return _geometric_edges(finite, GEOMETRIC_BASE[fact])
-            if finite.size == 0:
-                return np.zeros(0, dtype=np.float64)  # no values, no bins
-            e = np.unique(np.quantile(finite, np.linspace(0, 1, 6)))
-            return e if len(e) >= 2 else np.array([e[0], e[0]], dtype=np.float64)
-        e = np.asarray(list(edges), dtype=np.float64)
-        if e.ndim != 1 or len(e) < 2 or np.isnan(e).any() or np.any(np.diff(e) <= 0):
-            raise UserError(
-                f"bin edges for '{fact}' must be at least two strictly increasing numbers (got {list(edges)})"
-            )
-        return e
-
     # ---- output
 
     def to_dict(self, slices: Mapping[str, Sequence[BinResult]] | None = None) -> dict:
@@ -1017,74 +590,6 @@ class Evaluation:
         if slices:
             out["slices"] = {fact: [b.to_dict() for b in bins] for fact, bins in slices.items()}
         return out
-
-
-#: Facts that follow from a COCO annotation alone, derived for objects that do not record them
-#: (a COCO file from another tool): ``size`` the bbox's longer side, ``kind`` the category name,
-#: ``max_iou`` and ``neighbours`` from the bboxes of the image's other non-crowd annotations
-#: (largest IoU, and how many overlap it), as synthgen computes them from the annotated boxes.
-DERIVED_FACTS = ("size", "kind", "max_iou", "neighbours")
-
-
-def derive_fact(fact: str, truth: _Truth) -> list:
-    """Values of a fact in :data:`DERIVED_FACTS` for every ground-truth object, from its annotation.
-
-    Returns a list of length G (float, or the category name for ``kind``);
-    crowd regions get None for the box-relation facts.
-    """
-    if fact == "kind":
-        return [truth.cat_names[k] for k in truth.cat.tolist()]
-    if fact == "size":
-        return np.maximum(truth.box[:, 2], truth.box[:, 3]).tolist()
-    keep = ~truth.crowd
-    best, count = np.zeros(len(keep)), np.zeros(len(keep), dtype=np.int64)
-    best[keep], count[keep] = box_relations(xyxy_from_bbox(truth.box)[keep], truth.img[keep])
-    values = best if fact == "max_iou" else count.astype(np.float64)
-    return [None if c else v for v, c in zip(values.tolist(), truth.crowd.tolist())]
-
-
-def _geometric_edges(values: np.ndarray, base: float) -> np.ndarray:
-    """Powers of ``base`` spanning the positive values, with 0 first when some value is below the first power.
-
-    Examples
-    --------
-    >>> _geometric_edges(np.array([1.5, 3.0, 7.9]), 2.0).tolist()
-    [1.0, 2.0, 4.0, 8.0]
-    >>> _geometric_edges(np.array([0.0, 5.0]), 2.0).tolist()
-    [0.0, 4.0, 8.0]
-    """
-    positive = values[values > 0]
-    if positive.size == 0:
-        return np.array([0.0, 1.0])
-    lb = math.log(base)
-    k0 = math.floor(math.log(positive.min()) / lb)
-    k1 = max(math.ceil(math.log(positive.max()) / lb), k0 + 1)
-    e = base ** np.arange(k0, k1 + 1, dtype=np.float64)
-    while e[0] > positive.min():  # guard against rounding in the logarithms
-        e = np.r_[e[0] / base, e]
-    while e[-1] < positive.max():
-        e = np.r_[e, e[-1] * base]
-    return np.r_[0.0, e] if (values < e[0]).any() else e
-
-
-def _bin_masks(values: np.ndarray, e: np.ndarray) -> np.ndarray:
-    """(A, N) membership of values in bins ``[e_i, e_{i+1})``, the last bin closed."""
-    n_bins = len(e) - 1
-    idx = np.searchsorted(e, values, side="right") - 1
-    idx = np.where(values == e[-1], n_bins - 1, idx)
-    idx = np.where(np.isnan(values) | (values < e[0]) | (values > e[-1]), -1, idx)
-    return idx[None, :] == np.arange(n_bins)[:, None]
-
-
-def _fmt_edge(x: float) -> str:
-    if math.isinf(x):
-        return "inf" if x > 0 else "-inf"
-    return f"{x:.4g}"
-
-
-def _bin_label(e: np.ndarray, i: int) -> str:
-    close = "]" if i == len(e) - 2 and math.isfinite(e[-1]) else ")"
-    return f"[{_fmt_edge(e[i])}, {_fmt_edge(e[i + 1])}{close}"
 
 
 def evaluate(
@@ -1126,8 +631,8 @@ def evaluate(
     >>> round(ev.stats[0], 6), round(ev.stats[1], 6)
     (1.0, 1.0)
     """
-    truth = _parse_truth(coco_gt, gt_name)
-    preds = _parse_predictions(predictions, pred_name, truth)
+    truth = parse_truth(coco_gt, gt_name)
+    preds = parse_predictions(predictions, pred_name, truth)
     return Evaluation(truth, preds, _build_problem(truth, preds))
 
 
@@ -1157,31 +662,6 @@ def read_ground_truth(path) -> tuple[dict, Path]:
     return data, path
 
 
-def parse_slice_spec(spec: str) -> tuple[str, tuple[float, ...] | None]:
-    """Parse ``FACT`` or ``FACT:E0,E1,...`` into a fact and optional edges.
-
-    Examples
-    --------
-    >>> parse_slice_spec("size:0,16,32,inf")
-    ('size', (0.0, 16.0, 32.0, inf))
-    >>> parse_slice_spec("kind")
-    ('kind', None)
-    """
-    fact, sep, rest = spec.partition(":")
-    fact = fact.strip()
-    if not fact:
-        raise UserError(f"slice '{spec}' must be FACT or FACT:E0,E1,... (no fact named)")
-    if not sep:
-        return fact, None
-    try:
-        edges = tuple(float(x) for x in rest.split(","))
-    except ValueError:
-        raise UserError(f"slice '{spec}': bin edges must be numbers separated by commas (got '{rest}')") from None
-    if len(edges) < 2 or any(math.isnan(x) for x in edges) or any(b <= a for a, b in zip(edges, edges[1:])):
-        raise UserError(f"slice '{spec}': bin edges must be at least two strictly increasing numbers (got '{rest}')")
-    return fact, edges
-
-
 def score_files(dataset, predictions, by: Sequence[str] = ()) -> tuple[Evaluation, dict[str, list[BinResult]]]:
     """Score a predictions file against a dataset, with slices.
 
@@ -1206,95 +686,3 @@ def score_files(dataset, predictions, by: Sequence[str] = ()) -> tuple[Evaluatio
         fact, edges = parse_slice_spec(spec)
         slices[fact] = ev.slice_by(fact, edges)
     return ev, slices
-
-
-@dataclass(frozen=True, slots=True)
-class SweepPoint:
-    """One subset of a sweep: where it is, its varied values, and its scores."""
-
-    subset: str
-    values: dict
-    evaluation: Evaluation
-    slices: dict
-
-    @property
-    def label(self) -> str:
-        """``key=value`` pairs of the varied keys, comma-separated."""
-        return ", ".join(f"{k}={_json_text(v)}" for k, v in self.values.items())
-
-    def to_dict(self) -> dict:
-        """Plain JSON-able dictionary."""
-        return {"subset": self.subset, "values": self.values, **self.evaluation.to_dict(self.slices)}
-
-
-def _json_text(v) -> str:
-    import orjson
-
-    return v if isinstance(v, str) else orjson.dumps(v).decode()
-
-
-def _parse_value(text: str):
-    import orjson
-
-    try:
-        return orjson.loads(text)
-    except orjson.JSONDecodeError:
-        return text
-
-
-def _sweep_order(point: SweepPoint):
-    def key(v):
-        if isinstance(v, (int, float)) and not isinstance(v, bool):
-            return (0, (float(v),), "")
-        if isinstance(v, list) and all(isinstance(x, (int, float)) and not isinstance(x, bool) for x in v):
-            return (0, tuple(float(x) for x in v), "")
-        return (1, (), _json_text(v))
-
-    return tuple(key(v) for v in point.values.values()) + (point.subset,)
-
-
-def score_sweep(sweep_dir, pred_dir, by: Sequence[str] = ()) -> list[SweepPoint]:
-    """Score every subset of a sweep against its own predictions file.
-
-    Parameters
-    ----------
-    sweep_dir : path-like
-        A sweep: subset datasets in directories named ``KEY=VALUE`` (nested
-        for several varied keys), each with its ``annotations.json``.
-    pred_dir : path-like
-        One COCO results file per subset at the same relative path plus
-        ``.json``: subset ``SWEEP/objects.size=[4, 8]`` reads
-        ``PRED_DIR/objects.size=[4, 8].json``.
-    by : sequence of str
-        Slice specs, applied to every subset.
-
-    Returns
-    -------
-    list of SweepPoint
-        Ordered by the varied values (numbers and number lists numerically).
-
-    Raises
-    ------
-    InputFileError
-        When the sweep has no subsets or a subset's predictions file is missing.
-    """
-    sweep_dir, pred_dir = Path(sweep_dir), Path(pred_dir)
-    if not sweep_dir.is_dir():
-        raise InputFileError(sweep_dir, "must be a sweep directory of subset datasets")
-    subsets = sorted(p.parent for p in sweep_dir.rglob(ANNOTATIONS) if p.parent != sweep_dir)
-    if not subsets:
-        raise InputFileError(sweep_dir, "holds no subset directories KEY=VALUE with an annotations.json")
-    points = []
-    for sub in subsets:
-        rel = sub.relative_to(sweep_dir)
-        values = {}
-        for part in rel.parts:
-            key, sep, text = part.partition("=")
-            if sep:
-                values[key] = _parse_value(text)
-        pred = pred_dir / (str(rel) + ".json")
-        if not pred.is_file():
-            raise InputFileError(pred, f"predictions for sweep subset '{rel}' are missing (expected this file)")
-        ev, slices = score_files(sub, pred, by)
-        points.append(SweepPoint(subset=str(rel), values=values, evaluation=ev, slices=slices))
-    return sorted(points, key=_sweep_order)

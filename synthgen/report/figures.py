@@ -13,7 +13,7 @@ from pathlib import Path
 
 from synthgen._io import write_atomic
 from synthgen.errors import InputFileError, UserError, require_extra
-from synthgen.evaluate.cocoeval import STAT_NAMES, BinResult, Evaluation, SweepPoint
+from synthgen.evaluate import STAT_NAMES, BinResult, Evaluation, SweepPoint
 
 __all__ = [
     "PANEL_PX",
