@@ -19,9 +19,9 @@ from synthgen.errors import InputFileError, UserError  # noqa: E402
 from synthgen.evaluate.cocoeval import (  # noqa: E402
     IOU_THRESHOLDS,
     STAT_NAMES,
-    _coco_iou,
     evaluate,
 )
+from synthgen.evaluate.match import coco_iou  # noqa: E402
 from synthgen.evaluate.slices import parse_slice_spec  # noqa: E402
 
 N_RANDOM = 400  # random cases compared with pycocotools in the main equality test
@@ -109,7 +109,7 @@ def test_pair_iou_equals_pycocotools_mask_iou_bitwise():
     crowd = rng.random(40) < 0.3
     ref = mask_utils.iou(d.tolist(), g.tolist(), crowd.astype(np.uint8).tolist())  # reference: pycocotools
     di, gi = np.meshgrid(np.arange(60), np.arange(40), indexing="ij")
-    ours = _coco_iou(d[di.ravel()], g[gi.ravel()], crowd[gi.ravel()]).reshape(60, 40)
+    ours = coco_iou(d[di.ravel()], g[gi.ravel()], crowd[gi.ravel()]).reshape(60, 40)
     assert np.array_equal(ours, ref)
 
 
