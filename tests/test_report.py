@@ -202,6 +202,23 @@ def test_classify_names_each_kind_of_prediction():
     assert missed == {2, 3}
 
 
+def test_classify_keeps_every_prediction_past_the_hundred_the_coco_metrics_keep():
+    """The error kinds use the COCO matcher but classify every prediction, not only the 100 best per image and class.
+
+    pycocotools keeps maxDets[-1] = 100 detections per image and category for its metrics (REFERENCE.md:
+    COCO-style AP); a contact sheet still has to say what the 101st box is.
+    """
+    n = 101
+    x = 20.0 * np.arange(n)
+    gt = {"annotations": [{"id": i + 1, "image_id": 1, "category_id": 1, "bbox": [float(x[i]), 0.0, 10.0, 10.0]}
+                          for i in range(n)]}
+    boxes = np.c_[x, np.zeros(n), x + 10, np.full(n, 10.0)]
+    p = report.Predictions(boxes, np.ones(n, int), np.ones(n, int), np.linspace(1.0, 0.5, n), ("",) * n)
+    out, missed = report.classify_predictions(gt, p)
+    assert out.kind == ("true_positive",) * n
+    assert missed == frozenset()
+
+
 def test_classify_calls_predictions_on_ignore_regions_ignored_as_pycocotools_does():
     """With ignore regions (iscrowd 1), true positives and ignored predictions are those pycocotools finds at IoU 0.5.
 

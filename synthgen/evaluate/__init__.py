@@ -5,7 +5,7 @@ The entry points are importable from here::
     from synthgen.evaluate import evaluate, read_ground_truth, read_predictions, score_files, score_sweep
 """
 
-from synthgen.evaluate.classify import Confusion
+from synthgen.evaluate.classify import Confusion, Predictions, classify_predictions
 from synthgen.evaluate.cocoeval import (
     IOU_THRESHOLDS,
     MAX_DETS,
@@ -27,6 +27,8 @@ __all__ = [
     "BinResult",
     "CategoryResult",
     "Confusion",
+    "Predictions",
+    "classify_predictions",
     "Evaluation",
     "SweepPoint",
     "evaluate",

@@ -51,7 +51,8 @@ Prediction kinds
 ~~~~~~~~~~~~~~~~
 A prediction is one of :data:`PREDICTION_KINDS`.  With a truth sidecar written
 by ``synthgen jitter`` the kind is read from it (:func:`read_truth_sidecar`);
-otherwise :func:`classify_predictions` decides by a greedy match at IoU 0.5.
+otherwise :func:`classify_predictions` decides by COCO's greedy match at IoU 0.5 (the matcher of
+:mod:`synthgen.evaluate`).
 
 Ignore regions (annotations with ``iscrowd`` 1) are drawn solid in grey, not
 in their category's colour, and are left out of the object counts, the zoom
@@ -79,12 +80,13 @@ from pathlib import Path
 import numpy as np
 
 from synthgen._io import write_atomic
-from synthgen.errors import InputFileError, UserError, is_int, require_extra
+from synthgen.errors import InputFileError, UserError, require_extra
+from synthgen.evaluate.classify import Predictions, classify_predictions, truth_arrays
+from synthgen.evaluate.classify import read_prediction_boxes as read_predictions
 from synthgen.formats.coco import AREA_RANGES
 from synthgen.formats.dataset_dir import ANNOTATIONS, MANIFEST
 from synthgen.formats.results import PREDICTION_KINDS, TruthSidecar, read_truth_sidecar
-from synthgen.formats.results import read_predictions as read_prediction_records
-from synthgen.geometry import as_boxes, box_longer_side, box_relations, pairwise_ioa, pairwise_iou
+from synthgen.geometry import as_boxes, box_longer_side, box_relations
 
 __all__ = [
     "CATEGORY_COLOURS",
@@ -259,164 +261,9 @@ def _load_image(ds: Dataset, image: Mapping) -> np.ndarray:
     return arr
 
 
-@dataclass(frozen=True, slots=True)
-class Predictions:
-    """Predicted boxes and what each one is.
-
-    Attributes
-    ----------
-    boxes : ndarray of float64, shape (P, 4)
-        xyxy in pixels.
-    image_id, category_id : ndarray of int64, shape (P,)
-    score : ndarray of float64, shape (P,)
-        1.0 where the file gives none.
-    kind : tuple of str, length P
-        One of :data:`PREDICTION_KINDS`, or ``""`` until classified.
-    """
-
-    boxes: np.ndarray
-    image_id: np.ndarray
-    category_id: np.ndarray
-    score: np.ndarray
-    kind: tuple[str, ...]
-
-    def __len__(self) -> int:
-        return len(self.boxes)
-
-    def with_kinds(self, kinds: Sequence[str]) -> Predictions:
-        """The same predictions with ``kind`` replaced (one name per prediction)."""
-        if len(kinds) != len(self):
-            raise ValueError(f"'kinds' must have one entry per prediction ({len(self)}), got {len(kinds)}")
-        return Predictions(self.boxes, self.image_id, self.category_id, self.score, tuple(kinds))
-
 
 def _num(v) -> bool:
     return isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v)
-
-
-def read_predictions(path) -> Predictions:
-    """Read a COCO results file: a JSON array of ``{image_id, category_id, bbox, score}``.
-
-    Raises
-    ------
-    synthgen.errors.InputFileError
-        Naming the file and the first bad record.
-    """
-    from synthgen.formats.coco import xyxy_from_bbox
-
-    path = Path(path)
-    data = read_prediction_records(path)
-    for i, r in enumerate(data):
-        if not isinstance(r, dict):
-            raise InputFileError(path, f"record {i} must be an object (got {type(r).__name__})")
-        for key in ("image_id", "category_id"):
-            if not is_int(r.get(key)):
-                got = r.get(key, "<missing>")
-                raise InputFileError(path, f"record {i}: '{key}' must be an integer (got {got!r})")
-        b = r.get("bbox")
-        if not (isinstance(b, list) and len(b) == 4 and all(_num(v) for v in b) and b[2] >= 0 and b[3] >= 0):
-            rule = "'bbox' must be 4 finite numbers [x, y, w, h] with w, h >= 0"
-            raise InputFileError(path, f"record {i}: {rule} (got {b!r})")
-        if "score" in r and not _num(r["score"]):
-            raise InputFileError(path, f"record {i}: 'score' must be a finite number (got {r['score']!r})")
-    n = len(data)
-    return Predictions(
-        boxes=xyxy_from_bbox([r["bbox"] for r in data]) if n else np.zeros((0, 4)),
-        image_id=np.array([r["image_id"] for r in data], dtype=np.int64),
-        category_id=np.array([r["category_id"] for r in data], dtype=np.int64),
-        score=np.array([float(r.get("score", 1.0)) for r in data], dtype=np.float64),
-        kind=("",) * n,
-    )
-
-
-
-
-def _truth_arrays(coco: Mapping):
-    """Ground truth as arrays: boxes (N, 4) xyxy, image ids, category ids, crowd flags, records."""
-    from synthgen.formats.coco import xyxy_from_bbox
-
-    anns = list(coco.get("annotations", []))
-    boxes = xyxy_from_bbox([a["bbox"] for a in anns]) if anns else np.zeros((0, 4))
-    img = np.array([a["image_id"] for a in anns], dtype=np.int64)
-    cat = np.array([a["category_id"] for a in anns], dtype=np.int64)
-    crowd = np.array([bool(a.get("iscrowd", 0)) for a in anns], dtype=bool)
-    return boxes, img, cat, crowd, anns
-
-
-def classify_predictions(coco: Mapping, preds: Predictions, *, iou: float = 0.5, near: float = 0.1):
-    """Say what each prediction is by a greedy match to the ground truth.
-
-    Per image, predictions are taken in descending score (ties keep the file's
-    order, as the COCO evaluation does; REFERENCE.md: COCO-style AP).  Each
-    takes the free ground truth of its own class with the highest IoU
-    ``>= iou`` (among equal IoUs the later annotation, as pycocotools does)
-    and is a ``true_positive``; otherwise it is ``ignored`` when an ignore
-    region (``iscrowd`` 1) of its class covers at least ``iou`` of its own box
-    area (COCO's overlap with a crowd region; the COCO evaluation counts such a
-    detection neither way), a ``duplicate`` when a taken box of its class has
-    IoU ``>= iou``, ``wrong_class`` when a box of another class has IoU
-    ``>= iou``, ``localization`` when a box of its class has IoU in ``[near,
-    iou)``, and ``background`` otherwise.  There is no cap on detections per
-    image.
-
-    Parameters
-    ----------
-    coco : dict
-        COCO ground truth.
-    preds : Predictions
-    iou, near : float
-        Match threshold and the lowest IoU still counted as a localization error.
-
-    Returns
-    -------
-    kinds : Predictions
-        ``preds`` with ``kind`` filled in.
-    missed : frozenset of int
-        Ids of the non-crowd annotations no true positive matched.
-
-    Examples
-    --------
-    >>> gt = {"annotations": [{"image_id": 1, "category_id": 1, "bbox": [0, 0, 10, 10]}]}
-    >>> p = Predictions(np.array([[0., 0, 10, 10], [1, 0, 11, 10], [50, 50, 60, 60]]),
-    ...                 np.array([1, 1, 1]), np.array([1, 1, 1]), np.array([.9, .8, .7]), ("",) * 3)
-    >>> classify_predictions(gt, p)[0].kind
-    ('true_positive', 'duplicate', 'background')
-    """
-    gt_boxes, gt_img, gt_cat, crowd, anns = _truth_arrays(coco)
-    kinds = [""] * len(preds)
-    matched = np.zeros(len(gt_boxes), dtype=bool)
-    usable = ~crowd
-    for image_id in np.unique(preds.image_id):
-        p_idx = np.flatnonzero(preds.image_id == image_id)
-        p_idx = p_idx[np.argsort(-preds.score[p_idx], kind="stable")]
-        g_idx = np.flatnonzero((gt_img == image_id) & usable)
-        c_idx = np.flatnonzero((gt_img == image_id) & crowd)
-        ious = pairwise_iou(preds.boxes[p_idx], gt_boxes[g_idx])  # (P_i, G_i)
-        on_crowd = pairwise_ioa(preds.boxes[p_idx], gt_boxes[c_idx]) >= iou  # (P_i, C_i)
-        taken = np.zeros(len(g_idx), dtype=bool)
-        for row, p in enumerate(p_idx):
-            same = gt_cat[g_idx] == preds.category_id[p]
-            v = ious[row]
-            free = same & ~taken & (v >= iou)
-            if free.any():
-                score = np.where(free, v, -1.0)[::-1]
-                best = len(score) - 1 - int(np.argmax(score))  # the last of equal IoUs
-                taken[best] = True
-                kinds[p] = "true_positive"
-            elif (on_crowd[row] & (gt_cat[c_idx] == preds.category_id[p])).any():
-                kinds[p] = "ignored"
-            elif (same & (v >= iou)).any():
-                kinds[p] = "duplicate"
-            elif (~same & (v >= iou)).any():
-                kinds[p] = "wrong_class"
-            elif (same & (v >= near)).any():
-                kinds[p] = "localization"
-            else:
-                kinds[p] = "background"
-        matched[g_idx[taken]] = True
-    out = preds.with_kinds(kinds)
-    missed = frozenset(a.get("id") for a, m, c in zip(anns, matched, crowd) if not m and not c)
-    return out, missed
 
 
 # --------------------------------------------------------------------------- drawing boxes
@@ -709,7 +556,7 @@ class _Overlay:
 
     @classmethod
     def build(cls, coco: Mapping, predictions: Predictions | None, missed=None) -> _Overlay:
-        boxes, img, cat, crowd, anns = _truth_arrays(coco)
+        boxes, img, cat, crowd, anns = truth_arrays(coco)
         cats = sorted(coco.get("categories", []), key=lambda c: c["id"])
         order = {c["id"]: i for i, c in enumerate(cats)}
         colours = np.array([_MUTED if is_crowd else _category_colour(order.get(int(c), len(order)))
@@ -1061,7 +908,7 @@ def _objects_per_image(image_ids: np.ndarray, ann_image_ids: np.ndarray) -> np.n
 
 def _object_facts(coco: Mapping) -> dict:
     """Per-object arrays the statistics and figures are built from (objects only; ``crowd`` counts the ignore regions)."""
-    boxes, img, cat, crowd, anns = _truth_arrays(coco)
+    boxes, img, cat, crowd, anns = truth_arrays(coco)
     keep = ~crowd
     n_crowd = int(crowd.sum())
     boxes, img, cat = boxes[keep], img[keep], cat[keep]
