@@ -1,9 +1,7 @@
-"""What people look at: contact sheets of a dataset (with predictions), dataset statistics, score figures."""
+"""What people look at: contact sheets (sheet, draw), dataset statistics (stats), score tables and figures (figures)."""
 
+from synthgen.report.draw import CATEGORY_COLOURS, PREDICTION_COLOURS, draw_boxes, outline_pixels
 from synthgen.report.sheet import (
-    CATEGORY_COLOURS,
-    COCO_AREA_RANGES,
-    PREDICTION_COLOURS,
     PREDICTION_KINDS,
     Dataset,
     Placement,
@@ -13,18 +11,12 @@ from synthgen.report.sheet import (
     auto_scale,
     classify_predictions,
     contact_sheet,
-    dataset_stats,
-    draw_boxes,
     open_dataset,
-    outline_pixels,
     read_predictions,
     read_truth_sidecar,
-    save_figure,
-    save_json,
     save_png,
-    stats_figure,
-    stats_tables,
 )
+from synthgen.report.stats import COCO_AREA_RANGES, dataset_stats, save_figure, save_json, stats_figure, stats_tables
 
 __all__ = [
     "CATEGORY_COLOURS",

@@ -1,4 +1,4 @@
-"""Pictures and tables for people: contact sheets of a dataset and its statistics.
+"""Contact sheets: a dataset's images in a grid with their boxes, predictions and enlarged crops.
 
 Contact sheets
 --------------
@@ -6,46 +6,8 @@ Contact sheets
 annotated boxes on top, the image id under each tile, a legend, optionally
 predictions (dashed, coloured by what each one is) and enlarged crops of the
 smallest objects.  It returns a :class:`Sheet`: the ``(H, W, 3)`` uint8 pixels
-and where each tile sits; :func:`save_png` writes the pixels.
-
-How a box is drawn
-~~~~~~~~~~~~~~~~~~
-Boxes are half-open in continuous image coordinates (see
-:mod:`synthgen.geometry`): a box from ``x0`` to ``x1`` covers the pixel columns
-``x0 .. x1 - 1``.  Its outline is one pixel thick and lies on the pixels *just
-inside* the box: in a tile drawn at scale ``s`` the outline's columns are
-``floor(s * x0)`` and ``ceil(s * x1) - 1``, its rows ``floor(s * y0)`` and
-``ceil(s * y1) - 1`` (:func:`outline_pixels`).  So box ``[2, 3, 7, 9]`` at scale
-1 colours columns 2..6 on rows 3 and 8 and rows 3..8 on columns 2 and 6, and
-nothing outside the box takes the box's colour.  Edges that fall outside a tile
-are not drawn (they would suggest an edge that is not there).  To keep a light
-outline visible on a light image, the ring of pixels just *outside* each
-outline is darkened (a halo, :func:`draw_boxes`); predictions are dashed, 4
-pixels on and 3 off, with the halo beside the dashes only.
-
-Colours
-~~~~~~~
-:data:`CATEGORY_COLOURS` were chosen for this module by a max-min search (greedy
-start, then swapping one colour at a time, from several random starts) over
-sRGB colours on a 17-step grid with lightness 55 to 92 and chroma at least 40
-(so that they show on dark and mid-tone images): the smallest CIEDE2000
-difference of any pair, as seen with normal colour vision and as simulated for
-protanopia, deuteranopia and tritanopia, is as large as possible (14.4), under
-the constraint that every two colours differ in CIELAB hue angle by at least
-30 degrees.  The constraint is for 1-pixel outlines: on a line that thin,
-colours that differ mostly in lightness or chroma (a mint and a green, a
-magenta and a pink) look alike, and hue is what tells them apart.  Colours go
-to a sheet's categories in order, so the palette is ordered farthest-first
-(each colour the farthest from those before it): any first few are as far apart
-as the palette allows (the first four: 15.7 units, 71 degrees), and with all
-seven shape kinds the ones easy to confuse by outline get far-apart hues
-(triangle and star 105 degrees, polygon and cross 147, ellipse and ring
-106).  :data:`PREDICTION_COLOURS` (white
-for a true positive, then four hues) were picked by hand and checked the same
-way.  ``tests/test_report.py`` checks that every pair of categories stays at
-least 14 CIEDE2000 units and 30 degrees of hue apart (predictions: 12 units).
-Categories beyond the palette's length reuse colours in order; the legend says
-which is which.
+and where each tile sits; :func:`save_png` writes the pixels.  How boxes are drawn and coloured is told
+in :mod:`synthgen.report.draw`.
 
 Prediction kinds
 ~~~~~~~~~~~~~~~~
@@ -56,16 +18,7 @@ otherwise :func:`classify_predictions` decides by COCO's greedy match at IoU 0.5
 
 Ignore regions (annotations with ``iscrowd`` 1) are drawn solid in grey, not
 in their category's colour, and are left out of the object counts, the zoom
-crops and the statistics.
-
-Statistics
-----------
-:func:`dataset_stats` summarises a COCO dict as plain JSON-ready values,
-:func:`stats_tables` renders them with rich, :func:`stats_figure` draws the
-histograms (matplotlib, Agg, no pyplot state).  Facts that only synthgen records
-(visible fraction, truncation, settings) are skipped with a note when a file
-from another tool lacks them; the max IoU with neighbours is computed from the
-annotated boxes, so it is always available.
+crops and the statistics (:mod:`synthgen.report.stats`).
 """
 
 from __future__ import annotations
@@ -80,19 +33,16 @@ from pathlib import Path
 import numpy as np
 
 from synthgen._io import write_atomic
-from synthgen.errors import InputFileError, UserError, require_extra
+from synthgen.errors import InputFileError, UserError
 from synthgen.evaluate.classify import Predictions, classify_predictions, truth_arrays
 from synthgen.evaluate.classify import read_prediction_boxes as read_predictions
-from synthgen.formats.coco import AREA_RANGES
 from synthgen.formats.dataset_dir import ANNOTATIONS, MANIFEST
 from synthgen.formats.results import PREDICTION_KINDS, TruthSidecar, read_truth_sidecar
-from synthgen.geometry import as_boxes, box_longer_side, box_relations
+from synthgen.geometry import box_longer_side
+from synthgen.report.draw import CATEGORY_COLOURS, DASH, PREDICTION_COLOURS, category_colour, draw_boxes
 
 __all__ = [
-    "CATEGORY_COLOURS",
-    "PREDICTION_COLOURS",
     "PREDICTION_KINDS",
-    "COCO_AREA_RANGES",
     "Dataset",
     "Predictions",
     "open_dataset",
@@ -100,41 +50,13 @@ __all__ = [
     "read_truth_sidecar",
     "TruthSidecar",
     "classify_predictions",
-    "outline_pixels",
-    "draw_boxes",
     "auto_scale",
     "Placement",
     "Sheet",
     "contact_sheet",
-    "dataset_stats",
-    "stats_tables",
-    "stats_figure",
     "save_png",
-    "save_figure",
-    "save_json",
 ]
 
-#: Category outline colours, RGB (see the module docstring for how they were chosen).
-CATEGORY_COLOURS: tuple[tuple[int, int, int], ...] = (
-    (68, 170, 255),  # sky blue (hue 267 in CIELAB)
-    (255, 51, 0),  # vermilion (43)
-    (221, 238, 153),  # pale lime (115)
-    (0, 255, 238),  # cyan (186)
-    (255, 153, 170),  # rose pink (10)
-    (51, 153, 85),  # leaf green (148)
-    (187, 102, 170),  # mauve (333)
-)
-
-
-#: Prediction outline colours by kind, RGB; drawn dashed.
-PREDICTION_COLOURS: dict[str, tuple[int, int, int]] = {
-    "true_positive": (255, 255, 255),  # white
-    "duplicate": (255, 150, 0),  # orange
-    "localization": (0, 170, 255),  # azure
-    "wrong_class": (255, 40, 120),  # rose
-    "background": (140, 80, 230),  # violet
-    "ignored": (185, 185, 185),  # light grey, like the ignore regions
-}
 
 _KIND_LABELS = {
     "true_positive": "true positive",
@@ -145,12 +67,6 @@ _KIND_LABELS = {
     "ignored": "on an ignore region",
 }
 
-#: COCO size ranges by the ground truth's ``area`` in px^2, both ends inclusive
-#: (REFERENCE.md: COCO-style AP).
-COCO_AREA_RANGES = tuple(r for r in AREA_RANGES if r[0] != "all")
-
-_EPS = 1e-6  # px: float noise in x + w must not move an outline onto the next pixel
-_DASH = (4, 3)  # on, off pixels along a prediction's outline
 _SHEET_BG = (30, 32, 36)
 _TEXT = (225, 228, 232)
 _MUTED = (150, 155, 162)
@@ -264,151 +180,6 @@ def _load_image(ds: Dataset, image: Mapping) -> np.ndarray:
 
 def _num(v) -> bool:
     return isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v)
-
-
-# --------------------------------------------------------------------------- drawing boxes
-
-
-def outline_pixels(boxes, sx: float = 1.0, sy: float | None = None, ox: float = 0.0, oy: float = 0.0) -> np.ndarray:
-    """Pixel rows and columns of the one-pixel outlines of boxes drawn at a scale.
-
-    A box maps to tile coordinates ``X = (x - ox) * sx``, ``Y = (y - oy) * sy``;
-    its outline lies on the pixels just inside the half-open mapped box (see
-    :mod:`synthgen.geometry` and this module's docstring).
-
-    Parameters
-    ----------
-    boxes : array_like of shape (N, 4)
-        xyxy in image pixels.
-    sx, sy : float
-        Tile pixels per image pixel along x and y (``sy`` defaults to ``sx``).
-    ox, oy : float
-        Image coordinates of the tile's top-left corner.
-
-    Returns
-    -------
-    ndarray of int64, shape (N, 4)
-        ``(c0, r0, c1, r1)``: the outline's left and right columns ``c0, c1``
-        and top and bottom rows ``r0, r1``, inclusive; ``c1 >= c0`` and
-        ``r1 >= r0``, so a box thinner than a pixel still shows.
-
-    Examples
-    --------
-    >>> outline_pixels([[2, 3, 7, 9]]).tolist()
-    [[2, 3, 6, 8]]
-    >>> outline_pixels([[2, 3, 7, 9]], 2.0).tolist()
-    [[4, 6, 13, 17]]
-    >>> outline_pixels([[2.5, 3.2, 2.7, 3.4]]).tolist()
-    [[2, 3, 2, 3]]
-    """
-    sy = sx if sy is None else sy
-    b = as_boxes(boxes)
-    x0 = np.floor((b[:, 0] - ox) * sx + _EPS)
-    y0 = np.floor((b[:, 1] - oy) * sy + _EPS)
-    x1 = np.maximum(np.ceil((b[:, 2] - ox) * sx - _EPS) - 1, x0)
-    y1 = np.maximum(np.ceil((b[:, 3] - oy) * sy - _EPS) - 1, y0)
-    return np.stack([x0, y0, x1, y1], axis=1).astype(np.int64)
-
-
-def _perimeter(c0: int, r0: int, c1: int, r1: int) -> tuple[np.ndarray, np.ndarray]:
-    """Rows and columns of a rectangle's outline, clockwise from the top-left pixel, each pixel once."""
-    top_c = np.arange(c0, c1 + 1)
-    right_r = np.arange(r0 + 1, r1 + 1)
-    bottom_c = np.arange(c1 - 1, c0 - 1, -1) if r1 > r0 else np.zeros(0, dtype=np.int64)
-    left_r = np.arange(r1 - 1, r0, -1) if c1 > c0 else np.zeros(0, dtype=np.int64)
-    rows = np.concatenate([np.full(top_c.size, r0), right_r, np.full(bottom_c.size, r1), left_r])
-    cols = np.concatenate([top_c, np.full(right_r.size, c1), bottom_c, np.full(left_r.size, c0)])
-    return rows.astype(np.int64), cols.astype(np.int64)
-
-
-def draw_boxes(
-    image: np.ndarray,
-    boxes,
-    colours,
-    *,
-    sx: float = 1.0,
-    sy: float | None = None,
-    ox: float = 0.0,
-    oy: float = 0.0,
-    dashed=False,
-    halo: float | None = 0.45,
-) -> np.ndarray:
-    """Draw one-pixel box outlines on a copy of an image.
-
-    Parameters
-    ----------
-    image : ndarray of shape (H, W, 3), uint8
-        The tile to draw on (already scaled).
-    boxes : array_like of shape (N, 4)
-        xyxy in image pixels, mapped to the tile as in :func:`outline_pixels`.
-    colours : array_like of shape (N, 3) or (3,)
-        RGB per box, or one for all.
-    sx, sy, ox, oy : float
-        Scale and origin, as in :func:`outline_pixels`.
-    dashed : bool or array_like of bool, shape (N,)
-        Draw 4 pixels on, 3 off along an outline (clockwise from its top-left
-        pixel) instead of a solid line; the halo then lies only beside the dashes.
-    halo : float or None
-        Multiply the ring of pixels just *outside* each outline by this factor
-        (darkening it) so that a light outline stays visible on a light
-        image; the box's own pixels are never touched by it.  None: no halo.
-        All halos are drawn before any outline, so a halo never hides another
-        box's outline.
-
-    Returns
-    -------
-    ndarray of shape (H, W, 3), uint8
-        A new array.  Edges outside the tile are left out.
-    """
-    out = np.array(image, dtype=np.uint8, copy=True)
-    b = as_boxes(boxes)
-    if len(b) == 0:
-        return out
-    rgb = np.asarray(colours, dtype=np.uint8)
-    if rgb.ndim == 1:
-        rgb = np.broadcast_to(rgb, (len(b), 3))
-    dash = np.broadcast_to(np.asarray(dashed, dtype=bool), (len(b),))
-    h, w = out.shape[:2]
-    # A box reaching far beyond the tile (a wild prediction) is cut 2 px outside it: the same
-    # pixels are drawn, and the work stays the size of the tile.
-    syy = sx if sy is None else sy
-    b = b.copy()
-    b[:, 0::2] = np.clip(b[:, 0::2], ox - 2 / sx, ox + (w + 2) / sx)
-    b[:, 1::2] = np.clip(b[:, 1::2], oy - 2 / syy, oy + (h + 2) / syy)
-    px = outline_pixels(b, sx, sy, ox, oy)
-
-    def inside(rows, cols):
-        return (rows >= 0) & (rows < h) & (cols >= 0) & (cols < w)
-
-    # Outline pixels to colour, per box: solid, or every on-stretch of the dash pattern.
-    strokes = []
-    for c0, r0, c1, r1 in px:
-        rows, cols = _perimeter(int(c0), int(r0), int(c1), int(r1))
-        strokes.append((rows, cols))
-    if halo is not None:
-        dark = np.zeros((h, w), dtype=bool)
-        for (c0, r0, c1, r1), (rows, cols), d in zip(px, strokes, dash):
-            hr, hc = _perimeter(int(c0) - 1, int(r0) - 1, int(c1) + 1, int(r1) + 1)
-            if d:  # halo only beside the dashes, so the gaps stay open
-                on = (np.arange(rows.size) % sum(_DASH)) < _DASH[0]
-                near = np.zeros((int(r1 - r0) + 3, int(c1 - c0) + 3), dtype=bool)  # window around the ring
-                for dr, dc in ((-1, 0), (1, 0), (0, -1), (0, 1)):  # the ring pixel right beside each dash pixel
-                    near[rows[on] - r0 + 1 + dr, cols[on] - c0 + 1 + dc] = True
-                keep = near[hr - r0 + 1, hc - c0 + 1]
-                hr, hc = hr[keep], hc[keep]
-            k = inside(hr, hc)
-            dark[hr[k], hc[k]] = True
-        out[dark] = (out[dark] * halo).astype(np.uint8)
-    for (rows, cols), colour, d in zip(strokes, rgb, dash):
-        keep = inside(rows, cols)
-        if d:
-            keep &= (np.arange(rows.size) % sum(_DASH)) < _DASH[0]
-        out[rows[keep], cols[keep]] = colour
-    return out
-
-
-def _category_colour(index: int) -> tuple[int, int, int]:
-    return CATEGORY_COLOURS[index % len(CATEGORY_COLOURS)]
 
 
 # --------------------------------------------------------------------------- the sheet
@@ -559,7 +330,7 @@ class _Overlay:
         boxes, img, cat, crowd, anns = truth_arrays(coco)
         cats = sorted(coco.get("categories", []), key=lambda c: c["id"])
         order = {c["id"]: i for i, c in enumerate(cats)}
-        colours = np.array([_MUTED if is_crowd else _category_colour(order.get(int(c), len(order)))
+        colours = np.array([_MUTED if is_crowd else category_colour(order.get(int(c), len(order)))
                             for c, is_crowd in zip(cat, crowd)], dtype=np.uint8)
         box_area = (boxes[:, 2] - boxes[:, 0]) * (boxes[:, 3] - boxes[:, 1])
         area = np.array([float(a["area"]) if _num(a.get("area")) and a["area"] > 0 else b
@@ -721,7 +492,7 @@ def _draw_legend(draw, label: str, placed, top: int, left: int, fonts: _Fonts) -
     for x, y, name, rgb, dashed in placed:
         yy = top + y + fonts.px // 2 + 1
         for k in range(20):  # a line sample, dashed like the boxes it stands for
-            if not dashed or (k % sum(_DASH)) < _DASH[0]:
+            if not dashed or (k % sum(DASH)) < DASH[0]:
                 draw.rectangle([x + k, yy - 1, x + k, yy + 1], fill=tuple(int(v) for v in rgb))
         draw.text((x + 26, top + y), name, fill=_TEXT, font=fonts.text)
 
@@ -810,7 +581,7 @@ def contact_sheet(
     cats = sorted(ds.coco.get("categories", []), key=lambda c: c["id"])
     shown = np.isin(overlay.image_id, list(auto))
     present = set(overlay.category_id[shown & ~overlay.crowd].tolist())
-    cat_items = [(c["name"], _category_colour(i), False) for i, c in enumerate(cats) if c["id"] in present]
+    cat_items = [(c["name"], category_colour(i), False) for i, c in enumerate(cats) if c["id"] in present]
     if (shown & overlay.crowd).any():
         cat_items.append(("ignore region", _MUTED, False))
     truth_label = "truth (solid):" if predictions is not None else "categories:"
@@ -887,524 +658,6 @@ def contact_sheet(
     return Sheet(np.asarray(sheet), tuple(placed_tiles), tuple(placed_crops))
 
 
-# --------------------------------------------------------------------------- statistics
-
-
-def _quantiles(values: np.ndarray) -> dict:
-    v = np.asarray(values, dtype=np.float64)
-    if v.size == 0:
-        return {"n": 0}
-    q = np.quantile(v, [0.0, 0.25, 0.5, 0.75, 1.0])
-    return {"n": int(v.size), "min": float(q[0]), "p25": float(q[1]), "median": float(q[2]),
-            "p75": float(q[3]), "max": float(q[4]), "mean": float(v.mean())}
-
-
-def _objects_per_image(image_ids: np.ndarray, ann_image_ids: np.ndarray) -> np.ndarray:
-    """Annotations per image, in the order of ``image_ids`` (0 for an image without any), shape (I,)."""
-    ids, counts = np.unique(ann_image_ids, return_counts=True)
-    lookup = dict(zip(ids.tolist(), counts.tolist()))
-    return np.array([lookup.get(int(i), 0) for i in image_ids], dtype=np.int64)
-
-
-def _object_facts(coco: Mapping) -> dict:
-    """Per-object arrays the statistics and figures are built from (objects only; ``crowd`` counts the ignore regions)."""
-    boxes, img, cat, crowd, anns = truth_arrays(coco)
-    keep = ~crowd
-    n_crowd = int(crowd.sum())
-    boxes, img, cat = boxes[keep], img[keep], cat[keep]
-    anns = [a for a, k in zip(anns, keep.tolist()) if k]
-    wh = boxes[:, 2:] - boxes[:, :2]
-    longer = box_longer_side(boxes)
-    has_area = np.array([_num(a.get("area")) for a in anns], dtype=bool)
-    area = np.array([float(a["area"]) if h else 0.0 for a, h in zip(anns, has_area)])
-    if len(anns):
-        area = np.where(has_area, area, wh[:, 0] * wh[:, 1])
-    facts = [a.get("synthgen") if isinstance(a.get("synthgen"), dict) else {} for a in anns]
-    vis = np.array([f.get("visible_fraction", np.nan) if _num(f.get("visible_fraction")) else np.nan for f in facts])
-    trunc = [f.get("truncated") for f in facts]
-    trunc_known = np.array([isinstance(t, bool) for t in trunc], dtype=bool)
-    return {
-        "boxes": boxes, "image_id": img, "category_id": cat, "crowd": n_crowd,
-        "longer": longer, "area": area, "area_from_field": has_area,
-        "visible_fraction": vis,
-        "truncated": np.array([bool(t) for t in trunc], dtype=bool), "truncated_known": trunc_known,
-        "max_iou": box_relations(boxes, img)[0],
-    }
-
-
-def _settings(coco: Mapping, manifest: Mapping | None) -> tuple[dict, list[str]]:
-    """Clutter, degradation and background settings used, from the manifest and the image facts.
-
-    Image facts read (under ``image["synthgen"]``): ``background`` (a kind, or
-    an object with ``kind``), ``degradations`` (name -> parameters of each one
-    applied to the image), ``clutter`` (``marks``: marks drawn, and a count per
-    mark kind).  From the manifest: ``config.degrade`` (the degradations with
-    ``p > 0``), ``config.clutter``, ``config.background.kind``.
-    """
-    notes = []
-    out: dict = {}
-    images = coco.get("images", [])
-    facts = [im.get("synthgen") for im in images if isinstance(im.get("synthgen"), dict)]
-    if facts:
-        bg: Counter = Counter()
-        applied: Counter = Counter()
-        params: dict[str, dict[str, list[float]]] = {}
-        marks, mark_kinds = [], Counter()
-        for f in facts:
-            b = f.get("background")
-            kind = b.get("kind") if isinstance(b, dict) else b
-            if isinstance(kind, str):
-                bg[kind] += 1
-            d = f.get("degradations")
-            if isinstance(d, dict):
-                for name, v in d.items():
-                    if v in (None, False, [], {}) and not isinstance(v, dict):
-                        continue
-                    applied[name] += 1
-                    for key, x in (v.items() if isinstance(v, dict) else ()):
-                        if _num(x):
-                            params.setdefault(name, {}).setdefault(key, []).append(float(x))
-            elif isinstance(d, list):
-                applied.update(str(k) for k in d)
-            c = f.get("clutter")
-            if isinstance(c, dict):
-                n = c.get("marks", c.get("count"))
-                if _num(n):
-                    marks.append(n)
-                mark_kinds.update({k: int(v) for k, v in c.items() if k not in ("marks", "count") and _num(v)})
-        if bg:
-            out["backgrounds"] = dict(sorted(bg.items()))
-        out["degraded_images"] = dict(sorted(applied.items()))
-        ranges = {name: {k: [min(v), max(v)] for k, v in kv.items()} for name, kv in params.items()}
-        if ranges:
-            out["degradation_ranges"] = ranges
-        if marks:
-            out["clutter_marks_per_image"] = _quantiles(np.array(marks, dtype=float))
-            out["clutter_marks_by_kind"] = dict(sorted(mark_kinds.items()))
-    config = manifest.get("config") if isinstance(manifest, Mapping) else None
-    if isinstance(config, Mapping):
-        deg = config.get("degrade")
-        if isinstance(deg, Mapping):
-            on = {k: dict(v) for k, v in deg.items() if isinstance(v, Mapping) and _num(v.get("p")) and v["p"] > 0}
-            out["degrade_config"] = on
-        cl = config.get("clutter")
-        if isinstance(cl, Mapping):
-            out["clutter_config"] = dict(cl)
-        bgc = config.get("background")
-        if isinstance(bgc, Mapping) and isinstance(bgc.get("kind"), str):
-            out["background_config"] = bgc["kind"]
-    elif not facts:
-        notes.append("settings: no synthgen manifest or image facts; clutter and degradation settings unknown")
-    if (isinstance(config, Mapping) or facts) and "clutter_config" not in out and "clutter_marks_per_image" not in out:
-        notes.append("clutter: not recorded by the tool that made this dataset; skipped")
-    return out, notes
-
-
-def dataset_stats(coco: Mapping, manifest: Mapping | None = None) -> dict:
-    """Summary statistics of a COCO dataset, as JSON-ready values.
-
-    Parameters
-    ----------
-    coco : dict
-        COCO JSON (any tool's; synthgen's per-object facts are used when present).
-    manifest : dict, optional
-        synthgen's ``manifest.json``, for the settings used.
-
-    Returns
-    -------
-    dict
-        ``images``, ``objects``, ``ignore_regions`` (annotations with
-        ``iscrowd`` 1, left out of everything else), ``objects_per_image`` (min/median/max/mean),
-        ``per_category`` (id, name, count, in id order), ``size`` (quantiles of
-        the annotated box's longer side, px), ``area_ranges`` (COCO small /
-        medium / large counts by the ``area`` field, both ends inclusive, so an
-        area of exactly 1024 counts in small and medium), ``visible_fraction``,
-        ``max_iou`` (largest box IoU with another annotated object of the same
-        image, computed from the boxes), ``truncated``, ``settings``,
-        ``notes`` (what was skipped and why).  A quantity the file does not
-        record is ``None``.
-
-    Examples
-    --------
-    >>> coco = {"images": [{"id": 1, "width": 9, "height": 9}], "categories": [{"id": 1, "name": "a"}],
-    ...         "annotations": [{"id": 1, "image_id": 1, "category_id": 1, "bbox": [0, 0, 4, 2], "area": 8.0}]}
-    >>> s = dataset_stats(coco)
-    >>> s["objects"], s["size"]["max"], s["area_ranges"]["small"]
-    (1, 4.0, 1)
-    """
-    f = _object_facts(coco)
-    notes: list[str] = []
-    images = list(coco.get("images", []))
-    image_ids = np.array([im["id"] for im in images], dtype=np.int64)
-    per_image = _objects_per_image(image_ids, f["image_id"])
-    orphans = int(np.count_nonzero(~np.isin(f["image_id"], image_ids)))
-    if orphans:
-        notes.append(f"{orphans} annotations refer to image ids not in 'images'")
-    cats = sorted(coco.get("categories", []), key=lambda c: c["id"])
-    cat_counts = Counter(f["category_id"].tolist())
-    per_category = [{"id": c["id"], "name": c["name"], "count": int(cat_counts.get(c["id"], 0))} for c in cats]
-    unknown_cat = sum(v for k, v in cat_counts.items() if k not in {c["id"] for c in cats})
-    if unknown_cat:
-        notes.append(f"{unknown_cat} annotations have a category id not in 'categories'")
-
-    area = f["area"]
-    if len(area) and not f["area_from_field"].all():
-        notes.append(f"area: {int((~f['area_from_field']).sum())} annotations have no 'area'; their box w*h is used")
-    ranges = {name: int(np.count_nonzero((area >= lo) & (area <= hi))) for name, lo, hi in COCO_AREA_RANGES}
-    ranges["rule"] = (
-        "by the annotation's area (px^2): small [0, 32^2], medium [32^2, 96^2], large [96^2, inf), ends inclusive"
-    )
-
-    vis = f["visible_fraction"]
-    known = ~np.isnan(vis)
-    if len(vis) and known.any():
-        visible = _quantiles(vis[known]) | {
-            "fully_visible": float(np.mean(vis[known] >= 1.0)),
-            "below_half": float(np.mean(vis[known] < 0.5)),
-        }
-        if not known.all():
-            notes.append(f"visible fraction: recorded for {int(known.sum())} of {len(vis)} objects")
-    else:
-        visible = None
-        if len(vis):
-            notes.append("visible fraction: not recorded in this file (no synthgen facts); skipped")
-
-    tk = f["truncated_known"]
-    if len(tk) and tk.any():
-        truncated = {"count": int(f["truncated"][tk].sum()), "of": int(tk.sum()),
-                     "share": float(f["truncated"][tk].mean())}
-    else:
-        truncated = None
-        if len(tk):
-            notes.append("truncated: not recorded in this file (no synthgen facts); skipped")
-
-    mi = f["max_iou"]
-    max_iou = None
-    if len(mi):
-        max_iou = _quantiles(mi) | {
-            "overlapping": float(np.mean(mi > 0)),
-            "source": "computed from the annotated boxes",
-        }
-    size = None
-    if len(f["longer"]):
-        size = _quantiles(f["longer"]) | {"measure": "longer side of the annotated box, px"}
-    if f["crowd"]:
-        notes.append(f"{f['crowd']} ignore regions (iscrowd 1) are left out of these statistics")
-
-    settings, more = _settings(coco, manifest)
-    notes.extend(more)
-    return {
-        "images": len(images),
-        "objects": int(len(f["boxes"])),
-        "ignore_regions": f["crowd"],
-        "objects_per_image": _quantiles(per_image) if len(per_image) else None,
-        "per_category": per_category,
-        "size": size,
-        "area_ranges": ranges,
-        "visible_fraction": visible,
-        "max_iou": max_iou,
-        "truncated": truncated,
-        "settings": settings,
-        "notes": notes,
-    }
-
-
-def _fmt(v, digits: int = 3) -> str:
-    if v is None:
-        return "-"
-    if isinstance(v, float):
-        if v.is_integer() and abs(v) < 1e9:
-            return str(int(v))
-        return f"{v:.{digits}g}"
-    return str(v)
-
-
-def stats_tables(stats: Mapping, title: str = "dataset"):
-    """Rich renderables for :func:`dataset_stats` output.
-
-    Tables: overview (counts and shares), distributions (quantiles per
-    quantity), COCO area ranges, objects per category, settings used; then the
-    notes on what was skipped.
-
-    Returns
-    -------
-    rich.console.Group
-    """
-    from rich.console import Group
-    from rich.markup import escape
-    from rich.table import Table
-    from rich.text import Text
-
-    def add(table, *cells):  # names and values from files may hold "[...]", which rich reads as markup
-        table.add_row(*(escape(str(c)) for c in cells))
-
-    n_obj = stats["objects"]
-    share = (lambda k: f"{100 * k / n_obj:.1f}%") if n_obj else (lambda k: "-")
-
-    overview = Table(title=escape(f"{title}: overview"), header_style="bold", title_justify="left")
-    overview.add_column("quantity")
-    overview.add_column("value", justify="right")
-    add(overview, "images", str(stats["images"]))
-    add(overview, "objects", str(n_obj))
-    if stats.get("ignore_regions"):
-        add(overview, "ignore regions (iscrowd 1)", str(stats["ignore_regions"]))
-    add(overview, "categories", str(len(stats["per_category"])))
-    vf, mi, tr = stats.get("visible_fraction"), stats.get("max_iou"), stats.get("truncated")
-    if vf:
-        add(overview, "fully visible", f"{100 * vf['fully_visible']:.1f}%")
-        add(overview, "less than half visible", f"{100 * vf['below_half']:.1f}%")
-    if tr:
-        add(overview, "truncated by the border", f"{100 * tr['share']:.1f}% ({tr['count']})")
-    if mi:
-        add(overview, "overlapping another box", f"{100 * mi['overlapping']:.1f}%")
-
-    dist = Table(title="distributions", header_style="bold", title_justify="left")
-    dist.add_column("quantity")
-    for col in ("min", "p25", "median", "p75", "max", "mean"):
-        dist.add_column(col, justify="right")
-    opi = stats.get("objects_per_image")
-    for label, q in (
-        ("objects per image", opi),
-        ("size, longer side (px)", stats.get("size")),
-        ("visible fraction", vf),
-        ("max IoU with another box", mi),
-    ):
-        if q and q.get("n"):
-            add(dist, label, *(_fmt(q[k]) for k in ("min", "p25", "median", "p75", "max", "mean")))
-
-    ar = stats["area_ranges"]
-    areas = Table(title="COCO area ranges (px², ends inclusive)", header_style="bold", title_justify="left")
-    areas.add_column("range")
-    areas.add_column("area", justify="right")
-    areas.add_column("objects", justify="right")
-    areas.add_column("share", justify="right")
-    for name, span in (("small", "0 .. 32²"), ("medium", "32² .. 96²"), ("large", "96² .. ∞")):
-        add(areas, name, span, str(ar[name]), share(ar[name]))
-
-    cats = Table(title="objects per category", header_style="bold", title_justify="left")
-    cats.add_column("id", justify="right")
-    cats.add_column("category")
-    cats.add_column("objects", justify="right")
-    cats.add_column("share", justify="right")
-    for c in stats["per_category"]:
-        add(cats, str(c["id"]), c["name"], str(c["count"]), share(c["count"]))
-
-    parts = [overview, dist, areas, cats]
-    st = stats.get("settings") or {}
-    if st:
-        t = Table(title="settings used", header_style="bold", title_justify="left")
-        t.add_column("setting")
-        t.add_column("value")
-        if "background_config" in st:
-            add(t, "background.kind (config)", st["background_config"])
-        if "backgrounds" in st:
-            add(t, "backgrounds drawn (images)", ", ".join(f"{k} {v}" for k, v in st["backgrounds"].items()))
-        if "degrade_config" in st:
-            on = st["degrade_config"]
-            text = "; ".join(
-                f"{k} p={_fmt(v.get('p'))}" + "".join(f" {kk}={_fmt_value(vv)}" for kk, vv in v.items() if kk != "p")
-                for k, v in on.items()
-            )
-            add(t, "degradations (config)", text or "none")
-        if "degraded_images" in st:
-            d, r = st["degraded_images"], st.get("degradation_ranges", {})
-
-            def applied(name, n):
-                spans = ", ".join(f"{k} {_fmt(lo)}..{_fmt(hi)}" for k, (lo, hi) in r.get(name, {}).items())
-                return f"{name} {n}" + (f" ({spans})" if spans else "")
-
-            add(t, "degradations applied (images)", "; ".join(applied(k, v) for k, v in d.items()) or "none")
-        if "clutter_config" in st:
-            add(t, "clutter (config)", ", ".join(f"{k}={_fmt_value(v)}" for k, v in st["clutter_config"].items()))
-        if "clutter_marks_per_image" in st:
-            q = st["clutter_marks_per_image"]
-            text = f"min {_fmt(q['min'])}, median {_fmt(q['median'])}, max {_fmt(q['max'])}"
-            add(t, "clutter marks per image", text)
-            kinds = st.get("clutter_marks_by_kind") or {}
-            if kinds:
-                add(t, "clutter marks by kind", ", ".join(f"{k} {v}" for k, v in kinds.items()))
-        parts.append(t)
-    for note in stats.get("notes", []):
-        parts.append(Text(f"note: {note}", style="dim"))
-    return Group(*parts)
-
-
-def _fmt_value(v) -> str:
-    if isinstance(v, (list, tuple)):
-        return "[" + ", ".join(_fmt_value(x) for x in v) + "]"
-    return _fmt(v)
-
-
-def stats_figure(coco: Mapping, *, width: float = 12.0, height: float = 7.0, title: str | None = None):
-    """Histograms of a dataset: size (log scale), objects per image, visible fraction, max IoU, categories.
-
-    Parameters
-    ----------
-    coco : dict
-        COCO JSON.
-    width, height : float
-        Figure size in inches; :func:`save_figure` writes ``width * dpi`` by
-        ``height * dpi`` pixels.
-    title : str, optional
-
-    Returns
-    -------
-    matplotlib.figure.Figure
-        Six panels (the sixth: COCO area ranges); a panel whose fact the file
-        does not record says so instead of plotting.
-    """
-    require_extra("matplotlib", "plots", "a figure")
-    from matplotlib.figure import Figure
-
-    f = _object_facts(coco)
-    images = list(coco.get("images", []))
-    fig = Figure(figsize=(width, height), layout="constrained")
-    axes = fig.subplots(2, 3)
-    if title:
-        fig.suptitle(title, fontsize=13)
-    blue, orange, green = "#3a6fd8", "#e07a10", "#2a9d6a"
-
-    # size, log scale, stacked by COCO area range
-    ax = axes[0, 0]
-    longer = f["longer"][f["longer"] > 0]
-    if longer.size:
-        lo, hi = longer.min(), longer.max()
-        if hi <= lo * 1.05:
-            lo, hi = lo / 1.2, hi * 1.2
-        edges = np.geomspace(lo, hi, 25)
-        area = f["area"][f["longer"] > 0]
-        groups = [longer[area <= 32**2], longer[(area > 32**2) & (area <= 96**2)], longer[area > 96**2]]
-        ax.hist(groups, bins=edges, stacked=True, color=[blue, orange, green],
-                label=["small: area ≤ 32²", "medium", "large: > 96²"], edgecolor="white", linewidth=0.4)
-        ax.set_xscale("log")
-        _pow2_ticks(ax, lo, hi)
-        ax.margins(y=0.25)
-        ax.legend(fontsize=7.5, frameon=False, ncol=3, loc="upper center", handlelength=1.0, columnspacing=1.0)
-        ax.yaxis.get_major_locator().set_params(integer=True)
-    else:
-        _empty(ax, "no objects")
-    ax.set_title("object size (longer side of box)")
-    ax.set_xlabel("px (log scale)")
-    ax.set_ylabel("objects")
-
-    # objects per image
-    ax = axes[0, 1]
-    image_ids = np.array([im["id"] for im in images], dtype=np.int64)
-    if image_ids.size:
-        per = _objects_per_image(image_ids, f["image_id"])
-        low, top = int(per.min()), int(per.max())
-        step = max(1, math.ceil((top - low + 1) / 40))  # whole-number bins, at most 40 of them
-        edges = np.arange(low, top + step + 1, step) - 0.5
-        ax.hist(per, bins=edges, color=blue, edgecolor="white", linewidth=0.4)
-        ax.set_xlim(edges[0] - (step if low > 0 else 0), edges[-1] + step)
-        ax.xaxis.get_major_locator().set_params(integer=True)
-        ax.yaxis.get_major_locator().set_params(integer=True)
-        ax.text(0.97, 0.95, f"min {per.min()} · median {np.median(per):g} · max {per.max()}",
-                transform=ax.transAxes, ha="right", va="top", fontsize=8, color="#555555")
-        ax.margins(y=0.15)
-    else:
-        _empty(ax, "no images")
-    ax.set_title("objects per image")
-    ax.set_xlabel("objects")
-    ax.set_ylabel("images")
-
-    # visible fraction
-    ax = axes[0, 2]
-    vis = f["visible_fraction"]
-    vis = vis[~np.isnan(vis)]
-    if vis.size:
-        counts_v, _, _ = ax.hist(vis, bins=np.linspace(0, 1, 21), color=blue, edgecolor="white", linewidth=0.4)
-        if counts_v.max() > 0.8 * vis.size and vis.size >= 20:  # one bin dominates: show the rest too
-            from matplotlib.ticker import FuncFormatter
-
-            ax.set_yscale("log")
-            ax.yaxis.set_major_formatter(FuncFormatter(lambda v, _: f"{v:g}"))
-            ax.set_ylabel("objects (log scale)")
-        else:
-            ax.yaxis.get_major_locator().set_params(integer=True)
-        ax.set_xlim(0, 1)
-        ax.text(0.03, 0.95, f"{int(np.count_nonzero(vis >= 1))} of {vis.size} fully visible",
-                transform=ax.transAxes, ha="left", va="top", fontsize=8, color="#555555")
-        ax.margins(y=0.15)
-    else:
-        _empty(ax, "not recorded in this file\n(a synthgen per-object fact)" if f["boxes"].size else "no objects")
-    ax.set_title("visible fraction")
-    ax.set_xlabel("visible / full coverage")
-    if ax.get_yscale() != "log":
-        ax.set_ylabel("objects")
-
-    # max IoU
-    ax = axes[1, 0]
-    mi = f["max_iou"]
-    if mi.size:
-        alone = int(np.count_nonzero(mi == 0))
-        ax.hist(mi[mi > 0], bins=np.linspace(0, 1, 21), color=orange, edgecolor="white", linewidth=0.4)
-        ax.set_xlim(0, 1)
-        ax.yaxis.get_major_locator().set_params(integer=True)
-        ax.text(0.97, 0.95, f"{alone} of {mi.size} overlap no other box\n(IoU 0, not shown)", transform=ax.transAxes,
-                ha="right", va="top", fontsize=8, color="#555555")
-        ax.margins(y=0.15)
-    else:
-        _empty(ax, "no objects")
-    ax.set_title("max IoU with another box in the image")
-    ax.set_xlabel("IoU")
-    ax.set_ylabel("objects")
-
-    # categories
-    ax = axes[1, 1]
-    cats = sorted(coco.get("categories", []), key=lambda c: c["id"])
-    if cats:
-        cc = Counter(f["category_id"].tolist())
-        names = [c["name"] for c in cats][::-1]
-        vals = [cc.get(c["id"], 0) for c in cats][::-1]
-        colours = ["#{:02x}{:02x}{:02x}".format(*_category_colour(i)) for i in range(len(cats))][::-1]
-        ax.barh(np.arange(len(cats)), vals, color=colours, edgecolor="#333333", linewidth=0.5)
-        ax.set_xlim(0, max(max(vals), 1) * 1.05)
-        ax.set_yticks(np.arange(len(cats)), names, fontsize=8 if len(cats) <= 20 else 6)
-        if len(cats) > 40:
-            ax.set_yticks([])
-    else:
-        _empty(ax, "no categories")
-    ax.set_title("objects per category")
-    ax.set_xlabel("objects")
-
-    # COCO area ranges
-    ax = axes[1, 2]
-    area = f["area"]
-    counts = [int(np.count_nonzero((area >= lo) & (area <= hi))) for _, lo, hi in COCO_AREA_RANGES]
-    ax.bar(["small\n[0, 32²]", "medium\n[32², 96²]", "large\n[96², ∞)"], counts, color=[blue, orange, green])
-    for i, v in enumerate(counts):
-        ax.text(i, v, str(v), ha="center", va="bottom", fontsize=9)
-    ax.set_title("COCO area ranges")
-    ax.set_xlabel("by the annotation's area (px²), ends inclusive")
-    ax.set_ylabel("objects")
-    ax.margins(y=0.15)
-    ax.set_ylim(0, max(max(counts), 1) * 1.15)
-    for a in axes.flat:
-        a.spines[["top", "right"]].set_visible(False)
-    return fig
-
-
-def _pow2_ticks(ax, lo: float, hi: float) -> None:
-    """Label a log axis at powers of two, as plain numbers."""
-    from matplotlib.ticker import FixedLocator, NullFormatter
-
-    left, right = lo / 1.05, hi * 1.05
-    ticks = [2.0**k for k in range(math.floor(math.log2(left)), math.ceil(math.log2(right)) + 1)]
-    inside = [t for t in ticks if left <= t <= right]
-    ticks = inside if len(inside) >= 2 else ticks  # a narrow range keeps its neighbours
-    ax.xaxis.set_major_locator(FixedLocator(ticks))
-    ax.set_xticks(ticks, [f"{t:g}" for t in ticks])
-    ax.xaxis.set_minor_formatter(NullFormatter())
-    ax.set_xlim(min(ticks[0], left), max(ticks[-1], right))
-
-
-def _empty(ax, text: str) -> None:
-    ax.text(0.5, 0.5, text, transform=ax.transAxes, ha="center", va="center", color="#777777")
-    ax.set_xticks([])
-    ax.set_yticks([])
-
-
 # --------------------------------------------------------------------------- saving
 
 
@@ -1420,20 +673,3 @@ def save_png(image: np.ndarray, path, *, optimize: bool = False) -> None:
     buf = io.BytesIO()
     Image.fromarray(np.asarray(image, dtype=np.uint8)).save(buf, format="PNG", optimize=optimize)
     write_atomic(path, buf.getvalue())
-
-
-def save_figure(fig, path, *, dpi: int = 100) -> None:
-    """Write a matplotlib figure as a PNG of exactly ``figsize * dpi`` pixels, atomically."""
-    from matplotlib.backends.backend_agg import FigureCanvasAgg
-
-    FigureCanvasAgg(fig)
-    buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=dpi)
-    write_atomic(path, buf.getvalue())
-
-
-def save_json(obj, path) -> None:
-    """Write JSON-ready values (e.g. :func:`dataset_stats` output) indented, atomically."""
-    import orjson
-
-    write_atomic(path, orjson.dumps(obj, option=orjson.OPT_INDENT_2 | orjson.OPT_SERIALIZE_NUMPY) + b"\n")
