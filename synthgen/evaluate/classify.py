@@ -18,7 +18,7 @@ import numpy as np
 from synthgen.errors import InputFileError, is_int
 from synthgen.evaluate.match import build_problem, match
 from synthgen.evaluate.parse import Preds, Truth
-from synthgen.formats.coco import xyxy_from_bbox
+from synthgen.formats.coco import bbox_from_xyxy, xyxy_from_bbox
 from synthgen.formats.results import read_predictions as read_prediction_records
 from synthgen.geometry import box_iou, pairwise_iou
 
@@ -259,7 +259,7 @@ def _match_at(anns: list, gt_img: np.ndarray, gt_cat: np.ndarray, crowd: np.ndar
     gt_box = np.array([a["bbox"] for a in anns], dtype=np.float64).reshape(-1, 4)
     truth = Truth(image_ids=image_ids, cat_ids=cat_ids, cat_names=(), img=np.searchsorted(image_ids, gt_img),
                   cat=np.searchsorted(cat_ids, gt_cat), box=gt_box, area=np.zeros(len(anns)), crowd=crowd, records=())
-    xywh = np.c_[preds.boxes[:, :2], preds.boxes[:, 2:] - preds.boxes[:, :2]]
+    xywh = np.array(bbox_from_xyxy(preds.boxes), dtype=np.float64).reshape(-1, 4)
     pr = Preds(img=np.searchsorted(image_ids, preds.image_id), cat=np.searchsorted(cat_ids, preds.category_id),
                box=xywh, score=preds.score)
     pb = build_problem(truth, pr, None)

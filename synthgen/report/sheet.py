@@ -38,7 +38,7 @@ from synthgen.evaluate.classify import Predictions, classify_predictions, truth_
 from synthgen.evaluate.classify import read_prediction_boxes as read_predictions
 from synthgen.formats.dataset_dir import ANNOTATIONS, MANIFEST
 from synthgen.formats.results import PREDICTION_KINDS, TruthSidecar, read_truth_sidecar
-from synthgen.geometry import box_longer_side
+from synthgen.geometry import box_area, box_longer_side
 from synthgen.report.draw import CATEGORY_COLOURS, DASH, PREDICTION_COLOURS, category_colour, draw_boxes
 
 __all__ = [
@@ -332,9 +332,9 @@ class _Overlay:
         order = {c["id"]: i for i, c in enumerate(cats)}
         colours = np.array([_MUTED if is_crowd else category_colour(order.get(int(c), len(order)))
                             for c, is_crowd in zip(cat, crowd)], dtype=np.uint8)
-        box_area = (boxes[:, 2] - boxes[:, 0]) * (boxes[:, 3] - boxes[:, 1])
+        areas = box_area(boxes)
         area = np.array([float(a["area"]) if _num(a.get("area")) and a["area"] > 0 else b
-                         for a, b in zip(anns, box_area)])
+                         for a, b in zip(anns, areas)])
         pred_colours = None
         if predictions is not None:
             pred_colours = np.array([PREDICTION_COLOURS.get(k, _MUTED) for k in predictions.kind], dtype=np.uint8)

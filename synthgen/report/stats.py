@@ -20,9 +20,16 @@ import numpy as np
 from synthgen._io import write_atomic
 from synthgen.errors import require_extra
 from synthgen.evaluate.classify import truth_arrays
+from synthgen.facts import FACTS_BY_NAME
 from synthgen.formats.coco import AREA_RANGES
-from synthgen.geometry import box_longer_side, box_relations
+from synthgen.geometry import box_area, box_longer_side, box_relations
 from synthgen.report.draw import category_colour
+
+#: The per-object facts the statistics read from ``annotation["synthgen"]``, by their entry in the
+#: FACTS table (a renamed fact fails here, on import); ``max_iou`` is always computed from the boxes.
+VISIBLE = FACTS_BY_NAME["visible_fraction"]
+TRUNCATED = FACTS_BY_NAME["truncated"]
+MAX_IOU = FACTS_BY_NAME["max_iou"]
 
 #: COCO size ranges by the ground truth's ``area`` in px^2, both ends inclusive
 #: (REFERENCE.md: COCO-style AP).
@@ -59,22 +66,21 @@ def _object_facts(coco: Mapping) -> dict:
     n_crowd = int(crowd.sum())
     boxes, img, cat = boxes[keep], img[keep], cat[keep]
     anns = [a for a, k in zip(anns, keep.tolist()) if k]
-    wh = boxes[:, 2:] - boxes[:, :2]
     longer = box_longer_side(boxes)
     has_area = np.array([_num(a.get("area")) for a in anns], dtype=bool)
     area = np.array([float(a["area"]) if h else 0.0 for a, h in zip(anns, has_area)])
     if len(anns):
-        area = np.where(has_area, area, wh[:, 0] * wh[:, 1])
+        area = np.where(has_area, area, box_area(boxes))
     facts = [a.get("synthgen") if isinstance(a.get("synthgen"), dict) else {} for a in anns]
-    vis = np.array([f.get("visible_fraction", np.nan) if _num(f.get("visible_fraction")) else np.nan for f in facts])
-    trunc = [f.get("truncated") for f in facts]
+    vis = np.array([f[VISIBLE.name] if _num(f.get(VISIBLE.name)) else np.nan for f in facts])
+    trunc = [f.get(TRUNCATED.name) for f in facts]
     trunc_known = np.array([isinstance(t, bool) for t in trunc], dtype=bool)
     return {
         "boxes": boxes, "image_id": img, "category_id": cat, "crowd": n_crowd,
         "longer": longer, "area": area, "area_from_field": has_area,
-        "visible_fraction": vis,
-        "truncated": np.array([bool(t) for t in trunc], dtype=bool), "truncated_known": trunc_known,
-        "max_iou": box_relations(boxes, img)[0],
+        VISIBLE.name: vis,
+        TRUNCATED.name: np.array([bool(t) for t in trunc], dtype=bool), "truncated_known": trunc_known,
+        MAX_IOU.name: box_relations(boxes, img)[0],
     }
 
 
@@ -247,9 +253,9 @@ def dataset_stats(coco: Mapping, manifest: Mapping | None = None) -> dict:
         "per_category": per_category,
         "size": size,
         "area_ranges": ranges,
-        "visible_fraction": visible,
-        "max_iou": max_iou,
-        "truncated": truncated,
+        VISIBLE.name: visible,
+        MAX_IOU.name: max_iou,
+        TRUNCATED.name: truncated,
         "settings": settings,
         "notes": notes,
     }
