@@ -409,15 +409,22 @@ def stats_figure(coco: Mapping, *, width: float = 12.0, height: float = 7.0, tit
     from matplotlib.figure import Figure
 
     f = _object_facts(coco)
-    images = list(coco.get("images", []))
     fig = Figure(figsize=(width, height), layout="constrained")
     axes = fig.subplots(2, 3)
     if title:
         fig.suptitle(title, fontsize=13)
-    blue, orange, green = "#3a6fd8", "#e07a10", "#2a9d6a"
+    for row, col, panel in _PANELS:
+        panel(axes[row, col], f, coco)
+    for a in axes.flat:
+        a.spines[["top", "right"]].set_visible(False)
+    return fig
 
-    # size, log scale, stacked by COCO area range
-    ax = axes[0, 0]
+
+_BLUE, _ORANGE, _GREEN = "#3a6fd8", "#e07a10", "#2a9d6a"
+
+
+def _size_panel(ax, f: dict, coco: Mapping) -> None:
+    """Panel: size, log scale, stacked by COCO area range."""
     longer = f["longer"][f["longer"] > 0]
     if longer.size:
         lo, hi = longer.min(), longer.max()
@@ -426,7 +433,7 @@ def stats_figure(coco: Mapping, *, width: float = 12.0, height: float = 7.0, tit
         edges = np.geomspace(lo, hi, 25)
         area = f["area"][f["longer"] > 0]
         groups = [longer[area <= 32**2], longer[(area > 32**2) & (area <= 96**2)], longer[area > 96**2]]
-        ax.hist(groups, bins=edges, stacked=True, color=[blue, orange, green],
+        ax.hist(groups, bins=edges, stacked=True, color=[_BLUE, _ORANGE, _GREEN],
                 label=["small: area ≤ 32²", "medium", "large: > 96²"], edgecolor="white", linewidth=0.4)
         ax.set_xscale("log")
         _pow2_ticks(ax, lo, hi)
@@ -439,15 +446,16 @@ def stats_figure(coco: Mapping, *, width: float = 12.0, height: float = 7.0, tit
     ax.set_xlabel("px (log scale)")
     ax.set_ylabel("objects")
 
-    # objects per image
-    ax = axes[0, 1]
-    image_ids = np.array([im["id"] for im in images], dtype=np.int64)
+
+def _per_image_panel(ax, f: dict, coco: Mapping) -> None:
+    """Panel: objects per image."""
+    image_ids = np.array([im["id"] for im in coco.get("images", [])], dtype=np.int64)
     if image_ids.size:
         per = _objects_per_image(image_ids, f["image_id"])
         low, top = int(per.min()), int(per.max())
         step = max(1, math.ceil((top - low + 1) / 40))  # whole-number bins, at most 40 of them
         edges = np.arange(low, top + step + 1, step) - 0.5
-        ax.hist(per, bins=edges, color=blue, edgecolor="white", linewidth=0.4)
+        ax.hist(per, bins=edges, color=_BLUE, edgecolor="white", linewidth=0.4)
         ax.set_xlim(edges[0] - (step if low > 0 else 0), edges[-1] + step)
         ax.xaxis.get_major_locator().set_params(integer=True)
         ax.yaxis.get_major_locator().set_params(integer=True)
@@ -460,12 +468,13 @@ def stats_figure(coco: Mapping, *, width: float = 12.0, height: float = 7.0, tit
     ax.set_xlabel("objects")
     ax.set_ylabel("images")
 
-    # visible fraction
-    ax = axes[0, 2]
+
+def _visible_panel(ax, f: dict, coco: Mapping) -> None:
+    """Panel: visible fraction."""
     vis = f["visible_fraction"]
     vis = vis[~np.isnan(vis)]
     if vis.size:
-        counts_v, _, _ = ax.hist(vis, bins=np.linspace(0, 1, 21), color=blue, edgecolor="white", linewidth=0.4)
+        counts_v, _, _ = ax.hist(vis, bins=np.linspace(0, 1, 21), color=_BLUE, edgecolor="white", linewidth=0.4)
         if counts_v.max() > 0.8 * vis.size and vis.size >= 20:  # one bin dominates: show the rest too
             from matplotlib.ticker import FuncFormatter
 
@@ -485,12 +494,13 @@ def stats_figure(coco: Mapping, *, width: float = 12.0, height: float = 7.0, tit
     if ax.get_yscale() != "log":
         ax.set_ylabel("objects")
 
-    # max IoU
-    ax = axes[1, 0]
+
+def _max_iou_panel(ax, f: dict, coco: Mapping) -> None:
+    """Panel: max IoU."""
     mi = f["max_iou"]
     if mi.size:
         alone = int(np.count_nonzero(mi == 0))
-        ax.hist(mi[mi > 0], bins=np.linspace(0, 1, 21), color=orange, edgecolor="white", linewidth=0.4)
+        ax.hist(mi[mi > 0], bins=np.linspace(0, 1, 21), color=_ORANGE, edgecolor="white", linewidth=0.4)
         ax.set_xlim(0, 1)
         ax.yaxis.get_major_locator().set_params(integer=True)
         ax.text(0.97, 0.95, f"{alone} of {mi.size} overlap no other box\n(IoU 0, not shown)", transform=ax.transAxes,
@@ -502,8 +512,9 @@ def stats_figure(coco: Mapping, *, width: float = 12.0, height: float = 7.0, tit
     ax.set_xlabel("IoU")
     ax.set_ylabel("objects")
 
-    # categories
-    ax = axes[1, 1]
+
+def _category_panel(ax, f: dict, coco: Mapping) -> None:
+    """Panel: categories."""
     cats = sorted(coco.get("categories", []), key=lambda c: c["id"])
     if cats:
         cc = Counter(f["category_id"].tolist())
@@ -520,11 +531,12 @@ def stats_figure(coco: Mapping, *, width: float = 12.0, height: float = 7.0, tit
     ax.set_title("objects per category")
     ax.set_xlabel("objects")
 
-    # COCO area ranges
-    ax = axes[1, 2]
+
+def _area_panel(ax, f: dict, coco: Mapping) -> None:
+    """Panel: COCO area ranges."""
     area = f["area"]
     counts = [int(np.count_nonzero((area >= lo) & (area <= hi))) for _, lo, hi in COCO_AREA_RANGES]
-    ax.bar(["small\n[0, 32²]", "medium\n[32², 96²]", "large\n[96², ∞)"], counts, color=[blue, orange, green])
+    ax.bar(["small\n[0, 32²]", "medium\n[32², 96²]", "large\n[96², ∞)"], counts, color=[_BLUE, _ORANGE, _GREEN])
     for i, v in enumerate(counts):
         ax.text(i, v, str(v), ha="center", va="bottom", fontsize=9)
     ax.set_title("COCO area ranges")
@@ -532,9 +544,17 @@ def stats_figure(coco: Mapping, *, width: float = 12.0, height: float = 7.0, tit
     ax.set_ylabel("objects")
     ax.margins(y=0.15)
     ax.set_ylim(0, max(max(counts), 1) * 1.15)
-    for a in axes.flat:
-        a.spines[["top", "right"]].set_visible(False)
-    return fig
+
+
+#: The panels of :func:`stats_figure`: (row, column, drawing function), drawn in this order.
+_PANELS = (
+    (0, 0, _size_panel),
+    (0, 1, _per_image_panel),
+    (0, 2, _visible_panel),
+    (1, 0, _max_iou_panel),
+    (1, 1, _category_panel),
+    (1, 2, _area_panel),
+)
 
 
 def _pow2_ticks(ax, lo: float, hi: float) -> None:
