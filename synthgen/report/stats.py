@@ -152,6 +152,49 @@ def _settings(coco: Mapping, manifest: Mapping | None) -> tuple[dict, list[str]]
     return out, notes
 
 
+def _area_ranges(f: dict, notes: list[str]):
+    """Objects per COCO area range, by the annotation's area (a note where the box area stands in)."""
+    area = f["area"]
+    if len(area) and not f["area_from_field"].all():
+        notes.append(f"area: {int((~f['area_from_field']).sum())} annotations have no 'area'; their box w*h is used")
+    ranges = {name: int(np.count_nonzero((area >= lo) & (area <= hi))) for name, lo, hi in COCO_AREA_RANGES}
+    ranges["rule"] = (
+        "by the annotation's area (px^2): small [0, 32^2], medium [32^2, 96^2], large [96^2, inf), ends inclusive"
+    )
+    return ranges
+
+
+def _visible_stats(f: dict, notes: list[str]):
+    """Visible-fraction quantiles and shares, or None when the file does not record the fact."""
+    vis = f["visible_fraction"]
+    known = ~np.isnan(vis)
+    if len(vis) and known.any():
+        visible = _quantiles(vis[known]) | {
+            "fully_visible": float(np.mean(vis[known] >= 1.0)),
+            "below_half": float(np.mean(vis[known] < 0.5)),
+        }
+        if not known.all():
+            notes.append(f"visible fraction: recorded for {int(known.sum())} of {len(vis)} objects")
+    else:
+        visible = None
+        if len(vis):
+            notes.append("visible fraction: not recorded in this file (no synthgen facts); skipped")
+    return visible
+
+
+def _truncated_stats(f: dict, notes: list[str]):
+    """How many objects the border cuts, or None when the file does not record the fact."""
+    tk = f["truncated_known"]
+    if len(tk) and tk.any():
+        truncated = {"count": int(f["truncated"][tk].sum()), "of": int(tk.sum()),
+                     "share": float(f["truncated"][tk].mean())}
+    else:
+        truncated = None
+        if len(tk):
+            notes.append("truncated: not recorded in this file (no synthgen facts); skipped")
+    return truncated
+
+
 def dataset_stats(coco: Mapping, manifest: Mapping | None = None) -> dict:
     """Summary statistics of a COCO dataset, as JSON-ready values.
 
@@ -199,37 +242,9 @@ def dataset_stats(coco: Mapping, manifest: Mapping | None = None) -> dict:
     if unknown_cat:
         notes.append(f"{unknown_cat} annotations have a category id not in 'categories'")
 
-    area = f["area"]
-    if len(area) and not f["area_from_field"].all():
-        notes.append(f"area: {int((~f['area_from_field']).sum())} annotations have no 'area'; their box w*h is used")
-    ranges = {name: int(np.count_nonzero((area >= lo) & (area <= hi))) for name, lo, hi in COCO_AREA_RANGES}
-    ranges["rule"] = (
-        "by the annotation's area (px^2): small [0, 32^2], medium [32^2, 96^2], large [96^2, inf), ends inclusive"
-    )
-
-    vis = f["visible_fraction"]
-    known = ~np.isnan(vis)
-    if len(vis) and known.any():
-        visible = _quantiles(vis[known]) | {
-            "fully_visible": float(np.mean(vis[known] >= 1.0)),
-            "below_half": float(np.mean(vis[known] < 0.5)),
-        }
-        if not known.all():
-            notes.append(f"visible fraction: recorded for {int(known.sum())} of {len(vis)} objects")
-    else:
-        visible = None
-        if len(vis):
-            notes.append("visible fraction: not recorded in this file (no synthgen facts); skipped")
-
-    tk = f["truncated_known"]
-    if len(tk) and tk.any():
-        truncated = {"count": int(f["truncated"][tk].sum()), "of": int(tk.sum()),
-                     "share": float(f["truncated"][tk].mean())}
-    else:
-        truncated = None
-        if len(tk):
-            notes.append("truncated: not recorded in this file (no synthgen facts); skipped")
-
+    ranges = _area_ranges(f, notes)
+    visible = _visible_stats(f, notes)
+    truncated = _truncated_stats(f, notes)
     mi = f["max_iou"]
     max_iou = None
     if len(mi):
@@ -287,28 +302,25 @@ def stats_tables(stats: Mapping, title: str = "dataset"):
     from rich.table import Table
     from rich.text import Text
 
-    def add(table, *cells):  # names and values from files may hold "[...]", which rich reads as markup
-        table.add_row(*(escape(str(c)) for c in cells))
-
     n_obj = stats["objects"]
     share = (lambda k: f"{100 * k / n_obj:.1f}%") if n_obj else (lambda k: "-")
 
     overview = Table(title=escape(f"{title}: overview"), header_style="bold", title_justify="left")
     overview.add_column("quantity")
     overview.add_column("value", justify="right")
-    add(overview, "images", str(stats["images"]))
-    add(overview, "objects", str(n_obj))
+    _add(overview, "images", str(stats["images"]))
+    _add(overview, "objects", str(n_obj))
     if stats.get("ignore_regions"):
-        add(overview, "ignore regions (iscrowd 1)", str(stats["ignore_regions"]))
-    add(overview, "categories", str(len(stats["per_category"])))
+        _add(overview, "ignore regions (iscrowd 1)", str(stats["ignore_regions"]))
+    _add(overview, "categories", str(len(stats["per_category"])))
     vf, mi, tr = stats.get("visible_fraction"), stats.get("max_iou"), stats.get("truncated")
     if vf:
-        add(overview, "fully visible", f"{100 * vf['fully_visible']:.1f}%")
-        add(overview, "less than half visible", f"{100 * vf['below_half']:.1f}%")
+        _add(overview, "fully visible", f"{100 * vf['fully_visible']:.1f}%")
+        _add(overview, "less than half visible", f"{100 * vf['below_half']:.1f}%")
     if tr:
-        add(overview, "truncated by the border", f"{100 * tr['share']:.1f}% ({tr['count']})")
+        _add(overview, "truncated by the border", f"{100 * tr['share']:.1f}% ({tr['count']})")
     if mi:
-        add(overview, "overlapping another box", f"{100 * mi['overlapping']:.1f}%")
+        _add(overview, "overlapping another box", f"{100 * mi['overlapping']:.1f}%")
 
     dist = Table(title="distributions", header_style="bold", title_justify="left")
     dist.add_column("quantity")
@@ -322,7 +334,7 @@ def stats_tables(stats: Mapping, title: str = "dataset"):
         ("max IoU with another box", mi),
     ):
         if q and q.get("n"):
-            add(dist, label, *(_fmt(q[k]) for k in ("min", "p25", "median", "p75", "max", "mean")))
+            _add(dist, label, *(_fmt(q[k]) for k in ("min", "p25", "median", "p75", "max", "mean")))
 
     ar = stats["area_ranges"]
     areas = Table(title="COCO area ranges (px², ends inclusive)", header_style="bold", title_justify="left")
@@ -331,7 +343,7 @@ def stats_tables(stats: Mapping, title: str = "dataset"):
     areas.add_column("objects", justify="right")
     areas.add_column("share", justify="right")
     for name, span in (("small", "0 .. 32²"), ("medium", "32² .. 96²"), ("large", "96² .. ∞")):
-        add(areas, name, span, str(ar[name]), share(ar[name]))
+        _add(areas, name, span, str(ar[name]), share(ar[name]))
 
     cats = Table(title="objects per category", header_style="bold", title_justify="left")
     cats.add_column("id", justify="right")
@@ -339,46 +351,60 @@ def stats_tables(stats: Mapping, title: str = "dataset"):
     cats.add_column("objects", justify="right")
     cats.add_column("share", justify="right")
     for c in stats["per_category"]:
-        add(cats, str(c["id"]), c["name"], str(c["count"]), share(c["count"]))
+        _add(cats, str(c["id"]), c["name"], str(c["count"]), share(c["count"]))
 
     parts = [overview, dist, areas, cats]
     st = stats.get("settings") or {}
     if st:
-        t = Table(title="settings used", header_style="bold", title_justify="left")
-        t.add_column("setting")
-        t.add_column("value")
-        if "background_config" in st:
-            add(t, "background.kind (config)", st["background_config"])
-        if "backgrounds" in st:
-            add(t, "backgrounds drawn (images)", ", ".join(f"{k} {v}" for k, v in st["backgrounds"].items()))
-        if "degrade_config" in st:
-            on = st["degrade_config"]
-            text = "; ".join(
-                f"{k} p={_fmt(v.get('p'))}" + "".join(f" {kk}={_fmt_value(vv)}" for kk, vv in v.items() if kk != "p")
-                for k, v in on.items()
-            )
-            add(t, "degradations (config)", text or "none")
-        if "degraded_images" in st:
-            d, r = st["degraded_images"], st.get("degradation_ranges", {})
-
-            def applied(name, n):
-                spans = ", ".join(f"{k} {_fmt(lo)}..{_fmt(hi)}" for k, (lo, hi) in r.get(name, {}).items())
-                return f"{name} {n}" + (f" ({spans})" if spans else "")
-
-            add(t, "degradations applied (images)", "; ".join(applied(k, v) for k, v in d.items()) or "none")
-        if "clutter_config" in st:
-            add(t, "clutter (config)", ", ".join(f"{k}={_fmt_value(v)}" for k, v in st["clutter_config"].items()))
-        if "clutter_marks_per_image" in st:
-            q = st["clutter_marks_per_image"]
-            text = f"min {_fmt(q['min'])}, median {_fmt(q['median'])}, max {_fmt(q['max'])}"
-            add(t, "clutter marks per image", text)
-            kinds = st.get("clutter_marks_by_kind") or {}
-            if kinds:
-                add(t, "clutter marks by kind", ", ".join(f"{k} {v}" for k, v in kinds.items()))
-        parts.append(t)
+        parts.append(_settings_table(st))
     for note in stats.get("notes", []):
         parts.append(Text(f"note: {note}", style="dim"))
     return Group(*parts)
+
+
+def _add(table, *cells) -> None:
+    """Add a row; names and values from files may hold "[...]", which rich reads as markup."""
+    from rich.markup import escape
+
+    table.add_row(*(escape(str(c)) for c in cells))
+
+
+def _settings_table(st: Mapping):
+    """The "settings used" table of :func:`stats_tables`."""
+    from rich.table import Table
+
+    t = Table(title="settings used", header_style="bold", title_justify="left")
+    t.add_column("setting")
+    t.add_column("value")
+    if "background_config" in st:
+        _add(t, "background.kind (config)", st["background_config"])
+    if "backgrounds" in st:
+        _add(t, "backgrounds drawn (images)", ", ".join(f"{k} {v}" for k, v in st["backgrounds"].items()))
+    if "degrade_config" in st:
+        on = st["degrade_config"]
+        text = "; ".join(
+            f"{k} p={_fmt(v.get('p'))}" + "".join(f" {kk}={_fmt_value(vv)}" for kk, vv in v.items() if kk != "p")
+            for k, v in on.items()
+        )
+        _add(t, "degradations (config)", text or "none")
+    if "degraded_images" in st:
+        d, r = st["degraded_images"], st.get("degradation_ranges", {})
+
+        def applied(name, n):
+            spans = ", ".join(f"{k} {_fmt(lo)}..{_fmt(hi)}" for k, (lo, hi) in r.get(name, {}).items())
+            return f"{name} {n}" + (f" ({spans})" if spans else "")
+
+        _add(t, "degradations applied (images)", "; ".join(applied(k, v) for k, v in d.items()) or "none")
+    if "clutter_config" in st:
+        _add(t, "clutter (config)", ", ".join(f"{k}={_fmt_value(v)}" for k, v in st["clutter_config"].items()))
+    if "clutter_marks_per_image" in st:
+        q = st["clutter_marks_per_image"]
+        text = f"min {_fmt(q['min'])}, median {_fmt(q['median'])}, max {_fmt(q['max'])}"
+        _add(t, "clutter marks per image", text)
+        kinds = st.get("clutter_marks_by_kind") or {}
+        if kinds:
+            _add(t, "clutter marks by kind", ", ".join(f"{k} {v}" for k, v in kinds.items()))
+    return t
 
 
 def _fmt_value(v) -> str:
