@@ -497,6 +497,105 @@ def _draw_legend(draw, label: str, placed, top: int, left: int, fonts: _Fonts) -
         draw.text((x + 26, top + y), name, fill=_TEXT, font=fonts.text)
 
 
+def _tile_scales(chosen: list, scale: float | None, cols: int) -> tuple[dict, bool]:
+    """Each image's :func:`auto_scale` (shrunk to keep a wide grid within _MAX_WIDTH), and whether they differ."""
+    auto = {int(im["id"]): auto_scale(im["width"], im["height"]) for im in chosen}
+    if scale is None:  # a wide grid of large images is shrunk to keep the sheet within _MAX_WIDTH
+        widest = max(auto[int(im["id"])] * im["width"] for im in chosen)
+        fit = (_MAX_WIDTH - 24 - 10 * (cols - 1)) / (cols * widest)
+        if fit < 1:
+            auto = {k: v * fit for k, v in auto.items()}
+    mixed = scale is None and len(set(auto.values())) > 1
+    return auto, mixed
+
+
+def _legend_items(ds: Dataset, overlay: _Overlay, predictions: Predictions | None, shown_ids):
+    """The legend's labels and items: the categories present in the shown images, then the prediction kinds present."""
+    cats = sorted(ds.coco.get("categories", []), key=lambda c: c["id"])
+    shown = np.isin(overlay.image_id, list(shown_ids))
+    present = set(overlay.category_id[shown & ~overlay.crowd].tolist())
+    cat_items = [(c["name"], category_colour(i), False) for i, c in enumerate(cats) if c["id"] in present]
+    if (shown & overlay.crowd).any():
+        cat_items.append(("ignore region", _MUTED, False))
+    truth_label = "truth (solid):" if predictions is not None else "categories:"
+    if len(cats) > len(CATEGORY_COLOURS):
+        truth_label = truth_label[:-1] + f" (colours repeat after {len(CATEGORY_COLOURS)}):"
+    pred_label, pred_items = "predictions (dashed):", []
+    if predictions is not None:
+        kinds = set(predictions.kind)
+        pred_items = [(_KIND_LABELS[k], PREDICTION_COLOURS[k], True) for k in PREDICTION_KINDS if k in kinds]
+        if kinds - set(PREDICTION_KINDS):
+            pred_items.append(("unclassified", _MUTED, True))
+    return truth_label, cat_items, pred_label, pred_items
+
+
+def _draw_crops(sheet, draw, crops: list, one_image: bool, layout: tuple, sheet_w: int, fonts: _Fonts) -> list:
+    """Draw the zoom section's label and its crops; returns their placements.
+
+    ``layout`` is ``(pad, y0, gap, title_h, zoom_cap, zoom_cols)``: the sheet's margin, the section's top,
+    the gap between crops, the label's height, a crop's caption height, and crops per row.
+    """
+    from PIL import Image
+
+    pad, y0, gap, title_h, zoom_cap, zoom_cols = layout
+    placed_crops = []
+    limit = f"{_zoom_limit(_ZOOM_SIDE):.0f}"
+    if crops:
+        these = "this image" if one_image else "these images"
+        label = (f"the {len(crops)} smallest objects (by area; longer side up to {limit} px) in {these}, "
+                 "enlarged with nearest neighbour")
+    else:
+        these = "this image" if one_image else "these images"
+        label = f"no object in {these} is small enough to enlarge (longer side up to {limit} px)"
+    draw.text((pad, y0), _fit(draw, label, fonts.text, sheet_w - 2 * pad), fill=_MUTED, font=fonts.text)
+    for i, (pix, line1, line2, where) in enumerate(crops):
+        r, c = divmod(i, zoom_cols)
+        x = pad + c * (_ZOOM_SIDE + gap)
+        y = y0 + title_h + r * (_ZOOM_SIDE + zoom_cap + gap)
+        sheet.paste(Image.fromarray(pix), (x, y))
+        placed_crops.append(Placement(where.image_id, x, y, where.width, where.height, where.sx, where.sy,
+                                      where.ox, where.oy, where.annotation))
+        draw.text((x, y + _ZOOM_SIDE + 2), _fit(draw, line1, fonts.small, _ZOOM_SIDE),
+                  fill=_TEXT, font=fonts.small)
+        draw.text((x, y + _ZOOM_SIDE + fonts.px + 2), _fit(draw, line2, fonts.small, _ZOOM_SIDE),
+                  fill=_MUTED, font=fonts.small)
+    return placed_crops
+
+
+def _draw_header(draw, ds: Dataset, tiles: list, mixed: bool, legends: tuple, layout: tuple, fonts: _Fonts) -> None:
+    """The sheet's title and its two legends (``legends``: truth label, rows, prediction label, rows, truth height)."""
+    truth_label, legend1, pred_label, legend2, h1 = legends
+    pad, title_h, sheet_w = layout
+    total = len(ds.coco.get("images", []))
+    title = f"{ds.name} · {len(tiles)} of {total} image{'s' if total != 1 else ''}"
+    if not mixed and tiles[0].sx != 1:
+        title += f" · shown at x{tiles[0].sx:g}" if tiles[0].sx > 1 else f" · shown at x{tiles[0].sx:.2f}"
+    draw.text((pad, pad), _fit(draw, title, fonts.title, sheet_w - 2 * pad), fill=_TEXT, font=fonts.title)
+    if legend1:
+        _draw_legend(draw, truth_label, legend1, pad + title_h, pad, fonts)
+    else:
+        these = "this image" if len(tiles) == 1 else "these images"
+        draw.text((pad, pad + title_h), f"no annotated objects in {these}", fill=_MUTED, font=fonts.text)
+    if legend2:
+        _draw_legend(draw, pred_label, legend2, pad + title_h + h1, pad, fonts)
+
+
+def _paste_tiles(sheet, draw, tiles: list, cols: int, layout: tuple, fonts: _Fonts) -> list:
+    """Paste the tiles in a grid with their captions; returns their placements."""
+    from PIL import Image
+
+    pad, gap, header_h, tile_w, tile_h, cap_h = layout
+    placed_tiles = []
+    for i, t in enumerate(tiles):
+        r, c = divmod(i, cols)
+        x, y = pad + c * (tile_w + gap), header_h + r * (tile_h + cap_h + gap)
+        sheet.paste(Image.fromarray(t.pixels), (x, y))
+        h, w = t.pixels.shape[:2]
+        placed_tiles.append(Placement(t.image_id, x, y, w, h, t.sx, t.sy))
+        draw.text((x, y + h + 3), _fit(draw, t.caption, fonts.text, tile_w), fill=_TEXT, font=fonts.text)
+    return placed_tiles
+
+
 def contact_sheet(
     ds: Dataset,
     *,
@@ -560,13 +659,7 @@ def contact_sheet(
         raise InputFileError(ds.source, "has no images to show")
     overlay = _Overlay.build(ds.coco, predictions, missed)
     cols = min(cols or max(1, math.ceil(math.sqrt(len(chosen)))), len(chosen))
-    auto = {int(im["id"]): auto_scale(im["width"], im["height"]) for im in chosen}
-    if scale is None:  # a wide grid of large images is shrunk to keep the sheet within _MAX_WIDTH
-        widest = max(auto[int(im["id"])] * im["width"] for im in chosen)
-        fit = (_MAX_WIDTH - 24 - 10 * (cols - 1)) / (cols * widest)
-        if fit < 1:
-            auto = {k: v * fit for k, v in auto.items()}
-    mixed = scale is None and len(set(auto.values())) > 1
+    auto, mixed = _tile_scales(chosen, scale, cols)
     tiles = [_render_tile(ds, im, overlay, auto[int(im["id"])] if scale is None else scale, mixed) for im in chosen]
 
     rows = math.ceil(len(tiles) / cols)
@@ -578,21 +671,7 @@ def contact_sheet(
 
     # Legend: the categories present in these images, then the prediction kinds present
     probe = ImageDraw.Draw(Image.new("RGB", (8, 8)))
-    cats = sorted(ds.coco.get("categories", []), key=lambda c: c["id"])
-    shown = np.isin(overlay.image_id, list(auto))
-    present = set(overlay.category_id[shown & ~overlay.crowd].tolist())
-    cat_items = [(c["name"], category_colour(i), False) for i, c in enumerate(cats) if c["id"] in present]
-    if (shown & overlay.crowd).any():
-        cat_items.append(("ignore region", _MUTED, False))
-    truth_label = "truth (solid):" if predictions is not None else "categories:"
-    if len(cats) > len(CATEGORY_COLOURS):
-        truth_label = truth_label[:-1] + f" (colours repeat after {len(CATEGORY_COLOURS)}):"
-    pred_label, pred_items = "predictions (dashed):", []
-    if predictions is not None:
-        kinds = set(predictions.kind)
-        pred_items = [(_KIND_LABELS[k], PREDICTION_COLOURS[k], True) for k in PREDICTION_KINDS if k in kinds]
-        if kinds - set(PREDICTION_KINDS):
-            pred_items.append(("unclassified", _MUTED, True))
+    truth_label, cat_items, pred_label, pred_items = _legend_items(ds, overlay, predictions, auto)
     legend1, h1 = _legend_rows(probe, truth_label, cat_items, fonts, pad, sheet_w - pad)
     legend2, h2 = _legend_rows(probe, pred_label, pred_items, fonts, pad, sheet_w - pad)
     h1 = h1 or fonts.px + 8  # room for "no annotated objects"
@@ -610,51 +689,14 @@ def contact_sheet(
     sheet = Image.new("RGB", (sheet_w, header_h + grid_h + (gap + zoom_h if zoom else 0) + pad), _SHEET_BG)
     draw = ImageDraw.Draw(sheet)
 
-    total = len(ds.coco.get("images", []))
-    title = f"{ds.name} · {len(tiles)} of {total} image{'s' if total != 1 else ''}"
-    if not mixed and tiles[0].sx != 1:
-        title += f" · shown at x{tiles[0].sx:g}" if tiles[0].sx > 1 else f" · shown at x{tiles[0].sx:.2f}"
-    draw.text((pad, pad), _fit(draw, title, fonts.title, sheet_w - 2 * pad), fill=_TEXT, font=fonts.title)
-    if legend1:
-        _draw_legend(draw, truth_label, legend1, pad + title_h, pad, fonts)
-    else:
-        these = "this image" if len(tiles) == 1 else "these images"
-        draw.text((pad, pad + title_h), f"no annotated objects in {these}", fill=_MUTED, font=fonts.text)
-    if legend2:
-        _draw_legend(draw, pred_label, legend2, pad + title_h + h1, pad, fonts)
-
-    placed_tiles = []
-    for i, t in enumerate(tiles):
-        r, c = divmod(i, cols)
-        x, y = pad + c * (tile_w + gap), header_h + r * (tile_h + cap_h + gap)
-        sheet.paste(Image.fromarray(t.pixels), (x, y))
-        h, w = t.pixels.shape[:2]
-        placed_tiles.append(Placement(t.image_id, x, y, w, h, t.sx, t.sy))
-        draw.text((x, y + h + 3), _fit(draw, t.caption, fonts.text, tile_w), fill=_TEXT, font=fonts.text)
+    _draw_header(draw, ds, tiles, mixed, (truth_label, legend1, pred_label, legend2, h1), (pad, title_h, sheet_w), fonts)
+    placed_tiles = _paste_tiles(sheet, draw, tiles, cols, (pad, gap, header_h, tile_w, tile_h, cap_h), fonts)
 
     placed_crops = []
     if zoom:
         y0 = header_h + grid_h + gap
-        limit = f"{_zoom_limit(_ZOOM_SIDE):.0f}"
-        if crops:
-            these = "this image" if len(tiles) == 1 else "these images"
-            label = (f"the {len(crops)} smallest objects (by area; longer side up to {limit} px) in {these}, "
-                     "enlarged with nearest neighbour")
-        else:
-            these = "this image" if len(tiles) == 1 else "these images"
-            label = f"no object in {these} is small enough to enlarge (longer side up to {limit} px)"
-        draw.text((pad, y0), _fit(draw, label, fonts.text, sheet_w - 2 * pad), fill=_MUTED, font=fonts.text)
-        for i, (pix, line1, line2, where) in enumerate(crops):
-            r, c = divmod(i, zoom_cols)
-            x = pad + c * (_ZOOM_SIDE + gap)
-            y = y0 + title_h + r * (_ZOOM_SIDE + zoom_cap + gap)
-            sheet.paste(Image.fromarray(pix), (x, y))
-            placed_crops.append(Placement(where.image_id, x, y, where.width, where.height, where.sx, where.sy,
-                                          where.ox, where.oy, where.annotation))
-            draw.text((x, y + _ZOOM_SIDE + 2), _fit(draw, line1, fonts.small, _ZOOM_SIDE),
-                      fill=_TEXT, font=fonts.small)
-            draw.text((x, y + _ZOOM_SIDE + fonts.px + 2), _fit(draw, line2, fonts.small, _ZOOM_SIDE),
-                      fill=_MUTED, font=fonts.small)
+        placed_crops = _draw_crops(sheet, draw, crops, len(tiles) == 1, (pad, y0, gap, title_h, zoom_cap, zoom_cols),
+                                   sheet_w, fonts)
     return Sheet(np.asarray(sheet), tuple(placed_tiles), tuple(placed_crops))
 
 
