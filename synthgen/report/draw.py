@@ -127,6 +127,27 @@ def _perimeter(c0: int, r0: int, c1: int, r1: int) -> tuple[np.ndarray, np.ndarr
     return rows.astype(np.int64), cols.astype(np.int64)
 
 
+def _inside(rows: np.ndarray, cols: np.ndarray, shape: tuple[int, int]) -> np.ndarray:
+    return (rows >= 0) & (rows < shape[0]) & (cols >= 0) & (cols < shape[1])
+
+
+def _halo_mask(px: np.ndarray, strokes: list, dash: np.ndarray, shape: tuple[int, int]) -> np.ndarray:
+    """(H, W) bool: the ring just outside each outline (beside the dashes only, for a dashed one)."""
+    dark = np.zeros(shape, dtype=bool)
+    for (c0, r0, c1, r1), (rows, cols), d in zip(px, strokes, dash):
+        hr, hc = _perimeter(int(c0) - 1, int(r0) - 1, int(c1) + 1, int(r1) + 1)
+        if d:  # halo only beside the dashes, so the gaps stay open
+            on = (np.arange(rows.size) % sum(DASH)) < DASH[0]
+            near = np.zeros((int(r1 - r0) + 3, int(c1 - c0) + 3), dtype=bool)  # window around the ring
+            for dr, dc in ((-1, 0), (1, 0), (0, -1), (0, 1)):  # the ring pixel right beside each dash pixel
+                near[rows[on] - r0 + 1 + dr, cols[on] - c0 + 1 + dc] = True
+            keep = near[hr - r0 + 1, hc - c0 + 1]
+            hr, hc = hr[keep], hc[keep]
+        k = _inside(hr, hc, shape)
+        dark[hr[k], hc[k]] = True
+    return dark
+
+
 def draw_boxes(
     image: np.ndarray,
     boxes,
@@ -183,30 +204,16 @@ def draw_boxes(
     b[:, 1::2] = np.clip(b[:, 1::2], oy - 2 / syy, oy + (h + 2) / syy)
     px = outline_pixels(b, sx, sy, ox, oy)
 
-    def inside(rows, cols):
-        return (rows >= 0) & (rows < h) & (cols >= 0) & (cols < w)
-
     # Outline pixels to colour, per box: solid, or every on-stretch of the dash pattern.
     strokes = []
     for c0, r0, c1, r1 in px:
         rows, cols = _perimeter(int(c0), int(r0), int(c1), int(r1))
         strokes.append((rows, cols))
     if halo is not None:
-        dark = np.zeros((h, w), dtype=bool)
-        for (c0, r0, c1, r1), (rows, cols), d in zip(px, strokes, dash):
-            hr, hc = _perimeter(int(c0) - 1, int(r0) - 1, int(c1) + 1, int(r1) + 1)
-            if d:  # halo only beside the dashes, so the gaps stay open
-                on = (np.arange(rows.size) % sum(DASH)) < DASH[0]
-                near = np.zeros((int(r1 - r0) + 3, int(c1 - c0) + 3), dtype=bool)  # window around the ring
-                for dr, dc in ((-1, 0), (1, 0), (0, -1), (0, 1)):  # the ring pixel right beside each dash pixel
-                    near[rows[on] - r0 + 1 + dr, cols[on] - c0 + 1 + dc] = True
-                keep = near[hr - r0 + 1, hc - c0 + 1]
-                hr, hc = hr[keep], hc[keep]
-            k = inside(hr, hc)
-            dark[hr[k], hc[k]] = True
+        dark = _halo_mask(px, strokes, dash, (h, w))
         out[dark] = (out[dark] * halo).astype(np.uint8)
     for (rows, cols), colour, d in zip(strokes, rgb, dash):
-        keep = inside(rows, cols)
+        keep = _inside(rows, cols, (h, w))
         if d:
             keep &= (np.arange(rows.size) % sum(DASH)) < DASH[0]
         out[rows[keep], cols[keep]] = colour
