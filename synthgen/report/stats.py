@@ -449,6 +449,12 @@ def stats_figure(coco: Mapping, *, width: float = 12.0, height: float = 7.0, tit
 _BLUE, _ORANGE, _GREEN = "#3a6fd8", "#e07a10", "#2a9d6a"
 
 
+def _labels(ax, title: str, xlabel: str, ylabel: str) -> None:
+    ax.set_title(title)
+    ax.set_xlabel(xlabel)
+    ax.set_ylabel(ylabel)
+
+
 def _size_panel(ax, f: dict, coco: Mapping) -> None:
     """Panel: size, log scale, stacked by COCO area range."""
     longer = f["longer"][f["longer"] > 0]
@@ -468,9 +474,7 @@ def _size_panel(ax, f: dict, coco: Mapping) -> None:
         ax.yaxis.get_major_locator().set_params(integer=True)
     else:
         _empty(ax, "no objects")
-    ax.set_title("object size (longer side of box)")
-    ax.set_xlabel("px (log scale)")
-    ax.set_ylabel("objects")
+    _labels(ax, "object size (longer side of box)", "px (log scale)", "objects")
 
 
 def _per_image_panel(ax, f: dict, coco: Mapping) -> None:
@@ -490,9 +494,7 @@ def _per_image_panel(ax, f: dict, coco: Mapping) -> None:
         ax.margins(y=0.15)
     else:
         _empty(ax, "no images")
-    ax.set_title("objects per image")
-    ax.set_xlabel("objects")
-    ax.set_ylabel("images")
+    _labels(ax, "objects per image", "objects", "images")
 
 
 def _visible_panel(ax, f: dict, coco: Mapping) -> None:
@@ -534,9 +536,7 @@ def _max_iou_panel(ax, f: dict, coco: Mapping) -> None:
         ax.margins(y=0.15)
     else:
         _empty(ax, "no objects")
-    ax.set_title("max IoU with another box in the image")
-    ax.set_xlabel("IoU")
-    ax.set_ylabel("objects")
+    _labels(ax, "max IoU with another box in the image", "IoU", "objects")
 
 
 def _category_panel(ax, f: dict, coco: Mapping) -> None:
@@ -565,9 +565,7 @@ def _area_panel(ax, f: dict, coco: Mapping) -> None:
     ax.bar(["small\n[0, 32²]", "medium\n[32², 96²]", "large\n[96², ∞)"], counts, color=[_BLUE, _ORANGE, _GREEN])
     for i, v in enumerate(counts):
         ax.text(i, v, str(v), ha="center", va="bottom", fontsize=9)
-    ax.set_title("COCO area ranges")
-    ax.set_xlabel("by the annotation's area (px²), ends inclusive")
-    ax.set_ylabel("objects")
+    _labels(ax, "COCO area ranges", "by the annotation's area (px²), ends inclusive", "objects")
     ax.margins(y=0.15)
     ax.set_ylim(0, max(max(counts), 1) * 1.15)
 
