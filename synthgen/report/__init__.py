@@ -1,9 +1,9 @@
-"""What people look at: contact sheets (sheet, draw), dataset statistics (stats), score tables and figures (figures)."""
+"""What people look at: contact sheets (dataset, sheet, draw), dataset statistics (stats), score tables and figures (figures)."""
 
+from synthgen.report.dataset import Dataset, open_dataset
 from synthgen.report.draw import CATEGORY_COLOURS, PREDICTION_COLOURS, draw_boxes, outline_pixels
 from synthgen.report.sheet import (
     PREDICTION_KINDS,
-    Dataset,
     Placement,
     Predictions,
     Sheet,
@@ -11,7 +11,6 @@ from synthgen.report.sheet import (
     auto_scale,
     classify_predictions,
     contact_sheet,
-    open_dataset,
     read_predictions,
     read_truth_sidecar,
     save_png,

@@ -28,7 +28,6 @@ import math
 from collections import Counter
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
-from pathlib import Path
 
 import numpy as np
 
@@ -36,16 +35,14 @@ from synthgen._io import write_atomic
 from synthgen.errors import InputFileError, UserError
 from synthgen.evaluate.classify import Predictions, classify_predictions, truth_arrays
 from synthgen.evaluate.classify import read_prediction_boxes as read_predictions
-from synthgen.formats.dataset_dir import ANNOTATIONS, MANIFEST
 from synthgen.formats.results import PREDICTION_KINDS, TruthSidecar, read_truth_sidecar
 from synthgen.geometry import box_area, box_longer_side
+from synthgen.report.dataset import Dataset, load_image
 from synthgen.report.draw import CATEGORY_COLOURS, DASH, PREDICTION_COLOURS, category_colour, draw_boxes
 
 __all__ = [
     "PREDICTION_KINDS",
-    "Dataset",
     "Predictions",
-    "open_dataset",
     "read_predictions",
     "read_truth_sidecar",
     "TruthSidecar",
@@ -72,110 +69,6 @@ _TEXT = (225, 228, 232)
 _MUTED = (150, 155, 162)
 _OUTSIDE = (12, 12, 14)  # beyond the image's border in a zoom crop
 _MAX_WIDTH = 4096  # px: default sheets are shrunk to this width at most
-
-
-# --------------------------------------------------------------------------- inputs
-
-
-@dataclass(frozen=True, slots=True)
-class Dataset:
-    """A COCO dataset on disk.
-
-    Attributes
-    ----------
-    coco : dict
-        The parsed COCO JSON.
-    source : Path
-        The annotation file.
-    root : Path
-        Directory the images' ``file_name`` values are looked up in (its
-        ``images/`` subdirectory first, then itself): the annotation file's
-        directory unless ``image_dir`` is given.
-    manifest : dict or None
-        synthgen's ``manifest.json`` next to the annotation file, if there is one.
-    image_dir : Path or None
-        A directory to look in first (for layouts that keep images apart from
-        the annotation file, e.g. ``annotations/`` beside ``val/``).
-    """
-
-    coco: dict
-    source: Path
-    root: Path
-    manifest: dict | None = None
-    image_dir: Path | None = None
-
-    @property
-    def name(self) -> str:
-        """A short name for titles: the dataset directory's name."""
-        if self.source.name != ANNOTATIONS:
-            return self.source.name
-        return self.root.resolve().name or str(self.root)
-
-    def image_path(self, image: Mapping) -> Path:
-        """Path of an image record's file (the first candidate that exists)."""
-        name = str(image.get("file_name", ""))
-        first = (self.image_dir / name,) if self.image_dir is not None else ()
-        cands = (*first, self.root / "images" / name, self.root / name)
-        for cand in cands:
-            if cand.is_file():
-                return cand
-        return cands[0]
-
-
-def open_dataset(path, *, image_dir=None) -> Dataset:
-    """Open a dataset directory (its ``annotations.json``) or a COCO JSON file.
-
-    Parameters
-    ----------
-    path : str or Path
-    image_dir : str or Path, optional
-        Where the images are, when not beside the annotation file (see
-        :class:`Dataset`).
-
-    Raises
-    ------
-    synthgen.errors.InputFileError
-        When the file is missing or not a COCO file.
-    """
-    from synthgen.formats.coco import read_coco
-
-    path = Path(path)
-    source = path / ANNOTATIONS if path.is_dir() else path
-    if not source.exists():
-        what = "has no annotations.json" if path.is_dir() else "does not exist"
-        raise InputFileError(path, what)
-    coco = read_coco(source)
-    manifest = None
-    mpath = source.parent / MANIFEST
-    if mpath.is_file():
-        import orjson
-
-        try:
-            manifest = orjson.loads(mpath.read_bytes())
-        except (OSError, orjson.JSONDecodeError):
-            manifest = None
-        if not isinstance(manifest, dict):
-            manifest = None
-    if image_dir is not None and not Path(image_dir).is_dir():
-        raise InputFileError(image_dir, "is not a directory")
-    return Dataset(
-        coco=coco, source=source, root=source.parent, manifest=manifest,
-        image_dir=None if image_dir is None else Path(image_dir),
-    )
-
-
-def _load_image(ds: Dataset, image: Mapping) -> np.ndarray:
-    from synthgen.formats.images import read_image
-
-    path = ds.image_path(image)
-    try:
-        arr = read_image(path)
-    except OSError as e:
-        raise InputFileError(path, f"cannot be read ({e.strerror or e})") from None
-    if arr is None:
-        raise InputFileError(path, "is not an image file OpenCV can decode")
-    return arr
-
 
 
 def _num(v) -> bool:
@@ -369,7 +262,7 @@ class _Tile:
 
 def _render_tile(ds: Dataset, image: Mapping, overlay: _Overlay, scale: float, show_factor: bool) -> _Tile:
     """One image at ``scale`` with its boxes drawn, and its caption."""
-    pix, sx, sy = _scaled(_load_image(ds, image), scale)
+    pix, sx, sy = _scaled(load_image(ds, image), scale)
     image_id = int(image["id"])
     boxes, colours, dashed = overlay.for_image(image_id)
     here = overlay.image_id == image_id
@@ -446,7 +339,7 @@ def _zoom_crops(ds: Dataset, chosen, overlay: _Overlay, tile_scales: dict, count
     for i in pick:
         image_id = int(overlay.image_id[i])
         if image_id not in cache:
-            cache[image_id] = _load_image(ds, by_id[image_id])
+            cache[image_id] = load_image(ds, by_id[image_id])
         x0, y0, x1, y1 = overlay.boxes[i]
         z = int(_zoom_factor(max(x1 - x0, y1 - y0), side))
         big, ox, oy = _enlarged_crop(cache[image_id], ((x0 + x1) / 2, (y0 + y1) / 2), z, side)
