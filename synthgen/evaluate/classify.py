@@ -2,7 +2,7 @@
 
 :class:`Confusion` tables detections by predicted class and the class of the object they hit;
 :func:`confusion_counts` fills it from the matches :mod:`synthgen.evaluate.cocoeval` made.
-:func:`classify_predictions` names each prediction's kind (:data:`PREDICTION_KINDS`) from the
+:func:`classify_predictions` names each prediction's kind (:data:`synthgen.formats.results.PREDICTION_KINDS`) from the
 same matcher, for the contact sheet of :mod:`synthgen.report`.
 """
 
@@ -121,7 +121,7 @@ class Predictions:
     score : ndarray of float64, shape (P,)
         1.0 where the file gives none.
     kind : tuple of str, length P
-        One of :data:`PREDICTION_KINDS`, or ``""`` until classified.
+        One of :data:`synthgen.formats.results.PREDICTION_KINDS`, or ``""`` until classified.
     """
 
     boxes: np.ndarray
