@@ -25,7 +25,7 @@ _EXPORTS = {
     "Shape": "synthgen.shapes",
     "make_dataset": "synthgen.dataset",
     "merge_shards": "synthgen.dataset",
-    "evaluate": "synthgen.score",
+    "evaluate": "synthgen.evaluate",
     "simulate_detections": "synthgen.jitter",
     "DetectorSpec": "synthgen.jitter",
     "to_iou": "synthgen.jitter",

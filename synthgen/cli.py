@@ -455,9 +455,9 @@ def score(
     import orjson
     from rich.console import Console
 
-    from synthgen import report_score as rep
     from synthgen._io import write_atomic
-    from synthgen.score import score_files, score_sweep
+    from synthgen.evaluate import score_files, score_sweep
+    from synthgen.report import figures as rep
 
     if (predictions is None) == (pred_dir is None):
         raise UserError("give either a PREDICTIONS file or --pred-dir DIR for a sweep (got "

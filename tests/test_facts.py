@@ -6,7 +6,8 @@ from pathlib import Path
 
 import numpy as np
 
-from synthgen import facts, score
+from synthgen import facts
+from synthgen.evaluate import slices as score
 
 README = Path(__file__).resolve().parent.parent / "README.md"
 
@@ -46,3 +47,14 @@ def test_by_help_lists_every_slice_fact():
     help_text = next(p.help for p in score_cmd.params if p.name == "by")
     for name in facts.slice_facts():
         assert name in help_text
+
+
+def test_report_statistics_read_facts_of_the_table():
+    """The facts the dataset statistics read are FACTS entries of the type they treat them as."""
+    from synthgen.report import stats
+
+    assert (stats.VISIBLE.name, stats.VISIBLE.type) == ("visible_fraction", "numeric")
+    assert (stats.TRUNCATED.name, stats.TRUNCATED.type) == ("truncated", "categorical")
+    assert (stats.MAX_IOU.name, stats.MAX_IOU.type) == ("max_iou", "numeric")
+    for fact in (stats.VISIBLE, stats.TRUNCATED, stats.MAX_IOU):
+        assert facts.FACTS_BY_NAME[fact.name] is fact

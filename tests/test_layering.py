@@ -69,8 +69,6 @@ LAYER_OF: dict[str, str] = {
     "synthgen.cluster": "run",
     "synthgen.shards": "run",
     "synthgen.sweep": "run",
-    "synthgen.score": "evaluate",
-    "synthgen.report_score": "report",
 }
 
 #: (importer, imported) arrows allowed until the move that removes them lands.

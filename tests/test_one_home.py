@@ -5,7 +5,8 @@ from __future__ import annotations
 import ast
 from pathlib import Path
 
-from synthgen import jitter, report, scene, score
+from synthgen import jitter, report, scene
+from synthgen.evaluate import cocoeval as score
 from synthgen.formats import coco
 
 PACKAGE = Path(__file__).resolve().parent.parent / "synthgen"

@@ -41,7 +41,7 @@ import numpy as np
 
 from synthgen.errors import ConfigError
 from synthgen.geometry import as_boxes, box_iou, boxes_valid
-from synthgen.score import IOU_THRESHOLDS
+from synthgen.evaluate.cocoeval import IOU_THRESHOLDS
 
 __all__ = [
     "IOU_TOLERANCE",
@@ -57,7 +57,7 @@ __all__ = [
 IOU_TOLERANCE = 1e-9
 
 
-#: The IoU thresholds of COCO-style AP, 0.5, 0.55, ..., 0.95 (their home is :mod:`synthgen.score`).
+#: The IoU thresholds of COCO-style AP, 0.5, 0.55, ..., 0.95 (their home is :mod:`synthgen.evaluate`).
 COCO_IOU_THRESHOLDS = tuple(float(t) for t in IOU_THRESHOLDS)
 
 

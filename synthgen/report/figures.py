@@ -13,7 +13,7 @@ from pathlib import Path
 
 from synthgen._io import write_atomic
 from synthgen.errors import InputFileError, UserError, require_extra
-from synthgen.score import STAT_NAMES, BinResult, Evaluation, SweepPoint
+from synthgen.evaluate import STAT_NAMES, BinResult, Evaluation, SweepPoint
 
 __all__ = [
     "PANEL_PX",
@@ -103,7 +103,7 @@ def plot_slices(slices: Mapping[str, Sequence[BinResult]], path, *, title: str |
     Parameters
     ----------
     slices : mapping of fact -> list of BinResult
-        As returned by :meth:`synthgen.score.Evaluation.slice_by`.
+        As returned by :meth:`synthgen.evaluate.Evaluation.slice_by`.
     path : path-like
         Output PNG.
     title : str, optional
@@ -150,7 +150,7 @@ def plot_sweep(points: Sequence[SweepPoint], path) -> tuple[int, int]:
     Parameters
     ----------
     points : sequence of SweepPoint
-        As returned by :func:`synthgen.score.score_sweep`, in plotting order.
+        As returned by :func:`synthgen.evaluate.score_sweep`, in plotting order.
         With one varied key of plain numbers the x-axis is that number;
         otherwise each subset is a tick labelled with its varied values.
     path : path-like
