@@ -17,8 +17,8 @@ import time
 from pathlib import Path
 
 from synthgen.config import load_config
-from synthgen.dataset import image_name, make_dataset
 from synthgen.formats.images import encode_image
+from synthgen.run.make import image_name, make_dataset
 from synthgen.scene import render_scene
 
 

@@ -18,9 +18,9 @@ from pathlib import Path
 import pytest
 
 from synthgen.config import load_config
-from synthgen.dataset import make_dataset
 from synthgen.jitter import DetectorSpec
 from synthgen.jitter_coco import jitter_files
+from synthgen.run.make import make_dataset
 from synthgen.score import score_files
 
 CONFIG = Path(__file__).with_name("golden.toml")

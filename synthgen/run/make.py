@@ -14,10 +14,10 @@ How a run goes (:func:`make_dataset`):
 2. Images are rendered in blocks of indices, by worker processes or a Dask
    cluster.  Each image is written under a temporary name and renamed; its
    record (:func:`render_image_record`, serialized by
-   :func:`synthgen.shards.encode_record`) is appended to the run's journal and
+   :func:`synthgen.run.journal.encode_record`) is appended to the run's journal and
    flushed as each block finishes.
 3. :func:`finish_dataset` streams ``annotations.json`` from the journal in index
-   order (:func:`synthgen.shards.write_coco_streamed`), writes ``manifest.json``,
+   order (:func:`synthgen.run.journal.write_coco_streamed`), writes ``manifest.json``,
    both atomically with fsync, and removes ``.synthgen/``.
 
 Image ``k`` depends only on ``(config, k)``, so the output is byte-identical for
@@ -55,9 +55,7 @@ from synthgen.formats.dataset_dir import ANNOTATIONS, FORMAT_DIRS, FORMAT_ENTRIE
 from synthgen.formats.export import parse_formats, write_formats
 from synthgen.formats.images import EXTENSIONS, encode_image
 from synthgen.formats.splits import check_fractions
-from synthgen.pool import run_unordered, usable_cores
-from synthgen.scene import category_id, render_scene
-from synthgen.shards import (
+from synthgen.run.journal import (
     RUN_RECORD,
     STATE_DIR,
     RecordStore,
@@ -73,6 +71,8 @@ from synthgen.shards import (
     state_dir,
     write_coco_streamed,
 )
+from synthgen.run.pool import run_unordered, usable_cores
+from synthgen.scene import category_id, render_scene
 
 __all__ = [
     "MakeSummary",
@@ -281,7 +281,7 @@ def coco_info(config: Config) -> dict:
 def build_coco(config: Config, records) -> dict:
     """Assemble the COCO dict from per-image records in index order; ids start at 1.
 
-    The in-memory reference for :func:`synthgen.shards.write_coco_streamed`,
+    The in-memory reference for :func:`synthgen.run.journal.write_coco_streamed`,
     which writes the same bytes without holding every record.
     """
     return assemble_coco(coco_info(config), categories(config), records)
@@ -711,7 +711,7 @@ def make_dataset(
         Most processes to render with (None: every usable core).  Workers are
         fresh Python processes that import synthgen only, so a plain script
         calling this without an ``if __name__ == "__main__":`` guard is safe
-        (:mod:`synthgen.pool`).  A run renders in this process when it has fewer
+        (:mod:`synthgen.run.pool`).  A run renders in this process when it has fewer
         than ``2 * MIN_IMAGES_PER_WORKER`` images to render, or when ``workers``
         is 1: starting a worker costs about as much as rendering that many
         images.  The output does not depend on it.
@@ -757,7 +757,7 @@ def make_dataset(
         raise UserError(f"option '--workers' must be a whole number >= 1 (got {workers})")
     backend = None
     if cluster is not None:
-        from synthgen import cluster as cluster_mod
+        from synthgen.run import backends as cluster_mod
 
         # Fails with an install hint before anything is written; a local cluster gets `workers` processes.
         backend = cluster_mod.connect(cluster, workers=workers)

@@ -1,7 +1,7 @@
 """Rendering on a Dask distributed cluster (optional extra: ``pip install 'synthgen-shapes[cluster]'``).
 
 Each task renders one block of image indices with
-:func:`synthgen.dataset.render_block`, writing the image files straight into
+:func:`synthgen.run.make.render_block`, writing the image files straight into
 the shared output directory, and returns the block's journal lines; the client
 (the process that ran ``synthgen make``) appends them to the journal and
 finally writes the annotations and the manifest.  Every worker must see the
@@ -106,7 +106,7 @@ def connect(address: str, *, workers: int | None = None) -> DaskBackend:
     except ImportError:
         raise UserError(f"option '--cluster' needs dask.distributed, which is not installed: {INSTALL_HINT}") from None
     if address == "local":
-        from synthgen.pool import usable_cores
+        from synthgen.run.pool import usable_cores
 
         local = distributed.LocalCluster(
             n_workers=workers or usable_cores(), threads_per_worker=1, processes=True, dashboard_address=None

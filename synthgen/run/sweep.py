@@ -1,7 +1,7 @@
 """Sweeps: one dataset per combination of varied config values.
 
 ``synthgen sweep [CONFIG] --vary KEY=V1,V2,... [--vary ...] --out DIR`` writes
-one dataset (:func:`synthgen.dataset.make_dataset`) per combination of the
+one dataset (:func:`synthgen.run.make.make_dataset`) per combination of the
 varied values, nested one directory level per varied key::
 
     DIR/objects.size=[1,4]/layout.../      (one level per --vary, in the order given)
@@ -208,7 +208,7 @@ def run_sweep(
         subsets are checked against their manifests), and the result is the
         files an uninterrupted sweep writes.
     workers : int or None
-        Processes per dataset (see :func:`synthgen.dataset.make_dataset`).
+        Processes per dataset (see :func:`synthgen.run.make.make_dataset`).
     progress : callable or None
         Called with (images done, images in all subsets).
     plan : list or None
@@ -223,8 +223,8 @@ def run_sweep(
     import orjson
 
     from synthgen._io import write_atomic
-    from synthgen.dataset import make_dataset
-    from synthgen.shards import describe_differences, read_json, state_dir
+    from synthgen.run.journal import describe_differences, read_json, state_dir
+    from synthgen.run.make import make_dataset
 
     start = time.perf_counter()
     if overwrite and resume:
