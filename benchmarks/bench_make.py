@@ -18,7 +18,8 @@ from pathlib import Path
 
 from synthgen.config import load_config
 from synthgen.formats.images import encode_image
-from synthgen.run.make import image_name, make_dataset
+from synthgen.run.make import make_dataset
+from synthgen.run.render import image_name
 from synthgen.scene import render_scene
 
 

@@ -24,7 +24,7 @@ _EXPORTS = {
     "Scene": "synthgen.scene",
     "Shape": "synthgen.shapes",
     "make_dataset": "synthgen.run.make",
-    "merge_shards": "synthgen.run.make",
+    "merge_shards": "synthgen.run.merge",
     "evaluate": "synthgen.score",
     "simulate_detections": "synthgen.jitter",
     "DetectorSpec": "synthgen.jitter",

@@ -652,7 +652,7 @@ def merge(
 ) -> None:
     """Join shard outputs into the dataset a single run writes, byte for byte."""
     from synthgen.errors import OutputWriteError
-    from synthgen.run.make import merge_shards
+    from synthgen.run.merge import merge_shards
 
     try:
         summary = merge_shards(dirs, out, overwrite=overwrite)

@@ -34,6 +34,6 @@ def small_dataset(tmp_path_factory, small_config):
 @pytest.fixture
 def pool_always(monkeypatch):
     """Worker processes even for a handful of images (runs this small normally render in process)."""
-    import synthgen.run.make
+    import synthgen.run.backends
 
-    monkeypatch.setattr(synthgen.run.make, "MIN_IMAGES_PER_WORKER", 1)
+    monkeypatch.setattr(synthgen.run.backends, "MIN_IMAGES_PER_WORKER", 1)

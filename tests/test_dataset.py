@@ -177,7 +177,8 @@ def test_overwrite_of_an_unfinished_run_uses_its_journal(tmp_path, small_config)
     """An interrupted run (journal, no manifest) is replaced: its journal lists its images."""
     from synthgen.config import load_config
     from synthgen.run.journal import Shard, journal_path
-    from synthgen.run.make import prepare_output, render_block
+    from synthgen.run.outdir import prepare_output
+    from synthgen.run.render import render_block
 
     other = load_config(overrides=["count=4", "canvas.width=32", "canvas.height=32"])
     out = tmp_path / "ds"
@@ -306,7 +307,7 @@ def test_manifest_counts_objects_and_ignore_regions_apart(tmp_path):
     """counts.objects are the iscrowd-0 annotations, counts.ignored the iscrowd-1 ones; shards merge to the same."""
     from synthgen.config import load_config
     from synthgen.run.journal import Shard
-    from synthgen.run.make import merge_shards
+    from synthgen.run.merge import merge_shards
 
     cfg = load_config("configs/tiny.toml", ["count=3", "objects.count=[300,400]"])
     summary = make_dataset(cfg, tmp_path / "one", workers=1)

@@ -13,9 +13,10 @@ from pathlib import Path
 
 import pytest
 
-import synthgen.run.make
+import synthgen.run.backends
 from synthgen.config import load_config
-from synthgen.run.make import local_processes, make_dataset
+from synthgen.run.backends import local_processes
+from synthgen.run.make import make_dataset
 from synthgen.run.pool import WorkerFailed, run_unordered
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -45,16 +46,16 @@ def test_small_runs_stay_in_process(tmp_path, monkeypatch):
     def no_pool(*args, **kwargs):
         raise AssertionError("a worker pool was started for a small run")
 
-    monkeypatch.setattr(synthgen.run.make, "run_unordered", no_pool)
+    monkeypatch.setattr(synthgen.run.backends, "run_unordered", no_pool)
     cfg = load_config(overrides=["count=6", "canvas.width=64", "canvas.height=48", "objects.count=[1, 3]"])
     assert make_dataset(cfg, tmp_path / "d", workers=2).images == 6
-    assert local_processes(2 * synthgen.run.make.MIN_IMAGES_PER_WORKER - 1, 8) == 1
-    assert local_processes(2 * synthgen.run.make.MIN_IMAGES_PER_WORKER, 8) == 2
+    assert local_processes(2 * synthgen.run.backends.MIN_IMAGES_PER_WORKER - 1, 8) == 1
+    assert local_processes(2 * synthgen.run.backends.MIN_IMAGES_PER_WORKER, 8) == 2
 
 
 def test_plain_script_without_main_guard_runs_once(tmp_path):
     """A script calling make_dataset at top level (no __main__ guard) with workers is not re-run by them."""
-    n = 2 * synthgen.run.make.MIN_IMAGES_PER_WORKER  # enough images for two workers
+    n = 2 * synthgen.run.backends.MIN_IMAGES_PER_WORKER  # enough images for two workers
     script = tmp_path / "plain.py"
     script.write_text(textwrap.dedent(f"""
         from pathlib import Path

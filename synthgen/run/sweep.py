@@ -223,8 +223,9 @@ def run_sweep(
     import orjson
 
     from synthgen._io import write_atomic
-    from synthgen.run.journal import describe_differences, read_json, state_dir
+    from synthgen.run.journal import state_dir
     from synthgen.run.make import make_dataset
+    from synthgen.run.outdir import describe_differences, read_record
 
     start = time.perf_counter()
     if overwrite and resume:
@@ -247,7 +248,7 @@ def run_sweep(
             hint = ("pass --resume to continue it, or --overwrite to start again" if record_path.exists()
                     else "pass --overwrite to replace its sweep")
             raise UserError(f"{out}: output directory is not empty ({hint})")
-        there = read_json(earlier, "sweep record")
+        there = read_record(earlier, "sweep record")
         if there.get("vary") != asked["vary"] or there.get("base") != asked["base"]:
             differs = describe_differences(there.get("base") or {}, asked["base"]) or (
                 f"--vary {_vary_text(there.get('vary'))} there, {_vary_text(asked['vary'])} here")
