@@ -76,55 +76,11 @@ def prepare_output(
     out = Path(out)
     if out.exists() and not out.is_dir():
         raise UserError(f"{out}: output path is a file, not a directory")
-    here = to_dict(config)
     entries = dir_entries(out)
     if entries and overwrite:
         _clear(out)
         entries = []
-    state = "new"
-    if entries:
-        run_file = state_dir(out) / RUN_RECORD
-        manifest_file = out / MANIFEST
-        if manifest_file.exists():
-            there, what = _config_of(manifest_file, "manifest"), "a finished dataset"
-        elif run_file.exists():
-            there, what = _config_of(run_file, "run record"), "an unfinished run"
-        elif _only_empty_state(out, entries):  # killed before its run record was written
-            there, what = {"config": here, "versions": versions()}, "an unfinished run"
-        else:
-            raise UserError(f"{out}: output directory is not empty (pass --overwrite to replace its dataset)")
-        if there["config"] != here:
-            raise UserError(
-                f"{out}: holds {what} made from a different config, differing in "
-                f"{describe_differences(there['config'], here)} (pass --overwrite to replace it)"
-            )
-        if there.get("versions") != versions() and what == "an unfinished run":
-            raise UserError(
-                f"{out}: its unfinished run was started with other library versions ({there.get('versions')}), "
-                "so resuming would not reproduce it (pass --overwrite to start again)"
-            )
-        foreign = [
-            e for e in entries
-            if e not in OUTPUT_ENTRIES and not e.startswith("shard-")
-            and not any(fnmatch.fnmatchcase(e, pattern) for pattern in FORMAT_ENTRIES)
-        ]
-        if foreign:
-            raise UserError(f"{out}: output directory holds other files ({', '.join(foreign[:3])}); use an empty directory")
-        own_journal = journal_path(out, shard).exists() or shard_manifest_path(out, shard).exists()
-        if what == "a finished dataset":
-            if not resume:
-                raise UserError(
-                    f"{out}: output directory is not empty: it holds a finished dataset of this config "
-                    "(pass --resume to check and repair it, or --overwrite to write it again)"
-                )
-            state = "finished"
-        elif resume:
-            state = "unfinished"
-        elif own_journal or shard.whole:
-            raise UserError(
-                f"{out}: output directory is not empty: it holds an unfinished run of this config "
-                "(pass --resume to continue it, or --overwrite to start again)"
-            )
+    state = _state_of(out, config, shard, entries, resume=resume) if entries else "new"
     make_output_dir(out)  # a path that cannot be a directory is bad input, found before any work
     try:
         (out / IMAGES_DIR).mkdir(exist_ok=True)
@@ -135,6 +91,63 @@ def prepare_output(
     except OSError as exc:
         raise write_error(exc, out) from None
     return state
+
+
+def _state_of(out: Path, config: Config, shard: Shard, entries: list[str], *, resume: bool) -> str:
+    """What non-empty ``out`` is to this run (see :func:`prepare_output`); ``"new"``: other shards' work only."""
+    what = _earlier_run(out, to_dict(config), entries)
+    own_journal = journal_path(out, shard).exists() or shard_manifest_path(out, shard).exists()
+    if what == "a finished dataset":
+        if not resume:
+            raise UserError(
+                f"{out}: output directory is not empty: it holds a finished dataset of this config "
+                "(pass --resume to check and repair it, or --overwrite to write it again)"
+            )
+        return "finished"
+    if resume:
+        return "unfinished"
+    if own_journal or shard.whole:
+        raise UserError(
+            f"{out}: output directory is not empty: it holds an unfinished run of this config "
+            "(pass --resume to continue it, or --overwrite to start again)"
+        )
+    return "new"
+
+
+def _earlier_run(out: Path, here: dict, entries: list[str]) -> str:
+    """What non-empty ``out`` holds, ``"a finished dataset"`` or ``"an unfinished run"``, of config ``here``.
+
+    Raises a UserError for anything else: another config (naming the keys), another run's
+    library versions, files of someone else's, or no sign of a run.
+    """
+    run_file = state_dir(out) / RUN_RECORD
+    manifest_file = out / MANIFEST
+    if manifest_file.exists():
+        there, what = _config_of(manifest_file, "manifest"), "a finished dataset"
+    elif run_file.exists():
+        there, what = _config_of(run_file, "run record"), "an unfinished run"
+    elif _only_empty_state(out, entries):  # killed before its run record was written
+        there, what = {"config": here, "versions": versions()}, "an unfinished run"
+    else:
+        raise UserError(f"{out}: output directory is not empty (pass --overwrite to replace its dataset)")
+    if there["config"] != here:
+        raise UserError(
+            f"{out}: holds {what} made from a different config, differing in "
+            f"{describe_differences(there['config'], here)} (pass --overwrite to replace it)"
+        )
+    if there.get("versions") != versions() and what == "an unfinished run":
+        raise UserError(
+            f"{out}: its unfinished run was started with other library versions ({there.get('versions')}), "
+            "so resuming would not reproduce it (pass --overwrite to start again)"
+        )
+    foreign = [
+        e for e in entries
+        if e not in OUTPUT_ENTRIES and not e.startswith("shard-")
+        and not any(fnmatch.fnmatchcase(e, pattern) for pattern in FORMAT_ENTRIES)
+    ]
+    if foreign:
+        raise UserError(f"{out}: output directory holds other files ({', '.join(foreign[:3])}); use an empty directory")
+    return what
 
 
 def _only_empty_state(out: Path, entries: list[str]) -> bool:
