@@ -11,7 +11,7 @@ A whole run is shard 0 of 1: when it is complete its records are assembled into
 removed, so a finished dataset holds only ``images/``, ``annotations.json`` and
 ``manifest.json``.  Shard ``K`` of ``N`` holds the images whose 0-based index
 ``k`` has ``k % N == K`` (round robin, so every shard gets a similar mix and
-size); :func:`merge_shards` assembles the shards into the dataset a single run
+size); :func:`synthgen.run.merge.merge_shards` assembles the shards into the dataset a single run
 writes, byte for byte.
 
 Journal record

@@ -169,7 +169,7 @@ def _config_of(path: Path, what: str) -> dict:
 
 
 def _clear(out: Path) -> None:
-    """Remove what an earlier run wrote in ``out``, and nothing else (see :func:`_earlier_run_paths`)."""
+    """Remove what an earlier run wrote in ``out``, and nothing else (see :func:`earlier_run_paths`)."""
     remove_paths(earlier_run_paths(out))
 
 

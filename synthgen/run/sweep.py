@@ -246,16 +246,7 @@ def run_sweep(
     write_atomic(record_path, orjson.dumps(asked, option=orjson.OPT_INDENT_2))
     subsets, summaries = _make_subsets(plan, out, overwrite=overwrite, resume=resume, workers=workers,
                                        progress=progress)
-    record = {
-        "tool": "synthgen",
-        "sweep_version": 1,
-        "config": None if config_path is None else str(config_path),
-        "overrides": list(overrides),
-        "seed": plan[0][2].seed,
-        "vary": asked["vary"],
-        "subsets": subsets,
-        "base": asked["base"],
-    }
+    record = _sweep_record(config_path, overrides, plan[0][2].seed, asked, subsets)
     write_atomic(out / "sweep.json", orjson.dumps(record, option=orjson.OPT_INDENT_2))
     shutil.rmtree(state_dir(out), ignore_errors=True)
     return SweepSummary(
@@ -263,6 +254,20 @@ def run_sweep(
         objects=sum(s.objects for s in summaries), seconds=time.perf_counter() - start,
         records=tuple(subsets), kept=sum(s.kept for s in summaries),
     )
+
+
+def _sweep_record(config_path: Path | None, overrides, seed: int, asked: dict, subsets: list) -> dict:
+    """The finished sweep's ``sweep.json``: what was asked, and each subset's path, values and counts."""
+    return {
+        "tool": "synthgen",
+        "sweep_version": 1,
+        "config": None if config_path is None else str(config_path),
+        "overrides": list(overrides),
+        "seed": seed,
+        "vary": asked["vary"],
+        "subsets": subsets,
+        "base": asked["base"],
+    }
 
 
 def _check_sweep_dir(out: Path, record_path: Path, asked: dict, *, overwrite: bool, resume: bool) -> None:
