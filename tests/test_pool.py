@@ -77,3 +77,23 @@ def test_plain_script_without_main_guard_runs_once(tmp_path):
     assert (tmp_path / "ran.txt").read_text() == "ran\n"  # the script's top level ran once
     manifest = json.loads((tmp_path / "outputs" / "plain" / "manifest.json").read_text())
     assert manifest["counts"]["images"] == n
+
+
+def test_local_and_dask_backends_answer_the_same_calls():
+    """Both backends offer processes, run and close, so make_dataset never asks which one it has."""
+    from synthgen.run.backends import DaskBackend, LocalBackend, open_backend
+
+    for backend in (LocalBackend, DaskBackend):
+        assert all(callable(getattr(backend, name, None)) for name in ("processes", "run", "close"))
+    local = open_backend(None, 2)
+    assert isinstance(local, LocalBackend)
+    assert local.processes(3) == 1  # too few images to pay for a worker
+    seen = []
+
+    def unit(config, block, out):
+        seen.append((config, block, out))
+        return [b"%d" % k for k in block]
+
+    assert list(local.run(unit, "cfg", "dir", [[0, 1], [2]])) == [[b"0", b"1"], [b"2"]]
+    assert seen == [("cfg", [0, 1], "dir"), ("cfg", [2], "dir")]
+    local.close()
