@@ -39,7 +39,7 @@ from synthgen.errors import UserError
 from synthgen.formats.dataset_dir import IMAGES_DIR, MANIFEST
 from synthgen.formats.export import parse_formats
 from synthgen.formats.splits import check_fractions
-from synthgen.run.backends import block_size, blocks_of, open_backend, usable_cores
+from synthgen.run.backends import block_size, blocks_of, open_backend
 from synthgen.run.finish import MakeSummary, finish_dataset, finish_shard
 from synthgen.run.journal import (
     Shard,
@@ -50,6 +50,7 @@ from synthgen.run.journal import (
     verify_kept,
 )
 from synthgen.run.outdir import prepare_output, read_record, remove_temporaries, write_error
+from synthgen.run.pool import usable_cores
 from synthgen.run.render import image_name, render_block, render_image_record
 
 __all__ = ["MakeSummary", "DROP_KEYS", "drop_warning", "make_dataset"]
