@@ -22,7 +22,7 @@ from pathlib import Path
 
 from synthgen import layout
 from synthgen.config import load_config
-from synthgen.dataset import make_dataset
+from synthgen.run.make import make_dataset
 from synthgen.scene import _half_extents, _sample_objects, image_rng
 
 CASES = {

@@ -231,9 +231,9 @@ def make(
 ) -> None:
     """Render a dataset: images, COCO JSON annotations and a manifest."""
     from synthgen.config import load_config
-    from synthgen.dataset import make_dataset
     from synthgen.errors import OutputWriteError
-    from synthgen.shards import parse_shard
+    from synthgen.run.journal import parse_shard
+    from synthgen.run.make import make_dataset
 
     overrides = _overrides(set_, count, seed)
     cfg = load_config(config, overrides)
@@ -271,7 +271,7 @@ def _count(n: int, word: str) -> str:
 
 def _warn_drops(objects: int, dropped: dict, ignored: int, where: str = "") -> None:
     """One warning line on stderr when more than a tenth of the objects were not annotated."""
-    from synthgen.dataset import drop_warning
+    from synthgen.run.make import drop_warning
 
     line = drop_warning(objects, dropped, ignored)
     if line is not None:
@@ -610,7 +610,7 @@ def sweep(
     quiet: Annotated[bool, typer.Option("--quiet", "-q", help="No progress bar.")] = False,
 ) -> None:
     """Render one dataset per combination of varied config values, under DIR/<key>=<value>/."""
-    from synthgen.sweep import parse_vary, plan_sweep, run_sweep
+    from synthgen.run.sweep import parse_vary, plan_sweep, run_sweep
 
     overrides = _overrides(set_, count, seed)
     varies = [parse_vary(v) for v in vary]
@@ -642,8 +642,8 @@ def merge(
     overwrite: Annotated[bool, typer.Option("--overwrite", help="Replace a dataset in a non-empty --out.")] = False,
 ) -> None:
     """Join shard outputs into the dataset a single run writes, byte for byte."""
-    from synthgen.dataset import merge_shards
     from synthgen.errors import OutputWriteError
+    from synthgen.run.merge import merge_shards
 
     try:
         summary = merge_shards(dirs, out, overwrite=overwrite)

@@ -210,7 +210,7 @@ def small_dataset(path, *, formats: tuple[str, ...] = ("coco",), **kwargs) -> Pa
 
     ``formats`` may add the other formats ``synthgen export`` writes (e.g. ``("coco", "voc", "yolo")``).
     """
-    from synthgen.dataset import make_dataset
+    from synthgen.run.make import make_dataset
 
     path = Path(path)
     make_dataset(small_config(**kwargs), path, workers=1)

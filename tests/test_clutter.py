@@ -9,8 +9,8 @@ import pytest
 
 from synthgen.clutter import render_clutter
 from synthgen.config import ClutterSpec, load_config
-from synthgen.dataset import make_dataset
 from synthgen.errors import ConfigError
+from synthgen.run.make import make_dataset
 from synthgen.scene import render_scene
 
 BASE = ["canvas.width=128", "canvas.height=96", "objects.count=[5,5]", "objects.size=[10,30]",

@@ -18,10 +18,10 @@ from pathlib import Path
 import pytest
 
 from synthgen.config import load_config
-from synthgen.dataset import make_dataset
 from synthgen.evaluate.cocoeval import score_files
 from synthgen.jitter import DetectorSpec
 from synthgen.jitter.coco import jitter_files
+from synthgen.run.make import make_dataset
 
 CONFIG = Path(__file__).with_name("golden.toml")
 FORMATS = ("coco", "voc", "yolo", "tokens", "masks")

@@ -11,8 +11,8 @@ from shapely.geometry import box as shapely_box
 
 from synthgen import layout
 from synthgen.config import load_config
-from synthgen.dataset import make_dataset
 from synthgen.errors import ConfigError
+from synthgen.run.make import make_dataset
 from synthgen.scene import render_scene
 
 

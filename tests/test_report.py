@@ -600,7 +600,7 @@ def test_matching_agrees_with_what_the_jitter_sidecar_says(small_dataset):
 def test_stats_report_the_degradations_each_image_got(tmp_path):
     """Per-degradation image counts and parameter ranges equal a direct count over the image facts."""
     from synthgen.config import load_config
-    from synthgen.dataset import make_dataset
+    from synthgen.run.make import make_dataset
 
     cfg = load_config(overrides=["count=5", "seed=3", "canvas.width=48", "canvas.height=32",
                                  "degrade.noise.p=1", "degrade.jpeg.p=0.5"])

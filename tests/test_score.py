@@ -474,7 +474,7 @@ def test_derived_facts_equal_the_recorded_ones(small_dataset):
 def dense_coco(tmp_path_factory):
     """COCO ground truth of three dense tiny-object images (configs/tiny.toml, 300-500 objects each)."""
     from synthgen.config import load_config
-    from synthgen.dataset import make_dataset
+    from synthgen.run.make import make_dataset
 
     out = tmp_path_factory.mktemp("dense") / "ds"
     make_dataset(load_config("configs/tiny.toml", ["count=3", "objects.count=[300,500]"]), out, workers=1)

@@ -466,7 +466,7 @@ def assemble_coco(info: dict, categories: list[dict], records) -> dict:
     """The COCO dict from per-image records (``{"image": ..., "annotations": [...]}``) in index order.
 
     Annotation ids start at 1 and run over all images in order.  The in-memory
-    reference for :func:`synthgen.shards.write_coco_streamed`, which writes the
+    reference for :func:`synthgen.run.journal.write_coco_streamed`, which writes the
     same bytes without holding every record.
     """
     images, annotations = [], []

@@ -9,7 +9,7 @@ name), so nothing of the calling program is imported or re-run in a worker.
 Why not :mod:`multiprocessing` or :class:`concurrent.futures.ProcessPoolExecutor`:
 their ``spawn`` and ``forkserver`` start methods import the caller's main
 module again in every worker, so a plain script that calls
-:func:`synthgen.dataset.make_dataset` without an ``if __name__ == "__main__":``
+:func:`synthgen.run.make.make_dataset` without an ``if __name__ == "__main__":``
 guard would run again in each worker; ``fork`` copies the caller's threads'
 locks into the child (OpenCV's thread pool, a Dask client) and can deadlock it.
 
@@ -38,7 +38,7 @@ _BOOT = (
     "import os, pickle, sys\n"
     "tasks = os.fdopen(int(sys.argv[1]), 'rb')\n"
     "sys.path[:] = pickle.load(tasks)\n"
-    "from synthgen.pool import _serve\n"
+    "from synthgen.run.pool import _serve\n"
     "_serve(tasks, os.fdopen(int(sys.argv[2]), 'wb'))\n"
 )
 

@@ -1,7 +1,7 @@
 """Sweeps: one dataset per combination of varied config values.
 
 ``synthgen sweep [CONFIG] --vary KEY=V1,V2,... [--vary ...] --out DIR`` writes
-one dataset (:func:`synthgen.dataset.make_dataset`) per combination of the
+one dataset (:func:`synthgen.run.make.make_dataset`) per combination of the
 varied values, nested one directory level per varied key::
 
     DIR/objects.size=[1,4]/layout.../      (one level per --vary, in the order given)
@@ -25,8 +25,14 @@ from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
 
+import orjson
+
+from synthgen._io import write_atomic
 from synthgen.config import Config, load_config, parse_override, to_dict
 from synthgen.errors import ConfigError, UserError, make_output_dir
+from synthgen.run.journal import state_dir
+from synthgen.run.make import make_dataset
+from synthgen.run.outdir import describe_differences, read_record
 
 __all__ = ["Vary", "SweepSummary", "parse_vary", "value_label", "plan_sweep", "run_sweep"]
 
@@ -208,7 +214,7 @@ def run_sweep(
         subsets are checked against their manifests), and the result is the
         files an uninterrupted sweep writes.
     workers : int or None
-        Processes per dataset (see :func:`synthgen.dataset.make_dataset`).
+        Processes per dataset (see :func:`synthgen.run.make.make_dataset`).
     progress : callable or None
         Called with (images done, images in all subsets).
     plan : list or None
@@ -220,12 +226,6 @@ def run_sweep(
         A bad output directory, ``overwrite`` with ``resume``, or ``resume`` on
         a directory holding another sweep (the message names what differs).
     """
-    import orjson
-
-    from synthgen._io import write_atomic
-    from synthgen.dataset import make_dataset
-    from synthgen.shards import describe_differences, read_json, state_dir
-
     start = time.perf_counter()
     if overwrite and resume:
         raise UserError("options '--overwrite' and '--resume' exclude each other: pass one of them")
@@ -239,6 +239,39 @@ def run_sweep(
         "base": to_dict(load_config(config_path, list(overrides))),
     }
     record_path = state_dir(out) / SWEEP_RECORD
+    _check_sweep_dir(out, record_path, asked, overwrite=overwrite, resume=resume)
+    make_output_dir(out)
+    (out / "sweep.json").unlink(missing_ok=True)  # until every subset is done again, it does not look finished
+    make_output_dir(state_dir(out))
+    write_atomic(record_path, orjson.dumps(asked, option=orjson.OPT_INDENT_2))
+    subsets, summaries = _make_subsets(plan, out, overwrite=overwrite, resume=resume, workers=workers,
+                                       progress=progress)
+    record = _sweep_record(config_path, overrides, plan[0][2].seed, asked, subsets)
+    write_atomic(out / "sweep.json", orjson.dumps(record, option=orjson.OPT_INDENT_2))
+    shutil.rmtree(state_dir(out), ignore_errors=True)
+    return SweepSummary(
+        out=out, subsets=len(plan), images=sum(s.images for s in summaries),
+        objects=sum(s.objects for s in summaries), seconds=time.perf_counter() - start,
+        records=tuple(subsets), kept=sum(s.kept for s in summaries),
+    )
+
+
+def _sweep_record(config_path: Path | None, overrides, seed: int, asked: dict, subsets: list) -> dict:
+    """The finished sweep's ``sweep.json``: what was asked, and each subset's path, values and counts."""
+    return {
+        "tool": "synthgen",
+        "sweep_version": 1,
+        "config": None if config_path is None else str(config_path),
+        "overrides": list(overrides),
+        "seed": seed,
+        "vary": asked["vary"],
+        "subsets": subsets,
+        "base": asked["base"],
+    }
+
+
+def _check_sweep_dir(out: Path, record_path: Path, asked: dict, *, overwrite: bool, resume: bool) -> None:
+    """Refuse a sweep directory this sweep may not write: a file, another sweep, or a non-empty one without an option."""
     if out.exists() and not out.is_dir():
         raise UserError(f"{out}: output path is a file, not a directory")
     if out.is_dir() and any(out.iterdir()) and not overwrite:
@@ -247,21 +280,19 @@ def run_sweep(
             hint = ("pass --resume to continue it, or --overwrite to start again" if record_path.exists()
                     else "pass --overwrite to replace its sweep")
             raise UserError(f"{out}: output directory is not empty ({hint})")
-        there = read_json(earlier, "sweep record")
+        there = read_record(earlier, "sweep record")
         if there.get("vary") != asked["vary"] or there.get("base") != asked["base"]:
             differs = describe_differences(there.get("base") or {}, asked["base"]) or (
                 f"--vary {_vary_text(there.get('vary'))} there, {_vary_text(asked['vary'])} here")
             raise UserError(f"{out}: holds a sweep of other settings, differing in {differs} "
                             "(pass --overwrite to replace it)")
-    make_output_dir(out)
-    (out / "sweep.json").unlink(missing_ok=True)  # until every subset is done again, it does not look finished
-    make_output_dir(state_dir(out))
-    write_atomic(record_path, orjson.dumps(asked, option=orjson.OPT_INDENT_2))
+
+
+def _make_subsets(plan, out: Path, *, overwrite: bool, resume: bool, workers, progress) -> tuple[list, list]:
+    """Make every subset's dataset in plan order; return their sweep.json records and make summaries."""
     total = sum(cfg.count for _, _, cfg in plan)
     done = 0
-    kept = 0
-    subsets = []
-    n_objects = 0
+    subsets, summaries = [], []
     for rel, values, cfg in plan:
         offset = done
 
@@ -271,8 +302,7 @@ def run_sweep(
 
         summary = make_dataset(cfg, out / rel, overwrite=overwrite, resume=resume, workers=workers, progress=advance)
         done += summary.images
-        kept += summary.kept
-        n_objects += summary.objects
+        summaries.append(summary)
         subsets.append(
             {
                 "path": rel,
@@ -283,22 +313,7 @@ def run_sweep(
                 "dropped": summary.dropped,
             }
         )
-    record = {
-        "tool": "synthgen",
-        "sweep_version": 1,
-        "config": None if config_path is None else str(config_path),
-        "overrides": list(overrides),
-        "seed": plan[0][2].seed,
-        "vary": asked["vary"],
-        "subsets": subsets,
-        "base": asked["base"],
-    }
-    write_atomic(out / "sweep.json", orjson.dumps(record, option=orjson.OPT_INDENT_2))
-    shutil.rmtree(state_dir(out), ignore_errors=True)
-    return SweepSummary(
-        out=out, subsets=len(plan), images=done, objects=n_objects, seconds=time.perf_counter() - start,
-        records=tuple(subsets), kept=kept,
-    )
+    return subsets, summaries
 
 
 #: The record of an unfinished sweep, inside the sweep directory's ``.synthgen/``.

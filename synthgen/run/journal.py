@@ -11,7 +11,7 @@ A whole run is shard 0 of 1: when it is complete its records are assembled into
 removed, so a finished dataset holds only ``images/``, ``annotations.json`` and
 ``manifest.json``.  Shard ``K`` of ``N`` holds the images whose 0-based index
 ``k`` has ``k % N == K`` (round robin, so every shard gets a similar mix and
-size); :func:`merge_shards` assembles the shards into the dataset a single run
+size); :func:`synthgen.run.merge.merge_shards` assembles the shards into the dataset a single run
 writes, byte for byte.
 
 Journal record
@@ -33,6 +33,7 @@ whole COCO dict (:func:`synthgen.formats.coco.assemble_coco`).
 
 from __future__ import annotations
 
+import contextlib
 import os
 import re
 import shutil
@@ -42,7 +43,7 @@ from pathlib import Path
 import numpy as np
 import orjson
 
-from synthgen._io import AtomicWriter, sha256_file
+from synthgen._io import AtomicWriter, named_os_errors, sha256_file
 from synthgen.errors import InputFileError, OutputWriteError, UserError
 from synthgen.formats.dataset_dir import STATE_DIR
 
@@ -60,9 +61,9 @@ __all__ = [
     "RecordStore",
     "AtomicWriter",
     "write_coco_streamed",
-    "config_differences",
-    "describe_differences",
-    "read_json",
+    "known_records",
+    "append_records",
+    "verify_kept",
     "remove_state",
     "sha256_file",
     "OutputWriteError",
@@ -380,61 +381,6 @@ def write_coco_streamed(path: Path, store: RecordStore, indices, *, info: dict, 
     return n_objects, w.sha256.hexdigest(), dropped, files, ignored
 
 
-# --------------------------------------------------------------------------- configs
-
-
-def _flatten(tree, prefix: str = "") -> dict:
-    flat = {}
-    if isinstance(tree, dict):
-        for key, value in tree.items():
-            flat.update(_flatten(value, f"{prefix}{key}."))
-    else:
-        flat[prefix.rstrip(".")] = tree
-    return flat
-
-
-def config_differences(a: dict, b: dict) -> list[str]:
-    """Dotted keys whose values differ between two config dicts (as :func:`synthgen.config.to_dict` gives).
-
-    Examples
-    --------
-    >>> config_differences({"seed": 1, "canvas": {"width": 4, "height": 3}}, {"seed": 1, "canvas": {"width": 5, "height": 3}})
-    ['canvas.width']
-    """
-    fa, fb = _flatten(a), _flatten(b)
-    return sorted(k for k in set(fa) | set(fb) if fa.get(k, object) != fb.get(k, object))
-
-
-def describe_differences(there: dict, here: dict, limit: int = 4) -> str:
-    """``"canvas.width (160 there, 320 here), seed (1 there, 2 here)"``, at most ``limit`` keys."""
-    fa, fb = _flatten(there), _flatten(here)
-    keys = config_differences(there, here)
-    shown = [f"{k} ({_short(fa.get(k, '<unset>'))} there, {_short(fb.get(k, '<unset>'))} here)" for k in keys[:limit]]
-    if len(keys) > limit:
-        shown.append(f"and {len(keys) - limit} more")
-    return ", ".join(shown)
-
-
-def _short(v) -> str:
-    text = orjson.dumps(v).decode() if not isinstance(v, str) else repr(v)
-    return text if len(text) <= 30 else text[:27] + "..."
-
-
-def read_json(path: Path, what: str) -> dict:
-    """Read a JSON object written by synthgen; errors name the file."""
-    try:
-        data = orjson.loads(Path(path).read_bytes())
-    except FileNotFoundError:
-        raise InputFileError(path, f"{what} does not exist") from None
-    except OSError as exc:
-        raise InputFileError(path, f"{what} cannot be read ({exc.strerror})") from None
-    except orjson.JSONDecodeError:
-        raise InputFileError(path, f"{what} is not valid JSON (damaged?)") from None
-    if not isinstance(data, dict):
-        raise InputFileError(path, f"{what} is not a JSON object")
-    return data
-
-
 def remove_state(out: Path) -> None:
     """Remove an unfinished run's progress (``.synthgen/`` and shard manifests) from ``out``."""
     for _, p in find_shard_manifests(out):
@@ -442,3 +388,67 @@ def remove_state(out: Path) -> None:
     shutil.rmtree(state_dir(out), ignore_errors=True)
 
 
+# --------------------------------------------------------------------------- a run's journal
+
+
+def known_records(n_images: int, out: Path, shard: Shard, *, resume_from: bool) -> tuple[RecordStore, int]:
+    """Records already in ``out``'s journals, and where this shard's journal may be appended to.
+
+    A whole run may also use the records of earlier shard runs in the same directory.
+    """
+    store = RecordStore(n_images)
+    journal = journal_path(out, shard)
+    end = 0
+    if resume_from:
+        mine = shard.indices(n_images)
+        if shard.whole:
+            for other in sorted(state_dir(out).glob("*.journal")):
+                if other != journal:
+                    store.load_journal(other, wanted=mine)
+        if journal.exists():
+            end = store.load_journal(journal, wanted=mine)
+    return store, end
+
+
+def append_records(journal: Path, end: int, results, store: RecordStore, report) -> None:
+    """Append each finished block's records to ``journal`` (cut back to ``end``) and index them in ``store``."""
+    journal.touch()
+    done = 0
+    if report is not None:
+        report(done)
+    # Unbuffered: each record reaches the OS as its block finishes, and closing has nothing left to fail on.
+    with open(journal, "r+b", buffering=0) as jf, contextlib.closing(results):
+        jf.truncate(end)  # drop a record cut short by a crash
+        offset = jf.seek(end)
+        for lines in results:
+            with named_os_errors(journal):
+                for line in lines:
+                    _write_all(jf, line)
+                    store.add(journal, orjson.loads(line[: line.index(b"\t")])["index"], offset, len(line))
+                    offset += len(line)
+            done += len(lines)
+            if report is not None:
+                report(done)
+        with named_os_errors(journal):
+            os.fsync(jf.fileno())
+
+
+def _write_all(raw, data: bytes) -> None:
+    """Write all of ``data`` to an unbuffered file (a raw write may take only part)."""
+    view = memoryview(data)
+    while view:
+        view = view[raw.write(view):]
+
+
+def verify_kept(out: Path, store: RecordStore, indices) -> int:
+    """Forget the records of images whose files are missing or do not match their digests; count the kept."""
+    kept = 0
+    for k in indices:
+        if not store.has(k):
+            continue
+        header, _ = store.read(k)
+        if all(sha256_file(Path(out) / rel) == digest for rel, digest in header["files"].items()):
+            kept += 1
+        else:
+            store.forget(k)
+    return kept
