@@ -40,8 +40,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from synthgen.errors import ConfigError
-from synthgen.geometry import as_boxes, box_iou, boxes_valid
 from synthgen.evaluate.cocoeval import IOU_THRESHOLDS
+from synthgen.geometry import as_boxes, box_iou, boxes_valid
 
 __all__ = [
     "IOU_TOLERANCE",
