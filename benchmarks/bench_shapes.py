@@ -25,8 +25,8 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from synthgen import shapes  # noqa: E402
-from synthgen.shapes import KINDS, Shape, coverage  # noqa: E402
+from synthgen.scene import shapes  # noqa: E402
+from synthgen.scene.shapes import KINDS, Shape, coverage  # noqa: E402
 
 H, W = 480, 640
 

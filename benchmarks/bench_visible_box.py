@@ -29,12 +29,16 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))  # for tests/_visible_reference.py
 
-import synthgen.scene as scene_mod  # noqa: E402
-from synthgen import visible  # noqa: E402
+import synthgen.scene.composer as scene_mod  # noqa: E402
 from synthgen.config import load_config  # noqa: E402
 from synthgen.geometry import mask_box  # noqa: E402
-from synthgen.scene import image_rng, plan_objects, render_scene  # noqa: E402
-from synthgen.shapes import clipped_box, coverage, exact_box  # noqa: E402
+from synthgen.scene import (  # noqa: E402
+    image_rng,
+    plan_objects,
+    render_scene,
+    visible,  # noqa: E402
+)
+from synthgen.scene.shapes import clipped_box, coverage, exact_box  # noqa: E402
 from tests import _visible_reference as reference  # noqa: E402
 
 CASES = {

@@ -22,7 +22,7 @@ _EXPORTS = {
     "compose": "synthgen.scene",
     "compose_shapes": "synthgen.scene",
     "Scene": "synthgen.scene",
-    "Shape": "synthgen.shapes",
+    "Shape": "synthgen.scene.shapes",
     "make_dataset": "synthgen.dataset",
     "merge_shards": "synthgen.dataset",
     "evaluate": "synthgen.score",

@@ -23,11 +23,11 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from synthgen.backgrounds import BackgroundSpec
-from synthgen.degrade import DegradeSpec
 from synthgen.errors import ConfigError, InputFileError, as_tuples, check_choice, check_number, check_range
-from synthgen.kinds import CROSS_BAR, POINTS, RING_HOLE, SIDES, STAR_INNER, check_parameters
-from synthgen.shapes import FILLS, KINDS
+from synthgen.scene.backgrounds import BackgroundSpec
+from synthgen.scene.degrade import DegradeSpec
+from synthgen.scene.kinds import CROSS_BAR, POINTS, RING_HOLE, SIDES, STAR_INNER, check_parameters
+from synthgen.scene.shapes import FILLS, KINDS
 
 __all__ = [
     "CanvasSpec",

@@ -61,11 +61,11 @@ import numpy as np
 
 from synthgen._io import read_json
 from synthgen.errors import InputFileError, UserError, is_int, is_number
-from synthgen.facts import DEFAULT_EDGES, GEOMETRIC_BASE
 from synthgen.formats.coco import AREA_RANGES, xyxy_from_bbox
 from synthgen.formats.dataset_dir import ANNOTATIONS
 from synthgen.formats.results import read_predictions
 from synthgen.geometry import box_iou, box_relations
+from synthgen.scene.facts import DEFAULT_EDGES, GEOMETRIC_BASE
 
 __all__ = [
     "IOU_THRESHOLDS",

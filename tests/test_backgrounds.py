@@ -7,7 +7,8 @@ import numpy as np
 import pytest
 from scipy import ndimage
 
-from synthgen.backgrounds import (
+from synthgen.errors import ConfigError
+from synthgen.scene.backgrounds import (
     BACKGROUND_KINDS,
     BackgroundSpec,
     checker,
@@ -21,7 +22,6 @@ from synthgen.backgrounds import (
     stripes,
     value_noise,
 )
-from synthgen.errors import ConfigError
 
 H, W = 120, 160
 

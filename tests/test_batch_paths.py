@@ -10,7 +10,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from synthgen.shapes import KINDS, Shape, coverage, coverage_many
+from synthgen.scene.shapes import KINDS, Shape, coverage, coverage_many
 
 
 def _tiny_scene(seed: int, n: int, lo: float, hi: float, height: int = 60, width: int = 80):
@@ -62,7 +62,7 @@ def test_coverage_many_rejects_bad_stroke():
 
 def _region_arrays(region) -> list:
     """Every number that defines a region, in a fixed order (for exact comparison)."""
-    from synthgen import shapes as sh
+    from synthgen.scene import shapes as sh
 
     if isinstance(region, sh._Convex):
         return [np.asarray(region.nx), np.asarray(region.ny), np.asarray(region.c)]
@@ -78,7 +78,7 @@ def _region_arrays(region) -> list:
 @pytest.mark.parametrize("seed", range(4))
 def test_bulk_geometry_equals_one_by_one(seed, monkeypatch):
     """Geometry built in bulk (boxes, areas, half-planes, vertices) equals the one-shape build exactly."""
-    from synthgen import shapes as sh
+    from synthgen.scene import shapes as sh
 
     monkeypatch.setattr(sh, "_BULK_BUILD_MIN", 1)  # every group in bulk, even of one shape
     shapes, _strokes, _h, _w = _tiny_scene(seed, 400, 0.5, 200.0)
@@ -132,7 +132,7 @@ def _styled_scene(seed: int, n: int):
 @pytest.mark.parametrize("seed", range(8))
 def test_bulk_drawing_equals_one_shape_at_a_time(seed, monkeypatch):
     """compose_shapes judging occlusion and drawing in bulk gives the same image bytes, boxes, areas, facts and masks."""
-    from synthgen import scene
+    from synthgen.scene import composer as scene
 
     canvas, shapes, styles, extras, config = _styled_scene(seed, 150)
     bulk = scene.compose_shapes(canvas, shapes, config, rng=np.random.default_rng(seed), styles=styles, extras=extras)
@@ -178,7 +178,7 @@ def test_coverage_many_sample_masks_equal_inside(seed):
 @pytest.mark.parametrize("seed", range(4))
 def test_clear_sides_equal_a_double_loop(seed):
     """The patches the walk treats as meeting nothing above (or below) are exactly those (plain double loop)."""
-    from synthgen.scene import _clear_sides
+    from synthgen.scene.composer import _clear_sides
 
     rng = np.random.default_rng(seed)
     n = 300

@@ -6,7 +6,8 @@ from pathlib import Path
 
 import numpy as np
 
-from synthgen import facts, score
+from synthgen import score
+from synthgen.scene import facts
 
 README = Path(__file__).resolve().parent.parent / "README.md"
 

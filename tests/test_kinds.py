@@ -6,12 +6,12 @@ import numpy as np
 import pytest
 from typer.testing import CliRunner
 
-from synthgen import kinds
 from synthgen.cli import app
 from synthgen.config import load_config
 from synthgen.errors import ConfigError
-from synthgen.scene import _sample_objects, render_scene
-from synthgen.shapes import KINDS, Shape, natural_aspect, own_size
+from synthgen.scene import kinds
+from synthgen.scene.composer import _sample_objects, render_scene
+from synthgen.scene.shapes import KINDS, Shape, natural_aspect, own_size
 from tests._kind_descriptors import NearestCentroid, classes, descriptors, render, sample
 
 # --------------------------------------------------------------------------- ranges

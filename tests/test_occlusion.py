@@ -6,8 +6,8 @@ import numpy as np
 import pytest
 
 from synthgen.geometry import mask_box
-from synthgen.occlusion import SampleBuffer, patch_bounds, sample_bits, sample_bits_many
-from synthgen.shapes import KINDS, Shape, coverage, coverage_many
+from synthgen.scene.occlusion import SampleBuffer, patch_bounds, sample_bits, sample_bits_many
+from synthgen.scene.shapes import KINDS, Shape, coverage, coverage_many
 
 
 def _random_shapes(seed: int, n: int, height: int, width: int):
@@ -97,7 +97,7 @@ def test_sample_bits_agree_on_every_path(samples):
 
 def test_patch_bounds_are_the_coverage_patch():
     """patch_bounds gives the rows and columns of coverage's patch, and None exactly when coverage is None."""
-    from synthgen.shapes import exact_box
+    from synthgen.scene.shapes import exact_box
 
     shapes, strokes = _random_shapes(3, 300, 40, 50)
     for shape in shapes:

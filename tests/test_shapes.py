@@ -15,7 +15,7 @@ from skimage.draw import polygon as draw_polygon
 from skimage.measure import label, regionprops
 
 from synthgen.geometry import clip_boxes, mask_box
-from synthgen.shapes import (
+from synthgen.scene.shapes import (
     FILLS,
     KINDS,
     Coverage,

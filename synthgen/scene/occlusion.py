@@ -25,7 +25,7 @@ from typing import NamedTuple
 
 import numpy as np
 
-from synthgen import shapes as shapes_mod
+from synthgen.scene import shapes as shapes_mod
 
 __all__ = ["SampleBuffer", "sample_bits", "sample_bits_many", "patch_bounds"]
 
@@ -106,7 +106,7 @@ def sample_bits(cov, inside: np.ndarray | None = None, edges: tuple | None = Non
 
     Examples
     --------
-    >>> from synthgen.shapes import Shape, coverage
+    >>> from synthgen.scene.shapes import Shape, coverage
     >>> bits = sample_bits(coverage(Shape("rectangle", 2.0, 2.0, 1.0), 4, 4, samples=4))
     >>> bits.shape  # a unit square centred on a pixel corner: a quarter of each of 2 x 2 pixels
     (2, 2, 2)
@@ -180,7 +180,7 @@ class SampleBuffer:
 
     Examples
     --------
-    >>> from synthgen.shapes import Shape, coverage
+    >>> from synthgen.scene.shapes import Shape, coverage
     >>> buf = SampleBuffer(8, 8, 4)
     >>> top = coverage(Shape("rectangle", 4.0, 4.0, 4.0), 8, 8)   # pixels 2..5
     >>> low = coverage(Shape("rectangle", 3.0, 4.0, 4.0), 8, 8)   # pixels 1..4: 3 of 4 columns under top

@@ -37,9 +37,9 @@ from __future__ import annotations
 
 import math
 
-from synthgen import shapes as shapes_mod
 from synthgen.errors import ConfigError, check_range
-from synthgen.shapes import Shape, natural_aspect
+from synthgen.scene import shapes as shapes_mod
+from synthgen.scene.shapes import Shape, natural_aspect
 
 __all__ = [
     "SIDES",

@@ -22,8 +22,8 @@ import math
 
 import numpy as np
 
-from synthgen.backgrounds import value_noise
-from synthgen.shapes import Shape, coverage
+from synthgen.scene.backgrounds import value_noise
+from synthgen.scene.shapes import Shape, coverage
 
 __all__ = ["render_clutter", "MARK_KINDS"]
 

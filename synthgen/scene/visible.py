@@ -41,8 +41,8 @@ import math
 import numpy as np
 import shapely
 
-from synthgen import shapes as shapes_mod
-from synthgen.shapes import Shape, clipped_box
+from synthgen.scene import shapes as shapes_mod
+from synthgen.scene.shapes import Shape, clipped_box
 
 __all__ = ["TOLERANCE", "visible_box", "visible_boxes", "region_polygons"]
 

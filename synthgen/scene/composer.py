@@ -51,16 +51,15 @@ from dataclasses import dataclass, field, replace
 
 import numpy as np
 
-from synthgen import layout as layout_mod
-from synthgen import shapes as shapes_mod
-from synthgen.backgrounds import render_background
-from synthgen.clutter import render_clutter
-from synthgen.degrade import degrade_owned
 from synthgen.geometry import box_iou, box_relations, clip_boxes, half_extents, mask_box, overlapping_pairs
-from synthgen.kinds import identifiable, stroke_limit
-from synthgen.occlusion import SampleBuffer, patch_bounds, sample_bits_many
-from synthgen.seeding import STAGES, image_rng
-from synthgen.shapes import (
+from synthgen.scene import placement as layout_mod
+from synthgen.scene import shapes as shapes_mod
+from synthgen.scene.backgrounds import render_background
+from synthgen.scene.clutter import render_clutter
+from synthgen.scene.degrade import degrade_owned
+from synthgen.scene.kinds import identifiable, stroke_limit
+from synthgen.scene.occlusion import SampleBuffer, patch_bounds, sample_bits_many
+from synthgen.scene.shapes import (
     KINDS,
     Shape,
     clipped_box,
@@ -70,7 +69,8 @@ from synthgen.shapes import (
     paint,
     sample_inside,
 )
-from synthgen.visible import visible_boxes
+from synthgen.scene.visible import visible_boxes
+from synthgen.seeding import STAGES, image_rng
 
 __all__ = [
     "Scene",
