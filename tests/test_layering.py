@@ -67,15 +67,7 @@ LAYER_OF: dict[str, str] = {
 }
 
 #: (importer, imported) arrows allowed until the move that removes them lands.
-TRANSITIONAL: frozenset[tuple[str, str]] = frozenset(
-    {
-        # the config schema still takes its section specs from the stage modules (phase 2: config.py holds it all)
-        ("synthgen.config", "synthgen.scene.backgrounds"),
-        ("synthgen.config", "synthgen.scene.degrade"),
-        ("synthgen.config", "synthgen.scene.kinds"),
-        ("synthgen.config", "synthgen.scene.shapes"),
-    }
-)
+TRANSITIONAL: frozenset[tuple[str, str]] = frozenset()
 
 
 def module_name(path: Path) -> str:

@@ -37,7 +37,7 @@ from __future__ import annotations
 
 import math
 
-from synthgen.errors import ConfigError, check_range
+from synthgen.config import CROSS_BAR, POINTS, RING_HOLE, SIDES, STAR_INNER
 from synthgen.scene import shapes as shapes_mod
 from synthgen.scene.shapes import Shape, natural_aspect
 
@@ -54,19 +54,7 @@ __all__ = [
     "breadth",
     "stroke_limit",
     "identifiable",
-    "check_parameters",
 ]
-
-SIDES = (5, 8)
-"""Sides of a polygon."""
-POINTS = (5, 8)
-"""Points of a star."""
-STAR_INNER = (0.3, 0.55)
-"""Inner / outer radius of a star."""
-RING_HOLE = (0.3, 0.6)
-"""Hole / outer semi-axes of a ring."""
-CROSS_BAR = (0.2, 0.4)
-"""Bar thickness / length of a cross."""
 
 OUTLINE_SHARE = 0.125
 """Largest outline band, as a share of the shape's breadth (outline-only style)."""
@@ -76,15 +64,6 @@ MEASURED_ASPECT = (0.25, 4.0)
 
 MEASURED_STROKE = 1.0
 """Thinnest outline band (px) over which :data:`IDENTIFIABLE_BREADTH` was measured."""
-
-#: The parameter ranges a config may narrow: key -> (range, whole numbers, what lies beyond it).
-_KEYS = {
-    "objects.sides": (SIDES, True, "polygons of fewer sides are triangles or rectangles, of more ellipses"),
-    "objects.points": (POINTS, True, "stars of fewer points are triangles or crosses, of more blobs"),
-    "objects.inner": (STAR_INNER, False, "fuller stars are polygons, thinner ones sets of lines"),
-    "objects.hole": (RING_HOLE, False, "rings with wider holes are outlined ellipses, with smaller ones ellipses"),
-    "objects.bar": (CROSS_BAR, False, "crosses with thicker bars are octagons, with thinner ones lines"),
-}
 
 # Smallest breadth (px) at which each kind, filled (False) or outline-only (True), is told from
 # every other kind.  Measured by `python tools/measure_identifiable.py --per-class 40 --seed 1`
@@ -172,17 +151,3 @@ def identifiable(shape: Shape, stroke: float = 0.0) -> bool:
     if stroke > 0.0 and not (MEASURED_STROKE <= stroke <= OUTLINE_SHARE * b * (1.0 + 1e-9)):
         return False
     return b >= IDENTIFIABLE_BREADTH[(kind, stroke > 0.0)]
-
-
-def check_parameters(spec) -> None:
-    """Raise :class:`~synthgen.errors.ConfigError` unless each kind's parameter range in ``spec`` keeps the kinds apart.
-
-    ``spec`` is a :class:`synthgen.config.ObjectSpec`; its ``sides``, ``points``,
-    ``inner``, ``hole`` and ``bar`` may narrow the ranges above, never widen them.
-    """
-    for key, (bounds, integer, why) in _KEYS.items():
-        value = getattr(spec, key.split(".")[1])
-        try:
-            check_range(key, value, lo=bounds[0], hi=bounds[1], integer=integer)
-        except ConfigError as err:
-            raise ConfigError(key, err.rule, value, hint=why) from None

@@ -73,6 +73,8 @@ from functools import lru_cache
 
 import numpy as np
 
+from synthgen.config import FILLS, KINDS
+
 __all__ = [
     "KINDS",
     "FILLS",
@@ -89,12 +91,6 @@ __all__ = [
     "coverage_many",
     "paint",
 ]
-
-KINDS = ("rectangle", "ellipse", "triangle", "polygon", "star", "ring", "cross")
-"""Shape kinds, in canonical order (category ids are ``KINDS.index(kind) + 1``)."""
-
-FILLS = ("flat", "gradient", "stripes")
-"""Fill styles understood by :func:`paint`."""
 
 _ELLIPTIC = frozenset({"ellipse", "ring"})
 
