@@ -228,7 +228,7 @@ def plan_objects(config, *, rng: np.random.Generator):
     index = placement.index.tolist()
     extras = [dict(f) for f in placement.facts] if placement.facts else [{} for _ in index]
     centres = placement.centres.tolist()
-    shapes = [shapes_mod._moved_to(shapes[i], centres[j][0], centres[j][1]) for j, i in enumerate(index)]
+    shapes = [shapes_mod.moved_to(shapes[i], centres[j][0], centres[j][1]) for j, i in enumerate(index)]
     styles = [styles[i] for i in index]
     info = {}
     if spec.occlusion[1] > 0:
@@ -345,7 +345,7 @@ def _sample_objects(config, rng: np.random.Generator, n: int | None = None, kind
         or (np.isfinite(sizes).all() and (sizes > 0).all() and np.isfinite(aspects).all() and (aspects > 0).all()
             and np.isfinite(angles).all() and 0 < min(inner) and max(inner) < 1 and min(sides) >= 3)
     )
-    make = shapes_mod._trusted if trusted else Shape
+    make = shapes_mod.trusted_shape if trusted else Shape
     fill_names = [spec.fills[k] for k in fills.tolist()]
     shapes, styles = [], []
     for kind, size, asp, angle, side, inr, is_outline, fill, stroke, fill_angle, period in zip(
@@ -386,11 +386,11 @@ _BOX_LAYOUTS = frozenset({"separated", "pairs"})
 
 def _half_extents(shapes) -> np.ndarray:
     """Half width and half height (N, 2) of each shape's exact box (geometry built in bulk)."""
-    return half_extents(np.array([g.box for g in shapes_mod._geoms(shapes)], dtype=np.float64).reshape(-1, 4))
+    return half_extents(np.array([g.box for g in shapes_mod.shape_geometries(shapes)], dtype=np.float64).reshape(-1, 4))
 
 
 def _moved(shape: Shape, centre) -> Shape:
-    return shapes_mod._moved_to(shape, float(centre[0]), float(centre[1]))
+    return shapes_mod.moved_to(shape, float(centre[0]), float(centre[1]))
 
 
 def _pair_geometry(shapes, top_iou: float):
@@ -652,7 +652,7 @@ def _measure(shapes, styles, extras, config, height: int, width: int) -> list:
     base = 1
     for stop in range(len(shapes), 0, -_MEASURE_CHUNK):
         chunk = range(stop - 1, max(0, stop - _MEASURE_CHUNK) - 1, -1)  # top first
-        geoms = dict(zip(chunk, shapes_mod._geoms([shapes[i] for i in chunk])))  # built in bulk, held per chunk
+        geoms = dict(zip(chunk, shapes_mod.shape_geometries([shapes[i] for i in chunk])))  # built in bulk, held per chunk
         patches = {i: patch_bounds(geoms[i].box, height, width) for i in chunk}
         on_canvas = [i for i in chunk if patches[i] is not None]
         clear: tuple = (set(), set())

@@ -62,7 +62,7 @@ def _point_samples(cov, rr: np.ndarray, cc: np.ndarray) -> np.ndarray:
     xs = cc.astype(np.float64)[:, None, None] + offs[None, None, :]  # (K, 1, s)
     ys = rr.astype(np.float64)[:, None, None] + offs[None, :, None]  # (K, s, 1)
     # The region behind Coverage.inside (private to shapes.py): the same exact point test.
-    region = shapes_mod._region(cov.shape, cov.stroke)
+    region = shapes_mod.shape_region(cov.shape, cov.stroke)
     return np.broadcast_to(region.contains(xs, ys), (rr.size, s, s))
 
 

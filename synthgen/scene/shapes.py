@@ -76,6 +76,11 @@ import numpy as np
 from synthgen.config import FILLS, KINDS
 
 __all__ = [
+    "trusted_shape",
+    "moved_to",
+    "shape_geometry",
+    "shape_geometries",
+    "shape_region",
     "KINDS",
     "FILLS",
     "Shape",
@@ -184,7 +189,7 @@ _new_object = object.__new__
 _set_field = object.__setattr__
 
 
-def _trusted(
+def trusted_shape(
     kind: str, cx: float, cy: float, size: float, aspect: float, angle: float, sides: int, inner: float
 ) -> Shape:
     """A :class:`Shape` from values already known to pass its checks (Python floats, int ``sides``).
@@ -204,11 +209,11 @@ def _trusted(
     return s
 
 
-def _moved_to(shape: Shape, cx: float, cy: float) -> Shape:
+def moved_to(shape: Shape, cx: float, cy: float) -> Shape:
     """``replace(shape, cx=cx, cy=cy)`` for finite Python floats, without re-checking the other fields."""
     if not (math.isfinite(cx) and math.isfinite(cy)):
         raise ValueError(f"Shape centre must be finite (got {cx!r}, {cy!r})")
-    return _trusted(shape.kind, cx, cy, shape.size, shape.aspect, shape.angle, shape.sides, shape.inner)
+    return trusted_shape(shape.kind, cx, cy, shape.size, shape.aspect, shape.angle, shape.sides, shape.inner)
 
 
 # --------------------------------------------------------------------------
@@ -453,7 +458,9 @@ class _Band:
 # --------------------------------------------------------------------------
 
 
-class _Geom:
+class ShapeGeometry:
+    """What a shape's outline makes of it, in image coordinates: its unclipped exact box, area and filled region."""
+
     __slots__ = ("box", "area", "region", "ellipse", "hole", "_verts", "_nring", "_map", "scale")
 
     def __init__(self, box, area, region, ellipse=None, hole=0.0, verts=None, nring=0, affine=None, scale=1.0):
@@ -559,7 +566,7 @@ def _cross(inner: float):
     return verts, ((_CROSS_NX, _CROSS_NY, c),), 2.0 * inner - inner * inner, 1.0, 1.0
 
 
-def _build(shape: Shape) -> _Geom:
+def _build(shape: Shape) -> ShapeGeometry:
     th = math.radians(shape.angle)
     cos, sin = math.cos(th), math.sin(th)
     kind = shape.kind
@@ -576,8 +583,8 @@ def _build(shape: Shape) -> _Geom:
         if kind == "ring":
             q = shape.inner
             hole = _Ellipse(shape.cx, shape.cy, cos, sin, q * a, q * b)
-            return _Geom(box, math.pi * a * b * (1.0 - q * q), _Diff(ell, hole), ell, q, scale=k)
-        return _Geom(box, math.pi * a * b, ell, ell, scale=k)
+            return ShapeGeometry(box, math.pi * a * b * (1.0 - q * q), _Diff(ell, hole), ell, q, scale=k)
+        return ShapeGeometry(box, math.pi * a * b, ell, ell, scale=k)
 
     if kind == "star":
         verts, groups, area0, ex, ey = _star(shape.sides, shape.inner)
@@ -609,7 +616,7 @@ def _build(shape: Shape) -> _Geom:
         nx = cos * ux - sin * uy
         ny = sin * ux + cos * uy
         parts.append(_Convex(nx, ny, (k * lc) * inv_len + (nx * tx + ny * ty)))
-    return _Geom(
+    return ShapeGeometry(
         box,
         area0 * sx * sy * k * k,
         parts[0] if len(parts) == 1 else _Union(parts),
@@ -738,7 +745,7 @@ def _build_polygon_group(kind: str, sides: int, shapes) -> list:
     for i in range(n):
         convex = [_Convex(nx[i], ny[i], c[i]) for nx, ny, c in parts]
         out.append(
-            _Geom(
+            ShapeGeometry(
                 tuple(boxes[i]),
                 areas[i],
                 convex[0] if len(convex) == 1 else _Union(convex),
@@ -751,12 +758,13 @@ def _build_polygon_group(kind: str, sides: int, shapes) -> list:
     return out
 
 
-#: Geometry cache (shape -> _Geom); cleared whole when it reaches _GEOM_MAX entries.
+#: Geometry cache (shape -> ShapeGeometry); cleared whole when it reaches _GEOM_MAX entries.
 _GEOMS: dict = {}
 _GEOM_MAX = 8192
 
 
-def _geom(shape: Shape) -> _Geom:
+def shape_geometry(shape: Shape) -> ShapeGeometry:
+    """The shape's outline, exact box, area and filled region, built once and cached (shapes are hashable)."""
     g = _GEOMS.get(shape)
     if g is None:
         g = _build(shape)
@@ -766,8 +774,8 @@ def _geom(shape: Shape) -> _Geom:
     return g
 
 
-def _geoms(shapes) -> list:
-    """``[_geom(s) for s in shapes]``, building the missing ones in bulk."""
+def shape_geometries(shapes) -> list:
+    """``[shape_geometry(s) for s in shapes]``, building the missing ones in bulk."""
     got = [_GEOMS.get(s) for s in shapes]
     todo = list({s: None for s, g in zip(shapes, got) if g is None})
     if not todo:
@@ -780,8 +788,9 @@ def _geoms(shapes) -> list:
 
 
 @lru_cache(maxsize=8192)
-def _region(shape: Shape, stroke: float):
-    g = _geom(shape)
+def shape_region(shape: Shape, stroke: float):
+    """The region the shape covers: its filled region (``stroke`` 0) or its outline band ``stroke`` px wide."""
+    g = shape_geometry(shape)
     if stroke <= 0.0:
         return g.region
     if g.ring is not None:
@@ -831,7 +840,7 @@ def exact_box(shape: Shape) -> np.ndarray:
     >>> exact_box(Shape("ellipse", 0.0, 0.0, 10.0, aspect=2.0, angle=90.0)).round(9).tolist()
     [-2.5, -5.0, 2.5, 5.0]
     """
-    return np.array(_geom(shape).box, dtype=np.float64)
+    return np.array(shape_geometry(shape).box, dtype=np.float64)
 
 
 def exact_area(shape: Shape) -> float:
@@ -842,7 +851,7 @@ def exact_area(shape: Shape) -> float:
     >>> exact_area(Shape("rectangle", 0.0, 0.0, 4.0))
     16.0
     """
-    return float(_geom(shape).area)
+    return float(shape_geometry(shape).area)
 
 
 def own_size(shape: Shape) -> tuple[float, float]:
@@ -855,7 +864,7 @@ def own_size(shape: Shape) -> tuple[float, float]:
     >>> [round(v, 6) for v in own_size(Shape("ellipse", 0.0, 0.0, 10.0, aspect=2.0, angle=30.0))]
     [11.094004, 5.547002]
     """
-    k = _geom(shape).scale
+    k = shape_geometry(shape).scale
     return k * shape.aspect, k
 
 
@@ -921,7 +930,7 @@ def clipped_box(shape: Shape, height: int, width: int) -> np.ndarray | None:
     >>> clipped_box(diamond, 20, 20).round(9).tolist()  # the right half of the diamond
     [0.0, 0.0, 5.0, 10.0]
     """
-    g = _geom(shape)
+    g = shape_geometry(shape)
     W, H = float(width), float(height)
     bx0, by0, bx1, by1 = g.box
     if not (max(bx0, 0.0) < min(bx1, W) and max(by0, 0.0) < min(by1, H)):
@@ -998,7 +1007,7 @@ def outline(shape: Shape, *, resolution: int = 256) -> list[np.ndarray]:
     >>> outline(Shape("rectangle", 2.0, 2.0, 2.0))[0].tolist()
     [[1.0, 1.0], [3.0, 1.0], [3.0, 3.0], [1.0, 3.0]]
     """
-    g = _geom(shape)
+    g = shape_geometry(shape)
     if g.ring is not None:
         return [_oriented(g.ring.copy(), positive=True)]
     resolution = int(resolution)
@@ -1050,7 +1059,7 @@ def sample_inside(shape: Shape, x, y, *, stroke: float = 0.0) -> np.ndarray:
     stroke = float(stroke)
     if not (math.isfinite(stroke) and stroke >= 0.0):
         raise ValueError(f"stroke must be a finite number >= 0 px (got {stroke!r})")
-    return _region(shape, stroke).contains(np.asarray(x, dtype=np.float64), np.asarray(y, dtype=np.float64))
+    return shape_region(shape, stroke).contains(np.asarray(x, dtype=np.float64), np.asarray(y, dtype=np.float64))
 
 
 # --------------------------------------------------------------------------
@@ -1116,7 +1125,7 @@ class Coverage:
                 f"{self.row0}:{self.row0 + h}, cols {self.col0}:{self.col0 + w}"
             )
         s = self.samples
-        region = _region(self.shape, self.stroke)
+        region = shape_region(self.shape, self.stroke)
         bh, bw = r1 - r0, c1 - c0
         if bh * bw <= _GRID_MAX_PIXELS or s == 1:
             return region.contains(_grid(c0, c1, s)[None, :], _grid(r0, r1, s)[:, None])
@@ -1165,7 +1174,7 @@ def coverage(
     stroke = float(stroke)
     if not (math.isfinite(stroke) and stroke >= 0.0):
         raise ValueError(f"stroke must be a finite number >= 0 px (got {stroke!r})")
-    g = _geom(shape)
+    g = shape_geometry(shape)
     bx0, by0, bx1, by1 = g.box
     x0, y0 = max(bx0, 0.0), max(by0, 0.0)
     x1, y1 = min(bx1, float(width)), min(by1, float(height))
@@ -1174,7 +1183,7 @@ def coverage(
     col0, row0 = int(math.floor(x0)), int(math.floor(y0))
     col1, row1 = int(math.ceil(x1)), int(math.ceil(y1))
     h, w = row1 - row0, col1 - col0
-    region = _region(shape, stroke)
+    region = shape_region(shape, stroke)
     if h * w <= _GRID_MAX_PIXELS or s == 1:
         inside = region.contains(_grid(col0, col1, s)[None, :], _grid(row0, row1, s)[:, None])
         counts = inside.reshape(h, s, w, s).sum(axis=(1, 3))
@@ -1239,7 +1248,7 @@ def coverage_many(
         edges[:] = [None] * n
     groups: dict = {}
     W, H = float(width), float(height)
-    geoms = _geoms(shapes) if _geometry is None else _geometry  # (callers that hold them already)
+    geoms = shape_geometries(shapes) if _geometry is None else _geometry  # (callers that hold them already)
     for i, (shape, stroke, g) in enumerate(zip(shapes, strokes, geoms)):
         if not (math.isfinite(stroke) and stroke >= 0.0):
             raise ValueError(f"stroke must be a finite number >= 0 px (got {stroke!r})")
@@ -1250,7 +1259,7 @@ def coverage_many(
             continue
         col0, row0 = int(math.floor(x0)), int(math.floor(y0))
         h, w = int(math.ceil(y1)) - row0, int(math.ceil(x1)) - col0
-        region = g.region if stroke <= 0.0 else _region(shape, stroke)  # as _region gives
+        region = g.region if stroke <= 0.0 else shape_region(shape, stroke)  # as shape_region gives
         sig = _signature(region) if h * w <= _GRID_MAX_PIXELS else None
         if sig is None:
             sampled: list | None = [] if insides is not None or edges is not None else None
