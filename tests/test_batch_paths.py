@@ -62,15 +62,15 @@ def test_coverage_many_rejects_bad_stroke():
 
 def _region_arrays(region) -> list:
     """Every number that defines a region, in a fixed order (for exact comparison)."""
-    from synthgen.scene import shapes as sh
+    from synthgen.scene.regions import ConvexRegion, DifferenceRegion, EllipseRegion, UnionRegion
 
-    if isinstance(region, sh._Convex):
+    if isinstance(region, ConvexRegion):
         return [np.asarray(region.nx), np.asarray(region.ny), np.asarray(region.c)]
-    if isinstance(region, sh._Union):
+    if isinstance(region, UnionRegion):
         return [a for p in region.parts for a in _region_arrays(p)]
-    if isinstance(region, sh._Diff):
+    if isinstance(region, DifferenceRegion):
         return _region_arrays(region.keep) + _region_arrays(region.cut)
-    if isinstance(region, sh._Ellipse):
+    if isinstance(region, EllipseRegion):
         return [np.array([region.ex, region.ey, region.cos, region.sin, region.a, region.b])]
     raise AssertionError(f"unexpected region {region!r}")
 

@@ -74,6 +74,16 @@ from functools import lru_cache
 import numpy as np
 
 from synthgen.config import FILLS, KINDS
+from synthgen.scene.regions import EDGE_TOLERANCE as _TOL
+from synthgen.scene.regions import (
+    ConvexBand,
+    ConvexRegion,
+    DifferenceRegion,
+    EllipseRegion,
+    EmptyRegion,
+    PolygonBand,
+    UnionRegion,
+)
 
 __all__ = [
     "trusted_shape",
@@ -99,9 +109,6 @@ __all__ = [
 
 _ELLIPTIC = frozenset({"ellipse", "ring"})
 
-# Convex pieces accept points up to this far (px) outside their edges, so that
-# points on an edge shared by two pieces of one shape are never lost to rounding.
-_TOL = 1e-9
 # Slack (px) added to the classification margin to absorb rounding in the bounds.
 _SLACK = 1e-6
 # Patches with at most this many pixels are sub-sampled everywhere (cheaper than
@@ -217,243 +224,6 @@ def moved_to(shape: Shape, cx: float, cy: float) -> Shape:
 
 
 # --------------------------------------------------------------------------
-# Regions: exact point tests and conservative distance bounds.
-#
-# Every region offers ``contains(x, y)`` (the exact point test, broadcasting x
-# and y) and ``bound(x, y)``: a signed number, negative inside, whose magnitude
-# never exceeds the Euclidean distance to the region's boundary.  Unions take the
-# minimum, differences ``max(a, -b)``; both keep the lower-bound property.
-# --------------------------------------------------------------------------
-
-
-def _expand(coef: np.ndarray, nd: int) -> np.ndarray:
-    return coef.reshape(coef.shape + (1,) * nd)
-
-
-class _Convex:
-    """Union of P convex polygons, each given by E half-planes ``nx x + ny y <= c``.
-
-    ``nx``, ``ny`` and ``c`` have shape (P, E); the normals are unit vectors, so
-    ``nx x + ny y - c`` is the signed distance to each edge's line.
-    """
-
-    __slots__ = ("nx", "ny", "c", "_nx2", "_ny2", "_c2")
-
-    def __init__(self, nx: np.ndarray, ny: np.ndarray, c: np.ndarray):
-        self.nx, self.ny, self.c = nx, ny, c
-        # Pre-expanded for 2-D point arrays, the common case.
-        self._nx2, self._ny2, self._c2 = nx[..., None, None], ny[..., None, None], c[..., None, None]
-
-    @classmethod
-    def from_pieces(cls, pieces: np.ndarray) -> _Convex:
-        """Half-planes of convex polygons with vertices ``pieces`` (P, E, 2), any orientation."""
-        d = np.roll(pieces, -1, axis=1) - pieces  # (P, E, 2) edge vectors
-        length = np.hypot(d[..., 0], d[..., 1])  # (P, E)
-        nx = d[..., 1] / length
-        ny = -d[..., 0] / length
-        c = nx * pieces[..., 0] + ny * pieces[..., 1]
-        mid = pieces.mean(axis=1)  # (P, 2), strictly inside each convex piece
-        flip = (nx * mid[:, None, 0] + ny * mid[:, None, 1] - c) > 0  # normal points inward
-        sign = np.where(flip, -1.0, 1.0)
-        return cls(nx * sign, ny * sign, c * sign)
-
-    def _edge_max(self, x, y) -> np.ndarray:
-        x = np.asarray(x, dtype=np.float64)
-        y = np.asarray(y, dtype=np.float64)
-        nd = max(x.ndim, y.ndim)
-        if nd == 2:
-            vals = (self._nx2 * x - self._c2) + self._ny2 * y  # (P, E, ...)
-        else:
-            vals = (_expand(self.nx, nd) * x - _expand(self.c, nd)) + _expand(self.ny, nd) * y
-        return vals.max(axis=1)  # (P, ...)
-
-    def contains(self, x, y) -> np.ndarray:
-        m = self._edge_max(x, y)
-        return m[0] <= _TOL if m.shape[0] == 1 else (m <= _TOL).any(axis=0)
-
-    def bound(self, x, y) -> np.ndarray:
-        m = self._edge_max(x, y)
-        return m[0] if m.shape[0] == 1 else m.min(axis=0)
-
-
-class _Ellipse:
-    """Filled ellipse: centre, rotation (cos, sin) and semi-axes a (own x), b (own y)."""
-
-    __slots__ = ("ex", "ey", "cos", "sin", "a", "b", "qa", "qb", "qc")
-
-    def __init__(self, ex, ey, cos, sin, a, b):
-        self.ex, self.ey, self.cos, self.sin, self.a, self.b = ex, ey, cos, sin, a, b
-        # q = (u/a)^2 + (v/b)^2 with u = cos dx + sin dy, v = -sin dx + cos dy,
-        # expanded as qa dx^2 + qb dx dy + qc dy^2 so that a grid needs few full-size ops.
-        ia, ib = 1.0 / (a * a), 1.0 / (b * b)
-        self.qa = cos * cos * ia + sin * sin * ib
-        self.qb = 2.0 * cos * sin * (ia - ib)
-        self.qc = sin * sin * ia + cos * cos * ib
-
-    def _q(self, x, y):
-        dx = np.asarray(x, dtype=np.float64) - self.ex
-        dy = np.asarray(y, dtype=np.float64) - self.ey
-        return (self.qa * dx * dx + self.qc * dy * dy) + (self.qb * dx) * dy
-
-    def contains(self, x, y) -> np.ndarray:
-        return self._q(x, y) <= 1.0
-
-    def bound(self, x, y) -> np.ndarray:
-        dx = np.asarray(x, dtype=np.float64) - self.ex
-        dy = np.asarray(y, dtype=np.float64) - self.ey
-        u = self.cos * dx + self.sin * dy
-        v = self.cos * dy - self.sin * dx
-        a, b = self.a, self.b
-        rho = np.sqrt((u / a) ** 2 + (v / b) ** 2)
-        # Outside: the support line at the nearest level-set point separates the
-        # point from the ellipse by (rho - 1) * h(n) with h(n) = rho / |grad|.
-        grad = np.maximum(np.sqrt((u / (a * a)) ** 2 + (v / (b * b)) ** 2), 1e-300)
-        outside = (rho - 1.0) * rho / grad
-        # Inside: the gauge function is Lipschitz with constant 1 / min(a, b).
-        inside = (rho - 1.0) * min(a, b)
-        return np.where(rho > 1.0, outside, inside)
-
-
-class _Nothing:
-    """The empty region."""
-
-    __slots__ = ()
-
-    def contains(self, x, y):
-        return np.zeros(np.broadcast_shapes(np.shape(x), np.shape(y)), dtype=bool)
-
-    def bound(self, x, y):
-        return np.full(np.broadcast_shapes(np.shape(x), np.shape(y)), np.inf)
-
-
-class _Union:
-    """Points in any of ``parts`` (each a :class:`_Convex`)."""
-
-    __slots__ = ("parts", "_padded")
-
-    def __init__(self, parts):
-        self.parts = tuple(parts)
-        self._padded = None
-
-    def padded(self):
-        """All pieces' half-planes as (E, P) arrays, short pieces padded with a repeated edge."""
-        if self._padded is None:
-            e = max(p.nx.shape[1] for p in self.parts)
-
-            def pad(a):
-                return np.concatenate([a, np.repeat(a[:, :1], e - a.shape[1], axis=1)], axis=1)
-
-            self._padded = tuple(
-                np.ascontiguousarray(np.concatenate([pad(np.asarray(getattr(p, name))) for p in self.parts]).T)
-                for name in ("nx", "ny", "c")
-            )
-        return self._padded
-
-    def contains(self, x, y):
-        out = self.parts[0].contains(x, y)
-        for part in self.parts[1:]:
-            out = out | part.contains(x, y)
-        return out
-
-    def bound(self, x, y):
-        out = self.parts[0].bound(x, y)
-        for part in self.parts[1:]:
-            out = np.minimum(out, part.bound(x, y))
-        return out
-
-
-class _Diff:
-    """Points of ``keep`` that are not in ``cut``."""
-
-    __slots__ = ("keep", "cut")
-
-    def __init__(self, keep, cut):
-        self.keep, self.cut = keep, cut
-
-    def contains(self, x, y):
-        return self.keep.contains(x, y) & ~self.cut.contains(x, y)
-
-    def bound(self, x, y):
-        return np.maximum(self.keep.bound(x, y), -self.cut.bound(x, y))
-
-
-class _ConvexBand:
-    """Points of one convex polygon closer than ``width`` to its boundary.
-
-    Inside a convex polygon the distance to the boundary is exactly ``-f`` with
-    ``f`` the largest signed edge-line distance, so no segment distances are needed.
-    """
-
-    __slots__ = ("fill", "width")
-
-    def __init__(self, fill: _Convex, width: float):
-        self.fill = fill
-        self.width = float(width)
-
-    def contains(self, x, y):
-        f = self.fill.bound(x, y)
-        return (f <= _TOL) & (f > -self.width)
-
-    def bound(self, x, y):
-        f = self.fill.bound(x, y)
-        w = self.width
-        return np.where(f > 0.0, f, np.where(f > -w, np.maximum(f, -w - f), -f - w))
-
-
-class _Band:
-    """Points of a polygonal region closer than ``width`` to its boundary segments."""
-
-    __slots__ = ("fill", "ax", "ay", "dx", "dy", "inv", "width")
-
-    def __init__(self, fill, ring: np.ndarray, width: float):
-        self.fill = fill
-        d = np.roll(ring, -1, axis=0) - ring  # (K, 2)
-        self.ax, self.ay = ring[:, 0].copy(), ring[:, 1].copy()
-        self.dx, self.dy = d[:, 0].copy(), d[:, 1].copy()
-        self.inv = 1.0 / (self.dx**2 + self.dy**2)
-        self.width = float(width)
-
-    def _dist2(self, x, y):
-        x = np.asarray(x, dtype=np.float64)
-        y = np.asarray(y, dtype=np.float64)
-        nd = max(x.ndim, y.ndim)
-        px = x - _expand(self.ax, nd)  # (K, ...)
-        py = y - _expand(self.ay, nd)
-        dx, dy = _expand(self.dx, nd), _expand(self.dy, nd)
-        t = np.clip((px * dx + py * dy) * _expand(self.inv, nd), 0.0, 1.0)
-        ex = px - t * dx
-        ey = py - t * dy
-        return (ex * ex + ey * ey).min(axis=0)
-
-    def contains(self, x, y):
-        return self.fill.contains(x, y) & (self._dist2(x, y) < self.width * self.width)
-
-    # The fill is a union of convex pieces, whose bound f is a lower bound on the
-    # distance to the boundary: f < -width already rules a point out of the band,
-    # and only points with -width <= f <= 0 need their exact segment distance.
-
-    def bound(self, x, y):
-        f = self.fill.bound(x, y)
-        w = self.width
-        # outside the shape: f bounds the distance to the shape, which holds the band;
-        # deeper than w: the band is at least -f - w away
-        out = np.where(f > 0.0, f, -f - w)
-        near = (f <= 0.0) & (f >= -w)
-        if near.any():
-            xb, yb = np.broadcast_arrays(np.asarray(x, dtype=np.float64), np.asarray(y, dtype=np.float64))
-            xs, ys = xb[near], yb[near]
-            d = np.sqrt(self._dist2(xs, ys))
-            band = np.where(d < w, -np.minimum(d, w - d), d - w)
-            if isinstance(self.fill, (_Convex, _Union)):
-                # their contains() is exactly bound() <= _TOL (the same edge values), and
-                # f <= 0 here: every near point is inside, no need to test again
-                out[near] = band
-            else:
-                out[near] = np.where(self.fill.contains(xs, ys), band, d)
-        return out
-
-
-# --------------------------------------------------------------------------
 # Geometry of one shape
 # --------------------------------------------------------------------------
 
@@ -468,7 +238,7 @@ class ShapeGeometry:
         self.area = area
         self.scale = scale  # px per unit of the own frame (width aspect, height 1)
         self.region = region  # fill region
-        self.ellipse = ellipse  # _Ellipse for ellipse / ring, else None
+        self.ellipse = ellipse  # EllipseRegion for ellipse / ring, else None
         self.hole = hole  # ring hole ratio, else 0.0
         self._verts = verts  # own-frame vertices (2, K) of polygon kinds, else None
         self._nring = nring
@@ -503,7 +273,7 @@ def _unit(kind: str, sides: int):
         phi = 2.0 * np.pi * np.arange(sides) / sides
         v = np.stack([np.sin(phi), -np.cos(phi)], axis=1)
         area = sides * math.sin(2.0 * math.pi / sides) / 2.0  # n R^2 sin(2 pi / n) / 2
-    hp = _Convex.from_pieces(v[None, :, :])
+    hp = ConvexRegion.from_pieces(v[None, :, :])
     ext = v.max(axis=0) - v.min(axis=0)
     verts = np.ascontiguousarray(v.T)
     for arr in (verts, hp.nx, hp.ny, hp.c):
@@ -579,11 +349,11 @@ def _build(shape: Shape) -> ShapeGeometry:
         a, b = k * a0, k * b0
         hx, hy = k * hx, k * hy
         box = (shape.cx - hx, shape.cy - hy, shape.cx + hx, shape.cy + hy)
-        ell = _Ellipse(shape.cx, shape.cy, cos, sin, a, b)
+        ell = EllipseRegion(shape.cx, shape.cy, cos, sin, a, b)
         if kind == "ring":
             q = shape.inner
-            hole = _Ellipse(shape.cx, shape.cy, cos, sin, q * a, q * b)
-            return ShapeGeometry(box, math.pi * a * b * (1.0 - q * q), _Diff(ell, hole), ell, q, scale=k)
+            hole = EllipseRegion(shape.cx, shape.cy, cos, sin, q * a, q * b)
+            return ShapeGeometry(box, math.pi * a * b * (1.0 - q * q), DifferenceRegion(ell, hole), ell, q, scale=k)
         return ShapeGeometry(box, math.pi * a * b, ell, ell, scale=k)
 
     if kind == "star":
@@ -615,11 +385,11 @@ def _build(shape: Shape) -> ShapeGeometry:
         uy = my * inv_len
         nx = cos * ux - sin * uy
         ny = sin * ux + cos * uy
-        parts.append(_Convex(nx, ny, (k * lc) * inv_len + (nx * tx + ny * ty)))
+        parts.append(ConvexRegion(nx, ny, (k * lc) * inv_len + (nx * tx + ny * ty)))
     return ShapeGeometry(
         box,
         area0 * sx * sy * k * k,
-        parts[0] if len(parts) == 1 else _Union(parts),
+        parts[0] if len(parts) == 1 else UnionRegion(parts),
         verts=verts,
         nring=verts.shape[1],
         affine=(k * lin, np.array([tx, ty])),
@@ -743,12 +513,12 @@ def _build_polygon_group(kind: str, sides: int, shapes) -> list:
     nring = verts.shape[-1]
     out = []
     for i in range(n):
-        convex = [_Convex(nx[i], ny[i], c[i]) for nx, ny, c in parts]
+        convex = [ConvexRegion(nx[i], ny[i], c[i]) for nx, ny, c in parts]
         out.append(
             ShapeGeometry(
                 tuple(boxes[i]),
                 areas[i],
-                convex[0] if len(convex) == 1 else _Union(convex),
+                convex[0] if len(convex) == 1 else UnionRegion(convex),
                 verts=verts if shared else verts[i],
                 nring=nring,
                 affine=(maps[i], shifts[i]),
@@ -794,24 +564,24 @@ def shape_region(shape: Shape, stroke: float):
     if stroke <= 0.0:
         return g.region
     if g.ring is not None:
-        if isinstance(g.region, _Convex) and g.region.nx.shape[0] == 1:
-            return _ConvexBand(g.region, stroke)  # rectangle, triangle, polygon
-        return _Band(g.region, g.ring, stroke)
+        if isinstance(g.region, ConvexRegion) and g.region.nx.shape[0] == 1:
+            return ConvexBand(g.region, stroke)  # rectangle, triangle, polygon
+        return PolygonBand(g.region, g.ring, stroke)
     e = g.ellipse
     a, b = e.a, e.b
 
     def shrunk(da: float, db: float):
         if da <= 0.0 or db <= 0.0:
-            return _Nothing()
-        return _Ellipse(e.ex, e.ey, e.cos, e.sin, da, db)
+            return EmptyRegion()
+        return EllipseRegion(e.ex, e.ey, e.cos, e.sin, da, db)
 
     if g.hole == 0.0:
-        return _Diff(e, shrunk(a - stroke, b - stroke))
+        return DifferenceRegion(e, shrunk(a - stroke, b - stroke))
     core = shrunk(a - stroke, b - stroke)
-    if isinstance(core, _Nothing):
+    if isinstance(core, EmptyRegion):
         return g.region
-    inner_ring = _Diff(core, _Ellipse(e.ex, e.ey, e.cos, e.sin, g.hole * a + stroke, g.hole * b + stroke))
-    return _Diff(g.region, inner_ring)
+    inner_ring = DifferenceRegion(core, EllipseRegion(e.ex, e.ey, e.cos, e.sin, g.hole * a + stroke, g.hole * b + stroke))
+    return DifferenceRegion(g.region, inner_ring)
 
 
 # --------------------------------------------------------------------------
@@ -1322,18 +1092,18 @@ _MANY_SAMPLES = 1 << 15
 
 def _signature(region):
     """Hashable structure of a region that :func:`_contains_many` can test in bulk, or None."""
-    if isinstance(region, _Convex):
+    if isinstance(region, ConvexRegion):
         return ("C", region.nx.shape)
-    if isinstance(region, _Ellipse):
+    if isinstance(region, EllipseRegion):
         return ("E",)
-    if isinstance(region, _Nothing):
+    if isinstance(region, EmptyRegion):
         return ("N",)
-    if isinstance(region, _ConvexBand):
+    if isinstance(region, ConvexBand):
         return ("B", region.fill.nx.shape)
-    if isinstance(region, _Union):
+    if isinstance(region, UnionRegion):
         parts = tuple(_signature(p) for p in region.parts)
         return None if None in parts else ("U", parts)
-    if isinstance(region, _Diff):
+    if isinstance(region, DifferenceRegion):
         keep, cut = _signature(region.keep), _signature(region.cut)
         return None if keep is None or cut is None else ("D", keep, cut)
     return None
@@ -1346,7 +1116,7 @@ def _column(values) -> np.ndarray:
 def _piece_max_many(regions, xs, ys) -> np.ndarray:
     """Largest signed edge distance of every convex piece of each region, (N, P, Hs, Ws).
 
-    Element for element the same arithmetic as ``_Convex._edge_max``:
+    Element for element the same arithmetic as ``ConvexRegion._edge_max``:
     ``(nx x - c) + ny y`` per edge, then the maximum over the edges.
     """
     nx = np.stack([r.nx for r in regions])[..., None, None]  # (N, P, E, 1, 1)
@@ -1409,9 +1179,9 @@ def _classify(region, row0: int, col0: int, h: int, w: int, s: int):
     rows = (rr + row0).astype(np.float64)
     if rr.size == 0:
         inside = np.zeros((s, s, 0), dtype=bool)
-    elif isinstance(region, _Union):
+    elif isinstance(region, UnionRegion):
         inside = _sparse_contains(region, cols, rows, s, margin)
-    elif isinstance(region, _Band):
+    elif isinstance(region, PolygonBand):
         inside = _sparse_band(region, cols, rows, s, margin)
     else:
         offs = _offsets(s)
@@ -1427,7 +1197,7 @@ def _classified(interior, rr, cc, inside, s: int) -> np.ndarray:
     return values
 
 
-def _sparse_contains(region: _Union, cols: np.ndarray, rows: np.ndarray, s: int, margin: float) -> np.ndarray:
+def _sparse_contains(region: UnionRegion, cols: np.ndarray, rows: np.ndarray, s: int, margin: float) -> np.ndarray:
     """``region.contains`` at the sub-samples of K boundary pixels, testing only nearby pieces.
 
     ``cols``, ``rows`` (K,) are the pixels' canvas column and row as floats.  A
@@ -1469,7 +1239,7 @@ def _sparse_pieces(nx, ny, c, cols: np.ndarray, rows: np.ndarray, s: int, margin
     out[:, :, kk[starts]] |= np.logical_or.reduceat(hit, starts, axis=2)
 
 
-def _sparse_band(region: _Band, cols: np.ndarray, rows: np.ndarray, s: int, margin: float) -> np.ndarray:
+def _sparse_band(region: PolygonBand, cols: np.ndarray, rows: np.ndarray, s: int, margin: float) -> np.ndarray:
     """``region.contains`` at the sub-samples of K boundary pixels, with nearby segments only.
 
     A boundary segment farther than ``width + margin`` from a pixel centre is
@@ -1478,7 +1248,7 @@ def _sparse_band(region: _Band, cols: np.ndarray, rows: np.ndarray, s: int, marg
     """
     offs = _offsets(s)
     k = cols.size
-    if isinstance(region.fill, _Union):
+    if isinstance(region.fill, UnionRegion):
         inside = _sparse_contains(region.fill, cols, rows, s, margin)
     else:
         inside = region.fill.contains(cols[None, None, :] + offs[None, :, None], rows[None, None, :] + offs[:, None, None])
@@ -1493,7 +1263,7 @@ def _sparse_band(region: _Band, cols: np.ndarray, rows: np.ndarray, s: int, marg
     dmin = np.full((s, s, k), np.inf)
     if kk.size:
         # every (pixel, segment) pair in one pass, the same operations, in the same
-        # order, as _Band._dist2 for one segment; then the minimum over each pixel's pairs
+        # order, as PolygonBand._dist2 for one segment; then the minimum over each pixel's pairs
         qx = (cols[kk][None, None, :] + offs[None, :, None]) - ax[sg]  # (1, s, N)
         qy = (rows[kk][None, None, :] + offs[:, None, None]) - ay[sg]  # (s, 1, N)
         sdx, sdy = dx[sg], dy[sg]

@@ -42,6 +42,7 @@ import numpy as np
 import shapely
 
 from synthgen.scene import shapes as shapes_mod
+from synthgen.scene.regions import ConvexBand, DifferenceRegion, EllipseRegion, EmptyRegion
 from synthgen.scene.shapes import Shape, clipped_box
 
 __all__ = ["TOLERANCE", "visible_box", "visible_boxes", "region_polygons"]
@@ -123,11 +124,11 @@ def _ellipse_polygons(e, gap: float, focus=None):
 
 def _sandwich(region, gap: float, focus):
     """``(inner, outer)`` shapely geometries with inner <= region <= outer, for elliptic regions."""
-    if isinstance(region, shapes_mod._Ellipse):
+    if isinstance(region, EllipseRegion):
         return _ellipse_polygons(region, gap, focus)
-    if isinstance(region, shapes_mod._Nothing):
+    if isinstance(region, EmptyRegion):
         return shapely.Polygon(), shapely.Polygon()
-    if isinstance(region, shapes_mod._Diff):
+    if isinstance(region, DifferenceRegion):
         keep_in, keep_out = _sandwich(region.keep, gap, focus)
         cut_in, cut_out = _sandwich(region.cut, gap, focus)
         return keep_in.difference(cut_out), keep_out.difference(cut_in)
@@ -228,7 +229,7 @@ def region_polygons(shape: Shape, stroke: float = 0.0, *, gap: float = _FIRST_GA
     elif stroke <= 0.0:
         poly = shapely.Polygon(ring)
         out = poly, poly
-    elif isinstance(region, shapes_mod._ConvexBand):
+    elif isinstance(region, ConvexBand):
         if not first:
             return region_polygons(shape, stroke)  # exact: the first polygons do
         poly = _convex_band(ring, region.width)
