@@ -57,10 +57,9 @@ from synthgen.scene import shapes as shapes_mod
 from synthgen.scene.backgrounds import render_background
 from synthgen.scene.clutter import render_clutter
 from synthgen.scene.degrade import degrade_owned
-from synthgen.scene.kinds import identifiable, stroke_limit
+from synthgen.scene.kinds import category_id, identifiable, outlined, parameter_ranges, stroke_limit
 from synthgen.scene.occlusion import SampleBuffer, patch_bounds, sample_bits_many
 from synthgen.scene.shapes import (
-    KINDS,
     Shape,
     clipped_box,
     coverage,
@@ -90,11 +89,6 @@ __all__ = [
 LUMA = np.array([0.299, 0.587, 0.114])
 _LUMA_R, _LUMA_G, _LUMA_B = (float(w) for w in LUMA)  # the same weights for scalar sums
 
-
-
-def category_id(kind: str) -> int:
-    """Stable COCO category id of a shape kind: its 1-based place in :data:`synthgen.shapes.KINDS`."""
-    return KINDS.index(kind) + 1
 
 
 def luminance(rgb) -> np.ndarray:
@@ -333,8 +327,7 @@ def _sample_objects(config, rng: np.random.Generator, n: int | None = None, kind
     fill_angles = rng.uniform(0.0, 180.0, size=n)
     periods = rng.uniform(2.0, 8.0, size=n)
     names = [pool[k] for k in picks.tolist()]
-    count_range = {"polygon": spec.sides, "star": spec.points}
-    ratio_range = {"star": spec.inner, "ring": spec.hole, "cross": spec.bar}
+    count_range, ratio_range = parameter_ranges(spec)
     sides = [_whole_in(count_range[k], u) if k in count_range else 5 for k, u in zip(names, counts.tolist())]
     inner = [_within(ratio_range[k], u) if k in ratio_range else 0.5 for k, u in zip(names, ratios.tolist())]
     # Plain Python values (the same floats as float(array[i])); the config's ranges
@@ -355,8 +348,7 @@ def _sample_objects(config, rng: np.random.Generator, n: int | None = None, kind
         # objects.aspect stretches a kind's natural proportions: 1 keeps polygons and stars regular
         shape = make(kind, 0.0, 0.0, size, asp * natural_aspect(kind, side, inr), angle, side, inr)
         shapes.append(shape)
-        # a ring's outline would be two nested rings: rings are always filled (synthgen.kinds)
-        is_outline = is_outline and kind != "ring"
+        is_outline = is_outline and outlined(kind)  # rings are always filled (synthgen.scene.kinds)
         styles.append(
             {
                 "fill": "flat" if is_outline else fill,

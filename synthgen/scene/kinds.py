@@ -1,7 +1,7 @@
 """Shape kinds that can be told apart by their pixels.
 
 Every kind is defined so that no choice of its parameters draws the outline of
-another kind (the shapes themselves are described in :mod:`synthgen.shapes`):
+another kind (the shapes themselves are described in :mod:`synthgen.scene.shapes`; :data:`KIND_TABLE` holds one entry per kind):
 
 * rectangle: four right-angled corners, the only convex kind with four;
 * ellipse: no corner (a polygon keeps corners of at most 135 degrees);
@@ -36,6 +36,7 @@ per-object fact built on it.
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass
 
 from synthgen.config import CROSS_BAR, POINTS, RING_HOLE, SIDES, STAR_INNER
 from synthgen.scene import shapes as shapes_mod
@@ -51,6 +52,11 @@ __all__ = [
     "MEASURED_ASPECT",
     "MEASURED_STROKE",
     "IDENTIFIABLE_BREADTH",
+    "Kind",
+    "KIND_TABLE",
+    "category_id",
+    "parameter_ranges",
+    "outlined",
     "breadth",
     "stroke_limit",
     "identifiable",
@@ -65,6 +71,42 @@ MEASURED_ASPECT = (0.25, 4.0)
 MEASURED_STROKE = 1.0
 """Thinnest outline band (px) over which :data:`IDENTIFIABLE_BREADTH` was measured."""
 
+@dataclass(frozen=True)
+class Kind:
+    """One shape kind: its category id, the config keys that sample its parameters, and what keeps it identifiable.
+
+    The outline itself is drawn by :mod:`synthgen.scene.shapes` (its builder for the kind).
+
+    Parameters
+    ----------
+    name : str
+        As in ``objects.shapes``.
+    category : int
+        Stable COCO category id; a new kind takes the next free one.
+    count : str or None
+        The :class:`~synthgen.config.ObjectSpec` field whose whole-number range gives ``Shape.sides``
+        (polygon sides, star points); None: the kind has no such parameter (``sides`` stays 5).
+    ratio : str or None
+        The field whose range gives ``Shape.inner`` (star inner radius, ring hole, cross bar);
+        None: ``inner`` stays 0.5.
+    count_limits, ratio_limits : (number, number) or None
+        The widest ranges of ``sides`` and ``inner`` that keep the kind apart from the others.
+    outline : bool
+        Whether the kind may be drawn outline-only.
+    breadth : (float, float or None)
+        :data:`IDENTIFIABLE_BREADTH` filled and outline-only (None when never outlined).
+    """
+
+    name: str
+    category: int
+    count: str | None = None
+    ratio: str | None = None
+    count_limits: tuple[int, int] | None = None
+    ratio_limits: tuple[float, float] | None = None
+    outline: bool = True
+    breadth: tuple[float, float | None] = (0.0, 0.0)
+
+
 # Smallest breadth (px) at which each kind, filled (False) or outline-only (True), is told from
 # every other kind.  Measured by `python tools/measure_identifiable.py --per-class 40 --seed 1`
 # (about half an hour on one core): objects of every kind, style and parameter range above, aspect
@@ -74,21 +116,48 @@ MEASURED_STROKE = 1.0
 # that no stretch or rotation changes); a nearest-centroid classifier trained on objects at or
 # above these breadths labels every held-out object at or above them, and every object of two
 # fresh sets in a row, with its own kind.
-IDENTIFIABLE_BREADTH = {
-    ("rectangle", False): 5.0,
-    ("ellipse", False): 14.0,
-    ("triangle", False): 3.0,
-    ("polygon", False): 6.0,
-    ("star", False): 14.0,
-    ("ring", False): 12.0,
-    ("cross", False): 20.0,
-    ("rectangle", True): 8.0,
-    ("ellipse", True): 16.0,
-    ("triangle", True): 8.0,
-    ("polygon", True): 8.0,
-    ("star", True): 12.0,
-    ("cross", True): 12.0,
+KIND_TABLE: dict[str, Kind] = {
+    k.name: k
+    for k in (
+        Kind("rectangle", 1, breadth=(5.0, 8.0)),
+        Kind("ellipse", 2, breadth=(14.0, 16.0)),
+        Kind("triangle", 3, breadth=(3.0, 8.0)),
+        Kind("polygon", 4, count="sides", count_limits=SIDES, breadth=(6.0, 8.0)),
+        Kind("star", 5, count="points", ratio="inner", count_limits=POINTS, ratio_limits=STAR_INNER, breadth=(14.0, 12.0)),
+        Kind("ring", 6, ratio="hole", ratio_limits=RING_HOLE, outline=False, breadth=(12.0, None)),
+        Kind("cross", 7, ratio="bar", ratio_limits=CROSS_BAR, breadth=(20.0, 12.0)),
+    )
 }
+"""Every shape kind, in :data:`synthgen.config.KINDS` order (a test holds the two equal)."""
+
+#: (kind, outline-only) -> smallest identifiable breadth (px), from :data:`KIND_TABLE`.
+IDENTIFIABLE_BREADTH: dict[tuple[str, bool], float] = {
+    **{(k.name, False): k.breadth[0] for k in KIND_TABLE.values()},
+    **{(k.name, True): k.breadth[1] for k in KIND_TABLE.values() if k.breadth[1] is not None},
+}
+
+
+def category_id(kind: str) -> int:
+    """Stable COCO category id of a shape kind (:attr:`Kind.category`).
+
+    Examples
+    --------
+    >>> category_id("rectangle"), category_id("cross")
+    (1, 7)
+    """
+    return KIND_TABLE[kind].category
+
+
+def parameter_ranges(spec) -> tuple[dict, dict]:
+    """``(count ranges, ratio ranges)``: kind -> the range of ``spec`` (an ObjectSpec) its parameters come from."""
+    counts = {k.name: getattr(spec, k.count) for k in KIND_TABLE.values() if k.count}
+    ratios = {k.name: getattr(spec, k.ratio) for k in KIND_TABLE.values() if k.ratio}
+    return counts, ratios
+
+
+def outlined(kind: str) -> bool:
+    """Whether ``kind`` may be drawn outline-only (a ring's outline would be two nested rings)."""
+    return KIND_TABLE[kind].outline
 
 
 def breadth(shape: Shape) -> float:
@@ -136,13 +205,12 @@ def identifiable(shape: Shape, stroke: float = 0.0) -> bool:
     False
     """
     kind = shape.kind
-    if kind == "polygon" and not _within(shape.sides, SIDES):
+    entry = KIND_TABLE[kind]
+    if entry.count_limits is not None and not _within(shape.sides, entry.count_limits):
         return False
-    if kind == "star" and not (_within(shape.sides, POINTS) and _within(shape.inner, STAR_INNER)):
+    if entry.ratio_limits is not None and not _within(shape.inner, entry.ratio_limits):
         return False
-    if kind == "ring" and not (_within(shape.inner, RING_HOLE) and stroke <= 0.0):
-        return False
-    if kind == "cross" and not _within(shape.inner, CROSS_BAR):
+    if stroke > 0.0 and not entry.outline:
         return False
     relative = shape.aspect / natural_aspect(kind, shape.sides, shape.inner)
     if not _within(relative, MEASURED_ASPECT):
