@@ -15,6 +15,7 @@ from skimage.draw import polygon as draw_polygon
 from skimage.measure import label, regionprops
 
 from synthgen.geometry import clip_boxes, mask_box
+from synthgen.scene.raster import paint
 from synthgen.scene.shapes import (
     FILLS,
     KINDS,
@@ -26,7 +27,6 @@ from synthgen.scene.shapes import (
     exact_box,
     natural_aspect,
     outline,
-    paint,
     sample_inside,
 )
 

@@ -23,6 +23,7 @@ import math
 import numpy as np
 
 from synthgen.scene.backgrounds import value_noise
+from synthgen.scene.raster import blend
 from synthgen.scene.shapes import Shape, coverage
 
 __all__ = ["render_clutter", "MARK_KINDS"]
@@ -37,12 +38,7 @@ def _blend(canvas: np.ndarray, cov, fill: np.ndarray, keep: np.ndarray | None = 
     h, w = v.shape
     rows = slice(cov.row0, cov.row0 + h)
     cols = slice(cov.col0, cov.col0 + w)
-    patch = canvas[rows, cols].astype(np.float32)
-    for ch in range(3):
-        plane = patch[..., ch]
-        plane += (fill[..., ch] - plane) * v
-    np.rint(patch, out=patch)
-    canvas[rows, cols] = patch.astype(np.uint8)
+    canvas[rows, cols] = blend(canvas[rows, cols], fill, v)
 
 
 def _flat(colour, h: int, w: int) -> np.ndarray:

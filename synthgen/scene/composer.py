@@ -59,13 +59,13 @@ from synthgen.scene.clutter import render_clutter
 from synthgen.scene.degrade import degrade_owned
 from synthgen.scene.kinds import category_id, identifiable, outlined, parameter_ranges, stroke_limit
 from synthgen.scene.occlusion import SampleBuffer, patch_bounds, sample_bits_many
+from synthgen.scene.raster import SMALL_PATCH, blend, paint
 from synthgen.scene.shapes import (
     Shape,
     clipped_box,
     coverage,
     exact_box,
     natural_aspect,
-    paint,
     sample_inside,
 )
 from synthgen.scene.visible import visible_boxes
@@ -819,9 +819,8 @@ def _pick_colours(under_lum: float, min_contrast: float, cands: np.ndarray, lum:
     return colours, float(min(achieved))
 
 
-#: Patches up to this many pixels are blended in one broadcast over RGB (fewer calls);
-#: bigger ones per channel plane (PERF-NOTES.md: a trailing axis of 3 is slow on big arrays).
-_SMALL_PATCH = 256
+#: Patches up to this many pixels are walked in bulk (the size raster.blend blends in one broadcast).
+_SMALL_PATCH = SMALL_PATCH
 
 
 def _paint(canvas: np.ndarray, drawn, cands: np.ndarray, lums: np.ndarray, min_contrast: float) -> None:
@@ -893,7 +892,6 @@ def _draw_one(canvas, cov, style, cand, lum, min_contrast: float) -> float:
     rows = slice(cov.row0, cov.row0 + h)
     cols = slice(cov.col0, cov.col0 + w)
     under_lum = _under_luma(v, canvas[rows, cols])
-    patch = canvas[rows, cols].astype(np.float32)
     flat = style["fill"] == "flat"
     n_col = 1 if flat else 2
     colours, contrast = _pick_colours(under_lum, min_contrast, cand[:n_col], lum[:n_col])
@@ -904,14 +902,7 @@ def _draw_one(canvas, cov, style, cand, lum, min_contrast: float) -> float:
             style["fill"], colours, h, w, row0=cov.row0, col0=cov.col0,
             angle=style["fill_angle"], period=style["period"],
         )
-    if h * w <= _SMALL_PATCH:
-        patch += (fill - patch) * v[..., None]
-    else:
-        for ch in range(3):
-            plane = patch[..., ch]
-            plane += ((fill[ch] if flat else fill[..., ch]) - plane) * v
-    np.rint(patch, out=patch)
-    canvas[rows, cols] = patch.astype(np.uint8)
+    canvas[rows, cols] = blend(canvas[rows, cols], fill, v)
     return contrast
 
 
@@ -997,10 +988,7 @@ def _draw_level(canvas, idx, covs, styles, cands, lums, min_contrast: float) -> 
     fill[flat] = colours[seg[flat], 0]
     if not flat.all():
         _paint_pixels(fill, ~flat, kinds, seg, rr, cc, colours, idx, styles)
-    patch = under8.astype(np.float32)
-    patch += (fill - patch) * v[:, None]
-    np.rint(patch, out=patch)
-    canvas[rr, cc] = patch.astype(np.uint8)
+    canvas[rr, cc] = blend(under8, fill, v)
     return out
 
 

@@ -104,7 +104,6 @@ __all__ = [
     "sample_inside",
     "coverage",
     "coverage_many",
-    "paint",
 ]
 
 _ELLIPTIC = frozenset({"ellipse", "ring"})
@@ -1299,71 +1298,3 @@ def _blocked_bound(region, xc: np.ndarray, yc: np.ndarray, margin: float) -> np.
         py = (yc[0] + B * ub.astype(np.float64))[None, None, :] + ob[:, None, None]  # (B, 1, K)
         fv[ub, :, vb, :] = region.bound(px, py).transpose(2, 0, 1)  # (K, B, B)
     return f[:h, :w]
-
-
-# --------------------------------------------------------------------------
-# Fill colours
-# --------------------------------------------------------------------------
-
-
-def paint(style: str, colors, h: int, w: int, *, row0: int, col0: int, angle: float, period: float) -> np.ndarray:
-    """Fill colours for a patch.
-
-    Parameters
-    ----------
-    style : str
-        One of :data:`FILLS`: ``flat`` (``colors[0]`` everywhere), ``gradient``
-        (linear ramp from ``colors[0]`` to ``colors[1]`` across the patch's
-        pixel centres along direction ``angle``), ``stripes`` (bands ``period``
-        px wide along direction ``angle``, anchored at the canvas origin, band
-        ``k`` coloured ``colors[k % 2]``).
-    colors : array_like of shape (2, 3)
-        RGB colours, floats in 0..255.
-    h, w : int
-        Patch size (rows, columns).
-    row0, col0 : int
-        Canvas row and column of the patch's top-left pixel.
-    angle : float
-        Direction of the ramp or of the stripes' normal, degrees clockwise on
-        screen from +x.
-    period : float
-        Stripe width in px, > 0 (used by ``stripes``).
-
-    Returns
-    -------
-    ndarray of shape (h, w, 3), float32
-
-    Examples
-    --------
-    >>> paint("stripes", [[0, 0, 0], [255, 255, 255]], 1, 4, row0=0, col0=0, angle=0.0, period=2.0)[0, :, 0].tolist()
-    [0.0, 0.0, 255.0, 255.0]
-    """
-    if style not in FILLS:
-        raise ValueError(f"style must be one of {', '.join(FILLS)} (got {style!r})")
-    col = np.asarray(colors, dtype=np.float64)
-    if col.shape != (2, 3):
-        raise ValueError(f"colors must have shape (2, 3) (got {col.shape})")
-    h, w = int(h), int(w)
-    out = np.empty((h, w, 3), dtype=np.float32)
-    if style == "flat":
-        for k in range(3):
-            out[:, :, k] = col[0, k]
-        return out
-    th = math.radians(angle)
-    px = math.cos(th) * (np.arange(col0, col0 + w, dtype=np.float64) + 0.5)  # (w,)
-    py = math.sin(th) * (np.arange(row0, row0 + h, dtype=np.float64) + 0.5)  # (h,)
-    proj = py[:, None] + px[None, :]  # (h, w) projection on the direction, px
-    if style == "gradient":
-        lo = float(px.min() + py.min())
-        span = float(px.max() + py.max()) - lo
-        t = (proj - lo) / span if span > 0 else np.zeros_like(proj)
-        for k in range(3):
-            out[:, :, k] = col[0, k] + t * (col[1, k] - col[0, k])
-        return out
-    period = float(period)
-    if not (math.isfinite(period) and period > 0):
-        raise ValueError(f"period must be a finite number > 0 px (got {period!r})")
-    odd = (np.floor(proj / period) % 2) == 1
-    for k in range(3):
-        out[:, :, k] = np.where(odd, col[1, k], col[0, k])
-    return out
