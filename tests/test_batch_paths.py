@@ -137,7 +137,9 @@ def test_bulk_drawing_equals_one_shape_at_a_time(seed, monkeypatch):
     canvas, shapes, styles, extras, config = _styled_scene(seed, 150)
     bulk = scene.compose_shapes(canvas, shapes, config, rng=np.random.default_rng(seed), styles=styles, extras=extras)
     assert len(bulk.ignored.facts) > 0 and bulk.info["dropped"]["hidden"] > 0
-    monkeypatch.setattr(scene, "_BULK_DRAW_MIN", 10**9)
+    from synthgen.scene import raster
+
+    monkeypatch.setattr(raster, "_BULK_DRAW_MIN", 10**9)
     monkeypatch.setattr(scene, "_BULK_WALK_MIN", 10**9)
     monkeypatch.setattr(scene, "_CONTACT_PAIRS", -1)  # no shortcuts for patches that meet nothing above or below
     plain = scene.compose_shapes(canvas, shapes, config, rng=np.random.default_rng(seed), styles=styles, extras=extras)
