@@ -21,7 +21,7 @@ _EXPORTS = {
     "render_scene": "synthgen.scene",
     "compose": "synthgen.scene",
     "compose_shapes": "synthgen.scene",
-    "Scene": "synthgen.scene",
+    "Scene": "synthgen.scene.annotate",
     "Shape": "synthgen.scene.shapes",
     "make_dataset": "synthgen.dataset",
     "merge_shards": "synthgen.dataset",

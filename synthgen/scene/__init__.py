@@ -10,20 +10,15 @@ from importlib import import_module
 
 #: public name -> module of this package that defines it
 _EXPORTS = {
-    name: "synthgen.scene.composer"
-    for name in (
-        "LUMA",
-        "IgnoreRegions",
-        "Scene",
-        "category_id",
-        "compose",
-        "compose_shapes",
-        "image_rng",
-        "luminance",
-        "place_occluder",
-        "plan_objects",
-        "render_scene",
-    )
+    "IgnoreRegions": "synthgen.scene.annotate",
+    "Scene": "synthgen.scene.annotate",
+    "category_id": "synthgen.scene.kinds",
+    "LUMA": "synthgen.scene.raster",
+    "image_rng": "synthgen.seeding",
+    **{
+        name: "synthgen.scene.composer"
+        for name in ("compose", "compose_shapes", "luminance", "place_occluder", "plan_objects", "render_scene")
+    },
 }
 
 __all__ = sorted(_EXPORTS)
