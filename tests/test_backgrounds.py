@@ -372,3 +372,11 @@ def test_misspelt_kind_gets_a_suggestion():
     """A near-miss kind name is answered with the closest valid one."""
     with pytest.raises(ConfigError, match="did you mean 'stripes'"):
         BackgroundSpec(kind="stripe")
+
+
+def test_every_schema_background_kind_has_one_drawer():
+    """The schema's background kinds (config.py) and the drawers of scene/backgrounds.py name the same kinds."""
+    from synthgen.config import BACKGROUND_KINDS
+    from synthgen.scene import backgrounds
+
+    assert tuple(backgrounds._DRAW) == BACKGROUND_KINDS[:-1]  # "mix" draws one of the others
