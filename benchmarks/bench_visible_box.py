@@ -29,7 +29,7 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))  # for tests/_visible_reference.py
 
-import synthgen.scene.composer as scene_mod  # noqa: E402
+import synthgen.scene.annotate as scene_mod  # noqa: E402
 from synthgen.config import load_config  # noqa: E402
 from synthgen.geometry import mask_box  # noqa: E402
 from synthgen.scene import (  # noqa: E402
@@ -38,7 +38,8 @@ from synthgen.scene import (  # noqa: E402
     render_scene,
     visible,  # noqa: E402
 )
-from synthgen.scene.shapes import clipped_box, coverage, exact_box  # noqa: E402
+from synthgen.scene.coverage import coverage  # noqa: E402
+from synthgen.scene.shapes import clipped_box, exact_box  # noqa: E402
 from tests import _visible_reference as reference  # noqa: E402
 
 CASES = {

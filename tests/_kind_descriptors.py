@@ -30,7 +30,8 @@ from skimage.measure import moments_central, regionprops
 from skimage.morphology import dilation
 
 from synthgen.scene import kinds
-from synthgen.scene.shapes import KINDS, Shape, coverage, exact_box, natural_aspect
+from synthgen.scene.coverage import coverage
+from synthgen.scene.shapes import KINDS, Shape, exact_box, natural_aspect
 
 #: Names of the descriptors, in order.
 NAMES = ("solidity", "holes", "ellipse_fill", "radial", "fold3", "fold4", "fold5to8")

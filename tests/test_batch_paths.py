@@ -10,7 +10,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from synthgen.scene.shapes import KINDS, Shape, coverage, coverage_many
+from synthgen.scene.coverage import coverage, coverage_many
+from synthgen.scene.shapes import KINDS, Shape
 
 
 def _tiny_scene(seed: int, n: int, lo: float, hi: float, height: int = 60, width: int = 80):

@@ -6,8 +6,9 @@ import numpy as np
 import pytest
 
 from synthgen.geometry import mask_box
+from synthgen.scene.coverage import coverage, coverage_many
 from synthgen.scene.occlusion import SampleBuffer, patch_bounds, sample_bits, sample_bits_many
-from synthgen.scene.shapes import KINDS, Shape, coverage, coverage_many
+from synthgen.scene.shapes import KINDS, Shape
 
 
 def _random_shapes(seed: int, n: int, height: int, width: int):

@@ -8,7 +8,8 @@ import pytest
 from synthgen.config import load_config
 from synthgen.geometry import mask_box
 from synthgen.scene import compose_shapes, image_rng, plan_objects, render_scene
-from synthgen.scene.shapes import Shape, coverage, exact_box
+from synthgen.scene.coverage import coverage
+from synthgen.scene.shapes import Shape, exact_box
 
 
 @pytest.fixture()

@@ -15,14 +15,13 @@ from skimage.draw import polygon as draw_polygon
 from skimage.measure import label, regionprops
 
 from synthgen.geometry import clip_boxes, mask_box
+from synthgen.scene.coverage import Coverage, coverage
 from synthgen.scene.raster import paint
 from synthgen.scene.shapes import (
     FILLS,
     KINDS,
-    Coverage,
     Shape,
     clipped_box,
-    coverage,
     exact_area,
     exact_box,
     natural_aspect,

@@ -2,7 +2,7 @@
 
 Marks are never annotated; they make the background harder to tell from the
 objects.  Each mark is anti-aliased with the same supersampled coverage as the
-objects (:func:`synthgen.shapes.coverage`) and blended with a flat or noisy
+objects (:func:`synthgen.scene.coverage.coverage`) and blended with a flat or noisy
 colour:
 
 * ``line`` -- a straight segment 1 to 3 px thick (a thin rotated rectangle);
@@ -23,8 +23,9 @@ import math
 import numpy as np
 
 from synthgen.scene.backgrounds import value_noise
+from synthgen.scene.coverage import coverage
 from synthgen.scene.raster import blend
-from synthgen.scene.shapes import Shape, coverage
+from synthgen.scene.shapes import Shape
 
 __all__ = ["render_clutter", "MARK_KINDS"]
 

@@ -52,22 +52,18 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from synthgen.geometry import half_extents, overlapping_pairs
+from synthgen.scene import coverage as coverage_mod
 from synthgen.scene import placement as layout_mod
 from synthgen.scene import shapes as shapes_mod
 from synthgen.scene.annotate import IgnoreRegions, Scene, annotate, assemble
 from synthgen.scene.backgrounds import render_background
 from synthgen.scene.clutter import render_clutter
+from synthgen.scene.coverage import coverage
 from synthgen.scene.degrade import degrade_owned
 from synthgen.scene.kinds import category_id, outlined, parameter_ranges, stroke_limit
 from synthgen.scene.occlusion import SampleBuffer, patch_bounds, sample_bits_many
 from synthgen.scene.raster import LUMA, SMALL_PATCH, paint_objects
-from synthgen.scene.shapes import (
-    Shape,
-    coverage,
-    exact_box,
-    natural_aspect,
-    sample_inside,
-)
+from synthgen.scene.shapes import Shape, exact_box, natural_aspect, sample_inside
 from synthgen.seeding import STAGES, image_rng
 
 __all__ = [
@@ -664,7 +660,7 @@ def _walk(part, shapes, styles, patches, geoms, buffer, level_map, base: int, ju
     todo = [i for i in part if i in free_above or not buffer.hides(*patches[i])]
     insides: list = []
     edges: list = []
-    covs = shapes_mod.coverage_many(
+    covs = coverage_mod.coverage_many(
         [shapes[i] for i in todo], height, width, samples=s, strokes=[styles[i]["stroke"] for i in todo],
         insides=insides, edges=edges, _geometry=[geoms[i] for i in todo],
     )

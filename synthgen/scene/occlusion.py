@@ -69,7 +69,7 @@ def _point_samples(cov, rr: np.ndarray, cc: np.ndarray) -> np.ndarray:
 def patch_bounds(box, height: int, width: int) -> tuple[int, int, int, int] | None:
     """Canvas pixels ``(row0, col0, row1, col1)`` of the coverage patch of a shape with exact box ``box``.
 
-    The rule of :func:`synthgen.shapes.coverage`: the pixels that meet the
+    The rule of :func:`synthgen.scene.coverage.coverage`: the pixels that meet the
     exact box clipped to the canvas; None when that clipped box is empty.
 
     Examples
@@ -106,7 +106,8 @@ def sample_bits(cov, inside: np.ndarray | None = None, edges: tuple | None = Non
 
     Examples
     --------
-    >>> from synthgen.scene.shapes import Shape, coverage
+    >>> from synthgen.scene.shapes import Shape
+    >>> from synthgen.scene.coverage import coverage
     >>> bits = sample_bits(coverage(Shape("rectangle", 2.0, 2.0, 1.0), 4, 4, samples=4))
     >>> bits.shape  # a unit square centred on a pixel corner: a quarter of each of 2 x 2 pixels
     (2, 2, 2)
@@ -180,7 +181,8 @@ class SampleBuffer:
 
     Examples
     --------
-    >>> from synthgen.scene.shapes import Shape, coverage
+    >>> from synthgen.scene.shapes import Shape
+    >>> from synthgen.scene.coverage import coverage
     >>> buf = SampleBuffer(8, 8, 4)
     >>> top = coverage(Shape("rectangle", 4.0, 4.0, 4.0), 8, 8)   # pixels 2..5
     >>> low = coverage(Shape("rectangle", 3.0, 4.0, 4.0), 8, 8)   # pixels 1..4: 3 of 4 columns under top
