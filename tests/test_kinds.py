@@ -9,8 +9,8 @@ from typer.testing import CliRunner
 from synthgen.cli import app
 from synthgen.config import load_config
 from synthgen.errors import ConfigError
-from synthgen.scene import kinds
-from synthgen.scene.composer import _sample_objects, render_scene
+from synthgen.scene import kinds, render_scene
+from synthgen.scene.kinds import sample_objects as _sample_objects
 from synthgen.scene.shapes import KINDS, Shape, natural_aspect, own_size
 from tests._kind_descriptors import NearestCentroid, classes, descriptors, render, sample
 

@@ -256,7 +256,8 @@ def test_dense_occlusion_matches_brute_force_sample_count():
     The reference tests every sub-sample of the canvas against every shape with
     Coverage.inside (no pixel classes, no patches), the plain rule of the module docstring.
     """
-    from synthgen.scene.composer import _moved, _sample_objects
+    from synthgen.scene.composer import _moved
+    from synthgen.scene.kinds import sample_objects as _sample_objects
 
     cfg = load_config(overrides=["canvas.width=48", "canvas.height=40", "objects.outline=0.4",
                                  "objects.min_visible=0", "objects.min_area=0", "objects.size=[2,30]"])
@@ -413,7 +414,8 @@ def test_erase_judges_each_object_by_the_final_picture():
     Reference: every sub-sample of the canvas tested against each kept shape with Coverage.inside (no
     buffer, no patches), the plain rule; a kept object's facts must match the picture as drawn.
     """
-    from synthgen.scene.composer import _moved, _sample_objects
+    from synthgen.scene.composer import _moved
+    from synthgen.scene.kinds import sample_objects as _sample_objects
 
     cfg = load_config(overrides=["canvas.width=48", "canvas.height=40", "objects.min_visible=0.6",
                                  "objects.min_area=3", "objects.size=[2,24]", "objects.dropped=erase"])
@@ -519,7 +521,8 @@ def test_visible_boxes_of_dense_scenes_equal_an_independent_computation(dropped)
     Reference: tests/_visible_reference.py (shapely on dense polygons, built from the shape parameters);
     the objects drawn above are the annotated ones and the ignore regions, not the hidden or erased ones.
     """
-    from synthgen.scene.composer import _moved, _sample_objects
+    from synthgen.scene.composer import _moved
+    from synthgen.scene.kinds import sample_objects as _sample_objects
     from synthgen.scene.visible import TOLERANCE
     from tests import _visible_reference as reference
 

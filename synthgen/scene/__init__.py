@@ -15,9 +15,10 @@ _EXPORTS = {
     "category_id": "synthgen.scene.kinds",
     "LUMA": "synthgen.scene.raster",
     "image_rng": "synthgen.seeding",
+    "place_occluder": "synthgen.scene.occluders",
     **{
         name: "synthgen.scene.composer"
-        for name in ("compose", "compose_shapes", "luminance", "place_occluder", "plan_objects", "render_scene")
+        for name in ("compose", "compose_shapes", "luminance", "plan_objects", "render_scene")
     },
 }
 

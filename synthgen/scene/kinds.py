@@ -38,9 +38,11 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
+import numpy as np
+
 from synthgen.config import CROSS_BAR, POINTS, RING_HOLE, SIDES, STAR_INNER
 from synthgen.scene import shapes as shapes_mod
-from synthgen.scene.shapes import Shape, natural_aspect
+from synthgen.scene.shapes import Shape, natural_aspect, trusted_shape
 
 __all__ = [
     "SIDES",
@@ -60,6 +62,7 @@ __all__ = [
     "breadth",
     "stroke_limit",
     "identifiable",
+    "sample_objects",
 ]
 
 OUTLINE_SHARE = 0.125
@@ -70,6 +73,7 @@ MEASURED_ASPECT = (0.25, 4.0)
 
 MEASURED_STROKE = 1.0
 """Thinnest outline band (px) over which :data:`IDENTIFIABLE_BREADTH` was measured."""
+
 
 @dataclass(frozen=True)
 class Kind:
@@ -219,3 +223,81 @@ def identifiable(shape: Shape, stroke: float = 0.0) -> bool:
     if stroke > 0.0 and not (MEASURED_STROKE <= stroke <= OUTLINE_SHARE * b * (1.0 + 1e-9)):
         return False
     return b >= IDENTIFIABLE_BREADTH[(kind, stroke > 0.0)]
+
+
+# --------------------------------------------------------------------------- sampling
+
+
+def sample_objects(config, rng: np.random.Generator, n: int | None = None, kinds=None):
+    """Draw each object's shape parameters and paint style, all centred at the origin.
+
+    Each kind's own parameters come from its range in the config (polygon sides,
+    star points and inner ratio, ring hole, cross bar; :mod:`synthgen.kinds`).
+    ``kinds`` (names) replaces ``objects.shapes`` as the kinds to draw from.
+    """
+    spec = config.objects
+    if n is None:
+        n = int(rng.integers(spec.count[0], spec.count[1] + 1))
+    pool = spec.shapes if kinds is None else tuple(kinds)
+    picks = rng.choice(len(pool), size=n)
+    lo, hi = spec.size
+    if spec.size_law == "log-uniform":
+        sizes = np.exp(rng.uniform(np.log(lo), np.log(hi), size=n))
+    else:
+        sizes = rng.uniform(lo, hi, size=n)
+    aspects = np.exp(rng.uniform(np.log(spec.aspect[0]), np.log(spec.aspect[1]), size=n))
+    angles = rng.uniform(0.0, 360.0, size=n) if spec.rotate else np.zeros(n)
+    counts = rng.random(size=n)  # where in its kind's range of sides or points
+    ratios = rng.random(size=n)  # where in its kind's range of inner, hole or bar ratio
+    fills = rng.choice(len(spec.fills), size=n)
+    outline = rng.random(size=n) < spec.outline
+    strokes = rng.uniform(spec.stroke[0], spec.stroke[1], size=n)
+    fill_angles = rng.uniform(0.0, 180.0, size=n)
+    periods = rng.uniform(2.0, 8.0, size=n)
+    names = [pool[k] for k in picks.tolist()]
+    count_range, ratio_range = parameter_ranges(spec)
+    sides = [_whole_in(count_range[k], u) if k in count_range else 5 for k, u in zip(names, counts.tolist())]
+    inner = [_at_in(ratio_range[k], u) if k in ratio_range else 0.5 for k, u in zip(names, ratios.tolist())]
+    # Plain Python values (the same floats as float(array[i])); the config's ranges
+    # already guarantee what Shape checks, so shapes are built without re-checking
+    # unless a value is off (then Shape raises its usual error).
+    trusted = bool(
+        n == 0
+        or (np.isfinite(sizes).all() and (sizes > 0).all() and np.isfinite(aspects).all() and (aspects > 0).all()
+            and np.isfinite(angles).all() and 0 < min(inner) and max(inner) < 1 and min(sides) >= 3)
+    )
+    make = trusted_shape if trusted else Shape
+    fill_names = [spec.fills[k] for k in fills.tolist()]
+    shapes, styles = [], []
+    for kind, size, asp, angle, side, inr, is_outline, fill, stroke, fill_angle, period in zip(
+        names, sizes.tolist(), aspects.tolist(), angles.tolist(), sides, inner,
+        outline.tolist(), fill_names, strokes.tolist(), fill_angles.tolist(), periods.tolist(),
+    ):
+        # objects.aspect stretches a kind's natural proportions: 1 keeps polygons and stars regular
+        shape = make(kind, 0.0, 0.0, size, asp * natural_aspect(kind, side, inr), angle, side, inr)
+        shapes.append(shape)
+        is_outline = is_outline and outlined(kind)  # rings are always filled (synthgen.scene.kinds)
+        styles.append(
+            {
+                "fill": "flat" if is_outline else fill,
+                "outline": is_outline,
+                "stroke": float(min(stroke, stroke_limit(size, shape.aspect))) if is_outline else 0.0,
+                "fill_angle": fill_angle,
+                "period": float(max(period, size / 8.0)),
+            }
+        )
+    return shapes, styles
+
+
+def _whole_in(bounds, u: float) -> int:
+    """The whole number at ``u`` in [0, 1) of the inclusive range ``bounds``, each equally likely."""
+    lo, hi = bounds
+    return int(lo) + min(int(u * (hi - lo + 1)), int(hi - lo))
+
+
+def _at_in(bounds, u: float) -> float:
+    """The number at ``u`` in [0, 1) of the range ``bounds``."""
+    return bounds[0] + u * (bounds[1] - bounds[0])
+
+
+#: Layouts that read the objects' box sizes.
