@@ -18,7 +18,7 @@ from typing import Annotated
 import typer
 
 from synthgen.errors import UserError, require_extra
-from synthgen.facts import slice_facts
+from synthgen.scene.facts import slice_facts
 
 __all__ = ["app", "main"]
 

@@ -20,13 +20,13 @@ Box kinds (each defined by exactly one function)
 ------------------------------------------------
 * **exact box**: the tight box of the continuous shape, clipped to the canvas
   (:func:`clip_boxes` applied to a shape's analytic box, see
-  :mod:`synthgen.shapes`).
+  :mod:`synthgen.scene.shapes`).
 * **visible box**: the tight box of the part of an object on the canvas that
   no object drawn above it hides (objects left out of the picture, hidden or
   erased, hide nothing), computed from the continuous outlines
-  (:func:`synthgen.visible.visible_box`): exact to floating precision where
+  (:func:`synthgen.scene.visible.visible_box`): exact to floating precision where
   its sides lie on polygon edges or vertices, and at most
-  :data:`synthgen.visible.TOLERANCE` (1e-3) px outside the true side where
+  :data:`synthgen.scene.visible.TOLERANCE` (1e-3) px outside the true side where
   they lie on a curve.  It equals the exact box when nothing hides the object.
 * **pixel box**: the tight box of the pixels whose coverage is above zero
   (:func:`mask_box`).

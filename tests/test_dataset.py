@@ -198,8 +198,8 @@ def _valid_overrides():
     """A hypothesis strategy of --set overrides that make a valid tiny config."""
     from hypothesis import strategies as st
 
-    from synthgen.backgrounds import BACKGROUND_KINDS
-    from synthgen.shapes import FILLS, KINDS
+    from synthgen.scene.backgrounds import BACKGROUND_KINDS
+    from synthgen.scene.shapes import FILLS, KINDS
 
     def pair(lo, hi, *, integer=False):
         elem = st.integers(lo, hi) if integer else st.floats(lo, hi, allow_nan=False)

@@ -6,14 +6,14 @@ from pathlib import Path
 
 import numpy as np
 
-from synthgen import facts
 from synthgen.evaluate import slices as score
+from synthgen.scene import facts
 
 README = Path(__file__).resolve().parent.parent / "README.md"
 
 
 def test_readme_facts_table_is_the_rendered_table():
-    """The README's facts table equals what synthgen.facts renders (edit FACTS, then paste facts_table())."""
+    """The README's facts table equals what synthgen.scene.facts renders (edit FACTS, then paste facts_table())."""
     text = README.read_text(encoding="utf-8")
     start = text.index("| fact | type | unit |")
     assert text[start : start + len(facts.facts_table())] == facts.facts_table()

@@ -55,27 +55,10 @@ LAYER_OF: dict[str, str] = {
     "synthgen.cli": "cli",
     "synthgen.__main__": "cli",
     # transitional: today's flat modules, by the layer they move to (delete each entry as it moves)
-    "synthgen.facts": "scene",  # -> scene/facts
-    "synthgen.backgrounds": "scene",
-    "synthgen.shapes": "scene",
-    "synthgen.kinds": "scene",
-    "synthgen.clutter": "scene",
-    "synthgen.layout": "scene",
-    "synthgen.occlusion": "scene",
-    "synthgen.visible": "scene",
-    "synthgen.degrade": "scene",
 }
 
 #: (importer, imported) arrows allowed until the move that removes them lands.
-TRANSITIONAL: frozenset[tuple[str, str]] = frozenset(
-    {
-        # the config schema still takes its section specs from the stage modules (phase 2: config.py holds it all)
-        ("synthgen.config", "synthgen.backgrounds"),
-        ("synthgen.config", "synthgen.degrade"),
-        ("synthgen.config", "synthgen.kinds"),
-        ("synthgen.config", "synthgen.shapes"),
-    }
-)
+TRANSITIONAL: frozenset[tuple[str, str]] = frozenset()
 
 
 def module_name(path: Path) -> str:
@@ -106,7 +89,7 @@ def imports_of(path: Path, text: str | None = None) -> list[tuple[str, int]]:
                 mod = node.module or ""
             if mod.split(".")[0] != "synthgen":
                 continue
-            # `from synthgen import shapes` imports the module synthgen.shapes
+            # `from synthgen import scene` imports the module synthgen.scene
             subs = [f"{mod}.{a.name}" for a in node.names if _is_module(f"{mod}.{a.name}")]
             found += [(s, node.lineno) for s in subs] if subs else [(mod, node.lineno)]
     return found
@@ -202,9 +185,9 @@ def test_checker_reports_an_upward_import_and_a_cycle():
 
 
 def test_from_package_import_names_the_submodule():
-    """``from synthgen import shapes`` counts as importing synthgen.shapes, not the package root."""
-    assert imports_of(PACKAGE / "probe.py", "from synthgen import shapes, errors\n") == [
-        ("synthgen.shapes", 1),
+    """``from synthgen import scene`` counts as importing synthgen.scene, not the package root."""
+    assert imports_of(PACKAGE / "probe.py", "from synthgen import scene, errors\n") == [
+        ("synthgen.scene", 1),
         ("synthgen.errors", 1),
     ]
     assert imports_of(PACKAGE / "formats" / "probe.py", "from .coco import read_coco\n") == [("synthgen.formats.coco", 1)]

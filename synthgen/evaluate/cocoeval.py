@@ -352,7 +352,7 @@ class Evaluation:
         edges : sequence of float, optional
             Increasing bin edges for a numeric fact: bins ``[e0, e1)``, ...,
             ``[e_{n-1}, e_n]`` (the last one closed); objects outside every
-            bin are in none.  Defaults to :data:`synthgen.facts.DEFAULT_EDGES`, powers of 2
+            bin are in none.  Defaults to :data:`synthgen.scene.facts.DEFAULT_EDGES`, powers of 2
             (size) or 4 (area) spanning the values, or, for other numeric
             facts, quintiles of the values.  Categorical facts (strings,
             booleans) are binned by value and take no edges.

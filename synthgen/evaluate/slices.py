@@ -15,9 +15,9 @@ import numpy as np
 
 from synthgen.errors import UserError, is_number
 from synthgen.evaluate.parse import Truth, show_value
-from synthgen.facts import DEFAULT_EDGES, GEOMETRIC_BASE
 from synthgen.formats.coco import xyxy_from_bbox
 from synthgen.geometry import box_relations
+from synthgen.scene.facts import DEFAULT_EDGES, GEOMETRIC_BASE
 
 #: Facts a detection box can be measured on, for assigning unmatched
 #: detections to a bin: box area ``w * h`` and longer side ``max(w, h)``.

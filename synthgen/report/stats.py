@@ -20,10 +20,10 @@ import numpy as np
 from synthgen._io import write_atomic
 from synthgen.errors import require_extra
 from synthgen.evaluate.classify import truth_arrays
-from synthgen.facts import FACTS_BY_NAME
 from synthgen.formats.coco import AREA_RANGES
 from synthgen.geometry import box_area, box_longer_side, box_relations
 from synthgen.report.draw import category_colour
+from synthgen.scene.facts import FACTS_BY_NAME
 
 #: The per-object facts the statistics read from ``annotation["synthgen"]``, by their entry in the
 #: FACTS table (a renamed fact fails here, on import); ``max_iou`` is always computed from the boxes.

@@ -27,12 +27,11 @@ same bytes.
 
 import colorsys
 import math
-from dataclasses import dataclass
 
 import cv2
 import numpy as np
 
-from synthgen.errors import ConfigError, as_tuples, check_choice, check_number, check_range
+from synthgen.config import BACKGROUND_KINDS, BackgroundSpec
 
 __all__ = [
     "BACKGROUND_KINDS",
@@ -50,97 +49,6 @@ __all__ = [
     "stripes",
     "add_texture",
 ]
-
-BACKGROUND_KINDS = ("solid", "linear", "radial", "noise", "checker", "stripes", "mix")
-_DRAWN_KINDS = BACKGROUND_KINDS[:-1]
-
-
-@dataclass(frozen=True, slots=True)
-class BackgroundSpec:
-    """What backgrounds to draw (TOML table ``[background]``).
-
-    Parameters
-    ----------
-    kind : str
-        One of :data:`BACKGROUND_KINDS`.  ``mix`` picks one of ``mix``
-        uniformly per image.
-    mix : tuple of str
-        The kinds ``mix`` picks from (any kind except ``mix``).
-    brightness : (float, float)
-        Range of colour value (HSV ``V``), fraction of full scale in [0, 1].
-    saturation : (float, float)
-        Range of colour saturation (HSV ``S``) in [0, 1].
-    contrast : (float, float)
-        Range of the difference in value (HSV ``V``) between the two colours
-        of a two-colour kind, fraction of full scale in [0, 1].
-    radial_reach : (float, float)
-        Radius of a radial gradient as a fraction of the distance from its
-        centre to the farthest canvas corner; beyond it the outer colour holds.
-    octaves : int
-        Number of value-noise octaves, each at twice the lattice frequency of
-        the previous one (1 to 12).
-    persistence : float
-        Amplitude ratio of each noise octave to the previous one, in [0, 1].
-    noise_scale : (float, float)
-        Range of the coarsest noise octave's lattice spacing, px (>= 1).
-    checker_cell : (int, int)
-        Range of the checkerboard cell side, px (whole numbers >= 1).
-    stripe_period : (float, float)
-        Range of the stripe period (one stripe of each colour), px (>= 2).
-    stripe_duty : (float, float)
-        Range of the fraction of each period taken by the second colour,
-        in (0, 1].
-    stripe_angle : (float, float)
-        Range of the stripes' normal direction, degrees.
-    texture : (float, float)
-        Range of the amplitude of a fine grey texture added over any kind,
-        in 0..255 units; ``(0, 0)`` turns it off (and draws nothing).
-    texture_scale : float
-        Lattice spacing of the texture's coarsest octave, px (>= 1).
-    """
-
-    kind: str = "noise"
-    mix: tuple[str, ...] = ("solid", "linear", "radial", "noise", "checker", "stripes")
-    brightness: tuple[float, float] = (0.2, 0.9)
-    saturation: tuple[float, float] = (0.0, 0.7)
-    contrast: tuple[float, float] = (0.15, 0.6)
-    radial_reach: tuple[float, float] = (0.6, 1.4)
-    octaves: int = 5
-    persistence: float = 0.5
-    noise_scale: tuple[float, float] = (48.0, 192.0)
-    checker_cell: tuple[int, int] = (8, 64)
-    stripe_period: tuple[float, float] = (8.0, 48.0)
-    stripe_duty: tuple[float, float] = (0.3, 0.7)
-    stripe_angle: tuple[float, float] = (0.0, 180.0)
-    texture: tuple[float, float] = (0.0, 0.0)
-    texture_scale: float = 4.0
-
-    def __post_init__(self):
-        as_tuples(self)
-        check_choice("background.kind", self.kind, BACKGROUND_KINDS)
-        if (
-            not isinstance(self.mix, tuple)
-            or not self.mix
-            or not all(isinstance(k, str) for k in self.mix)
-        ):
-            raise ConfigError(
-                "background.mix", "must be a non-empty list of background kinds", self.mix
-            )
-        for k in self.mix:
-            check_choice("background.mix", k, _DRAWN_KINDS)
-        check_range("background.brightness", self.brightness, lo=0, hi=1)
-        check_range("background.saturation", self.saturation, lo=0, hi=1)
-        check_range("background.contrast", self.contrast, lo=0, hi=1)
-        check_range("background.radial_reach", self.radial_reach, lo=0, lo_open=True)
-        check_number("background.octaves", self.octaves, lo=1, hi=12, integer=True)
-        check_number("background.persistence", self.persistence, lo=0, hi=1)
-        check_range("background.noise_scale", self.noise_scale, lo=1)
-        check_range("background.checker_cell", self.checker_cell, lo=1, integer=True)
-        check_range("background.stripe_period", self.stripe_period, lo=2)
-        check_range("background.stripe_duty", self.stripe_duty, lo=0, lo_open=True, hi=1)
-        check_range("background.stripe_angle", self.stripe_angle)
-        check_range("background.texture", self.texture, lo=0, hi=255)
-        check_number("background.texture_scale", self.texture_scale, lo=1)
 
 
 # --------------------------------------------------------------------------- colours

@@ -2,7 +2,7 @@
 
 The rule (the one :mod:`synthgen.scene` annotates by): a sub-pixel sample of an
 object is *visible* when it lies inside the object and inside no object drawn
-above it.  Samples are those of :class:`synthgen.shapes.Coverage`: sample
+above it.  Samples are those of :class:`synthgen.scene.shapes.Coverage`: sample
 ``(i, j)`` of pixel ``(r, c)`` sits at ``x = c + (j + 0.5)/s``,
 ``y = r + (i + 0.5)/s``.
 
@@ -25,7 +25,7 @@ from typing import NamedTuple
 
 import numpy as np
 
-from synthgen import shapes as shapes_mod
+from synthgen.scene import shapes as shapes_mod
 
 __all__ = ["SampleBuffer", "sample_bits", "sample_bits_many", "patch_bounds"]
 
@@ -55,21 +55,21 @@ def _unpack(bits: np.ndarray, samples: int) -> np.ndarray:
 def _point_samples(cov, rr: np.ndarray, cc: np.ndarray) -> np.ndarray:
     """Sub-sample inside-tests of canvas pixels ``(rr, cc)`` (K,) -> bool (K, s, s) [row, col].
 
-    The same sample positions and point test as :meth:`synthgen.shapes.Coverage.inside`.
+    The same sample positions and point test as :meth:`synthgen.scene.shapes.Coverage.inside`.
     """
     s = cov.samples
     offs = (np.arange(s) + 0.5) / s
     xs = cc.astype(np.float64)[:, None, None] + offs[None, None, :]  # (K, 1, s)
     ys = rr.astype(np.float64)[:, None, None] + offs[None, :, None]  # (K, s, 1)
     # The region behind Coverage.inside (private to shapes.py): the same exact point test.
-    region = shapes_mod._region(cov.shape, cov.stroke)
+    region = shapes_mod.shape_region(cov.shape, cov.stroke)
     return np.broadcast_to(region.contains(xs, ys), (rr.size, s, s))
 
 
 def patch_bounds(box, height: int, width: int) -> tuple[int, int, int, int] | None:
     """Canvas pixels ``(row0, col0, row1, col1)`` of the coverage patch of a shape with exact box ``box``.
 
-    The rule of :func:`synthgen.shapes.coverage`: the pixels that meet the
+    The rule of :func:`synthgen.scene.coverage.coverage`: the pixels that meet the
     exact box clipped to the canvas; None when that clipped box is empty.
 
     Examples
@@ -89,7 +89,7 @@ def sample_bits(cov, inside: np.ndarray | None = None, edges: tuple | None = Non
 
     Parameters
     ----------
-    cov : synthgen.shapes.Coverage
+    cov : synthgen.scene.shapes.Coverage
         The shape's coverage, patch of shape (h, w).
     inside : ndarray of bool, shape (h s, w s), optional
         The patch's sample mask when already known (``coverage_many`` hands it
@@ -106,7 +106,8 @@ def sample_bits(cov, inside: np.ndarray | None = None, edges: tuple | None = Non
 
     Examples
     --------
-    >>> from synthgen.shapes import Shape, coverage
+    >>> from synthgen.scene.shapes import Shape
+    >>> from synthgen.scene.coverage import coverage
     >>> bits = sample_bits(coverage(Shape("rectangle", 2.0, 2.0, 1.0), 4, 4, samples=4))
     >>> bits.shape  # a unit square centred on a pixel corner: a quarter of each of 2 x 2 pixels
     (2, 2, 2)
@@ -143,7 +144,7 @@ def sample_bits_many(covs, insides) -> list:
 
     Parameters
     ----------
-    covs : sequence of synthgen.shapes.Coverage
+    covs : sequence of synthgen.scene.shapes.Coverage
     insides : sequence of (ndarray or tuple or None)
         Per shape, its whole-patch sample mask, its ``edges`` tuple from
         ``coverage_many``, or None.
@@ -180,7 +181,8 @@ class SampleBuffer:
 
     Examples
     --------
-    >>> from synthgen.shapes import Shape, coverage
+    >>> from synthgen.scene.shapes import Shape
+    >>> from synthgen.scene.coverage import coverage
     >>> buf = SampleBuffer(8, 8, 4)
     >>> top = coverage(Shape("rectangle", 4.0, 4.0, 4.0), 8, 8)   # pixels 2..5
     >>> low = coverage(Shape("rectangle", 3.0, 4.0, 4.0), 8, 8)   # pixels 1..4: 3 of 4 columns under top
@@ -213,7 +215,7 @@ class SampleBuffer:
 
         Parameters
         ----------
-        cov : synthgen.shapes.Coverage
+        cov : synthgen.scene.shapes.Coverage
         bits : ndarray of uint8, shape (h, w, nb)
             :func:`sample_bits` of ``cov``.
 
@@ -247,7 +249,7 @@ class SampleBuffer:
 
         Parameters
         ----------
-        covs : sequence of synthgen.shapes.Coverage
+        covs : sequence of synthgen.scene.shapes.Coverage
             Patches that share no pixel.
         bits : sequence of ndarray
             :func:`sample_bits` of each.

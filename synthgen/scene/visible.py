@@ -1,11 +1,11 @@
 """The visible box of a partly hidden object, from the geometry.
 
 (Which objects are drawn, and which sub-pixel samples of each show, is settled
-on samples by :mod:`synthgen.occlusion`; the visible box is the one quantity
+on samples by :mod:`synthgen.scene.occlusion`; the visible box is the one quantity
 taken from the continuous outlines instead, for the objects drawn.)
 
 An object's visible part is its drawn region (the filled shape, or its outline
-band, as :func:`synthgen.shapes.sample_inside` tests it) on the canvas, minus
+band, as :func:`synthgen.scene.shapes.sample_inside` tests it) on the canvas, minus
 the drawn regions of every object drawn above it.  Its **visible box** is the
 tight box of that set (the box kinds are defined in :mod:`synthgen.geometry`).
 This module computes it from the continuous outlines, not from sub-pixel
@@ -41,8 +41,9 @@ import math
 import numpy as np
 import shapely
 
-from synthgen import shapes as shapes_mod
-from synthgen.shapes import Shape, clipped_box
+from synthgen.scene import shapes as shapes_mod
+from synthgen.scene.regions import ConvexBand, DifferenceRegion, EllipseRegion, EmptyRegion
+from synthgen.scene.shapes import Shape, clipped_box
 
 __all__ = ["TOLERANCE", "visible_box", "visible_boxes", "region_polygons"]
 
@@ -123,11 +124,11 @@ def _ellipse_polygons(e, gap: float, focus=None):
 
 def _sandwich(region, gap: float, focus):
     """``(inner, outer)`` shapely geometries with inner <= region <= outer, for elliptic regions."""
-    if isinstance(region, shapes_mod._Ellipse):
+    if isinstance(region, EllipseRegion):
         return _ellipse_polygons(region, gap, focus)
-    if isinstance(region, shapes_mod._Nothing):
+    if isinstance(region, EmptyRegion):
         return shapely.Polygon(), shapely.Polygon()
-    if isinstance(region, shapes_mod._Diff):
+    if isinstance(region, DifferenceRegion):
         keep_in, keep_out = _sandwich(region.keep, gap, focus)
         cut_in, cut_out = _sandwich(region.cut, gap, focus)
         return keep_in.difference(cut_out), keep_out.difference(cut_in)
@@ -182,7 +183,7 @@ def _band(ring: np.ndarray, width: float, gap: float):
 
 
 def region_polygons(shape: Shape, stroke: float = 0.0, *, gap: float = _FIRST_GAP, focus=None):
-    """Polygons enclosing the region that :func:`synthgen.shapes.sample_inside` tests.
+    """Polygons enclosing the region that :func:`synthgen.scene.shapes.sample_inside` tests.
 
     Parameters
     ----------
@@ -218,17 +219,17 @@ def region_polygons(shape: Shape, stroke: float = 0.0, *, gap: float = _FIRST_GA
         got = _CACHE.get(key)
         if got is not None:
             return got
-    g = shapes_mod._geom(shape)
+    g = shapes_mod.shape_geometry(shape)
     if not first and ((g.ellipse is None and stroke <= 0.0) or not _meets(*(np.array([v]) for v in g.box), focus)):
         return region_polygons(shape, stroke)  # no curve, or no curve step meets the focus: the first polygons do
-    region = shapes_mod._region(shape, stroke)
+    region = shapes_mod.shape_region(shape, stroke)
     ring = g.ring
     if ring is None:
         out = _sandwich(region, gap, focus)
     elif stroke <= 0.0:
         poly = shapely.Polygon(ring)
         out = poly, poly
-    elif isinstance(region, shapes_mod._ConvexBand):
+    elif isinstance(region, ConvexBand):
         if not first:
             return region_polygons(shape, stroke)  # exact: the first polygons do
         poly = _convex_band(ring, region.width)
@@ -254,7 +255,7 @@ _CACHE_MAX = 2048
 
 def _touch_points(shape: Shape) -> list[np.ndarray]:
     """Points (K, 2) where the shape meets each side of its unclipped exact box: left, top, right, bottom."""
-    g = shapes_mod._geom(shape)
+    g = shapes_mod.shape_geometry(shape)
     x0, y0, x1, y1 = g.box
     if g.ring is not None:
         ring = g.ring
@@ -280,13 +281,13 @@ def _sides_in_view(shape: Shape, above, height: int, width: int) -> np.ndarray:
     pts = np.concatenate(sides)
     x, y = pts[:, 0], pts[:, 1]
     hidden = (x < 0.0) | (x > width) | (y < 0.0) | (y > height)  # off the canvas: not in view
-    boxes = np.array([shapes_mod._geom(u).box for u, _ in above], dtype=np.float64)  # (K, 4)
+    boxes = np.array([shapes_mod.shape_geometry(u).box for u, _ in above], dtype=np.float64)  # (K, 4)
     inbox = ((x >= boxes[:, 0:1]) & (x <= boxes[:, 2:3]) & (y >= boxes[:, 1:2]) & (y <= boxes[:, 3:4]))  # (K, P)
     for j in np.flatnonzero(inbox.any(axis=1)).tolist():
         near = inbox[j] & ~hidden
         if near.any():
             upper, stroke = above[j]
-            hidden[near] |= shapes_mod._region(upper, stroke).contains(x[near], y[near])
+            hidden[near] |= shapes_mod.shape_region(upper, stroke).contains(x[near], y[near])
     out = np.zeros(4, dtype=bool)
     start = 0
     for k, side in enumerate(sides):
@@ -317,7 +318,7 @@ def visible_box(shape: Shape, above, height: int, width: int, *, stroke: float =
         The object's own outline band thickness in px (0: filled).
     exact : ndarray of shape (4,) or None
         The object's exact box clipped to the canvas, when the caller has it
-        (see :func:`synthgen.shapes.clipped_box`); computed when None.
+        (see :func:`synthgen.scene.shapes.clipped_box`); computed when None.
     inside : ndarray of shape (4,) or None
         A box known to lie inside the visible box, such as the box of the
         centres of the object's sub-pixel samples no shape above covers (each
@@ -433,7 +434,7 @@ class _Job:
     @classmethod
     def start(cls, shape: Shape, stroke: float, above, height: int, width: int, exact, inside):
         """A job, or the answer itself (a box or None) when no polygon arithmetic is needed."""
-        gb = shapes_mod._geom(shape).box
+        gb = shapes_mod.shape_geometry(shape).box
         on_canvas = gb[0] >= 0.0 and gb[1] >= 0.0 and gb[2] <= width and gb[3] <= height
         if exact is None:
             exact = np.array(gb) if on_canvas else clipped_box(shape, height, width)
@@ -443,7 +444,7 @@ class _Job:
         ex0, ey0, ex1, ey1 = exact.tolist()
         near = []
         for upper, up_stroke in above:
-            ux0, uy0, ux1, uy1 = shapes_mod._geom(upper).box
+            ux0, uy0, ux1, uy1 = shapes_mod.shape_geometry(upper).box
             if ux0 < ex1 and ex0 < ux1 and uy0 < ey1 and ey0 < uy1:
                 near.append((upper, float(up_stroke)))
         if not near:
@@ -458,7 +459,7 @@ class _Job:
             return exact
         job = cls()
         job.shape, job.stroke, job.near, job.exact, job.known = shape, stroke, near, exact, known
-        job.near_boxes = np.array([shapes_mod._geom(u).box for u, _ in near], dtype=np.float64)  # (K, 4)
+        job.near_boxes = np.array([shapes_mod.shape_geometry(u).box for u, _ in near], dtype=np.float64)  # (K, 4)
         job.open_ = [k for k in range(4) if not settled[k]]
         job.box = exact.copy()  # outer side of each bracket
         job.limit = exact[[2, 3, 0, 1]].copy() if known is None else known.copy()  # inner side (a point in view)

@@ -2,7 +2,7 @@
 
 Marks are never annotated; they make the background harder to tell from the
 objects.  Each mark is anti-aliased with the same supersampled coverage as the
-objects (:func:`synthgen.shapes.coverage`) and blended with a flat or noisy
+objects (:func:`synthgen.scene.coverage.coverage`) and blended with a flat or noisy
 colour:
 
 * ``line`` -- a straight segment 1 to 3 px thick (a thin rotated rectangle);
@@ -22,8 +22,10 @@ import math
 
 import numpy as np
 
-from synthgen.backgrounds import value_noise
-from synthgen.shapes import Shape, coverage
+from synthgen.scene.backgrounds import value_noise
+from synthgen.scene.coverage import coverage
+from synthgen.scene.raster import blend
+from synthgen.scene.shapes import Shape
 
 __all__ = ["render_clutter", "MARK_KINDS"]
 
@@ -37,12 +39,7 @@ def _blend(canvas: np.ndarray, cov, fill: np.ndarray, keep: np.ndarray | None = 
     h, w = v.shape
     rows = slice(cov.row0, cov.row0 + h)
     cols = slice(cov.col0, cov.col0 + w)
-    patch = canvas[rows, cols].astype(np.float32)
-    for ch in range(3):
-        plane = patch[..., ch]
-        plane += (fill[..., ch] - plane) * v
-    np.rint(patch, out=patch)
-    canvas[rows, cols] = patch.astype(np.uint8)
+    canvas[rows, cols] = blend(canvas[rows, cols], fill, v)
 
 
 def _flat(colour, h: int, w: int) -> np.ndarray:
