@@ -1,9 +1,27 @@
 """Each polygon kind's outline in its own frame: vertices, convex pieces, area and box size.
 
-The frame is the natural one of each kind (see :mod:`synthgen.scene.shapes` for
-how it is then stretched, rotated, scaled and moved): a rectangle and a triangle
-of width and height 1, a regular polygon of circumradius 1, a star of outer
-radius 1, a cross of 1 x 1.  A convex piece is a set of half-planes
+Every kind is drawn in its own frame, centred on its own tight box, with width
+``aspect`` and height 1 (x right, y down); :mod:`synthgen.scene.shapes` then
+rotates, scales and moves it, and builds the two curved kinds itself:
+
+* ``rectangle``: ``[-aspect/2, aspect/2] x [-1/2, 1/2]``.
+* ``ellipse``: semi-axes ``aspect/2`` (x) and ``1/2`` (y).
+* ``triangle``: isosceles, apex up: ``(0, -1/2)``, ``(aspect/2, 1/2)``,
+  ``(-aspect/2, 1/2)``.
+* ``polygon``: the regular ``sides``-gon with one vertex straight up, stretched
+  to width ``aspect`` and height 1 (so it is regular only when ``aspect``
+  equals :func:`synthgen.scene.shapes.natural_aspect`).
+* ``star``: ``sides`` points, outer radius 1 and inner radius ``inner``, one
+  point straight up, stretched to ``aspect`` x 1 like the polygon.
+* ``ring``: the ellipse with a concentric elliptical hole whose semi-axes are
+  ``inner`` times the outer ones.
+* ``cross``: the union of the bars ``[-aspect/2, aspect/2] x [-inner/2,
+  inner/2]`` and ``[-inner*aspect/2, inner*aspect/2] x [-1/2, 1/2]``; each
+  bar's thickness is ``inner`` times the length of the other bar.
+
+The functions here give the polygon kinds in their natural frame (a regular
+polygon of circumradius 1, a star of outer radius 1), which the caller
+stretches to ``aspect`` x 1.  A convex piece is a set of half-planes
 ``nx * x + ny * y <= c`` with unit normals; the pieces together make up the shape.
 :func:`own_frame` gives one shape's outline, :func:`own_frames` the outlines of
 many shapes of one kind and side count as arrays over the shapes (the same

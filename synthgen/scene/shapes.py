@@ -6,22 +6,8 @@ covers ``[c, c + 1) x [r, r + 1)``).
 How a shape is placed
 ---------------------
 Every kind is first drawn in its own frame, centred on its own tight box, with
-width ``aspect`` and height 1 (x right, y down):
-
-* ``rectangle``: ``[-aspect/2, aspect/2] x [-1/2, 1/2]``.
-* ``ellipse``: semi-axes ``aspect/2`` (x) and ``1/2`` (y).
-* ``triangle``: isosceles, apex up: ``(0, -1/2)``, ``(aspect/2, 1/2)``,
-  ``(-aspect/2, 1/2)``.
-* ``polygon``: the regular ``sides``-gon with one vertex straight up, stretched
-  to width ``aspect`` and height 1 (so it is regular only when ``aspect``
-  equals :func:`natural_aspect`).
-* ``star``: ``sides`` points, outer radius 1 and inner radius ``inner``, one
-  point straight up, stretched to ``aspect`` x 1 like the polygon.
-* ``ring``: the ellipse with a concentric elliptical hole whose semi-axes are
-  ``inner`` times the outer ones.
-* ``cross``: the union of the bars ``[-aspect/2, aspect/2] x [-inner/2,
-  inner/2]`` and ``[-inner*aspect/2, inner*aspect/2] x [-1/2, 1/2]``; each
-  bar's thickness is ``inner`` times the length of the other bar.
+width ``aspect`` and height 1 (x right, y down), as :mod:`synthgen.scene.outlines`
+describes kind by kind.
 
 The frame is then rotated by ``angle`` degrees (clockwise on screen: the +x
 axis turns toward +y), scaled uniformly so that the longer side of the rotated
@@ -531,11 +517,10 @@ def _natural_aspect(kind: str, sides: int, inner: float) -> float:
 def clipped_box(shape: Shape, height: int, width: int) -> np.ndarray | None:
     """Tight box of the part of the shape that lies on the canvas.
 
-    Unlike ``clip_boxes(exact_box(shape), width, height)``, which only cuts the
-    full box at the border, this is the exact tight box of ``shape`` intersected
-    with ``[0, width] x [0, height]``: for a shape cut by the border it can be
-    smaller than the clipped full box.  It is the same for filled and stroked
-    shapes (both contain the boundary, where the extremes lie).
+    The exact tight box of ``shape`` intersected with ``[0, width] x [0, height]``:
+    for a shape cut by the border it can be smaller than the full box clipped
+    (``clip_boxes``).  The same for filled and stroked shapes (both contain the
+    boundary, where the extremes lie).
 
     Parameters
     ----------
@@ -567,40 +552,7 @@ def clipped_box(shape: Shape, height: int, width: int) -> np.ndarray | None:
     bx0, by0, bx1, by1 = g.box
     if not (max(bx0, 0.0) < min(bx1, W) and max(by0, 0.0) < min(by1, H)):
         return None
-    pts = []  # candidate points, (N, 2) arrays
-    if g.ellipse is None:
-        ring = g.ring
-        pts.append(ring)
-        a = ring
-        d = np.roll(ring, -1, axis=0) - ring  # (K, 2) edges
-        for axis, value in ((0, 0.0), (0, W), (1, 0.0), (1, H)):
-            with np.errstate(divide="ignore", invalid="ignore"):
-                t = (value - a[:, axis]) / d[:, axis]
-            hit = (t >= 0.0) & (t <= 1.0)
-            if hit.any():
-                p = a[hit] + t[hit, None] * d[hit]
-                p[:, axis] = value
-                pts.append(p)
-    else:
-        e = g.ellipse
-        for scale, extremes in ((1.0, True), (g.hole, False)):
-            if scale == 0.0:
-                continue
-            a, b = e.a * scale, e.b * scale
-            # p(t) = centre + a cos t (cos, sin) + b sin t (-sin, cos)
-            ax_, ay_ = a * e.cos, a * e.sin
-            bx_, by_ = -b * e.sin, b * e.cos
-            hx, tx = math.hypot(ax_, bx_), math.atan2(bx_, ax_)  # x(t) = ex + hx cos(t - tx)
-            hy, ty = math.hypot(ay_, by_), math.atan2(by_, ay_)
-            ts = [tx, tx + math.pi, ty, ty + math.pi] if extremes else []
-            for value, h, t0, centre in ((0.0, hx, tx, e.ex), (W, hx, tx, e.ex), (0.0, hy, ty, e.ey), (H, hy, ty, e.ey)):
-                u = (value - centre) / h
-                if -1.0 <= u <= 1.0:
-                    w = math.acos(u)
-                    ts += [t0 + w, t0 - w]
-            if ts:
-                t = np.array(ts)
-                pts.append(np.stack([e.ex + ax_ * np.cos(t) + bx_ * np.sin(t), e.ey + ay_ * np.cos(t) + by_ * np.sin(t)], axis=1))
+    pts = _polygon_corners(g.ring, W, H) if g.ellipse is None else _ellipse_corners(g, W, H)  # (N, 2) arrays
     corners = np.array([[0.0, 0.0], [W, 0.0], [0.0, H], [W, H]])
     pts.append(corners[sample_inside(shape, corners[:, 0], corners[:, 1])])
     p = np.concatenate(pts)
@@ -614,6 +566,47 @@ def clipped_box(shape: Shape, height: int, width: int) -> np.ndarray | None:
     if not (x0 < x1 and y0 < y1):
         return None
     return np.array([x0, y0, x1, y1])
+
+
+def _polygon_corners(ring: np.ndarray, W: float, H: float) -> list:
+    """:func:`clipped_box`'s candidate points of a polygon ring (K, 2): its vertices and border crossings."""
+    pts = [ring]
+    a = ring
+    d = np.roll(ring, -1, axis=0) - ring  # (K, 2) edges
+    for axis, value in ((0, 0.0), (0, W), (1, 0.0), (1, H)):
+        with np.errstate(divide="ignore", invalid="ignore"):
+            t = (value - a[:, axis]) / d[:, axis]
+        hit = (t >= 0.0) & (t <= 1.0)
+        if hit.any():
+            p = a[hit] + t[hit, None] * d[hit]
+            p[:, axis] = value
+            pts.append(p)
+    return pts
+
+
+def _ellipse_corners(g, W: float, H: float) -> list:
+    """:func:`clipped_box`'s candidate points of an ellipse or ring: its extremes and border crossings."""
+    pts = []
+    e = g.ellipse
+    for scale, extremes in ((1.0, True), (g.hole, False)):
+        if scale == 0.0:
+            continue
+        a, b = e.a * scale, e.b * scale
+        # p(t) = centre + a cos t (cos, sin) + b sin t (-sin, cos)
+        ax_, ay_ = a * e.cos, a * e.sin
+        bx_, by_ = -b * e.sin, b * e.cos
+        hx, tx = math.hypot(ax_, bx_), math.atan2(bx_, ax_)  # x(t) = ex + hx cos(t - tx)
+        hy, ty = math.hypot(ay_, by_), math.atan2(by_, ay_)
+        ts = [tx, tx + math.pi, ty, ty + math.pi] if extremes else []
+        for value, h, t0, centre in ((0.0, hx, tx, e.ex), (W, hx, tx, e.ex), (0.0, hy, ty, e.ey), (H, hy, ty, e.ey)):
+            u = (value - centre) / h
+            if -1.0 <= u <= 1.0:
+                w = math.acos(u)
+                ts += [t0 + w, t0 - w]
+        if ts:
+            t = np.array(ts)
+            pts.append(np.stack([e.ex + ax_ * np.cos(t) + bx_ * np.sin(t), e.ey + ay_ * np.cos(t) + by_ * np.sin(t)], axis=1))
+    return pts
 
 
 def outline(shape: Shape, *, resolution: int = 256) -> list[np.ndarray]:
