@@ -25,7 +25,8 @@ What it does, per image (numpy and OpenCV only):
    filled or outline-only) and a pooled spread are fitted on a training set
    rendered by synthgen itself (:func:`fit_prototypes`, fixed seed, about a
    second, kept in memory per process); a detection gets the kinds within
-   reach of a Gaussian nearest-centroid rule, at most two.
+   reach of a Gaussian nearest-centroid rule, at most three, the rule's
+   spread widening as blobs shrink (a few pixels say little about shape).
 6. **Scores.**  ``contrast term x size term x kind probability``: faint,
    small and ambiguous blobs rank low, so AP measures ranking as well as
    finding.
@@ -61,7 +62,7 @@ class BuiltinSettings:
     noise_k: float = 4.0  # ... and this many noise sigmas
     split_below: float = 0.8  # components less solid than this are tried for splitting
     core: float = 0.45  # distance-transform cores: this fraction of the component's largest distance
-    max_kinds: int = 2  # kind hypotheses per blob
+    max_kinds: int = 3  # kind hypotheses per blob
     train_images: int = 40
     train_seed: int = 20261202
 
@@ -242,10 +243,14 @@ class Prototypes:
         keep = [i for i, k in enumerate(self.kinds) if k in set(names)]
         return Prototypes(self.means[keep], tuple(self.kinds[i] for i in keep), self.spread)
 
-    def kind_probabilities(self, features: np.ndarray) -> tuple[dict, float]:
-        """Gaussian nearest-centroid: probability per kind, and the squared distance to the nearest centroid."""
+    def kind_probabilities(self, features: np.ndarray, area: float) -> tuple[dict, float]:
+        """Gaussian nearest-centroid: probability per kind, and the squared distance to the nearest centroid.
+
+        The spread widens as the blob shrinks (by ``1 + 64 / area``): a silhouette of a few pixels says
+        little about the shape it was drawn from, so its kinds come out nearly equally likely.
+        """
         d2 = (((features - self.means) / self.spread) ** 2).sum(axis=1)  # (P,)
-        w = np.exp(-0.5 * (d2 - d2.min()))
+        w = np.exp(-0.5 * (d2 - d2.min()) / (1.0 + 64.0 / max(area, 1.0)) ** 2)
         w /= w.sum()
         probs: dict = {}
         for k, p in zip(self.kinds, w):
@@ -333,7 +338,7 @@ class BuiltinDetector:
             return {"boxes": np.zeros((0, 4)), "scores": np.zeros(0), "labels": []}
         for blob in find_blobs(image, self.options):
             area = float(blob.mask.sum())
-            probs, d2 = self.prototypes.kind_probabilities(describe(blob.mask))
+            probs, d2 = self.prototypes.kind_probabilities(describe(blob.mask), area)
             quality = ((1.0 - np.exp(-blob.contrast / 0.1)) * (1.0 - np.exp(-area / 8.0))
                        * np.exp(-max(0.0, d2 - N_FEATURES) / (4.0 * N_FEATURES)))
             ranked = sorted(probs.items(), key=lambda kv: -kv[1])[: self.options.max_kinds]
