@@ -3,17 +3,20 @@
 What it does, per image (numpy and OpenCV only):
 
 1. **Background.**  A quadratic surface per colour channel, fitted by least
-   squares to the pixels of a 1/8-scale copy and refitted on the pixels it
-   explains (three rounds), then corrected by a masked local median of what is
-   left at that scale (5 x 5 cells, about 40 px), so that smooth gradients,
-   vignettes and slow value noise belong to the background.
+   squares to the cells of a 1/8-scale copy and refitted on the cells it
+   explains (five rounds), then corrected by a local median of what is left
+   in the cells away from foreground (5 x 5 cells, about 40 px), so that
+   smooth gradients, vignettes and slow value noise belong to the background.
 2. **Foreground.**  A pixel is foreground when its largest channel difference
    from the background exceeds both ``min_contrast`` (a fraction of 255) and
    ``noise_k`` times the image's noise level (estimated from neighbour
-   differences); on noisy images the difference is smoothed 3 x 3 first.
+   differences); on very noisy images (sigma above 8 grey levels) the
+   difference is smoothed 3 x 3 first, and on noisy ones specks of one or two
+   pixels barely above the threshold are dropped.
 3. **Objects.**  8-connected components of the foreground; a component that
    is not convex enough is split at its distance-transform cores (two touching
-   discs become two), each pixel going to the nearest core.
+   discs become two), each pixel going to the nearest core, when the parts
+   look like kinds much better than the whole (a cross stays whole).
 4. **Boxes.**  Each component's pixel box, each edge moved inwards by the
    uncovered part of its outermost row or column (coverage estimated as the
    pixel's difference over the component's typical difference), for
@@ -80,22 +83,30 @@ def _basis(h: int, w: int) -> np.ndarray:
 
 
 def background(image: np.ndarray) -> np.ndarray:
-    """Smooth background estimate of ``image`` (H, W, 3) uint8, as (H, W, 3) float32."""
+    """Smooth background estimate of ``image`` (H, W, 3) uint8, as (H, W, 3) float32.
+
+    A quadratic surface per channel fitted to the cells of a 1/8-scale copy that
+    it explains: the first rounds keep the better-fitting 60% of the cells, the
+    later ones those within 3 robust sigmas (at least 6 grey levels).  What the
+    surface leaves in cells it explains, and away from cells it does not, is
+    added back as a local 5 x 5-cell median.
+    """
     h, w = image.shape[:2]
     sh, sw = max(2, h // 8), max(2, w // 8)
     small = cv2.resize(image, (sw, sh), interpolation=cv2.INTER_AREA).reshape(-1, 3).astype(np.float64)
     basis = _basis(sh, sw)
     keep = np.ones(len(small), dtype=bool)
-    for _ in range(3):
+    for rnd in range(5):
         coef, *_ = np.linalg.lstsq(basis[:, keep].T, small[keep], rcond=None)  # (6, 3)
         resid = np.abs(small - basis.T @ coef).max(axis=1)
-        cut = max(6.0, 2.5 * float(np.median(resid[keep])) * 1.4826)
-        keep = resid <= cut
-        if keep.sum() < 12:
-            keep = resid <= np.quantile(resid, 0.5)
+        if rnd < 2:
+            keep = resid <= np.quantile(resid[keep], 0.6)
+        else:
+            keep = resid <= max(6.0, 3.0 * 1.4826 * float(np.median(resid[keep])))
     fit = (basis.T @ coef).reshape(sh, sw, 3)
     rest = (small.reshape(sh, sw, 3) - fit).astype(np.float32)
-    rest[~keep.reshape(sh, sw)] = 0.0  # foreground cells do not move the local correction
+    near = cv2.dilate((~keep).reshape(sh, sw).astype(np.uint8), np.ones((3, 3), np.uint8)) > 0
+    rest[near] = 0.0  # cells on or beside foreground do not move the local correction
     local = np.stack([cv2.medianBlur(np.ascontiguousarray(rest[..., c]), 5) for c in range(3)], axis=-1)
     return cv2.resize((fit + local).astype(np.float32), (w, h), interpolation=cv2.INTER_LINEAR)
 
@@ -204,12 +215,29 @@ def _refined_box(part: np.ndarray, diff: np.ndarray, r0: int, c0: int) -> tuple:
     return (c0 + x0, r0 + y0, c0 + x1, r0 + y1)
 
 
-def find_blobs(image: np.ndarray, settings: BuiltinSettings) -> list[Blob]:
-    """Candidate objects of ``image`` (H, W, 3) uint8 RGB, in raster order of their components."""
+def _maybe_split(mask: np.ndarray, settings: BuiltinSettings, prototypes) -> list[np.ndarray]:
+    """The blob's parts when they look like kinds much better than the whole does, else the blob."""
+    if prototypes is None or mask.sum() < 40 or describe(mask)[0] >= settings.split_below:
+        return [mask]
+    parts = _split(mask, settings.core)
+    if len(parts) < 2:
+        return [mask]
+    whole = prototypes.kind_probabilities(describe(mask), float(mask.sum()))[1]
+    each = [prototypes.kind_probabilities(describe(p), float(p.sum()))[1] for p in parts]
+    return parts if float(np.mean(each)) < 0.5 * whole else [mask]
+
+
+def find_blobs(image: np.ndarray, settings: BuiltinSettings, prototypes=None) -> list[Blob]:
+    """Candidate objects of ``image`` (H, W, 3) uint8 RGB, in raster order of their components.
+
+    With ``prototypes``, a blob less solid than ``settings.split_below`` is split at its
+    distance-transform cores when its parts are much nearer to kind centroids than the whole.
+    """
     bg = background(image)
     diff = np.abs(image.astype(np.float32) - bg).max(axis=2)
     sigma = noise_sigma(image)
-    if sigma > 1.5:
+    noisy = sigma > 1.5
+    if sigma > 8.0:  # smoothing costs shape (star points, thin bars): only where the noise would swamp the threshold
         diff = cv2.GaussianBlur(diff, (3, 3), 0)
         sigma /= 2.0  # a 3 x 3 Gaussian of sigma 0.8 divides white noise's sigma by about two
     thr = max(settings.min_contrast * 255.0, settings.noise_k * sigma)
@@ -220,10 +248,9 @@ def find_blobs(image: np.ndarray, settings: BuiltinSettings) -> list[Blob]:
         c0, r0, w, h, area = (int(v) for v in stats[i])
         mask = (labels[r0:r0 + h, c0:c0 + w] == i).astype(np.uint8)
         sub = diff[r0:r0 + h, c0:c0 + w]
-        parts = [mask]
-        if area >= 40 and describe(mask)[0] < settings.split_below:
-            parts = _split(mask, settings.core)
-        for part in parts:
+        if noisy and area < 3 and sub[mask > 0].mean() < 2.0 * thr:
+            continue  # a speck barely above the threshold on a noisy image: noise far more often than an object
+        for part in _maybe_split(mask, settings, prototypes):
             blobs.append(Blob(_refined_box(part, sub, r0, c0), part, float(sub[part > 0].mean()) / 255.0))
     return blobs
 
@@ -336,7 +363,7 @@ class BuiltinDetector:
         boxes, scores, labels = [], [], []
         if not self.prototypes.kinds:
             return {"boxes": np.zeros((0, 4)), "scores": np.zeros(0), "labels": []}
-        for blob in find_blobs(image, self.options):
+        for blob in find_blobs(image, self.options, self.prototypes):
             area = float(blob.mask.sum())
             probs, d2 = self.prototypes.kind_probabilities(describe(blob.mask), area)
             quality = ((1.0 - np.exp(-blob.contrast / 0.1)) * (1.0 - np.exp(-area / 8.0))
