@@ -18,7 +18,7 @@ from pathlib import Path
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 from synthgen.config import load_config  # noqa: E402
-from synthgen.probe.builtin import BuiltinDetector, fit_prototypes  # noqa: E402
+from synthgen.probe.builtin import BuiltinDetector  # noqa: E402
 from synthgen.scene import render_scene  # noqa: E402
 
 

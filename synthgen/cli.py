@@ -806,7 +806,9 @@ def probe(
             "callable), onnx:MODEL.onnx (needs the [onnx] extra) or results:DIR (COCO results per subset).",
         ),
     ] = ...,
-    out: Annotated[Path, typer.Option("--out", "-o", help="Probe directory: predictions, score.json, figures, probe.json.")] = ...,
+    out: Annotated[
+        Path, typer.Option("--out", "-o", help="Probe directory: predictions, score.json, figures, probe.json.")
+    ] = ...,
     by: Annotated[
         Optional[list[str]],
         typer.Option("--by", help="Score per bin of this fact, FACT or FACT:E0,E1,... Repeatable "
@@ -837,7 +839,8 @@ def probe(
         )
     for name, (ap, ap50) in summary.scores.items():
         typer.echo(f"{name}: AP {ap:.3f}, AP50 {ap50:.3f}")
-    rate = f", {summary.detected / summary.detector_seconds:.1f} images/s in the detector" if summary.detector_seconds else ""
+    rate = "" if not summary.detector_seconds else (
+        f", {summary.detected / summary.detector_seconds:.1f} images/s in the detector")
     typer.echo(f"probed {_count(summary.images, 'image')} into {summary.out} in {summary.seconds:.2f} s{rate}")
 
 

@@ -64,7 +64,8 @@ def test_fixed_input_size_resizes_and_scales_boxes_back(tmp_path):
 def test_output_names_are_settable_and_checked(tmp_path):
     """#boxes=NAME picks another output; a name the model lacks is one line listing its outputs."""
     path = _model(tmp_path / "m.onnx", boxes_name="dets")
-    with pytest.raises(UserError, match=re.escape("has no output 'boxes' for boxes (its outputs: dets, scores, labels")):
+    listed = "has no output 'boxes' for boxes (its outputs: dets, scores, labels"
+    with pytest.raises(UserError, match=re.escape(listed)):
         parse_detector(f"onnx:{path}")
     assert parse_detector(f"onnx:{path}#boxes=dets").settings["boxes"] == "dets"
     with pytest.raises(UserError, match="KEY=NAME"):

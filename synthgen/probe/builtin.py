@@ -114,7 +114,10 @@ def background(image: np.ndarray) -> np.ndarray:
 
 
 def noise_sigma(image: np.ndarray) -> float:
-    """Robust per-pixel noise level (grey levels) from horizontal neighbour differences of the green channel (every fourth row)."""
+    """Robust per-pixel noise level (grey levels) from horizontal neighbour differences of the green channel.
+
+    Every fourth row is enough for the median.
+    """
     g = image[::4, :, 1].astype(np.int16)
     return float(np.median(np.abs(np.diff(g, axis=1)))) / (0.6745 * np.sqrt(2.0))
 
@@ -230,8 +233,8 @@ def _maybe_split(mask: np.ndarray, settings: BuiltinSettings, prototypes) -> lis
         return [(mask, features)]
     whole = prototypes.kind_probabilities(features, float(mask.sum()))[1]
     each = [describe(p) for p in parts]
-    near = [prototypes.kind_probabilities(f, float(p.sum()))[1] for p, f in zip(parts, each)]
-    return list(zip(parts, each)) if float(np.mean(near)) < 0.5 * whole else [(mask, features)]
+    near = [prototypes.kind_probabilities(f, float(p.sum()))[1] for p, f in zip(parts, each, strict=True)]
+    return list(zip(parts, each, strict=True)) if float(np.mean(near)) < 0.5 * whole else [(mask, features)]
 
 
 def find_blobs(image: np.ndarray, settings: BuiltinSettings, prototypes=None) -> list[Blob]:
@@ -288,7 +291,7 @@ class Prototypes:
         w = np.exp(-0.5 * (d2 - d2.min()) / (1.0 + 64.0 / max(area, 1.0)) ** 2)
         w /= w.sum()
         probs: dict = {}
-        for k, p in zip(self.kinds, w):
+        for k, p in zip(self.kinds, w, strict=True):
             probs[k] = probs.get(k, 0.0) + float(p)
         return probs, float(d2.min())
 

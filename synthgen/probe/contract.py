@@ -123,10 +123,10 @@ def to_records(result, image_id: int, categories: Categories, where: str) -> lis
     >>> cats = Categories([{"id": 1, "name": "disc"}])
     >>> to_records(([[0, 0, 2, 4]], [0.5], ["disc"]), 7, cats, "image 0")
     [{'image_id': 7, 'category_id': 1, 'bbox': [0.0, 0.0, 2.0, 4.0], 'score': 0.5}]
-    >>> to_records(([[0, 0, -2, 4]], [0.5], ["disc"]), 7, cats, "image 0")
+    >>> to_records(([[0, 0, -2, 4]], [0.5], ["disc"]), 7, cats, "image 3")
     Traceback (most recent call last):
     ...
-    synthgen.probe.contract.DetectorOutputError: image 0: box 0 must have x0 < x1 and y0 < y1 (got [0.0, 0.0, -2.0, 4.0])
+    synthgen.probe.contract.DetectorOutputError: image 3: box 0 must have x0 < x1 and y0 < y1 (got [0.0, 0.0, -2.0, ...
     """
     boxes, scores, labels = _parts(result, where)
     boxes = _numbers(boxes, "boxes", where)
@@ -152,5 +152,5 @@ def to_records(result, image_id: int, categories: Categories, where: str) -> lis
     return [
         {"image_id": image_id, "category_id": int(c), "bbox": [float(x), float(y), float(w), float(h)],
          "score": float(s)}
-        for (x, y), (w, h), c, s in zip(boxes[:, :2].tolist(), wh.tolist(), ids, scores.tolist())
+        for (x, y), (w, h), c, s in zip(boxes[:, :2].tolist(), wh.tolist(), ids, scores.tolist(), strict=True)
     ]

@@ -104,7 +104,8 @@ def resolve_source(
         _synthgen.make_dataset(config, target, resume=resume, overwrite=overwrite, workers=workers, progress=progress)
         return Source(target, "dataset", str(source), (Subset(source.stem, target, None),), _dataset_digest(target))
     if vary or overrides:
-        raise UserError(f"options '--vary', '--set', '--count' and '--seed' need a config file as SOURCE (got {source})")
+        raise UserError("options '--vary', '--set', '--count' and '--seed' need a config file as SOURCE "
+                        f"(got {source})")
     if source.is_dir() and (source / "sweep.json").is_file():
         return _sweep_source(source, None)
     if source.is_dir() and (source / "annotations.json").is_file():
@@ -151,7 +152,7 @@ def detect_batch(detector, item) -> tuple:
     done = []
     try:
         results = check_batch(raw, len(images), span)
-        for (index, image_id, _, file), result in zip(images, results):
+        for (index, image_id, _, file), result in zip(images, results, strict=True):
             done.append((index, to_records(result, image_id, categories, _where(subset, index, file, single))))
     except DetectorOutputError as exc:
         return subset, done, str(exc), seconds
@@ -237,7 +238,7 @@ def _record_run(state: Path, asked: dict, resume: bool) -> None:
 
 def _batches(subsets, truths, journal: Journal, batch: int, single: bool):
     """Work items of images not in the journal, ``batch`` images each, subset by subset."""
-    for sub, gt in zip(subsets, truths):
+    for sub, gt in zip(subsets, truths, strict=True):
         cats = Categories(gt["categories"])
         todo = [(k, img["id"], str(sub.dataset / "images" / img["file_name"]), img["file_name"])
                 for k, img in enumerate(gt["images"]) if (sub.name, k) not in journal.done]
@@ -245,7 +246,8 @@ def _batches(subsets, truths, journal: Journal, batch: int, single: bool):
             yield sub.name, cats, single, todo[i:i + batch]
 
 
-def _detect_all(detector, subsets, truths, state: Path, *, batch: int, workers: int, progress) -> tuple[dict, int, float]:
+def _detect_all(detector, subsets, truths, state: Path, *, batch: int, workers: int,
+                progress) -> tuple[dict, int, float]:
     """Run the detector over every image not yet journaled; returns (journal entries, images run, seconds)."""
     journal = Journal(state / "journal.jsonl")
     total = sum(len(gt["images"]) for gt in truths)
@@ -274,7 +276,7 @@ def _detect_all(detector, subsets, truths, state: Path, *, batch: int, workers: 
 
 def _predictions(subsets, truths, entries: dict) -> dict[str, bytes]:
     out = {}
-    for sub, gt in zip(subsets, truths):
+    for sub, gt in zip(subsets, truths, strict=True):
         records = [r for k in range(len(gt["images"])) for r in entries[(sub.name, k)]]
         out[sub.name] = orjson.dumps(records)
     return out
@@ -284,7 +286,7 @@ def _copy_results(results: ResultsSource, subsets, truths) -> dict[str, bytes]:
     _, InputFileError, _, _ = _synthgen.errors()
     evaluate = _synthgen.scorer()[0]
     out = {}
-    for sub, gt in zip(subsets, truths):
+    for sub, gt in zip(subsets, truths, strict=True):
         path = results.file_for(sub.name, len(subsets) == 1)
         if not path.is_file():
             raise InputFileError(path, f"results for subset '{sub.name}' are missing (expected this file)")
@@ -346,6 +348,21 @@ def _relative(path: Path, out: Path) -> str:
         return str(path.resolve().relative_to(out.resolve()))
     except ValueError:
         return str(path)
+
+
+def _probe_record(out: Path, src: Source, asked: dict, images: int, seconds: float) -> dict:
+    """probe.json's content (the layout in :mod:`synthgen.probe`)."""
+    return {
+        "synthgen_version": _synthgen.version(),
+        "created": datetime.now(UTC).isoformat(timespec="seconds"),
+        "detector": asked["detector"],
+        "source": {**asked["source"], "path": _relative(src.path, out)},
+        "subsets": [{"name": s.name, "dataset": _relative(s.dataset, out), "predictions": f"predictions/{s.name}.json",
+                     "varied": s.varied} for s in src.subsets],
+        "by": asked["by"],
+        "images": images,
+        "seconds": round(seconds, 3),
+    }
 
 
 def run_probe(
@@ -421,17 +438,7 @@ def run_probe(
     _figures(out, src, points)
     images = sum(len(gt["images"]) for gt in truths)
     seconds = time.perf_counter() - start
-    record = {
-        "synthgen_version": _synthgen.version(),
-        "created": datetime.now(UTC).isoformat(timespec="seconds"),
-        "detector": asked["detector"],
-        "source": {**asked["source"], "path": _relative(src.path, out)},
-        "subsets": [{"name": s.name, "dataset": _relative(s.dataset, out), "predictions": f"predictions/{s.name}.json",
-                     "varied": s.varied} for s in src.subsets],
-        "by": by,
-        "images": images,
-        "seconds": round(seconds, 3),
-    }
+    record = _probe_record(out, src, asked, images, seconds)
     _synthgen.write_bytes_atomic(out / "probe.json", orjson.dumps(record, option=orjson.OPT_INDENT_2))
     shutil.rmtree(state, ignore_errors=True)
     summary_scores = {name: (d["stats"]["AP"], d["stats"]["AP50"]) for name, d in scores["subsets"].items()}
