@@ -18,7 +18,7 @@ from pathlib import Path
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 from synthgen.config import load_config  # noqa: E402
-from synthgen.probe.builtin import BuiltinDetector  # noqa: E402
+from synthgen.probe.builtin import KINDS, BuiltinDetector  # noqa: E402
 from synthgen.scene import render_scene  # noqa: E402
 
 
@@ -32,7 +32,7 @@ def main() -> None:
                                 f'background.kind="{args.background}"', f"count={args.images}"])
     detector = BuiltinDetector()
     start = time.perf_counter()
-    detector = detector.prepare([c for c in ("rectangle", "ellipse", "triangle", "polygon", "star", "ring", "cross")])
+    detector = detector.prepare(KINDS)
     fit_s = time.perf_counter() - start
     render, detect = [], []
     for _ in range(args.repeats):

@@ -38,7 +38,7 @@ def _truth() -> dict:
 
 def _broken(case: str, boxes, scores, labels):
     if case == "raises":
-        raise ValueError("the model fell over")
+        raise ValueError("the model fell over\n  (a second line of its message)")
     if case == "shape":
         return {"boxes": np.zeros((len(boxes), 5)), "scores": scores, "labels": labels}
     if case == "nan":

@@ -132,7 +132,7 @@ def test_workers_do_not_change_outputs(truth, tmp_path):
 
 
 BAD = {
-    "raises": "the detector raised ValueError: the model fell over",
+    "raises": "the detector raised ValueError: the model fell over (a second line of its message)",
     "shape": "boxes must have shape (N, 4) (got shape",
     "nan": "box 0 must be finite (got [",
     "inf_score": "score 0 must be finite (got inf)",

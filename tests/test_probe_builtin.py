@@ -17,7 +17,7 @@ import pytest
 from synthgen.config import load_config
 from synthgen.dataset import make_dataset
 from synthgen.probe import parse_detector, run_probe
-from synthgen.probe.builtin import BuiltinDetector, BuiltinSettings, describe, fit_prototypes
+from synthgen.probe.builtin import KINDS, BuiltinDetector, BuiltinSettings, describe, fit_prototypes
 
 BASE = ["count=8", "seed=3", "canvas.width=320", "canvas.height=240", 'background.kind="solid"',
         "objects.min_contrast=0.3", 'objects.layout="separated"']
@@ -82,7 +82,7 @@ def test_fit_is_deterministic_and_the_detector_pickles():
     """Two fits give the same centroids; a pickled, fitted detector detects the same boxes."""
     a, b = fit_prototypes.__wrapped__(BuiltinSettings()), fit_prototypes.__wrapped__(BuiltinSettings())
     np.testing.assert_array_equal(a.means, b.means)
-    det = BuiltinDetector().prepare(["rectangle", "ellipse", "triangle", "polygon", "star", "ring", "cross"])
+    det = BuiltinDetector().prepare(KINDS)
     image = np.full((60, 80, 3), 200, np.uint8)
     image[10:30, 20:50] = (20, 40, 160)
     out, again = det([image])[0], pickle.loads(pickle.dumps(det))([image])[0]

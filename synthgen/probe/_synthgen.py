@@ -28,10 +28,10 @@ def write_bytes_atomic(path, data: bytes) -> None:
 
 
 def scorer():
-    """(evaluate, read_ground_truth, parse_slice_spec, score_sweep, SweepPoint) of the one scorer."""
-    from synthgen.score import SweepPoint, evaluate, parse_slice_spec, read_ground_truth, score_sweep
+    """(evaluate, read_ground_truth, parse_slice_spec, score_sweep) of the one scorer."""
+    from synthgen.score import evaluate, parse_slice_spec, read_ground_truth, score_sweep
 
-    return evaluate, read_ground_truth, parse_slice_spec, score_sweep, SweepPoint
+    return evaluate, read_ground_truth, parse_slice_spec, score_sweep
 
 
 def figures():

@@ -46,7 +46,7 @@ silhouette; blur and JPEG widen and soften edges.
 from __future__ import annotations
 
 import functools
-from dataclasses import asdict, dataclass, replace
+from dataclasses import asdict, dataclass
 
 import cv2
 import numpy as np
@@ -360,9 +360,6 @@ class BuiltinDetector:
         """A fitted copy that labels only the kinds among ``names`` (the dataset's categories)."""
         protos = (self.prototypes or fit_prototypes(self.options)).only(names)
         return BuiltinDetector(self.options, protos)
-
-    def with_settings(self, **changes) -> BuiltinDetector:
-        return BuiltinDetector(replace(self.options, **changes))
 
     def __call__(self, images) -> list[dict]:
         if self.prototypes is None:

@@ -147,7 +147,8 @@ def detect_batch(detector, item) -> tuple:
     try:
         raw = detector(pixels)
     except Exception as exc:
-        return subset, [], f"{span}: the detector raised {type(exc).__name__}: {exc}", 0.0
+        text = " ".join(str(exc).split())  # one line, whatever the detector's message
+        return subset, [], f"{span}: the detector raised {type(exc).__name__}: {text}", 0.0
     seconds = time.perf_counter() - start
     done = []
     try:
@@ -304,7 +305,7 @@ def _copy_results(results: ResultsSource, subsets, truths) -> dict[str, bytes]:
 
 def _score(out: Path, source: Source, truths, by: list[str]) -> tuple[dict, list]:
     """score.json's content (and the sweep points), by the one scorer."""
-    evaluate, _, parse_slice_spec, score_sweep, _ = _synthgen.scorer()
+    evaluate, _, parse_slice_spec, score_sweep = _synthgen.scorer()
     if source.kind == "sweep":
         points = score_sweep(source.path, out / "predictions", by)
         return {"subsets": {p.subset: p.evaluation.to_dict(p.slices) for p in points},

@@ -141,8 +141,8 @@ def parse_detector(spec: str):
     --------
     >>> parse_detector("math:prod").name
     'prod'
-    >>> parse_detector("results:outputs/pred").settings
-    {'path': 'outputs/pred'}
+    >>> parse_detector("builtin").settings["min_contrast"]
+    0.06
     """
     spec = spec.strip()
     if spec == "builtin":
