@@ -33,9 +33,11 @@ def stderr_bar(label: str, quiet: bool = False):
         elapsed = now - state["start"]
         rate = f"{(done - state['first']) / elapsed:.1f} images/s" if elapsed > 0 and done > state["first"] else ""
         bar.update(state["task"], completed=done, total=total, rate=rate)
+        if done >= total:  # one live display at a time: the next stage's bar may start now
+            bar.stop()
 
     try:
         yield progress
     finally:
-        if "task" in state:
+        if bar.live.is_started:
             bar.stop()
