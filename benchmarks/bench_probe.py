@@ -17,8 +17,8 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from synthgen.config import load_config  # noqa: E402
-from synthgen.probe.builtin import KINDS, BuiltinDetector  # noqa: E402
+from synthgen.config import KINDS, load_config  # noqa: E402
+from synthgen.probe.builtin import BuiltinDetector  # noqa: E402
 from synthgen.scene import render_scene  # noqa: E402
 
 

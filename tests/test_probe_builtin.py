@@ -1,7 +1,7 @@
 """The reference detector degrades the way the physics says: size, visibility, noise and contrast.
 
 The margins are generous on purpose: these are orderings on small fixed datasets, measured with the one
-scorer (synthgen.score, itself held to pycocotools), not timings.  That smaller, fainter, noisier and
+scorer (synthgen.evaluate, itself held to pycocotools), not timings.  That smaller, fainter, noisier and
 more hidden objects are harder to find is common practice in detection benchmarking; the numbers
 beside each check are what the current detector measured, for the reader.
 """
@@ -14,10 +14,10 @@ import pickle
 import numpy as np
 import pytest
 
-from synthgen.config import load_config
-from synthgen.dataset import make_dataset
+from synthgen.config import KINDS, load_config
 from synthgen.probe import parse_detector, run_probe
-from synthgen.probe.builtin import KINDS, BuiltinDetector, BuiltinSettings, describe, fit_prototypes
+from synthgen.probe.builtin import BuiltinDetector, BuiltinSettings, describe, fit_prototypes
+from synthgen.run import make_dataset
 
 BASE = ["count=8", "seed=3", "canvas.width=320", "canvas.height=240", 'background.kind="solid"',
         "objects.min_contrast=0.3", 'objects.layout="separated"']

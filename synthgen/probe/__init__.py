@@ -35,7 +35,7 @@ What DIR holds (a contract: the HTML report reads it)
     ``{"subsets": {name: Evaluation.to_dict(slices)}}`` as ``synthgen score
     --json`` writes it for one dataset, plus ``"sweep": [SweepPoint.to_dict(),
     ...]`` (as ``score --pred-dir --json``) for a sweep.  Scored by
-    :mod:`synthgen.score`, sliced by every ``--by`` fact (default
+    :mod:`synthgen.evaluate`, sliced by every ``--by`` fact (default
     :data:`~synthgen.probe.run.DEFAULT_BY`, less facts the data lacks).
 ``DIR/figures/``
     When matplotlib is installed: ``<name>.png`` per subset (recall and AP per

@@ -51,9 +51,12 @@ from dataclasses import asdict, dataclass
 import cv2
 import numpy as np
 
-__all__ = ["BuiltinSettings", "BuiltinDetector", "fit_prototypes", "describe", "KINDS"]
+from synthgen.config import load_config
+from synthgen.geometry import pairwise_iou
+from synthgen.scene import render_scene
 
-KINDS = ("rectangle", "ellipse", "triangle", "polygon", "star", "ring", "cross")
+__all__ = ["BuiltinSettings", "BuiltinDetector", "fit_prototypes", "describe"]
+
 N_FEATURES = 5
 
 
@@ -297,9 +300,7 @@ class Prototypes:
 
 
 def _training_config(settings: BuiltinSettings):
-    from synthgen.probe import _synthgen
-
-    return _synthgen.load_config(None, [
+    return load_config(None, [
         f"seed={settings.train_seed}", f"count={settings.train_images}", "canvas.width=320", "canvas.height=240",
         'background.kind="solid"', "objects.count=[5,9]", "objects.size=[18,100]", 'objects.layout="separated"',
         "objects.outline=0.3", "objects.min_visible=1.0", "objects.min_contrast=0.3",
@@ -312,16 +313,14 @@ def fit_prototypes(settings: BuiltinSettings) -> Prototypes:
 
     Deterministic (the training set is a fixed config and seed); kept in memory per process.
     """
-    from synthgen.probe import _synthgen
-
     config = _training_config(settings)
     feats, keys = [], []
     for index in range(config.count):
-        scene = _synthgen.render_scene(config, index)
+        scene = render_scene(config, index)
         blobs = find_blobs(scene.image, settings)
         if not blobs or not len(scene.boxes):
             continue
-        iou = _synthgen.pairwise_iou(scene.boxes, np.array([b.box for b in blobs]))  # (N, B)
+        iou = pairwise_iou(scene.boxes, np.array([b.box for b in blobs]))  # (N, B)
         for j, facts in enumerate(scene.facts):
             b = int(iou[j].argmax())
             if iou[j, b] >= 0.8:

@@ -24,14 +24,14 @@ from collections.abc import Mapping, Sequence
 
 import numpy as np
 
-from synthgen.probe import _synthgen
+from synthgen.errors import UserError
 
 __all__ = ["DetectorOutputError", "Categories", "check_batch", "to_records"]
 
 _KEYS = ("boxes", "scores", "labels")
 
 
-class DetectorOutputError(_synthgen.errors()[0]):
+class DetectorOutputError(UserError):
     """A detector raised or returned something outside the contract (exit 2)."""
 
 

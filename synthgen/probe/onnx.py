@@ -23,7 +23,7 @@ from pathlib import Path
 
 import numpy as np
 
-from synthgen.probe import _synthgen
+from synthgen.errors import UserError, require_extra
 
 __all__ = ["OnnxDetector"]
 
@@ -48,7 +48,6 @@ class OnnxDetector:
     @classmethod
     def parse(cls, spec: str, rest: str) -> OnnxDetector:
         """From the text after ``onnx:``; checks the extra, the file and the output names at once."""
-        UserError, _, require_extra, _ = _synthgen.errors()
         path, _, options = rest.partition("#")
         names = {}
         for part in filter(None, options.split(",")):
@@ -73,7 +72,7 @@ class OnnxDetector:
             try:
                 self._session = onnxruntime.InferenceSession(self.path, opts, providers=["CPUExecutionProvider"])
             except Exception as exc:
-                raise _synthgen.errors()[0](f"option '--detector': {self.path} cannot be loaded by onnxruntime "
+                raise UserError(f"option '--detector': {self.path} cannot be loaded by onnxruntime "
                                             f"({type(exc).__name__}: {str(exc).splitlines()[0]})") from None
         return self._session
 
@@ -82,7 +81,7 @@ class OnnxDetector:
         outputs = [o.name for o in session.get_outputs()]
         for key in ("boxes", "scores", "labels"):
             if self.names[key] not in outputs:
-                raise _synthgen.errors()[0](
+                raise UserError(
                     f"option '--detector': the model has no output {self.names[key]!r} for {key} "
                     f"(its outputs: {', '.join(outputs)}; set it with #{key}=NAME)")
 

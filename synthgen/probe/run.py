@@ -18,9 +18,19 @@ from pathlib import Path
 
 import orjson
 
-from synthgen.probe import _synthgen
+from synthgen import __version__
+from synthgen._io import read_json, sha256_file, write_atomic
+from synthgen.config import load_config
+from synthgen.errors import InputFileError, UserError, make_output_dir
+from synthgen.evaluate import evaluate, parse_slice_spec, read_ground_truth, score_sweep
+from synthgen.formats.dataset_dir import ANNOTATIONS, IMAGES_DIR, annotations_path, manifest_path
+from synthgen.formats.images import read_image
+from synthgen.formats.results import read_predictions
 from synthgen.probe.contract import Categories, DetectorOutputError, check_batch, to_records
 from synthgen.probe.specs import ResultsSource
+from synthgen.run.make import make_dataset
+from synthgen.run.pool import run_unordered
+from synthgen.run.sweep import SWEEP_RECORD, parse_vary, plan_sweep, run_sweep
 
 __all__ = ["Subset", "Source", "ProbeSummary", "DEFAULT_BY", "resolve_source", "run_probe"]
 
@@ -61,18 +71,14 @@ class ProbeSummary:
     scores: dict  # subset name -> (AP, AP50)
 
 
-def _sha256(path: Path) -> str:
-    return hashlib.sha256(path.read_bytes()).hexdigest()
-
-
 def _dataset_digest(path: Path) -> str:
-    """sha256 of the dataset's manifest.json (of its annotations.json when it has no manifest)."""
-    manifest = path / "manifest.json"
-    return _sha256(manifest if manifest.is_file() else path / "annotations.json")
+    """sha256 of the dataset's manifest (of its COCO file when it has no manifest)."""
+    manifest = manifest_path(path)
+    return sha256_file(manifest if manifest.is_file() else annotations_path(path))
 
 
 def _sweep_source(path: Path, config: str | None) -> Source:
-    record = orjson.loads((path / "sweep.json").read_bytes())
+    record = read_json(path / SWEEP_RECORD)
     subsets = tuple(Subset(s["path"], path / s["path"], dict(s["values"])) for s in record["subsets"])
     # one digest for the whole sweep: each subset's manifest digest, one line per subset in sweep order
     text = "".join(f"{s.name}\t{_dataset_digest(s.dataset)}\n" for s in subsets)
@@ -89,42 +95,38 @@ def resolve_source(
     ``annotations.json``; a ``.toml`` file is a config: with ``vary`` a sweep is
     made at ``out/data``, without one dataset at ``out/data/<config stem>``.
     """
-    UserError, InputFileError, _, _ = _synthgen.errors()
     source = Path(source)
     if source.is_file() and source.suffix == ".toml":
         if vary:
-            parse_vary, plan_sweep, run_sweep = _synthgen.sweep_api()
             varies = [parse_vary(v) for v in vary]
             plan = plan_sweep(source, varies, overrides)
             run_sweep(source, varies, out / "data", overrides=overrides, resume=resume, overwrite=overwrite,
                       workers=workers, plan=plan, progress=progress)
             return _sweep_source(out / "data", str(source))
         target = out / "data" / source.stem
-        config = _synthgen.load_config(source, overrides)
-        _synthgen.make_dataset(config, target, resume=resume, overwrite=overwrite, workers=workers, progress=progress)
+        make_dataset(load_config(source, list(overrides)), target, resume=resume, overwrite=overwrite,
+                     workers=workers, progress=progress)
         return Source(target, "dataset", str(source), (Subset(source.stem, target, None),), _dataset_digest(target))
     if vary or overrides:
         raise UserError("options '--vary', '--set', '--count' and '--seed' need a config file as SOURCE "
                         f"(got {source})")
-    if source.is_dir() and (source / "sweep.json").is_file():
+    if source.is_dir() and (source / SWEEP_RECORD).is_file():
         return _sweep_source(source, None)
-    if source.is_dir() and (source / "annotations.json").is_file():
+    if source.is_dir() and annotations_path(source).is_file():
         name = source.resolve().name
         return Source(source, "dataset", None, (Subset(name, source, None),), _dataset_digest(source))
-    raise InputFileError(source, "must be a dataset directory (with annotations.json), a sweep directory "
-                         "(with sweep.json) or a TOML config")
+    raise InputFileError(source, f"must be a dataset directory (with {ANNOTATIONS}), a sweep directory "
+                         f"(with {SWEEP_RECORD}) or a TOML config")
 
 
 # --------------------------------------------------------------------------- the work of one batch
 
 
 def _read_image(path: Path):
-    import cv2
-
-    image = cv2.imread(str(path), cv2.IMREAD_COLOR)
+    image = read_image(path)
     if image is None:
-        raise _synthgen.errors()[1](path, "cannot be read as an image")
-    return cv2.cvtColor(image, cv2.COLOR_BGR2RGB)
+        raise InputFileError(path, "cannot be read as an image")
+    return image
 
 
 def _where(subset: str, index: int, file: str, single: bool) -> str:
@@ -195,7 +197,6 @@ class Journal:
 
 
 def _prepare_out(out: Path, resume: bool, overwrite: bool) -> None:
-    UserError, _, _, make_output_dir = _synthgen.errors()
     if resume and overwrite:
         raise UserError("options '--overwrite' and '--resume' exclude each other: pass one of them")
     if out.exists() and not out.is_dir():
@@ -223,7 +224,6 @@ def _default_by(truths: list[dict]) -> list[str]:
 
 
 def _record_run(state: Path, asked: dict, resume: bool) -> None:
-    UserError = _synthgen.errors()[0]
     path = state / "run.json"
     if resume and path.is_file():
         there = orjson.loads(path.read_bytes())
@@ -234,14 +234,14 @@ def _record_run(state: Path, asked: dict, resume: bool) -> None:
         return
     shutil.rmtree(state, ignore_errors=True)
     state.mkdir(parents=True)
-    _synthgen.write_bytes_atomic(path, orjson.dumps(asked, option=orjson.OPT_INDENT_2))
+    write_atomic(path, orjson.dumps(asked, option=orjson.OPT_INDENT_2))
 
 
 def _batches(subsets, truths, journal: Journal, batch: int, single: bool):
     """Work items of images not in the journal, ``batch`` images each, subset by subset."""
     for sub, gt in zip(subsets, truths, strict=True):
         cats = Categories(gt["categories"])
-        todo = [(k, img["id"], str(sub.dataset / "images" / img["file_name"]), img["file_name"])
+        todo = [(k, img["id"], str(sub.dataset / IMAGES_DIR / img["file_name"]), img["file_name"])
                 for k, img in enumerate(gt["images"]) if (sub.name, k) not in journal.done]
         for i in range(0, len(todo), batch):
             yield sub.name, cats, single, todo[i:i + batch]
@@ -256,7 +256,7 @@ def _detect_all(detector, subsets, truths, state: Path, *, batch: int, workers: 
     ran, seconds = 0, 0.0
     items = _batches(subsets, truths, journal, batch, len(subsets) == 1)
     work = functools.partial(detect_batch, detector)
-    results = map(work, items) if workers <= 1 else _synthgen.run_unordered(work, items, workers)
+    results = map(work, items) if workers <= 1 else run_unordered(work, items, workers)
     try:
         if progress is not None:
             progress(done, total)
@@ -284,35 +284,26 @@ def _predictions(subsets, truths, entries: dict) -> dict[str, bytes]:
 
 
 def _copy_results(results: ResultsSource, subsets, truths) -> dict[str, bytes]:
-    _, InputFileError, _, _ = _synthgen.errors()
-    evaluate = _synthgen.scorer()[0]
     out = {}
     for sub, gt in zip(subsets, truths, strict=True):
         path = results.file_for(sub.name, len(subsets) == 1)
         if not path.is_file():
             raise InputFileError(path, f"results for subset '{sub.name}' are missing (expected this file)")
-        data = path.read_bytes()
-        try:
-            records = orjson.loads(data)
-        except orjson.JSONDecodeError as exc:
-            raise InputFileError(path, f"is not valid JSON ({exc})") from None
-        if not isinstance(records, list):
-            raise InputFileError(path, f"must be a JSON array of COCO results records (got {type(records).__name__})")
+        records = read_predictions(path)
         evaluate(gt, records, gt_name=str(sub.dataset), pred_name=str(path))  # its rules, its messages
-        out[sub.name] = data
+        out[sub.name] = orjson.dumps(records)
     return out
 
 
 def _score(out: Path, source: Source, truths, by: list[str]) -> tuple[dict, list]:
     """score.json's content (and the sweep points), by the one scorer."""
-    evaluate, _, parse_slice_spec, score_sweep = _synthgen.scorer()
     if source.kind == "sweep":
         points = score_sweep(source.path, out / "predictions", by)
         return {"subsets": {p.subset: p.evaluation.to_dict(p.slices) for p in points},
                 "sweep": [p.to_dict() for p in points]}, points
     (sub,), (gt,) = source.subsets, truths
     pred = out / "predictions" / f"{sub.name}.json"
-    ev = evaluate(gt, orjson.loads(pred.read_bytes()), gt_name=str(sub.dataset), pred_name=str(pred))
+    ev = evaluate(gt, read_predictions(pred), gt_name=str(sub.dataset), pred_name=str(pred))
     slices = {}
     for spec in by:
         fact, edges = parse_slice_spec(spec)
@@ -326,7 +317,8 @@ def _figures(out: Path, source: Source, points) -> list[str]:
         import matplotlib  # noqa: F401
     except ImportError:
         return []
-    plot_slices, plot_sweep = _synthgen.figures()
+    from synthgen.report.figures import plot_slices, plot_sweep
+
     written = []
     if source.kind == "sweep":
         (out / "figures").mkdir(parents=True, exist_ok=True)
@@ -354,7 +346,7 @@ def _relative(path: Path, out: Path) -> str:
 def _probe_record(out: Path, src: Source, asked: dict, images: int, seconds: float) -> dict:
     """probe.json's content (the layout in :mod:`synthgen.probe`)."""
     return {
-        "synthgen_version": _synthgen.version(),
+        "synthgen_version": __version__,
         "created": datetime.now(UTC).isoformat(timespec="seconds"),
         "detector": asked["detector"],
         "source": {**asked["source"], "path": _relative(src.path, out)},
@@ -404,7 +396,6 @@ def run_probe(
     UserError
         Bad options, source or output directory.
     """
-    UserError = _synthgen.errors()[0]
     if batch < 1 or workers < 1:
         raise UserError(f"options '--batch' and '--workers' must be at least 1 (got {batch} and {workers})")
     start = time.perf_counter()
@@ -412,7 +403,6 @@ def run_probe(
     _prepare_out(out, resume, overwrite)
     src = resolve_source(Path(source), out, vary=vary, overrides=overrides, workers=workers, resume=resume,
                          overwrite=overwrite, progress=data_progress)
-    read_ground_truth = _synthgen.scorer()[1]
     truths = [read_ground_truth(sub.dataset)[0] for sub in src.subsets]
     by = list(by) if by else _default_by(truths)
     asked = {
@@ -433,14 +423,14 @@ def run_probe(
                                                 progress=progress)
         files = _predictions(src.subsets, truths, entries)
     for name, data in files.items():
-        _synthgen.write_bytes_atomic(out / "predictions" / f"{name}.json", data)
+        write_atomic(out / "predictions" / f"{name}.json", data)
     scores, points = _score(out, src, truths, by)
-    _synthgen.write_bytes_atomic(out / "score.json", orjson.dumps(scores, option=orjson.OPT_INDENT_2))
+    write_atomic(out / "score.json", orjson.dumps(scores, option=orjson.OPT_INDENT_2))
     _figures(out, src, points)
     images = sum(len(gt["images"]) for gt in truths)
     seconds = time.perf_counter() - start
     record = _probe_record(out, src, asked, images, seconds)
-    _synthgen.write_bytes_atomic(out / "probe.json", orjson.dumps(record, option=orjson.OPT_INDENT_2))
+    write_atomic(out / "probe.json", orjson.dumps(record, option=orjson.OPT_INDENT_2))
     shutil.rmtree(state, ignore_errors=True)
     summary_scores = {name: (d["stats"]["AP"], d["stats"]["AP50"]) for name, d in scores["subsets"].items()}
     return ProbeSummary(out=out, images=images, detected=ran, seconds=seconds, detector_seconds=det_seconds,

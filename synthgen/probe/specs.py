@@ -27,7 +27,7 @@ import sys
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from synthgen.probe import _synthgen
+from synthgen.errors import UserError
 
 __all__ = ["CallableDetector", "ResultsSource", "parse_detector", "SPEC_FORMS"]
 
@@ -37,7 +37,6 @@ _NAME = re.compile(r"^[A-Za-z_]\w*(\.[A-Za-z_]\w*)*$")
 
 
 def _error(spec: str, rule: str):
-    UserError = _synthgen.errors()[0]
     return UserError(f"option '--detector' {rule} (got {spec!r})")
 
 
