@@ -226,7 +226,7 @@ def _default_by(truths: list[dict]) -> list[str]:
 def _record_run(state: Path, asked: dict, resume: bool) -> None:
     path = state / "run.json"
     if resume and path.is_file():
-        there = orjson.loads(path.read_bytes())
+        there = read_json(path)
         for key in ("detector", "source", "by"):
             if there.get(key) != asked[key]:
                 raise UserError(f"{state.parent}: holds a probe of another {key} ({there.get(key)!r} there, "
