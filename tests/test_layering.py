@@ -21,7 +21,8 @@ PACKAGE = Path(__file__).resolve().parent.parent / "synthgen"
 #: layer -> the other layers it may import.  Leaves import nothing of synthgen but leaves;
 #: the main line is config -> scene -> run, with formats below run; jitter, evaluate, report
 #: and testing are side branches that may use formats, scene (its facts table, kinds) and the
-#: leaves, never the reverse (ARCHITECTURE.md); cli is on top.
+#: leaves, never the reverse (ARCHITECTURE.md); probe, a side branch too, may also make data
+#: (run) and draw figures (report); cli is on top.
 ALLOWED: dict[str, frozenset[str]] = {
     "leaf": frozenset(),
     "config": frozenset({"leaf"}),
@@ -32,7 +33,9 @@ ALLOWED: dict[str, frozenset[str]] = {
     "jitter": frozenset({"leaf", "config", "scene", "formats", "evaluate"}),
     "report": frozenset({"leaf", "config", "scene", "formats", "evaluate", "jitter"}),
     "testing": frozenset({"leaf", "config", "scene", "run", "formats", "jitter", "evaluate"}),
-    "cli": frozenset({"leaf", "config", "scene", "run", "formats", "jitter", "evaluate", "report", "testing"}),
+    # a detector run over data it may make first (run), scored (evaluate) and drawn (report)
+    "probe": frozenset({"leaf", "config", "scene", "run", "formats", "evaluate", "report"}),
+    "cli": frozenset({"leaf", "config", "scene", "run", "formats", "jitter", "evaluate", "report", "testing", "probe"}),
 }
 
 #: Module (or package prefix) -> layer.  The longest matching prefix wins.
@@ -52,6 +55,7 @@ LAYER_OF: dict[str, str] = {
     "synthgen.evaluate": "evaluate",
     "synthgen.report": "report",
     "synthgen.testing": "testing",
+    "synthgen.probe": "probe",
     "synthgen.cli": "cli",
     "synthgen.__main__": "cli",
     # transitional: today's flat modules, by the layer they move to (delete each entry as it moves)

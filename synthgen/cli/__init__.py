@@ -12,7 +12,7 @@ from typing import Annotated
 
 import typer
 
-from synthgen.cli import boxes, make, view
+from synthgen.cli import boxes, make, probe, view
 from synthgen.cli._common import _Command, _Group
 
 __all__ = ["app", "main"]
@@ -57,6 +57,7 @@ COMMANDS = (
     make.merge,
     view.show,
     view.stats,
+    probe.probe,
 )
 for _command in COMMANDS:
     app.command(cls=_Command)(_command)
