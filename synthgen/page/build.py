@@ -112,7 +112,8 @@ footer{color:var(--muted);font-size:13px;margin-top:40px}
 """
 
 _JS = """
-document.querySelectorAll('table.sortable th').forEach(function(th,col){
+document.querySelectorAll('table.sortable th').forEach(function(th){
+ var col=th.cellIndex;
  var b=document.createElement('button');b.textContent=th.textContent;b.title='sort by this column';
  th.textContent='';th.appendChild(b);
  b.addEventListener('click',function(){
