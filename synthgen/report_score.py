@@ -92,7 +92,10 @@ def _nan(v) -> float:
 
 
 def plot_slices(slices: Mapping[str, Sequence[BinResult]], path, *, title: str | None = None) -> tuple[int, int]:
-    """Write a PNG of recall and AP per bin, one panel per fact.
+    """Write a PNG of AP50, AP and recall at .5 per bin, one panel per fact.
+
+    Drawn by :func:`synthgen.page.charts.plot_slices` (bars for categorical
+    facts, units on the axes, the legend outside the panels).
 
     Parameters
     ----------
@@ -108,76 +111,25 @@ def plot_slices(slices: Mapping[str, Sequence[BinResult]], path, *, title: str |
     (int, int)
         The image's ``(width, height)`` in pixels, :func:`figure_size_px`.
     """
-    facts = [f for f, bins in slices.items() if bins]
-    if not facts:
-        raise UserError("nothing to plot: the figure needs at least one slice with bins (give --by FACT)")
-    fig, axes = _new_figure(len(facts))
-    series = (
-        ("recall50", "recall @ IoU .5", "-", "o"),
-        ("recall75", "recall @ IoU .75", "--", "o"),
-        ("ap50", "AP @ IoU .5", "-", "s"),
-        ("ap", "AP @ IoU .5:.95", "--", "s"),
-    )
-    for ax, fact in zip(axes, facts):
-        bins = slices[fact]
-        x = list(range(len(bins)))
-        for attr, label, style, marker in series:
-            ax.plot(x, [_nan(getattr(b, attr)) for b in bins], linestyle=style, marker=marker, label=label)
-        ax.set_xticks(x)
-        ax.set_xticklabels([f"{b.label}\nn={b.n_gt}" for b in bins], fontsize=8, rotation=30 if len(bins) > 5 else 0)
-        ax.set_ylim(0.0, 1.05)
-        ax.set_xlim(-0.5, len(bins) - 0.5)
-        ax.set_xlabel(f"{fact} (bin, objects)")
-        ax.set_ylabel("recall / AP")
-        ax.set_title(f"by {fact}")
-        ax.grid(True, alpha=0.3)
-    axes[0].legend(fontsize=8, loc="best")
-    if title:
-        fig.suptitle(title)
-    _save(fig, path)
-    return figure_size_px(len(facts))
+    from synthgen.page import charts
+
+    return charts.plot_slices(slices, path, title=title, panel_px=PANEL_PX)
 
 
-def plot_sweep(points: Sequence[SweepPoint], path) -> tuple[int, int]:
-    """Write a PNG of AP, AP50, AP75 and AR100 across the subsets of a sweep.
+def plot_sweep(points: Sequence[SweepPoint], path, *, title: str = "across the sweep") -> tuple[int, int]:
+    """Write a PNG of AP50, AP and recall at .5 across the subsets of a sweep.
 
-    Parameters
-    ----------
-    points : sequence of SweepPoint
-        As returned by :func:`synthgen.score.score_sweep`, in plotting order.
-        With one varied key of plain numbers the x-axis is that number;
-        otherwise each subset is a tick labelled with its varied values.
-    path : path-like
+    Drawn by :func:`synthgen.page.charts.plot_sweep`; ``title`` should name
+    the sweep and the predictions.
 
     Returns
     -------
     (int, int)
         Pixel size of the one-panel figure, :data:`PANEL_PX`.
     """
-    if not points:
-        raise UserError("nothing to plot: the sweep has no subsets")
-    fig, (ax,) = _new_figure(1)
-    keys = list(dict.fromkeys(k for p in points for k in p.values))
-    xs = [p.values.get(keys[0]) for p in points] if len(keys) == 1 else []
-    numeric = bool(xs) and all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in xs)
-    x = xs if numeric else list(range(len(points)))
-    for name, style in (("AP", "-o"), ("AP50", "-s"), ("AP75", "--s"), ("AR100", ":o")):
-        i = STAT_NAMES.index(name)
-        ax.plot(x, [p.evaluation.stats[i] if p.evaluation.stats[i] >= 0 else math.nan for p in points], style, label=name)
-    if not numeric:
-        ax.set_xticks(x)
-        labels = [p.label or p.subset for p in points]
-        if len(keys) == 1:
-            labels = [lab.partition("=")[2] for lab in labels]
-        ax.set_xticklabels(labels, fontsize=8, rotation=30 if len(points) > 4 else 0)
-    ax.set_ylim(0.0, 1.05)
-    ax.set_xlabel(", ".join(keys) if keys else "subset")
-    ax.set_ylabel("AP / AR")
-    ax.set_title("across the sweep")
-    ax.grid(True, alpha=0.3)
-    ax.legend(fontsize=8)
-    _save(fig, path)
-    return figure_size_px(1)
+    from synthgen.page import charts
+
+    return charts.plot_sweep(points, path, title=title, size_px=PANEL_PX)
 
 
 def sweep_table(points: Sequence[SweepPoint]):

@@ -198,6 +198,18 @@ def test_legend_is_outside_the_plot_and_recall_is_beside_ap50(small_dataset, tmp
     assert lines["recall @ IoU .5"].get_linestyle() != lines["AP @ IoU .5"].get_linestyle()
 
 
+def test_score_plot_title_legend_and_panels_do_not_overlap(small_dataset, tmp_path):
+    """score --plot: the title, the legend and every panel each have their own space."""
+    slices = {f: _bins(small_dataset, tmp_path, f) for f in ("size", "contrast", "kind", "truncated")}
+    fig = charts.slices_figure(slices, title="p.json on ds")
+    r = _rendered(fig)
+    parts = [fig._suptitle.get_window_extent(r), fig.legends[0].get_window_extent(r)]
+    parts += [ax.get_tightbbox(r) for ax in fig.axes]
+    for i, a in enumerate(parts):
+        for b in parts[i + 1:]:
+            assert not a.overlaps(b), (a, b)
+
+
 def test_axis_labels_carry_units():
     assert charts.axis_label("size") == "size (px)"
     assert charts.axis_label("visible_fraction") == "visible_fraction (fraction)"

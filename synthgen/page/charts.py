@@ -157,9 +157,10 @@ def _draw_bins(ax, fact: str, bins: Sequence) -> None:
     _style_axes(ax, axis_label(fact) + ("" if categorical else ", bins"))
 
 
-def _legend(fig, handles_from) -> None:
+def _legend(fig, handles_from, where: str = "upper") -> None:
+    """One legend for the figure, outside every plot area: above the panels, or below them (under a title)."""
     handles, labels = handles_from.get_legend_handles_labels()
-    fig.legend(handles, labels, loc="outside upper center", ncols=len(labels), fontsize=8, frameon=False)
+    fig.legend(handles, labels, loc=f"outside {where} center", ncols=len(labels), fontsize=8, frameon=False)
 
 
 def slice_figure(fact: str, bins: Sequence, *, width_px: int = 400, height_px: int = 280):
@@ -194,7 +195,7 @@ def slices_figure(slices: Mapping[str, Sequence], *, panel_px=(480, 360), column
     for ax, fact in zip(axes, facts):
         _draw_bins(ax, fact, slices[fact])
         ax.set_title(f"by {fact}", fontsize=10, color=_INK)
-    _legend(fig, axes[0])
+    _legend(fig, axes[0], "lower" if title else "upper")
     if title:
         fig.suptitle(title, fontsize=11, color=_INK)
     return fig
