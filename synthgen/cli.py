@@ -737,6 +737,14 @@ def show(
     zoom: Annotated[
         bool, typer.Option("--zoom", help="Add enlarged crops of the smallest objects (nearest neighbour).")
     ] = False,
+    zoom_pick: Annotated[
+        str,
+        typer.Option("--zoom-pick", help="Objects the zoom strip shows: smallest, spread (sizes from the smallest "
+                     "up) or missed (the smallest no prediction found; needs --pred)."),
+    ] = "smallest",
+    zoom_count: Annotated[
+        Optional[int], typer.Option("--zoom-count", help="Number of zoom crops (default: two rows).", min=1)
+    ] = None,
     image_dir: Annotated[
         Optional[Path],
         typer.Option("--image-dir", help="Directory holding the images, if not beside the annotation file."),
@@ -778,11 +786,15 @@ def show(
             predictions, missed = report.classify_predictions(ds.coco, predictions)
             how = ", kinds by matching at IoU 0.5"
     sheet = report.contact_sheet(
-        ds, n=images, ids=id_list, cols=cols, scale=scale, predictions=predictions, missed=missed, zoom=zoom
+        ds, n=images, ids=id_list, cols=cols, scale=scale, predictions=predictions, missed=missed, zoom=zoom,
+        zoom_count=zoom_count, zoom_pick=zoom_pick,
     )
     report.save_png(sheet.pixels, out)
     shown = len(id_list) if id_list is not None else min(images, len(ds.coco["images"]))
-    extra = f", {len(predictions)} predictions{how}" if predictions is not None else ""
+    extra = ""
+    if predictions is not None:  # count the predictions drawn, not every one in the file
+        drawn = sum(int(i) in {t.image_id for t in sheet.tiles} for i in predictions.image_id)
+        extra = f", {drawn} of {len(predictions)} predictions drawn{how}"
     size = f"{sheet.pixels.shape[1]}x{sheet.pixels.shape[0]} px"
     typer.echo(f"wrote {out} ({size}, {shown} image{'s' if shown != 1 else ''}{extra})")
 

@@ -18,7 +18,10 @@ inside* the box: in a tile drawn at scale ``s`` the outline's columns are
 ``ceil(s * y1) - 1`` (:func:`outline_pixels`).  So box ``[2, 3, 7, 9]`` at scale
 1 colours columns 2..6 on rows 3 and 8 and rows 3..8 on columns 2 and 6, and
 nothing outside the box takes the box's colour.  Edges that fall outside a tile
-are not drawn (they would suggest an edge that is not there).  To keep a light
+are not drawn (they would suggest an edge that is not there).  On the
+overview tiles a box under 12 tile pixels across is outlined on the ring just
+*outside* it instead (:func:`outline_outside_small`), so a tiny object stays
+visible.  To keep a light
 outline visible on a light image, the ring of pixels just *outside* each
 outline is darkened (a halo, :func:`draw_boxes`); predictions are dashed, 4
 pixels on and 3 off, with the halo beside the dashes only.
@@ -877,11 +880,13 @@ class _Tile:
     sy: float
 
 
-def _render_tile(ds: Dataset, image: Mapping, overlay: _Overlay, scale: float, show_factor: bool) -> _Tile:
-    """One image at ``scale`` with its boxes drawn, and its caption."""
+def _render_tile(ds: Dataset, image: Mapping, overlay: _Overlay, scale: float, show_factor: bool,
+                 small: float = 12.0) -> _Tile:
+    """One image at ``scale`` with its boxes drawn (outside where smaller than ``small`` tile px), and its caption."""
     pix, sx, sy = _scaled(_load_image(ds, image), scale)
     image_id = int(image["id"])
     boxes, colours, dashed = overlay.for_image(image_id)
+    boxes = outline_outside_small(boxes, sx, sy, small)
     here = overlay.image_id == image_id
     n_obj = int(np.count_nonzero(here & ~overlay.crowd))
     caption = f"id {image_id} · {n_obj} object{'s' if n_obj != 1 else ''}"
@@ -897,6 +902,34 @@ def _render_tile(ds: Dataset, image: Mapping, overlay: _Overlay, scale: float, s
         if overlay.missed is not None:
             caption += f", {int(np.count_nonzero(overlay.missed[overlay.image_id == image_id]))} missed"
     return _Tile(image_id, draw_boxes(pix, boxes, colours, sx=sx, sy=sy, dashed=dashed), caption, sx, sy)
+
+
+def outline_outside_small(boxes, sx: float, sy: float, limit: float = 12.0) -> np.ndarray:
+    """Boxes grown by one tile pixel on every side where they are small on the tile.
+
+    The outline of a box lies on the pixels just inside it; on a box a few
+    tile pixels across that ring covers most of the object.  Growing such a box
+    by one tile pixel (``1 / sx`` image pixels across, ``1 / sy`` down) puts its
+    outline on the ring just outside, and the object's own pixels stay visible.
+
+    Parameters
+    ----------
+    boxes : array_like of shape (N, 4)
+        xyxy in image pixels.
+    sx, sy : float
+        Tile pixels per image pixel.
+    limit : float
+        Boxes whose width or height on the tile is below this are grown.
+
+    Examples
+    --------
+    >>> outline_outside_small([[10, 10, 13, 13], [0, 0, 40, 40]], 1.0, 1.0).tolist()
+    [[9.0, 9.0, 14.0, 14.0], [0.0, 0.0, 40.0, 40.0]]
+    """
+    b = as_boxes(boxes).copy()
+    small = ((b[:, 2] - b[:, 0]) * sx < limit) | ((b[:, 3] - b[:, 1]) * sy < limit)
+    b[small] += np.array([-1 / sx, -1 / sy, 1 / sx, 1 / sy])
+    return b
 
 
 #: Side of a zoom crop on the sheet, px.
@@ -937,8 +970,34 @@ def _enlarged_crop(img: np.ndarray, centre: tuple[float, float], z: int, side: i
     return big, X0 / z, Y0 / z
 
 
-def _zoom_crops(ds: Dataset, chosen, overlay: _Overlay, tile_scales: dict, count: int, side: int = _ZOOM_SIDE):
-    """Enlarged crops of the smallest objects of the chosen images: (pixels, line 1, line 2, Placement)."""
+#: How the zoom strip chooses its objects among those an enlargement helps.
+ZOOM_PICKS = ("smallest", "spread", "missed")
+
+
+def _zoom_order(area: np.ndarray, helps: np.ndarray, missed, pick: str, count: int) -> np.ndarray:
+    """Indices (into the candidates) of the objects the zoom strip shows, in the order shown.
+
+    ``smallest``: by area, smallest first; ``spread``: ``count`` objects evenly
+    spaced in area rank from the smallest to the largest that still gets
+    enlarged; ``missed``: the smallest objects no prediction found.
+
+    Examples
+    --------
+    >>> _zoom_order(np.array([5., 1., 9., 3., 7.]), np.ones(5, bool), None, "spread", 3).tolist()
+    [1, 0, 2]
+    """
+    order = np.argsort(area, kind="stable")
+    order = order[helps[order]]
+    if pick == "missed":
+        order = order[np.asarray(missed, dtype=bool)[order]] if missed is not None else order[:0]
+    if pick == "spread" and len(order) > count > 0:
+        order = order[np.unique(np.round(np.linspace(0, len(order) - 1, count)).astype(int))]
+    return order[:count]
+
+
+def _zoom_crops(ds: Dataset, chosen, overlay: _Overlay, tile_scales: dict, count: int, side: int = _ZOOM_SIDE,
+                pick: str = "smallest"):
+    """Enlarged crops of chosen objects of the shown images (:func:`_zoom_order`): (pixels, line 1, line 2, Placement)."""
     ids = [int(im["id"]) for im in chosen]
     sel = np.flatnonzero(np.isin(overlay.image_id, ids) & ~overlay.crowd)
     if sel.size == 0 or count <= 0:
@@ -948,8 +1007,8 @@ def _zoom_crops(ds: Dataset, chosen, overlay: _Overlay, tile_scales: dict, count
     # only objects an enlargement helps: at least x2, and more than their tile already shows
     tile_scale = np.array([tile_scales.get(int(g), 1.0) for g in overlay.image_id[sel]])
     helps = (longer <= _zoom_limit(side)) & (_zoom_factor(longer, side) > tile_scale)
-    order = np.argsort(overlay.area[sel], kind="stable")
-    pick = sel[order[helps[order]][:count]]
+    missed = None if overlay.missed is None else overlay.missed[sel]
+    pick = sel[_zoom_order(overlay.area[sel], helps, missed, pick, count)]
     by_id = {int(im["id"]): im for im in chosen}
     cache: dict[int, np.ndarray] = {}
     out = []
@@ -1018,6 +1077,8 @@ def contact_sheet(
     missed=None,
     zoom: bool = False,
     zoom_count: int | None = None,
+    zoom_pick: str = "smallest",
+    small_outline: float = 12.0,
 ) -> Sheet:
     """A grid of a dataset's images with their boxes drawn on top.
 
@@ -1051,6 +1112,15 @@ def contact_sheet(
         enlarged grid.
     zoom_count : int, optional
         Number of crops (default: two rows' worth).
+    small_outline : float
+        Boxes narrower or shorter than this many tile pixels are outlined on
+        the ring just outside them (:func:`outline_outside_small`), so that a
+        tiny object is not hidden under its own outline; 0 keeps every outline
+        just inside its box.
+    zoom_pick : str
+        Which objects the strip shows, one of :data:`ZOOM_PICKS`: the
+        ``smallest``, a ``spread`` of sizes from the smallest up, or the
+        smallest of those no prediction found (``missed``, needs ``missed``).
 
     Returns
     -------
@@ -1077,7 +1147,8 @@ def contact_sheet(
         if fit < 1:
             auto = {k: v * fit for k, v in auto.items()}
     mixed = scale is None and len(set(auto.values())) > 1
-    tiles = [_render_tile(ds, im, overlay, auto[int(im["id"])] if scale is None else scale, mixed) for im in chosen]
+    tiles = [_render_tile(ds, im, overlay, auto[int(im["id"])] if scale is None else scale, mixed, small_outline)
+             for im in chosen]
 
     rows = math.ceil(len(tiles) / cols)
     tile_w = max(t.pixels.shape[1] for t in tiles)
@@ -1112,7 +1183,12 @@ def contact_sheet(
     zoom_cols = max(1, (sheet_w - 2 * pad + gap) // (_ZOOM_SIDE + gap))
     if zoom:
         scales = {t.image_id: t.sx for t in tiles}
-        crops = _zoom_crops(ds, chosen, overlay, scales, zoom_count if zoom_count is not None else 2 * zoom_cols)
+        if zoom_pick not in ZOOM_PICKS:
+            raise UserError(f"zoom pick must be one of {', '.join(ZOOM_PICKS)} (got {zoom_pick!r})")
+        if zoom_pick == "missed" and missed is None:
+            raise UserError("zoom pick 'missed' needs predictions (--pred) to know which objects were missed")
+        crops = _zoom_crops(ds, chosen, overlay, scales, zoom_count if zoom_count is not None else 2 * zoom_cols,
+                            pick=zoom_pick)
     zoom_cap = 2 * fonts.px + 6
     zoom_h = title_h + math.ceil(len(crops) / zoom_cols) * (_ZOOM_SIDE + zoom_cap + gap) if zoom else 0
 
@@ -1148,7 +1224,9 @@ def contact_sheet(
         limit = f"{_zoom_limit(_ZOOM_SIDE):.0f}"
         if crops:
             these = "this image" if len(tiles) == 1 else "these images"
-            label = (f"the {len(crops)} smallest objects (by area; longer side up to {limit} px) in {these}, "
+            which = {"smallest": "smallest objects", "spread": "objects spread over sizes, smallest first",
+                     "missed": "smallest missed objects"}[zoom_pick]
+            label = (f"the {len(crops)} {which} (by area; longer side up to {limit} px) in {these}, "
                      "enlarged with nearest neighbour")
         else:
             these = "this image" if len(tiles) == 1 else "these images"
