@@ -92,7 +92,8 @@ table{border-collapse:collapse;margin:8px 0 16px;font-variant-numeric:tabular-nu
 th,td{padding:4px 10px;border-bottom:1px solid var(--rule);text-align:right}
 th{background:var(--panel);font-weight:600}
 th:first-child,td:first-child{text-align:left}
-td.text{text-align:left;color:var(--muted)}
+td.text{text-align:left;color:var(--muted)}th.text{text-align:left}
+td:first-child{white-space:nowrap}
 th button{font:inherit;color:inherit;background:none;border:0;padding:0;cursor:pointer}
 .bar{display:inline-block;height:10px;background:var(--bar);vertical-align:middle;margin-right:6px}
 .grid{display:grid;grid-template-columns:repeat(auto-fill,minmax(360px,1fr));gap:14px}
@@ -138,6 +139,11 @@ def _num(v, digits: int = 3) -> str:
     return f"{v:.{digits}f}"
 
 
+def _gain(v) -> str:
+    """A change in AP with its sign; a rise of less than 0.0005 either way reads as 0.000."""
+    return "0.000" if abs(v) < 5e-4 else f"{v:+.3f}".replace("-", "−")
+
+
 def _value_cell(v, attrs: str = "") -> str:
     data = "" if v is None or v != v else f' data-value="{float(v)!r}"'
     return f"<td{attrs}{data}>{_num(v)}</td>"
@@ -178,7 +184,8 @@ def _what_was_run(run: Run) -> str:
         keys = [k for k in ("seed", "count", "canvas.width", "canvas.height", "objects.count", "objects.size",
                             "objects.kinds", "background.kind") if k in short]
         summary = ", ".join(f"{k} = {json.dumps(short[k])}" for k in keys)
-        out.append(f'<p class="sub">config: {_e(summary)}</p>')
+        first = " (of the first subset; the varied keys differ)" if len(run.subsets) > 1 else ""
+        out.append(f'<p class="sub">config{first}: {_e(summary)}</p>')
         out.append(f"<details><summary>full config</summary><pre>{_e(json.dumps(config, indent=1))}</pre></details>")
     return "\n".join(out)
 
@@ -191,8 +198,8 @@ def _headline(sub: Subset) -> str:
     rows = "".join(f'<tr><td>{n}</td><td class="text">{_e(STAT_TEXT[n])}</td>'
                    f'{_value_cell(stats[n], f" data-subset={chr(34)}{key}{chr(34)} data-stat={chr(34)}{n}{chr(34)}")}'
                    "</tr>" for n in STAT_NAMES)
-    table = (f'<table class="stats"><caption class="sub">the twelve COCO box statistics ("–": no object counts)'
-             f"</caption><thead><tr><th>stat</th><th>what</th><th>value</th></tr></thead><tbody>{rows}</tbody></table>")
+    table = ('<table class="stats"><caption class="sub">"–": no object counts</caption><thead><tr><th>stat</th>'
+             f'<th class="text">what</th><th>value</th></tr></thead><tbody>{rows}</tbody></table>')
     return f'<div class="cards">{cards}</div>' + _errors_table(sub) + "<h3>All twelve statistics</h3>" + table
 
 
@@ -207,7 +214,8 @@ def _errors_table(sub: Subset) -> str:
         else:
             g_ap, g_ap50 = b.gain(kind)
             width = 0 if g_ap50 <= 0 else max(2, round(120 * g_ap50 / biggest))
-            gain_cells = (f'{_value_cell(g_ap50, f" data-gain={chr(34)}{kind}{chr(34)}")}{_value_cell(g_ap)}'
+            gain_cells = (f'<td data-gain="{kind}" data-value="{g_ap50!r}">{_gain(g_ap50)}</td>'
+                          f'<td data-value="{g_ap!r}">{_gain(g_ap)}</td>'
                           f'<td class="text"><span class="bar" style="width:{width}px"></span>'
                           f"AP50 {_num(b.mended[kind][1])} if mended</td>")
         swatch = _line_sample(KIND_COLOURS.get(kind, TRUTH_COLOUR), dashed=kind != "missed")
@@ -217,8 +225,8 @@ def _errors_table(sub: Subset) -> str:
     return ("<h3>What went wrong, and what each kind of error costs</h3>"
             '<table class="sortable errors"><caption class="sub">each kind of error mended alone and the predictions '
             "scored again by synthgen's COCO scorer; the gain is the rise in AP" + _e(note) + "</caption>"
-            "<thead><tr><th>kind</th><th>count</th><th>AP50 gain</th><th>AP gain</th><th>mended</th>"
-            f"<th>meaning</th></tr></thead><tbody>{''.join(rows)}</tbody></table>")
+            "<thead><tr><th>kind</th><th>count</th><th>AP50 gain</th><th>AP gain</th><th class=\"text\">mended</th>"
+            f"<th class=\"text\">meaning</th></tr></thead><tbody>{''.join(rows)}</tbody></table>")
 
 
 def _line_sample(colour: str, *, dashed: bool) -> str:
@@ -266,7 +274,7 @@ def _legend() -> str:
                 '<label class="switch"><input type="checkbox" id="hide-pred"> hide predictions</label>')
     return (f'<div class="legend"><span>truth solid, predictions dashed:</span>{"".join(f"<span>{i}</span>" for i in items)}'
             f"</div><div class=\"legend\">{switches}<span class=\"sub\">each crop shows at least "
-            "24 image pixels across, enlarged with square pixels</span></div>")
+            "10 image pixels across, enlarged with square pixels; outlines lie just outside the boxes</span></div>")
 
 
 def _tables(sub: Subset) -> str:

@@ -133,34 +133,44 @@ def _style_axes(ax, xlabel: str, ylabel: str = "fraction (0 to 1)") -> None:
         ax.spines[side].set_visible(False)
 
 
-def _draw_bins(ax, fact: str, bins: Sequence) -> None:
-    """Lines for an ordered fact, grouped bars for a categorical one, on ``ax``."""
+def _draw_bins(ax, fact: str, bins: Sequence) -> tuple[list, list]:
+    """Lines for an ordered fact, grouped bars for a categorical one, on ``ax``: (legend handles, labels)."""
     categorical = bool(bins) and bins[0].lo is None
     n = len(bins)
+    handles, labels = [], []
     for j, (attr, label, colour, style, marker) in enumerate(SERIES):
         x = [i + (j - 1) * (_DODGE if not categorical else 0.27) for i in range(n)]
         y = [_nan(getattr(b, attr)) for b in bins]
         if categorical:
             # the series' marker on top of each bar tells the bars apart without colour (hatching
             # would too, at ten times the SVG size)
-            ax.bar(x, [0 if math.isnan(v) else v for v in y], width=0.26, color=colour, alpha=0.8,
-                   edgecolor=colour, linewidth=0.8)
-            ax.plot(x, y, linestyle="none", marker=marker, color=colour, markerfacecolor="white",
-                    markeredgewidth=1.4, markersize=6, label=label, zorder=4)
+            bars = ax.bar(x, [0 if math.isnan(v) else v for v in y], width=0.26, color=colour, alpha=0.8,
+                          edgecolor=colour, linewidth=0.8)
+            (dots,) = ax.plot(x, y, linestyle="none", marker=marker, color=colour, markerfacecolor="white",
+                              markeredgewidth=1.4, markersize=6, label=label, zorder=4)
+            handles.append((bars.patches[0], dots) if bars.patches else dots)
         else:
             filled = colour if marker != "^" else "white"  # recall: hollow triangles on top
-            ax.plot(x, y, linestyle=style, marker=marker, color=colour, markerfacecolor=filled,
-                    markersize=5.5, linewidth=1.6, label=label, zorder=3 + j)
+            (line,) = ax.plot(x, y, linestyle=style, marker=marker, color=colour, markerfacecolor=filled,
+                              markersize=5.5, linewidth=1.6, label=label, zorder=3 + j)
+            handles.append(line)
+        labels.append(label)
     ax.set_xticks(range(n))
     ax.set_xticklabels(bin_ticks(bins), rotation=0)
     ax.set_xlim(-0.6, n - 0.4)
     _style_axes(ax, axis_label(fact) + ("" if categorical else ", bins"))
+    return handles, labels
 
 
-def _legend(fig, handles_from, where: str = "upper") -> None:
-    """One legend for the figure, outside every plot area: above the panels, or below them (under a title)."""
-    handles, labels = handles_from.get_legend_handles_labels()
-    fig.legend(handles, labels, loc=f"outside {where} center", ncols=len(labels), fontsize=8, frameon=False)
+def _legend(fig, handles: list, labels: list, where: str = "upper") -> None:
+    """One legend for the figure, outside every plot area: above the panels, or below them (under a title).
+
+    A bar series' entry shows its bar and its marker together.
+    """
+    from matplotlib.legend_handler import HandlerTuple
+
+    fig.legend(handles, labels, loc=f"outside {where} center", ncols=len(labels), fontsize=8, frameon=False,
+               handler_map={tuple: HandlerTuple(ndivide=None, pad=0.2)})
 
 
 def slice_figure(fact: str, bins: Sequence, *, width_px: int = 400, height_px: int = 280):
@@ -178,8 +188,7 @@ def slice_figure(fact: str, bins: Sequence, *, width_px: int = 400, height_px: i
     """
     fig = _figure(width_px, height_px)
     ax = fig.add_subplot(1, 1, 1)
-    _draw_bins(ax, fact, bins)
-    _legend(fig, ax)
+    _legend(fig, *_draw_bins(ax, fact, bins))
     return fig
 
 
@@ -192,10 +201,12 @@ def slices_figure(slices: Mapping[str, Sequence], *, panel_px=(480, 360), column
     rows = math.ceil(len(facts) / columns)
     fig = _figure(panel_px[0] * cols, panel_px[1] * rows)
     axes = [fig.add_subplot(rows, cols, i + 1) for i in range(len(facts))]
+    legend = {}
     for ax, fact in zip(axes, facts):
-        _draw_bins(ax, fact, slices[fact])
+        for h, lab in zip(*_draw_bins(ax, fact, slices[fact])):
+            legend.setdefault(lab, h)  # the first panel's kind of entry (line, or bar and marker)
         ax.set_title(f"by {fact}", fontsize=10, color=_INK)
-    _legend(fig, axes[0], "lower" if title else "upper")
+    _legend(fig, list(legend.values()), list(legend), "lower" if title else "upper")
     if title:
         fig.suptitle(title, fontsize=11, color=_INK)
     return fig
@@ -222,6 +233,7 @@ def sweep_figure(points: Sequence, *, title: str, width_px: int = 480, height_px
     numeric = bool(xs) and all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in xs)
     x = [float(v) for v in xs] if numeric else list(range(len(points)))
     span = (max(x) - min(x)) if len(x) > 1 else 1.0
+    handles = []
     for j, (attr, label, colour, style, marker) in enumerate(SERIES):
         if attr == "recall50":
             y = [_recall50(p.evaluation) for p in points]
@@ -229,8 +241,8 @@ def sweep_figure(points: Sequence, *, title: str, width_px: int = 480, height_px
             v = [p.evaluation.stats[STAT_NAMES.index("AP50" if attr == "ap50" else "AP")] for p in points]
             y = [s if s >= 0 else math.nan for s in v]
         xj = [xi + (j - 1) * _DODGE * span / max(len(x), 1) for xi in x]
-        ax.plot(xj, y, linestyle=style, marker=marker, color=colour, markersize=5.5, linewidth=1.6, label=label,
-                markerfacecolor=colour if marker != "^" else "white", zorder=3 + j)
+        handles += ax.plot(xj, y, linestyle=style, marker=marker, color=colour, markersize=5.5, linewidth=1.6,
+                           label=label, markerfacecolor=colour if marker != "^" else "white", zorder=3 + j)
     counts = [p.evaluation.to_dict()["counts"]["ground_truth"] for p in points]
     if numeric:
         ax.set_xticks(x)
@@ -242,7 +254,7 @@ def sweep_figure(points: Sequence, *, title: str, width_px: int = 480, height_px
                            rotation=30 if len(points) > 4 else 0)
     _style_axes(ax, axis_label(", ".join(keys) if keys else "subset"))
     ax.set_title(title, fontsize=10, color=_INK)
-    _legend(fig, ax)
+    _legend(fig, handles, [h.get_label() for h in handles])
     return fig
 
 

@@ -46,8 +46,10 @@ KIND_COLOURS = {
 }
 #: Solid outline colour of the ground truth.
 TRUTH_COLOUR = "#ffe14d"
-#: Smallest window side, image pixels.
-MIN_WINDOW = 24
+#: Smallest window side, image pixels: a 1 or 2 px object is shown some 20 times enlarged.
+MIN_WINDOW = 10
+#: Width at which the page shows a crop, CSS px (about; the grid may stretch it a little).
+SHOWN_PX = 200
 #: Largest side of a crop's embedded pixels; larger windows are shrunk by area averaging (the page
 #: shows crops about 200 px wide, so more pixels would add bytes, not detail).
 MAX_CROP_PX = 200
@@ -192,11 +194,12 @@ def _caption(what, idx, image_id, anns, preds, names, gt_xyxy, p_xyxy, kinds) ->
         a = anns[idx]
         others = [i for i, p in enumerate(preds) if p["image_id"] == image_id]
         head = f"missed {names.get(a['category_id'], a['category_id'])}"
-        tail = "no prediction"
+        tail = "no prediction near it (IoU < 0.1)"
         if others:
             iou = pairwise_iou(gt_xyxy[idx : idx + 1], p_xyxy[others])[0]
             j = int(np.argmax(iou))
-            tail = f"best prediction IoU {iou[j]:.2f} ({kinds[others[j]].replace('_', ' ')})"
+            if iou[j] >= 0.1:
+                tail = f"best prediction IoU {iou[j]:.2f} ({kinds[others[j]].replace('_', ' ')})"
         facts = _fact_text(a)
     else:
         p = preds[idx]
@@ -209,13 +212,18 @@ def _caption(what, idx, image_id, anns, preds, names, gt_xyxy, p_xyxy, kinds) ->
 
 
 def _rect(box, win, colour: str, dashed: bool, focus: bool) -> str:
-    """Two rectangles: a dark halo under the coloured outline; the crop's subject drawn thicker."""
+    """Two rectangles: a dark halo under the coloured outline; the crop's subject drawn thicker.
+
+    Both lie just *outside* the box (grown by the halo's half width on
+    screen), so that no pixel of the object is covered by its own outline.
+    """
+    width = 3.5 if focus else 1.5
+    pad = ((width + 2) / 2 + 0.5) * max(win[2] - win[0], win[3] - win[1]) / SHOWN_PX  # image px
     x0, y0, x1, y1 = box
-    x, y = x0 - win[0], y0 - win[1]
-    w, h = max(x1 - x0, 0.01), max(y1 - y0, 0.01)
+    x, y = x0 - win[0] - pad, y0 - win[1] - pad
+    w, h = max(x1 - x0, 0.01) + 2 * pad, max(y1 - y0, 0.01) + 2 * pad
     geom = f'x="{x:.3f}" y="{y:.3f}" width="{w:.3f}" height="{h:.3f}"'
     dash = ' stroke-dasharray="5 3"' if dashed else ""
-    width = 3.5 if focus else 1.5
     return (f'<rect {geom} fill="none" stroke="#000" stroke-opacity="0.7" stroke-width="{width + 2}"{dash} '
             f'vector-effect="non-scaling-stroke"/>'
             f'<rect {geom} fill="none" stroke="{colour}" stroke-width="{width}"{dash} '
@@ -235,7 +243,7 @@ def crop_svg(crop: Crop) -> str:
     x0, y0, x1, y1 = crop.window
     w, h = x1 - x0, y1 - y0  # the viewBox is the window in image pixels, whatever the embedded size
     alt = html.escape(f"{crop.caption}. {w} x {h} image pixels around it; truth solid yellow, predictions "
-                      "dashed, the subject drawn thicker.", quote=True)
+                      "dashed, both just outside the box; the subject drawn thicker.", quote=True)
     parts = [f'<svg class="crop" viewBox="0 0 {w} {h}" role="img" aria-label="{alt}"><title>{alt}</title>',
              f'<image width="{w}" height="{h}" href="data:image/png;base64,{_png_base64(crop.pixels)}"/>',
              '<g class="truth">']

@@ -17,6 +17,7 @@ its errors (:mod:`synthgen.page.errors`); the page is built from the
 from __future__ import annotations
 
 import datetime as _dt
+import hashlib
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass, field
@@ -132,9 +133,10 @@ def _subset(name: str, ds: Dataset, preds: list, pred_name: str, varied: dict, b
 
 
 def _manifest_summary(ds: Dataset) -> dict:
-    m = ds.manifest or {}
-    return {"path": ds.name, "kind": "dataset", "manifest_digest": m.get("digest") or m.get("manifest_digest"),
-            "config": m.get("config")}
+    """Name, kind, config and the SHA-256 of ``manifest.json`` (which lists the SHA-256 of every file)."""
+    manifest = ds.source.parent / "manifest.json"
+    digest = hashlib.sha256(manifest.read_bytes()).hexdigest() if manifest.is_file() else None
+    return {"path": ds.name, "kind": "dataset", "manifest_digest": digest, "config": (ds.manifest or {}).get("config")}
 
 
 def _now() -> str:
@@ -197,7 +199,9 @@ def _load_sweep(sweep: Path, pred_dir: Path, by, explicit: bool) -> Run:
         pred_path = pred_dir / (point.subset + ".json")
         preds = read_predictions(pred_path)
         subsets.append(_subset(point.subset, ds, preds, point.subset + ".json", point.values, facts, explicit))
-    source = {"path": sweep.name, "kind": "sweep", "manifest_digest": None,
+    listing = sweep / "sweep.json"
+    digest = hashlib.sha256(listing.read_bytes()).hexdigest() if listing.is_file() else None
+    source = {"path": sweep.name, "kind": "sweep", "manifest_digest": digest,
               "config": (subsets[0].dataset.manifest or {}).get("config") if subsets else None}
     return Run("sweep", f"{pred_dir.name} on the sweep {sweep.name}", {"name": pred_dir.name}, source,
                _version(), _now(), facts, subsets)
