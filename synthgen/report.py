@@ -997,7 +997,10 @@ def _zoom_order(area: np.ndarray, helps: np.ndarray, missed, pick: str, count: i
 
 def _zoom_crops(ds: Dataset, chosen, overlay: _Overlay, tile_scales: dict, count: int, side: int = _ZOOM_SIDE,
                 pick: str = "smallest"):
-    """Enlarged crops of chosen objects of the shown images (:func:`_zoom_order`): (pixels, line 1, line 2, Placement)."""
+    """Enlarged crops of chosen objects of the shown images (:func:`_zoom_order`).
+
+    Returns a list of (pixels, line 1, line 2, Placement).
+    """
     ids = [int(im["id"]) for im in chosen]
     sel = np.flatnonzero(np.isin(overlay.image_id, ids) & ~overlay.crowd)
     if sel.size == 0 or count <= 0:

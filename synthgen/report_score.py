@@ -10,7 +10,7 @@ import math
 from collections.abc import Mapping, Sequence
 from pathlib import Path
 
-from synthgen.errors import InputFileError, UserError, require_extra
+from synthgen.errors import InputFileError, require_extra
 from synthgen.score import STAT_NAMES, BinResult, Evaluation, SweepPoint
 
 __all__ = [

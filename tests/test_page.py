@@ -43,11 +43,11 @@ A, B = (10, 10, 40, 40), (100, 100, 40, 40)
 
 def _pycoco_ap50(gt, preds):
     """AP50 by pycocotools, the reference COCO evaluation."""
-    from pycocotools.coco import COCO
-    from pycocotools.cocoeval import COCOeval
-
     import contextlib
     import io
+
+    from pycocotools.coco import COCO
+    from pycocotools.cocoeval import COCOeval
 
     with contextlib.redirect_stdout(io.StringIO()):
         c = COCO()

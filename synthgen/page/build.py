@@ -272,7 +272,8 @@ def _legend() -> str:
               for k in ("true_positive", "duplicate", "localization", "wrong_class", "background")]
     switches = ('<label class="switch"><input type="checkbox" id="hide-truth"> hide truth</label>'
                 '<label class="switch"><input type="checkbox" id="hide-pred"> hide predictions</label>')
-    return (f'<div class="legend"><span>truth solid, predictions dashed:</span>{"".join(f"<span>{i}</span>" for i in items)}'
+    spans = "".join(f"<span>{i}</span>" for i in items)
+    return (f'<div class="legend"><span>truth solid, predictions dashed:</span>{spans}'
             f"</div><div class=\"legend\">{switches}<span class=\"sub\">each crop shows at least "
             "10 image pixels across, enlarged with square pixels; outlines lie just outside the boxes</span></div>")
 

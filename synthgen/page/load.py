@@ -140,7 +140,7 @@ def _manifest_summary(ds: Dataset) -> dict:
 
 
 def _now() -> str:
-    return _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
+    return _dt.datetime.now(_dt.UTC).strftime("%Y-%m-%d %H:%M UTC")
 
 
 def _version() -> str:
@@ -158,7 +158,7 @@ def _load_probe(run: Path, by, explicit: bool) -> Run:
     subsets = []
     for i, s in enumerate(subsets_meta):
         where = f"subsets[{i}]"
-        if not isinstance(s, dict) or not isinstance(s.get("dataset"), str) or not isinstance(s.get("predictions"), str):
+        if not isinstance(s, dict) or not all(isinstance(s.get(k), str) for k in ("dataset", "predictions")):
             raise InputFileError(run / "probe.json", f"'{where}' must hold 'dataset' and 'predictions' paths")
         ds = open_dataset(run / s["dataset"])
         preds = read_predictions(run / s["predictions"])
