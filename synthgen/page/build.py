@@ -200,7 +200,11 @@ def _headline(sub: Subset) -> str:
                    "</tr>" for n in STAT_NAMES)
     table = ('<table class="stats"><caption class="sub">"–": no object counts</caption><thead><tr><th>stat</th>'
              f'<th class="text">what</th><th>value</th></tr></thead><tbody>{rows}</tbody></table>')
-    return f'<div class="cards">{cards}</div>' + _errors_table(sub) + "<h3>All twelve statistics</h3>" + table
+    per_cat = " · ".join(f"{_e(c.name)} {_num(c.ap)}" for c in sorted(sub.evaluation.per_category,
+                                                                      key=lambda c: (c.ap < 0, c.ap)))
+    weakest = f'<p class="sub">AP by category, weakest first: {per_cat}</p>' if per_cat else ""
+    return (f'<div class="cards">{cards}</div>' + weakest + _errors_table(sub)
+            + "<h3>All twelve statistics</h3>" + table)
 
 
 def _errors_table(sub: Subset) -> str:

@@ -28,10 +28,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from synthgen.errors import InputFileError
 from synthgen.formats.coco import xyxy_from_bbox
-from synthgen.formats.images import read_image
 from synthgen.geometry import pairwise_iou
+from synthgen.report import _load_image  # the one reader of a dataset's image, with its error messages
 
 __all__ = ["KIND_COLOURS", "TRUTH_COLOUR", "MIN_WINDOW", "Crop", "worst_failures", "crop_svg"]
 
@@ -146,7 +145,7 @@ def worst_failures(subset, count: int = 6) -> tuple[list[Crop], list[Crop]]:
             else:
                 image_id, focus = preds[idx]["image_id"], p_xyxy[idx]
             if image_id not in cache:
-                cache[image_id] = _pixels(subset.dataset, images[image_id])
+                cache[image_id] = _load_image(subset.dataset, images[image_id])
             img = cache[image_id]
             win = _window(focus, img.shape[1], img.shape[0])
             g_sel = [g for g, a in enumerate(anns) if a["image_id"] == image_id]
@@ -175,17 +174,6 @@ def _at_most(pixels: np.ndarray, side: int) -> np.ndarray:
 
 def _crosses(box, win) -> bool:
     return box[0] < win[2] and box[2] > win[0] and box[1] < win[3] and box[3] > win[1]
-
-
-def _pixels(ds, image: Mapping) -> np.ndarray:
-    path = ds.image_path(image)
-    try:
-        arr = read_image(path)
-    except OSError as e:
-        raise InputFileError(path, f"cannot be read ({e.strerror or e})") from None
-    if arr is None:
-        raise InputFileError(path, "is not an image file OpenCV can decode")
-    return arr
 
 
 def _caption(what, idx, image_id, anns, preds, names, gt_xyxy, p_xyxy, kinds) -> str:
