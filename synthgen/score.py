@@ -1118,7 +1118,7 @@ def _geometric_edges(values: np.ndarray, base: float, refine: int = 2) -> np.nda
     [1.0, 2.0, 4.0, 8.0]
     >>> _geometric_edges(np.array([0.0, 5.0]), 2.0).tolist()
     [0.0, 4.0, 8.0]
-    >>> [round(x, 2) for x in _geometric_edges(np.array([9.0, 11.0, 14.0]), 2.0)]
+    >>> [round(float(x), 2) for x in _geometric_edges(np.array([9.0, 11.0, 14.0]), 2.0)]
     [8.0, 9.51, 11.31, 13.45, 16.0]
     """
     e = _powers_spanning(values, base)
