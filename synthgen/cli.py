@@ -793,7 +793,8 @@ def show(
     shown = len(id_list) if id_list is not None else min(images, len(ds.coco["images"]))
     extra = ""
     if predictions is not None:  # count the predictions drawn, not every one in the file
-        drawn = sum(int(i) in {t.image_id for t in sheet.tiles} for i in predictions.image_id)
+        on_sheet = {t.image_id for t in sheet.tiles}
+        drawn = sum(int(i) in on_sheet for i in predictions.image_id)
         extra = f", {drawn} of {len(predictions)} predictions drawn{how}"
     size = f"{sheet.pixels.shape[1]}x{sheet.pixels.shape[0]} px"
     typer.echo(f"wrote {out} ({size}, {shown} image{'s' if shown != 1 else ''}{extra})")
