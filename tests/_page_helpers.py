@@ -11,9 +11,9 @@ from pathlib import Path
 
 import orjson
 
+from synthgen.evaluate import SweepPoint, score_files
 from synthgen.jitter import DetectorSpec
-from synthgen.jitter_coco import jitter_files
-from synthgen.score import SweepPoint, score_files
+from synthgen.jitter.coco import jitter_files
 
 BY = ("size", "visible_fraction", "kind", "truncated")
 SPEC = DetectorSpec(miss=0.15, duplicates=0.1, background=1.0, relabel=0.05, localization=0.1)

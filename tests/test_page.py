@@ -12,9 +12,10 @@ import pytest
 from typer.testing import CliRunner
 
 from synthgen.cli import app
-from synthgen.page import charts, write_report
+from synthgen.evaluate import evaluate, score_files
+from synthgen.page import write_report
 from synthgen.page.errors import ERROR_KINDS, breakdown, classify, mend
-from synthgen.score import evaluate, score_files
+from synthgen.report import charts
 from tests._page_helpers import BY, make_probe_dir
 
 matplotlib = pytest.importorskip("matplotlib")
@@ -126,7 +127,7 @@ def test_objects_near_an_error_are_not_counted_missed():
 def test_breakdown_on_simulated_detections_matches_the_reference_and_the_sidecar(small_dataset, tmp_path):
     """On a jittered run: true positives equal pycocotools' matches at IoU .5, kinds equal the jitter sidecar's."""
     ds, _ = small_dataset
-    from synthgen.jitter_coco import jitter_files
+    from synthgen.jitter.coco import jitter_files
     from tests._page_helpers import SPEC
 
     jitter_files(ds, tmp_path / "p.json", seed=9, spec=SPEC)
@@ -238,7 +239,7 @@ def test_score_plot_sweep_title_names_the_sweep_and_predictions(small_dataset, t
     preds = [{"image_id": a["image_id"], "category_id": a["category_id"], "bbox": a["bbox"], "score": 1.0}
              for a in gt["annotations"]]
     (tmp_path / "pd" / "objects.count=4.json").write_bytes(orjson.dumps(preds))
-    from synthgen.score import score_sweep
+    from synthgen.evaluate import score_sweep
 
     fig = charts.sweep_figure(score_sweep(sweep, tmp_path / "pd"), title="pd on sw")
     assert fig.axes[0].get_title() == "pd on sw"
@@ -319,7 +320,7 @@ def test_page_shows_the_caution_the_facts_and_every_error_kind(probe_page):
 
 def test_report_cli_on_a_dataset_and_on_a_sweep(small_dataset, tmp_path):
     ds, _ = small_dataset
-    from synthgen.jitter_coco import jitter_files
+    from synthgen.jitter.coco import jitter_files
 
     jitter_files(ds, tmp_path / "p.json", seed=2)
     r = CliRunner().invoke(app, ["report", str(ds), str(tmp_path / "p.json"), "--out", str(tmp_path / "a.html")])

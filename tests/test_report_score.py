@@ -1,4 +1,4 @@
-"""Tests for synthgen.report_score: the slice figure and the tables."""
+"""Tests for synthgen.report.figures: the slice figure and the tables."""
 
 from __future__ import annotations
 
@@ -10,8 +10,8 @@ from PIL import Image
 from rich.console import Console
 
 from synthgen.errors import InputFileError, UserError
-from synthgen.report_score import figure_size_px, plot_slices, plot_sweep, print_report
-from synthgen.score import SweepPoint, evaluate
+from synthgen.evaluate import SweepPoint, evaluate
+from synthgen.report.figures import figure_size_px, plot_slices, plot_sweep, print_report
 
 
 def _case():
@@ -30,7 +30,7 @@ def _plot_area_is_drawn(png, n_panels):
     w = img.shape[1] // min(n_panels, 3)
     panel = img[40:-60, 60:w - 20]  # inside the first panel's axes, away from labels
     # the first two series' colours (AP50 and AP), as the figure module defines them
-    from synthgen.page.charts import SERIES
+    from synthgen.report.charts import SERIES
 
     rgb = [[int(c[1 + 2 * i : 3 + 2 * i], 16) for i in range(3)] for c in (SERIES[0][2], SERIES[1][2])]
     c0 = (np.abs(panel - rgb[0]).sum(axis=2) < 40).sum()

@@ -1,9 +1,9 @@
 """One self-contained HTML page per scored run: ``synthgen report``.
 
 :func:`write_report` reads a run (:mod:`synthgen.page.load`), scores it with
-:mod:`synthgen.score`, measures its errors (:mod:`synthgen.page.errors`), and
+:mod:`synthgen.evaluate`, measures its errors (:mod:`synthgen.page.errors`), and
 writes the page (:mod:`synthgen.page.build`) with its figures
-(:mod:`synthgen.page.charts`) and failure crops (:mod:`synthgen.page.crops`).
+(:mod:`synthgen.report.charts`) and failure crops (:mod:`synthgen.page.crops`).
 """
 
 from __future__ import annotations

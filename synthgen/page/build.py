@@ -19,11 +19,12 @@ import json
 from collections.abc import Mapping
 from pathlib import Path
 
-from synthgen.page import charts
+from synthgen._io import write_atomic
+from synthgen.evaluate import STAT_NAMES, SweepPoint
 from synthgen.page.crops import KIND_COLOURS, TRUTH_COLOUR, crop_svg, worst_failures
 from synthgen.page.errors import ERROR_KINDS
 from synthgen.page.load import Run, Subset
-from synthgen.score import STAT_NAMES
+from synthgen.report import charts
 
 __all__ = ["CAUTION", "STAT_TEXT", "KIND_TEXT", "render_page", "PALETTE"]
 
@@ -300,8 +301,6 @@ def _tables(sub: Subset) -> str:
 
 
 def _sweep(run: Run) -> str:
-    from synthgen.score import SweepPoint
-
     points = [SweepPoint(s.name, s.varied, s.evaluation, s.slices) for s in run.subsets]
     title = f"{run.detector.get('name') or 'predictions'} on {run.source.get('path') or 'the sweep'}"
     fig = charts.sweep_figure(points, title=title, width_px=560, height_px=340)
@@ -365,8 +364,6 @@ def render_page(run: Run, *, crops: int = 10) -> str:
 
 def write_page(run: Run, out, *, crops: int = 10) -> int:
     """Write the page to ``out`` atomically; returns its size in bytes."""
-    from synthgen.formats.coco import write_bytes_atomic
-
     data = render_page(run, crops=crops).encode("utf-8")
-    write_bytes_atomic(Path(out), data)
+    write_atomic(Path(out), data)
     return len(data)

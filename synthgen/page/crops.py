@@ -30,7 +30,7 @@ import numpy as np
 
 from synthgen.formats.coco import xyxy_from_bbox
 from synthgen.geometry import pairwise_iou
-from synthgen.report import _load_image  # the one reader of a dataset's image, with its error messages
+from synthgen.report.dataset import load_image  # the one reader of a dataset's image, with its error messages
 
 __all__ = ["KIND_COLOURS", "TRUTH_COLOUR", "MIN_WINDOW", "Crop", "worst_failures", "crop_svg"]
 
@@ -145,7 +145,7 @@ def worst_failures(subset, count: int = 6) -> tuple[list[Crop], list[Crop]]:
             else:
                 image_id, focus = preds[idx]["image_id"], p_xyxy[idx]
             if image_id not in cache:
-                cache[image_id] = _load_image(subset.dataset, images[image_id])
+                cache[image_id] = load_image(subset.dataset, images[image_id])
             img = cache[image_id]
             win = _window(focus, img.shape[1], img.shape[0])
             g_sel = [g for g, a in enumerate(anns) if a["image_id"] == image_id]

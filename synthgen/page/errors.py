@@ -1,8 +1,8 @@
 """What went wrong, by kind, and how much AP each kind costs.
 
 Every prediction is given one kind (:func:`classify`), by the rules of
-:func:`synthgen.report.classify_predictions` (greedy by score per image at IoU
-0.5; a localization error is a box of the right class with IoU in [0.1, 0.5)
+:func:`synthgen.evaluate.classify.classify_predictions` (COCO's greedy match by
+score per image at IoU 0.5, :mod:`synthgen.evaluate.match`; a localization error is a box of the right class with IoU in [0.1, 0.5)
 with an object of its class):
 
 * ``true_positive``, ``duplicate``, ``localization``, ``wrong_class``,
@@ -12,7 +12,7 @@ with an object of its class):
   to) or ``missed``: nothing came near it.
 
 How much AP a kind costs is measured by mending only the errors of that kind
-and scoring again with :func:`synthgen.score.evaluate` (:func:`breakdown`):
+and scoring again with :func:`synthgen.evaluate.evaluate` (:func:`breakdown`):
 
 * ``duplicate`` and ``background``: the faulty predictions are removed;
 * ``localization``: each faulty box is replaced by its target's box, in
@@ -36,10 +36,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from synthgen.formats.coco import xyxy_from_bbox
+from synthgen.evaluate import STAT_NAMES, evaluate
+from synthgen.evaluate.classify import Predictions, classify_matches, truth_arrays
 from synthgen.geometry import pairwise_iou
-from synthgen.report import Predictions, classify_predictions
-from synthgen.score import STAT_NAMES, evaluate
 
 __all__ = ["ERROR_KINDS", "Classified", "Breakdown", "classify", "mend", "breakdown"]
 
@@ -83,26 +82,6 @@ class Classified:
         return out
 
 
-def _truth(coco: Mapping):
-    anns = list(coco.get("annotations", []))
-    boxes = xyxy_from_bbox([a["bbox"] for a in anns]) if anns else np.zeros((0, 4))
-    img = np.array([a["image_id"] for a in anns], dtype=np.int64)
-    cat = np.array([a["category_id"] for a in anns], dtype=np.int64)
-    crowd = np.array([bool(a.get("iscrowd", 0)) for a in anns], dtype=bool)
-    return anns, boxes.reshape(-1, 4), img, cat, crowd
-
-
-def _as_predictions(predictions: Sequence[Mapping]) -> Predictions:
-    boxes = xyxy_from_bbox([p["bbox"] for p in predictions]) if predictions else np.zeros((0, 4))
-    return Predictions(
-        boxes.reshape(-1, 4),
-        np.array([p["image_id"] for p in predictions], dtype=np.int64),
-        np.array([p["category_id"] for p in predictions], dtype=np.int64),
-        np.array([float(p.get("score", 1.0)) for p in predictions], dtype=np.float64),
-        ("",) * len(predictions),
-    )
-
-
 def classify(coco: Mapping, predictions: Sequence[Mapping]) -> Classified:
     """Kind of every prediction and the target of every localization and wrong-class error.
 
@@ -122,9 +101,10 @@ def classify(coco: Mapping, predictions: Sequence[Mapping]) -> Classified:
     >>> c.kinds, c.missed
     (('true_positive', 'duplicate'), (1,))
     """
-    preds = _as_predictions(predictions)
-    kinds = classify_predictions(coco, preds, iou=_IOU, near=_NEAR)[0].kind
-    anns, boxes, img, cat, crowd = _truth(coco)
+    preds = Predictions.from_records(predictions)
+    classified, took = classify_matches(coco, preds, iou=_IOU, near=_NEAR)
+    kinds = np.array(classified.kind, dtype=str)
+    boxes, img, cat, crowd, _ = truth_arrays(coco)
     target = np.full(len(preds), -1, dtype=np.int64)
     for p in np.flatnonzero(np.isin(kinds, ("localization", "wrong_class"))):
         cand = np.flatnonzero((img == preds.image_id[p]) & ~crowd)
@@ -132,27 +112,10 @@ def classify(coco: Mapping, predictions: Sequence[Mapping]) -> Classified:
         cand = cand[same] if kinds[p] == "localization" else cand[~same]
         iou = pairwise_iou(preds.boxes[p : p + 1], boxes[cand])[0]  # (C,)
         target[p] = cand[len(iou) - 1 - int(np.argmax(iou[::-1]))]  # the later of equal IoUs
-    found = _found(anns, boxes, img, cat, crowd, preds, kinds)
+    found = set(took[kinds == "true_positive"].tolist())  # the objects COCO's matcher gave true positives
     near = set(target[target >= 0].tolist())
     missed = tuple(int(g) for g in np.flatnonzero(~crowd) if g not in found and g not in near)
-    return Classified(tuple(kinds), target, missed, frozenset(found))
-
-
-def _found(anns, boxes, img, cat, crowd, preds: Predictions, kinds) -> set[int]:
-    """Annotations taken by true positives, replaying the greedy match by score."""
-    found: set[int] = set()
-    order = np.argsort(-preds.score, kind="stable")
-    for p in order:
-        if kinds[p] != "true_positive":
-            continue
-        cand = np.flatnonzero((img == preds.image_id[p]) & (cat == preds.category_id[p]) & ~crowd)
-        cand = np.array([g for g in cand if g not in found], dtype=np.int64)
-        iou = pairwise_iou(preds.boxes[p : p + 1], boxes[cand])[0]
-        ok = iou >= _IOU
-        if ok.any():
-            score = np.where(ok, iou, -1.0)[::-1]
-            found.add(int(cand[len(score) - 1 - int(np.argmax(score))]))
-    return found
+    return Classified(classified.kind, target, missed, frozenset(found))
 
 
 def mend(coco: Mapping, predictions: Sequence[Mapping], classified: Classified, kind: str) -> list[dict]:

@@ -9,7 +9,7 @@ A run is one of:
 * a sweep directory plus a predictions directory laid out as ``synthgen score
   --pred-dir`` reads it.
 
-:func:`load_run` scores every subset with :mod:`synthgen.score` and measures
+:func:`load_run` scores every subset with :mod:`synthgen.evaluate` and measures
 its errors (:mod:`synthgen.page.errors`); the page is built from the
 :class:`Run` alone.
 """
@@ -17,16 +17,24 @@ its errors (:mod:`synthgen.page.errors`); the page is built from the
 from __future__ import annotations
 
 import datetime as _dt
-import hashlib
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 
+from synthgen._io import read_json, sha256_file
 from synthgen.errors import InputFileError, UserError
+from synthgen.evaluate import (
+    Evaluation,
+    evaluate,
+    parse_slice_spec,
+    read_ground_truth,
+    read_predictions,
+    score_sweep,
+)
+from synthgen.formats.dataset_dir import manifest_path
 from synthgen.page.errors import Breakdown, breakdown
 from synthgen.report import Dataset, open_dataset
-from synthgen.score import Evaluation, evaluate, parse_slice_spec, read_ground_truth, read_predictions, score_sweep
 
 __all__ = ["DEFAULT_FACTS", "Subset", "Run", "load_run"]
 
@@ -98,14 +106,7 @@ class Run:
 
 
 def _read_json_object(path: Path) -> dict:
-    import orjson
-
-    try:
-        data = orjson.loads(path.read_bytes())
-    except FileNotFoundError:
-        raise InputFileError(path, "is missing") from None
-    except orjson.JSONDecodeError as exc:
-        raise InputFileError(path, f"is not valid JSON ({exc})") from None
+    data = read_json(path)
     if not isinstance(data, dict):
         raise InputFileError(path, f"must be a JSON object (got {type(data).__name__})")
     return data
@@ -134,8 +135,7 @@ def _subset(name: str, ds: Dataset, preds: list, pred_name: str, varied: dict, b
 
 def _manifest_summary(ds: Dataset) -> dict:
     """Name, kind, config and the SHA-256 of ``manifest.json`` (which lists the SHA-256 of every file)."""
-    manifest = ds.source.parent / "manifest.json"
-    digest = hashlib.sha256(manifest.read_bytes()).hexdigest() if manifest.is_file() else None
+    digest = sha256_file(manifest_path(ds.source.parent))
     return {"path": ds.name, "kind": "dataset", "manifest_digest": digest, "config": (ds.manifest or {}).get("config")}
 
 
@@ -199,8 +199,7 @@ def _load_sweep(sweep: Path, pred_dir: Path, by, explicit: bool) -> Run:
         pred_path = pred_dir / (point.subset + ".json")
         preds = read_predictions(pred_path)
         subsets.append(_subset(point.subset, ds, preds, point.subset + ".json", point.values, facts, explicit))
-    listing = sweep / "sweep.json"
-    digest = hashlib.sha256(listing.read_bytes()).hexdigest() if listing.is_file() else None
+    digest = sha256_file(sweep / "sweep.json")  # the sweep's listing of its subsets
     source = {"path": sweep.name, "kind": "sweep", "manifest_digest": digest,
               "config": (subsets[0].dataset.manifest or {}).get("config") if subsets else None}
     return Run("sweep", f"{pred_dir.name} on the sweep {sweep.name}", {"name": pred_dir.name}, source,
