@@ -140,6 +140,10 @@ def test_breakdown_on_simulated_detections_matches_the_reference_and_the_sidecar
     matched = sum(int((img["dtMatches"][0] > 0).sum() - img["dtIgnore"][0].sum())
                   for img in e.evalImgs if img is not None and img["aRng"] == [0, 1e10])
     assert b.counts["true_positive"] == matched
+    # the objects found are the ones pycocotools' matcher gave a detection (gtMatches[t=0], crowd left out)
+    ref_found = {int(g) for img in e.evalImgs if img is not None and img["aRng"] == [0, 1e10]
+                 for g, m, ign in zip(img["gtIds"], img["gtMatches"][0], img["gtIgnore"]) if m > 0 and not ign}
+    assert {gt["annotations"][g]["id"] for g in b.classified.found} == ref_found
     clear = [r for r in side["predictions"] if (r["other_iou"] or 0) < 0.5 and (r["crowd_overlap"] or 0) < 0.5]
     agree = [b.classified.kinds[r["index"]] == r["kind"] for r in clear]
     assert len(clear) > 20 and all(agree)
