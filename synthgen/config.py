@@ -196,146 +196,59 @@ class BackgroundSpec:
 
 # --------------------------------------------------------------------------- degrade
 
-
-def _check_p(key: str, p) -> None:
-    check_number(key, p, lo=0, hi=1)
-
-
-@dataclass(frozen=True, slots=True)
-class NoiseSpec:
-    """Gaussian sensor noise (TOML table ``[degrade.noise]``).
-
-    Parameters
-    ----------
-    p : float
-        Probability of applying it to an image, in [0, 1].
-    sigma : (float, float)
-        Range of the noise standard deviation, 0..255 units, in [0, 128].
-    """
-
-    p: float = 0.0
-    sigma: tuple[float, float] = (2.0, 8.0)
-
-    def __post_init__(self):
-        as_tuples(self)
-        _check_p("degrade.noise.p", self.p)
-        check_range("degrade.noise.sigma", self.sigma, lo=0, hi=128)
+#: One row per degradation, in ``[degrade]`` table order: TOML sub-table, spec class
+#: name, what it does, its range field, that field's type, default, limits and doc.
+_DEGRADATIONS = (
+    ("noise", "NoiseSpec", "Gaussian sensor noise", "sigma", float, (2.0, 8.0), 0, 128,
+     "Range of the noise standard deviation, 0..255 units, in [0, 128]."),
+    ("blur", "BlurSpec", "Gaussian blur", "sigma", float, (0.5, 1.5), 0, 32,
+     "Range of the blur standard deviation, px, in [0, 32]."),
+    ("jpeg", "JpegSpec", "JPEG round trip", "quality", int, (30, 90), 1, 100,
+     "Range of the JPEG quality, whole numbers in [1, 100] (both ends drawn)."),
+    ("brightness", "BrightnessSpec", "Brightness change", "offset", float, (-40.0, 40.0), -255, 255,
+     "Range of the offset added to every channel, 0..255 units, in [-255, 255]."),
+    ("contrast", "ContrastSpec", "Contrast change", "gain", float, (0.6, 1.4), 0, 8,
+     "Range of the factor applied to each value's distance from the image's\n"
+     "    mean grey level, in [0, 8] (1 leaves the image unchanged)."),
+    ("vignette", "VignetteSpec", "Illumination falling off towards the corners", "strength", float,
+     (0.1, 0.5), 0, 1, "Range of the fraction of brightness lost at the corners, in [0, 1]."),
+)
 
 
-@dataclass(frozen=True, slots=True)
-class BlurSpec:
-    """Gaussian blur (TOML table ``[degrade.blur]``).
-
-    Parameters
-    ----------
-    p : float
-        Probability of applying it to an image, in [0, 1].
-    sigma : (float, float)
-        Range of the blur standard deviation, px, in [0, 32].
-    """
-
-    p: float = 0.0
-    sigma: tuple[float, float] = (0.5, 1.5)
+def _degrade_spec(table, name, title, key, tp, default, lo, hi, doc) -> type:
+    """One degradation's frozen spec: ``p`` (probability per image, in [0, 1]) and a range."""
 
     def __post_init__(self):
         as_tuples(self)
-        _check_p("degrade.blur.p", self.p)
-        check_range("degrade.blur.sigma", self.sigma, lo=0, hi=32)
+        check_number(f"degrade.{table}.p", self.p, lo=0, hi=1)
+        check_range(f"degrade.{table}.{key}", getattr(self, key), lo=lo, hi=hi, integer=tp is int)
+
+    kind = tp.__name__
+    cls = dataclasses.make_dataclass(
+        name,
+        [("p", float, 0.0), (key, tuple[tp, tp], default)],
+        namespace={
+            "__post_init__": __post_init__,
+            "__doc__": f"{title} (TOML table ``[degrade.{table}]``).\n\n"
+            "Parameters\n----------\np : float\n    Probability of applying it to an image, in [0, 1].\n"
+            f"{key} : ({kind}, {kind})\n    {doc}\n",
+        },
+        frozen=True,
+        slots=True,
+    )
+    cls.__module__ = __name__
+    return cls
 
 
-@dataclass(frozen=True, slots=True)
-class JpegSpec:
-    """JPEG round trip (TOML table ``[degrade.jpeg]``).
-
-    Parameters
-    ----------
-    p : float
-        Probability of applying it to an image, in [0, 1].
-    quality : (int, int)
-        Range of the JPEG quality, whole numbers in [1, 100] (both ends drawn).
-    """
-
-    p: float = 0.0
-    quality: tuple[int, int] = (30, 90)
-
-    def __post_init__(self):
-        as_tuples(self)
-        _check_p("degrade.jpeg.p", self.p)
-        check_range("degrade.jpeg.quality", self.quality, lo=1, hi=100, integer=True)
-
-
-@dataclass(frozen=True, slots=True)
-class BrightnessSpec:
-    """Brightness change (TOML table ``[degrade.brightness]``).
-
-    Parameters
-    ----------
-    p : float
-        Probability of applying it to an image, in [0, 1].
-    offset : (float, float)
-        Range of the offset added to every channel, 0..255 units, in [-255, 255].
-    """
-
-    p: float = 0.0
-    offset: tuple[float, float] = (-40.0, 40.0)
-
-    def __post_init__(self):
-        as_tuples(self)
-        _check_p("degrade.brightness.p", self.p)
-        check_range("degrade.brightness.offset", self.offset, lo=-255, hi=255)
-
-
-@dataclass(frozen=True, slots=True)
-class ContrastSpec:
-    """Contrast change (TOML table ``[degrade.contrast]``).
-
-    Parameters
-    ----------
-    p : float
-        Probability of applying it to an image, in [0, 1].
-    gain : (float, float)
-        Range of the factor applied to each value's distance from the image's
-        mean grey level, in [0, 8] (1 leaves the image unchanged).
-    """
-
-    p: float = 0.0
-    gain: tuple[float, float] = (0.6, 1.4)
-
-    def __post_init__(self):
-        as_tuples(self)
-        _check_p("degrade.contrast.p", self.p)
-        check_range("degrade.contrast.gain", self.gain, lo=0, hi=8)
-
-
-@dataclass(frozen=True, slots=True)
-class VignetteSpec:
-    """Illumination falling off towards the corners (TOML table ``[degrade.vignette]``).
-
-    Parameters
-    ----------
-    p : float
-        Probability of applying it to an image, in [0, 1].
-    strength : (float, float)
-        Range of the fraction of brightness lost at the corners, in [0, 1].
-    """
-
-    p: float = 0.0
-    strength: tuple[float, float] = (0.1, 0.5)
-
-    def __post_init__(self):
-        as_tuples(self)
-        _check_p("degrade.vignette.p", self.p)
-        check_range("degrade.vignette.strength", self.strength, lo=0, hi=1)
-
-
-_SUBSPECS = {
-    "brightness": BrightnessSpec,
-    "contrast": ContrastSpec,
-    "vignette": VignetteSpec,
-    "blur": BlurSpec,
-    "noise": NoiseSpec,
-    "jpeg": JpegSpec,
-}
+_SPECS = {row[0]: _degrade_spec(*row) for row in _DEGRADATIONS}
+#: Checked in this order by :class:`DegradeSpec`.
+_SUBSPECS = {name: _SPECS[name] for name in ("brightness", "contrast", "vignette", "blur", "noise", "jpeg")}
+NoiseSpec = _SPECS["noise"]
+BlurSpec = _SPECS["blur"]
+JpegSpec = _SPECS["jpeg"]
+BrightnessSpec = _SPECS["brightness"]
+ContrastSpec = _SPECS["contrast"]
+VignetteSpec = _SPECS["vignette"]
 
 
 @dataclass(frozen=True, slots=True)

@@ -533,6 +533,42 @@ def _paste_tiles(sheet, draw, tiles: list, cols: int, layout: tuple, fonts: _Fon
     return placed_tiles
 
 
+def _legends(ds: Dataset, overlay, predictions, auto, fonts, pad: int, sheet_w: int):
+    """The header's legend rows, ``(truth_label, rows1, pred_label, rows2, h1)``, and ``h2``, px.
+
+    The categories present in the shown images, then the prediction kinds present.
+    """
+    from PIL import Image, ImageDraw
+
+    probe = ImageDraw.Draw(Image.new("RGB", (8, 8)))
+    truth_label, cat_items, pred_label, pred_items = _legend_items(ds, overlay, predictions, auto)
+    legend1, h1 = _legend_rows(probe, truth_label, cat_items, fonts, pad, sheet_w - pad)
+    legend2, h2 = _legend_rows(probe, pred_label, pred_items, fonts, pad, sheet_w - pad)
+    h1 = h1 or fonts.px + 8  # room for "no annotated objects"
+    return (truth_label, legend1, pred_label, legend2, h1), h2
+
+
+def _zoom_strip(ds: Dataset, chosen, overlay, tiles, zoom_count, layout, fonts, pick: str = "smallest"):
+    """The zoom strip's crops, crops per row, caption height and total height, px."""
+    pad, gap, title_h, sheet_w = layout
+    zoom_cols = max(1, (sheet_w - 2 * pad + gap) // (_ZOOM_SIDE + gap))
+    scales = {t.image_id: t.sx for t in tiles}
+    crops = _zoom_crops(ds, chosen, overlay, scales, zoom_count if zoom_count is not None else 2 * zoom_cols,
+                        pick=pick)
+    zoom_cap = 2 * fonts.px + 6
+    return crops, zoom_cols, zoom_cap, title_h + math.ceil(len(crops) / zoom_cols) * (_ZOOM_SIDE + zoom_cap + gap)
+
+
+def _check_zoom_pick(zoom: bool, pick: str, missed) -> None:
+    """Refuse a zoom pick before any image is drawn."""
+    if not zoom:
+        return
+    if pick not in ZOOM_PICKS:
+        raise UserError(f"zoom pick must be one of {', '.join(ZOOM_PICKS)} (got {pick!r})")
+    if pick == "missed" and missed is None:
+        raise UserError("zoom pick 'missed' needs predictions (--pred) to know which objects were missed")
+
+
 def contact_sheet(
     ds: Dataset,
     *,
@@ -552,42 +588,23 @@ def contact_sheet(
     Parameters
     ----------
     ds : Dataset
-    n : int
-        Number of images, the first ``n`` by image id (ignored with ``ids``).
-    ids : sequence of int, optional
-        COCO image ids to show, in this order.
+    n, ids : int, sequence of int (optional)
+        The first ``n`` images by image id, or these COCO image ids in this order.
     cols : int, optional
         Tiles per row (default: about the square root of the number of images).
     scale : float, optional
-        Tile pixels per image pixel, the same for every image (default:
-        :func:`auto_scale` of each image, so images of mixed sizes each get
-        their own, and the captions give the factor; shrunk further when the
-        grid would be wider than 4096 px).  Whole factors repeat
-        pixels; boxes are drawn on the scaled grid as :func:`outline_pixels`
-        says.
+        Tile pixels per image pixel (default: each image's :func:`auto_scale`, in the captions, shrunk
+        when the grid would be wider than 4096 px); boxes drawn as :func:`outline_pixels` says.
     predictions : Predictions, optional
-        Drawn dashed over the truth, coloured by ``kind``
-        (:data:`PREDICTION_COLOURS`).
+        Drawn dashed over the truth, coloured by ``kind`` (:data:`PREDICTION_COLOURS`).
     missed : collection of int, optional
-        Annotation ids no prediction found (from :func:`classify_predictions`
-        or a truth sidecar); each caption then counts its image's.
-    zoom : bool
-        Add a strip of the smallest objects among the shown images (longer
-        side up to 21 px, and only where the crop enlarges more than the tile
-        does), enlarged with nearest neighbour by a whole factor (2 to 32) so
-        each spans about a third of its 128-pixel crop, boxes drawn on the
-        enlarged grid.
-    zoom_count : int, optional
-        Number of crops (default: two rows' worth).
-    zoom_pick : str
-        Which objects the strip shows, one of :data:`ZOOM_PICKS`: the
-        ``smallest``, a ``spread`` of sizes from the smallest up, or the
-        smallest of those no prediction found (``missed``, needs ``missed``).
+        Annotation ids no prediction found; each caption then counts its image's.
+    zoom, zoom_count, zoom_pick : bool, int (default two rows), str
+        Add a strip of ``zoom_count`` small objects (longer side up to 21 px), each enlarged by a
+        whole factor (2 to 32) to about a third of its 128-pixel crop; :data:`ZOOM_PICKS` says which.
     small_outline : float
-        Boxes narrower or shorter than this many tile pixels are outlined on
-        the ring just outside them (:func:`synthgen.report.draw.outline_outside_small`),
-        so that a tiny object is not hidden under its own outline; 0 keeps
-        every outline just inside its box.
+        Boxes under this many tile pixels are outlined just outside (:func:`outline_outside_small`),
+        so a tiny object is not hidden under its own outline; 0 keeps every outline inside.
 
     Returns
     -------
@@ -597,24 +614,19 @@ def contact_sheet(
     Raises
     ------
     synthgen.errors.UserError
-        When an id is not in the dataset, there are no images, or an image
-        file is missing or unreadable.
+        An id not in the dataset, no images, or an image file missing or unreadable.
     """
     from PIL import Image, ImageDraw
 
     chosen = _select_images(ds.coco, n, ids)
     if not chosen:
         raise InputFileError(ds.source, "has no images to show")
-    if zoom and zoom_pick not in ZOOM_PICKS:
-        raise UserError(f"zoom pick must be one of {', '.join(ZOOM_PICKS)} (got {zoom_pick!r})")
-    if zoom and zoom_pick == "missed" and missed is None:
-        raise UserError("zoom pick 'missed' needs predictions (--pred) to know which objects were missed")
+    _check_zoom_pick(zoom, zoom_pick, missed)
     overlay = _Overlay.build(ds.coco, predictions, missed)
     cols = min(cols or max(1, math.ceil(math.sqrt(len(chosen)))), len(chosen))
     auto, mixed = _tile_scales(chosen, scale, cols)
     tiles = [_render_tile(ds, im, overlay, auto[int(im["id"])] if scale is None else scale, mixed, small_outline)
              for im in chosen]
-
     rows = math.ceil(len(tiles) / cols)
     tile_w = max(t.pixels.shape[1] for t in tiles)
     tile_h = max(t.pixels.shape[0] for t in tiles)
@@ -622,35 +634,20 @@ def contact_sheet(
     pad, gap, cap_h, title_h = 12, 10, fonts.px + 8, fonts.px + 13
     sheet_w = max(pad * 2 + cols * tile_w + (cols - 1) * gap, 520)
 
-    # Legend: the categories present in these images, then the prediction kinds present
-    probe = ImageDraw.Draw(Image.new("RGB", (8, 8)))
-    truth_label, cat_items, pred_label, pred_items = _legend_items(ds, overlay, predictions, auto)
-    legend1, h1 = _legend_rows(probe, truth_label, cat_items, fonts, pad, sheet_w - pad)
-    legend2, h2 = _legend_rows(probe, pred_label, pred_items, fonts, pad, sheet_w - pad)
-    h1 = h1 or fonts.px + 8  # room for "no annotated objects"
-    header_h = pad + title_h + h1 + h2 + 6
-
-    crops = []
-    zoom_cols = max(1, (sheet_w - 2 * pad + gap) // (_ZOOM_SIDE + gap))
+    legends, h2 = _legends(ds, overlay, predictions, auto, fonts, pad, sheet_w)
+    header_h = pad + title_h + legends[4] + h2 + 6
+    crops, zoom_cols, zoom_cap, zoom_h = [], 1, 0, 0
     if zoom:
-        scales = {t.image_id: t.sx for t in tiles}
-        crops = _zoom_crops(ds, chosen, overlay, scales, zoom_count if zoom_count is not None else 2 * zoom_cols,
-                            pick=zoom_pick)
-    zoom_cap = 2 * fonts.px + 6
-    zoom_h = title_h + math.ceil(len(crops) / zoom_cols) * (_ZOOM_SIDE + zoom_cap + gap) if zoom else 0
+        crops, zoom_cols, zoom_cap, zoom_h = _zoom_strip(ds, chosen, overlay, tiles, zoom_count,
+                                                         (pad, gap, title_h, sheet_w), fonts, zoom_pick)
 
     grid_h = rows * (tile_h + cap_h) + (rows - 1) * gap
     sheet = Image.new("RGB", (sheet_w, header_h + grid_h + (gap + zoom_h if zoom else 0) + pad), _SHEET_BG)
     draw = ImageDraw.Draw(sheet)
-
-    _draw_header(draw, ds, tiles, mixed, (truth_label, legend1, pred_label, legend2, h1), (pad, title_h, sheet_w), fonts)
+    _draw_header(draw, ds, tiles, mixed, legends, (pad, title_h, sheet_w), fonts)
     placed_tiles = _paste_tiles(sheet, draw, tiles, cols, (pad, gap, header_h, tile_w, tile_h, cap_h), fonts)
-
-    placed_crops = []
-    if zoom:
-        y0 = header_h + grid_h + gap
-        placed_crops = _draw_crops(sheet, draw, crops, len(tiles) == 1, (pad, y0, gap, title_h, zoom_cap, zoom_cols),
-                                   sheet_w, fonts, zoom_pick)
+    crop_layout = (pad, header_h + grid_h + gap, gap, title_h, zoom_cap, zoom_cols)
+    placed_crops = _draw_crops(sheet, draw, crops, len(tiles) == 1, crop_layout, sheet_w, fonts, zoom_pick) if zoom else []
     return Sheet(np.asarray(sheet), tuple(placed_tiles), tuple(placed_crops))
 
 

@@ -133,17 +133,15 @@ def make_dataset(
         digests match the journal, render the rest.  On a finished dataset,
         check every file against the manifest and repair what differs.
     workers : int or None
-        Most processes to render with (None: every usable core); small runs render in this
-        process (:class:`synthgen.run.backends.LocalBackend`).  Workers are fresh interpreters
-        that import synthgen only (:mod:`synthgen.run.pool`), so a plain script needs no
-        ``if __name__ == "__main__":`` guard.  The output does not depend on it.
+        Most processes to render with (None: every usable core; small runs use this one).
+        Workers are fresh interpreters (:mod:`synthgen.run.pool`), so a plain script needs
+        no ``if __name__ == "__main__":`` guard.  The output does not depend on it.
     shard : Shard or None
         Render only this shard's images and write its shard manifest
         (``DIR/shard-K-of-N.json``); :func:`synthgen.run.merge.merge_shards` assembles them.
     cluster : str or None
-        Address of a Dask scheduler, or ``"local"`` for a local cluster; the
-        cluster's workers render blocks into ``out`` (which they must see at
-        the same path), this process writes the annotations and manifest.
+        Address of a Dask scheduler, or ``"local"``; its workers render blocks into
+        ``out`` (seen at the same path), this process writes annotations and manifest.
     progress : callable or None
         Called as ``progress(done, total)`` after each block of images.
     formats : sequence of str

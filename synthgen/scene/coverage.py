@@ -201,11 +201,10 @@ def coverage_many(
         col0 + w)`` returns, read-only) for the shapes whose every sample was
         tested, else None.
     edges : list or None
-        When a list, it is filled with one entry per shape: for the shapes
-        whose pixels were settled by class (big patches), ``(interior, rr, cc,
-        inside)``: bool (h, w) marking the pixels whose samples all lie inside,
-        the patch rows and columns (K,) of the pixels that were sub-sampled,
-        and their samples, bool (s, s, K) [sub-row, sub-column, pixel]; else None.
+        When a list, filled with one entry per shape: for the shapes whose
+        pixels were settled by class (big patches), ``(interior, rr, cc, inside)``:
+        bool (h, w), pixels whose samples all lie inside; patch rows and columns
+        (K,) of the sub-sampled pixels; their samples, bool (s, s, K); else None.
 
     Returns
     -------
@@ -250,28 +249,37 @@ def coverage_many(
         # grouped by patch height too, so that padding to the group's patch stays small
         groups.setdefault((sig, h), []).append((i, row0, col0, h, w, region))
     offs = _offsets(s)
-    for (sig, _h), items in groups.items():
-        # chunks of about _MANY_SAMPLES samples keep the temporaries in cache
-        per = max(1, _MANY_SAMPLES // (s * s * _h * max(it[4] for it in items)))
-        for start in range(0, len(items), per):
-            chunk = items[start : start + per]
-            hm = max(it[3] for it in chunk)
-            wm = max(it[4] for it in chunk)
-            rows = np.array([it[1] for it in chunk])
-            cols = np.array([it[2] for it in chunk])
-            # the same values as _grid(col0, col0 + w, s) for each shape, padded to wm columns
-            xs = ((cols[:, None] + np.arange(wm)).astype(np.float64)[:, :, None] + offs).reshape(len(chunk), 1, wm * s)
-            ys = ((rows[:, None] + np.arange(hm)).astype(np.float64)[:, :, None] + offs).reshape(len(chunk), hm * s, 1)
-            inside = _contains_many(sig, [it[5] for it in chunk], xs, ys)
-            counts = _block_counts(inside, len(chunk), hm, wm, s)
-            values = (counts / (s * s)).astype(np.float32)
-            for k, (i, row0, col0, h, w, _) in enumerate(chunk):
-                out[i] = Coverage(row0, col0, values[k, :h, :w].copy(), s, shapes[i], strokes[i])
-            if insides is not None:
-                inside.flags.writeable = False
-                for k, (i, _r, _c, h, w, _) in enumerate(chunk):
-                    insides[i] = inside[k, : h * s, : w * s]
+    for (sig, h), items in groups.items():
+        _cover_group(sig, h, items, shapes, strokes, s, offs, out, insides)
     return out
+
+
+def _cover_group(sig, group_h: int, items, shapes, strokes, s: int, offs, out: list, insides) -> None:
+    """:func:`coverage_many` for one group of patches sharing a region signature and height.
+
+    ``items`` are ``(i, row0, col0, h, w, region)``; each shape's :class:`Coverage`
+    goes to ``out[i]`` (and its sample mask to ``insides[i]`` when given).
+    """
+    # chunks of about _MANY_SAMPLES samples keep the temporaries in cache
+    per = max(1, _MANY_SAMPLES // (s * s * group_h * max(it[4] for it in items)))
+    for start in range(0, len(items), per):
+        chunk = items[start : start + per]
+        hm = max(it[3] for it in chunk)
+        wm = max(it[4] for it in chunk)
+        rows = np.array([it[1] for it in chunk])
+        cols = np.array([it[2] for it in chunk])
+        # the same values as _grid(col0, col0 + w, s) for each shape, padded to wm columns
+        xs = ((cols[:, None] + np.arange(wm)).astype(np.float64)[:, :, None] + offs).reshape(len(chunk), 1, wm * s)
+        ys = ((rows[:, None] + np.arange(hm)).astype(np.float64)[:, :, None] + offs).reshape(len(chunk), hm * s, 1)
+        inside = _contains_many(sig, [it[5] for it in chunk], xs, ys)
+        counts = _block_counts(inside, len(chunk), hm, wm, s)
+        values = (counts / (s * s)).astype(np.float32)
+        for k, (i, row0, col0, h, w, _) in enumerate(chunk):
+            out[i] = Coverage(row0, col0, values[k, :h, :w].copy(), s, shapes[i], strokes[i])
+        if insides is not None:
+            inside.flags.writeable = False
+            for k, (i, _r, _c, h, w, _) in enumerate(chunk):
+                insides[i] = inside[k, : h * s, : w * s]
 
 
 def _block_counts(inside: np.ndarray, k: int, h: int, w: int, s: int) -> np.ndarray:

@@ -51,33 +51,26 @@ def place_occluder(
 ) -> tuple[Shape, float] | None:
     """Move (and if needed enlarge) ``occluder`` so that it covers a share of ``target`` in ``hidden``.
 
-    The share is counted on the target's sub-pixel samples on the canvas (the
-    samples behind its coverage, :class:`synthgen.scene.shapes.Coverage`), exactly as
-    the composer measures occlusion.  The occluder's centre moves along
-    ``direction`` (radians, clockwise on screen from +x) from the target's
-    centre; the distance is found by bisection, aiming at ``goal``.  When even
-    a centred occluder covers less than ``goal``, it is enlarged by 1.5x up to
-    six times, never beyond ``max_size``.
+    The share is counted on the target's sub-pixel coverage samples on the
+    canvas, as the composer measures occlusion.  The occluder's centre moves
+    along ``direction`` from the target's centre, by a distance bisected towards
+    ``goal``; a centred occluder covering less than ``goal`` is first enlarged
+    by 1.5x, up to six times and never beyond ``max_size``.
 
     Parameters
     ----------
     target, occluder : Shape
         ``target`` in place; ``occluder``'s position is ignored.
-    hidden : (float, float)
-        Accepted range of the covered share, in [0, 1].
-    goal : float
-        Share aimed at, inside ``hidden``.
+    hidden, goal : (float, float), float
+        Accepted range of the covered share, in [0, 1]; the share aimed at, inside it.
     direction : float
-        Radians.
+        Radians, clockwise on screen from +x.
     height, width : int
         Canvas size, px.
-    samples : int
-        Supersampling factor (``render.samples``).
-    stroke : float
-        The target's outline band, px (0 for filled).
+    samples, stroke : int, float
+        Supersampling factor (``render.samples``); the target's outline band, px (0 filled).
     max_size : float
-        Largest size (longer side of the exact box, px) the occluder may be
-        enlarged to; one given larger keeps its size.
+        Largest size (exact box's longer side, px) to enlarge to; a larger occluder keeps its size.
 
     Returns
     -------
@@ -111,8 +104,7 @@ def place_occluder(
         moved = replace(shape, cx=target.cx + r * ux, cy=target.cy + r * uy)
         return moved, float(np.count_nonzero(sample_inside(moved, xs, ys))) / xs.size
 
-    occ = occluder
-    best = share(occ, 0.0)
+    occ, best = occluder, share(occluder, 0.0)
     for _ in range(6):
         if best[1] >= goal or occ.size >= max_size:
             break
@@ -122,6 +114,17 @@ def place_occluder(
         return _exact_share(best, xs_all, ys_all, stride)
     ob = exact_box(occ)
     far = 0.5 * (math.hypot(tb[2] - tb[0], tb[3] - tb[1]) + math.hypot(ob[2] - ob[0], ob[3] - ob[1]))
+    return _exact_share(_search(share, occ, best, goal, (lo, hi), far), xs_all, ys_all, stride)
+
+
+def _search(share, occ: Shape, best, goal: float, hidden: tuple[float, float], far: float):
+    """Bisect the occluder's distance ``r`` in ``[0, far]`` px for a share in ``hidden`` near ``goal``.
+
+    ``share(occ, r)`` gives ``(moved occluder, share)``; ``best`` is the result
+    at ``r = 0``, covering more than ``goal``.  Returns the closest result in
+    ``hidden``, else the last one covering at least ``goal``.
+    """
+    lo, hi = hidden
     r_lo, r_hi = 0.0, far
     tol = 0.1 * (hi - lo) + 1e-3
     found = None
@@ -142,7 +145,7 @@ def place_occluder(
             if lo <= cand[1] <= hi:
                 found = cand
                 break
-    return _exact_share(found if found is not None else best, xs_all, ys_all, stride)
+    return found if found is not None else best
 
 
 def _exact_share(result, xs: np.ndarray, ys: np.ndarray, stride: int):

@@ -337,6 +337,28 @@ def pair_offset(half_a, half_b, iou: float, axis: int) -> float:
     return (a + b) / 2.0 - along
 
 
+def _pair_unit(ha: np.ndarray, hb: np.ndarray, draw: np.ndarray, lo: float, hi: float):
+    """One pair of :func:`pairs` from half extents (2,) and its three uniform draws (IoU, axis, side).
+
+    Returns the members' centres relative to the centre of their union box
+    (2, 2), that box's half extents (2,) and the pair's IoU.
+    """
+    top = min(hi, pair_max_iou(ha, hb))
+    t = lo + draw[0] * (top - lo) if top >= lo else top
+    axis = int(draw[1] < 0.5)
+    d = pair_offset(ha, hb, t, axis)
+    if not math.isfinite(d):
+        axis = 1 - axis
+        d = pair_offset(ha, hb, t, axis)
+    sign = 1.0 if draw[2] < 0.5 else -1.0
+    cb = np.zeros(2)
+    cb[axis] = sign * d
+    lo_xy = np.minimum(-ha, cb - hb)
+    hi_xy = np.maximum(ha, cb + hb)
+    mid = (lo_xy + hi_xy) / 2.0
+    return np.stack([-mid, cb - mid]), (hi_xy - lo_xy) / 2.0, t
+
+
 def pairs(
     half_extents: np.ndarray,
     width: int,
@@ -380,23 +402,10 @@ def pairs(
     unit_half = []
     targets = []
     for k in range(n_pairs):
-        a, b = 2 * k, 2 * k + 1
-        top = min(hi, pair_max_iou(half[a], half[b]))
-        t = lo + draws[k, 0] * (top - lo) if top >= lo else top
-        axis = int(draws[k, 1] < 0.5)
-        d = pair_offset(half[a], half[b], t, axis)
-        if not math.isfinite(d):
-            axis = 1 - axis
-            d = pair_offset(half[a], half[b], t, axis)
-        sign = 1.0 if draws[k, 2] < 0.5 else -1.0
-        cb = np.zeros(2)
-        cb[axis] = sign * d
-        lo_xy = np.minimum(-half[a], cb - half[b])
-        hi_xy = np.maximum(half[a], cb + half[b])
-        mid = (lo_xy + hi_xy) / 2.0
-        members.append([a, b])
-        offsets.append(np.stack([-mid, cb - mid]))
-        unit_half.append((hi_xy - lo_xy) / 2.0)
+        off, uh, t = _pair_unit(half[2 * k], half[2 * k + 1], draws[k], lo, hi)
+        members.append([2 * k, 2 * k + 1])
+        offsets.append(off)
+        unit_half.append(uh)
         targets.append(t)
     if n % 2:
         members.append([n - 1])
@@ -435,15 +444,12 @@ def _auto_pitch(n: int, width: int, height: int) -> float:
 
 
 def grid(
-    half_extents: np.ndarray,
-    width: int,
-    height: int,
-    *,
-    pitch: float = 0.0,
-    jitter: float = 0.0,
+    half_extents: np.ndarray, width: int, height: int, *, pitch: float = 0.0, jitter: float = 0.0,
     rng: np.random.Generator,
 ) -> Placement:
     """Centres on a square lattice, for dense counting-style scenes.
+
+    The lattice is centred on the canvas; its cells are ``pitch`` px squares.
 
     Parameters
     ----------

@@ -6,22 +6,8 @@ covers ``[c, c + 1) x [r, r + 1)``).
 How a shape is placed
 ---------------------
 Every kind is first drawn in its own frame, centred on its own tight box, with
-width ``aspect`` and height 1 (x right, y down):
-
-* ``rectangle``: ``[-aspect/2, aspect/2] x [-1/2, 1/2]``.
-* ``ellipse``: semi-axes ``aspect/2`` (x) and ``1/2`` (y).
-* ``triangle``: isosceles, apex up: ``(0, -1/2)``, ``(aspect/2, 1/2)``,
-  ``(-aspect/2, 1/2)``.
-* ``polygon``: the regular ``sides``-gon with one vertex straight up, stretched
-  to width ``aspect`` and height 1 (so it is regular only when ``aspect``
-  equals :func:`natural_aspect`).
-* ``star``: ``sides`` points, outer radius 1 and inner radius ``inner``, one
-  point straight up, stretched to ``aspect`` x 1 like the polygon.
-* ``ring``: the ellipse with a concentric elliptical hole whose semi-axes are
-  ``inner`` times the outer ones.
-* ``cross``: the union of the bars ``[-aspect/2, aspect/2] x [-inner/2,
-  inner/2]`` and ``[-inner*aspect/2, inner*aspect/2] x [-1/2, 1/2]``; each
-  bar's thickness is ``inner`` times the length of the other bar.
+width ``aspect`` and height 1 (x right, y down), as :mod:`synthgen.scene.outlines`
+describes kind by kind.
 
 The frame is then rotated by ``angle`` degrees (clockwise on screen: the +x
 axis turns toward +y), scaled uniformly so that the longer side of the rotated
@@ -74,6 +60,7 @@ from functools import lru_cache
 import numpy as np
 
 from synthgen.config import FILLS, KINDS
+from synthgen.scene.outlines import _star_table, _unit, own_frame, own_frames  # noqa: F401 (benchmarks clear the first two caches)
 from synthgen.scene.regions import (
     ConvexBand,
     ConvexRegion,
@@ -240,89 +227,6 @@ class ShapeGeometry:
         return (m @ self._verts[:, : self._nring]).T + t
 
 
-@lru_cache(maxsize=64)
-def _unit(kind: str, sides: int):
-    """Own-frame geometry of a rectangle, triangle or regular polygon.
-
-    Returns ``(verts (2, K), groups, area, ext_x, ext_y)``: the ring's vertices
-    as columns; ``groups``, a tuple of ``(nx, ny, c)`` half-plane arrays of shape
-    (P, E) (unit normals) whose convex pieces together make up the shape; its area
-    and its box size.  The frame is the natural one (a polygon has circumradius
-    1); :func:`_build` stretches it to width ``aspect`` and height 1.
-    """
-    if kind == "rectangle":
-        v = np.array([[-0.5, -0.5], [0.5, -0.5], [0.5, 0.5], [-0.5, 0.5]])
-        area = 1.0
-    elif kind == "triangle":
-        v = np.array([[0.0, -0.5], [0.5, 0.5], [-0.5, 0.5]])
-        area = 0.5
-    else:
-        phi = 2.0 * np.pi * np.arange(sides) / sides
-        v = np.stack([np.sin(phi), -np.cos(phi)], axis=1)
-        area = sides * math.sin(2.0 * math.pi / sides) / 2.0  # n R^2 sin(2 pi / n) / 2
-    hp = ConvexRegion.from_pieces(v[None, :, :])
-    ext = v.max(axis=0) - v.min(axis=0)
-    verts = np.ascontiguousarray(v.T)
-    for arr in (verts, hp.nx, hp.ny, hp.c):
-        arr.flags.writeable = False
-    return verts, ((hp.nx, hp.ny, hp.c),), area, float(ext[0]), float(ext[1])
-
-
-@lru_cache(maxsize=64)
-def _star_table(sides: int):
-    """Per-``sides`` constants of a star: vertex directions, parity and kite turns."""
-    n2 = 2 * sides
-    phi = np.pi * np.arange(n2) / sides
-    dirs = np.stack([np.sin(phi), -np.cos(phi)])  # (2, 2n), point 0 straight up
-    odd = np.arange(n2) % 2 == 1
-    turn = 2.0 * np.pi * np.arange(sides) / sides
-    for arr in (dirs, odd):
-        arr.flags.writeable = False
-    return dirs, odd, np.cos(turn)[:, None], np.sin(turn)[:, None]
-
-
-def _star(sides: int, inner: float):
-    """Own-frame geometry of a star (outer radius 1), in :func:`_unit`'s layout."""
-    dirs, odd, ct, st = _star_table(sides)
-    verts = dirs * np.where(odd, inner, 1.0)  # (2, 2n)
-    lo = verts.min(axis=1)
-    hi = verts.max(axis=1)
-    # Kite 0 = (centre, inner vertex before, point straight up, inner vertex after);
-    # its outward edge normals, in order, then the other kites turned about the centre.
-    sa, ca = math.sin(math.pi / sides), math.cos(math.pi / sides)
-    r = inner
-    inv = 1.0 / math.hypot(1.0 - r * ca, r * sa)
-    n0x = np.array([-ca, (r * ca - 1.0) * inv, (1.0 - r * ca) * inv, ca])
-    n0y = np.array([sa, -r * sa * inv, -r * sa * inv, sa])
-    c0 = np.array([0.0, r * sa * inv, r * sa * inv, 0.0])
-    nx = ct * n0x - st * n0y  # (n, 4)
-    ny = st * n0x + ct * n0y
-    c = np.broadcast_to(c0, nx.shape)
-    # The core n-gon through the inner vertices overlaps the kites along their
-    # shared edges, so that no interior point sits on the edge of every piece
-    # holding it (such points would needlessly count as boundary).
-    core = (st.T, -ct.T, np.full((1, sides), r * ca))
-    area = sides * inner * sa
-    return verts, ((nx, ny, c), core), area, float(hi[0] - lo[0]), float(hi[1] - lo[1])
-
-
-_CROSS_NX = np.array([[1.0, -1.0, 0.0, 0.0], [1.0, -1.0, 0.0, 0.0]])
-_CROSS_NY = np.array([[0.0, 0.0, 1.0, -1.0], [0.0, 0.0, 1.0, -1.0]])
-
-
-def _cross(inner: float):
-    """Own-frame geometry of a cross (1 x 1), in :func:`_unit`'s layout."""
-    h = inner / 2.0
-    verts = np.array(
-        [
-            [-h, h, h, 0.5, 0.5, h, h, -h, -h, -0.5, -0.5, -h],
-            [-0.5, -0.5, -h, -h, h, h, 0.5, 0.5, h, h, -h, -h],
-        ]
-    )
-    c = np.array([[0.5, 0.5, h, h], [h, h, 0.5, 0.5]])  # horizontal bar, vertical bar
-    return verts, ((_CROSS_NX, _CROSS_NY, c),), 2.0 * inner - inner * inner, 1.0, 1.0
-
-
 def _build(shape: Shape) -> ShapeGeometry:
     th = math.radians(shape.angle)
     cos, sin = math.cos(th), math.sin(th)
@@ -343,12 +247,7 @@ def _build(shape: Shape) -> ShapeGeometry:
             return ShapeGeometry(box, math.pi * a * b * (1.0 - q * q), DifferenceRegion(ell, hole), ell, q, scale=k)
         return ShapeGeometry(box, math.pi * a * b, ell, ell, scale=k)
 
-    if kind == "star":
-        verts, groups, area0, ex, ey = _star(shape.sides, shape.inner)
-    elif kind == "cross":
-        verts, groups, area0, ex, ey = _cross(shape.inner)
-    else:
-        verts, groups, area0, ex, ey = _unit(kind, shape.sides if kind == "polygon" else 0)
+    verts, groups, area0, ex, ey = own_frame(kind, shape.sides, shape.inner)
     # natural frame -> image: stretch to width `aspect` and height 1, rotate,
     # then scale by k and translate (below)
     sx, sy = asp / ex, 1.0 / ey
@@ -429,45 +328,7 @@ def _build_polygon_group(kind: str, sides: int, shapes) -> list:
     size = np.array([s.size for s in shapes])
     cx = np.array([s.cx for s in shapes])
     cy = np.array([s.cy for s in shapes])
-    if kind == "star":
-        dirs, odd, ct, st = _star_table(sides)
-        r = np.array([s.inner for s in shapes])
-        verts = dirs * np.where(odd, r[:, None], 1.0)[:, None, :]  # (N, 2, 2n)
-        ext = verts.max(axis=2) - verts.min(axis=2)  # (N, 2)
-        ex, ey = ext[:, 0], ext[:, 1]
-        sa, ca = math.sin(math.pi / sides), math.cos(math.pi / sides)
-        rca, rsa = r * ca, r * sa
-        inv = np.array([1.0 / math.hypot(a, b) for a, b in zip((1.0 - rca).tolist(), rsa.tolist())])
-        n0x = np.stack([np.full(n, -ca), (rca - 1.0) * inv, (1.0 - rca) * inv, np.full(n, ca)], axis=1)[:, None, :]
-        n0y = np.stack([np.full(n, sa), -r * sa * inv, -r * sa * inv, np.full(n, sa)], axis=1)[:, None, :]
-        c0 = np.stack([np.zeros(n), rsa * inv, rsa * inv, np.zeros(n)], axis=1)[:, None, :]
-        kites = (ct * n0x - st * n0y, st * n0x + ct * n0y, np.broadcast_to(c0, (n, sides, 4)))
-        core = (
-            np.broadcast_to(st.T, (n, 1, sides)),
-            np.broadcast_to(-ct.T, (n, 1, sides)),
-            np.broadcast_to(rca[:, None, None], (n, 1, sides)),
-        )
-        groups = (kites, core)
-        area0 = sides * r * sa
-    elif kind == "cross":
-        r = np.array([s.inner for s in shapes])
-        h = r / 2.0
-        half = np.full(n, 0.5)
-        verts = np.stack(
-            [
-                np.stack([-h, h, h, half, half, h, h, -h, -h, -half, -half, -h], axis=1),
-                np.stack([-half, -half, -h, -h, h, h, half, half, h, h, -h, -h], axis=1),
-            ],
-            axis=1,
-        )  # (N, 2, 12)
-        c = np.stack([np.stack([half, half, h, h], axis=1), np.stack([h, h, half, half], axis=1)], axis=1)
-        groups = ((np.broadcast_to(_CROSS_NX, (n, 2, 4)), np.broadcast_to(_CROSS_NY, (n, 2, 4)), c),)
-        area0 = 2.0 * r - r * r
-        ex = ey = np.ones(n)
-    else:
-        verts, groups0, area0, ex0, ey0 = _unit(kind, sides)
-        groups = tuple((g[0][None], g[1][None], g[2][None]) for g in groups0)
-        ex, ey = np.full(n, ex0), np.full(n, ey0)
+    verts, groups, area0, ex, ey = own_frames(kind, sides, shapes)
     sx, sy = asp / ex, 1.0 / ey
     lin = np.empty((n, 2, 2))
     lin[:, 0, 0] = cos * sx
@@ -656,11 +517,10 @@ def _natural_aspect(kind: str, sides: int, inner: float) -> float:
 def clipped_box(shape: Shape, height: int, width: int) -> np.ndarray | None:
     """Tight box of the part of the shape that lies on the canvas.
 
-    Unlike ``clip_boxes(exact_box(shape), width, height)``, which only cuts the
-    full box at the border, this is the exact tight box of ``shape`` intersected
-    with ``[0, width] x [0, height]``: for a shape cut by the border it can be
-    smaller than the clipped full box.  It is the same for filled and stroked
-    shapes (both contain the boundary, where the extremes lie).
+    The exact tight box of ``shape`` intersected with ``[0, width] x [0, height]``:
+    for a shape cut by the border it can be smaller than the full box clipped
+    (``clip_boxes``).  The same for filled and stroked shapes (both contain the
+    boundary, where the extremes lie).
 
     Parameters
     ----------
@@ -692,40 +552,7 @@ def clipped_box(shape: Shape, height: int, width: int) -> np.ndarray | None:
     bx0, by0, bx1, by1 = g.box
     if not (max(bx0, 0.0) < min(bx1, W) and max(by0, 0.0) < min(by1, H)):
         return None
-    pts = []  # candidate points, (N, 2) arrays
-    if g.ellipse is None:
-        ring = g.ring
-        pts.append(ring)
-        a = ring
-        d = np.roll(ring, -1, axis=0) - ring  # (K, 2) edges
-        for axis, value in ((0, 0.0), (0, W), (1, 0.0), (1, H)):
-            with np.errstate(divide="ignore", invalid="ignore"):
-                t = (value - a[:, axis]) / d[:, axis]
-            hit = (t >= 0.0) & (t <= 1.0)
-            if hit.any():
-                p = a[hit] + t[hit, None] * d[hit]
-                p[:, axis] = value
-                pts.append(p)
-    else:
-        e = g.ellipse
-        for scale, extremes in ((1.0, True), (g.hole, False)):
-            if scale == 0.0:
-                continue
-            a, b = e.a * scale, e.b * scale
-            # p(t) = centre + a cos t (cos, sin) + b sin t (-sin, cos)
-            ax_, ay_ = a * e.cos, a * e.sin
-            bx_, by_ = -b * e.sin, b * e.cos
-            hx, tx = math.hypot(ax_, bx_), math.atan2(bx_, ax_)  # x(t) = ex + hx cos(t - tx)
-            hy, ty = math.hypot(ay_, by_), math.atan2(by_, ay_)
-            ts = [tx, tx + math.pi, ty, ty + math.pi] if extremes else []
-            for value, h, t0, centre in ((0.0, hx, tx, e.ex), (W, hx, tx, e.ex), (0.0, hy, ty, e.ey), (H, hy, ty, e.ey)):
-                u = (value - centre) / h
-                if -1.0 <= u <= 1.0:
-                    w = math.acos(u)
-                    ts += [t0 + w, t0 - w]
-            if ts:
-                t = np.array(ts)
-                pts.append(np.stack([e.ex + ax_ * np.cos(t) + bx_ * np.sin(t), e.ey + ay_ * np.cos(t) + by_ * np.sin(t)], axis=1))
+    pts = _polygon_corners(g.ring, W, H) if g.ellipse is None else _ellipse_corners(g, W, H)  # (N, 2) arrays
     corners = np.array([[0.0, 0.0], [W, 0.0], [0.0, H], [W, H]])
     pts.append(corners[sample_inside(shape, corners[:, 0], corners[:, 1])])
     p = np.concatenate(pts)
@@ -739,6 +566,47 @@ def clipped_box(shape: Shape, height: int, width: int) -> np.ndarray | None:
     if not (x0 < x1 and y0 < y1):
         return None
     return np.array([x0, y0, x1, y1])
+
+
+def _polygon_corners(ring: np.ndarray, W: float, H: float) -> list:
+    """:func:`clipped_box`'s candidate points of a polygon ring (K, 2): its vertices and border crossings."""
+    pts = [ring]
+    a = ring
+    d = np.roll(ring, -1, axis=0) - ring  # (K, 2) edges
+    for axis, value in ((0, 0.0), (0, W), (1, 0.0), (1, H)):
+        with np.errstate(divide="ignore", invalid="ignore"):
+            t = (value - a[:, axis]) / d[:, axis]
+        hit = (t >= 0.0) & (t <= 1.0)
+        if hit.any():
+            p = a[hit] + t[hit, None] * d[hit]
+            p[:, axis] = value
+            pts.append(p)
+    return pts
+
+
+def _ellipse_corners(g, W: float, H: float) -> list:
+    """:func:`clipped_box`'s candidate points of an ellipse or ring: its extremes and border crossings."""
+    pts = []
+    e = g.ellipse
+    for scale, extremes in ((1.0, True), (g.hole, False)):
+        if scale == 0.0:
+            continue
+        a, b = e.a * scale, e.b * scale
+        # p(t) = centre + a cos t (cos, sin) + b sin t (-sin, cos)
+        ax_, ay_ = a * e.cos, a * e.sin
+        bx_, by_ = -b * e.sin, b * e.cos
+        hx, tx = math.hypot(ax_, bx_), math.atan2(bx_, ax_)  # x(t) = ex + hx cos(t - tx)
+        hy, ty = math.hypot(ay_, by_), math.atan2(by_, ay_)
+        ts = [tx, tx + math.pi, ty, ty + math.pi] if extremes else []
+        for value, h, t0, centre in ((0.0, hx, tx, e.ex), (W, hx, tx, e.ex), (0.0, hy, ty, e.ey), (H, hy, ty, e.ey)):
+            u = (value - centre) / h
+            if -1.0 <= u <= 1.0:
+                w = math.acos(u)
+                ts += [t0 + w, t0 - w]
+        if ts:
+            t = np.array(ts)
+            pts.append(np.stack([e.ex + ax_ * np.cos(t) + bx_ * np.sin(t), e.ey + ay_ * np.cos(t) + by_ * np.sin(t)], axis=1))
+    return pts
 
 
 def outline(shape: Shape, *, resolution: int = 256) -> list[np.ndarray]:
