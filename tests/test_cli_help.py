@@ -9,7 +9,7 @@ import sys
 
 import pytest
 
-COMMANDS = ("make", "jitter", "score", "check", "export", "sweep", "merge", "show", "stats", "probe")
+COMMANDS = ("make", "jitter", "score", "report", "check", "export", "sweep", "merge", "show", "stats", "probe")
 
 
 def _help(*args: str, flag: str = "--help") -> str:

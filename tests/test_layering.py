@@ -21,8 +21,9 @@ PACKAGE = Path(__file__).resolve().parent.parent / "synthgen"
 #: layer -> the other layers it may import.  Leaves import nothing of synthgen but leaves;
 #: the main line is config -> scene -> run, with formats below run; jitter, evaluate, report
 #: and testing are side branches that may use formats, scene (its facts table, kinds) and the
-#: leaves, never the reverse (ARCHITECTURE.md); probe, a side branch too, may also make data
-#: (run) and draw figures (report); cli is on top.
+#: leaves, never the reverse (ARCHITECTURE.md); page (the HTML report) is a side branch above
+#: report; probe, a side branch too, may also make data (run), draw figures (report) and write
+#: the page; cli is on top.
 ALLOWED: dict[str, frozenset[str]] = {
     "leaf": frozenset(),
     "config": frozenset({"leaf"}),
@@ -32,10 +33,11 @@ ALLOWED: dict[str, frozenset[str]] = {
     "evaluate": frozenset({"leaf", "config", "scene", "formats"}),
     "jitter": frozenset({"leaf", "config", "scene", "formats", "evaluate"}),
     "report": frozenset({"leaf", "config", "scene", "formats", "evaluate", "jitter"}),
+    "page": frozenset({"leaf", "config", "scene", "formats", "evaluate", "jitter", "report"}),
     "testing": frozenset({"leaf", "config", "scene", "run", "formats", "jitter", "evaluate"}),
-    # a detector run over data it may make first (run), scored (evaluate) and drawn (report)
-    "probe": frozenset({"leaf", "config", "scene", "run", "formats", "evaluate", "report"}),
-    "cli": frozenset({"leaf", "config", "scene", "run", "formats", "jitter", "evaluate", "report", "testing", "probe"}),
+    # a detector run over data it may make first (run), scored (evaluate), drawn (report, page)
+    "probe": frozenset({"leaf", "config", "scene", "run", "formats", "evaluate", "report", "page"}),
+    "cli": frozenset({"leaf", "config", "scene", "run", "formats", "jitter", "evaluate", "report", "page", "testing", "probe"}),
 }
 
 #: Module (or package prefix) -> layer.  The longest matching prefix wins.
@@ -54,6 +56,7 @@ LAYER_OF: dict[str, str] = {
     "synthgen.jitter": "jitter",
     "synthgen.evaluate": "evaluate",
     "synthgen.report": "report",
+    "synthgen.page": "page",
     "synthgen.testing": "testing",
     "synthgen.probe": "probe",
     "synthgen.cli": "cli",

@@ -12,7 +12,7 @@ from typing import Annotated
 
 import typer
 
-from synthgen.cli import boxes, make, probe, view
+from synthgen.cli import boxes, make, page, probe, view
 from synthgen.cli._common import _Command, _Group
 
 __all__ = ["app", "main"]
@@ -51,6 +51,7 @@ COMMANDS = (
     make.make,
     boxes.jitter,
     boxes.score,
+    page.report,
     view.check,
     make.export,
     make.sweep,

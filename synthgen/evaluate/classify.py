@@ -3,7 +3,8 @@
 :class:`Confusion` tables detections by predicted class and the class of the object they hit;
 :func:`confusion_counts` fills it from the matches :mod:`synthgen.evaluate.cocoeval` made.
 :func:`classify_predictions` names each prediction's kind (:data:`synthgen.formats.results.PREDICTION_KINDS`) from the
-same matcher, for the contact sheet of :mod:`synthgen.report`.
+same matcher, for the contact sheet of :mod:`synthgen.report`; :func:`classify_matches` adds the annotation each
+prediction took, for the error breakdown of the report page (:mod:`synthgen.page.errors`).
 """
 
 from __future__ import annotations
@@ -139,6 +140,18 @@ class Predictions:
             raise ValueError(f"'kinds' must have one entry per prediction ({len(self)}), got {len(kinds)}")
         return Predictions(self.boxes, self.image_id, self.category_id, self.score, tuple(kinds))
 
+    @classmethod
+    def from_records(cls, records: Sequence[Mapping]) -> Predictions:
+        """Unclassified predictions from COCO results records (already checked), in their order; score 1.0 if absent."""
+        n = len(records)
+        return cls(
+            boxes=xyxy_from_bbox([r["bbox"] for r in records]).reshape(-1, 4) if n else np.zeros((0, 4)),
+            image_id=np.array([r["image_id"] for r in records], dtype=np.int64),
+            category_id=np.array([r["category_id"] for r in records], dtype=np.int64),
+            score=np.array([float(r.get("score", 1.0)) for r in records], dtype=np.float64),
+            kind=("",) * n,
+        )
+
 
 def _finite(v) -> bool:
     return isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v)
@@ -167,14 +180,7 @@ def read_prediction_boxes(path) -> Predictions:
             raise InputFileError(path, f"record {i}: {rule} (got {b!r})")
         if "score" in r and not _finite(r["score"]):
             raise InputFileError(path, f"record {i}: 'score' must be a finite number (got {r['score']!r})")
-    n = len(data)
-    return Predictions(
-        boxes=xyxy_from_bbox([r["bbox"] for r in data]) if n else np.zeros((0, 4)),
-        image_id=np.array([r["image_id"] for r in data], dtype=np.int64),
-        category_id=np.array([r["category_id"] for r in data], dtype=np.int64),
-        score=np.array([float(r.get("score", 1.0)) for r in data], dtype=np.float64),
-        kind=("",) * n,
-    )
+    return Predictions.from_records(data)
 
 
 
@@ -220,6 +226,10 @@ def classify_predictions(coco: Mapping, preds: Predictions, *, iou: float = 0.5,
     missed : frozenset of int
         Ids of the non-crowd annotations no true positive matched.
 
+    See Also
+    --------
+    classify_matches : the same kinds, with the annotation each prediction took.
+
     Examples
     --------
     >>> gt = {"annotations": [{"image_id": 1, "category_id": 1, "bbox": [0, 0, 10, 10]}]}
@@ -227,6 +237,25 @@ def classify_predictions(coco: Mapping, preds: Predictions, *, iou: float = 0.5,
     ...                 np.array([1, 1, 1]), np.array([1, 1, 1]), np.array([.9, .8, .7]), ("",) * 3)
     >>> classify_predictions(gt, p)[0].kind
     ('true_positive', 'duplicate', 'background')
+    """
+    out, took = classify_matches(coco, preds, iou=iou, near=near)
+    *_, crowd, anns = truth_arrays(coco)
+    matched = np.zeros(len(anns), dtype=bool)
+    matched[took[np.array(out.kind, dtype=object) == "true_positive"]] = True
+    missed = frozenset(a.get("id") for a, m, c in zip(anns, matched, crowd) if not m and not c)
+    return out, missed
+
+
+def classify_matches(coco: Mapping, preds: Predictions, *, iou: float = 0.5, near: float = 0.1):
+    """Each prediction's kind (rules of :func:`classify_predictions`) and the annotation its match took.
+
+    Returns
+    -------
+    kinds : Predictions
+        ``preds`` with ``kind`` filled in.
+    took : ndarray of int64, shape (P,)
+        Index (file order) of the annotation each prediction matched at IoU
+        ``iou`` (a true positive's object, or an ignore region), -1 for none.
     """
     gt_boxes, gt_img, gt_cat, crowd, anns = truth_arrays(coco)
     took = _match_at(anns, gt_img, gt_cat, crowd, preds, iou)
@@ -245,11 +274,7 @@ def classify_predictions(coco: Mapping, preds: Predictions, *, iou: float = 0.5,
             ["duplicate", "wrong_class", "localization"],
             "background",
         )
-    out = preds.with_kinds([str(k) for k in kinds])
-    matched = np.zeros(len(anns), dtype=bool)
-    matched[took[hit & ~on_crowd]] = True
-    missed = frozenset(a.get("id") for a, m, c in zip(anns, matched, crowd) if not m and not c)
-    return out, missed
+    return preds.with_kinds([str(k) for k in kinds]), took
 
 
 def _match_at(anns: list, gt_img: np.ndarray, gt_cat: np.ndarray, crowd: np.ndarray, preds, iou: float) -> np.ndarray:

@@ -1,6 +1,6 @@
 """What people look at: contact sheets (dataset, sheet, draw), dataset statistics (stats), score tables and figures (figures)."""
 
-from synthgen.report.dataset import Dataset, open_dataset
+from synthgen.report.dataset import Dataset, open_dataset, overlay_predictions, predictions_on
 from synthgen.report.draw import CATEGORY_COLOURS, PREDICTION_COLOURS, draw_boxes, outline_pixels
 from synthgen.report.sheet import (
     PREDICTION_KINDS,
@@ -25,6 +25,8 @@ __all__ = [
     "Dataset",
     "Predictions",
     "open_dataset",
+    "overlay_predictions",
+    "predictions_on",
     "read_predictions",
     "read_truth_sidecar",
     "TruthSidecar",
