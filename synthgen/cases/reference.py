@@ -35,6 +35,7 @@ which cases catch which mistake (:data:`BUGS`).
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 __all__ = ["STAT_NAMES", "BUGS", "ReferenceResult", "reference_evaluate", "counts_at"]
@@ -139,17 +140,24 @@ def _interpolated_ap(outcomes: list, n_counted: int) -> tuple[float, float]:
         tp += o == "tp"
         fp += o == "fp"
         curve.append((tp / n_counted, tp / (tp + fp)))
+    if not curve:
+        return 0.0, 0.0
     for i in range(len(curve) - 2, -1, -1):  # non-increasing from the right
         curve[i] = (curve[i][0], max(curve[i][1], curve[i + 1][1]))
-    total = 0.0
+    read, j = [], 0  # precision at the first point of the curve whose recall reaches r (recall never falls)
     for r in _RECALL_POINTS:
-        total += next((p for rc, p in curve if rc >= r), 0.0)
-    return total / len(_RECALL_POINTS), (curve[-1][0] if curve else 0.0)
+        while j < len(curve) and curve[j][0] < r:
+            j += 1
+        if j == len(curve):
+            break  # the rest read 0
+        read.append(curve[j][1])
+    read += [0.0] * (len(_RECALL_POINTS) - len(read))
+    return math.fsum(read) / len(read), curve[-1][0]
 
 
 def _mean(values) -> float:
     kept = [v for v in values if v != -1]
-    return sum(kept) / len(kept) if kept else -1.0
+    return math.fsum(kept) / len(kept) if kept else -1.0
 
 
 def _prepare(annotations: dict, predictions: list, bug):
