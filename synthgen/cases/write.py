@@ -25,7 +25,7 @@ from pathlib import Path
 
 from synthgen.cases.library import Case, build_cases
 from synthgen.cases.reference import BUGS, STAT_NAMES
-from synthgen.errors import InputFileError
+from synthgen.errors import InputFileError, make_output_dir
 
 __all__ = ["write_cases", "FILES"]
 
@@ -64,7 +64,7 @@ def _index(cases) -> str:
 def write_cases(out, cases=None) -> list[Path]:
     """Write every case (or the given ones) into a new folder ``out``; returns the case folders.
 
-    ``out`` must not exist or be empty; the folder is filled under a temporary
+    ``out`` must not exist or be empty (missing parents are made); the folder is filled under a temporary
     name beside it and renamed at the end, so an interrupted run leaves no
     partial ``out``.
 
@@ -77,8 +77,7 @@ def write_cases(out, cases=None) -> list[Path]:
     cases = build_cases() if cases is None else tuple(cases)
     if out.exists() and (not out.is_dir() or any(out.iterdir())):
         raise InputFileError(out, "already exists and is not an empty folder; choose a new --out or remove it")
-    if not out.parent.is_dir():
-        raise InputFileError(out, f"cannot be created: its folder '{out.parent}' does not exist")
+    make_output_dir(out.parent)
     staging = out.parent / f".{out.name}.partial-{os.getpid()}"
     shutil.rmtree(staging, ignore_errors=True)
     try:
