@@ -63,17 +63,18 @@ class Case:
     threshold: float | None = None
     expected: dict = field(default_factory=dict)
 
-    def check(self, result, *, tolerance: float = 1e-6) -> None:
+    def check(self, result, *, tolerance: float | None = None) -> None:
         """Raise ``AssertionError`` unless an evaluator's result gives this case's statistics.
 
         ``result`` is anything :func:`synthgen.cases.stats_from` reads (12 numbers,
         a mapping by statistic name, an object with ``.stats``); only the
-        statistics it holds are compared.
+        statistics it holds are compared, to ``tolerance`` (default
+        :data:`synthgen.cases.conform.DEFAULT_TOLERANCE`).
         """
-        from synthgen.cases.conform import compare, stats_from
+        from synthgen.cases.conform import DEFAULT_TOLERANCE, compare, stats_from
 
         got = stats_from(result)
-        bad = compare(self.expected["stats"], got, tolerance)
+        bad = compare(self.expected["stats"], got, DEFAULT_TOLERANCE if tolerance is None else tolerance)
         if bad:
             diffs = "; ".join(f"{n} expected {self.expected['stats'][n]:.6g}, got {got[n]:.6g}" for n in bad)
             raise AssertionError(f"case {self.name} ({self.trap}): {diffs}")

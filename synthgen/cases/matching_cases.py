@@ -221,14 +221,19 @@ def wrong_class_half():
     )
 
 
-@register
-def background_after():
+def _with_background(found: float, background: float) -> Draft:
+    """Two images, each with two objects found at score ``found`` and two background boxes at ``background``."""
     d = Draft()
-    found_all(d, 4, per_image=2, score=0.9)
+    found_all(d, 4, per_image=2, score=found)
     for img in (1, 2):
         for k in (2, 3):
-            d.pred(img, slot(k), 0.3)
-    return d.case(
+            d.pred(img, slot(k), background)
+    return d
+
+
+@register
+def background_after():
+    return _with_background(0.9, 0.3).case(
         "background-after",
         "false positives on background, all scored below the true positives",
         """Four objects are found at 0.9 and four boxes on empty background score 0.3. The
@@ -241,12 +246,7 @@ def background_after():
 
 @register
 def background_before():
-    d = Draft()
-    found_all(d, 4, per_image=2, score=0.5)
-    for img in (1, 2):
-        for k in (2, 3):
-            d.pred(img, slot(k), 0.95)
-    return d.case(
+    return _with_background(0.5, 0.95).case(
         "background-before",
         "false positives on background, all scored above the true positives",
         """Four boxes on background score 0.95, four exact predictions 0.5. After the four false

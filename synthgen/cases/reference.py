@@ -8,7 +8,11 @@ The rules, as the COCO detection evaluation defines them (REFERENCE.md:
 COCO-style AP):
 
 * IoU thresholds 0.50, 0.55, ..., 0.95 and recall points 0.00, 0.01, ..., 1.00,
-  each the double nearest the decimal value.
+  each the double nearest the decimal value.  (pycocotools builds them with
+  ``numpy.linspace``, which gives 0.8999999999999999 for 0.90 and puts ten
+  recall points, 0.35, 0.41, 0.47, 0.57, 0.69, 0.70, 0.82, 0.83, 0.94 and 0.95,
+  one step of the last digit above the decimal; no case's answer depends on
+  that, as the tests against pycocotools show.)
 * Box IoU is intersection over union with no "+1"; against a crowd region it
   is intersection over the detection's own area.
 * For every image and category, detections are ranked by descending score
