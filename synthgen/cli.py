@@ -786,7 +786,7 @@ def stats(
 @reported
 def cases(
     out: Annotated[
-        Optional[Path],
+        Path | None,
         typer.Option("--out", help="Write one folder per case into this new (or empty) folder.", show_default=False),
     ] = None,
 ) -> None:
@@ -812,7 +812,7 @@ def conform(
         ),
     ],
     cases_dir: Annotated[
-        Optional[Path],
+        Path | None,
         typer.Option("--cases", help="Folder written by 'synthgen cases --out' (default: the built-in cases).",
                      show_default=False),
     ] = None,

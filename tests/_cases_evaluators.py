@@ -16,7 +16,7 @@ import sys
 import numpy as np
 
 from synthgen.cases.reference import BUGS, STAT_NAMES, reference_evaluate
-from synthgen.score import evaluate as synthgen_evaluate  # the one import of synthgen's scorer here
+from synthgen.evaluate import evaluate as synthgen_evaluate  # the one import of synthgen's scorer here
 
 
 def pycocotools_eval(annotations: dict, predictions: list):

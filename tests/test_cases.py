@@ -13,7 +13,7 @@ import pytest
 from typer.testing import CliRunner
 
 from synthgen.cases import BUGS, STAT_NAMES, build_cases, conform, stats_from, write_cases
-from synthgen.cases.conform import AdapterError
+from synthgen.cases.adapters import AdapterError
 from synthgen.cases.reference import counts_at
 from synthgen.cli import app
 from synthgen.errors import UserError
@@ -70,7 +70,7 @@ def test_pycocotools_gives_the_expected_values(case):
 
 
 def test_synthgen_scorer_gives_the_expected_values():
-    """synthgen's own scorer (synthgen.score.evaluate) equals every expected value to 1e-9."""
+    """synthgen's own scorer (synthgen.evaluate.evaluate) equals every expected value to 1e-9."""
     for case in CASES:
         res = ev.synthgen_stats(case.annotations, case.predictions)
         exp = case.expected
@@ -160,7 +160,7 @@ def test_a_failing_evaluator_fails_its_case_and_the_rest_run(tmp_path):
     """An evaluator that raises on a case (as pycocotools' loadRes does on []) fails that case only."""
     script = tmp_path / "fragile.py"
     script.write_text(
-        "from synthgen.score import evaluate\n"
+        "from synthgen.evaluate import evaluate\n"
         "def run(gt, preds):\n"
         "    if not preds:\n"
         "        raise IndexError('list index out of range')\n"
@@ -176,7 +176,7 @@ def test_paths_option_passes_files(tmp_path):
     """With paths=True a Python evaluator receives the two file paths."""
     script = tmp_path / "by_path.py"
     script.write_text(
-        "import json\nfrom pathlib import Path\nfrom synthgen.score import evaluate\n"
+        "import json\nfrom pathlib import Path\nfrom synthgen.evaluate import evaluate\n"
         "def run(gt_path, pred_path):\n"
         "    return evaluate(json.loads(Path(gt_path).read_text()), json.loads(Path(pred_path).read_text()))\n"
     )

@@ -31,8 +31,10 @@ ALLOWED: dict[str, frozenset[str]] = {
     "evaluate": frozenset({"leaf", "config", "scene", "formats"}),
     "jitter": frozenset({"leaf", "config", "scene", "formats", "evaluate"}),
     "report": frozenset({"leaf", "config", "scene", "formats", "evaluate", "jitter"}),
-    "testing": frozenset({"leaf", "config", "scene", "run", "formats", "jitter", "evaluate"}),
-    "cli": frozenset({"leaf", "config", "scene", "run", "formats", "jitter", "evaluate", "report", "testing"}),
+    # known-answer cases for evaluators: plain COCO dicts, a reference evaluator of their own
+    "cases": frozenset({"leaf", "formats"}),
+    "testing": frozenset({"leaf", "config", "scene", "run", "formats", "jitter", "evaluate", "cases"}),
+    "cli": frozenset({"leaf", "config", "scene", "run", "formats", "jitter", "evaluate", "report", "cases", "testing"}),
 }
 
 #: Module (or package prefix) -> layer.  The longest matching prefix wins.
@@ -51,6 +53,7 @@ LAYER_OF: dict[str, str] = {
     "synthgen.jitter": "jitter",
     "synthgen.evaluate": "evaluate",
     "synthgen.report": "report",
+    "synthgen.cases": "cases",
     "synthgen.testing": "testing",
     "synthgen.cli": "cli",
     "synthgen.__main__": "cli",

@@ -9,13 +9,7 @@ An evaluator is named by a SPEC:
   ``{out}``: split like a shell line (no shell runs), the placeholders become
   file paths, and the command writes its result as JSON to ``{out}``.
 
-What it returns (or writes) is read by :func:`stats_from`: a sequence of the
-twelve COCO statistics in COCO order; a mapping by statistic name (``AP``,
-``AP50``, ... ``AR_large``; case, ``_``, ``-``, ``@`` and ``.`` do not
-matter, an ``m`` prefix as in ``map_50`` or ``mar_100`` is allowed; only the
-statistics given are compared); a mapping with a ``stats`` entry; or an object
-with a ``stats`` attribute (``COCOeval`` after ``summarize()``,
-:class:`synthgen.score.Evaluation`).
+What it returns (or writes) is read by :func:`synthgen.cases.adapters.stats_from`.
 """
 
 from __future__ import annotations
@@ -33,21 +27,17 @@ from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 from pathlib import Path
 
+from synthgen.cases.adapters import DEFAULT_TOLERANCE, compare, stats_from
 from synthgen.cases.library import Case, build_cases
 from synthgen.cases.reference import STAT_NAMES
+from synthgen.cases.write import EXPECTED, PREDICTIONS
 from synthgen.errors import InputFileError, UserError
+from synthgen.formats.dataset_dir import ANNOTATIONS
 
 __all__ = ["CaseOutcome", "conform", "compare", "load_cases", "load_evaluator", "stats_from", "outcome_table",
            "summary", "DEFAULT_TOLERANCE"]
 
-#: Largest accepted difference from an expected value (float32 evaluators differ by about 1e-7).
-DEFAULT_TOLERANCE = 1e-6
 _PLACEHOLDERS = ("{annotations}", "{predictions}", "{out}")
-_KEY = {re.sub(r"[^a-z0-9]", "", n.lower()): n for n in STAT_NAMES}
-
-
-class AdapterError(UserError):
-    """The evaluator's result has no shape :func:`stats_from` understands."""
 
 
 @dataclass(frozen=True)
@@ -69,60 +59,6 @@ class CaseOutcome:
     @property
     def passed(self) -> bool:
         return self.error is None and not self.mismatches
-
-
-# --------------------------------------------------------------------------- results
-
-
-def _number(v, where: str) -> float:
-    try:
-        return float(v.item() if hasattr(v, "item") else v)
-    except (TypeError, ValueError):
-        raise AdapterError(f"evaluator result: {where} is not a number (got {v!r:.60})") from None
-
-
-def stats_from(result) -> dict:
-    """The statistics in an evaluator's result, by name (:data:`STAT_NAMES`).
-
-    Examples
-    --------
-    >>> stats_from({"mAP": 0.5, "map_50": 0.75})
-    {'AP': 0.5, 'AP50': 0.75}
-    >>> stats_from([0.1] * 12)["AR_large"]
-    0.1
-    """
-    if hasattr(result, "stats") and not isinstance(result, Mapping):
-        return stats_from(result.stats)
-    if isinstance(result, Mapping):
-        if "stats" in result:
-            return stats_from(result["stats"])
-        out = {}
-        for key, v in result.items():
-            norm = re.sub(r"[^a-z0-9]", "", str(key).lower())
-            name = _KEY.get(norm) or (_KEY.get(norm[1:]) if norm.startswith("m") else None)
-            if name is not None:
-                out[name] = _number(v, f"'{key}'")
-        if not out:
-            raise AdapterError(
-                "evaluator result is a mapping without any statistic name (got keys "
-                f"{', '.join(map(str, list(result)[:8]))}); known: {', '.join(STAT_NAMES)}"
-            )
-        return out
-    values = result.tolist() if hasattr(result, "tolist") else result
-    if isinstance(values, (list, tuple)) and len(values) == len(STAT_NAMES):
-        return {n: _number(v, f"stat {i} ({n})") for i, (n, v) in enumerate(zip(STAT_NAMES, values, strict=True))}
-    shape = f"a sequence of {len(values)}" if isinstance(values, (list, tuple)) else type(result).__name__
-    raise AdapterError(
-        f"evaluator result must be 12 numbers in COCO order, a mapping by statistic name or an object with "
-        f".stats (got {shape})"
-    )
-
-
-def compare(expected: Mapping, got: Mapping, tolerance: float = DEFAULT_TOLERANCE) -> tuple:
-    """Names of the statistics in ``got`` that differ from ``expected`` by more than ``tolerance`` (NaN differs)."""
-    return tuple(
-        n for n in STAT_NAMES if n in got and not abs(got[n] - expected[n]) <= tolerance
-    )
 
 
 # --------------------------------------------------------------------------- cases
@@ -150,12 +86,12 @@ def load_cases(folder=None) -> list[Case]:
         raise InputFileError(folder, "holds no case folders")
     out = []
     for sub in subs:
-        expected = _read_json(sub / "expected.json")
+        expected = _read_json(sub / EXPECTED)
         stats = expected.get("stats") if isinstance(expected, dict) else None
         if not isinstance(stats, dict) or any(not isinstance(stats.get(n), (int, float)) for n in STAT_NAMES):
-            raise InputFileError(sub / "expected.json", "must hold 'stats' with a number for each of "
+            raise InputFileError(sub / EXPECTED, "must hold 'stats' with a number for each of "
                                  + ", ".join(STAT_NAMES))
-        gt, preds = _read_json(sub / "annotations.json"), _read_json(sub / "predictions.json")
+        gt, preds = _read_json(sub / ANNOTATIONS), _read_json(sub / PREDICTIONS)
         if not isinstance(gt, dict) or not isinstance(preds, list):
             raise InputFileError(sub, "annotations.json must be a COCO object and predictions.json an array")
         out.append(Case(sub.name, str(expected.get("trap", "")), "", gt, preds, {}, expected=expected))
@@ -189,7 +125,7 @@ def _import_callable(spec: str) -> Callable:
 
 
 def _run_command(template: list[str], case: Case, tmp: Path):
-    files = {"{annotations}": tmp / "annotations.json", "{predictions}": tmp / "predictions.json",
+    files = {"{annotations}": tmp / ANNOTATIONS, "{predictions}": tmp / PREDICTIONS,
              "{out}": tmp / "out.json"}
     _write_inputs(case, files["{annotations}"], files["{predictions}"])
     args = [_fill(arg, files) for arg in template]
@@ -242,8 +178,8 @@ def load_evaluator(spec: str, *, paths: bool = False) -> Callable[[Case, Path], 
     fn = _import_callable(spec)
     if paths:
         def run(case, tmp):
-            _write_inputs(case, tmp / "annotations.json", tmp / "predictions.json")
-            return fn(str(tmp / "annotations.json"), str(tmp / "predictions.json"))
+            _write_inputs(case, tmp / ANNOTATIONS, tmp / PREDICTIONS)
+            return fn(str(tmp / ANNOTATIONS), str(tmp / PREDICTIONS))
         return run
     return lambda case, tmp: fn(copy.deepcopy(case.annotations), copy.deepcopy(case.predictions))
 

@@ -16,6 +16,7 @@ import math
 from collections.abc import Callable
 from dataclasses import dataclass, field
 
+from synthgen.cases.adapters import DEFAULT_TOLERANCE, compare, stats_from
 from synthgen.cases.reference import STAT_NAMES
 
 __all__ = ["Case", "BUILDERS", "register"]
@@ -69,10 +70,8 @@ class Case:
         ``result`` is anything :func:`synthgen.cases.stats_from` reads (12 numbers,
         a mapping by statistic name, an object with ``.stats``); only the
         statistics it holds are compared, to ``tolerance`` (default
-        :data:`synthgen.cases.conform.DEFAULT_TOLERANCE`).
+        :data:`synthgen.cases.adapters.DEFAULT_TOLERANCE`).
         """
-        from synthgen.cases.conform import DEFAULT_TOLERANCE, compare, stats_from
-
         got = stats_from(result)
         bad = compare(self.expected["stats"], got, DEFAULT_TOLERANCE if tolerance is None else tolerance)
         if bad:

@@ -1,7 +1,7 @@
 """A slow, literal COCO box evaluator written from the definitions, for checking the case library.
 
 Plain Python over floats and dicts: no numpy, and nothing shared with
-:mod:`synthgen.score`, so that the expected values of the known-answer cases
+:mod:`synthgen.evaluate`, so that the expected values of the known-answer cases
 come from code that is independent of the scorer they are used to check.
 
 The rules, as the COCO detection evaluation defines them (REFERENCE.md:

@@ -26,11 +26,16 @@ from pathlib import Path
 from synthgen.cases.library import Case, build_cases
 from synthgen.cases.reference import BUGS, STAT_NAMES
 from synthgen.errors import InputFileError, make_output_dir
+from synthgen.formats.dataset_dir import ANNOTATIONS
 
 __all__ = ["write_cases", "FILES"]
 
 #: The files of one case folder.
-FILES = ("annotations.json", "predictions.json", "expected.json", "README.md")
+PREDICTIONS = "predictions.json"
+EXPECTED = "expected.json"
+CASE_README = "README.md"
+#: A case folder: the ground truth (named as in a dataset directory), the results, the answers, the paragraph.
+FILES = (ANNOTATIONS, PREDICTIONS, EXPECTED, CASE_README)
 
 
 def expected_document(case: Case) -> dict:
@@ -89,7 +94,7 @@ def write_cases(out, cases=None) -> list[Path]:
             for name, doc in zip(FILES[:3], docs, strict=True):
                 (folder / name).write_text(json.dumps(doc, indent=1) + "\n")
             (folder / FILES[3]).write_text(case_readme(case))
-        (staging / "README.md").write_text(_index(cases))
+        (staging / CASE_README).write_text(_index(cases))
         if out.exists():
             out.rmdir()
         staging.rename(out)
