@@ -34,10 +34,12 @@ ALLOWED: dict[str, frozenset[str]] = {
     "jitter": frozenset({"leaf", "config", "scene", "formats", "evaluate"}),
     "report": frozenset({"leaf", "config", "scene", "formats", "evaluate", "jitter"}),
     "page": frozenset({"leaf", "config", "scene", "formats", "evaluate", "jitter", "report"}),
-    "testing": frozenset({"leaf", "config", "scene", "run", "formats", "jitter", "evaluate"}),
+    "testing": frozenset({"leaf", "config", "scene", "run", "formats", "jitter", "evaluate", "cases"}),
     # a detector run over data it may make first (run), scored (evaluate), drawn (report, page)
     "probe": frozenset({"leaf", "config", "scene", "run", "formats", "evaluate", "report", "page"}),
-    "cli": frozenset({"leaf", "config", "scene", "run", "formats", "jitter", "evaluate", "report", "page", "testing", "probe"}),
+    "cli": frozenset({"leaf", "config", "scene", "run", "formats", "jitter", "evaluate", "report", "page", "testing", "probe", "cases"}),
+    # known-answer cases for evaluators: plain COCO dicts, a reference evaluator of their own
+    "cases": frozenset({"leaf", "formats"}),
 }
 
 #: Module (or package prefix) -> layer.  The longest matching prefix wins.
@@ -57,6 +59,7 @@ LAYER_OF: dict[str, str] = {
     "synthgen.evaluate": "evaluate",
     "synthgen.report": "report",
     "synthgen.page": "page",
+    "synthgen.cases": "cases",
     "synthgen.testing": "testing",
     "synthgen.probe": "probe",
     "synthgen.cli": "cli",

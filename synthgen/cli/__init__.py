@@ -12,7 +12,7 @@ from typing import Annotated
 
 import typer
 
-from synthgen.cli import boxes, make, page, probe, view
+from synthgen.cli import boxes, cases, make, page, probe, view
 from synthgen.cli._common import _Command, _Group
 
 __all__ = ["app", "main"]
@@ -59,6 +59,8 @@ COMMANDS = (
     view.show,
     view.stats,
     probe.probe,
+    cases.cases,
+    cases.conform,
 )
 for _command in COMMANDS:
     app.command(cls=_Command)(_command)
