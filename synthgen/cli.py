@@ -810,14 +810,23 @@ def _numbers(text: str, option: str, convert) -> list:
 @tokens_app.command(cls=_Command)
 @reported
 def ceiling(
-    dataset: Annotated[Path, typer.Argument(help="Dataset directory (reads its annotations.json) or a COCO JSON file.", show_default=False)],
-    bins: Annotated[str, typer.Option("--bins", help="Bin counts per axis to try, comma-separated.")] = "10,25,50,100,500,1000",
+    dataset: Annotated[
+        Path,
+        typer.Argument(help="Dataset directory (reads its annotations.json) or a COCO JSON file.", show_default=False),
+    ],
+    bins: Annotated[
+        str, typer.Option("--bins", help="Bin counts per axis to try, comma-separated.")
+    ] = "10,25,50,100,500,1000",
     sizes: Annotated[
-        str, typer.Option("--sizes", help="Size bucket edges on the longer box side in px, comma-separated (inf allowed).")
+        str,
+        typer.Option("--sizes", help="Size bucket edges on the longer box side in px, comma-separated (inf allowed)."),
     ] = "0,4,8,16,32,64,128,inf",
-    json_out: Annotated[Optional[Path], typer.Option("--json", help="Also write the table as JSON to this file.")] = None,
+    json_out: Annotated[
+        Optional[Path], typer.Option("--json", help="Also write the table as JSON to this file.")
+    ] = None,
     plot: Annotated[
-        Optional[Path], typer.Option("--plot", help="Also write a PNG (1440x400 px): AP, AP50, AP75 against n per size bucket.")
+        Optional[Path],
+        typer.Option("--plot", help="Also write a PNG (1440x400 px): AP, AP50, AP75 against n per size bucket."),
     ] = None,
 ) -> None:
     """The best AP a sequence model can reach when its box coordinates are quantized into n bins."""

@@ -198,7 +198,7 @@ class SceneStream:
         return (self.item(k, self.epoch) for k in range(len(self)))
 
     def item(self, k: int, epoch: int):
-        """``(image, target)`` of image ``k`` in ``epoch``; any ``k >= 0`` (beyond ``len`` too) is a scene of the run."""
+        """``(image, target)`` of image ``k`` in ``epoch``; any ``k >= 0`` (past ``len`` too) is a scene of the run."""
         scene = render_scene(self.config, k)
         h, w = scene.image.shape[:2]
         target = {
@@ -241,7 +241,7 @@ class SceneStream:
         }
 
     def iterable(self, *, start: int = 0, stop: int | None = None, block: int = 1) -> SceneIterable:
-        """The iterable form over items ``start, start + 1, ...`` (endless when ``stop`` is None); see :class:`SceneIterable`."""
+        """Items ``start, start + 1, ...`` (endless when ``stop`` is None) as a :class:`SceneIterable`."""
         return SceneIterable(self, start=start, stop=stop, block=block)
 
 

@@ -67,7 +67,7 @@ def test_square_shrunk_on_every_edge_reaches_the_floor_exactly(n_bins, m):
 
 
 def test_rectangle_with_unequal_bins_reaches_its_floor():
-    """On a 640x480 image with 32 bins (20 x 15 px bins) a 100 x 45 box at the bottom-right corner drops to (1 - 20/100)(1 - 15/45)."""
+    """640x480 and 32 bins (20 x 15 px): a 100 x 45 box in the bottom-right corner drops to (1 - 20/100)(1 - 15/45)."""
     box = np.array([[540.0, 435.0, 640.0, 480.0]])
     iou = box_iou(quantized_truth(box, 640, 480, 32), box)[0]
     assert iou == pytest.approx((1 - 20 / 100) * (1 - 15 / 45), abs=1e-12)
@@ -243,3 +243,20 @@ def test_command_refuses_bad_options_with_exit_2_and_writes_nothing(small_datase
     assert res.exit_code == 2
     assert match in res.output
     assert not (tmp_path / "c.json").exists()
+
+
+def test_help_of_the_tokens_commands_fits_80_columns():
+    """`synthgen tokens --help` and `synthgen tokens ceiling --help` fit 80 columns, arguments in upper case."""
+    import os
+    import subprocess
+    import sys
+
+    env = {**os.environ, "COLUMNS": "80", "LINES": "200"}
+    env.pop("TERMINAL_WIDTH", None)
+    for args in (["tokens"], ["tokens", "ceiling"]):
+        res = subprocess.run([sys.executable, "-m", "synthgen", *args, "--help"], capture_output=True, text=True,
+                             env=env, timeout=60)
+        assert res.returncode == 0, res.stderr
+        assert all(len(line) <= 80 for line in res.stdout.splitlines()) and "…" not in res.stdout
+    assert "Usage: synthgen tokens ceiling [OPTIONS] DATASET" in res.stdout
+    assert "<bool>" not in res.stdout

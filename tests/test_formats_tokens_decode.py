@@ -128,7 +128,8 @@ def test_decoded_results_go_straight_into_score():
     tokens, _ = encode_objects(truth, [c, c + 1], 200, 100, 1000, end_token=end)
     records = tokens_to_boxes(tokens, vocab).results(image_id=7)
     gt = {"images": [{"id": 7, "width": 200, "height": 100}], "categories": CATS,
-          "annotations": [{"id": i + 1, "image_id": 7, "category_id": cat, "bbox": [b[0], b[1], b[2] - b[0], b[3] - b[1]],
+          "annotations": [{"id": i + 1, "image_id": 7, "category_id": cat,
+                           "bbox": [b[0], b[1], b[2] - b[0], b[3] - b[1]],
                            "area": (b[2] - b[0]) * (b[3] - b[1]), "iscrowd": 0}
                           for i, (b, cat) in enumerate(zip(truth.tolist(), (3, 5)))]}
     assert [r["category_id"] for r in records] == [3, 5]

@@ -274,7 +274,8 @@ def token_ceiling(coco: Mapping, bins: Sequence[int] = DEFAULT_BINS, sizes: Sequ
     for i in range(n_buckets):
         inside = where == i
         if inside.any():
-            buckets.append((f"[{_edge(edges[i])}, {_edge(edges[i + 1])})", float(edges[i]), float(edges[i + 1]), inside))
+            name = f"[{_edge(edges[i])}, {_edge(edges[i + 1])})"
+            buckets.append((name, float(edges[i]), float(edges[i + 1]), inside))
     crowd = [a for a in coco["annotations"] if a.get("iscrowd", 0) == 1]
     rows = []
     for n in bins_:
@@ -283,7 +284,7 @@ def token_ceiling(coco: Mapping, bins: Sequence[int] = DEFAULT_BINS, sizes: Sequ
         preds = [
             {"image_id": a["image_id"], "category_id": a["category_id"],
              "bbox": [x0, y0, x1 - x0, y1 - y0], "score": s}
-            for a, (x0, y0, x1, y1), s in zip(anns, moved.tolist(), iou.tolist())
+            for a, (x0, y0, x1, y1), s in zip(anns, moved.tolist(), iou.tolist(), strict=True)
         ]
         for name, lo, hi, inside in buckets:
             keep = np.flatnonzero(inside).tolist()
@@ -345,7 +346,8 @@ def plot_ceiling(result: Ceiling, path, *, title: str | None = None) -> None:
     fig = Figure(figsize=(14.4, 4.0), dpi=100, layout="constrained")
     FigureCanvasAgg(fig)
     axes = fig.subplots(1, 3, sharey=True)
-    for ax, (attr, label) in zip(axes, (("ap", "AP @ IoU .50:.95"), ("ap50", "AP @ IoU .50"), ("ap75", "AP @ IoU .75"))):
+    panels = (("ap", "AP @ IoU .50:.95"), ("ap50", "AP @ IoU .50"), ("ap75", "AP @ IoU .75"))
+    for ax, (attr, label) in zip(axes, panels, strict=True):
         for i, bucket in enumerate(result.buckets):
             style, marker = _STYLES[i % len(_STYLES)]
             rows = [result.row(n, bucket) for n in result.bins]

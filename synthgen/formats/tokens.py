@@ -548,7 +548,7 @@ class DecodedTokens(NamedTuple):
         b = self.boxes
         return [
             {"image_id": image_id, "category_id": c, "bbox": [x0, y0, x1 - x0, y1 - y0], "score": s}
-            for (x0, y0, x1, y1), c, s in zip(b.tolist(), self.category_ids.tolist(), self.scores.tolist())
+            for (x0, y0, x1, y1), c, s in zip(b.tolist(), self.category_ids.tolist(), self.scores.tolist(), strict=True)
         ]
 
 
