@@ -184,3 +184,15 @@ def test_epoch_and_block_must_be_whole_numbers(busy_config):
         SceneStream(busy_config, epoch=-1)
     with pytest.raises(ConfigError, match="block"):
         SceneStream(busy_config).iterable(block=0)
+
+
+def test_stream_survives_pickling_as_spawned_loader_workers_receive_it(busy_config):
+    """A pickled copy (what a spawned loader worker gets) gives the same items, at the epoch it was set to."""
+    import pickle
+
+    stream = SceneStream(busy_config, tokens=TOKENS, masks=True)
+    stream.set_epoch(2)
+    copy = pickle.loads(pickle.dumps(stream))
+    assert copy.epoch == 2
+    assert _digest(copy[1]) == _digest(stream[1])
+    assert np.array_equal(copy[1][1]["masks"], stream[1][1]["masks"])
