@@ -260,3 +260,15 @@ def test_help_of_the_tokens_commands_fits_80_columns():
         assert all(len(line) <= 80 for line in res.stdout.splitlines()) and "…" not in res.stdout
     assert "Usage: synthgen tokens ceiling [OPTIONS] DATASET" in res.stdout
     assert "<bool>" not in res.stdout
+
+
+def test_command_defaults_are_the_library_defaults():
+    """The command's --bins and --sizes defaults are DEFAULT_BINS and DEFAULT_SIZES, written out."""
+    import inspect
+
+    from synthgen.cli import ceiling as command
+    from synthgen.evaluate.ceiling import DEFAULT_BINS, DEFAULT_SIZES
+
+    params = inspect.signature(command).parameters
+    assert params["bins"].default == ",".join(map(str, DEFAULT_BINS))
+    assert [float(v) for v in params["sizes"].default.split(",")] == list(DEFAULT_SIZES)
