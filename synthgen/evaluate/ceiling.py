@@ -51,8 +51,9 @@ in one bin) and IoU 0.
 
 More bins do not make every box better (the grids of 10 and 25 bins are not
 nested, and a coordinate at a coarse bin's centre loses nothing), but the
-floor rises with ``n`` and the ceiling rises with it on any dataset of more
-than a few objects.
+floor rises with ``n``, and the ceiling of a bucket of more than a few dozen
+objects rises with it (the tests check this on random datasets; a bucket of
+25 objects can dip).
 """
 
 from __future__ import annotations
