@@ -17,8 +17,9 @@ import time
 from pathlib import Path
 
 from synthgen.config import load_config
-from synthgen.dataset import image_name, make_dataset
 from synthgen.formats.images import encode_image
+from synthgen.run.make import make_dataset
+from synthgen.run.render import image_name
 from synthgen.scene import render_scene
 
 

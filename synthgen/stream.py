@@ -46,16 +46,14 @@ import numpy as np
 
 # Every name this module takes from the rest of synthgen, in one place.
 from synthgen.config import Config, load_config
-from synthgen.dataset import categories as coco_categories
 from synthgen.errors import check_number
 from synthgen.formats.tokens import check_token_options, encode_objects, object_order, vocabulary
 from synthgen.jitter import pad_with_noise
+from synthgen.run.finish import categories
 from synthgen.scene import render_scene
+from synthgen.seeding import EPOCH_STREAM
 
 __all__ = ["EPOCH_STREAM", "TokenSpec", "SceneStream", "SceneIterable", "loader_worker", "full_masks"]
-
-#: Spawn-key element of the per-item, per-epoch stream (token order and noise objects).
-EPOCH_STREAM = 0x65706F63
 
 
 @dataclass(frozen=True, slots=True)
@@ -164,7 +162,7 @@ class SceneStream:
         self.masks = bool(masks)
         self.epoch = 0
         self.set_epoch(epoch)
-        cats = coco_categories(self.config)
+        cats = categories(self.config)
         self.vocab = None
         if tokens is not None:
             size = (self.config.canvas.width, self.config.canvas.height)

@@ -7,8 +7,9 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from synthgen.formats.tokens import dequantize, encode_objects, quantize, tokens_to_boxes, vocabulary
-from synthgen.score import evaluate
+from synthgen.evaluate import evaluate
+from synthgen.formats.tokens import dequantize, encode_objects, quantize, vocabulary
+from synthgen.formats.tokens_decode import tokens_to_boxes
 
 CATS = [{"id": 3, "name": "washer"}, {"id": 5, "name": "bracket"}, {"id": 9, "name": "plate"}]
 

@@ -16,7 +16,7 @@ from pycocotools import mask as mask_utils
 from synthgen.config import load_config
 from synthgen.errors import ConfigError
 from synthgen.evaluate.ceiling import quantized_truth
-from synthgen.formats.tokens import tokens_to_boxes
+from synthgen.formats.tokens_decode import tokens_to_boxes
 from synthgen.stream import SceneIterable, SceneStream, TokenSpec, loader_worker
 
 TOKENS = TokenSpec(bins=100, order="random", pad_to=12)

@@ -5,7 +5,7 @@ and reads it back as the bin centre (:mod:`synthgen.formats.tokens`).  Even a
 model that gets every token right returns the truth moved to bin centres.
 :func:`token_ceiling` takes a dataset's ground truth, quantizes and
 dequantizes every annotated box for each bin count, and scores those boxes as
-predictions with the COCO box rules (:func:`synthgen.score.evaluate`): AP,
+predictions with the COCO box rules (:func:`synthgen.evaluate.evaluate`): AP,
 AP50 and AP75 overall and per size bucket.
 
 Scores.  Each quantized box is scored by its own IoU with the object it came
@@ -66,11 +66,11 @@ from pathlib import Path
 import numpy as np
 
 # Every name this module takes from the rest of synthgen, in one place.
+from synthgen._io import write_atomic
 from synthgen.errors import UserError, require_extra
-from synthgen.formats.coco import write_bytes_atomic
+from synthgen.evaluate.cocoeval import evaluate, read_ground_truth
 from synthgen.formats.tokens import dequantize, quantize
 from synthgen.geometry import box_iou
-from synthgen.score import evaluate, read_ground_truth
 
 __all__ = [
     "DEFAULT_BINS",
@@ -312,7 +312,7 @@ def dataset_ceiling(dataset, bins: Sequence[int] = DEFAULT_BINS, sizes: Sequence
     if json_path is not None:
         import orjson
 
-        write_bytes_atomic(json_path, orjson.dumps(result.to_dict(goal), option=orjson.OPT_INDENT_2))
+        write_atomic(json_path, orjson.dumps(result.to_dict(goal), option=orjson.OPT_INDENT_2))
     return result
 
 
@@ -367,4 +367,4 @@ def plot_ceiling(result: Ceiling, path, *, title: str | None = None) -> None:
         fig.suptitle(title)
     buf = io.BytesIO()
     fig.savefig(buf, format="png")
-    write_bytes_atomic(path, buf.getvalue())
+    write_atomic(path, buf.getvalue())

@@ -40,24 +40,29 @@ from __future__ import annotations
 
 from collections.abc import Callable, Mapping
 from pathlib import Path
-from typing import NamedTuple
+from typing import TYPE_CHECKING
 
 import numpy as np
 import orjson
 
-from synthgen.errors import check_choice, check_number
+from synthgen._io import read_input
+from synthgen.errors import InputFileError, check_choice, check_number, is_int
 from synthgen.formats._common import (
     annotations_by_image,
     bad_record,
     categories_in_order,
     image_index,
-    is_int,
-    read_input,
 )
+from synthgen.formats.dataset_dir import TOKENS, TOKENS_VOCAB
 from synthgen.geometry import as_boxes, box_area
+from synthgen.seeding import ORDER_STREAM, stream
+
+if TYPE_CHECKING:
+    from synthgen.formats.check_context import CheckContext
 
 __all__ = [
     "ORDERS",
+    "check_tokens",
     "ORDER_STREAM",
     "quantize",
     "dequantize",
@@ -69,13 +74,9 @@ __all__ = [
     "read_vocabulary",
     "parse_tokens",
     "read_tokens",
-    "DecodedTokens",
-    "tokens_to_boxes",
 ]
 
 ORDERS = ("random", "raster", "area", "distance")
-# Spawn-key element of the per-image stream that draws the random order.
-ORDER_STREAM = 0x746F6B
 
 
 def quantize(values, length: float, n_bins: int) -> np.ndarray:
@@ -295,54 +296,63 @@ def write_tokens(
     cats = categories_in_order(coco)
     class_token = {c["id"]: n_bins + i for i, c in enumerate(cats)}
     noise_token = n_bins + len(cats)
-    end_token = noise_token + 1
     sizes = {(im["width"], im["height"]) for im in coco["images"]}
     size = next(iter(sizes)) if len(sizes) == 1 else None
     by_image = annotations_by_image(coco)
     lines = []
     for pos, im in enumerate(coco["images"]):
         anns = [a for a in by_image.get(im["id"], []) if a.get("iscrowd", 0) != 1]
-        bbox = np.array([a["bbox"] for a in anns], dtype=np.float64).reshape(-1, 4)
-        xyxy = bbox.copy()
-        xyxy[:, 2:] += bbox[:, :2]
-        rng = None
-        if order == "random":
-            k = image_index(im, pos)
-            rng = np.random.Generator(np.random.PCG64(np.random.SeedSequence(seed, spawn_key=(k, ORDER_STREAM))))
-        perm = object_order(xyxy, order, rng=rng)
-        cat_ids = [a["category_id"] for a in anns]
-        if callable(noise):
-            value = noise(image_index(im, pos), xyxy, np.array(cat_ids, dtype=np.int64), (im["width"], im["height"]))
-        else:
-            value = None if noise is None else noise.get(im["id"])
-        nboxes, nlabels = _noise_objects(value, cat_ids, im["id"])
-        tokens, weights = encode_objects(
-            xyxy[perm],
-            [class_token[anns[i]["category_id"]] for i in perm],
-            im["width"],
-            im["height"],
-            n_bins,
-            end_token=end_token,
-            noise_boxes=nboxes,
-            noise_token=noise_token,
-        )
-        line = {
-            "image_id": im["id"],
-            "file_name": im["file_name"],
-            "width": im["width"],
-            "height": im["height"],
-            "n_objects": len(anns),
-            "n_noise": 0 if nboxes is None else int(nboxes.shape[0]),
-            "annotation_ids": [anns[i]["id"] for i in perm],
-            "noise_labels": nlabels,
-            "tokens": tokens,
-            "weights": weights,
-        }
+        line = _image_line(im, pos, anns, class_token, noise_token, n_bins=n_bins, order=order, seed=seed, noise=noise)
         lines.append(orjson.dumps(line))
     Path(path).write_bytes(b"\n".join(lines) + (b"\n" if lines else b""))
     vocab = vocabulary(cats, n_bins, size, order=order, seed=seed)
     Path(vocab_path).write_bytes(orjson.dumps(vocab, option=orjson.OPT_INDENT_2))
     return len(lines)
+
+
+def _image_line(im: dict, pos: int, anns: list[dict], class_token: dict, noise_token: int, *, n_bins: int,
+                order: str, seed: int, noise) -> dict:
+    """One line of ``tokens.jsonl``: image ``im`` (at position ``pos``) with its non-crowd annotations ``anns``
+    (arguments as :func:`write_tokens`; ``class_token`` maps category id -> token; the end token follows
+    ``noise_token``)."""
+    end_token = noise_token + 1
+    bbox = np.array([a["bbox"] for a in anns], dtype=np.float64).reshape(-1, 4)
+    xyxy = bbox.copy()
+    xyxy[:, 2:] += bbox[:, :2]
+    rng = None
+    if order == "random":
+        k = image_index(im, pos)
+        rng = stream(seed, k, ORDER_STREAM)
+    perm = object_order(xyxy, order, rng=rng)
+    cat_ids = [a["category_id"] for a in anns]
+    if callable(noise):
+        value = noise(image_index(im, pos), xyxy, np.array(cat_ids, dtype=np.int64), (im["width"], im["height"]))
+    else:
+        value = None if noise is None else noise.get(im["id"])
+    nboxes, nlabels = _noise_objects(value, cat_ids, im["id"])
+    tokens, weights = encode_objects(
+        xyxy[perm],
+        [class_token[anns[i]["category_id"]] for i in perm],
+        im["width"],
+        im["height"],
+        n_bins,
+        end_token=end_token,
+        noise_boxes=nboxes,
+        noise_token=noise_token,
+    )
+    line = {
+        "image_id": im["id"],
+        "file_name": im["file_name"],
+        "width": im["width"],
+        "height": im["height"],
+        "n_objects": len(anns),
+        "n_noise": 0 if nboxes is None else int(nboxes.shape[0]),
+        "annotation_ids": [anns[i]["id"] for i in perm],
+        "noise_labels": nlabels,
+        "tokens": tokens,
+        "weights": weights,
+    }
+    return line
 
 
 def _noise_objects(value, cat_ids: list[int], image_id) -> tuple[np.ndarray | None, list[int]]:
@@ -518,114 +528,69 @@ def read_tokens(path, vocab_path) -> list[dict]:
     return lines
 
 
-# --------------------------------------------------------------------------- a model's output back to boxes
+# --------------------------------------------------------------------------- check rule (synthgen check)
 
 
-class DecodedTokens(NamedTuple):
-    """Objects read from one predicted token sequence (:func:`tokens_to_boxes`).
+def check_tokens(ctx: CheckContext) -> bool:
+    """Check rule of tokens: ``tokens.jsonl`` (and ``tokens.<split>.jsonl``) with ``tokens.vocab.json``;
+    True when found.
 
-    Attributes
-    ----------
-    boxes : ndarray of float64, shape (K, 4)
-        xyxy bin centres in pixels, in sequence order.
-    category_ids : ndarray of int64, shape (K,)
-    scores : ndarray of float64, shape (K,)
-        Probability of each object's class token (1 when none were given).
-    n_noise : int
-        Well-formed groups with the noise class token, left out.
-    n_malformed : int
-        Groups left out because they break the layout (see :func:`tokens_to_boxes`).
+    The vocabulary's classes are the reference's categories by id; each image has
+    one line, with the reference's size, and its objects (dequantized, within a
+    bin) are the reference's without its ignore regions.
     """
-
-    boxes: np.ndarray
-    category_ids: np.ndarray
-    scores: np.ndarray
-    n_noise: int
-    n_malformed: int
-
-    def results(self, image_id: int) -> list[dict]:
-        """COCO results records ``{image_id, category_id, bbox: [x, y, w, h], score}``, for scoring."""
-        b = self.boxes
-        return [
-            {"image_id": image_id, "category_id": c, "bbox": [x0, y0, x1 - x0, y1 - y0], "score": s}
-            for (x0, y0, x1, y1), c, s in zip(b.tolist(), self.category_ids.tolist(), self.scores.tolist(), strict=True)
-        ]
+    if not (ctx.root / TOKENS).is_file():
+        return False
+    vocab = ctx.root / TOKENS_VOCAB
+    _check_tokens_file(ctx, ctx.root / TOKENS, vocab, reference=True)
+    for p in sorted(ctx.root.glob("tokens.*.jsonl")):
+        _check_tokens_file(ctx, p, vocab, reference=False)
+    return True
 
 
-def tokens_to_boxes(tokens, vocab: Mapping, *, width: float | None = None, height: float | None = None,
-                    probs=None) -> DecodedTokens:
-    """Boxes, category ids and scores from a predicted token sequence: the inverse of :func:`encode_objects`.
+def _check_tokens_file(ctx: CheckContext, path: Path, vocab_path: Path, *, reference: bool) -> None:
+    if not vocab_path.is_file():
+        ctx.add(vocab_path, "", "token vocabulary file must exist", "<missing>")
+        return
+    try:
+        vocab = read_vocabulary(vocab_path)
+        lines, bad = parse_tokens(path, vocab_path)
+    except InputFileError as e:
+        ctx.add_error(e)
+        return
+    if ctx.ref_names is not None:
+        names = [c.get("name") for c in vocab["classes"]]
+        if names != ctx.ref_names:
+            ctx.add(vocab_path, "classes", "must be the categories of annotations.json by id", names)
+    seen, n_obj = set(), 0
+    for e in bad:  # every bad line on its own; its image is not reported missing as well
+        ctx.add_error(e)
+        stem = ctx.ref_ids.get(e.image_id) if is_int(e.image_id) else None
+        if stem is not None:
+            seen.add(stem)
+    n_bins = vocab["n_bins"]
+    for line in lines:
+        record = f"line {line['line_number']}"
+        real = ~line["is_noise"]
+        n_obj += int(real.sum())
+        stem = ctx.ref_ids.get(line.get("image_id"))
+        if ctx.ref_objects is not None and stem is None:
+            ctx.add(path, record, "image_id must name an image of annotations.json", line.get("image_id"))
+            continue
+        if stem is None:
+            continue
+        if stem in seen:
+            ctx.add(path, record, "each image must have one line", line.get("image_id"))
+        seen.add(stem)
+        width, height = line["width"], line["height"]
+        names = [ctx.ref_cat_names.get(c) for c in line["category_ids"][real].tolist()]
+        found = [(f"object {j}", names[j], tuple(b)) for j, b in enumerate(line["boxes"][real].tolist())]
+        # a dequantized coordinate is within half a bin of the true one
+        ctx.compare("tokens", path, stem, found, record=record, tol=max(width, height) / n_bins, crowd=False)
+        if (width, height) != ctx.ref_sizes[stem]:
+            ctx.add(path, record, f"width, height must match annotations.json {ctx.ref_sizes[stem]}", (width, height))
+    if reference:
+        ctx.missing("tokens", seen, ctx.rel(path) + " (image {stem})")
+        ctx.count("tokens", 1, len(lines) + len(bad), n_obj)
+        ctx.compare_total("tokens", path)
 
-    Reading rule: the sequence is cut at its first ``end`` token (read whole
-    when there is none, as for an output cut off at a length limit); what
-    remains is read in groups of five at positions ``5 j .. 5 j + 4``.  A group
-    becomes an object when its first four tokens are coordinate tokens with
-    ``x1 >= x0`` and ``y1 >= y0`` (equal tokens: an object narrower than a bin,
-    a box of zero width) and its fifth a class token.  A group whose fifth is
-    the noise token is a noise object and is left out (``n_noise``); any other
-    group -- a token of the wrong kind in a slot, an unknown token, inverted
-    corners, a short last group -- is malformed and left out whole
-    (``n_malformed``); the next group still starts five tokens later.
-
-    Parameters
-    ----------
-    tokens : array_like of int, shape (T,)
-    vocab : mapping
-        A vocabulary document (:func:`vocabulary`, :func:`read_vocabulary`).
-    width, height : float, optional
-        Image size in pixels; default the vocabulary's ``image_size``.
-    probs : array_like of float, shape (T,) or (T, V), optional
-        The model's probability of each emitted token, or its distribution
-        over the ``V`` tokens at each position; an object's score is the
-        probability of its class token.  Default: every score 1.
-
-    Returns
-    -------
-    DecodedTokens
-
-    Examples
-    --------
-    >>> vocab = vocabulary([{"id": 7, "name": "washer"}], 16, (256, 128), order="raster", seed=0)
-    >>> out = tokens_to_boxes([0, 1, 3, 15, 16, 2, 2, 4, 4, 17, 18], vocab)
-    >>> out.boxes.tolist(), out.category_ids.tolist(), out.n_noise
-    ([[8.0, 12.0, 56.0, 124.0]], [7], 1)
-    """
-    n_bins = int(vocab["n_bins"])
-    if width is None or height is None:
-        size = vocab.get("image_size") or {}
-        width = size.get("width") if width is None else width
-        height = size.get("height") if height is None else height
-        if width is None or height is None:
-            raise ValueError("the vocabulary has no single image size: pass width and height")
-    t = np.asarray(tokens, dtype=np.int64).reshape(-1)
-    p = None if probs is None else np.asarray(probs, dtype=np.float64)
-    if p is not None and p.shape[0] != t.size:
-        raise ValueError(f"probs must have one row per token ({t.size}) (got {p.shape[0]})")
-    end = np.flatnonzero(t == vocab["ranges"]["end"][0])
-    stop = int(end[0]) if end.size else t.size
-    n_groups = stop // 5
-    q = t[: 5 * n_groups].reshape(-1, 5)
-    coords, cls = q[:, :4], q[:, 4]
-    category_of = {int(c["token"]): int(c["category_id"]) for c in vocab["classes"]}
-    is_class = np.isin(cls, np.fromiter(category_of, dtype=np.int64, count=len(category_of)))
-    well_formed = ((coords >= 0) & (coords < n_bins)).all(axis=1)
-    well_formed &= (coords[:, 2] >= coords[:, 0]) & (coords[:, 3] >= coords[:, 1])
-    noise = well_formed & (cls == vocab["ranges"]["noise"][0])
-    keep = well_formed & is_class
-    boxes = np.empty((int(keep.sum()), 4), dtype=np.float64)
-    boxes[:, 0::2] = dequantize(coords[keep][:, 0::2], width, n_bins)
-    boxes[:, 1::2] = dequantize(coords[keep][:, 1::2], height, n_bins)
-    at = 5 * np.flatnonzero(keep) + 4  # positions of the kept class tokens
-    if p is None:
-        scores = np.ones(at.size)
-    elif p.ndim == 1:
-        scores = p[at]
-    else:
-        scores = p[at, t[at]]
-    return DecodedTokens(
-        boxes=boxes,
-        category_ids=np.array([category_of[c] for c in cls[keep].tolist()], dtype=np.int64),
-        scores=scores.astype(np.float64),
-        n_noise=int(noise.sum()),
-        n_malformed=int(n_groups - keep.sum() - noise.sum() + (stop % 5 != 0)),
-    )
