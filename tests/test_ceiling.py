@@ -266,7 +266,7 @@ def test_command_defaults_are_the_library_defaults():
     """The command's --bins and --sizes defaults are DEFAULT_BINS and DEFAULT_SIZES, written out."""
     import inspect
 
-    from synthgen.cli import ceiling as command
+    from synthgen.cli.tokens import ceiling as command
     from synthgen.evaluate.ceiling import DEFAULT_BINS, DEFAULT_SIZES
 
     params = inspect.signature(command).parameters

@@ -155,13 +155,14 @@ def test_every_spec_field_has_an_option_of_the_command():
     """Errors name options through one field -> option table: it covers every DetectorSpec field, each a real option."""
     import dataclasses
 
-    from synthgen import cli
+    from synthgen.cli import app as cli_app
+    from synthgen.cli import boxes
     from synthgen.jitter import DetectorSpec
 
-    command = next(c for c in cli.app.registered_commands if c.callback.__name__ == "jitter")
+    command = next(c for c in cli_app.registered_commands if c.callback.__name__ == "jitter")
     declared = {opt for p in typer_params(command) for opt in p}
-    assert set(cli._JITTER_OPTIONS) == {f.name for f in dataclasses.fields(DetectorSpec)}
-    assert set(cli._JITTER_OPTIONS.values()) <= declared
+    assert set(boxes._JITTER_OPTIONS) == {f.name for f in dataclasses.fields(DetectorSpec)}
+    assert set(boxes._JITTER_OPTIONS.values()) <= declared
 
 
 def typer_params(command):

@@ -1,0 +1,94 @@
+"""The ``synthgen`` command: parse, call one library function, report.
+
+Results go to stdout, progress and errors to stderr.  Exit codes: 0 done,
+1 unexpected failure, 2 bad input (config, option or file), with a one-line
+message naming the key or file, the rule and the value.
+"""
+
+from __future__ import annotations
+
+import sys
+from typing import Annotated
+
+import typer
+
+from synthgen.cli import boxes, make, tokens, view
+from synthgen.cli._common import _Command, _Group
+
+__all__ = ["app", "main"]
+
+app = typer.Typer(
+    name="synthgen",
+    help="Object-detection test data whose right answer is known exactly.",
+    add_completion=False,
+    no_args_is_help=True,
+    pretty_exceptions_enable=False,
+    cls=_Group,
+    context_settings={"help_option_names": ["-h", "--help"]},
+)
+
+
+def _version(value: bool) -> None:
+    if value:
+        from synthgen import __version__
+
+        typer.echo(f"synthgen {__version__}")
+        raise typer.Exit()
+
+
+@app.callback()
+def _root(
+    version: Annotated[
+        bool, typer.Option("--version", callback=_version, is_eager=True, help="Print the version and exit.")
+    ] = False,
+) -> None:
+    """Object-detection test data whose right answer is known exactly."""
+
+
+
+#: Every command, in the order ``synthgen --help`` lists them; a new command is one line here.
+COMMANDS = (
+    make.make,
+    boxes.jitter,
+    boxes.score,
+    view.check,
+    make.export,
+    make.sweep,
+    make.merge,
+    view.show,
+    view.stats,
+)
+for _command in COMMANDS:
+    app.command(cls=_Command)(_command)
+
+#: Command groups: ``synthgen NAME COMMAND``.
+app.add_typer(tokens.app, name="tokens")
+
+
+def main() -> None:
+    """Entry point of the ``synthgen`` console script.
+
+    Usage mistakes caught by the option parser (an unknown option, a value of
+    the wrong type) are printed as one line, like every other user error.
+    """
+    try:
+        code = app(prog_name="synthgen", standalone_mode=False)
+    except typer.TyperException as exc:  # the parser's usage errors
+        text = exc.format_message() if hasattr(exc, "format_message") else str(exc)
+        text = " ".join(text.split()).rstrip(".")
+        if text:  # empty when the parser has just shown the help for a bare command
+            ctx = getattr(exc, "ctx", None)
+            help_ = f"see '{ctx.command_path} --help'" if ctx is not None else ""
+            # after a question ("Did you mean 'make'?") the pointer to the help goes in brackets
+            where = "" if not help_ else f" ({help_})" if text.endswith("?") else f"; {help_}"
+            typer.echo(f"synthgen: error: {text}{where}", err=True)
+        sys.exit(getattr(exc, "exit_code", 2))
+    except typer.Abort:
+        typer.echo("synthgen: interrupted", err=True)
+        sys.exit(130)
+    sys.exit(code if isinstance(code, int) else 0)
+
+
+if __name__ == "__main__":  # pragma: no cover
+    main()
+
