@@ -12,7 +12,7 @@ from typing import Annotated
 
 import typer
 
-from synthgen.cli import boxes, cases, make, page, probe, view
+from synthgen.cli import boxes, cases, make, page, probe, tokens, view
 from synthgen.cli._common import _Command, _Group
 
 __all__ = ["app", "main"]
@@ -64,6 +64,9 @@ COMMANDS = (
 )
 for _command in COMMANDS:
     app.command(cls=_Command)(_command)
+
+#: Command groups: ``synthgen NAME COMMAND``.
+app.add_typer(tokens.app, name="tokens")
 
 
 def main() -> None:
