@@ -29,8 +29,10 @@ import colorsys
 import math
 from dataclasses import dataclass
 
-import cv2
 import numpy as np
+
+# OpenCV is imported in the functions that use it: loading a config imports this module for its
+# spec, and `synthgen` commands that only read a config should not pay OpenCV's import (~0.1 s).
 
 from synthgen.errors import ConfigError, as_tuples, check_choice, check_number, check_range
 
@@ -238,6 +240,7 @@ def _blend(t: np.ndarray, colour0, colour1) -> np.ndarray:
     ndarray of shape (H, W, 3), uint8
         ``round(colour0 + t * (colour1 - colour0))`` per channel.
     """
+    import cv2
     # One float32 -> uint8 pass per channel; the value is in [0, 255] for t in
     # [0, 1], so the absolute value taken by convertScaleAbs changes nothing.
     planes = [
@@ -352,6 +355,7 @@ def radial(
     >>> img[0, :, 0].tolist()
     [0, 50, 100, 100]
     """
+    import cv2
     _check_size(height, width)
     if not radius > 0:
         raise ValueError(f"radius must be > 0 (got {radius})")
@@ -404,6 +408,7 @@ def value_noise(
     ``(h0, w0)`` is the coarsest lattice and ``n`` the octaves drawn
     (:func:`noise_octaves_drawn`).
     """
+    import cv2
     _check_size(height, width)
     h0, w0, n = _noise_lattice(height, width, octaves, scale)
     g = _uniform_pm1(rng, (h0, w0))
@@ -477,6 +482,7 @@ def noise(
     -------
     ndarray of shape (height, width, 3), uint8
     """
+    import cv2
     f = value_noise(height, width, octaves=octaves, persistence=persistence, scale=scale, rng=rng)
     lo, hi, _, _ = cv2.minMaxLoc(f)
     if hi > lo:
@@ -515,6 +521,7 @@ def checker(
     >>> checker(2, 4, (0, 0, 0), (9, 9, 9), 2)[..., 0].tolist()
     [[0, 0, 9, 9], [0, 0, 9, 9]]
     """
+    import cv2
     _check_size(height, width)
     if cell < 1:
         raise ValueError(f"cell must be >= 1 (got {cell})")
@@ -617,6 +624,7 @@ def add_texture(
         ``image`` plus ``amplitude`` times three octaves of value noise
         (persistence 0.5), the same offset on every channel.
     """
+    import cv2
     h, w = image.shape[:2]
     tex = value_noise(h, w, octaves=3, persistence=0.5, scale=scale, rng=rng)
     tex *= np.float32(amplitude)

@@ -31,8 +31,10 @@ import functools
 import math
 from dataclasses import dataclass, field
 
-import cv2
 import numpy as np
+
+# OpenCV is imported in the functions that use it: loading a config imports this module for its
+# spec, and `synthgen` commands that only read a config should not pay OpenCV's import (~0.1 s).
 
 from synthgen.errors import ConfigError, as_tuples, check_number, check_range
 
@@ -259,6 +261,7 @@ def _check_image(image: np.ndarray) -> None:
 
 
 def _apply_lut(image: np.ndarray, table: np.ndarray) -> np.ndarray:
+    import cv2
     lut = np.clip(np.rint(table), 0, 255).astype(np.uint8)
     return cv2.LUT(image, lut)
 
@@ -322,6 +325,7 @@ def adjust_contrast(image: np.ndarray, gain: float, pivot: float | None = None) 
 
 def _mean_grey(image: np.ndarray) -> float:
     """Mean over all pixels and channels (every channel has the same pixel count)."""
+    import cv2
     return float(sum(cv2.mean(image)[:3]) / 3.0)
 
 
@@ -367,6 +371,7 @@ def vignette(image: np.ndarray, strength: float) -> np.ndarray:
     >>> vignette(img, 0.5)[..., 0].tolist()  # (r / r_corner)**2 = 0, 2/9 and 4/9
     [[156, 178, 156], [178, 200, 178], [156, 178, 156]]
     """
+    import cv2
     _check_image(image)
     h, w = image.shape[:2]
     gain = _radius2(h, w) * np.float32(-strength)  # (H, W * 3)
@@ -393,6 +398,7 @@ def gaussian_blur(image: np.ndarray, sigma: float) -> np.ndarray:
     -------
     ndarray of shape (H, W, 3), uint8
     """
+    import cv2
     _check_image(image)
     radius = int(4.0 * sigma + 0.5)
     if sigma <= 0 or radius == 0:
@@ -438,6 +444,7 @@ def add_noise(image: np.ndarray, sigma: float, *, rng: np.random.Generator) -> n
     -------
     ndarray of shape (H, W, 3), uint8
     """
+    import cv2
     _check_image(image)
     h, w = image.shape[:2]
     bh, bw, _ = NOISE_BANK_SHAPE
@@ -471,6 +478,7 @@ def jpeg_roundtrip(image: np.ndarray, quality: int) -> np.ndarray:
     ndarray of shape (H, W, 3), uint8
         RGB.
     """
+    import cv2
     _check_image(image)
     bgr = cv2.cvtColor(image, cv2.COLOR_RGB2BGR)
     ok, data = cv2.imencode(".jpg", bgr, [cv2.IMWRITE_JPEG_QUALITY, int(quality)])
