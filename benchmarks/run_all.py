@@ -76,7 +76,7 @@ SCRIPTS = {
     "bench_counts.py": (["--images", "1", "--counts", "10,1000"], ["--images", "1", "--counts", "10"]),
     "bench_dials.py": (["--images", "3"], ["--images", "1"]),
     "bench_encode.py": (["--images", "4", "--repeats", "2"], ["--images", "1", "--repeats", "1"]),
-    "bench_formats.py": (["--images", "50"], ["--images", "5", "--width", "64", "--height", "48"]),
+    "bench_formats.py": (["--images", "50"], ["--images", "5"]),
     "bench_make.py": (["--images", "10", "--repeats", "2"], ["--images", "1", "--repeats", "1"]),
     "bench_scale.py": (["--quick"], ["--quick"]),
     "bench_score.py": (["--images", "500"], ["--images", "20"]),
