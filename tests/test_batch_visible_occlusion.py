@@ -1,4 +1,4 @@
-"""The batched side tests of synthgen.visible equal the one-object path bit for bit (as test_batch_paths)."""
+"""The batched paths of synthgen.visible and synthgen.occlusion equal their one-object paths bit for bit."""
 
 from __future__ import annotations
 
@@ -69,3 +69,16 @@ def test_visible_boxes_of_a_scene_equal_one_object_calls(overrides, monkeypatch)
     for item, got in zip(items, many):
         want = visible_boxes([item], h, w)[0]
         assert (got is None and want is None) or np.array_equal(got, want)
+
+
+@pytest.mark.parametrize("nb", [1, 2, 3, 4, 8])
+def test_set_bits_equals_the_sum_of_byte_counts(nb):
+    """The 16-bit table gives each packed pixel the count of its bytes' set bits (int.bit_count, Python)."""
+    from synthgen.occlusion import _set_bits
+
+    rng = np.random.default_rng(nb)
+    packed = rng.integers(0, 256, (7, 5, nb), dtype=np.uint8)
+    want = np.array([[sum(int(b).bit_count() for b in px) for px in row] for row in packed])
+    assert np.array_equal(_set_bits(packed), want)
+    assert np.array_equal(_set_bits(packed[:, 1:4]), want[:, 1:4])  # a strided view takes the byte path
+    assert np.array_equal(_set_bits(packed.reshape(-1, nb)), want.ravel())
