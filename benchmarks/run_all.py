@@ -50,7 +50,6 @@ import bench_make  # noqa: E402
 import bench_score  # noqa: E402
 
 from synthgen.config import load_config  # noqa: E402
-from synthgen.dataset import make_dataset  # noqa: E402
 
 #: Sizes of a full run (a few minutes on 2 cores) and of a smoke run.
 SIZES = {

@@ -31,10 +31,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from synthgen.errors import ConfigError, as_tuples, check_choice, check_number, check_range
+
 # OpenCV is imported in the functions that use it: loading a config imports this module for its
 # spec, and `synthgen` commands that only read a config should not pay OpenCV's import (~0.1 s).
-
-from synthgen.errors import ConfigError, as_tuples, check_choice, check_number, check_range
 
 __all__ = [
     "BACKGROUND_KINDS",

@@ -440,7 +440,7 @@ def visible_boxes(objects, height: int, width: int) -> list:
     """
     out: list = [None] * len(objects)
     jobs, firsts = [], []
-    for i, (shape, stroke, above, exact, inside) in enumerate(objects):
+    for i, (shape, _, above, exact, _) in enumerate(objects):
         first = _Job.meeting(shape, above, height, width, exact)
         if isinstance(first, tuple):
             firsts.append((i, first))

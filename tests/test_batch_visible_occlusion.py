@@ -20,7 +20,8 @@ def _with_above(shapes, strokes):
     for i, s in enumerate(shapes):
         b = boxes[i]
         later = np.arange(i + 1, len(shapes))
-        meet = later[(boxes[later, 0] < b[2]) & (b[0] < boxes[later, 2]) & (boxes[later, 1] < b[3]) & (b[1] < boxes[later, 3])]
+        lb = boxes[later]
+        meet = later[(lb[:, 0] < b[2]) & (b[0] < lb[:, 2]) & (lb[:, 1] < b[3]) & (b[1] < lb[:, 3])]
         items.append((s, [(shapes[j], strokes[j]) for j in meet.tolist()]))
     return items
 
