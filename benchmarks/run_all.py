@@ -291,7 +291,7 @@ def main(argv=None) -> int:
             if args.log is None and failed:
                 print(log.read_text(), file=sys.stderr)
     rows = targets_table(r, mk, enc, su, hand, score)
-    print(f"issue 19 targets ({'quick smoke run: numbers mean nothing' if args.quick else 'measured in this run'}; "
+    print(f"speed targets ({'quick smoke run: numbers mean nothing' if args.quick else 'measured in this run'}; "
           f"{args.clock} time; {os.cpu_count()} cores, {time.perf_counter() - start:.0f} s); ratio <= 1 holds")
     widths = [max(len(row[i]) for row in rows) for i in range(4)]
     for row in [("target", "goal", "achieved", "ratio"), *rows]:
