@@ -26,8 +26,8 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from synthgen.backgrounds import BACKGROUND_KINDS, BackgroundSpec, render_background  # noqa: E402
-from synthgen.degrade import (  # noqa: E402
+from synthgen.scene.backgrounds import BACKGROUND_KINDS, BackgroundSpec, render_background  # noqa: E402
+from synthgen.scene.degrade import (  # noqa: E402
     add_noise,
     adjust_brightness,
     adjust_contrast,

@@ -35,8 +35,8 @@ def child(width: int, height: int, count: int, images: int, extra: list[str]) ->
     """Run one case in this process; print a JSON line; exit 2 when the config is refused."""
     start = time.perf_counter()
     from synthgen.config import load_config
-    from synthgen.dataset import make_dataset
     from synthgen.errors import ConfigError
+    from synthgen.run.make import make_dataset
 
     try:
         cfg = load_config(overrides=[

@@ -20,10 +20,11 @@ import tempfile
 import time
 from pathlib import Path
 
-from synthgen import layout
 from synthgen.config import load_config
-from synthgen.dataset import make_dataset
-from synthgen.scene import _half_extents, _sample_objects, image_rng
+from synthgen.run.make import make_dataset
+from synthgen.scene import placement as layout
+from synthgen.scene.composer import _half_extents, image_rng
+from synthgen.scene.kinds import sample_objects as _sample_objects
 
 CASES = {
     "10": ["objects.count=[10,10]", "objects.size=[16,96]"],

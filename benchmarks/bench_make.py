@@ -35,7 +35,7 @@ from PIL import Image
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 from synthgen.config import load_config  # noqa: E402
-from synthgen.dataset import make_dataset  # noqa: E402
+from synthgen.run.make import make_dataset  # noqa: E402
 from synthgen.scene import render_scene  # noqa: E402
 
 FORMATS = ("png", "jpeg")

@@ -29,14 +29,11 @@ ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
 from synthgen.config import load_config  # noqa: E402
-from synthgen.dataset import (  # noqa: E402
-    categories,
-    coco_info,
-    make_dataset,
-    merge_shards,
-    render_image_record,
-)
-from synthgen.shards import RecordStore, Shard, encode_record, write_coco_streamed  # noqa: E402
+from synthgen.run.finish import categories, coco_info  # noqa: E402
+from synthgen.run.journal import RecordStore, Shard, encode_record, write_coco_streamed  # noqa: E402
+from synthgen.run.make import make_dataset  # noqa: E402
+from synthgen.run.merge import merge_shards  # noqa: E402
+from synthgen.run.render import render_image_record  # noqa: E402
 
 THROUGHPUT = ["background.kind=noise", "objects.count=[10, 10]", "objects.size=[16, 96]"]
 SMALL = ["canvas.width=64", "canvas.height=48", "objects.count=[3, 12]", "objects.size=[3, 40]"]
@@ -46,7 +43,7 @@ import resource, sys, time
 from pathlib import Path
 sys.path.insert(0, {root!r})
 from synthgen.config import load_config
-from synthgen.dataset import make_dataset
+from synthgen.run.make import make_dataset
 cfg = load_config(overrides={overrides!r})
 start = time.perf_counter()
 make_dataset(cfg, Path({out!r}), workers=1)

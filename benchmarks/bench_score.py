@@ -21,7 +21,7 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from synthgen.score import STAT_NAMES, evaluate  # noqa: E402
+from synthgen.evaluate import STAT_NAMES, evaluate  # noqa: E402
 
 
 def make_data(n_images: int, n_gt: int, n_pred: int, n_cls: int, seed: int = 0) -> tuple[dict, list]:
@@ -74,7 +74,7 @@ def main() -> None:
     t0 = time.perf_counter()
     ours = evaluate(gt, preds)
     t_ours = time.perf_counter() - t0
-    print(f"synthgen.score.evaluate (validation, matching, 12 stats, per category): {t_ours:.2f} s")
+    print(f"synthgen.evaluate.evaluate (validation, matching, 12 stats, per category): {t_ours:.2f} s")
     t0 = time.perf_counter()
     ours.confusion
     t_conf = time.perf_counter() - t0

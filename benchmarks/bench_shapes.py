@@ -1,4 +1,4 @@
-"""Time synthgen.shapes.coverage on the workloads scene composition needs.
+"""Time synthgen.scene.coverage.coverage on the workloads scene composition needs.
 
 Prints medians of several repeats, measured in one run on one core:
 
@@ -25,8 +25,10 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from synthgen import shapes  # noqa: E402
-from synthgen.shapes import KINDS, Shape, coverage  # noqa: E402
+from synthgen.scene import coverage as coverage_mod  # noqa: E402
+from synthgen.scene import shapes  # noqa: E402
+from synthgen.scene.coverage import coverage  # noqa: E402
+from synthgen.scene.shapes import KINDS, Shape  # noqa: E402
 
 H, W = 480, 640
 
@@ -53,17 +55,17 @@ def random_shapes(n: int, lo: float, hi: float, seed: int) -> list[Shape]:
 def timed(fn, repeats: int, warm_grid: bool = False) -> float:
     """Median wall time of ``fn()`` in ms.
 
-    The caches in synthgen.shapes are cleared before each repeat; with
+    The caches in synthgen.scene.shapes are cleared before each repeat; with
     ``warm_grid`` the sub-sample coordinate cache is kept, as it is after the
     first few images of a dataset.
     """
     times = []
     for _ in range(repeats):
         shapes._GEOMS.clear()  # the geometry cache is a plain dict
-        for cached in (shapes._region, shapes._unit, shapes._star_table):
+        for cached in (shapes.shape_region, shapes._unit, shapes._star_table):
             cached.cache_clear()
         if not warm_grid:
-            shapes._grid.cache_clear()
+            coverage_mod._grid.cache_clear()
         t0 = time.perf_counter()
         fn()
         times.append((time.perf_counter() - t0) * 1e3)
@@ -93,11 +95,11 @@ def main() -> None:
     rows.append(("10 shapes 16-96 px, samples=4", t4))
     rows.append(("10 shapes 16-96 px, samples=8", ten_at(8)))
     rows.append(("10 shapes 16-96 px, samples=4, stroke=2", ten_at(4, stroke=2.0)))
-    saved = shapes._GRID_MAX_PIXELS
-    shapes._GRID_MAX_PIXELS = 10**12  # sub-sample every pixel: the plain method
+    saved = coverage_mod._GRID_MAX_PIXELS
+    coverage_mod._GRID_MAX_PIXELS = 10**12  # sub-sample every pixel: the plain method
     t4_plain = ten_at(4)
     t8_plain = ten_at(8)
-    shapes._GRID_MAX_PIXELS = saved
+    coverage_mod._GRID_MAX_PIXELS = saved
     rows.append(("  same, every pixel sub-sampled, samples=4", t4_plain))
     rows.append(("  same, every pixel sub-sampled, samples=8", t8_plain))
     rows.append(("1000 shapes 2-8 px, samples=4", timed(lambda: run_all(tiny, samples=4), 5)))

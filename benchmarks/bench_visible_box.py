@@ -10,7 +10,7 @@ drawn above overlaps (their exact boxes meet), measured in this run:
   the exact box cut to the tight box of the visible sub-pixel sample cells,
   and the share of those objects it put more than one sample spacing off;
 * ``us/call``: CPU time of the visible boxes in ``render_scene``
-  (:func:`synthgen.visible.visible_boxes`) per object measured there (an
+  (:func:`synthgen.scene.visible.visible_boxes`) per object measured there (an
   annotated object that a drawn object above overlaps), ``us/object`` the
   same spread over every annotated object of the images, and ``share``: its
   part of the CPU time of rendering the images.
@@ -29,12 +29,17 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))  # for tests/_visible_reference.py
 
-import synthgen.scene as scene_mod  # noqa: E402
-from synthgen import visible  # noqa: E402
+import synthgen.scene.annotate as scene_mod  # noqa: E402
 from synthgen.config import load_config  # noqa: E402
 from synthgen.geometry import mask_box  # noqa: E402
-from synthgen.scene import image_rng, plan_objects, render_scene  # noqa: E402
-from synthgen.shapes import clipped_box, coverage, exact_box  # noqa: E402
+from synthgen.scene import (  # noqa: E402
+    image_rng,
+    plan_objects,
+    render_scene,
+    visible,  # noqa: E402
+)
+from synthgen.scene.coverage import coverage  # noqa: E402
+from synthgen.scene.shapes import clipped_box, exact_box  # noqa: E402
 from tests import _visible_reference as reference  # noqa: E402
 
 CASES = {

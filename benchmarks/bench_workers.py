@@ -2,7 +2,7 @@
 
 Prints, per count and config, the median wall time of each and their ratio, all measured in one
 run (interleaved repetitions).  The cut-off below which ``make_dataset`` renders in its own process
-(:data:`synthgen.dataset.MIN_IMAGES_PER_WORKER`) comes from this table.
+(:data:`synthgen.run.backends.MIN_IMAGES_PER_WORKER`) comes from this table.
 
     python benchmarks/bench_workers.py [--reps 3] [--counts 4,8,16,32,64]
 """
@@ -16,9 +16,9 @@ import tempfile
 import time
 from pathlib import Path
 
-import synthgen.dataset
+import synthgen.run.backends
 from synthgen.config import load_config
-from synthgen.dataset import make_dataset
+from synthgen.run.make import make_dataset
 
 CONFIGS = {
     "default 640x480": [],
@@ -42,7 +42,7 @@ def main() -> None:
     parser.add_argument("--counts", default="4,8,16,32,64")
     args = parser.parse_args()
     counts = [int(c) for c in args.counts.split(",")]
-    synthgen.dataset.MIN_IMAGES_PER_WORKER = 1  # measure the pool itself, not the shortcut it sets
+    synthgen.run.backends.MIN_IMAGES_PER_WORKER = 1  # measure the pool itself, not the shortcut it sets
     root = Path(tempfile.mkdtemp(prefix="bench-workers-"))
     try:
         print(f"{'config':<20} {'images':>6} {'1 process s':>12} {'2 workers s':>12} {'2w / 1p':>8}")

@@ -11,13 +11,14 @@ import functools
 import os
 import sys
 import traceback
-from enum import Enum
+from enum import StrEnum
 from pathlib import Path
-from typing import Annotated, Optional
+from typing import Annotated
 
 import typer
 
 from synthgen.errors import UserError, require_extra
+from synthgen.scene.facts import slice_facts
 
 __all__ = ["app", "main"]
 
@@ -158,11 +159,11 @@ def _progress(total: int, quiet: bool, label: str):
 
 
 ConfigArg = Annotated[
-    Optional[Path],
+    Path | None,
     typer.Argument(help="TOML config; keys not given take built-in defaults (see configs/).", show_default=False),
 ]
 SetOpt = Annotated[
-    Optional[list[str]],
+    list[str] | None,
     typer.Option("--set", help="Override a config key with a TOML value, e.g. --set objects.count=[5,10]. Repeatable."),
 ]
 
@@ -175,7 +176,7 @@ FormatsOpt = Annotated[
     ),
 ]
 SplitOpt = Annotated[
-    Optional[str],
+    str | None,
     typer.Option("--split", help="Split the images, e.g. train=0.8,val=0.2 (one COCO file per split)."),
 ]
 
@@ -201,24 +202,24 @@ def _formats_and_split(formats: str, split: str | None):
 def make(
     config: ConfigArg = None,
     out: Annotated[Path, typer.Option("--out", "-o", help="Output directory.")] = ...,
-    count: Annotated[Optional[int], typer.Option(help="Number of images (same as --set count=N).")] = None,
-    seed: Annotated[Optional[int], typer.Option(help="Root seed (same as --set seed=S).")] = None,
+    count: Annotated[int | None, typer.Option(help="Number of images (same as --set count=N).")] = None,
+    seed: Annotated[int | None, typer.Option(help="Root seed (same as --set seed=S).")] = None,
     set_: SetOpt = None,
     overwrite: Annotated[bool, typer.Option("--overwrite", help="Replace the dataset in a non-empty output directory.")] = False,
     resume: Annotated[
         bool,
         typer.Option("--resume", help="Continue an interrupted run in DIR: keep intact images, render the rest."),
     ] = False,
-    workers: Annotated[Optional[int], typer.Option(help="Processes to render with (default: usable cores).")] = None,
+    workers: Annotated[int | None, typer.Option(help="Processes to render with (default: usable cores).")] = None,
     shard: Annotated[
-        Optional[str],
+        str | None,
         typer.Option(
             "--shard", metavar="K/N",
             help="Render only shard K of N (images whose index % N == K) and a shard manifest; join with `merge`.",
         ),
     ] = None,
     cluster: Annotated[
-        Optional[str],
+        str | None,
         typer.Option(
             "--cluster", metavar="ADDRESS|local",
             help="Render on a Dask cluster (scheduler address, or 'local'); needs pip install 'synthgen-shapes\\[cluster]'.",
@@ -230,8 +231,9 @@ def make(
 ) -> None:
     """Render a dataset: images, COCO JSON annotations and a manifest."""
     from synthgen.config import load_config
-    from synthgen.dataset import make_dataset
-    from synthgen.shards import OutputWriteError, parse_shard
+    from synthgen.errors import OutputWriteError
+    from synthgen.run.journal import parse_shard
+    from synthgen.run.make import make_dataset
 
     overrides = _overrides(set_, count, seed)
     cfg = load_config(config, overrides)
@@ -269,39 +271,29 @@ def _count(n: int, word: str) -> str:
 
 def _warn_drops(objects: int, dropped: dict, ignored: int, where: str = "") -> None:
     """One warning line on stderr when more than a tenth of the objects were not annotated."""
-    from synthgen.dataset import drop_warning
+    from synthgen.run.make import drop_warning
 
     line = drop_warning(objects, dropped, ignored)
     if line is not None:
         typer.echo(f"synthgen: warning: {where}{line} (manifest: counts.dropped)", err=True)
 
 
-# config key of each DetectorSpec field -> the jitter option that sets it
+# DetectorSpec field -> the jitter option that sets it (errors about a field name its option)
 _JITTER_OPTIONS = {
-    "jitter.iou": "--iou",
-    "jitter.miss": "--miss",
-    "jitter.duplicates": "--duplicates",
-    "jitter.background": "--background",
-    "jitter.relabel": "--relabel",
-    "jitter.localization": "--localization",
-    "jitter.near_iou": "--near-iou",
-    "jitter.duplicate_iou": "--duplicate-iou",
-    "jitter.background_iou": "--background-iou",
-    "jitter.background_size": "--background-size",
-    "jitter.score_overlap": "--score-overlap",
-    "jitter.modes": "--modes",
-    "jitter.keep_inside": "--keep-inside",
-    "seed": "--seed",
+    "iou": "--iou",
+    "miss": "--miss",
+    "duplicates": "--duplicates",
+    "background": "--background",
+    "relabel": "--relabel",
+    "localization": "--localization",
+    "near_iou": "--near-iou",
+    "duplicate_iou": "--duplicate-iou",
+    "background_iou": "--background-iou",
+    "background_size": "--background-size",
+    "score_overlap": "--score-overlap",
+    "modes": "--modes",
+    "keep_inside": "--keep-inside",
 }
-
-
-def _option_error(exc) -> UserError:
-    """A ConfigError about a jitter setting, reworded to name the command-line option."""
-    value = list(exc.value) if isinstance(exc.value, tuple) else exc.value
-    text = f"option '{_JITTER_OPTIONS.get(exc.key, exc.key)}' {exc.rule} (got {value!r})"
-    for key, option in _JITTER_OPTIONS.items():
-        text = text.replace(f"'{key}'", f"'{option}'")
-    return UserError(text)
 
 
 def _pair(text: str, option: str) -> tuple[float, float]:
@@ -317,14 +309,14 @@ def _pair(text: str, option: str) -> tuple[float, float]:
 
 
 # -- check and export -----------------------------------------------------------------
-class TokenOrder(str, Enum):
+class TokenOrder(StrEnum):
     random = "random"
     raster = "raster"
     area = "area"
     distance = "distance"
 
 
-class MaskMode(str, Enum):
+class MaskMode(StrEnum):
     png = "png"
     rle = "rle"
 
@@ -335,7 +327,7 @@ def jitter(
     dataset: Annotated[Path, typer.Argument(help="Dataset directory holding annotations.json.", show_default=False)],
     out: Annotated[Path, typer.Option("--out", "-o", help="COCO results file to write (JSON array).")] = ...,
     truth: Annotated[
-        Optional[Path],
+        Path | None,
         typer.Option(help="Sidecar saying what each prediction is (default: OUT with .truth.json).", show_default=False),
     ] = None,
     seed: Annotated[int, typer.Option(help="Seed; the same seed gives the same files byte for byte.")] = 0,
@@ -378,34 +370,35 @@ def jitter(
     """
     import orjson
 
-    from synthgen.errors import ConfigError
-    from synthgen.jitter import DetectorSpec
-    from synthgen.jitter_coco import jitter_files
+    from synthgen.errors import check_number
+    from synthgen.jitter import parse_spec
+    from synthgen.jitter.coco import jitter_files
 
-    try:
-        spec = DetectorSpec(
-            miss=miss,
-            iou=_pair(iou, "--iou"),
-            modes=tuple(m.strip() for m in modes.split(",") if m.strip()),
-            localization=localization,
-            near_iou=_pair(near_iou, "--near-iou"),
-            duplicates=duplicates,
-            duplicate_iou=_pair(duplicate_iou, "--duplicate-iou"),
-            background=background,
-            background_iou=background_iou,
-            background_size=None if background_size == "objects" else _pair(background_size, "--background-size"),
-            relabel=relabel,
-            score_overlap=score_overlap,
-            keep_inside=keep_inside,
-        )
-        summary = jitter_files(dataset, out, truth=truth, seed=seed, spec=spec)
-    except ConfigError as exc:
-        raise _option_error(exc) from None
+    spec = parse_spec(
+        {
+            "miss": miss,
+            "iou": _pair(iou, "--iou"),
+            "modes": tuple(m.strip() for m in modes.split(",") if m.strip()),
+            "localization": localization,
+            "near_iou": _pair(near_iou, "--near-iou"),
+            "duplicates": duplicates,
+            "duplicate_iou": _pair(duplicate_iou, "--duplicate-iou"),
+            "background": background,
+            "background_iou": background_iou,
+            "background_size": None if background_size == "objects" else _pair(background_size, "--background-size"),
+            "relabel": relabel,
+            "score_overlap": score_overlap,
+            "keep_inside": keep_inside,
+        },
+        key=_JITTER_OPTIONS.__getitem__,
+    )
+    check_number("--seed", seed, lo=0, integer=True)
+    summary = jitter_files(dataset, out, truth=truth, seed=seed, spec=spec)
     typer.echo(orjson.dumps(summary, option=orjson.OPT_INDENT_2).decode())
     for name, change in summary["nudged"].items():
         lo, hi = change["asked"]
         if lo == hi:  # one IoU on a threshold: half the boxes would have fallen on each side; say so
-            option = _JITTER_OPTIONS[f"jitter.{name}"]
+            option = _JITTER_OPTIONS[name]
             asked, used = (",".join(f"{v:g}" for v in change[k]) for k in ("asked", "used"))
             typer.echo(
                 f"synthgen: note: {option} {asked} ends on a COCO IoU threshold; used {used}, so every box is "
@@ -429,21 +422,20 @@ def score(
         typer.Argument(help="Dataset directory (reads its annotations.json), a COCO JSON file, or with --pred-dir a sweep directory."),
     ],
     predictions: Annotated[
-        Optional[Path],
+        Path | None,
         typer.Argument(help="COCO results JSON: an array of records with image_id, category_id, bbox (x, y, width, height) and score.", show_default=False),
     ] = None,
     by: Annotated[
-        Optional[list[str]],
+        list[str] | None,
         typer.Option(
             "--by",
             help="Also score per bin of a per-object fact: FACT (default bins) or FACT:E0,E1,... "
-            "(e.g. size:0,8,16,32,inf). Facts: area, size, visible_fraction, max_iou, neighbours, "
-            "contrast, kind, truncated, ... Repeatable.",
+            f"(e.g. size:0,8,16,32,inf). Facts: {', '.join(slice_facts())}. Repeatable.",
         ),
     ] = None,
-    json_out: Annotated[Optional[Path], typer.Option("--json", help="Write every metric to this JSON file.")] = None,
+    json_out: Annotated[Path | None, typer.Option("--json", help="Write every metric to this JSON file.")] = None,
     plot: Annotated[
-        Optional[Path],
+        Path | None,
         typer.Option(
             "--plot",
             help="Write a PNG: recall and AP per bin, one 480x360 px panel per --by fact, 3 per row; "
@@ -451,7 +443,7 @@ def score(
         ),
     ] = None,
     pred_dir: Annotated[
-        Optional[Path],
+        Path | None,
         typer.Option(
             "--pred-dir",
             help="Score a sweep: DATASET is the sweep directory and this directory holds one results file "
@@ -463,9 +455,9 @@ def score(
     import orjson
     from rich.console import Console
 
-    from synthgen import report_score as rep
-    from synthgen.formats.coco import write_bytes_atomic
-    from synthgen.score import score_files, score_sweep
+    from synthgen._io import write_atomic
+    from synthgen.evaluate import score_files, score_sweep
+    from synthgen.report import figures as rep
 
     if (predictions is None) == (pred_dir is None):
         raise UserError("give either a PREDICTIONS file or --pred-dir DIR for a sweep (got "
@@ -484,7 +476,7 @@ def score(
         if plot is not None:  # the figure first: a figure that cannot be drawn leaves no JSON behind
             rep.plot_sweep(points, plot)
         if json_out is not None:
-            write_bytes_atomic(json_out, orjson.dumps({"sweep": [p.to_dict() for p in points]}, option=orjson.OPT_INDENT_2))
+            write_atomic(json_out, orjson.dumps({"sweep": [p.to_dict() for p in points]}, option=orjson.OPT_INDENT_2))
         return
     if plot is not None and not by:
         raise UserError("option '--plot' needs at least one --by FACT to plot")
@@ -501,7 +493,7 @@ def score(
     if plot is not None:
         rep.plot_slices(slices, plot, title=f"{predictions.name} on {dataset.name}")
     if json_out is not None:
-        write_bytes_atomic(json_out, orjson.dumps(evaluation.to_dict(slices), option=orjson.OPT_INDENT_2))
+        write_atomic(json_out, orjson.dumps(evaluation.to_dict(slices), option=orjson.OPT_INDENT_2))
 
 
 def _check_output_file(option: str, path: Path | None) -> None:
@@ -525,7 +517,7 @@ def check(
     ] = False,
 ) -> None:
     """Validate a dataset in COCO, VOC, YOLO, token or mask format (exit 0 clean, 1 problems, 2 unusable)."""
-    from synthgen.check import check_dataset
+    from synthgen.formats.check import check_dataset
 
     report = check_dataset(dataset, decode_images=not quick)
     for problem in report.problems:
@@ -541,7 +533,7 @@ def export(
     dataset: Annotated[Path, typer.Argument(help="Dataset directory written by make.", show_default=False)],
     formats: FormatsOpt = "voc,yolo",
     out: Annotated[
-        Optional[Path],
+        Path | None,
         typer.Option(
             "--out", "-o",
             help="Output directory (default: the dataset). Another directory becomes a dataset of its own: "
@@ -550,7 +542,7 @@ def export(
     ] = None,
     split: SplitOpt = None,
     seed: Annotated[
-        Optional[int], typer.Option(help="Seed for splits and random token order (default: the manifest's).")
+        int | None, typer.Option(help="Seed for splits and random token order (default: the manifest's).")
     ] = None,
     bins: Annotated[int, typer.Option("--bins", help="Token bins per axis.")] = 1000,
     order: Annotated[
@@ -559,7 +551,7 @@ def export(
     ] = TokenOrder.random,
     masks: Annotated[MaskMode, typer.Option(help="Instance masks as id PNGs or per-object RLE lines.")] = MaskMode.png,
     pad_to: Annotated[
-        Optional[int],
+        int | None,
         typer.Option(
             "--pad-to", min=0,
             help="Token sequences: pad each image to this many objects with training noise objects "
@@ -607,18 +599,18 @@ def sweep(
         ),
     ] = ...,
     out: Annotated[Path, typer.Option("--out", "-o", help="Sweep directory: one dataset per combination, and sweep.json.")] = ...,
-    count: Annotated[Optional[int], typer.Option(help="Images per dataset (same as --set count=N).")] = None,
-    seed: Annotated[Optional[int], typer.Option(help="Root seed of every dataset (same as --set seed=S).")] = None,
+    count: Annotated[int | None, typer.Option(help="Images per dataset (same as --set count=N).")] = None,
+    seed: Annotated[int | None, typer.Option(help="Root seed of every dataset (same as --set seed=S).")] = None,
     set_: SetOpt = None,
     overwrite: Annotated[bool, typer.Option("--overwrite", help="Replace the datasets of a non-empty sweep directory.")] = False,
     resume: Annotated[
         bool, typer.Option("--resume", help="Continue an interrupted sweep in DIR: keep intact images, render the rest.")
     ] = False,
-    workers: Annotated[Optional[int], typer.Option(help="Processes to render with (default: usable cores).", min=1)] = None,
+    workers: Annotated[int | None, typer.Option(help="Processes to render with (default: usable cores).", min=1)] = None,
     quiet: Annotated[bool, typer.Option("--quiet", "-q", help="No progress bar.")] = False,
 ) -> None:
     """Render one dataset per combination of varied config values, under DIR/<key>=<value>/."""
-    from synthgen.sweep import parse_vary, plan_sweep, run_sweep
+    from synthgen.run.sweep import parse_vary, plan_sweep, run_sweep
 
     overrides = _overrides(set_, count, seed)
     varies = [parse_vary(v) for v in vary]
@@ -644,14 +636,14 @@ def sweep(
 def merge(
     dirs: Annotated[list[Path], typer.Argument(help="Directories written by make --shard K/N (all K of one N).")],
     out: Annotated[
-        Optional[Path],
+        Path | None,
         typer.Option("--out", "-o", help="Output directory (default: merge in place when one directory is given)."),
     ] = None,
     overwrite: Annotated[bool, typer.Option("--overwrite", help="Replace a dataset in a non-empty --out.")] = False,
 ) -> None:
     """Join shard outputs into the dataset a single run writes, byte for byte."""
-    from synthgen.dataset import merge_shards
-    from synthgen.shards import OutputWriteError
+    from synthgen.errors import OutputWriteError
+    from synthgen.run.merge import merge_shards
 
     try:
         summary = merge_shards(dirs, out, overwrite=overwrite)
@@ -685,19 +677,19 @@ def show(
     dataset: DatasetArg,
     out: Annotated[Path, typer.Option("--out", "-o", help="Contact sheet to write (PNG).")] = ...,
     images: Annotated[
-        Optional[int],
+        int | None,
         typer.Option("--images", "-n", help="Number of images: the first N by image id (default: 16).", min=1),
     ] = None,
     ids: Annotated[
-        Optional[str],
+        str | None,
         typer.Option("--ids", help="Comma-separated COCO image ids to show, e.g. 3,7,9 (instead of --images)."),
     ] = None,
     pred: Annotated[
-        Optional[Path],
+        Path | None,
         typer.Option("--pred", help="COCO results file; predictions are drawn dashed, coloured by what each is."),
     ] = None,
     truth: Annotated[
-        Optional[Path],
+        Path | None,
         typer.Option(
             "--truth",
             help="Sidecar from `synthgen jitter` saying what each prediction is (default: match at IoU 0.5).",
@@ -707,14 +699,14 @@ def show(
         bool, typer.Option("--zoom", help="Add enlarged crops of the smallest objects (nearest neighbour).")
     ] = False,
     image_dir: Annotated[
-        Optional[Path],
+        Path | None,
         typer.Option("--image-dir", help="Directory holding the images, if not beside the annotation file."),
     ] = None,
     cols: Annotated[
-        Optional[int], typer.Option("--cols", help="Tiles per row (default: about the square root of the count).", min=1)
+        int | None, typer.Option("--cols", help="Tiles per row (default: about the square root of the count).", min=1)
     ] = None,
     scale: Annotated[
-        Optional[float],
+        float | None,
         typer.Option(
             "--scale",
             help="Tile pixels per image pixel (default: small images enlarged by a whole factor, large shrunk).",
@@ -761,10 +753,10 @@ def show(
 def stats(
     dataset: DatasetArg,
     json_out: Annotated[
-        Optional[Path], typer.Option("--json", help="Also write the statistics as JSON to this file.")
+        Path | None, typer.Option("--json", help="Also write the statistics as JSON to this file.")
     ] = None,
     plot: Annotated[
-        Optional[Path], typer.Option("--plot", help="Also write a figure of histograms (PNG, 1200x700 px).")
+        Path | None, typer.Option("--plot", help="Also write a figure of histograms (PNG, 1200x700 px).")
     ] = None,
 ) -> None:
     """Summarise a dataset: counts, sizes, COCO area ranges, visibility, overlap, settings used."""

@@ -1,10 +1,10 @@
 """The run schema: frozen spec dataclasses, built-in defaults, TOML loading and overrides.
 
-Every key has a built-in default, so an empty config is a valid config.  A
-section's spec lives beside the code that reads it (:class:`BackgroundSpec` in
-:mod:`synthgen.backgrounds`, :class:`DegradeSpec` in :mod:`synthgen.degrade`);
-this module assembles them into one :class:`Config` and is the only place that
-turns user text into specs.  Validation happens once, here, at the boundary:
+Every key has a built-in default, so an empty config is a valid config.  This
+module holds the whole schema (every section's spec, the kind and fill names,
+the kinds' parameter ranges, the background kinds), assembles it into one
+:class:`Config` and is the only place that turns user text into specs; the
+stages in :mod:`synthgen.scene` read the specs and import nothing back.  Validation happens once, here, at the boundary:
 wrong types and unknown keys are caught by :func:`build`, and each spec's
 ``__post_init__`` checks its own rules.  Every error is a
 :class:`~synthgen.errors.ConfigError` naming the dotted key, the rule and the
@@ -23,11 +23,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from synthgen.backgrounds import BackgroundSpec
-from synthgen.degrade import DegradeSpec
 from synthgen.errors import ConfigError, InputFileError, as_tuples, check_choice, check_number, check_range
-from synthgen.kinds import CROSS_BAR, POINTS, RING_HOLE, SIDES, STAR_INNER, check_parameters
-from synthgen.shapes import FILLS, KINDS
 
 __all__ = [
     "CanvasSpec",
@@ -61,6 +57,317 @@ DROPPED = ("ignore", "erase")
 IMAGE_FORMATS = ("png", "jpeg")
 
 
+# --------------------------------------------------------------------------- objects: kinds, fills, parameters
+
+KINDS = ("rectangle", "ellipse", "triangle", "polygon", "star", "ring", "cross")
+"""Shape kinds, in canonical order (category ids are ``KINDS.index(kind) + 1``)."""
+
+FILLS = ("flat", "gradient", "stripes")
+"""Fill styles understood by :func:`paint`."""
+
+SIDES = (5, 8)
+"""Sides of a polygon."""
+POINTS = (5, 8)
+"""Points of a star."""
+STAR_INNER = (0.3, 0.55)
+"""Inner / outer radius of a star."""
+RING_HOLE = (0.3, 0.6)
+"""Hole / outer semi-axes of a ring."""
+CROSS_BAR = (0.2, 0.4)
+"""Bar thickness / length of a cross."""
+
+#: The parameter ranges a config may narrow: key -> (range, whole numbers, what lies beyond it).
+_KEYS = {
+    "objects.sides": (SIDES, True, "polygons of fewer sides are triangles or rectangles, of more ellipses"),
+    "objects.points": (POINTS, True, "stars of fewer points are triangles or crosses, of more blobs"),
+    "objects.inner": (STAR_INNER, False, "fuller stars are polygons, thinner ones sets of lines"),
+    "objects.hole": (RING_HOLE, False, "rings with wider holes are outlined ellipses, with smaller ones ellipses"),
+    "objects.bar": (CROSS_BAR, False, "crosses with thicker bars are octagons, with thinner ones lines"),
+}
+
+
+def check_parameters(spec) -> None:
+    """Raise :class:`~synthgen.errors.ConfigError` unless each kind's parameter range in ``spec`` keeps the kinds apart.
+
+    ``spec`` is a :class:`synthgen.config.ObjectSpec`; its ``sides``, ``points``,
+    ``inner``, ``hole`` and ``bar`` may narrow the ranges above, never widen them.
+    """
+    for key, (bounds, integer, why) in _KEYS.items():
+        value = getattr(spec, key.split(".")[1])
+        try:
+            check_range(key, value, lo=bounds[0], hi=bounds[1], integer=integer)
+        except ConfigError as err:
+            raise ConfigError(key, err.rule, value, hint=why) from None
+
+
+# --------------------------------------------------------------------------- background
+
+
+BACKGROUND_KINDS = ("solid", "linear", "radial", "noise", "checker", "stripes", "mix")
+
+
+@dataclass(frozen=True, slots=True)
+class BackgroundSpec:
+    """What backgrounds to draw (TOML table ``[background]``).
+
+    Parameters
+    ----------
+    kind : str
+        One of :data:`BACKGROUND_KINDS`.  ``mix`` picks one of ``mix``
+        uniformly per image.
+    mix : tuple of str
+        The kinds ``mix`` picks from (any kind except ``mix``).
+    brightness : (float, float)
+        Range of colour value (HSV ``V``), fraction of full scale in [0, 1].
+    saturation : (float, float)
+        Range of colour saturation (HSV ``S``) in [0, 1].
+    contrast : (float, float)
+        Range of the difference in value (HSV ``V``) between the two colours
+        of a two-colour kind, fraction of full scale in [0, 1].
+    radial_reach : (float, float)
+        Radius of a radial gradient as a fraction of the distance from its
+        centre to the farthest canvas corner; beyond it the outer colour holds.
+    octaves : int
+        Number of value-noise octaves, each at twice the lattice frequency of
+        the previous one (1 to 12).
+    persistence : float
+        Amplitude ratio of each noise octave to the previous one, in [0, 1].
+    noise_scale : (float, float)
+        Range of the coarsest noise octave's lattice spacing, px (>= 1).
+    checker_cell : (int, int)
+        Range of the checkerboard cell side, px (whole numbers >= 1).
+    stripe_period : (float, float)
+        Range of the stripe period (one stripe of each colour), px (>= 2).
+    stripe_duty : (float, float)
+        Range of the fraction of each period taken by the second colour,
+        in (0, 1].
+    stripe_angle : (float, float)
+        Range of the stripes' normal direction, degrees.
+    texture : (float, float)
+        Range of the amplitude of a fine grey texture added over any kind,
+        in 0..255 units; ``(0, 0)`` turns it off (and draws nothing).
+    texture_scale : float
+        Lattice spacing of the texture's coarsest octave, px (>= 1).
+    """
+
+    kind: str = "noise"
+    mix: tuple[str, ...] = ("solid", "linear", "radial", "noise", "checker", "stripes")
+    brightness: tuple[float, float] = (0.2, 0.9)
+    saturation: tuple[float, float] = (0.0, 0.7)
+    contrast: tuple[float, float] = (0.15, 0.6)
+    radial_reach: tuple[float, float] = (0.6, 1.4)
+    octaves: int = 5
+    persistence: float = 0.5
+    noise_scale: tuple[float, float] = (48.0, 192.0)
+    checker_cell: tuple[int, int] = (8, 64)
+    stripe_period: tuple[float, float] = (8.0, 48.0)
+    stripe_duty: tuple[float, float] = (0.3, 0.7)
+    stripe_angle: tuple[float, float] = (0.0, 180.0)
+    texture: tuple[float, float] = (0.0, 0.0)
+    texture_scale: float = 4.0
+
+    def __post_init__(self):
+        as_tuples(self)
+        check_choice("background.kind", self.kind, BACKGROUND_KINDS)
+        if (
+            not isinstance(self.mix, tuple)
+            or not self.mix
+            or not all(isinstance(k, str) for k in self.mix)
+        ):
+            raise ConfigError(
+                "background.mix", "must be a non-empty list of background kinds", self.mix
+            )
+        for k in self.mix:
+            check_choice("background.mix", k, BACKGROUND_KINDS[:-1])
+        check_range("background.brightness", self.brightness, lo=0, hi=1)
+        check_range("background.saturation", self.saturation, lo=0, hi=1)
+        check_range("background.contrast", self.contrast, lo=0, hi=1)
+        check_range("background.radial_reach", self.radial_reach, lo=0, lo_open=True)
+        check_number("background.octaves", self.octaves, lo=1, hi=12, integer=True)
+        check_number("background.persistence", self.persistence, lo=0, hi=1)
+        check_range("background.noise_scale", self.noise_scale, lo=1)
+        check_range("background.checker_cell", self.checker_cell, lo=1, integer=True)
+        check_range("background.stripe_period", self.stripe_period, lo=2)
+        check_range("background.stripe_duty", self.stripe_duty, lo=0, lo_open=True, hi=1)
+        check_range("background.stripe_angle", self.stripe_angle)
+        check_range("background.texture", self.texture, lo=0, hi=255)
+        check_number("background.texture_scale", self.texture_scale, lo=1)
+
+
+# --------------------------------------------------------------------------- degrade
+
+
+def _check_p(key: str, p) -> None:
+    check_number(key, p, lo=0, hi=1)
+
+
+@dataclass(frozen=True, slots=True)
+class NoiseSpec:
+    """Gaussian sensor noise (TOML table ``[degrade.noise]``).
+
+    Parameters
+    ----------
+    p : float
+        Probability of applying it to an image, in [0, 1].
+    sigma : (float, float)
+        Range of the noise standard deviation, 0..255 units, in [0, 128].
+    """
+
+    p: float = 0.0
+    sigma: tuple[float, float] = (2.0, 8.0)
+
+    def __post_init__(self):
+        as_tuples(self)
+        _check_p("degrade.noise.p", self.p)
+        check_range("degrade.noise.sigma", self.sigma, lo=0, hi=128)
+
+
+@dataclass(frozen=True, slots=True)
+class BlurSpec:
+    """Gaussian blur (TOML table ``[degrade.blur]``).
+
+    Parameters
+    ----------
+    p : float
+        Probability of applying it to an image, in [0, 1].
+    sigma : (float, float)
+        Range of the blur standard deviation, px, in [0, 32].
+    """
+
+    p: float = 0.0
+    sigma: tuple[float, float] = (0.5, 1.5)
+
+    def __post_init__(self):
+        as_tuples(self)
+        _check_p("degrade.blur.p", self.p)
+        check_range("degrade.blur.sigma", self.sigma, lo=0, hi=32)
+
+
+@dataclass(frozen=True, slots=True)
+class JpegSpec:
+    """JPEG round trip (TOML table ``[degrade.jpeg]``).
+
+    Parameters
+    ----------
+    p : float
+        Probability of applying it to an image, in [0, 1].
+    quality : (int, int)
+        Range of the JPEG quality, whole numbers in [1, 100] (both ends drawn).
+    """
+
+    p: float = 0.0
+    quality: tuple[int, int] = (30, 90)
+
+    def __post_init__(self):
+        as_tuples(self)
+        _check_p("degrade.jpeg.p", self.p)
+        check_range("degrade.jpeg.quality", self.quality, lo=1, hi=100, integer=True)
+
+
+@dataclass(frozen=True, slots=True)
+class BrightnessSpec:
+    """Brightness change (TOML table ``[degrade.brightness]``).
+
+    Parameters
+    ----------
+    p : float
+        Probability of applying it to an image, in [0, 1].
+    offset : (float, float)
+        Range of the offset added to every channel, 0..255 units, in [-255, 255].
+    """
+
+    p: float = 0.0
+    offset: tuple[float, float] = (-40.0, 40.0)
+
+    def __post_init__(self):
+        as_tuples(self)
+        _check_p("degrade.brightness.p", self.p)
+        check_range("degrade.brightness.offset", self.offset, lo=-255, hi=255)
+
+
+@dataclass(frozen=True, slots=True)
+class ContrastSpec:
+    """Contrast change (TOML table ``[degrade.contrast]``).
+
+    Parameters
+    ----------
+    p : float
+        Probability of applying it to an image, in [0, 1].
+    gain : (float, float)
+        Range of the factor applied to each value's distance from the image's
+        mean grey level, in [0, 8] (1 leaves the image unchanged).
+    """
+
+    p: float = 0.0
+    gain: tuple[float, float] = (0.6, 1.4)
+
+    def __post_init__(self):
+        as_tuples(self)
+        _check_p("degrade.contrast.p", self.p)
+        check_range("degrade.contrast.gain", self.gain, lo=0, hi=8)
+
+
+@dataclass(frozen=True, slots=True)
+class VignetteSpec:
+    """Illumination falling off towards the corners (TOML table ``[degrade.vignette]``).
+
+    Parameters
+    ----------
+    p : float
+        Probability of applying it to an image, in [0, 1].
+    strength : (float, float)
+        Range of the fraction of brightness lost at the corners, in [0, 1].
+    """
+
+    p: float = 0.0
+    strength: tuple[float, float] = (0.1, 0.5)
+
+    def __post_init__(self):
+        as_tuples(self)
+        _check_p("degrade.vignette.p", self.p)
+        check_range("degrade.vignette.strength", self.strength, lo=0, hi=1)
+
+
+_SUBSPECS = {
+    "brightness": BrightnessSpec,
+    "contrast": ContrastSpec,
+    "vignette": VignetteSpec,
+    "blur": BlurSpec,
+    "noise": NoiseSpec,
+    "jpeg": JpegSpec,
+}
+
+
+@dataclass(frozen=True, slots=True)
+class DegradeSpec:
+    """All photometric degradations (TOML table ``[degrade]`` and its sub-tables).
+
+    Every probability defaults to 0: by default images are not degraded.
+
+    Parameters
+    ----------
+    noise : NoiseSpec
+    blur : BlurSpec
+    jpeg : JpegSpec
+    brightness : BrightnessSpec
+    contrast : ContrastSpec
+    vignette : VignetteSpec
+    """
+
+    noise: NoiseSpec = field(default_factory=NoiseSpec)
+    blur: BlurSpec = field(default_factory=BlurSpec)
+    jpeg: JpegSpec = field(default_factory=JpegSpec)
+    brightness: BrightnessSpec = field(default_factory=BrightnessSpec)
+    contrast: ContrastSpec = field(default_factory=ContrastSpec)
+    vignette: VignetteSpec = field(default_factory=VignetteSpec)
+
+    def __post_init__(self):
+        for name, cls in _SUBSPECS.items():
+            value = getattr(self, name)
+            if not isinstance(value, cls):
+                raise ConfigError(f"degrade.{name}", "must be a table", value)
+
+
 @dataclass(frozen=True, slots=True)
 class CanvasSpec:
     """Image size in pixels (``[canvas]``)."""
@@ -79,7 +386,7 @@ class ObjectSpec:
     """What objects each image holds and where they go (``[objects]``).
 
     Sizes are the longer side of an object's unclipped exact box, in pixels.
-    Layout keys (see :mod:`synthgen.layout`): ``max_iou`` and ``attempts``
+    Layout keys (see :mod:`synthgen.scene.placement`): ``max_iou`` and ``attempts``
     (``separated``; ``max_iou`` also keeps pairs apart under ``pairs``),
     ``pair_iou`` (``pairs``), ``grid_pitch`` and ``grid_jitter`` (``grid``),
     ``clusters`` and ``cluster_spread`` (``clusters``).  ``occlusion`` = [lo,
@@ -105,7 +412,7 @@ class ObjectSpec:
     fills: tuple[str, ...] = FILLS
     outline: float = 0.15
     stroke: tuple[float, float] = (1.5, 4.0)
-    sides: tuple[int, int] = SIDES  # polygon sides; these five keep the kinds apart (synthgen.kinds)
+    sides: tuple[int, int] = SIDES  # polygon sides; these five keep the kinds apart (synthgen.scene.kinds)
     points: tuple[int, int] = POINTS  # star points
     inner: tuple[float, float] = STAR_INNER  # star inner / outer radius
     hole: tuple[float, float] = RING_HOLE  # ring hole / outer size

@@ -1,7 +1,8 @@
 """Errors that mean "the user gave bad input" and the checks that raise them.
 
 The command-line tool turns every :class:`UserError` into a one-line message on
-stderr and exit code 2; anything else is an unexpected failure (exit 1).
+stderr and exit code 2; anything else is an unexpected failure (exit 1), among them
+:class:`OutputWriteError` (the disk is full, a directory is not writable).
 Messages name the config key or file, the rule, and the value::
 
     config key 'objects.size' must be [min, max] with 0 < min <= max (got [8, 4])
@@ -10,6 +11,7 @@ Messages name the config key or file, the rule, and the value::
 from __future__ import annotations
 
 import math
+import numbers
 from collections.abc import Sequence
 
 __all__ = [
@@ -22,6 +24,10 @@ __all__ = [
     "as_tuples",
     "make_output_dir",
     "require_extra",
+    "OutputWriteError",
+    "bad_record",
+    "is_int",
+    "is_number",
 ]
 
 
@@ -55,6 +61,26 @@ class ConfigError(UserError, ValueError):
         super().__init__(msg)
 
 
+class OutputWriteError(Exception):
+    """Writing the output failed (disk full, permission denied...): exit code 1.
+
+    Parameters
+    ----------
+    path : str or Path
+        The file or directory that could not be written.
+    reason : str
+        The system's reason, e.g. ``"No space left on device"``.
+    """
+
+    def __init__(self, path, reason: str):
+        self.path = str(path)
+        self.reason = reason
+        super().__init__(
+            f"cannot write {path}: {reason}; the images finished so far are kept, "
+            "run the same command with --resume to continue"
+        )
+
+
 class InputFileError(UserError):
     """An input file is missing, unreadable or malformed.
 
@@ -67,6 +93,18 @@ class InputFileError(UserError):
         self.problem = problem
         super().__init__(f"{path}: {problem}")
 
+
+def bad_record(path, record: str, rule: str, value: object) -> InputFileError:
+    """An :class:`InputFileError` that also carries ``record``, ``rule`` and ``value``.
+
+    Readers of input files raise it so that :mod:`synthgen.formats.check` can report the parts apart.
+    """
+    text = repr(value)
+    if len(text) > 60:
+        text = text[:57] + "..."
+    err = InputFileError(path, f"{record}: {rule} (got {text})" if record else f"{rule} (got {text})")
+    err.record, err.rule, err.value = record, rule, value
+    return err
 
 def make_output_dir(path) -> None:
     """Create output directory ``path`` and its parents; a path that cannot be one is an :class:`InputFileError`.
@@ -109,8 +147,20 @@ def _show(value: object) -> str:
     return text if len(text) <= 80 else text[:77] + "..."
 
 
-def _is_number(v: object) -> bool:
-    return isinstance(v, (int, float)) and not isinstance(v, bool)
+def is_int(v: object) -> bool:
+    """Whether ``v`` is an integer, a numpy one included (``True``/``False`` are not).
+
+    Examples
+    --------
+    >>> is_int(3), is_int(3.0), is_int(True)
+    (True, False, False)
+    """
+    return isinstance(v, numbers.Integral) and not isinstance(v, bool)
+
+
+def is_number(v: object) -> bool:
+    """Whether ``v`` is a real number, a numpy one included (``True``/``False`` are not)."""
+    return isinstance(v, numbers.Real) and not isinstance(v, bool)
 
 
 def as_tuples(spec) -> None:
@@ -156,7 +206,7 @@ def check_number(
     """
     kind = "a whole number" if integer else "a number"
     rule = f"must be {kind}{_bounds_text(lo, hi, lo_open, hi_open)}"
-    ok = _is_number(value) and math.isfinite(value)
+    ok = is_number(value) and math.isfinite(value)
     if ok and integer and value != int(value):
         ok = False
     if ok and lo is not None and (value <= lo if lo_open else value < lo):
@@ -192,7 +242,7 @@ def check_range(
     ok = isinstance(value, (tuple, list)) and len(value) == 2
     if ok:
         a, b = value
-        ok = _is_number(a) and _is_number(b) and math.isfinite(a) and math.isfinite(b) and a <= b
+        ok = is_number(a) and is_number(b) and math.isfinite(a) and math.isfinite(b) and a <= b
         if ok and integer:
             ok = a == int(a) and b == int(b)
         if ok and lo is not None:

@@ -20,13 +20,13 @@ Box kinds (each defined by exactly one function)
 ------------------------------------------------
 * **exact box**: the tight box of the continuous shape, clipped to the canvas
   (:func:`clip_boxes` applied to a shape's analytic box, see
-  :mod:`synthgen.shapes`).
+  :mod:`synthgen.scene.shapes`).
 * **visible box**: the tight box of the part of an object on the canvas that
   no object drawn above it hides (objects left out of the picture, hidden or
   erased, hide nothing), computed from the continuous outlines
-  (:func:`synthgen.visible.visible_box`): exact to floating precision where
+  (:func:`synthgen.scene.visible.visible_box`): exact to floating precision where
   its sides lie on polygon edges or vertices, and at most
-  :data:`synthgen.visible.TOLERANCE` (1e-3) px outside the true side where
+  :data:`synthgen.scene.visible.TOLERANCE` (1e-3) px outside the true side where
   they lie on a curve.  It equals the exact box when nothing hides the object.
 * **pixel box**: the tight box of the pixels whose coverage is above zero
   (:func:`mask_box`).
@@ -50,6 +50,11 @@ __all__ = [
     "mask_box",
     "boxes_valid",
     "box_intersection",
+    "box_longer_side",
+    "half_extents",
+    "overlapping_pairs",
+    "box_relations",
+    "group_max_overlap",
 ]
 
 
@@ -295,3 +300,157 @@ def mask_box(mask, origin: tuple[float, float] = (0.0, 0.0), scale: float = 1.0)
         ],
         dtype=np.float64,
     )
+
+
+def box_longer_side(boxes) -> np.ndarray:
+    """The longer side ``max(x1 - x0, y1 - y0)`` of each box, px, shape (N,).
+
+    Examples
+    --------
+    >>> box_longer_side([[0, 0, 4, 2], [1, 1, 2, 6]]).tolist()
+    [4.0, 5.0]
+    """
+    b = as_boxes(boxes)
+    return np.maximum(b[:, 2] - b[:, 0], b[:, 3] - b[:, 1])
+
+
+def half_extents(boxes) -> np.ndarray:
+    """Half width and half height of each box, shape (N, 2).
+
+    Examples
+    --------
+    >>> half_extents([[0, 0, 4, 2]]).tolist()
+    [[2.0, 1.0]]
+    """
+    b = as_boxes(boxes)
+    return np.stack([(b[:, 2] - b[:, 0]) / 2.0, (b[:, 3] - b[:, 1]) / 2.0], axis=1)
+
+
+def overlapping_pairs(boxes: np.ndarray, *, step: int = 128):
+    """Index pairs ``(i, j)``, ``i < j``, of boxes (N, 4) whose intersection has positive area, a block at a time.
+
+    Yields ``(i, j)`` int arrays.  Boxes are sorted by ``x0``; a block of
+    ``step`` of them is tested only against the later boxes that start before
+    the block's largest ``x1``, so the work follows the number of near pairs,
+    not N^2, and memory one block's pairs.
+
+    Examples
+    --------
+    >>> b = np.array([[0, 0, 2, 2], [1, 1, 3, 3], [2, 0, 4, 2.0]])
+    >>> [(i.tolist(), j.tolist()) for i, j in overlapping_pairs(b)]
+    [([0, 1], [1, 2])]
+    """
+    n = len(boxes)
+    if n < 2:
+        return
+    order = np.argsort(boxes[:, 0], kind="stable")
+    b = boxes[order]
+    x0, y0, x1, y1 = b[:, 0], b[:, 1], b[:, 2], b[:, 3]
+    for s0 in range(0, n, step):
+        s1 = min(n, s0 + step)
+        stop = int(np.searchsorted(x0, x1[s0:s1].max(), side="left"))
+        if stop <= s0 + 1:
+            continue
+        cols = slice(s0, stop)
+        ov = (
+            (x0[cols][None, :] < x1[s0:s1, None])
+            & (y0[s0:s1, None] < y1[cols][None, :])
+            & (y0[cols][None, :] < y1[s0:s1, None])
+        )  # (rows, cols); x0[row] <= x0[col] holds by the sort
+        r, c = np.nonzero(ov)
+        r, c = r + s0, c + s0
+        keep = c > r
+        a, z = order[r[keep]], order[c[keep]]
+        yield np.minimum(a, z), np.maximum(a, z)
+
+
+def box_relations(boxes, groups=None) -> tuple[np.ndarray, np.ndarray]:
+    """Per box: its largest IoU with another box of its group, and how many boxes of the group it overlaps.
+
+    Parameters
+    ----------
+    boxes : array_like of shape (N, 4)
+    groups : array_like of int, shape (N,), optional
+        Group of each box (e.g. its image id); None: one group.
+
+    Returns
+    -------
+    best : ndarray of float64, shape (N,)
+        0 for a box that overlaps no other.
+    count : ndarray of int64, shape (N,)
+        Boxes of the group whose IoU with it is above 0.
+
+    Examples
+    --------
+    >>> b = np.array([[0, 0, 2, 2], [1, 1, 3, 3], [5, 5, 6, 6], [0, 0, 2, 2.0]])
+    >>> best, count = box_relations(b, [0, 0, 0, 1])
+    >>> best.round(4).tolist(), count.tolist()
+    ([0.1429, 0.1429, 0.0, 0.0], [1, 1, 0, 0])
+    """
+    b = as_boxes(boxes)
+    n = len(b)
+    best = np.zeros(n)
+    count = np.zeros(n, dtype=np.int64)
+    if groups is None:
+        members = [np.arange(n)]
+    else:
+        g = np.asarray(groups)
+        order = np.argsort(g, kind="stable")
+        starts = np.flatnonzero(np.r_[True, g[order][1:] != g[order][:-1]]) if n else np.zeros(0, int)
+        members = np.split(order, starts[1:])
+    for idx in members:
+        if len(idx) < 2:
+            continue
+        sub = b[idx]
+        # Only boxes that overlap have a positive IoU: compute it for those pairs alone.
+        for ii, jj in overlapping_pairs(sub):
+            iou = box_iou(sub[ii], sub[jj])  # (P,)
+            gi, gj = idx[ii], idx[jj]
+            np.maximum.at(best, gi, iou)
+            np.maximum.at(best, gj, iou)
+            hit = iou > 0
+            count += np.bincount(gi[hit], minlength=n) + np.bincount(gj[hit], minlength=n)
+    return best, count
+
+
+def group_max_overlap(a, a_group, b, b_group, exclude=None, measure=None) -> np.ndarray:
+    """Largest overlap of each box of ``a`` with the boxes of ``b`` in its group, skipping ``exclude``.
+
+    Parameters
+    ----------
+    a : ndarray of shape (P, 4)
+    a_group : ndarray of int, shape (P,)
+    b : ndarray of shape (N, 4)
+    b_group : ndarray of int, shape (N,)
+    exclude : ndarray of int, shape (P,), optional
+        Index into ``b`` to leave out for each box of ``a`` (-1: none).
+    measure : callable, optional
+        Element-wise overlap of box pairs; default :func:`box_iou`
+        (:func:`box_ioa` gives the share of each ``a`` box covered).
+
+    Returns
+    -------
+    ndarray of shape (P,), 0 where no other box of ``b`` shares the group.
+
+    Examples
+    --------
+    >>> a = np.array([[0, 0, 2, 2.0]]); b = np.array([[1, 0, 3, 2], [0, 0, 2, 2.0]])
+    >>> group_max_overlap(a, np.array([0]), b, np.array([0, 1])).tolist()
+    [0.3333333333333333]
+    """
+    measure = box_iou if measure is None else measure
+    out = np.zeros(len(a))
+    if len(a) == 0 or len(b) == 0:
+        return out
+    order = np.argsort(b_group, kind="stable")
+    sorted_group = b_group[order]
+    start = np.searchsorted(sorted_group, a_group, side="left")
+    cnt = np.searchsorted(sorted_group, a_group, side="right") - start  # (P,)
+    pi = np.repeat(np.arange(len(a)), cnt)  # one row per (box of a, box of b in its group) pair
+    offset = np.arange(cnt.sum()) - np.repeat(np.cumsum(cnt) - cnt, cnt)
+    gi = order[np.repeat(start, cnt) + offset]
+    v = measure(a[pi], b[gi])
+    if exclude is not None:
+        v[gi == exclude[pi]] = 0.0
+    np.maximum.at(out, pi, v)
+    return out

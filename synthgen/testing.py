@@ -19,7 +19,6 @@ shares none of its code.
 
 from __future__ import annotations
 
-import math
 from pathlib import Path
 
 import numpy as np
@@ -211,7 +210,7 @@ def small_dataset(path, *, formats: tuple[str, ...] = ("coco",), **kwargs) -> Pa
 
     ``formats`` may add the other formats ``synthgen export`` writes (e.g. ``("coco", "voc", "yolo")``).
     """
-    from synthgen.dataset import make_dataset
+    from synthgen.run.make import make_dataset
 
     path = Path(path)
     make_dataset(small_config(**kwargs), path, workers=1)
@@ -567,7 +566,7 @@ if pytest is not None:
         only true positives at IoU 0.7-0.95.
         """
         from synthgen.jitter import DetectorSpec
-        from synthgen.jitter_coco import jitter_dataset
+        from synthgen.jitter.coco import jitter_dataset
 
         opts = _options(request)
         detector = dict(opts.pop("detector", {}))
@@ -577,7 +576,9 @@ if pytest is not None:
         path = _settle(small_dataset, tmp_path / "synth", **opts)
         import json
 
-        coco = json.loads((path / "annotations.json").read_text())
+        from synthgen.formats.dataset_dir import annotations_path
+
+        coco = json.loads(annotations_path(path).read_text())
         predictions, truth, _ = jitter_dataset(coco, seed=opts.get("seed", 0), spec=spec)
         return coco, predictions, truth
 

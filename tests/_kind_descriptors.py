@@ -1,8 +1,8 @@
 """Shape descriptors measured by scikit-image, and a nearest-centroid classifier over them.
 
 The outside reference for "kinds are told apart by their pixels" (tests/test_kinds.py) and for
-the measurement behind synthgen.kinds.IDENTIFIABLE_BREADTH (tools/measure_identifiable.py).
-Each object is rendered alone (synthgen.shapes.coverage) and described by scikit-image:
+the measurement behind synthgen.scene.kinds.IDENTIFIABLE_BREADTH (tools/measure_identifiable.py).
+Each object is rendered alone (synthgen.scene.shapes.coverage) and described by scikit-image:
 
 * ``skimage.measure.regionprops``: the holes of the pixels the object touches at all
   (``image_filled``), so that even a thin outline encloses its hole; the share of the
@@ -29,8 +29,9 @@ import numpy as np
 from skimage.measure import moments_central, regionprops
 from skimage.morphology import dilation
 
-from synthgen import kinds
-from synthgen.shapes import KINDS, Shape, coverage, exact_box, natural_aspect
+from synthgen.scene import kinds
+from synthgen.scene.coverage import coverage
+from synthgen.scene.shapes import KINDS, Shape, exact_box, natural_aspect
 
 #: Names of the descriptors, in order.
 NAMES = ("solidity", "holes", "ellipse_fill", "radial", "fold3", "fold4", "fold5to8")

@@ -1,7 +1,7 @@
-"""An independent computation of visible boxes, for the tests of synthgen.visible.
+"""An independent computation of visible boxes, for the tests of synthgen.scene.visible.
 
 Each drawn region is rebuilt with shapely from the shape's parameters as the
-module docstring of synthgen.shapes states them (own frame of width ``aspect``
+module docstring of synthgen.scene.shapes states them (own frame of width ``aspect``
 and height 1, turned by ``angle``, scaled so that the longer side of the turned
 box is ``size``, centred on ``(cx, cy)``), by shapely's affine transforms and
 without synthgen's geometry code; curves are dense inscribed polygons

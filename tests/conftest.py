@@ -5,7 +5,7 @@ from __future__ import annotations
 import pytest
 
 from synthgen.config import load_config
-from synthgen.dataset import make_dataset
+from synthgen.run.make import make_dataset
 
 SMALL = [
     "count=6",
@@ -34,6 +34,6 @@ def small_dataset(tmp_path_factory, small_config):
 @pytest.fixture
 def pool_always(monkeypatch):
     """Worker processes even for a handful of images (runs this small normally render in process)."""
-    import synthgen.dataset
+    import synthgen.run.backends
 
-    monkeypatch.setattr(synthgen.dataset, "MIN_IMAGES_PER_WORKER", 1)
+    monkeypatch.setattr(synthgen.run.backends, "MIN_IMAGES_PER_WORKER", 1)

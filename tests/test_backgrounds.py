@@ -1,4 +1,4 @@
-"""Tests for synthgen.backgrounds: shapes, determinism, each kind's defining property."""
+"""Tests for synthgen.scene.backgrounds: shapes, determinism, each kind's defining property."""
 
 import json
 import math
@@ -7,7 +7,8 @@ import numpy as np
 import pytest
 from scipy import ndimage
 
-from synthgen.backgrounds import (
+from synthgen.errors import ConfigError
+from synthgen.scene.backgrounds import (
     BACKGROUND_KINDS,
     BackgroundSpec,
     checker,
@@ -21,7 +22,6 @@ from synthgen.backgrounds import (
     stripes,
     value_noise,
 )
-from synthgen.errors import ConfigError
 
 H, W = 120, 160
 
@@ -372,3 +372,11 @@ def test_misspelt_kind_gets_a_suggestion():
     """A near-miss kind name is answered with the closest valid one."""
     with pytest.raises(ConfigError, match="did you mean 'stripes'"):
         BackgroundSpec(kind="stripe")
+
+
+def test_every_schema_background_kind_has_one_drawer():
+    """The schema's background kinds (config.py) and the drawers of scene/backgrounds.py name the same kinds."""
+    from synthgen.config import BACKGROUND_KINDS
+    from synthgen.scene import backgrounds
+
+    assert tuple(backgrounds._DRAW) == BACKGROUND_KINDS[:-1]  # "mix" draws one of the others

@@ -10,7 +10,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from synthgen.shapes import KINDS, Shape, coverage, coverage_many
+from synthgen.scene.coverage import coverage, coverage_many
+from synthgen.scene.shapes import KINDS, Shape
 
 
 def _tiny_scene(seed: int, n: int, lo: float, hi: float, height: int = 60, width: int = 80):
@@ -62,15 +63,15 @@ def test_coverage_many_rejects_bad_stroke():
 
 def _region_arrays(region) -> list:
     """Every number that defines a region, in a fixed order (for exact comparison)."""
-    from synthgen import shapes as sh
+    from synthgen.scene.regions import ConvexRegion, DifferenceRegion, EllipseRegion, UnionRegion
 
-    if isinstance(region, sh._Convex):
+    if isinstance(region, ConvexRegion):
         return [np.asarray(region.nx), np.asarray(region.ny), np.asarray(region.c)]
-    if isinstance(region, sh._Union):
+    if isinstance(region, UnionRegion):
         return [a for p in region.parts for a in _region_arrays(p)]
-    if isinstance(region, sh._Diff):
+    if isinstance(region, DifferenceRegion):
         return _region_arrays(region.keep) + _region_arrays(region.cut)
-    if isinstance(region, sh._Ellipse):
+    if isinstance(region, EllipseRegion):
         return [np.array([region.ex, region.ey, region.cos, region.sin, region.a, region.b])]
     raise AssertionError(f"unexpected region {region!r}")
 
@@ -78,7 +79,7 @@ def _region_arrays(region) -> list:
 @pytest.mark.parametrize("seed", range(4))
 def test_bulk_geometry_equals_one_by_one(seed, monkeypatch):
     """Geometry built in bulk (boxes, areas, half-planes, vertices) equals the one-shape build exactly."""
-    from synthgen import shapes as sh
+    from synthgen.scene import shapes as sh
 
     monkeypatch.setattr(sh, "_BULK_BUILD_MIN", 1)  # every group in bulk, even of one shape
     shapes, _strokes, _h, _w = _tiny_scene(seed, 400, 0.5, 200.0)
@@ -132,12 +133,14 @@ def _styled_scene(seed: int, n: int):
 @pytest.mark.parametrize("seed", range(8))
 def test_bulk_drawing_equals_one_shape_at_a_time(seed, monkeypatch):
     """compose_shapes judging occlusion and drawing in bulk gives the same image bytes, boxes, areas, facts and masks."""
-    from synthgen import scene
+    from synthgen.scene import composer as scene
 
     canvas, shapes, styles, extras, config = _styled_scene(seed, 150)
     bulk = scene.compose_shapes(canvas, shapes, config, rng=np.random.default_rng(seed), styles=styles, extras=extras)
     assert len(bulk.ignored.facts) > 0 and bulk.info["dropped"]["hidden"] > 0
-    monkeypatch.setattr(scene, "_BULK_DRAW_MIN", 10**9)
+    from synthgen.scene import raster
+
+    monkeypatch.setattr(raster, "_BULK_DRAW_MIN", 10**9)
     monkeypatch.setattr(scene, "_BULK_WALK_MIN", 10**9)
     monkeypatch.setattr(scene, "_CONTACT_PAIRS", -1)  # no shortcuts for patches that meet nothing above or below
     plain = scene.compose_shapes(canvas, shapes, config, rng=np.random.default_rng(seed), styles=styles, extras=extras)
@@ -178,7 +181,7 @@ def test_coverage_many_sample_masks_equal_inside(seed):
 @pytest.mark.parametrize("seed", range(4))
 def test_clear_sides_equal_a_double_loop(seed):
     """The patches the walk treats as meeting nothing above (or below) are exactly those (plain double loop)."""
-    from synthgen.scene import _clear_sides
+    from synthgen.scene.composer import _clear_sides
 
     rng = np.random.default_rng(seed)
     n = 300

@@ -1,21 +1,21 @@
-"""The batched paths of synthgen.visible and synthgen.occlusion equal their one-object paths bit for bit."""
+"""The batched paths of synthgen.scene.visible and synthgen.scene.occlusion equal their one-object paths bit for bit."""
 
 from __future__ import annotations
 
 import numpy as np
 import pytest
 
-from synthgen import shapes as shapes_mod
 from synthgen.config import load_config
 from synthgen.scene import render_scene
-from synthgen.shapes import Shape
-from synthgen.visible import _sides_in_view, _sides_in_view_many, visible_boxes
+from synthgen.scene import shapes as shapes_mod
+from synthgen.scene.shapes import Shape
+from synthgen.scene.visible import _sides_in_view, _sides_in_view_many, visible_boxes
 from tests.test_batch_paths import _tiny_scene
 
 
 def _with_above(shapes, strokes):
     """Each shape with the later shapes whose unclipped boxes meet its own (as the composer passes them)."""
-    boxes = np.array([shapes_mod._geom(s).box for s in shapes])
+    boxes = np.array([shapes_mod.shape_geometry(s).box for s in shapes])
     items = []
     for i, s in enumerate(shapes):
         b = boxes[i]
@@ -49,7 +49,7 @@ def test_sides_in_view_many_edge_cases():
 @pytest.mark.parametrize("overrides", [["objects.count=[60,60]"], ["objects.count=[400,400]", "objects.size=[2,8]"]])
 def test_visible_boxes_of_a_scene_equal_one_object_calls(overrides, monkeypatch):
     """Whole scenes: the boxes of all objects at once equal each object's own call on the one-object path."""
-    import synthgen.scene as scene_mod
+    import synthgen.scene.annotate as annotate_mod
 
     calls = []
 
@@ -57,13 +57,13 @@ def test_visible_boxes_of_a_scene_equal_one_object_calls(overrides, monkeypatch)
         calls.append((items, height, width))
         return visible_boxes(items, height, width)
 
-    monkeypatch.setattr(scene_mod, "visible_boxes", spy)
+    monkeypatch.setattr(annotate_mod, "visible_boxes", spy)
     render_scene(load_config(overrides=["background.kind=solid", *overrides]), 1)
     (items, h, w), = calls
     assert len(items) > 10
     many = visible_boxes(items, h, w)
     # the one-object path: each object's sides tested on their own
-    import synthgen.visible as visible_mod
+    import synthgen.scene.visible as visible_mod
 
     monkeypatch.setattr(visible_mod, "_sides_in_view_many", lambda its, hh, ww: np.array(
         [_sides_in_view(s, a, hh, ww) for s, a in its], dtype=bool).reshape(-1, 4))
@@ -75,7 +75,7 @@ def test_visible_boxes_of_a_scene_equal_one_object_calls(overrides, monkeypatch)
 @pytest.mark.parametrize("nb", [1, 2, 3, 4, 8])
 def test_set_bits_equals_the_sum_of_byte_counts(nb):
     """The 16-bit table gives each packed pixel the count of its bytes' set bits (int.bit_count, Python)."""
-    from synthgen.occlusion import _set_bits
+    from synthgen.scene.occlusion import _set_bits
 
     rng = np.random.default_rng(nb)
     packed = rng.integers(0, 256, (7, 5, nb), dtype=np.uint8)

@@ -4,9 +4,9 @@ import numpy as np
 import orjson
 import pytest
 
-from synthgen.check import Problem, check_dataset
 from synthgen.errors import InputFileError
 from synthgen.formats import export
+from synthgen.formats.check import Problem, check_dataset
 from tests._formats_helpers import make_dataset
 
 

@@ -12,9 +12,9 @@ import pytest
 from pycocotools import mask as cocomask
 from typer.testing import CliRunner
 
-from synthgen.check import check_dataset
 from synthgen.cli import app
 from synthgen.formats import export, voc, yolo
+from synthgen.formats.check import check_dataset
 from synthgen.formats.coco import xyxy_from_bbox
 
 SMALL = ["--count", "4", "--set", "canvas.width=64", "--set", "canvas.height=48", "--quiet", "--workers", "1"]

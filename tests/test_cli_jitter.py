@@ -91,6 +91,11 @@ def test_jitter_after_make(tmp_path):
         (["--miss", "0.6", "--relabel", "0.6"], "option '--miss' plus '--localization' plus '--relabel' must be at most 1"),
         (["--modes", "shift,twist"], "option '--modes' must be one of shift, grow, shrink, aspect, free (got 'twist')"),
         (["--seed", "-3"], "option '--seed' must be a whole number >= 0 (got -3)"),
+        (["--miss", "0.5", "--duplicates", "0.6"], "option '--duplicates' must be at most 1 - miss - localization"),
+        (["--near-iou", "0.5,0.2"], "option '--near-iou' must be [min, max]"),
+        (["--background-size", "0,0.2"], "option '--background-size' must be [min, max]"),
+        (["--background-iou", "0"], "option '--background-iou' must be a number in (0, 1]"),
+        (["--modes", ","], "option '--modes' must be a non-empty list of shift, grow, shrink, aspect, free (got [])"),
     ],
 )
 def test_bad_options_exit_2_and_write_nothing(tmp_path, args, pattern):
@@ -146,12 +151,35 @@ def test_missing_output_directory_exits_2(tmp_path):
     assert sorted(os.listdir(tmp_path)) == ["ds"]
 
 
+def test_every_spec_field_has_an_option_of_the_command():
+    """Errors name options through one field -> option table: it covers every DetectorSpec field, each a real option."""
+    import dataclasses
+
+    from synthgen import cli
+    from synthgen.jitter import DetectorSpec
+
+    command = next(c for c in cli.app.registered_commands if c.callback.__name__ == "jitter")
+    declared = {opt for p in typer_params(command) for opt in p}
+    assert set(cli._JITTER_OPTIONS) == {f.name for f in dataclasses.fields(DetectorSpec)}
+    assert set(cli._JITTER_OPTIONS.values()) <= declared
+
+
+def typer_params(command):
+    """The option strings of a registered typer command, per parameter."""
+    import typer.main
+
+    click_command = typer.main.get_command_from_info(
+        command, pretty_exceptions_short=True, rich_markup_mode=None
+    )
+    return [p.opts for p in click_command.params]
+
+
 def test_option_defaults_are_the_library_defaults(tmp_path):
     """Without options the command runs the library's default detector spec."""
     import dataclasses
 
     from synthgen.jitter import DetectorSpec
-    from synthgen.jitter_coco import clear_spec
+    from synthgen.jitter.coco import clear_spec
 
     ds = dataset(tmp_path / "ds")
     res = run("jitter", ds, "--out", tmp_path / "p.json")

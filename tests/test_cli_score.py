@@ -144,8 +144,9 @@ def test_predictions_and_pred_dir_together_exit_2(small_dataset, tmp_path):
 
 def test_output_paths_are_checked_before_scoring(tmp_path):
     """--json into a missing folder, or --plot naming a folder, exit 2 naming the option; nothing is written."""
-    from synthgen.cli import app
     from typer.testing import CliRunner
+
+    from synthgen.cli import app
 
     out = tmp_path / "d"
     runner = CliRunner()

@@ -139,9 +139,11 @@ def test_shipped_presets_load(path):
 def test_more_objects_than_the_canvas_can_show_is_refused(overrides, room):
     """objects.count beyond what the canvas can ever show annotated is one error naming the key and the canvas."""
     assert load_config(overrides=[*overrides, f"objects.count=[{room},{room}]"]).objects.count[0] == room
-    with pytest.raises(ConfigError, match=r"config key 'objects.count' must ask for at most %d objects per image "
-                       r"on a 64x\d\d canvas \(each annotated object needs .*\) \(got \[%d, %d\]\)" % (room, room + 1,
-                                                                                                      room + 1)):
+    message = (
+        rf"config key 'objects.count' must ask for at most {room} objects per image "
+        rf"on a 64x\d\d canvas \(each annotated object needs .*\) \(got \[{room + 1}, {room + 1}\]\)"
+    )
+    with pytest.raises(ConfigError, match=message):
         load_config(overrides=[*overrides, f"objects.count=[{room + 1},{room + 1}]"])
 
 

@@ -10,9 +10,9 @@ import shutil
 import numpy as np
 import pytest
 
-from synthgen.dataset import make_dataset
 from synthgen.errors import UserError
 from synthgen.formats.images import read_image
+from synthgen.run.make import make_dataset
 from synthgen.scene import render_scene
 
 
@@ -176,8 +176,9 @@ def test_overwrite_removes_what_the_earlier_run_and_export_wrote(tmp_path, small
 def test_overwrite_of_an_unfinished_run_uses_its_journal(tmp_path, small_config):
     """An interrupted run (journal, no manifest) is replaced: its journal lists its images."""
     from synthgen.config import load_config
-    from synthgen.dataset import prepare_output, render_block
-    from synthgen.shards import Shard, journal_path
+    from synthgen.run.journal import Shard, journal_path
+    from synthgen.run.outdir import prepare_output
+    from synthgen.run.render import render_block
 
     other = load_config(overrides=["count=4", "canvas.width=32", "canvas.height=32"])
     out = tmp_path / "ds"
@@ -197,8 +198,8 @@ def _valid_overrides():
     """A hypothesis strategy of --set overrides that make a valid tiny config."""
     from hypothesis import strategies as st
 
-    from synthgen.backgrounds import BACKGROUND_KINDS
-    from synthgen.shapes import FILLS, KINDS
+    from synthgen.scene.backgrounds import BACKGROUND_KINDS
+    from synthgen.scene.shapes import FILLS, KINDS
 
     def pair(lo, hi, *, integer=False):
         elem = st.integers(lo, hi) if integer else st.floats(lo, hi, allow_nan=False)
@@ -305,8 +306,8 @@ def test_resume_with_other_formats_is_refused(tmp_path, small_config):
 def test_manifest_counts_objects_and_ignore_regions_apart(tmp_path):
     """counts.objects are the iscrowd-0 annotations, counts.ignored the iscrowd-1 ones; shards merge to the same."""
     from synthgen.config import load_config
-    from synthgen.dataset import merge_shards
-    from synthgen.shards import Shard
+    from synthgen.run.journal import Shard
+    from synthgen.run.merge import merge_shards
 
     cfg = load_config("configs/tiny.toml", ["count=3", "objects.count=[300,400]"])
     summary = make_dataset(cfg, tmp_path / "one", workers=1)

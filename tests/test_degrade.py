@@ -1,4 +1,4 @@
-"""Tests for synthgen.degrade: each degradation against an outside reference, and the pipeline."""
+"""Tests for synthgen.scene.degrade: each degradation against an outside reference, and the pipeline."""
 
 import io
 import json
@@ -13,8 +13,9 @@ from PIL import Image
 from scipy import stats
 from skimage.filters import gaussian as sk_gaussian
 
-from synthgen.backgrounds import BackgroundSpec, render_background
-from synthgen.degrade import (
+from synthgen.errors import ConfigError
+from synthgen.scene.backgrounds import BackgroundSpec, render_background
+from synthgen.scene.degrade import (
     DEGRADE_ORDER,
     BlurSpec,
     BrightnessSpec,
@@ -31,7 +32,6 @@ from synthgen.degrade import (
     jpeg_roundtrip,
     vignette,
 )
-from synthgen.errors import ConfigError
 
 H, W = 120, 160
 

@@ -12,7 +12,6 @@ from synthgen.formats import coco as cf
 from synthgen.formats import rle
 
 
-
 def _tiny():
     m = np.zeros((6, 8), bool)
     m[2:5, 3:7] = True
@@ -137,3 +136,46 @@ def test_written_file_has_the_mode_open_would_give(tmp_path):
     cf.write_coco(tmp_path / "a.json", {"images": [], "annotations": [], "categories": []})
     # common practice: new files get 0666 less the umask (POSIX open(2) with O_CREAT)
     assert (tmp_path / "a.json").stat().st_mode & 0o777 == _plain_file_mode()
+
+
+def test_coco_problems_hold_the_bbox_and_rle_conventions():
+    """The one COCO validator: bbox is [x, y, width, height] in pixels from the image's top-left corner and an RLE's
+    size is [height, width] (COCO data format, cocodataset.org "Data format"; pycocotools mask API)."""
+    doc = _tiny()
+    assert list(cf.coco_problems(doc)) == []
+    doc["annotations"][0]["bbox"] = [0.0, 0.0, 8.0, 6.0]  # exactly the whole 8 x 6 image
+    assert list(cf.coco_problems(doc)) == []
+    doc["annotations"][0]["bbox"] = [1.0, 0.0, 8.0, 6.0]  # one pixel past the right edge
+    assert [r for _, r, _ in cf.coco_problems(doc)] == ["bbox must lie inside the image [0, 8] x [0, 6]"]
+    doc = _tiny()
+    seg = doc["annotations"][0]["segmentation"]
+    seg["size"] = seg["size"][::-1]  # [width, height]: the wrong order
+    assert [r for _, r, _ in cf.coco_problems(doc)] == ["RLE size must be the image's [height, width] [6, 8]"]
+
+
+def test_coco_problems_start_with_the_structure_and_stop_at_a_broken_top_level():
+    """coco_problems yields structure_problems first; a broken top level ends the walk (nothing else can be read)."""
+    doc = _tiny()
+    doc["annotations"].append({"id": 1, "image_id": 9, "category_id": 1, "bbox": [0, 0, 1, 1], "iscrowd": 0})
+    assert [(r, rule) for r, rule, _ in cf.coco_problems(doc)] == [
+        ("annotations[0] (id 1)", "annotations ids must be unique"),
+        ("annotations[1] (id 1)", "annotations ids must be unique"),
+        ("annotations[1] (id 1)", "image_id must name an image"),
+    ]
+    assert list(cf.coco_problems({"images": 3, "annotations": [], "categories": []})) == [
+        ("top level", "'images' must be a list", 3)
+    ]
+
+
+def test_check_reports_exactly_what_coco_problems_finds(tmp_path):
+    """synthgen check has no COCO rules of its own: on a COCO file alone its problems are coco_problems' plus image files."""
+    from synthgen.formats.check import check_dataset
+
+    doc = _tiny()
+    doc["annotations"][0]["bbox"] = [7.0, 2.0, 4.0, 3.0]
+    doc["categories"].append({"id": 1, "name": "ring"})
+    path = tmp_path / "gt.json"
+    path.write_bytes(orjson.dumps(doc))
+    report = check_dataset(path)
+    got = [(p.record, p.rule) for p in report.problems if p.rule != "image file must exist"]
+    assert got == [(r, rule) for r, rule, _ in cf.coco_problems(doc)] and got

@@ -154,7 +154,7 @@ def test_masks_of_annotations_without_segmentation_are_refused_before_writing(tm
 
 def test_export_to_another_directory_is_a_dataset_of_its_own(tmp_path):
     """export --out OTHER links the images and writes annotations.json, so check passes on OTHER alone."""
-    from synthgen.check import check_dataset
+    from synthgen.formats.check import check_dataset
 
     make_dataset(tmp_path / "d")
     done = export(tmp_path / "d", ["yolo"], out=tmp_path / "o", split={"a": 2 / 3, "b": 1 / 3})

@@ -1,13 +1,11 @@
 """Instance masks: id PNGs and per-object RLE lines."""
 
 import numpy as np
-import pytest
 from PIL import Image
 from pycocotools import mask as cocomask
 
 from synthgen.formats import masks, rle
 from tests._formats_helpers import build_coco, mark_ignored
-
 
 IMAGES = [(40, 30, [((3, 2, 7, 5), 1), ((5, 3, 20, 25), 2), ((0, 0, 40, 1), 3)]), (40, 30, [])]
 

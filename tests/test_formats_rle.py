@@ -10,7 +10,6 @@ from pycocotools import mask as cocomask
 from synthgen.formats import rle
 
 
-
 def _reference(mask: np.ndarray) -> dict:
     # REFERENCE.md: COCO JSON -- pycocotools wants Fortran-ordered uint8 and returns bytes counts.
     return cocomask.encode(np.asfortranarray(mask.astype(np.uint8)))

@@ -7,6 +7,7 @@ import pytest
 from shapely.geometry import box as sbox
 from skimage.measure import regionprops
 
+from synthgen import geometry
 from synthgen.geometry import (
     as_boxes,
     box_area,
@@ -111,3 +112,56 @@ def test_clip_boxes_matches_shapely_intersection_with_the_canvas():
         assert g.tolist() == list(sbox(*b).intersection(canvas).bounds)  # reference: shapely
     outside = clip_boxes([[120, 10, 130, 20]], 100, 80)
     assert boxes_valid(outside).tolist() == [False]
+
+
+def _small_boxes(n, rng):
+    """Boxes of 0.5 to 15 px on a 50 px field, so that some overlap and some do not."""
+    xy = rng.uniform(0, 50.0, size=(n, 2))
+    return np.concatenate([xy, xy + rng.uniform(0.5, 15.0, size=(n, 2))], axis=1)
+
+
+def test_box_relations_equal_a_plain_double_loop():
+    """Largest IoU and overlap count per box within its group equal a double loop over shapely boxes."""
+    rng = np.random.default_rng(4)
+    b = _small_boxes(300, rng)
+    g = rng.integers(0, 5, size=300)
+    best, count = geometry.box_relations(b, g)
+    polys = [sbox(*row) for row in b]  # GEOS areas: an outside reference for the IoU
+    for i in range(len(b)):
+        ious = [
+            polys[i].intersection(polys[j]).area / polys[i].union(polys[j]).area
+            for j in range(len(b))
+            if j != i and g[j] == g[i]
+        ]
+        assert best[i] == pytest.approx(max(ious, default=0.0), abs=1e-12)
+        assert count[i] == sum(v > 0 for v in ious)
+
+
+def test_box_relations_of_one_group_and_of_none():
+    """groups=None is one group; a lone box has no relation; touching boxes do not overlap."""
+    b = np.array([[0, 0, 2, 2], [2, 0, 4, 2], [1, 0, 3, 2.0]])
+    best, count = geometry.box_relations(b)
+    assert best.tolist() == pytest.approx([1 / 3, 1 / 3, 1 / 3])
+    assert count.tolist() == [1, 1, 2]
+    best, count = geometry.box_relations(b[:1])
+    assert best.tolist() == [0.0] and count.tolist() == [0]
+
+
+def test_group_max_overlap_equals_a_double_loop():
+    """Each box's largest IoU (or IoA) with the other set's boxes of its group, skipping one, as a loop gives it."""
+    rng = np.random.default_rng(8)
+    a, b = _small_boxes(60, rng), _small_boxes(80, rng)
+    ga, gb = rng.integers(0, 4, 60), rng.integers(0, 4, 80)
+    skip = rng.integers(-1, 80, 60)
+    for measure in (geometry.box_iou, geometry.box_ioa):
+        got = geometry.group_max_overlap(a, ga, b, gb, exclude=skip, measure=measure)
+        for i in range(60):
+            vals = [measure(a[i : i + 1], b[j : j + 1])[0] for j in range(80) if gb[j] == ga[i] and j != skip[i]]
+            assert got[i] == max(vals, default=0.0)
+
+
+def test_longer_side_and_half_extents_of_a_pixel_block():
+    """A 4x4 pixel block's box has longer side 4 and half extents 2 (common practice: half-open boxes)."""
+    box = geometry.mask_box(np.ones((4, 4), bool))
+    assert geometry.box_longer_side([box]).tolist() == [4.0]
+    assert geometry.half_extents([box]).tolist() == [[2.0, 2.0]]

@@ -296,7 +296,7 @@ def test_gaussian_center_size_log_spread():
     """The log of each side's scale factor has standard deviation 'size'; centres move by 'center' * side."""
     b = big_sample()
     r = gaussian_center_size(b, 0.1, 0.2, rng=np.random.default_rng(0))
-    w, h = b[:, 2] - b[:, 0], b[:, 3] - b[:, 1]
+    w = b[:, 2] - b[:, 0]
     w2, h2 = r.boxes[:, 2] - r.boxes[:, 0], r.boxes[:, 3] - r.boxes[:, 1]
     assert np.log(w2 / w).std() == pytest.approx(0.2, rel=0.03)
     dcx = (r.boxes[:, 0] + r.boxes[:, 2] - b[:, 0] - b[:, 2]) / 2 / w
@@ -626,3 +626,18 @@ def test_background_boxes_without_truth_fall_back_to_a_fraction_of_the_image():
     out = background_boxes(np.zeros((0, 4)), 40, rng=np.random.default_rng(2), canvas=(100, 80))
     side = np.sqrt((out.boxes[:, 2] - out.boxes[:, 0]) * (out.boxes[:, 3] - out.boxes[:, 1]))
     assert side.min() >= 0.05 * 80 - 1e-9 and side.max() <= 0.3 * 80 + 1e-9
+
+
+def test_documented_names_import_from_the_package():
+    """README (Boxes that are wrong by a known amount) names these functions of ``synthgen.jitter``;
+    the package re-exports every public name of its modules, and nothing private."""
+    import synthgen.jitter as pkg
+    from synthgen.jitter import detector, iou, models, noise
+
+    readme = ["to_iou", "duplicates", "background_boxes", "near_misses", "relabel", "gaussian_edges",
+              "uniform_shift_scale", "pad_with_noise", "simulate_detections", "DetectorSpec", "noise_padder"]
+    assert all(callable(getattr(pkg, name)) for name in readme)
+    modules = (iou, models, noise, detector)
+    assert sorted(pkg.__all__) == sorted(n for m in modules for n in m.__all__)
+    assert all(getattr(pkg, n) is getattr(m, n) for m in modules for n in m.__all__)
+    assert not any(n.startswith("_") for n in pkg.__all__)

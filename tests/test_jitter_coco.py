@@ -1,4 +1,4 @@
-"""Tests for synthgen.jitter_coco: simulated detections for a COCO dataset, its sidecar and its files."""
+"""Tests for synthgen.jitter.coco: simulated detections for a COCO dataset, its sidecar and its files."""
 
 from __future__ import annotations
 
@@ -9,8 +9,9 @@ import pytest
 import shapely
 
 from synthgen.errors import ConfigError, InputFileError, UserError
+from synthgen.formats.results import write_results
 from synthgen.jitter import DETECTION_KINDS, IOU_TOLERANCE, OUTCOMES, DetectorSpec
-from synthgen.jitter_coco import SIDECAR_FORMAT, jitter_dataset, jitter_files, truth_path_for, write_jitter_outputs
+from synthgen.jitter.coco import SIDECAR_FORMAT, jitter_dataset, jitter_files, truth_path_for
 from tests._coco_cases import coco_reference
 
 
@@ -191,7 +192,7 @@ def test_bad_seed():
 def test_write_outputs_atomically(tmp_path):
     """Both files are written under their final names and nothing else is left behind."""
     preds, sidecar, _ = jitter_dataset(hand_coco(), seed=0)
-    write_jitter_outputs(tmp_path / "pred.json", tmp_path / "pred.truth.json", preds, sidecar)
+    write_results(tmp_path / "pred.json", tmp_path / "pred.truth.json", preds, sidecar)
     assert sorted(os.listdir(tmp_path)) == ["pred.json", "pred.truth.json"]
     assert orjson.loads((tmp_path / "pred.json").read_bytes()) == preds
     assert orjson.loads((tmp_path / "pred.truth.json").read_bytes()) == sidecar
@@ -201,7 +202,7 @@ def test_write_outputs_nothing_when_a_directory_is_missing(tmp_path):
     """A missing output directory raises before either file is written."""
     preds, sidecar, _ = jitter_dataset(hand_coco(), seed=0)
     with pytest.raises(InputFileError, match="directory does not exist"):
-        write_jitter_outputs(tmp_path / "pred.json", tmp_path / "nope" / "t.json", preds, sidecar)
+        write_results(tmp_path / "pred.json", tmp_path / "nope" / "t.json", preds, sidecar)
     assert os.listdir(tmp_path) == []
 
 

@@ -1,18 +1,17 @@
-"""Tests for synthgen.kinds: kinds told apart by their pixels, their parameter ranges and the identifiable fact."""
+"""Tests for synthgen.scene.kinds: kinds told apart by their pixels, their parameter ranges and the identifiable fact."""
 
 from __future__ import annotations
-
 
 import numpy as np
 import pytest
 from typer.testing import CliRunner
 
-from synthgen import kinds
 from synthgen.cli import app
 from synthgen.config import load_config
 from synthgen.errors import ConfigError
-from synthgen.scene import _sample_objects, render_scene
-from synthgen.shapes import KINDS, Shape, natural_aspect, own_size
+from synthgen.scene import kinds, render_scene
+from synthgen.scene.kinds import sample_objects as _sample_objects
+from synthgen.scene.shapes import KINDS, Shape, natural_aspect, own_size
 from tests._kind_descriptors import NearestCentroid, classes, descriptors, render, sample
 
 # --------------------------------------------------------------------------- ranges
@@ -149,3 +148,27 @@ def test_kinds_are_told_apart_by_their_pixels():
     confused = [(t, p) for t, p in zip(truth, predicted) if t != p]
     assert confused == []
     assert len(truth) == 4 * 8 * len(classes())
+
+
+def test_kind_table_is_the_schemas_kinds_with_stable_category_ids():
+    """One registry entry per kind of the schema, in its order; category ids 1..7 in that order (the COCO
+    category ids datasets already carry: changing them would relabel every published annotation file)."""
+    from synthgen.config import KINDS
+
+    assert tuple(kinds.KIND_TABLE) == KINDS
+    assert [kinds.category_id(k) for k in KINDS] == list(range(1, len(KINDS) + 1))
+    assert len({k.category for k in kinds.KIND_TABLE.values()}) == len(KINDS)
+
+
+def test_kind_table_entries_drive_sampling_ranges_and_limits():
+    """The config keys an entry names are the ranges its parameters are drawn from, and its limits are the schema's."""
+    from synthgen.config import ObjectSpec
+
+    spec = ObjectSpec(sides=(6, 6), points=(7, 7), inner=(0.4, 0.4), hole=(0.5, 0.5), bar=(0.3, 0.3))
+    counts, ratios = kinds.parameter_ranges(spec)
+    assert counts == {"polygon": (6, 6), "star": (7, 7)}
+    assert ratios == {"star": (0.4, 0.4), "ring": (0.5, 0.5), "cross": (0.3, 0.3)}
+    assert not kinds.outlined("ring") and kinds.outlined("cross")
+    assert not kinds.identifiable(Shape("ring", 0.0, 0.0, 60.0, inner=0.45), stroke=2.0)  # never outline-only
+    assert kinds.identifiable(Shape("ring", 0.0, 0.0, 60.0, inner=0.45))
+    assert not kinds.identifiable(Shape("cross", 0.0, 0.0, 60.0, inner=0.45))  # bars beyond CROSS_BAR: an octagon

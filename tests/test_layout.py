@@ -9,10 +9,10 @@ import numpy as np
 import pytest
 from shapely.geometry import box as shapely_box
 
-from synthgen import layout
 from synthgen.config import load_config
-from synthgen.dataset import make_dataset
 from synthgen.errors import ConfigError
+from synthgen.run.make import make_dataset
+from synthgen.scene import placement as layout
 from synthgen.scene import render_scene
 
 

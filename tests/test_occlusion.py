@@ -6,8 +6,9 @@ import numpy as np
 import pytest
 
 from synthgen.geometry import mask_box
-from synthgen.occlusion import SampleBuffer, patch_bounds, sample_bits, sample_bits_many
-from synthgen.shapes import KINDS, Shape, coverage, coverage_many
+from synthgen.scene.coverage import coverage, coverage_many
+from synthgen.scene.occlusion import SampleBuffer, patch_bounds, sample_bits, sample_bits_many
+from synthgen.scene.shapes import KINDS, Shape
 
 
 def _random_shapes(seed: int, n: int, height: int, width: int):
@@ -39,7 +40,7 @@ def test_buffer_walk_equals_a_whole_canvas_sample_count(seed, samples):
     """Walking top-down, each shape's visible coverage and sample box equal a plain count on canvas-sized masks.
 
     The reference tests every sub-sample of the canvas with Coverage.inside and ORs the masks of the
-    shapes above, the rule stated in synthgen.occlusion; sample boxes by synthgen.geometry.mask_box.
+    shapes above, the rule stated in synthgen.scene.occlusion; sample boxes by synthgen.geometry.mask_box.
     """
     height, width = 50, 70
     shapes, strokes = _random_shapes(seed, 60, height, width)
@@ -97,7 +98,7 @@ def test_sample_bits_agree_on_every_path(samples):
 
 def test_patch_bounds_are_the_coverage_patch():
     """patch_bounds gives the rows and columns of coverage's patch, and None exactly when coverage is None."""
-    from synthgen.shapes import exact_box
+    from synthgen.scene.shapes import exact_box
 
     shapes, strokes = _random_shapes(3, 300, 40, 50)
     for shape in shapes:

@@ -13,10 +13,11 @@ from pathlib import Path
 
 import pytest
 
-import synthgen.dataset
+import synthgen.run.backends
 from synthgen.config import load_config
-from synthgen.dataset import local_processes, make_dataset
-from synthgen.pool import WorkerFailed, run_unordered
+from synthgen.run.backends import local_processes
+from synthgen.run.make import make_dataset
+from synthgen.run.pool import WorkerFailed, run_unordered
 
 ROOT = Path(__file__).resolve().parents[1]
 
@@ -45,21 +46,21 @@ def test_small_runs_stay_in_process(tmp_path, monkeypatch):
     def no_pool(*args, **kwargs):
         raise AssertionError("a worker pool was started for a small run")
 
-    monkeypatch.setattr(synthgen.dataset, "run_unordered", no_pool)
+    monkeypatch.setattr(synthgen.run.backends, "run_unordered", no_pool)
     cfg = load_config(overrides=["count=6", "canvas.width=64", "canvas.height=48", "objects.count=[1, 3]"])
     assert make_dataset(cfg, tmp_path / "d", workers=2).images == 6
-    assert local_processes(2 * synthgen.dataset.MIN_IMAGES_PER_WORKER - 1, 8) == 1
-    assert local_processes(2 * synthgen.dataset.MIN_IMAGES_PER_WORKER, 8) == 2
+    assert local_processes(2 * synthgen.run.backends.MIN_IMAGES_PER_WORKER - 1, 8) == 1
+    assert local_processes(2 * synthgen.run.backends.MIN_IMAGES_PER_WORKER, 8) == 2
 
 
 def test_plain_script_without_main_guard_runs_once(tmp_path):
     """A script calling make_dataset at top level (no __main__ guard) with workers is not re-run by them."""
-    n = 2 * synthgen.dataset.MIN_IMAGES_PER_WORKER  # enough images for two workers
+    n = 2 * synthgen.run.backends.MIN_IMAGES_PER_WORKER  # enough images for two workers
     script = tmp_path / "plain.py"
     script.write_text(textwrap.dedent(f"""
         from pathlib import Path
         from synthgen.config import load_config
-        from synthgen.dataset import make_dataset
+        from synthgen.run.make import make_dataset
 
         with open("ran.txt", "a") as f:
             f.write("ran\\n")
@@ -76,3 +77,23 @@ def test_plain_script_without_main_guard_runs_once(tmp_path):
     assert (tmp_path / "ran.txt").read_text() == "ran\n"  # the script's top level ran once
     manifest = json.loads((tmp_path / "outputs" / "plain" / "manifest.json").read_text())
     assert manifest["counts"]["images"] == n
+
+
+def test_local_and_dask_backends_answer_the_same_calls():
+    """Both backends offer processes, run and close, so make_dataset never asks which one it has."""
+    from synthgen.run.backends import DaskBackend, LocalBackend, open_backend
+
+    for backend in (LocalBackend, DaskBackend):
+        assert all(callable(getattr(backend, name, None)) for name in ("processes", "run", "close"))
+    local = open_backend(None, 2)
+    assert isinstance(local, LocalBackend)
+    assert local.processes(3) == 1  # too few images to pay for a worker
+    seen = []
+
+    def unit(config, block, out):
+        seen.append((config, block, out))
+        return [b"%d" % k for k in block]
+
+    assert list(local.run(unit, "cfg", "dir", [[0, 1], [2]])) == [[b"0", b"1"], [b"2"]]
+    assert seen == [("cfg", [0, 1], "dir"), ("cfg", [2], "dir")]
+    local.close()

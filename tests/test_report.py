@@ -202,6 +202,23 @@ def test_classify_names_each_kind_of_prediction():
     assert missed == {2, 3}
 
 
+def test_classify_keeps_every_prediction_past_the_hundred_the_coco_metrics_keep():
+    """The error kinds use the COCO matcher but classify every prediction, not only the 100 best per image and class.
+
+    pycocotools keeps maxDets[-1] = 100 detections per image and category for its metrics (REFERENCE.md:
+    COCO-style AP); a contact sheet still has to say what the 101st box is.
+    """
+    n = 101
+    x = 20.0 * np.arange(n)
+    gt = {"annotations": [{"id": i + 1, "image_id": 1, "category_id": 1, "bbox": [float(x[i]), 0.0, 10.0, 10.0]}
+                          for i in range(n)]}
+    boxes = np.c_[x, np.zeros(n), x + 10, np.full(n, 10.0)]
+    p = report.Predictions(boxes, np.ones(n, int), np.ones(n, int), np.linspace(1.0, 0.5, n), ("",) * n)
+    out, missed = report.classify_predictions(gt, p)
+    assert out.kind == ("true_positive",) * n
+    assert missed == frozenset()
+
+
 def test_classify_calls_predictions_on_ignore_regions_ignored_as_pycocotools_does():
     """With ignore regions (iscrowd 1), true positives and ignored predictions are those pycocotools finds at IoU 0.5.
 
@@ -273,7 +290,7 @@ def test_sheet_draws_ignore_regions_in_grey_and_counts_them_apart(tmp_path):
     sheet = report.contact_sheet(report.open_dataset(tmp_path / "ds"), scale=1)
     t = sheet.tiles[0]
     tile = sheet.pixels[t.top : t.top + t.height, t.left : t.left + t.width]
-    assert _pixels_of(tile, report._MUTED) == _outline_set(11, 4, 13, 11)
+    assert _pixels_of(tile, report.sheet._MUTED) == _outline_set(11, 4, 13, 11)
     assert _pixels_of(tile, report.CATEGORY_COLOURS[0]) == _outline_set(2, 3, 6, 8)
 
 
@@ -320,7 +337,7 @@ def test_classify_true_positives_agree_with_pycocotools(small_dataset):
     assert ours == matched_dt
 
     # and the project's own evaluator agrees per category: recall at IoU 0.5 = true positives / objects
-    from synthgen.score import evaluate
+    from synthgen.evaluate.cocoeval import evaluate
 
     ev = evaluate(coco, preds)
     for k, cat in enumerate(ev.per_category):
@@ -560,7 +577,7 @@ def test_saved_pictures_are_readable_by_others(tmp_path):
 def test_matching_agrees_with_what_the_jitter_sidecar_says(small_dataset):
     """On simulated detections, greedy matching names each unambiguous prediction as the simulator built it."""
     from synthgen.jitter import DetectorSpec
-    from synthgen.jitter_coco import jitter_dataset
+    from synthgen.jitter.coco import jitter_dataset
 
     out, _ = small_dataset
     coco = json.loads((out / "annotations.json").read_text())
@@ -583,7 +600,7 @@ def test_matching_agrees_with_what_the_jitter_sidecar_says(small_dataset):
 def test_stats_report_the_degradations_each_image_got(tmp_path):
     """Per-degradation image counts and parameter ranges equal a direct count over the image facts."""
     from synthgen.config import load_config
-    from synthgen.dataset import make_dataset
+    from synthgen.run.make import make_dataset
 
     cfg = load_config(overrides=["count=5", "seed=3", "canvas.width=48", "canvas.height=32",
                                  "degrade.noise.p=1", "degrade.jpeg.p=0.5"])

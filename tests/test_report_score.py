@@ -1,4 +1,4 @@
-"""Tests for synthgen.report_score: the slice figure and the tables."""
+"""Tests for synthgen.report.figures: the slice figure and the tables."""
 
 from __future__ import annotations
 
@@ -10,8 +10,8 @@ from PIL import Image
 from rich.console import Console
 
 from synthgen.errors import InputFileError, UserError
-from synthgen.report_score import figure_size_px, plot_slices, plot_sweep, print_report
-from synthgen.score import SweepPoint, evaluate
+from synthgen.evaluate import SweepPoint, evaluate
+from synthgen.report.figures import figure_size_px, plot_slices, plot_sweep, print_report
 
 
 def _case():

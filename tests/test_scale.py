@@ -19,10 +19,13 @@ from typer.testing import CliRunner
 
 from synthgen.cli import app
 from synthgen.config import load_config
-from synthgen.dataset import build_coco, make_dataset, merge_shards, render_image_record
-from synthgen.errors import UserError
+from synthgen.errors import OutputWriteError, UserError
 from synthgen.formats.images import decode_image
-from synthgen.shards import RecordStore, Shard, decode_record, encode_record, journal_path, parse_shard
+from synthgen.run.finish import build_coco
+from synthgen.run.journal import RecordStore, Shard, decode_record, encode_record, journal_path, parse_shard
+from synthgen.run.make import make_dataset
+from synthgen.run.merge import merge_shards
+from synthgen.run.render import render_image_record
 
 ROOT = Path(__file__).resolve().parents[1]
 TINY = ["count=11", "seed=5", "canvas.width=64", "canvas.height=48", "objects.count=[0, 6]", "objects.size=[3, 40]"]
@@ -178,11 +181,11 @@ def test_merge_with_a_bad_shard_leaves_the_output_as_it_was_and_a_retry_works(tm
 
 def test_a_failed_copy_removes_what_merge_copied(tmp_path, tiny_config, monkeypatch):
     """A write failure half-way through the copy (disk full) leaves no copied image behind."""
-    import synthgen.dataset as dataset
+    import synthgen.run.merge as merge_mod
 
     for k in (0, 1):
         make_dataset(tiny_config, tmp_path / f"s{k}", workers=1, shard=Shard(k, 2))
-    real, calls = dataset.write_file_atomic, []
+    real, calls = merge_mod.write_unsynced, []
 
     def failing(path, data):
         calls.append(path)
@@ -190,8 +193,8 @@ def test_a_failed_copy_removes_what_merge_copied(tmp_path, tiny_config, monkeypa
             raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC), str(path))
         real(path, data)
 
-    monkeypatch.setattr(dataset, "write_file_atomic", failing)
-    with pytest.raises(dataset.OutputWriteError, match="No space left"):
+    monkeypatch.setattr(merge_mod, "write_unsynced", failing)
+    with pytest.raises(OutputWriteError, match="No space left"):
         merge_shards([tmp_path / "s0", tmp_path / "s1"], tmp_path / "m")
     assert not (tmp_path / "m").exists()
 
@@ -288,7 +291,8 @@ def test_killed_run_resumes_to_identical_files(tmp_path):
 
 def test_resume_repairs_missing_and_damaged_images(tmp_path, tiny_config, single_run):
     """Resume keeps intact images, regenerates a deleted one, a damaged one and a half-written record."""
-    from synthgen.dataset import prepare_output, render_block
+    from synthgen.run.outdir import prepare_output
+    from synthgen.run.render import render_block
 
     out = tmp_path / "r"
     prepare_output(out, tiny_config)  # what a run sets up before rendering
@@ -325,9 +329,9 @@ def test_resume_of_a_finished_dataset_with_damaged_annotations_rebuilds_them(tmp
 )
 def test_write_error_mid_run_exits_1_and_stays_resumable(tmp_path, monkeypatch, single_run, code, reason):
     """A failing image write exits 1 with one line naming the file; --resume then completes the dataset."""
-    import synthgen.dataset as dataset
+    import synthgen.run.render as dataset
 
-    real = dataset.write_file_atomic
+    real = dataset.write_unsynced
     calls = []
 
     def failing(path, data):
@@ -337,7 +341,7 @@ def test_write_error_mid_run_exits_1_and_stays_resumable(tmp_path, monkeypatch, 
             raise OSError(code, os.strerror(code), str(path.parent / f".{path.name}.tmp"))
         real(path, data)
 
-    monkeypatch.setattr(dataset, "write_file_atomic", failing)
+    monkeypatch.setattr(dataset, "write_unsynced", failing)
     out = tmp_path / "d"
     res = CliRunner().invoke(app, ["make", "--out", str(out), "--workers", "1", "-q", *TINY_CLI])
     assert res.exit_code == 1
@@ -345,7 +349,7 @@ def test_write_error_mid_run_exits_1_and_stays_resumable(tmp_path, monkeypatch, 
     assert f"cannot write {out / 'images' / '.000004.png.tmp'}: {reason}" in line and "--resume" in line
     assert not (out / "manifest.json").exists()
 
-    monkeypatch.setattr(dataset, "write_file_atomic", real)
+    monkeypatch.setattr(dataset, "write_unsynced", real)
     res = CliRunner().invoke(app, ["make", "--out", str(out), "--workers", "1", "-q", "--resume", *TINY_CLI])
     assert res.exit_code == 0, res.output
     assert "4 kept from before" in res.stdout
@@ -354,7 +358,7 @@ def test_write_error_mid_run_exits_1_and_stays_resumable(tmp_path, monkeypatch, 
 
 def test_disk_full_while_writing_annotations_stays_resumable(tmp_path, monkeypatch, single_run):
     """ENOSPC while streaming annotations.json leaves no annotation file; --resume finishes without rendering."""
-    import synthgen.shards as shards
+    import synthgen.run.journal as shards
 
     real_write = shards.AtomicWriter.write
 

@@ -8,7 +8,8 @@ import pytest
 from synthgen.config import load_config
 from synthgen.geometry import mask_box
 from synthgen.scene import compose_shapes, image_rng, plan_objects, render_scene
-from synthgen.shapes import Shape, coverage, exact_box
+from synthgen.scene.coverage import coverage
+from synthgen.scene.shapes import Shape, exact_box
 
 
 @pytest.fixture()
@@ -76,7 +77,7 @@ def test_occluded_fraction_matches_independent_sample_count(cfg):
     low = Shape("ellipse", cx=30.0, cy=24.0, size=30.0, aspect=1.3, angle=10.0)
     up = Shape("rectangle", cx=40.0, cy=24.0, size=16.0, aspect=0.8, angle=20.0)
     scene = compose_shapes(grey(cfg), [low, up], cfg, rng=np.random.default_rng(0))
-    from synthgen.shapes import sample_inside
+    from synthgen.scene.shapes import sample_inside
 
     s = cfg.render.samples
     ys, xs = np.mgrid[0 : cfg.canvas.height * s, 0 : cfg.canvas.width * s]
@@ -145,7 +146,7 @@ def _raster(shape, height, width, s):
     """Boolean mask of a shape on an s-times finer grid, from its outline polygons by scikit-image."""
     from skimage.draw import polygon
 
-    from synthgen.shapes import outline
+    from synthgen.scene.shapes import outline
 
     mask = np.zeros((height * s, width * s), dtype=bool)
     for k, ring in enumerate(outline(shape, resolution=512)):
@@ -201,7 +202,7 @@ def test_tiny_shapes_area_and_regionprops_box(size, kind):
     """
     from skimage.measure import regionprops
 
-    from synthgen.shapes import exact_area
+    from synthgen.scene.shapes import exact_area
 
     rng = np.random.default_rng(size)
     s = 8
@@ -255,7 +256,8 @@ def test_dense_occlusion_matches_brute_force_sample_count():
     The reference tests every sub-sample of the canvas against every shape with
     Coverage.inside (no pixel classes, no patches), the plain rule of the module docstring.
     """
-    from synthgen.scene import _sample_objects, _moved
+    from synthgen.scene.composer import _moved
+    from synthgen.scene.kinds import sample_objects as _sample_objects
 
     cfg = load_config(overrides=["canvas.width=48", "canvas.height=40", "objects.outline=0.4",
                                  "objects.min_visible=0", "objects.min_area=0", "objects.size=[2,30]"])
@@ -310,7 +312,7 @@ def test_cut_rotated_shape_gets_the_tight_box_of_its_visible_part(cfg):
     from shapely.geometry import Polygon
     from shapely.geometry import box as sbox
 
-    from synthgen.shapes import outline
+    from synthgen.scene.shapes import outline
 
     shape = Shape("rectangle", cx=-3.0, cy=24.0, size=20.0, angle=45.0)  # a diamond, tips at x = -13 and 7
     scene = compose_shapes(grey(cfg), [shape], cfg, rng=np.random.default_rng(0))
@@ -323,7 +325,7 @@ def test_cut_rotated_shape_gets_the_tight_box_of_its_visible_part(cfg):
 def test_aspect_one_keeps_polygons_regular():
     """objects.aspect = 1 draws regular polygons: all vertices on one circle (REFERENCE.md: Geometry)."""
     from synthgen.scene import plan_objects
-    from synthgen.shapes import outline
+    from synthgen.scene.shapes import outline
 
     cfg = load_config(overrides=["objects.aspect=1", "objects.shapes=[\"polygon\"]", "objects.count=[6, 6]",
                                  "objects.rotate=false"])
@@ -344,7 +346,7 @@ def _coco_union(scene, height, width, *, crowd: bool) -> np.ndarray:
     """
     from pycocotools import mask as cocomask
 
-    from synthgen.dataset import scene_annotations
+    from synthgen.formats.coco import scene_annotations
 
     out = np.zeros((height, width), dtype=bool)
     for a in scene_annotations(scene, height, width):
@@ -412,7 +414,8 @@ def test_erase_judges_each_object_by_the_final_picture():
     Reference: every sub-sample of the canvas tested against each kept shape with Coverage.inside (no
     buffer, no patches), the plain rule; a kept object's facts must match the picture as drawn.
     """
-    from synthgen.scene import _sample_objects, _moved
+    from synthgen.scene.composer import _moved
+    from synthgen.scene.kinds import sample_objects as _sample_objects
 
     cfg = load_config(overrides=["canvas.width=48", "canvas.height=40", "objects.min_visible=0.6",
                                  "objects.min_area=3", "objects.size=[2,24]", "objects.dropped=erase"])
@@ -518,9 +521,10 @@ def test_visible_boxes_of_dense_scenes_equal_an_independent_computation(dropped)
     Reference: tests/_visible_reference.py (shapely on dense polygons, built from the shape parameters);
     the objects drawn above are the annotated ones and the ignore regions, not the hidden or erased ones.
     """
+    from synthgen.scene.composer import _moved
+    from synthgen.scene.kinds import sample_objects as _sample_objects
+    from synthgen.scene.visible import TOLERANCE
     from tests import _visible_reference as reference
-    from synthgen.scene import _moved, _sample_objects
-    from synthgen.visible import TOLERANCE
 
     cfg = load_config(overrides=["canvas.width=64", "canvas.height=48", "objects.outline=0.3",
                                  "objects.min_visible=0.4", "objects.size=[3,30]", f"objects.dropped={dropped}"])

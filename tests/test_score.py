@@ -1,4 +1,4 @@
-"""Tests for synthgen.score: COCO box metrics against pycocotools, known answers, slices."""
+"""Tests for synthgen.evaluate: COCO box metrics against pycocotools, known answers, slices."""
 
 from __future__ import annotations
 
@@ -16,13 +16,13 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 from _coco_cases import coco_reference, random_case  # noqa: E402
 
 from synthgen.errors import InputFileError, UserError  # noqa: E402
-from synthgen.score import (  # noqa: E402
+from synthgen.evaluate.cocoeval import (  # noqa: E402
     IOU_THRESHOLDS,
     STAT_NAMES,
-    _coco_iou,
     evaluate,
-    parse_slice_spec,
 )
+from synthgen.evaluate.match import coco_iou  # noqa: E402
+from synthgen.evaluate.slices import parse_slice_spec  # noqa: E402
 
 N_RANDOM = 400  # random cases compared with pycocotools in the main equality test
 
@@ -109,7 +109,7 @@ def test_pair_iou_equals_pycocotools_mask_iou_bitwise():
     crowd = rng.random(40) < 0.3
     ref = mask_utils.iou(d.tolist(), g.tolist(), crowd.astype(np.uint8).tolist())  # reference: pycocotools
     di, gi = np.meshgrid(np.arange(60), np.arange(40), indexing="ij")
-    ours = _coco_iou(d[di.ravel()], g[gi.ravel()], crowd[gi.ravel()]).reshape(60, 40)
+    ours = coco_iou(d[di.ravel()], g[gi.ravel()], crowd[gi.ravel()]).reshape(60, 40)
     assert np.array_equal(ours, ref)
 
 
@@ -433,7 +433,7 @@ def test_derived_facts_equal_the_recorded_ones(small_dataset):
 
     import shapely
 
-    from synthgen.score import evaluate
+    from synthgen.evaluate.cocoeval import evaluate
 
     ds, _ = small_dataset
     gt = json.loads((ds / "annotations.json").read_text())
@@ -474,7 +474,7 @@ def test_derived_facts_equal_the_recorded_ones(small_dataset):
 def dense_coco(tmp_path_factory):
     """COCO ground truth of three dense tiny-object images (configs/tiny.toml, 300-500 objects each)."""
     from synthgen.config import load_config
-    from synthgen.dataset import make_dataset
+    from synthgen.run.make import make_dataset
 
     out = tmp_path_factory.mktemp("dense") / "ds"
     make_dataset(load_config("configs/tiny.toml", ["count=3", "objects.count=[300,500]"]), out, workers=1)

@@ -1,4 +1,4 @@
-"""Tests for synthgen.shapes: exact boxes, areas, outlines, coverage and fills."""
+"""Tests for synthgen.scene.shapes: exact boxes, areas, outlines, coverage and fills."""
 
 from __future__ import annotations
 
@@ -15,18 +15,17 @@ from skimage.draw import polygon as draw_polygon
 from skimage.measure import label, regionprops
 
 from synthgen.geometry import clip_boxes, mask_box
-from synthgen.shapes import (
+from synthgen.scene.coverage import Coverage, coverage
+from synthgen.scene.raster import paint
+from synthgen.scene.shapes import (
     FILLS,
     KINDS,
-    Coverage,
     Shape,
     clipped_box,
-    coverage,
     exact_area,
     exact_box,
     natural_aspect,
     outline,
-    paint,
     sample_inside,
 )
 

@@ -9,7 +9,7 @@ from typer.testing import CliRunner
 
 from synthgen.cli import app
 from synthgen.errors import ConfigError
-from synthgen.sweep import parse_vary, run_sweep
+from synthgen.run.sweep import parse_vary, run_sweep
 
 SMALL = ["count=2", "canvas.width=48", "canvas.height=32", "objects.count=[2,4]"]
 
@@ -91,7 +91,7 @@ def test_non_empty_directory_is_refused(tmp_path):
 
 def test_sweep_progress_counts_images_across_subsets(tmp_path):
     """The progress callback sees done counts that grow across subsets up to the sweep's total."""
-    from synthgen.sweep import parse_vary, run_sweep
+    from synthgen.run.sweep import parse_vary, run_sweep
 
     seen = []
     run_sweep(None, [parse_vary("canvas.width=32,48")], tmp_path / "s",

@@ -1,4 +1,4 @@
-"""Tests for synthgen.visible: the visible box of a partly hidden object, from the geometry."""
+"""Tests for synthgen.scene.visible: the visible box of a partly hidden object, from the geometry."""
 
 from __future__ import annotations
 
@@ -8,8 +8,8 @@ import numpy as np
 import pytest
 import shapely
 
-from synthgen.visible import TOLERANCE, region_polygons, visible_box, visible_boxes
-from synthgen.shapes import KINDS, Shape, natural_aspect
+from synthgen.scene.shapes import KINDS, Shape, natural_aspect
+from synthgen.scene.visible import TOLERANCE, region_polygons, visible_box, visible_boxes
 from tests import _visible_reference as reference
 
 

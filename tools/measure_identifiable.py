@@ -1,7 +1,7 @@
 """Measure the smallest breadth at which each shape kind is told from every other kind.
 
-Writes the numbers behind ``synthgen.kinds.IDENTIFIABLE_BREADTH``.  For every kind and
-style (filled, outline-only) and every part of its parameter ranges (``synthgen.kinds``),
+Writes the numbers behind ``synthgen.scene.kinds.IDENTIFIABLE_BREADTH``.  For every kind and
+style (filled, outline-only) and every part of its parameter ranges (``synthgen.scene.kinds``),
 objects are rendered alone at each breadth of a ladder (breadth: the shorter side of the
 shape's own box), with a random aspect in ``MEASURED_ASPECT``, rotation and sub-pixel
 position, and outline bands from ``MEASURED_STROKE`` to ``OUTLINE_SHARE`` of the breadth.

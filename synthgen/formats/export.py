@@ -27,18 +27,21 @@ from pathlib import Path
 
 import orjson
 
-from synthgen.errors import ConfigError, InputFileError, UserError, check_choice
+from synthgen._io import staged_file, write_atomic
+from synthgen.errors import ConfigError, InputFileError, UserError, check_choice, is_int
 from synthgen.formats import masks as masks_fmt
 from synthgen.formats import tokens as tokens_fmt
-from synthgen.formats import voc as voc_fmt
-from synthgen.formats import yolo as yolo_fmt
-from synthgen.formats._common import bad_record, inside_dataset, sidecar_name, staged_dir, staged_file
-from synthgen.formats.coco import read_coco, write_bytes_atomic, write_coco
+from synthgen.formats._common import WriteJob, bad_record, inside_dataset, sidecar_name
+from synthgen.formats.coco import read_coco, write_coco
+from synthgen.formats.dataset_dir import (
+    ANNOTATIONS,
+    MANIFEST,
+    SPLITS,
+)
+from synthgen.formats.registry import FORMATS, REGISTRY
 from synthgen.formats.splits import assign_splits, coco_split_name, split_coco
 
 __all__ = ["FORMATS", "parse_formats", "write_formats", "export"]
-
-FORMATS = ("coco", "voc", "yolo", "tokens", "masks")
 
 
 def parse_formats(text: str | Iterable[str], *, key: str = "--formats") -> tuple[str, ...]:
@@ -116,32 +119,10 @@ def write_formats(
     stems = {name: [sidecar_name(im["file_name"], "") for im in part["images"]] for name, part in parts.items()}
     done: dict[str, int] = {}
 
-    if "coco" in formats:
-        write_coco(out / "annotations.json", coco)
-        done["coco"] = len(coco["images"])
-    if "voc" in formats:
-        with staged_dir(out / "voc") as tmp:
-            done["voc"] = voc_fmt.write_voc(coco, tmp)
-            for name, names in stems.items():
-                _write_list(tmp / "ImageSets" / "Main" / f"{name}.txt", names)
-    if "yolo" in formats:
-        with staged_dir(out / "yolo") as tmp:
-            done["yolo"] = yolo_fmt.write_yolo(coco, tmp)
-            for name, part in parts.items():
-                paths = [Path(os.path.relpath(images_dir / im["file_name"], out)).as_posix() for im in part["images"]]
-                _write_list(tmp / "splits" / f"{name}.txt", paths)
-    if "tokens" in formats:
-        with staged_file(out / "tokens.jsonl") as tmp, staged_file(out / "tokens.vocab.json") as vtmp:
-            done["tokens"] = tokens_fmt.write_tokens(coco, tmp, vtmp, n_bins=n_bins, order=order, seed=seed, noise=noise)
-        if parts:
-            _split_token_lines(out, parts)
-    if "masks" in formats:
-        if masks == "png":
-            with staged_dir(out / "masks") as tmp:
-                done["masks"] = masks_fmt.write_instance_pngs(coco, tmp)
-        else:
-            with staged_file(out / "masks.jsonl") as tmp:
-                done["masks"] = masks_fmt.write_mask_rles(coco, tmp)
+    job = WriteJob(coco, out, images_dir, parts, stems, seed, n_bins, order, noise, masks)
+    for name, fmt in REGISTRY.items():
+        if name in formats:
+            done[name] = fmt.write(job)
     for name, part in parts.items():
         write_coco(out / coco_split_name(name), part)
         done[f"split:{name}"] = len(part["images"])
@@ -151,7 +132,7 @@ def write_formats(
             "fractions": dict(split),
             "splits": {name: [im["file_name"] for im in part["images"]] for name, part in parts.items()},
         }
-        write_bytes_atomic(out / "splits.json", orjson.dumps(doc, option=orjson.OPT_INDENT_2))
+        write_atomic(out / SPLITS, orjson.dumps(doc, option=orjson.OPT_INDENT_2))
     return done
 
 
@@ -215,29 +196,15 @@ def _check_input(coco: dict, path: Path, formats) -> None:
             )
 
 
-def _write_list(path: Path, items: list[str]) -> None:
-    path.parent.mkdir(parents=True, exist_ok=True)
-    path.write_text("".join(f"{s}\n" for s in items), encoding="utf-8")
-
-
-def _split_token_lines(out: Path, parts: dict[str, dict]) -> None:
-    # Reuse the lines just written, so each split file holds the same bytes.
-    lines = {orjson.loads(t)["image_id"]: t for t in (out / "tokens.jsonl").read_bytes().splitlines() if t.strip()}
-    for name, part in parts.items():
-        chosen = [lines[im["id"]] for im in part["images"]]
-        with staged_file(out / f"tokens.{name}.jsonl") as tmp:
-            tmp.write_bytes(b"\n".join(chosen) + (b"\n" if chosen else b""))
-
-
 def _manifest_seed(dataset_dir: Path) -> int | None:
-    path = dataset_dir / "manifest.json"
+    path = dataset_dir / MANIFEST
     if not path.is_file():
         return None
     try:
         seed = orjson.loads(path.read_bytes()).get("seed")
     except (orjson.JSONDecodeError, AttributeError):
         raise InputFileError(path, "is not a valid manifest (JSON object)") from None
-    return seed if isinstance(seed, int) and not isinstance(seed, bool) else None
+    return seed if is_int(seed) else None
 
 
 def dataset_seed(dataset_dir) -> int:
@@ -293,13 +260,13 @@ def export(
     dataset_dir = Path(dataset_dir)
     if not dataset_dir.is_dir():
         raise InputFileError(dataset_dir, "is not a directory")
-    coco = read_coco(dataset_dir / "annotations.json")
+    coco = read_coco(dataset_dir / ANNOTATIONS)
     if seed is None:
         seed = dataset_seed(dataset_dir)
     out = Path(out) if out is not None else dataset_dir
     formats = list(formats)
     formats = parse_formats(formats) if formats or not split else ()  # splits alone are fine
-    _check_input(coco, dataset_dir / "annotations.json", formats)
+    _check_input(coco, dataset_dir / ANNOTATIONS, formats)
     in_place = out.resolve() == dataset_dir.resolve()
     done: dict[str, int] = {}
     if in_place:

@@ -28,7 +28,7 @@ sets the zlib level.
 
 JPEG goes through OpenCV's libjpeg-turbo (0.70 ms per image at q90 against
 Pillow's 0.85 on the same pixels, sizes equal within 0.1%), 4:2:0 chroma
-subsampling, baseline.  The PNG row-filter flag needs OpenCV 4.10 or later
+subsampling, baseline.  The PNG row-filter flag needs OpenCV 4.12 or later
 (the version floor in ``pyproject.toml``).
 """
 

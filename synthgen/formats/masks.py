@@ -30,17 +30,25 @@ overlap resolution.
 from __future__ import annotations
 
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 import orjson
 from PIL import Image, ImageDraw
 
+from synthgen._io import read_input
 from synthgen.errors import InputFileError
 from synthgen.formats import rle
-from synthgen.formats._common import annotations_by_image, bad_record, read_input, sidecar_name
+from synthgen.formats._common import annotations_by_image, bad_record, sidecar_name
+from synthgen.formats.check_context import listing
+from synthgen.formats.dataset_dir import MASKS_DIR, MASKS_RLE
+
+if TYPE_CHECKING:
+    from synthgen.formats.check_context import CheckContext
 
 __all__ = [
     "MASK_MODES",
+    "check_masks",
     "MAX_IDS",
     "IGNORE_ID",
     "annotation_mask",
@@ -221,3 +229,99 @@ def read_mask_rles(path) -> list[dict]:
         line["decoded"] = decoded
         out.append(line)
     return out
+
+
+# --------------------------------------------------------------------------- check rule (synthgen check)
+
+
+def check_masks(ctx: CheckContext) -> bool:
+    """Check rule of masks: ``masks/**/*.png`` (instance ids) or ``masks.jsonl`` (per-object RLE);
+    True when found.
+
+    Each image's masks have the reference's size and stand for its objects
+    (ignore regions as the ignore value, or in ``masks.jsonl``); every object
+    keeps a pixel (:func:`lost_annotations`).
+    """
+    if (ctx.root / MASKS_DIR).is_dir():
+        _check_pngs(ctx, ctx.root / MASKS_DIR)
+    elif (ctx.root / MASKS_RLE).is_file():
+        _check_rles(ctx, ctx.root / MASKS_RLE)
+    else:
+        return False
+    return True
+
+
+def _check_pngs(ctx: CheckContext, d: Path) -> None:
+    files = sorted(d.rglob("*.png"))
+    seen, n_obj = set(), 0
+    for p, stem, ids in ctx.read_each(d, files, read_instance_png, seen):
+        numbered = ids[ids != IGNORE_ID]
+        n_obj += int(np.count_nonzero(np.bincount(numbered)[1:])) if numbered.size else 0
+        if ctx.ref_objects is None or stem not in ctx.ref_objects:
+            ctx.compare("masks", p, stem, [])
+            continue
+        h, w = ids.shape
+        if (w, h) != ctx.ref_sizes[stem]:
+            ctx.add(p, "", f"mask size (width, height) must match annotations.json {ctx.ref_sizes[stem]}", (w, h))
+            continue
+        anns = ctx.ref_anns[stem]
+        n_plain = sum(a.get("iscrowd", 0) != 1 for a in anns)
+        top = int(numbered.max()) if numbered.size else 0
+        if top > n_plain:
+            ctx.add(p, "", f"instance ids must be at most the image's object count ({n_plain})", top)
+            continue
+        if n_plain == len(anns) and numbered.size < ids.size:
+            ctx.add(p, "", f"ignore value {IGNORE_ID} must mark ignore regions of annotations.json "
+                     "(this image has none)", IGNORE_ID)
+        lost = lost_annotations(anns, ids)
+        if lost:
+            plain = [a for a in anns if a.get("iscrowd", 0) != 1]
+            ctx.add(
+                p, "",
+                f"every object of image {ctx.ref_files[stem]} with segmentation pixels must keep one "
+                "(unless each is another annotation's only pixel); none for annotation id "
+                + listing([plain[i - 1].get("id") for i in lost]),
+                [f"id {i}" for i in lost] if len(lost) <= 5 else len(lost),
+            )
+            ctx.mismatched.add("masks")
+    ctx.missing("masks", seen, ctx.rel(d) + "/{stem}.png")
+    # objects = instances with at least one pixel (one drawn over entirely has none); ignore regions not counted
+    ctx.count("masks", len(files), len(files), n_obj)
+
+
+
+def _check_rles(ctx: CheckContext, path: Path) -> None:
+    try:
+        lines = read_mask_rles(path)
+    except InputFileError as e:
+        ctx.add_error(e)
+        return
+    n_obj = 0
+    for i, line in enumerate(lines):
+        n_obj += len(line["masks"])
+        stem = ctx.ref_ids.get(line.get("image_id"))
+        if stem is None:
+            continue
+        by_id = {a.get("id"): a for a in ctx.ref_anns[stem]}
+        found = [
+            (f"masks[{j}]", ctx.ref_cat_names.get(by_id.get(m.get("id"), {}).get("category_id")),
+             _id_box(by_id.get(m.get("id"))))
+            for j, m in enumerate(line["masks"])
+        ]
+        ctx.compare("masks", path, stem, found, record=f"line {i + 1}", what="masks")
+        for m in line["decoded"]:
+            if (m.shape[1], m.shape[0]) != ctx.ref_sizes[stem]:
+                ctx.add(path, f"line {i + 1}", f"mask size must match annotations.json {ctx.ref_sizes[stem]}", m.shape)
+                break
+    ctx.count("masks", 1, len(lines), n_obj)
+    ctx.compare_total("masks", path)
+
+
+
+
+def _id_box(ann: dict | None) -> tuple | None:
+    """The xyxy box of a reference annotation an RLE mask names by id (None when it names none)."""
+    if ann is None:
+        return None
+    x, y, w, h = ann["bbox"]
+    return (x, y, x + w, y + h)

@@ -311,48 +311,56 @@ def encode_patches(patches, height: int, width: int) -> list[dict]:
             continue
         p = p[r_lo:r_hi, c_lo:c_hi]
         by_size.setdefault(p.shape, []).append((k, row0 + r_lo, col0 + c_lo, p))
-    for (ph, pw), items in by_size.items():
+    for (ph, _), items in by_size.items():
         if len(items) == 1 or ph >= height:  # one patch of this size, or whole-height columns
             for k, r0, c0, p in items:
                 r = _patch_runs(p, r0, c0, height, n)
                 order.append(k), flats.append(r), lengths.append(r.size)
             continue
-        # as _patch_runs, for all patches of this size at once: a False cell above and
-        # below each column, columns end to end, so runs never span columns (and,
-        # shorter than the canvas, never touch the next column's)
-        K = len(items)
-        stride = ph + 2
-        padded = np.zeros((K, pw, stride), dtype=bool)
-        padded[:, :, 1:-1] = np.stack([it[3] for it in items]).transpose(0, 2, 1) != 0
-        flat = padded.reshape(K, pw * stride)
-        kk, idx = np.nonzero(flat[:, 1:] != flat[:, :-1])
-        idx = idx + 1
-        col, row = np.divmod(idx, stride)
-        r0 = np.array([it[1] for it in items], dtype=np.int64)
-        c0 = np.array([it[2] for it in items], dtype=np.int64)
-        g = (col + c0[kk]) * height + (row + (r0[kk] - 1))  # canvas column-major offsets
-        cnt = np.bincount(kk, minlength=K)  # changes per patch
-        # per patch the edges 0, g..., n, end to end
-        edges = np.empty(g.size + 2 * K, dtype=np.int64)
-        start = np.cumsum(cnt + 2) - (cnt + 2)
-        edges[start] = 0
-        edges[start + cnt + 1] = n
-        edges[np.arange(g.size) + 2 * kk + 1] = g
-        d = edges[1:] - edges[:-1]
-        keep = np.ones(d.size, dtype=bool)
-        keep[(start + cnt + 1)[:-1]] = False  # from one patch's n to the next patch's 0
-        last = start + cnt  # each patch's last run
-        zero_last = d[last] == 0
-        keep[last[zero_last]] = False
+        runs, counts = _same_size_runs(items, height, n)
         order.extend(it[0] for it in items)
-        flats.append(d[keep])
-        lengths.extend((cnt + 1 - zero_last).tolist())
+        flats.append(runs)
+        lengths.extend(counts)
     strings = _many_counts_to_strings(np.concatenate(flats) if flats else np.zeros(0, np.int64),
                                       np.array(lengths, dtype=np.int64))
     out: list = [None] * len(patches)
     for k, text in zip(order, strings):
         out[k] = {"size": list(size), "counts": text}
     return out
+
+
+def _same_size_runs(items: list, height: int, n: int) -> tuple[np.ndarray, list[int]]:
+    """Run lengths of several patches of one size (``(k, row0, col0, patch)``, clipped), end to end,
+    and the number of runs of each: as :func:`_patch_runs` per patch, in one array pass."""
+    # as _patch_runs, for all patches of this size at once: a False cell above and
+    # below each column, columns end to end, so runs never span columns (and,
+    # shorter than the canvas, never touch the next column's)
+    K = len(items)
+    ph, pw = items[0][3].shape
+    stride = ph + 2
+    padded = np.zeros((K, pw, stride), dtype=bool)
+    padded[:, :, 1:-1] = np.stack([it[3] for it in items]).transpose(0, 2, 1) != 0
+    flat = padded.reshape(K, pw * stride)
+    kk, idx = np.nonzero(flat[:, 1:] != flat[:, :-1])
+    idx = idx + 1
+    col, row = np.divmod(idx, stride)
+    r0 = np.array([it[1] for it in items], dtype=np.int64)
+    c0 = np.array([it[2] for it in items], dtype=np.int64)
+    g = (col + c0[kk]) * height + (row + (r0[kk] - 1))  # canvas column-major offsets
+    cnt = np.bincount(kk, minlength=K)  # changes per patch
+    # per patch the edges 0, g..., n, end to end
+    edges = np.empty(g.size + 2 * K, dtype=np.int64)
+    start = np.cumsum(cnt + 2) - (cnt + 2)
+    edges[start] = 0
+    edges[start + cnt + 1] = n
+    edges[np.arange(g.size) + 2 * kk + 1] = g
+    d = edges[1:] - edges[:-1]
+    keep = np.ones(d.size, dtype=bool)
+    keep[(start + cnt + 1)[:-1]] = False  # from one patch's n to the next patch's 0
+    last = start + cnt  # each patch's last run
+    zero_last = d[last] == 0
+    keep[last[zero_last]] = False
+    return d[keep], (cnt + 1 - zero_last).tolist()
 
 
 def _many_counts_to_strings(cnts: np.ndarray, lengths: np.ndarray) -> list[str]:

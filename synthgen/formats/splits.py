@@ -31,22 +31,22 @@ import re
 import numpy as np
 
 from synthgen.errors import ConfigError
+from synthgen.formats.dataset_dir import split_annotations_name
+from synthgen.seeding import SPLIT_STREAM, stream
 
 __all__ = ["SPLIT_STREAM", "parse_split", "check_fractions", "assign_splits", "split_coco", "coco_split_name"]
 
-# Spawn-key element of the stream that orders images for splitting.
-SPLIT_STREAM = 0x73706C
 
 _NAME = re.compile(r"^[A-Za-z][A-Za-z0-9_-]*$")
 
 
 def coco_split_name(split: str) -> str:
-    """File name of a split's COCO file.
+    """File name of a split's COCO file (:func:`synthgen.formats.dataset_dir.split_annotations_name`).
 
     >>> coco_split_name("train")
     'annotations.train.json'
     """
-    return f"annotations.{split}.json"
+    return split_annotations_name(split)
 
 
 def check_fractions(fractions: dict[str, float], key: str = "split") -> None:
@@ -122,7 +122,7 @@ def assign_splits(n_images: int, fractions: dict[str, float], *, seed: int) -> l
     check_fractions(fractions, "split")
     names = list(fractions)
     sizes = _sizes(n_images, [fractions[k] for k in names])
-    rng = np.random.Generator(np.random.PCG64(np.random.SeedSequence(seed, spawn_key=(SPLIT_STREAM,))))
+    rng = stream(seed, SPLIT_STREAM)
     u = rng.random(n_images)
     ranked = np.argsort(u, kind="stable")
     label = np.empty(n_images, dtype=np.int64)

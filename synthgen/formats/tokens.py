@@ -40,23 +40,29 @@ from __future__ import annotations
 
 from collections.abc import Callable, Mapping
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 import orjson
 
-from synthgen.errors import check_choice, check_number
+from synthgen._io import read_input
+from synthgen.errors import InputFileError, check_choice, check_number, is_int
 from synthgen.formats._common import (
     annotations_by_image,
     bad_record,
     categories_in_order,
     image_index,
-    is_int,
-    read_input,
 )
+from synthgen.formats.dataset_dir import TOKENS, TOKENS_VOCAB
 from synthgen.geometry import as_boxes, box_area
+from synthgen.seeding import ORDER_STREAM, stream
+
+if TYPE_CHECKING:
+    from synthgen.formats.check_context import CheckContext
 
 __all__ = [
     "ORDERS",
+    "check_tokens",
     "ORDER_STREAM",
     "quantize",
     "dequantize",
@@ -71,8 +77,6 @@ __all__ = [
 ]
 
 ORDERS = ("random", "raster", "area", "distance")
-# Spawn-key element of the per-image stream that draws the random order.
-ORDER_STREAM = 0x746F6B
 
 
 def quantize(values, length: float, n_bins: int) -> np.ndarray:
@@ -292,54 +296,63 @@ def write_tokens(
     cats = categories_in_order(coco)
     class_token = {c["id"]: n_bins + i for i, c in enumerate(cats)}
     noise_token = n_bins + len(cats)
-    end_token = noise_token + 1
     sizes = {(im["width"], im["height"]) for im in coco["images"]}
     size = next(iter(sizes)) if len(sizes) == 1 else None
     by_image = annotations_by_image(coco)
     lines = []
     for pos, im in enumerate(coco["images"]):
         anns = [a for a in by_image.get(im["id"], []) if a.get("iscrowd", 0) != 1]
-        bbox = np.array([a["bbox"] for a in anns], dtype=np.float64).reshape(-1, 4)
-        xyxy = bbox.copy()
-        xyxy[:, 2:] += bbox[:, :2]
-        rng = None
-        if order == "random":
-            k = image_index(im, pos)
-            rng = np.random.Generator(np.random.PCG64(np.random.SeedSequence(seed, spawn_key=(k, ORDER_STREAM))))
-        perm = object_order(xyxy, order, rng=rng)
-        cat_ids = [a["category_id"] for a in anns]
-        if callable(noise):
-            value = noise(image_index(im, pos), xyxy, np.array(cat_ids, dtype=np.int64), (im["width"], im["height"]))
-        else:
-            value = None if noise is None else noise.get(im["id"])
-        nboxes, nlabels = _noise_objects(value, cat_ids, im["id"])
-        tokens, weights = encode_objects(
-            xyxy[perm],
-            [class_token[anns[i]["category_id"]] for i in perm],
-            im["width"],
-            im["height"],
-            n_bins,
-            end_token=end_token,
-            noise_boxes=nboxes,
-            noise_token=noise_token,
-        )
-        line = {
-            "image_id": im["id"],
-            "file_name": im["file_name"],
-            "width": im["width"],
-            "height": im["height"],
-            "n_objects": len(anns),
-            "n_noise": 0 if nboxes is None else int(nboxes.shape[0]),
-            "annotation_ids": [anns[i]["id"] for i in perm],
-            "noise_labels": nlabels,
-            "tokens": tokens,
-            "weights": weights,
-        }
+        line = _image_line(im, pos, anns, class_token, noise_token, n_bins=n_bins, order=order, seed=seed, noise=noise)
         lines.append(orjson.dumps(line))
     Path(path).write_bytes(b"\n".join(lines) + (b"\n" if lines else b""))
     vocab = vocabulary(cats, n_bins, size, order=order, seed=seed)
     Path(vocab_path).write_bytes(orjson.dumps(vocab, option=orjson.OPT_INDENT_2))
     return len(lines)
+
+
+def _image_line(im: dict, pos: int, anns: list[dict], class_token: dict, noise_token: int, *, n_bins: int,
+                order: str, seed: int, noise) -> dict:
+    """One line of ``tokens.jsonl``: image ``im`` (at position ``pos``) with its non-crowd annotations ``anns``
+    (arguments as :func:`write_tokens`; ``class_token`` maps category id -> token; the end token follows
+    ``noise_token``)."""
+    end_token = noise_token + 1
+    bbox = np.array([a["bbox"] for a in anns], dtype=np.float64).reshape(-1, 4)
+    xyxy = bbox.copy()
+    xyxy[:, 2:] += bbox[:, :2]
+    rng = None
+    if order == "random":
+        k = image_index(im, pos)
+        rng = stream(seed, k, ORDER_STREAM)
+    perm = object_order(xyxy, order, rng=rng)
+    cat_ids = [a["category_id"] for a in anns]
+    if callable(noise):
+        value = noise(image_index(im, pos), xyxy, np.array(cat_ids, dtype=np.int64), (im["width"], im["height"]))
+    else:
+        value = None if noise is None else noise.get(im["id"])
+    nboxes, nlabels = _noise_objects(value, cat_ids, im["id"])
+    tokens, weights = encode_objects(
+        xyxy[perm],
+        [class_token[anns[i]["category_id"]] for i in perm],
+        im["width"],
+        im["height"],
+        n_bins,
+        end_token=end_token,
+        noise_boxes=nboxes,
+        noise_token=noise_token,
+    )
+    line = {
+        "image_id": im["id"],
+        "file_name": im["file_name"],
+        "width": im["width"],
+        "height": im["height"],
+        "n_objects": len(anns),
+        "n_noise": 0 if nboxes is None else int(nboxes.shape[0]),
+        "annotation_ids": [anns[i]["id"] for i in perm],
+        "noise_labels": nlabels,
+        "tokens": tokens,
+        "weights": weights,
+    }
+    return line
 
 
 def _noise_objects(value, cat_ids: list[int], image_id) -> tuple[np.ndarray | None, list[int]]:
@@ -513,3 +526,71 @@ def read_tokens(path, vocab_path) -> list[dict]:
     if problems:
         raise problems[0]
     return lines
+
+
+# --------------------------------------------------------------------------- check rule (synthgen check)
+
+
+def check_tokens(ctx: CheckContext) -> bool:
+    """Check rule of tokens: ``tokens.jsonl`` (and ``tokens.<split>.jsonl``) with ``tokens.vocab.json``;
+    True when found.
+
+    The vocabulary's classes are the reference's categories by id; each image has
+    one line, with the reference's size, and its objects (dequantized, within a
+    bin) are the reference's without its ignore regions.
+    """
+    if not (ctx.root / TOKENS).is_file():
+        return False
+    vocab = ctx.root / TOKENS_VOCAB
+    _check_tokens_file(ctx, ctx.root / TOKENS, vocab, reference=True)
+    for p in sorted(ctx.root.glob("tokens.*.jsonl")):
+        _check_tokens_file(ctx, p, vocab, reference=False)
+    return True
+
+
+def _check_tokens_file(ctx: CheckContext, path: Path, vocab_path: Path, *, reference: bool) -> None:
+    if not vocab_path.is_file():
+        ctx.add(vocab_path, "", "token vocabulary file must exist", "<missing>")
+        return
+    try:
+        vocab = read_vocabulary(vocab_path)
+        lines, bad = parse_tokens(path, vocab_path)
+    except InputFileError as e:
+        ctx.add_error(e)
+        return
+    if ctx.ref_names is not None:
+        names = [c.get("name") for c in vocab["classes"]]
+        if names != ctx.ref_names:
+            ctx.add(vocab_path, "classes", "must be the categories of annotations.json by id", names)
+    seen, n_obj = set(), 0
+    for e in bad:  # every bad line on its own; its image is not reported missing as well
+        ctx.add_error(e)
+        stem = ctx.ref_ids.get(e.image_id) if is_int(e.image_id) else None
+        if stem is not None:
+            seen.add(stem)
+    n_bins = vocab["n_bins"]
+    for line in lines:
+        record = f"line {line['line_number']}"
+        real = ~line["is_noise"]
+        n_obj += int(real.sum())
+        stem = ctx.ref_ids.get(line.get("image_id"))
+        if ctx.ref_objects is not None and stem is None:
+            ctx.add(path, record, "image_id must name an image of annotations.json", line.get("image_id"))
+            continue
+        if stem is None:
+            continue
+        if stem in seen:
+            ctx.add(path, record, "each image must have one line", line.get("image_id"))
+        seen.add(stem)
+        width, height = line["width"], line["height"]
+        names = [ctx.ref_cat_names.get(c) for c in line["category_ids"][real].tolist()]
+        found = [(f"object {j}", names[j], tuple(b)) for j, b in enumerate(line["boxes"][real].tolist())]
+        # a dequantized coordinate is within half a bin of the true one
+        ctx.compare("tokens", path, stem, found, record=record, tol=max(width, height) / n_bins, crowd=False)
+        if (width, height) != ctx.ref_sizes[stem]:
+            ctx.add(path, record, f"width, height must match annotations.json {ctx.ref_sizes[stem]}", (width, height))
+    if reference:
+        ctx.missing("tokens", seen, ctx.rel(path) + " (image {stem})")
+        ctx.count("tokens", 1, len(lines) + len(bad), n_obj)
+        ctx.compare_total("tokens", path)
+

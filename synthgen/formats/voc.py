@@ -30,6 +30,7 @@ from __future__ import annotations
 
 import xml.etree.ElementTree as ET
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 
@@ -38,11 +39,16 @@ from synthgen.formats._common import (
     annotations_by_image,
     bad_record,
     categories_in_order,
+    inside_dataset,
     pixel_box,
     sidecar_name,
 )
+from synthgen.formats.dataset_dir import VOC_DIR
 
-__all__ = ["voc_document", "write_voc", "read_voc", "voc_box_from_pixel_box", "xyxy_from_voc_box"]
+if TYPE_CHECKING:
+    from synthgen.formats.check_context import CheckContext
+
+__all__ = ["voc_document", "write_voc", "read_voc", "voc_box_from_pixel_box", "xyxy_from_voc_box", "check_voc"]
 
 # A visible fraction this close to 1 counts as not occluded (float slack).
 _OCCLUDED_BELOW = 1.0 - 1e-9
@@ -229,3 +235,52 @@ def read_voc(path) -> dict:
     for key, values in flags.items():
         out[key] = np.array(values, dtype=bool)
     return out
+
+
+# --------------------------------------------------------------------------- check rule (synthgen check)
+
+
+def check_voc(ctx: CheckContext) -> bool:
+    """Check rule of VOC: ``voc/**/*.xml`` or ``Annotations/**/*.xml`` (not ``ImageSets``); True when found.
+
+    Each file's image exists with the size it gives, names are categories of the
+    reference, boxes are whole 1-based pixel indices, non-empty and inside the
+    image, and the objects are the reference's (ignore regions as ``difficult``).
+    """
+    d = next((ctx.root / n for n in (VOC_DIR, "Annotations") if (ctx.root / n).is_dir()), None)
+    if d is None:
+        return False
+    files = sorted(p for p in d.rglob("*.xml") if "ImageSets" not in p.relative_to(d).parts)
+    seen, n_obj = set(), 0
+    names_allowed = set(ctx.ref_names) if ctx.ref_names is not None else None
+    for p, stem, doc in ctx.read_each(d, files, read_voc, seen):
+        w, h = doc["width"], doc["height"]
+        n = len(doc["names"])
+        n_obj += n
+        img = ctx.find_image(doc["filename"]) if inside_dataset(doc["filename"]) else None
+        if img is None:
+            ctx.add(p, "filename", "image file must exist", doc["filename"])
+        else:
+            size = ctx.image_size(img)
+            if size is not None and size != (w, h):
+                ctx.add(p, "size", f"must match the image {ctx.rel(img)} {size}", (w, h))
+        voc = voc_box_from_pixel_box(doc["boxes"]) if n else np.zeros((0, 4), np.int64)
+        raw = doc["boxes"].copy()
+        raw[:, :2] += 1  # back to the file's 1-based values
+        for i in range(n):
+            record = f"object[{i}]"
+            xmin, ymin, xmax, ymax = raw[i].tolist()
+            if names_allowed is not None and doc["names"][i] not in names_allowed:
+                ctx.add(p, record, "name must be a category of annotations.json", doc["names"][i])
+            if not np.array_equal(raw[i], voc[i]):
+                ctx.add(p, f"{record} bndbox", "coordinates must be whole pixel indices", raw[i].tolist())
+            if xmin > xmax or ymin > ymax:
+                ctx.add(p, f"{record} bndbox", "box must be non-empty (xmin <= xmax, ymin <= ymax)", raw[i].tolist())
+            elif xmin < 1 or ymin < 1 or xmax > w or ymax > h:
+                ctx.add(p, f"{record} bndbox", f"box must lie inside the image [1, {w}] x [1, {h}]", raw[i].tolist())
+        found = [(f"object[{i}]", doc["names"][i], tuple(doc["boxes"][i].tolist())) for i in range(n)]
+        ctx.compare("voc", p, stem, found, (w, h), tol=1.0)
+    ctx.missing("voc", seen, ctx.rel(d) + "/{stem}.xml")
+    ctx.count("voc", len(files), len(files), n_obj)
+    ctx.compare_total("voc", d)
+    return True

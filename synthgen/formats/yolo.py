@@ -20,20 +20,29 @@ from __future__ import annotations
 
 import math
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 
+from synthgen._io import read_input_text
+from synthgen.errors import InputFileError
 from synthgen.formats._common import (
     annotations_by_image,
     bad_record,
     categories_in_order,
-    read_input_text,
     sidecar_name,
 )
+from synthgen.formats.check_context import name_at
+from synthgen.formats.coco import BOX_TOL  # also the slack, as a fraction of a side, of YOLO boxes
+from synthgen.formats.dataset_dir import YOLO_DIR
 from synthgen.geometry import as_boxes
+
+if TYPE_CHECKING:
+    from synthgen.formats.check_context import CheckContext
 
 __all__ = [
     "LABELS_FILE",
+    "check_yolo",
     "yolo_lines",
     "normalize_boxes",
     "denormalize_boxes",
@@ -45,6 +54,8 @@ __all__ = [
 ]
 
 LABELS_FILE = "labels.txt"
+# YOLO dataset files naming the classes, beside images/ and labels/ (common practice)
+_DATA_YAML = ("data.yaml", "data.yml", "dataset.yaml")
 
 
 def normalize_boxes(boxes, width: float, height: float) -> np.ndarray:
@@ -284,3 +295,80 @@ def read_yolo(path, width: float | None = None, height: float | None = None) -> 
     if width is not None and height is not None:
         boxes = denormalize_boxes(boxes, width, height)
     return cls_arr, boxes
+
+
+# --------------------------------------------------------------------------- check rule (synthgen check)
+
+
+def check_yolo(ctx: CheckContext) -> bool:
+    """Check rule of YOLO: ``yolo/**/*.txt`` with ``yolo/labels.txt`` (or ``labels/**/*.txt`` with
+    ``classes.txt`` or the ``names`` of ``data.yaml``); True when found.
+
+    The class names are the reference's categories by id; each label file has an
+    image of the same base name; classes index the names; boxes are non-empty and
+    inside ``[0, 1]``; the objects are the reference's without its ignore regions.
+    """
+    d = next((ctx.root / n for n in (YOLO_DIR, "labels") if (ctx.root / n).is_dir()), None)
+    if d is None:
+        return False
+    labels_path, labels = _check_class_names(ctx, d)
+    skip = {labels_path}
+    files = sorted(
+        p for p in d.rglob("*.txt") if p not in skip and p.relative_to(d).parts[0] != "splits"
+    )
+    seen, n_obj = set(), 0
+    for p, stem, (classes, boxes, lines, bad) in ctx.read_each(d, files, parse_yolo, seen):
+        for e in bad:  # every bad line on its own; the good ones are still checked
+            ctx.add_error(e)
+        n_obj += classes.size
+        if ctx.find_image_by_stem(stem) is None and ctx.find_image(stem) is None:
+            ctx.add(p, "", "image file must exist (same base name in images/)", stem)
+        names = labels if labels is not None else ctx.ref_names
+        for i in range(classes.size):
+            record = f"line {lines[i]}"
+            c = int(classes[i])
+            xc, yc, w, h = boxes[i].tolist()
+            if labels is not None and not 0 <= c < len(labels):
+                ctx.add(p, record, f"class must be in [0, {len(labels) - 1}] ({labels_path.name})", c)
+            if w <= 0 or h <= 0:
+                ctx.add(p, record, "box must be non-empty (w > 0 and h > 0)", boxes[i].tolist())
+            # the slack of COCO's inside-the-image rule, as a fraction of the side
+            elif xc - w / 2 < -BOX_TOL or yc - h / 2 < -BOX_TOL or xc + w / 2 > 1 + BOX_TOL or yc + h / 2 > 1 + BOX_TOL:
+                ctx.add(p, record, "box must lie inside the image (normalized [0, 1])", boxes[i].tolist())
+        if stem in ctx.ref_sizes:
+            pixels = denormalize_boxes(boxes, *ctx.ref_sizes[stem])
+            found = [
+                (f"line {lines[i]}", name_at(names, int(classes[i])), tuple(pixels[i].tolist()))
+                for i in range(classes.size)
+            ]
+        else:
+            found = [(f"line {n}", None, None) for n in lines]
+        ctx.compare("yolo", p, stem, found, crowd=False)
+    ctx.missing("yolo", seen, ctx.rel(d) + "/{stem}.txt")
+    ctx.count("yolo", len(files), len(files), n_obj)
+    ctx.compare_total("yolo", d)
+    return True
+
+
+def _check_class_names(ctx: CheckContext, d: Path) -> tuple[Path | None, list[str] | None]:
+    """The class-name file of a YOLO directory and its names (None when missing or unreadable, with a problem)."""
+    places = [d / LABELS_FILE, d / "classes.txt", ctx.root / "classes.txt"]
+    places += [ctx.root / n for n in _DATA_YAML]
+    labels_path = next((p for p in places if p.is_file()), None)
+    labels = None
+    if labels_path is None:
+        ctx.add(
+            d / LABELS_FILE, "", f"class-name file must exist (or classes.txt, or {_DATA_YAML[0]})",
+            "<missing>",
+        )
+    else:
+        try:
+            if labels_path.suffix in (".yaml", ".yml"):
+                labels = read_data_yaml(labels_path)
+            else:
+                labels = read_labels(labels_path)
+        except InputFileError as e:
+            ctx.add_error(e)
+        if labels is not None and ctx.ref_names is not None and labels != ctx.ref_names:
+            ctx.add(labels_path, "", f"must list the categories of annotations.json by id {ctx.ref_names}", labels)
+    return labels_path, labels
