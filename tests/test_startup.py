@@ -1,0 +1,27 @@
+"""Start-up cost: what each entry point imports in a fresh interpreter (no timing asserted here;
+benchmarks/run_all.py measures the seconds)."""
+
+from __future__ import annotations
+
+import subprocess
+import sys
+
+
+def _loaded_after(statement: str, modules: tuple[str, ...]) -> list[str]:
+    code = f"import sys\n{statement}\nprint(' '.join(m for m in {modules!r} if m in sys.modules))"
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout
+    return out.split()
+
+
+def test_loading_a_config_does_not_import_opencv():
+    """Reading a config (bad-input errors, plans) leaves OpenCV (~0.1 s to import) unloaded: config.py
+    holds the schema without the scene modules that draw with OpenCV."""
+    statement = "from synthgen.config import load_config; load_config(overrides=['count=3'])"
+    assert _loaded_after(statement, ("cv2",)) == []
+
+
+def test_command_line_help_imports_no_array_library():
+    """`synthgen --help` needs typer only: numpy, OpenCV, shapely and pydantic stay unloaded."""
+    statement = "import synthgen.cli"
+    assert _loaded_after(statement, ("numpy", "cv2", "shapely", "pydantic")) == []
+
