@@ -115,6 +115,8 @@ def test_perfect_detector_scores_one(truth, tmp_path):
                                  "varied": None}]
     assert probe["source"]["kind"] == "dataset" and probe["images"] == 6 and not (tmp_path / "p" / ".probe").exists()
     assert probe["source"]["manifest_digest"] == hashlib.sha256((truth / "manifest.json").read_bytes()).hexdigest()
+    page = (tmp_path / "p" / "report.html").read_text()  # the command writes the report by default
+    assert "perfect" in page and probe["source"]["manifest_digest"] in page and f"wrote {tmp_path / 'p'}" in res.stdout
 
 
 def test_tuples_and_coco_ids_are_accepted_and_batch_does_not_matter(truth, tmp_path):
@@ -220,13 +222,15 @@ def test_sweep_probe_files_and_score_agree(tmp_path):
     assert mine["sweep"] == json.loads((tmp_path / "s.json").read_text())["sweep"]
     assert set(mine["subsets"]) == {"objects.size=[2,4]", "objects.size=[8,16]"}
     assert (out / "figures" / "sweep.png").is_file() and (out / "figures" / "objects.size=[8,16].png").is_file()
+    assert "objects.size=[8,16]" in (out / "report.html").read_text()
 
 
 def test_progress_reports_images_per_second(truth, tmp_path):
     """Without --quiet a bar runs on stderr; stdout has the scores and the detector's images/s."""
-    res = run("probe", truth, "-d", PERFECT, "-o", tmp_path / "p", "--batch", "1")
+    res = run("probe", truth, "-d", PERFECT, "-o", tmp_path / "p", "--batch", "1", "--no-report")
     assert res.exit_code == 0, res.output
     assert "ds: AP 1.000, AP50 1.000" in res.stdout and "images/s" in res.stdout
+    assert not (tmp_path / "p" / "report.html").exists()
 
 
 def test_set_without_config_is_refused(truth, tmp_path):

@@ -21,8 +21,8 @@ def probe(
         str,
         typer.Option(
             "--detector", "-d",
-            help="builtin (the reference detector), module:function or path/to/file.py:function (a Python "
-            "callable), onnx:MODEL.onnx (needs the [onnx] extra) or results:DIR (COCO results per subset).",
+            help="builtin (the reference detector), MODULE:FUNC or FILE.py:FUNC (your Python callable), "
+            "onnx:MODEL.onnx (needs the onnx extra) or results:DIR (COCO results per subset).",
         ),
     ] = ...,
     out: Annotated[
@@ -44,6 +44,9 @@ def probe(
     count: Annotated[int | None, typer.Option(help="With a config SOURCE: images per dataset.")] = None,
     seed: Annotated[int | None, typer.Option(help="With a config SOURCE: root seed.")] = None,
     set_: SetOpt = None,
+    report: Annotated[
+        bool, typer.Option("--report/--no-report", help="Also write DIR/report.html (needs the plots extra).")
+    ] = True,
     quiet: Annotated[bool, typer.Option("--quiet", "-q", help="No progress bar.")] = False,
 ) -> None:
     """Run a detector over a dataset or sweep, keep its predictions and score them factor by factor."""
@@ -55,9 +58,12 @@ def probe(
         summary = run_probe(
             source, spec, out, by=by, batch=batch, workers=workers, resume=resume, overwrite=overwrite,
             vary=vary or (), overrides=_overrides(set_, count, seed), progress=progress, data_progress=data_progress,
+            report=report,
         )
     for name, (ap, ap50) in summary.scores.items():
         typer.echo(f"{name}: AP {ap:.3f}, AP50 {ap50:.3f}")
     rate = "" if not summary.detector_seconds else (
         f", {summary.detected / summary.detector_seconds:.1f} images/s in the detector")
     typer.echo(f"probed {_count(summary.images, 'image')} into {summary.out} in {summary.seconds:.2f} s{rate}")
+    if summary.page is not None:
+        typer.echo(f"wrote {summary.page}")

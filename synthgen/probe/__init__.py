@@ -41,6 +41,10 @@ What DIR holds (a contract: the HTML report reads it)
     When matplotlib is installed: ``<name>.png`` per subset (recall and AP per
     bin, as ``score --plot``) and, for a sweep, ``sweep.png`` (AP and AR
     across the sweep).
+``DIR/report.html``
+    The HTML report of the run (:func:`synthgen.page.write_report`), written
+    after ``probe.json`` when asked (``synthgen probe`` does unless
+    ``--no-report``) and matplotlib is installed.
 ``DIR/data/``
     The datasets made from a config source.
 ``DIR/.probe/``

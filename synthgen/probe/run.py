@@ -37,6 +37,7 @@ __all__ = ["Subset", "Source", "ProbeSummary", "DEFAULT_BY", "resolve_source", "
 #: Facts scored per bin when ``--by`` is not given (those the dataset records).
 DEFAULT_BY = ("size", "visible_fraction", "contrast", "max_iou")
 STATE = ".probe"  # DIR/.probe/: run.json (what was asked) and journal.jsonl (done images), while running
+PAGE = "report.html"  # DIR/report.html: the run's HTML page (synthgen.page), written after probe.json
 
 
 @dataclass(frozen=True)
@@ -69,6 +70,7 @@ class ProbeSummary:
     seconds: float
     detector_seconds: float
     scores: dict  # subset name -> (AP, AP50)
+    page: Path | None = None  # the HTML report, when one was written
 
 
 def _dataset_digest(path: Path) -> str:
@@ -203,7 +205,7 @@ def _prepare_out(out: Path, resume: bool, overwrite: bool) -> None:
         raise UserError(f"{out}: output path is a file, not a directory")
     if out.is_dir() and any(out.iterdir()):
         if overwrite:
-            for name in ("probe.json", "score.json"):
+            for name in ("probe.json", "score.json", PAGE):
                 (out / name).unlink(missing_ok=True)
             for name in ("predictions", "figures", STATE):
                 shutil.rmtree(out / name, ignore_errors=True)
@@ -362,7 +364,7 @@ def run_probe(
     source, detector, out, *, by: Sequence[str] | None = None, batch: int = 8, workers: int = 1,
     resume: bool = False, overwrite: bool = False, vary: Sequence[str] = (), overrides: Sequence[str] = (),
     progress: Callable[[int, int], None] | None = None,
-    data_progress: Callable[[int, int], None] | None = None,
+    data_progress: Callable[[int, int], None] | None = None, report: bool = False,
 ) -> ProbeSummary:
     """Run ``detector`` over a dataset or sweep (made from a config first), then score it.
 
@@ -387,6 +389,8 @@ def run_probe(
         ``--vary`` and ``--set`` texts for a config source.
     progress, data_progress : callable or None
         ``(done, total)`` images detected; images rendered for a config source.
+    report : bool
+        Also write the HTML report ``report.html`` (:mod:`synthgen.page`), when matplotlib is installed.
 
     Raises
     ------
@@ -422,11 +426,7 @@ def run_probe(
         entries, ran, det_seconds = _detect_all(detector, src.subsets, truths, state, batch=batch, workers=workers,
                                                 progress=progress)
         files = _predictions(src.subsets, truths, entries)
-    for name, data in files.items():
-        write_atomic(out / "predictions" / f"{name}.json", data)
-    scores, points = _score(out, src, truths, by)
-    write_atomic(out / "score.json", orjson.dumps(scores, option=orjson.OPT_INDENT_2))
-    _figures(out, src, points)
+    scores = _write_results(out, src, truths, by, files)
     images = sum(len(gt["images"]) for gt in truths)
     seconds = time.perf_counter() - start
     record = _probe_record(out, src, asked, images, seconds)
@@ -434,4 +434,26 @@ def run_probe(
     shutil.rmtree(state, ignore_errors=True)
     summary_scores = {name: (d["stats"]["AP"], d["stats"]["AP50"]) for name, d in scores["subsets"].items()}
     return ProbeSummary(out=out, images=images, detected=ran, seconds=seconds, detector_seconds=det_seconds,
-                        scores=summary_scores)
+                        scores=summary_scores, page=_page(out, by) if report else None)
+
+
+def _write_results(out: Path, src: Source, truths: list, by: list, files: dict) -> dict:
+    """The predictions files, score.json and the figures; returns the scores."""
+    for name, data in files.items():
+        write_atomic(out / "predictions" / f"{name}.json", data)
+    scores, points = _score(out, src, truths, by)
+    write_atomic(out / "score.json", orjson.dumps(scores, option=orjson.OPT_INDENT_2))
+    _figures(out, src, points)
+    return scores
+
+
+def _page(out: Path, by: list) -> Path | None:
+    """The run's HTML report (:func:`synthgen.page.write_report`) at ``out/report.html``; None without matplotlib."""
+    try:
+        import matplotlib  # noqa: F401
+    except ImportError:
+        return None
+    from synthgen.page import write_report
+
+    write_report(out, out / PAGE, by=by)
+    return out / PAGE
