@@ -214,9 +214,12 @@ def _ignored_match(gt_ignore: np.ndarray, matched: np.ndarray) -> np.ndarray:
     ``gt_ignore`` is (A, G); ``matched`` is (A, ...) of indices or -1.
     """
     n_a, n_g = gt_ignore.shape
-    padded = np.concatenate([gt_ignore, np.zeros((n_a, 1), dtype=bool)], axis=1)
-    idx = np.where(matched >= 0, matched, n_g)
-    return padded[np.arange(n_a).reshape((n_a,) + (1,) * (matched.ndim - 1)), idx]
+    padded = np.zeros((n_a, n_g + 1), dtype=bool)  # column n_g: "unmatched", never ignored
+    padded[:, :n_g] = gt_ignore
+    out = np.empty(matched.shape, dtype=bool)
+    for a in range(n_a):
+        np.take(padded[a], matched[a], out=out[a], mode="wrap")  # -1 wraps to column n_g
+    return out
 
 
 def _mean_valid(s: np.ndarray) -> float:
