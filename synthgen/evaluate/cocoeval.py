@@ -186,17 +186,22 @@ def _accumulate(
         if not npig[k].any():
             continue
         seg = pb.acc_order[pb.cat_start[k] : pb.cat_start[k + 1]]
+        seg_rank = pb.rank[seg]
+        tps_k, fps_k = tps_all[:, :, seg], fps_all[:, :, seg]  # (A, T, n)
+        count_type = np.int32 if len(seg) < 2**31 else np.int64
         for m, max_det in enumerate(max_dets):
-            sel = seg[pb.rank[seg] < max_det]
-            nd = len(sel)
-            # Counts stay exact integers in float64 (the reference casts int cumsums to float).
-            tp = np.cumsum(tps_all[:, :, sel], axis=2, dtype=np.float64)  # (A, T, nd)
-            fp = np.cumsum(fps_all[:, :, sel], axis=2, dtype=np.float64)
+            keep = seg_rank < max_det
+            every = bool(keep.all())
+            nd = len(seg) if every else int(np.count_nonzero(keep))
+            # Integer counts, as the reference's cumsums; once in float64 they are the same exact values.
+            tp = np.cumsum(tps_k if every else tps_k[:, :, keep], axis=2, dtype=count_type)  # (A, T, nd)
+            fp = np.cumsum(fps_k if every else fps_k[:, :, keep], axis=2, dtype=count_type)
+            fp += tp  # detections counted so far
             for a in range(n_a):
                 if npig[k, a] == 0:
                     continue
                 rc = tp[a] / npig[k, a]  # (T, nd)
-                pr = tp[a] / (fp[a] + tp[a] + _EPS)
+                pr = tp[a] / (fp[a] + _EPS)
                 recall[:, k, a, m] = rc[:, -1] if nd else 0.0
                 pr = np.maximum.accumulate(pr[:, ::-1], axis=1)[:, ::-1]
                 for t in range(n_t):
