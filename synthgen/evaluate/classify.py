@@ -113,15 +113,20 @@ def _best_other_class(t, pb, fp: np.ndarray, gt_xyxy: np.ndarray, det_xyxy: np.n
     col = np.arange(len(g_order)) - start[t.img[g_order]]
     table = np.full((n_img, width), -1, dtype=np.int64)
     table[t.img[g_order], col] = g_order
-    cand = table[pb.img[fp]]  # (F, W)
-    valid = cand >= 0
-    g = np.where(valid, cand, 0)
-    valid &= t.cat[g] != pb.cat[fp][:, None]
-    iou = _iou_table(det_xyxy[fp], gt_xyxy, g)
-    iou[~valid] = -1.0
-    j = np.argmax(iou, axis=1)  # the first column among equal IoUs: file order
-    rows = np.arange(len(fp))
-    return np.where(iou[rows, j] >= 0.5, cand[rows, j], -1)
+    best = np.empty(len(fp), dtype=np.int64)
+    step = max(1, (1 << 18) // max(width, 1))  # rows at once, so that the temporaries stay small
+    for r0 in range(0, len(fp), step):
+        f = fp[r0 : r0 + step]
+        cand = table[pb.img[f]]  # (F, W)
+        valid = cand >= 0
+        g = np.where(valid, cand, 0)
+        valid &= t.cat[g] != pb.cat[f][:, None]
+        iou = _iou_table(det_xyxy[f], gt_xyxy, g)
+        iou[~valid] = -1.0
+        j = np.argmax(iou, axis=1)  # the first column among equal IoUs: file order
+        rows = np.arange(len(f))
+        best[r0 : r0 + step] = np.where(iou[rows, j] >= 0.5, cand[rows, j], -1)
+    return best
 
 
 def _iou_table(d: np.ndarray, gt_xyxy: np.ndarray, g: np.ndarray) -> np.ndarray:

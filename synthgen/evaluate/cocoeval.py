@@ -487,7 +487,7 @@ def evaluate(
     """
     truth = parse_truth(coco_gt, gt_name)
     preds = parse_predictions(predictions, pred_name, truth)
-    return Evaluation(truth, preds, build_problem(truth, preds, _MAX_DET))
+    return Evaluation(truth, preds, build_problem(truth, preds, _MAX_DET, min_iou=IOU_THRESHOLDS.min()))
 
 
 # --------------------------------------------------------------------------- files and options

@@ -51,7 +51,8 @@ class Problem:
     Detections (D of them) are in *match order*: by rank within their image
     and category (rank 0 = highest score), then by image and category.  Pairs
     (P of them) join each detection to every ground truth of its image and
-    category, in detection order and then file order of the ground truth.
+    category (with an IoU of at least ``min_iou`` when :func:`build_problem`
+    was given one), in detection order and then file order of the ground truth.
     """
 
     rec: np.ndarray  # (D,) index of the record in the predictions list
@@ -67,8 +68,15 @@ class Problem:
     cat_start: np.ndarray  # (K + 1,) first position of each category in acc_order
 
 
-def build_problem(truth: Truth, preds: Preds, max_det: int | None) -> Problem:
-    """Detections in match order (at most ``max_det`` per image and category; None keeps all) and their pairs."""
+#: Detections handled at once when listing pairs (bounds the size of temporary arrays).
+_CHUNK = 1 << 15
+
+
+def build_problem(truth: Truth, preds: Preds, max_det: int | None, min_iou: float | None = None) -> Problem:
+    """Detections in match order (at most ``max_det`` per image and category; None keeps all) and their pairs.
+
+    With ``min_iou``, pairs whose IoU is below it are left out (they can match at no threshold >= ``min_iou``).
+    """
     k_cats = len(truth.cat_ids)
     idx = np.flatnonzero(preds.cat >= 0)
     group = preds.img[idx] * k_cats + preds.cat[idx]
@@ -92,12 +100,21 @@ def build_problem(truth: Truth, preds: Preds, max_det: int | None) -> Problem:
     g_sorted = g_group[g_order]
     lo = np.searchsorted(g_sorted, d_group, side="left")
     cnt = np.searchsorted(g_sorted, d_group, side="right") - lo
-    p_det = np.repeat(np.arange(d_count), cnt)
-    offsets = np.cumsum(cnt) - cnt
-    within = np.arange(len(p_det)) - np.repeat(offsets, cnt)
-    p_gt = g_order[np.repeat(lo, cnt) + within]
     box = preds.box[rec]
-    p_iou = coco_iou(box[p_det], truth.box[p_gt], truth.crowd[p_gt])
+    chunks = []
+    for d0 in range(0, d_count, _CHUNK):  # in slices of detections, so that the temporaries stay small
+        d1 = min(d0 + _CHUNK, d_count)
+        c = cnt[d0:d1]
+        p_det = np.repeat(np.arange(d0, d1), c)
+        within = np.arange(len(p_det)) - np.repeat(np.cumsum(c) - c, c)
+        p_gt = g_order[np.repeat(lo[d0:d1], c) + within]
+        p_iou = coco_iou(box[p_det], truth.box[p_gt], truth.crowd[p_gt])
+        if min_iou is not None:
+            kept = p_iou >= min_iou
+            p_det, p_gt, p_iou = p_det[kept], p_gt[kept], p_iou[kept]
+        chunks.append((p_det, p_gt, p_iou))
+    p_det, p_gt, p_iou = (np.concatenate(c) for c in zip(*chunks)) if chunks else (
+        np.zeros(0, np.int64), np.zeros(0, np.int64), np.zeros(0))
 
     cat = preds.cat[rec]
     img = preds.img[rec]
