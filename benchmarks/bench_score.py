@@ -92,10 +92,10 @@ ev.summarize()
 """
 
 
-def _child_cpu(cmd: list[str], env: dict | None = None) -> float:
+def _child_cpu(cmd: list[str], cwd: str, env: dict | None = None) -> float:
     """User + system CPU seconds of one child process (its output discarded)."""
     before = resource.getrusage(resource.RUSAGE_CHILDREN)
-    subprocess.run(cmd, check=True, stdout=subprocess.DEVNULL, env=env)
+    subprocess.run(cmd, check=True, stdout=subprocess.DEVNULL, env=env, cwd=cwd)
     after = resource.getrusage(resource.RUSAGE_CHILDREN)
     return (after.ru_utime - before.ru_utime) + (after.ru_stime - before.ru_stime)
 
@@ -119,11 +119,12 @@ def whole_command(gt: dict, preds: list, repeat: int, baseline: str | None) -> d
         env_ours = {**os.environ, "PYTHONPATH": root}
         env_base = {**os.environ, "PYTHONPATH": str(Path(baseline).resolve())} if baseline else None
         for _ in range(repeat):
-            times["synthgen score"].append(_child_cpu(ours, env_ours))
+            # cwd is the temporary directory: "-m" puts it first on sys.path, before PYTHONPATH.
+            times["synthgen score"].append(_child_cpu(ours, tmp, env_ours))
             if baseline:
-                times["synthgen score (baseline)"].append(_child_cpu(ours, env_base))
+                times["synthgen score (baseline)"].append(_child_cpu(ours, tmp, env_base))
             if have_fce:
-                times["faster-coco-eval"].append(_child_cpu([sys.executable, "-c", _FCE_SCRIPT, *files]))
+                times["faster-coco-eval"].append(_child_cpu([sys.executable, "-c", _FCE_SCRIPT, *files], tmp))
     return times
 
 
@@ -156,7 +157,7 @@ def main() -> None:
     t_ours = cpu() - t0
     print(f"in process, CPU s: synthgen.evaluate.evaluate (validation, matching, 12 stats, per category): {t_ours:.2f}")
     t0 = cpu()
-    ours.confusion
+    ours.confusion  # noqa: B018 (computed on first use)
     t_conf = cpu() - t0
     print(f"  + confusion table: {t_conf:.2f}")
     if args.no_pycocotools:
