@@ -535,3 +535,18 @@ def test_finding_every_visible_speck_loses_nothing(dense_coco):
     worse = coco_reference(unmarked, preds)
     assert worse.stats[0] < 0.99  # the specks found become false positives, ranked first
     np.testing.assert_allclose(evaluate(unmarked, preds).stats, worse.stats, rtol=0, atol=1e-9)
+
+
+@pytest.mark.parametrize("seed", range(6))
+def test_pairs_listed_in_small_slices_give_the_same_evaluation(seed, monkeypatch):
+    """Pairs are listed in slices of detections; slices of 2 give the stats, matches and confusion of one slice."""
+    from synthgen.evaluate import match as match_module
+
+    gt, preds = random_case(np.random.default_rng(100 + seed), grid=seed % 2 == 0, many=seed % 3 == 0)
+    whole = evaluate(gt, preds)
+    monkeypatch.setattr(match_module, "_CHUNK", 2)
+    sliced = evaluate(gt, preds)
+    assert sliced.stats == whole.stats
+    assert np.array_equal(sliced._matched, whole._matched)
+    assert np.array_equal(sliced.confusion.counts, whole.confusion.counts)
+    assert len(sliced._pb.p_iou) == 0 or sliced._pb.p_iou.min() >= 0.5  # pairs below every threshold left out
