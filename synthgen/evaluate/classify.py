@@ -20,7 +20,7 @@ from synthgen.evaluate.match import build_problem, match
 from synthgen.evaluate.parse import Preds, Truth
 from synthgen.formats.coco import bbox_from_xyxy, xyxy_from_bbox
 from synthgen.formats.results import read_predictions as read_prediction_records
-from synthgen.geometry import box_area, box_iou, pairwise_iou
+from synthgen.geometry import box_iou, pairwise_iou
 
 
 @dataclass(frozen=True, slots=True)
@@ -121,25 +121,12 @@ def _best_other_class(t, pb, fp: np.ndarray, gt_xyxy: np.ndarray, det_xyxy: np.n
         valid = cand >= 0
         g = np.where(valid, cand, 0)
         valid &= t.cat[g] != pb.cat[f][:, None]
-        iou = _iou_table(det_xyxy[f], gt_xyxy, g)
+        iou = box_iou(np.repeat(det_xyxy[f], width, axis=0), gt_xyxy[g.ravel()]).reshape(g.shape)
         iou[~valid] = -1.0
         j = np.argmax(iou, axis=1)  # the first column among equal IoUs: file order
         rows = np.arange(len(f))
         best[r0 : r0 + step] = np.where(iou[rows, j] >= 0.5, cand[rows, j], -1)
     return best
-
-
-def _iou_table(d: np.ndarray, gt_xyxy: np.ndarray, g: np.ndarray) -> np.ndarray:
-    """IoU of each detection ``d[i]`` (xyxy) with the objects ``g[i, :]``, by :func:`synthgen.geometry.box_iou`'s arithmetic."""
-    gx0, gy0, gx1, gy1 = (gt_xyxy[:, c][g] for c in range(4))
-    w = np.minimum(d[:, 2:3], gx1) - np.maximum(d[:, 0:1], gx0)
-    h = np.minimum(d[:, 3:4], gy1) - np.maximum(d[:, 1:2], gy0)
-    inter = np.clip(w, 0, None, out=w) * np.clip(h, 0, None, out=h)
-    g_area = box_area(gt_xyxy)[g]
-    union = box_area(d)[:, None] + g_area - inter
-    out = np.zeros_like(inter)
-    np.divide(inter, union, out=out, where=union > 0)
-    return out
 
 
 def _best_other_class_pairs(t, pb, fp, g_order, per_img, gt_xyxy, det_xyxy) -> np.ndarray:
