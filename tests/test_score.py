@@ -255,6 +255,13 @@ def test_confusion_counts_cross_class_hits():
     assert conf.confused == 1
 
 
+def test_confusion_without_any_object_counts_every_detection_as_none():
+    """No annotation at all: each detection is a false positive in the "none" row (Confusion's rule)."""
+    gt = {"images": [{"id": 1}], "categories": [{"id": 1, "name": "disc"}, {"id": 2, "name": "ring"}], "annotations": []}
+    preds = [_pred(1, 1, [0, 0, 10, 10], 0.9), _pred(1, 2, [5, 5, 10, 10], 0.8), _pred(1, 2, [50, 5, 10, 10], 0.7)]
+    assert evaluate(gt, preds).confusion.counts.tolist() == [[0, 0], [0, 0], [1, 2]]
+
+
 @pytest.mark.parametrize("seed", range(12))
 def test_confusion_best_other_class_agrees_with_a_plain_loop(seed):
     """The padded-table and pair-list searches for a false positive's best other-class object agree with a

@@ -78,16 +78,14 @@ def confusion_counts(t, pb, hit: np.ndarray, tp: np.ndarray, det_out: np.ndarray
         Detections left out of the size range.
     """
     n_k = len(t.cat_ids)
-    cells = [pb.cat[tp] * (n_k + 1)]  # flat index row * (K + 1) + column of counts.T, diagonal first
-    cells[0] += pb.cat[tp]
     fp = np.flatnonzero(~hit & ~det_out)
-    gt_xyxy = xyxy_from_bbox(t.box)
-    det_xyxy = xyxy_from_bbox(pb.box)
-    best = _best_other_class(t, pb, fp, gt_xyxy, det_xyxy)  # (F,) ground truth index or -1
-    row = np.where(best >= 0, t.cat[best], n_k)
-    cells.append(pb.cat[fp] * (n_k + 1) + row)
-    flat = np.bincount(np.concatenate(cells), minlength=n_k * (n_k + 1))
-    return Confusion(names=t.cat_names, counts=flat.reshape(n_k, n_k + 1).T.copy())
+    best = _best_other_class(t, pb, fp, xyxy_from_bbox(t.box), xyxy_from_bbox(pb.box))  # (F,) object or -1
+    fp_row = np.full(len(fp), n_k, dtype=np.int64)  # "none" unless it hit an object of another class
+    fp_row[best >= 0] = t.cat[best[best >= 0]]
+    row = np.concatenate([pb.cat[tp], fp_row])
+    col = np.concatenate([pb.cat[tp], pb.cat[fp]])
+    counts = np.bincount(row * n_k + col, minlength=(n_k + 1) * n_k).reshape(n_k + 1, n_k)
+    return Confusion(names=t.cat_names, counts=counts)
 
 
 def _best_other_class(t, pb, fp: np.ndarray, gt_xyxy: np.ndarray, det_xyxy: np.ndarray) -> np.ndarray:
@@ -122,7 +120,7 @@ def _best_other_class(t, pb, fp: np.ndarray, gt_xyxy: np.ndarray, det_xyxy: np.n
         g = np.where(valid, cand, 0)
         valid &= t.cat[g] != pb.cat[f][:, None]
         iou = box_iou(np.repeat(det_xyxy[f], width, axis=0), gt_xyxy[g.ravel()]).reshape(g.shape)
-        iou[~valid] = -1.0
+        iou[~(valid & (iou >= 0.5))] = -1.0  # (NaN, from absurd boxes, is below too)
         j = np.argmax(iou, axis=1)  # the first column among equal IoUs: file order
         rows = np.arange(len(f))
         best[r0 : r0 + step] = np.where(iou[rows, j] >= 0.5, cand[rows, j], -1)
