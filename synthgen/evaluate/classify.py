@@ -79,32 +79,73 @@ def confusion_counts(t, pb, hit: np.ndarray, tp: np.ndarray, det_out: np.ndarray
         Detections left out of the size range.
     """
     n_k = len(t.cat_ids)
-    counts = np.zeros((n_k + 1, n_k), dtype=np.int64)
-    np.add.at(counts, (pb.cat[tp], pb.cat[tp]), 1)
     fp = np.flatnonzero(~hit & ~det_out)
-    # Pairs of each false positive with every non-crowd object of its image.
-    g_order = np.argsort(t.img, kind="stable")
-    g_img = t.img[g_order]
-    lo = np.searchsorted(g_img, pb.img[fp], side="left")
-    cnt = np.searchsorted(g_img, pb.img[fp], side="right") - lo
-    q_det = np.repeat(fp, cnt)
-    q_gt = g_order[np.repeat(lo, cnt) + np.arange(len(q_det)) - np.repeat(np.cumsum(cnt) - cnt, cnt)]
-    keep = (t.cat[q_gt] != pb.cat[q_det]) & ~t.crowd[q_gt]
-    q_det, q_gt = q_det[keep], q_gt[keep]
-    iou = box_iou(xyxy_from_bbox(pb.box)[q_det], xyxy_from_bbox(t.box)[q_gt])
-    ok = iou >= 0.5
-    q_det, q_gt, iou = q_det[ok], q_gt[ok], iou[ok]
-    # Best IoU per detection (the first in file order among equals).
-    order = np.lexsort((q_gt, -iou, q_det))
-    q_det, q_gt = q_det[order], q_gt[order]
-    first = np.r_[True, q_det[1:] != q_det[:-1]] if len(q_det) else np.zeros(0, bool)
-    q_det, q_gt = q_det[first], q_gt[first]
-    np.add.at(counts, (t.cat[q_gt], pb.cat[q_det]), 1)
-    explained = np.zeros(len(pb.rec), dtype=bool)
-    explained[q_det] = True
-    rest = fp[~explained[fp]]
-    np.add.at(counts, (np.full(len(rest), n_k), pb.cat[rest]), 1)
+    best = _best_other_class(t, pb, fp, xyxy_from_bbox(t.box), xyxy_from_bbox(pb.box))  # (F,) object or -1
+    fp_row = np.full(len(fp), n_k, dtype=np.int64)  # "none" unless it hit an object of another class
+    fp_row[best >= 0] = t.cat[best[best >= 0]]
+    row = np.concatenate([pb.cat[tp], fp_row])
+    col = np.concatenate([pb.cat[tp], pb.cat[fp]])
+    counts = np.bincount(row * n_k + col, minlength=(n_k + 1) * n_k).reshape(n_k + 1, n_k)
     return Confusion(names=t.cat_names, counts=counts)
+
+
+def _best_other_class(t, pb, fp: np.ndarray, gt_xyxy: np.ndarray, det_xyxy: np.ndarray) -> np.ndarray:
+    """For each detection in ``fp``, the non-crowd object of another class in its image with the highest IoU
+    (xyxy IoU of :func:`synthgen.geometry.box_iou`) when it is at least 0.5, the first in file order among
+    equals; -1 where there is none.
+
+    The candidates are laid out as a table with one row per detection and one column per object of
+    its image (padded), so the IoUs are a few whole-table array operations; an image with far more
+    objects than the others would make the padding dominate, and then the pairs are listed one by one.
+    """
+    keep = np.flatnonzero(~t.crowd)
+    g_order = keep[np.argsort(t.img[keep], kind="stable")]  # non-crowd objects by image, file order within
+    n_img = int(max(t.img.max(initial=-1), pb.img.max(initial=-1))) + 1
+    per_img = np.bincount(t.img[g_order], minlength=n_img)
+    width = int(per_img.max(initial=0))
+    n_pairs = int(per_img[pb.img[fp]].sum())
+    if len(fp) == 0 or n_pairs == 0:
+        return np.full(len(fp), -1, dtype=np.int64)
+    if len(fp) * width > 4 * n_pairs + (1 << 20):
+        return _best_other_class_pairs(t, pb, fp, g_order, per_img, gt_xyxy, det_xyxy)
+    start = np.cumsum(per_img) - per_img
+    col = np.arange(len(g_order)) - start[t.img[g_order]]
+    table = np.full((n_img, width), -1, dtype=np.int64)
+    table[t.img[g_order], col] = g_order
+    best = np.empty(len(fp), dtype=np.int64)
+    step = max(1, (1 << 18) // max(width, 1))  # rows at once, so that the temporaries stay small
+    for r0 in range(0, len(fp), step):
+        f = fp[r0 : r0 + step]
+        cand = table[pb.img[f]]  # (F, W)
+        valid = cand >= 0
+        g = np.where(valid, cand, 0)
+        valid &= t.cat[g] != pb.cat[f][:, None]
+        iou = box_iou(np.repeat(det_xyxy[f], width, axis=0), gt_xyxy[g.ravel()]).reshape(g.shape)
+        iou[~(valid & (iou >= 0.5))] = -1.0  # (NaN, from absurd boxes, is below too)
+        j = np.argmax(iou, axis=1)  # the first column among equal IoUs: file order
+        rows = np.arange(len(f))
+        best[r0 : r0 + step] = np.where(iou[rows, j] >= 0.5, cand[rows, j], -1)
+    return best
+
+
+def _best_other_class_pairs(t, pb, fp, g_order, per_img, gt_xyxy, det_xyxy) -> np.ndarray:
+    """:func:`_best_other_class` by listing every (detection, object) pair, for very uneven images."""
+    start = np.cumsum(per_img) - per_img
+    lo = start[pb.img[fp]]
+    cnt = per_img[pb.img[fp]]
+    q = np.repeat(np.arange(len(fp)), cnt)
+    q_gt = g_order[np.repeat(lo, cnt) + np.arange(len(q)) - np.repeat(np.cumsum(cnt) - cnt, cnt)]
+    other = t.cat[q_gt] != pb.cat[fp[q]]
+    q, q_gt = q[other], q_gt[other]
+    iou = box_iou(det_xyxy[fp[q]], gt_xyxy[q_gt])
+    ok = iou >= 0.5
+    q, q_gt, iou = q[ok], q_gt[ok], iou[ok]
+    order = np.lexsort((q_gt, -iou, q))  # best IoU per detection, the first in file order among equals
+    q, q_gt = q[order], q_gt[order]
+    first = np.r_[True, q[1:] != q[:-1]] if len(q) else np.zeros(0, bool)
+    best = np.full(len(fp), -1, dtype=np.int64)
+    best[q[first]] = q_gt[first]
+    return best
 
 
 # --------------------------------------------------------------------------- error kinds
