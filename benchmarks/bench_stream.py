@@ -44,7 +44,7 @@ def main() -> None:
     if hasattr(os, "sched_setaffinity"):
         os.sched_setaffinity(0, {sorted(os.sched_getaffinity(0))[0]})  # one core
     config = load_config(overrides=["canvas.width=640", "canvas.height=480", "objects.count=[10,10]",
-                                    f"count={args.items}"])
+                                    f"count={max(args.items, 3)}"])  # the warm-up reads 3 items
     plain = SceneStream(config)
     tokens = SceneStream(config, tokens=TokenSpec(bins=1000, order="random", pad_to=20))
     image = plain[0][0]

@@ -67,3 +67,5 @@ def probe(
     typer.echo(f"probed {_count(summary.images, 'image')} into {summary.out} in {summary.seconds:.2f} s{rate}")
     if summary.page is not None:
         typer.echo(f"wrote {summary.page}")
+    elif report:
+        typer.echo("no report.html: the page needs matplotlib (pip install 'synthgen-shapes[plots]')", err=True)
