@@ -313,7 +313,7 @@ def _score(out: Path, source: Source, truths, by: list[str]) -> tuple[dict, list
     return {"subsets": {sub.name: ev.to_dict(slices)}}, [(sub.name, slices)]
 
 
-def _figures(out: Path, source: Source, points) -> list[str]:
+def _figures(out: Path, source: Source, points, detector: str) -> list[str]:
     """score --plot's figures under out/figures/, when matplotlib is installed; their paths."""
     try:
         import matplotlib  # noqa: F401
@@ -324,7 +324,7 @@ def _figures(out: Path, source: Source, points) -> list[str]:
     written = []
     if source.kind == "sweep":
         (out / "figures").mkdir(parents=True, exist_ok=True)
-        plot_sweep(points, out / "figures" / "sweep.png")
+        plot_sweep(points, out / "figures" / "sweep.png", title=f"{detector} on the sweep {Path(source.config).stem if source.config else source.path.name}")
         written.append("figures/sweep.png")
         pairs = [(p.subset, p.slices) for p in points]
     else:
@@ -333,7 +333,7 @@ def _figures(out: Path, source: Source, points) -> list[str]:
         if slices:
             path = out / "figures" / f"{name}.png"
             path.parent.mkdir(parents=True, exist_ok=True)
-            plot_slices(slices, path, title=name)
+            plot_slices(slices, path, title=f"{detector} on {name}")
             written.append(f"figures/{name}.png")
     return written
 
@@ -426,7 +426,7 @@ def run_probe(
         entries, ran, det_seconds = _detect_all(detector, src.subsets, truths, state, batch=batch, workers=workers,
                                                 progress=progress)
         files = _predictions(src.subsets, truths, entries)
-    scores = _write_results(out, src, truths, by, files)
+    scores = _write_results(out, src, truths, by, files, detector.name)
     images = sum(len(gt["images"]) for gt in truths)
     seconds = time.perf_counter() - start
     record = _probe_record(out, src, asked, images, seconds)
@@ -437,13 +437,13 @@ def run_probe(
                         scores=summary_scores, page=_page(out, by) if report else None)
 
 
-def _write_results(out: Path, src: Source, truths: list, by: list, files: dict) -> dict:
+def _write_results(out: Path, src: Source, truths: list, by: list, files: dict, detector: str) -> dict:
     """The predictions files, score.json and the figures; returns the scores."""
     for name, data in files.items():
         write_atomic(out / "predictions" / f"{name}.json", data)
     scores, points = _score(out, src, truths, by)
     write_atomic(out / "score.json", orjson.dumps(scores, option=orjson.OPT_INDENT_2))
-    _figures(out, src, points)
+    _figures(out, src, points, detector)
     return scores
 
 
