@@ -353,8 +353,15 @@ def _piece_max_many(regions, xs, ys) -> np.ndarray:
     nx = np.stack([r.nx for r in regions])[..., None, None]  # (N, P, E, 1, 1)
     ny = np.stack([r.ny for r in regions])[..., None, None]
     c = np.stack([r.c for r in regions])[..., None, None]
-    v = (nx * xs[:, None, None] - c) + ny * ys[:, None, None]  # (N, P, E, Hs, Ws)
-    return v.max(axis=2)
+    a = nx * xs[:, None, None] - c  # (N, P, E, 1, Ws)
+    b = ny * ys[:, None, None]  # (N, P, E, Hs, 1)
+    # edge by edge into one running maximum: the same sums, without an (N, P, E, Hs, Ws) temporary
+    m = a[:, :, 0] + b[:, :, 0]
+    v = np.empty_like(m)
+    for e in range(1, a.shape[2]):
+        np.add(a[:, :, e], b[:, :, e], out=v)
+        np.maximum(m, v, out=m)
+    return m
 
 
 def _contains_many(sig, regions, xs: np.ndarray, ys: np.ndarray) -> np.ndarray:
