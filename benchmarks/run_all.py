@@ -81,9 +81,11 @@ SCRIPTS = {
     "bench_encode.py": (["--images", "4", "--repeats", "2"], ["--images", "1", "--repeats", "1"]),
     "bench_formats.py": (["--images", "50"], ["--images", "5"]),
     "bench_make.py": (["--images", "10", "--repeats", "2"], ["--images", "1", "--repeats", "1"]),
+    "bench_probe.py": (["--images", "8", "--repeats", "1"], ["--images", "2", "--repeats", "1"]),
     "bench_scale.py": (["--quick"], ["--quick"]),
     "bench_score.py": (["--images", "500"], ["--images", "20"]),
     "bench_shapes.py": ([], []),
+    "bench_stream.py": (["--items", "20", "--rounds", "1"], ["--items", "4", "--rounds", "1"]),
     "bench_visible_box.py": (["--images", "2"], ["--images", "1"]),
     "bench_workers.py": (["--reps", "1", "--counts", "8,64"], ["--reps", "1", "--counts", "4"]),
 }

@@ -14,8 +14,6 @@ from collections.abc import Callable, Iterator
 from dataclasses import dataclass
 from pathlib import Path
 
-from PIL import Image
-
 from synthgen.errors import InputFileError
 from synthgen.errors import is_int as _is_int
 from synthgen.errors import is_number as _is_num
@@ -55,7 +53,6 @@ class Problem:
         if len(shown) > 80:
             shown = shown[:77] + "..."
         return f"{where}: {self.rule} (got {shown})"
-
 
 
 class CheckContext:
@@ -116,7 +113,9 @@ class CheckContext:
                             self._stem_index.setdefault(p.relative_to(d).with_suffix("").as_posix(), p)
         return self._stem_index.get(stem)
 
-    def read_each(self, d: Path, files: list[Path], read: Callable, seen: set[str]) -> Iterator[tuple[Path, str, object]]:
+    def read_each(
+        self, d: Path, files: list[Path], read: Callable, seen: set[str]
+    ) -> Iterator[tuple[Path, str, object]]:
         """``(file, stem, read(file))`` for each of a format's files under ``d``.
 
         Each file's stem (its path below ``d`` without suffix) goes into ``seen``;
@@ -134,6 +133,8 @@ class CheckContext:
 
     def image_size(self, path: Path) -> tuple[int, int] | None:
         """(W, H) of an image file, or None (with a problem) when it does not decode."""
+        from PIL import Image
+
         if path not in self._sizes:
             try:
                 with Image.open(path) as im:
@@ -182,8 +183,17 @@ class CheckContext:
 
     # -- object counts against the reference ------------------------------------------
     def compare(
-        self, fmt: str, path: Path, stem: str, found: list, size: tuple[int, int] | None = None, *,
-        record: str = "", tol: float = 0.5, what: str = "objects", crowd: bool = True,
+        self,
+        fmt: str,
+        path: Path,
+        stem: str,
+        found: list,
+        size: tuple[int, int] | None = None,
+        *,
+        record: str = "",
+        tol: float = 0.5,
+        what: str = "objects",
+        crowd: bool = True,
     ) -> None:
         """Hold one image's objects in a format against the reference annotations.
 
@@ -209,7 +219,8 @@ class CheckContext:
                 detail.append(f"not in annotations.json: {listing(extra)}")
             without = "" if crowd else " without ignore regions"
             self.add(
-                path, record,
+                path,
+                record,
                 f"must hold as many {what} as annotations.json{without} gives image {self.ref_files[stem]} ({len(ref)})"
                 + "".join(f"; {d}" for d in detail),
                 n,
@@ -310,4 +321,3 @@ def _unmatched(ref: list[tuple], found: list[tuple], tol: float) -> tuple[list, 
 
 def _sort_key(v):
     return (0, v) if _is_int(v) else (1, 0)
-

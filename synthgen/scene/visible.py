@@ -39,7 +39,6 @@ from __future__ import annotations
 import math
 
 import numpy as np
-import shapely
 
 from synthgen.scene import shapes as shapes_mod
 from synthgen.scene.regions import ConvexBand, DifferenceRegion, EllipseRegion, EmptyRegion
@@ -80,6 +79,8 @@ def _ellipse_polygons(e, gap: float, focus=None):
     or within ``gap`` px on the steps whose arc may meet a box of ``focus``
     ((F, 4) array; everywhere when ``focus`` is None).
     """
+    import shapely  # on first use: ~15 ms, and a scene where nothing overlaps never needs it
+
     ax_, bx_ = e.a * e.cos, -e.b * e.sin  # x(t) = ex + ax_ cos t + bx_ sin t
     ay_, by_ = e.a * e.sin, e.b * e.cos
     tx, ty = math.atan2(bx_, ax_), math.atan2(by_, ay_)
@@ -124,6 +125,8 @@ def _ellipse_polygons(e, gap: float, focus=None):
 
 def _sandwich(region, gap: float, focus):
     """``(inner, outer)`` shapely geometries with inner <= region <= outer, for elliptic regions."""
+    import shapely
+
     if isinstance(region, EllipseRegion):
         return _ellipse_polygons(region, gap, focus)
     if isinstance(region, EmptyRegion):
@@ -146,6 +149,8 @@ def _convex_band(ring: np.ndarray, width: float):
     with mitred corners is exactly that (the tests hold it to 1e-9 px against
     a buffer of the outline).
     """
+    import shapely
+
     shape = shapely.Polygon(ring)
     return shape.difference(shape.buffer(-width, join_style="mitre", mitre_limit=1e9))
 
@@ -166,6 +171,8 @@ def _band(ring: np.ndarray, width: float, gap: float):
     inside the shape, so all of it then keeps ``width``); else ``x`` grows,
     and at worst the whole shape stands for the outer band.
     """
+    import shapely
+
     shape = shapely.Polygon(ring)
     # GEOS divides a corner's arc into steps of at most about pi / (2 q); the two erosions are
     # at most width (1/cos(x) - cos(x)) ~ width x^2 apart
@@ -212,6 +219,8 @@ def region_polygons(shape: Shape, stroke: float = 0.0, *, gap: float = _FIRST_GA
     >>> bool(inner.area < 100 * math.pi < outer.area)
     True
     """
+    import shapely
+
     stroke = float(stroke)
     key = (shape, stroke)
     first = focus is None and gap == _FIRST_GAP
@@ -260,8 +269,12 @@ def _touch_points(shape: Shape) -> list[np.ndarray]:
     if g.ring is not None:
         ring = g.ring
         tol = 1e-9 * max(1.0, abs(x0), abs(x1), abs(y0), abs(y1))
-        return [ring[np.abs(ring[:, 0] - x0) <= tol], ring[np.abs(ring[:, 1] - y0) <= tol],
-                ring[np.abs(ring[:, 0] - x1) <= tol], ring[np.abs(ring[:, 1] - y1) <= tol]]
+        return [
+            ring[np.abs(ring[:, 0] - x0) <= tol],
+            ring[np.abs(ring[:, 1] - y0) <= tol],
+            ring[np.abs(ring[:, 0] - x1) <= tol],
+            ring[np.abs(ring[:, 1] - y1) <= tol],
+        ]
     e = g.ellipse
     ax_, bx_ = e.a * e.cos, -e.b * e.sin
     ay_, by_ = e.a * e.sin, e.b * e.cos
@@ -282,7 +295,7 @@ def _sides_in_view(shape: Shape, above, height: int, width: int) -> np.ndarray:
     x, y = pts[:, 0], pts[:, 1]
     hidden = (x < 0.0) | (x > width) | (y < 0.0) | (y > height)  # off the canvas: not in view
     boxes = np.array([shapes_mod.shape_geometry(u).box for u, _ in above], dtype=np.float64)  # (K, 4)
-    inbox = ((x >= boxes[:, 0:1]) & (x <= boxes[:, 2:3]) & (y >= boxes[:, 1:2]) & (y <= boxes[:, 3:4]))  # (K, P)
+    inbox = (x >= boxes[:, 0:1]) & (x <= boxes[:, 2:3]) & (y >= boxes[:, 1:2]) & (y <= boxes[:, 3:4])  # (K, P)
     for j in np.flatnonzero(inbox.any(axis=1)).tolist():
         near = inbox[j] & ~hidden
         if near.any():
@@ -379,8 +392,16 @@ def _bounds(geom) -> np.ndarray | None:
     return None if geom.is_empty else np.array(geom.bounds)
 
 
-def visible_box(shape: Shape, above, height: int, width: int, *, stroke: float = 0.0,
-                exact: np.ndarray | None = None, inside: np.ndarray | None = None) -> np.ndarray | None:
+def visible_box(
+    shape: Shape,
+    above,
+    height: int,
+    width: int,
+    *,
+    stroke: float = 0.0,
+    exact: np.ndarray | None = None,
+    inside: np.ndarray | None = None,
+) -> np.ndarray | None:
     """The tight box of the part of ``shape`` on the canvas that no shape in ``above`` covers.
 
     Parameters
@@ -514,8 +535,22 @@ def _strip(outer_box: np.ndarray, inner_side: float, k: int) -> np.ndarray:
 class _Job:
     """One object's visible box in the making: its brackets per side and its polygons."""
 
-    __slots__ = ("shape", "stroke", "near", "near_boxes", "exact", "known", "open_", "box", "limit",
-                 "curved", "empty", "gap", "memo", "index")
+    __slots__ = (
+        "shape",
+        "stroke",
+        "near",
+        "near_boxes",
+        "exact",
+        "known",
+        "open_",
+        "box",
+        "limit",
+        "curved",
+        "empty",
+        "gap",
+        "memo",
+        "index",
+    )
 
     @classmethod
     def start(cls, shape: Shape, stroke: float, above, height: int, width: int, exact, inside):
@@ -590,6 +625,8 @@ def _seen_many(tasks) -> list:
     whose polygons meet the region in the window are subtracted, in their
     order; the polygon arithmetic of all tasks runs a step at a time.
     """
+    import shapely
+
     n = len(tasks)
     if n == 0:
         return []
@@ -620,7 +657,9 @@ def _seen_many(tasks) -> list:
         # outer polygon misses it is not in view there at all
         fine = np.array([tasks[t][3] != _FIRST_GAP for t in pairs_t], dtype=bool)
         if fine.any():
-            coarse = _objects([tasks[t][0].polygons(j, _FIRST_GAP, None)[1] for t, j, f in zip(pairs_t, pj, fine.tolist()) if f])
+            coarse = _objects(
+                [tasks[t][0].polygons(j, _FIRST_GAP, None)[1] for t, j, f in zip(pairs_t, pj, fine.tolist()) if f]
+            )
             keep = np.ones(pt.size, dtype=bool)
             keep[fine] = shapely.intersects(outer[pt[fine]], coarse)
             pt = pt[keep]
@@ -657,6 +696,8 @@ def _objects(items) -> np.ndarray:
     out = np.empty(len(items), dtype=object)
     out[:] = items
     return out
+
+
 def _narrow(box: np.ndarray, limit: np.ndarray, k: int, inner, outer) -> None:
     """Side ``k`` of the bracket ``limit`` (inner, a point in view) .. ``box`` (outer), from a look at its strip.
 
