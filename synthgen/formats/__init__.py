@@ -15,16 +15,19 @@ in its docstring:
 Everything outside this package speaks xyxy (see :mod:`synthgen.geometry`).
 """
 
-from synthgen._lazy import lazy_exports
+from synthgen.formats.coco import bbox_from_xyxy, read_coco, write_coco, xyxy_from_bbox
+from synthgen.formats.export import FORMATS, export, parse_formats, write_formats
+from synthgen.formats.splits import assign_splits, parse_split
 
-#: public name -> module that defines it (loaded on first use, so a run that needs only
-#: :mod:`.dataset_dir` or :mod:`.images` does not import every writer, Pillow and ElementTree)
-_EXPORTS = {
-    **{n: "synthgen.formats.coco" for n in ("bbox_from_xyxy", "read_coco", "write_coco", "xyxy_from_bbox")},
-    **{n: "synthgen.formats.export" for n in ("FORMATS", "export", "parse_formats", "write_formats")},
-    **{n: "synthgen.formats.splits" for n in ("assign_splits", "parse_split")},
-}
-
-__all__ = sorted(_EXPORTS)
-
-__getattr__, __dir__ = lazy_exports(__name__, _EXPORTS)
+__all__ = [
+    "FORMATS",
+    "assign_splits",
+    "bbox_from_xyxy",
+    "export",
+    "parse_formats",
+    "parse_split",
+    "read_coco",
+    "write_coco",
+    "write_formats",
+    "xyxy_from_bbox",
+]

@@ -55,6 +55,7 @@ class Problem:
         return f"{where}: {self.rule} (got {shown})"
 
 
+
 class CheckContext:
     """One dataset directory being checked: problems, counts per format, image lookup, the reference."""
 
@@ -113,9 +114,7 @@ class CheckContext:
                             self._stem_index.setdefault(p.relative_to(d).with_suffix("").as_posix(), p)
         return self._stem_index.get(stem)
 
-    def read_each(
-        self, d: Path, files: list[Path], read: Callable, seen: set[str]
-    ) -> Iterator[tuple[Path, str, object]]:
+    def read_each(self, d: Path, files: list[Path], read: Callable, seen: set[str]) -> Iterator[tuple[Path, str, object]]:
         """``(file, stem, read(file))`` for each of a format's files under ``d``.
 
         Each file's stem (its path below ``d`` without suffix) goes into ``seen``;
@@ -183,17 +182,8 @@ class CheckContext:
 
     # -- object counts against the reference ------------------------------------------
     def compare(
-        self,
-        fmt: str,
-        path: Path,
-        stem: str,
-        found: list,
-        size: tuple[int, int] | None = None,
-        *,
-        record: str = "",
-        tol: float = 0.5,
-        what: str = "objects",
-        crowd: bool = True,
+        self, fmt: str, path: Path, stem: str, found: list, size: tuple[int, int] | None = None, *,
+        record: str = "", tol: float = 0.5, what: str = "objects", crowd: bool = True,
     ) -> None:
         """Hold one image's objects in a format against the reference annotations.
 
@@ -219,8 +209,7 @@ class CheckContext:
                 detail.append(f"not in annotations.json: {listing(extra)}")
             without = "" if crowd else " without ignore regions"
             self.add(
-                path,
-                record,
+                path, record,
                 f"must hold as many {what} as annotations.json{without} gives image {self.ref_files[stem]} ({len(ref)})"
                 + "".join(f"; {d}" for d in detail),
                 n,
@@ -321,3 +310,4 @@ def _unmatched(ref: list[tuple], found: list[tuple], tol: float) -> tuple[list, 
 
 def _sort_key(v):
     return (0, v) if _is_int(v) else (1, 0)
+

@@ -73,9 +73,7 @@ def annotation_mask(ann: dict, height: int, width: int) -> np.ndarray:
     seg = ann.get("segmentation")
     if isinstance(seg, dict):
         if list(seg.get("size", [])) != [height, width]:
-            raise ValueError(
-                f"annotation {ann.get('id')}: RLE size {seg.get('size')} is not the image's [{height}, {width}]"
-            )
+            raise ValueError(f"annotation {ann.get('id')}: RLE size {seg.get('size')} is not the image's [{height}, {width}]")
         return rle.decode(seg)
     if isinstance(seg, list) and seg:
         canvas = Image.new("L", (width, height), 0)
@@ -193,15 +191,8 @@ def write_mask_rles(coco: dict, path) -> int:
             seg = a.get("segmentation")
             if not (isinstance(seg, dict) and isinstance(seg.get("counts"), str)):
                 seg = rle.encode(annotation_mask(a, h, w))
-            masks.append(
-                {
-                    "id": a["id"],
-                    "category_id": a["category_id"],
-                    "iscrowd": int(a.get("iscrowd", 0)),
-                    "size": [h, w],
-                    "counts": seg["counts"],
-                }
-            )
+            masks.append({"id": a["id"], "category_id": a["category_id"], "iscrowd": int(a.get("iscrowd", 0)),
+                          "size": [h, w], "counts": seg["counts"]})
         lines.append(orjson.dumps({"image_id": im["id"], "file_name": im["file_name"], "masks": masks}))
     Path(path).write_bytes(b"\n".join(lines) + (b"\n" if lines else b""))
     return len(lines)
@@ -285,18 +276,13 @@ def _check_pngs(ctx: CheckContext, d: Path) -> None:
             ctx.add(p, "", f"instance ids must be at most the image's object count ({n_plain})", top)
             continue
         if n_plain == len(anns) and numbered.size < ids.size:
-            ctx.add(
-                p,
-                "",
-                f"ignore value {IGNORE_ID} must mark ignore regions of annotations.json (this image has none)",
-                IGNORE_ID,
-            )
+            ctx.add(p, "", f"ignore value {IGNORE_ID} must mark ignore regions of annotations.json "
+                     "(this image has none)", IGNORE_ID)
         lost = lost_annotations(anns, ids)
         if lost:
             plain = [a for a in anns if a.get("iscrowd", 0) != 1]
             ctx.add(
-                p,
-                "",
+                p, "",
                 f"every object of image {ctx.ref_files[stem]} with segmentation pixels must keep one "
                 "(unless each is another annotation's only pixel); none for annotation id "
                 + listing([plain[i - 1].get("id") for i in lost]),
@@ -306,6 +292,7 @@ def _check_pngs(ctx: CheckContext, d: Path) -> None:
     ctx.missing("masks", seen, ctx.rel(d) + "/{stem}.png")
     # objects = instances with at least one pixel (one drawn over entirely has none); ignore regions not counted
     ctx.count("masks", len(files), len(files), n_obj)
+
 
 
 def _check_rles(ctx: CheckContext, path: Path) -> None:
@@ -322,11 +309,8 @@ def _check_rles(ctx: CheckContext, path: Path) -> None:
             continue
         by_id = {a.get("id"): a for a in ctx.ref_anns[stem]}
         found = [
-            (
-                f"masks[{j}]",
-                ctx.ref_cat_names.get(by_id.get(m.get("id"), {}).get("category_id")),
-                _id_box(by_id.get(m.get("id"))),
-            )
+            (f"masks[{j}]", ctx.ref_cat_names.get(by_id.get(m.get("id"), {}).get("category_id")),
+             _id_box(by_id.get(m.get("id"))))
             for j, m in enumerate(line["masks"])
         ]
         ctx.compare("masks", path, stem, found, record=f"line {i + 1}", what="masks")
@@ -336,6 +320,8 @@ def _check_rles(ctx: CheckContext, path: Path) -> None:
                 break
     ctx.count("masks", 1, len(lines), n_obj)
     ctx.compare_total("masks", path)
+
+
 
 
 def _id_box(ann: dict | None) -> tuple | None:

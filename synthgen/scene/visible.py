@@ -269,12 +269,8 @@ def _touch_points(shape: Shape) -> list[np.ndarray]:
     if g.ring is not None:
         ring = g.ring
         tol = 1e-9 * max(1.0, abs(x0), abs(x1), abs(y0), abs(y1))
-        return [
-            ring[np.abs(ring[:, 0] - x0) <= tol],
-            ring[np.abs(ring[:, 1] - y0) <= tol],
-            ring[np.abs(ring[:, 0] - x1) <= tol],
-            ring[np.abs(ring[:, 1] - y1) <= tol],
-        ]
+        return [ring[np.abs(ring[:, 0] - x0) <= tol], ring[np.abs(ring[:, 1] - y0) <= tol],
+                ring[np.abs(ring[:, 0] - x1) <= tol], ring[np.abs(ring[:, 1] - y1) <= tol]]
     e = g.ellipse
     ax_, bx_ = e.a * e.cos, -e.b * e.sin
     ay_, by_ = e.a * e.sin, e.b * e.cos
@@ -295,7 +291,7 @@ def _sides_in_view(shape: Shape, above, height: int, width: int) -> np.ndarray:
     x, y = pts[:, 0], pts[:, 1]
     hidden = (x < 0.0) | (x > width) | (y < 0.0) | (y > height)  # off the canvas: not in view
     boxes = np.array([shapes_mod.shape_geometry(u).box for u, _ in above], dtype=np.float64)  # (K, 4)
-    inbox = (x >= boxes[:, 0:1]) & (x <= boxes[:, 2:3]) & (y >= boxes[:, 1:2]) & (y <= boxes[:, 3:4])  # (K, P)
+    inbox = ((x >= boxes[:, 0:1]) & (x <= boxes[:, 2:3]) & (y >= boxes[:, 1:2]) & (y <= boxes[:, 3:4]))  # (K, P)
     for j in np.flatnonzero(inbox.any(axis=1)).tolist():
         near = inbox[j] & ~hidden
         if near.any():
@@ -392,16 +388,8 @@ def _bounds(geom) -> np.ndarray | None:
     return None if geom.is_empty else np.array(geom.bounds)
 
 
-def visible_box(
-    shape: Shape,
-    above,
-    height: int,
-    width: int,
-    *,
-    stroke: float = 0.0,
-    exact: np.ndarray | None = None,
-    inside: np.ndarray | None = None,
-) -> np.ndarray | None:
+def visible_box(shape: Shape, above, height: int, width: int, *, stroke: float = 0.0,
+                exact: np.ndarray | None = None, inside: np.ndarray | None = None) -> np.ndarray | None:
     """The tight box of the part of ``shape`` on the canvas that no shape in ``above`` covers.
 
     Parameters
@@ -535,22 +523,8 @@ def _strip(outer_box: np.ndarray, inner_side: float, k: int) -> np.ndarray:
 class _Job:
     """One object's visible box in the making: its brackets per side and its polygons."""
 
-    __slots__ = (
-        "shape",
-        "stroke",
-        "near",
-        "near_boxes",
-        "exact",
-        "known",
-        "open_",
-        "box",
-        "limit",
-        "curved",
-        "empty",
-        "gap",
-        "memo",
-        "index",
-    )
+    __slots__ = ("shape", "stroke", "near", "near_boxes", "exact", "known", "open_", "box", "limit",
+                 "curved", "empty", "gap", "memo", "index")
 
     @classmethod
     def start(cls, shape: Shape, stroke: float, above, height: int, width: int, exact, inside):
@@ -657,9 +631,7 @@ def _seen_many(tasks) -> list:
         # outer polygon misses it is not in view there at all
         fine = np.array([tasks[t][3] != _FIRST_GAP for t in pairs_t], dtype=bool)
         if fine.any():
-            coarse = _objects(
-                [tasks[t][0].polygons(j, _FIRST_GAP, None)[1] for t, j, f in zip(pairs_t, pj, fine.tolist()) if f]
-            )
+            coarse = _objects([tasks[t][0].polygons(j, _FIRST_GAP, None)[1] for t, j, f in zip(pairs_t, pj, fine.tolist()) if f])
             keep = np.ones(pt.size, dtype=bool)
             keep[fine] = shapely.intersects(outer[pt[fine]], coarse)
             pt = pt[keep]
@@ -696,8 +668,6 @@ def _objects(items) -> np.ndarray:
     out = np.empty(len(items), dtype=object)
     out[:] = items
     return out
-
-
 def _narrow(box: np.ndarray, limit: np.ndarray, k: int, inner, outer) -> None:
     """Side ``k`` of the bracket ``limit`` (inner, a point in view) .. ``box`` (outer), from a look at its strip.
 
