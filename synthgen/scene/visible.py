@@ -39,7 +39,6 @@ from __future__ import annotations
 import math
 
 import numpy as np
-import shapely
 
 from synthgen.scene import shapes as shapes_mod
 from synthgen.scene.regions import ConvexBand, DifferenceRegion, EllipseRegion, EmptyRegion
@@ -80,6 +79,8 @@ def _ellipse_polygons(e, gap: float, focus=None):
     or within ``gap`` px on the steps whose arc may meet a box of ``focus``
     ((F, 4) array; everywhere when ``focus`` is None).
     """
+    import shapely  # on first use: ~15 ms, and a scene where nothing overlaps never needs it
+
     ax_, bx_ = e.a * e.cos, -e.b * e.sin  # x(t) = ex + ax_ cos t + bx_ sin t
     ay_, by_ = e.a * e.sin, e.b * e.cos
     tx, ty = math.atan2(bx_, ax_), math.atan2(by_, ay_)
@@ -124,6 +125,8 @@ def _ellipse_polygons(e, gap: float, focus=None):
 
 def _sandwich(region, gap: float, focus):
     """``(inner, outer)`` shapely geometries with inner <= region <= outer, for elliptic regions."""
+    import shapely
+
     if isinstance(region, EllipseRegion):
         return _ellipse_polygons(region, gap, focus)
     if isinstance(region, EmptyRegion):
@@ -146,6 +149,8 @@ def _convex_band(ring: np.ndarray, width: float):
     with mitred corners is exactly that (the tests hold it to 1e-9 px against
     a buffer of the outline).
     """
+    import shapely
+
     shape = shapely.Polygon(ring)
     return shape.difference(shape.buffer(-width, join_style="mitre", mitre_limit=1e9))
 
@@ -166,6 +171,8 @@ def _band(ring: np.ndarray, width: float, gap: float):
     inside the shape, so all of it then keeps ``width``); else ``x`` grows,
     and at worst the whole shape stands for the outer band.
     """
+    import shapely
+
     shape = shapely.Polygon(ring)
     # GEOS divides a corner's arc into steps of at most about pi / (2 q); the two erosions are
     # at most width (1/cos(x) - cos(x)) ~ width x^2 apart
@@ -212,6 +219,8 @@ def region_polygons(shape: Shape, stroke: float = 0.0, *, gap: float = _FIRST_GA
     >>> bool(inner.area < 100 * math.pi < outer.area)
     True
     """
+    import shapely
+
     stroke = float(stroke)
     key = (shape, stroke)
     first = focus is None and gap == _FIRST_GAP
@@ -590,6 +599,8 @@ def _seen_many(tasks) -> list:
     whose polygons meet the region in the window are subtracted, in their
     order; the polygon arithmetic of all tasks runs a step at a time.
     """
+    import shapely
+
     n = len(tasks)
     if n == 0:
         return []
