@@ -1,10 +1,20 @@
-"""Time synthgen's COCO box evaluation against pycocotools on the same data, in one run.
+"""Time synthgen's scoring against pycocotools and faster-coco-eval on the same data, in one run.
 
 5,000 images x 20 ground-truth boxes x 50 predictions, 3 classes (PERF-NOTES.md:
-Scoring).  Prints both times, the ratio, and whether the 12 stats are identical;
-asserts nothing.
+Scoring).  Prints, asserting nothing:
 
-    python benchmarks/bench_score.py [--images 5000]
+* in process: ``synthgen.evaluate.evaluate`` (+ the confusion table) against pycocotools'
+  evaluate + accumulate + summarize, and whether the 12 stats are identical;
+* whole command: ``synthgen score GT PRED`` (imports, JSON, scoring, printed report) against a
+  script doing the same with faster-coco-eval (import, load both files, evaluate, accumulate,
+  summarize), each in its own process, repetitions interleaved; CPU time (user + system) of the
+  child processes, medians, since other work on the machine inflates wall time.  The ratio is
+  nan when faster-coco-eval is not installed (it is never a dependency of synthgen).
+
+    python benchmarks/bench_score.py [--images 5000] [--repeat 5] [--baseline DIR] [--no-pycocotools]
+
+``--baseline DIR`` also times ``synthgen score`` from another source tree (say an older commit
+unpacked with ``git archive REV synthgen | tar -x -C DIR``), in the same interleaved loop.
 """
 
 from __future__ import annotations
@@ -12,8 +22,15 @@ from __future__ import annotations
 import argparse
 import contextlib
 import copy
+import importlib.util
 import io
+import math
+import os
+import resource
+import statistics
+import subprocess
 import sys
+import tempfile
 import time
 from pathlib import Path
 
@@ -64,21 +81,89 @@ def make_data(n_images: int, n_gt: int, n_pred: int, n_cls: int, seed: int = 0) 
     return {"images": images, "annotations": anns, "categories": cats}, preds
 
 
+_FCE_SCRIPT = """
+import sys
+from faster_coco_eval import COCO, COCOeval_faster
+gt = COCO(sys.argv[1])
+ev = COCOeval_faster(gt, gt.loadRes(sys.argv[2]), "bbox")
+ev.evaluate()
+ev.accumulate()
+ev.summarize()
+"""
+
+
+def _child_cpu(cmd: list[str], cwd: str, env: dict | None = None) -> float:
+    """User + system CPU seconds of one child process (its output discarded)."""
+    before = resource.getrusage(resource.RUSAGE_CHILDREN)
+    subprocess.run(cmd, check=True, stdout=subprocess.DEVNULL, env=env, cwd=cwd)
+    after = resource.getrusage(resource.RUSAGE_CHILDREN)
+    return (after.ru_utime - before.ru_utime) + (after.ru_stime - before.ru_stime)
+
+
+def whole_command(gt: dict, preds: list, repeat: int, baseline: str | None) -> dict[str, list[float]]:
+    """CPU seconds per run of each whole command, runs interleaved."""
+    import orjson
+
+    root = str(Path(__file__).resolve().parents[1])
+    have_fce = importlib.util.find_spec("faster_coco_eval") is not None
+    times: dict[str, list[float]] = {"synthgen score": []}
+    if baseline:
+        times["synthgen score (baseline)"] = []
+    times["faster-coco-eval"] = []
+    with tempfile.TemporaryDirectory(prefix="bench_score.") as tmp:
+        gt_path, pred_path = Path(tmp) / "gt.json", Path(tmp) / "preds.json"
+        gt_path.write_bytes(orjson.dumps(gt))
+        pred_path.write_bytes(orjson.dumps(preds))
+        files = [str(gt_path), str(pred_path)]
+        ours = [sys.executable, "-m", "synthgen", "score", *files]
+        env_ours = {**os.environ, "PYTHONPATH": root}
+        env_base = {**os.environ, "PYTHONPATH": str(Path(baseline).resolve())} if baseline else None
+        for _ in range(repeat):
+            # cwd is the temporary directory: "-m" puts it first on sys.path, before PYTHONPATH.
+            times["synthgen score"].append(_child_cpu(ours, tmp, env_ours))
+            if baseline:
+                times["synthgen score (baseline)"].append(_child_cpu(ours, tmp, env_base))
+            if have_fce:
+                times["faster-coco-eval"].append(_child_cpu([sys.executable, "-c", _FCE_SCRIPT, *files], tmp))
+    return times
+
+
 def main() -> None:
-    ap = argparse.ArgumentParser(description=__doc__)
+    ap = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
     ap.add_argument("--images", type=int, default=5000)
+    ap.add_argument("--repeat", type=int, default=5, help="interleaved runs of each whole command (default 5)")
+    ap.add_argument("--baseline", help="another synthgen source tree to time beside this one")
+    ap.add_argument("--no-pycocotools", action="store_true", help="skip the in-process comparison (about a minute)")
     args = ap.parse_args()
     gt, preds = make_data(args.images, 20, 50, 3)
     print(f"{args.images} images, {len(gt['annotations'])} ground truth, {len(preds)} predictions, 3 classes")
 
-    t0 = time.perf_counter()
+    times = whole_command(gt, preds, args.repeat, args.baseline)
+    med = {name: statistics.median(v) if v else math.nan for name, v in times.items()}
+    print(f"whole command, CPU s (user + system), median of {args.repeat} interleaved runs [min .. max]:")
+    for name, v in times.items():
+        spread = f"[{min(v):.2f} .. {max(v):.2f}]" if v else "(not installed)"
+        print(f"  {name:<28} {med[name]:6.2f} {spread}")
+    paired = [a / b for a, b in zip(times["synthgen score"], times["faster-coco-eval"])]
+    print(f"ratio synthgen score / faster-coco-eval, whole command: {med['synthgen score'] / med['faster-coco-eval']:.3f}"
+          f" (target <= 0.5; median of the {len(paired)} paired runs' ratios: "
+          f"{statistics.median(paired) if paired else math.nan:.3f})")
+    if args.baseline:
+        base = med["synthgen score (baseline)"]
+        print(f"ratio baseline / faster-coco-eval: {base / med['faster-coco-eval']:.3f}; "
+              f"this tree / baseline: {med['synthgen score'] / base:.3f}")
+
+    cpu = time.process_time
+    t0 = cpu()
     ours = evaluate(gt, preds)
-    t_ours = time.perf_counter() - t0
-    print(f"synthgen.evaluate.evaluate (validation, matching, 12 stats, per category): {t_ours:.2f} s")
-    t0 = time.perf_counter()
-    ours.confusion
-    t_conf = time.perf_counter() - t0
-    print(f"  + confusion summary: {t_conf:.2f} s")
+    t_ours = cpu() - t0
+    print(f"in process, CPU s: synthgen.evaluate.evaluate (validation, matching, 12 stats, per category): {t_ours:.2f}")
+    t0 = cpu()
+    ours.confusion  # noqa: B018 (computed on first use)
+    t_conf = cpu() - t0
+    print(f"  + confusion table: {t_conf:.2f}")
+    if args.no_pycocotools:
+        return
 
     from pycocotools.coco import COCO
     from pycocotools.cocoeval import COCOeval
@@ -89,17 +174,18 @@ def main() -> None:
         coco.createIndex()
         dt = coco.loadRes(copy.deepcopy(preds))
         ev = COCOeval(coco, dt, "bbox")
-        t0 = time.perf_counter()
+        t0 = cpu()
         ev.evaluate()
         ev.accumulate()
         ev.summarize()
-        t_ref = time.perf_counter() - t0
-    print(f"pycocotools evaluate+accumulate+summarize: {t_ref:.2f} s")
+        t_ref = cpu() - t0
+    print(f"pycocotools evaluate+accumulate+summarize: {t_ref:.2f}")
     print(f"ratio synthgen / pycocotools: {t_ours / t_ref:.3f} (with confusion {(t_ours + t_conf) / t_ref:.3f})")
+    same = [a == b for a, b in zip(ours.stats, ev.stats)]
     diff = np.abs(np.array(ours.stats) - np.array(ev.stats)).max()
-    print(f"stats identical (max |diff| = {diff:.3g}): {bool(diff <= 1e-9)}")
+    print(f"stats bitwise identical: {all(same)} (max |diff| = {diff:.3g})")
     for name, a, b in zip(STAT_NAMES, ours.stats, ev.stats):
-        print(f"  {name:<10} {a:.6f} {b:.6f}")
+        print(f"  {name:<10} {float(a)!r:<22} {float(b)!r}")
 
 
 if __name__ == "__main__":

@@ -7,7 +7,7 @@ entry points are importable from the package itself (loaded on first use, so
     from synthgen import load_config, render_scene, make_dataset, evaluate, simulate_detections
 """
 
-from importlib import import_module
+from synthgen._lazy import lazy_exports
 
 __version__ = "0.1.0"
 #: The name on the package index (``pip install synthgen-shapes``); the import package and the
@@ -40,11 +40,4 @@ _EXPORTS = {
 __all__ = ["__version__", *_EXPORTS]
 
 
-def __getattr__(name: str):
-    if name in _EXPORTS:
-        return getattr(import_module(_EXPORTS[name]), name)
-    raise AttributeError(f"module 'synthgen' has no attribute {name!r}")
-
-
-def __dir__():
-    return sorted(__all__)
+__getattr__, __dir__ = lazy_exports(__name__, _EXPORTS, also=("__version__",))

@@ -9,6 +9,8 @@ independent, and none depends on worker count, shard split or order.  The keys:
   draws never move another's;
 * token order of image ``k``: ``(k, ORDER_STREAM)``, the random object order of its token line;
 * training noise of image ``k``: ``(k, NOISE_STREAM)``, the noise objects added to its tokens;
+* epoch ``e`` of a scene stream, item ``k``: ``(k, EPOCH_STREAM, e)``, the token order and noise
+  objects :class:`synthgen.stream.SceneStream` draws afresh each epoch;
 * jitter: ``(JITTER_STREAM,)``, the simulated detections of a whole dataset;
 * split: ``(SPLIT_STREAM,)``, the draw that assigns images to splits.
 
@@ -32,6 +34,7 @@ __all__ = [
     "STAGE_NAMES",
     "ORDER_STREAM",
     "NOISE_STREAM",
+    "EPOCH_STREAM",
     "JITTER_STREAM",
     "SPLIT_STREAM",
     "NOISE_BANK_SEED",
@@ -48,6 +51,8 @@ STAGES = len(STAGE_NAMES)
 ORDER_STREAM = 0x746F6B
 #: ``spawn_key`` tail of image k's training-noise stream ``(k, NOISE_STREAM)`` (the bytes of "nois").
 NOISE_STREAM = 0x6E6F6973
+#: ``spawn_key`` middle of item k's stream in epoch e ``(k, EPOCH_STREAM, e)`` (the bytes of "epoc").
+EPOCH_STREAM = 0x65706F63
 #: ``spawn_key`` of the jitter stream (the bytes of "jitt").
 JITTER_STREAM = 0x6A697474
 #: ``spawn_key`` of the split-assignment stream (the bytes of "spl").
@@ -59,6 +64,7 @@ NOISE_BANK_SEED = 0x5EED_0A15E
 STREAM_KEYS = {
     "ORDER_STREAM": ORDER_STREAM,
     "NOISE_STREAM": NOISE_STREAM,
+    "EPOCH_STREAM": EPOCH_STREAM,
     "JITTER_STREAM": JITTER_STREAM,
     "SPLIT_STREAM": SPLIT_STREAM,
     "NOISE_BANK_SEED": NOISE_BANK_SEED,

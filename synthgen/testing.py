@@ -37,6 +37,7 @@ __all__ = [
     "box_pairs",
     "scenes",
     "coco_datasets",
+    "evaluator_cases",
 ]
 
 # --------------------------------------------------------------------------- plain helpers
@@ -423,6 +424,25 @@ def _expected(case: str, t, anns, preds) -> dict:
             per_cat.append(float(np.count_nonzero(_RECALL_POINTS <= recall)) / 101.0 if found else 0.0)
         ap = ap50 = ap75 = float(np.mean(per_cat))
     return {"case": case, "AP": ap, "AP50": ap50, "AP75": ap75}
+
+
+def evaluator_cases() -> list:
+    """The known-answer evaluator cases as ``pytest.param`` values (ids: the case names), for ``parametrize``.
+
+    Each value is a :class:`synthgen.cases.Case` with ``annotations`` (COCO
+    dict), ``predictions`` (COCO results list), ``expected`` and
+    ``check(result)``, which raises ``AssertionError`` unless ``result`` (12
+    stats, a mapping by stat name or an object with ``.stats``) matches::
+
+        @pytest.mark.parametrize("case", evaluator_cases())
+        def test_my_evaluator(case):
+            case.check(my_evaluator(case.annotations, case.predictions))
+    """
+    import pytest
+
+    from synthgen.cases import build_cases
+
+    return [pytest.param(case, id=case.name) for case in build_cases()]
 
 
 # --------------------------------------------------------------------------- pytest fixtures

@@ -75,7 +75,7 @@ def test_console_entry_runs_as_a_module(tmp_path):
     [
         (["make", "--out", "x", "--count", "many"], "synthgen: error: Invalid value for '--count'"),
         (["make", "--out", "x", "--bogus"], "synthgen: error: No such option: --bogus"),
-        (["frob"], "synthgen: error: No such command 'frob'; see 'synthgen --help'"),
+        (["frobnicate"], "synthgen: error: No such command 'frobnicate'; see 'synthgen --help'"),  # 'frob' is close to 'probe'
         (["mak"], "synthgen: error: No such command 'mak'. Did you mean 'make'? (see 'synthgen --help')\n"),
     ],
 )

@@ -9,7 +9,7 @@ import sys
 
 import pytest
 
-COMMANDS = ("make", "jitter", "score", "check", "export", "sweep", "merge", "show", "stats")
+COMMANDS = ("make", "jitter", "score", "report", "check", "export", "sweep", "merge", "show", "stats", "probe", "cases", "conform")
 
 
 def _help(*args: str, flag: str = "--help") -> str:

@@ -224,3 +224,27 @@ def test_predictions_with_an_unknown_category_are_counted_and_reported(small_dat
     assert f"warning: 3 predictions in {path} name a category_id the ground truth does not list (42, 99)" in res.stderr
     counts = json.loads((tmp_path / "o.json").read_text())["counts"]
     assert counts["predictions_unknown_category"] == 3 and counts["unknown_category_ids"] == [42, 99]
+
+
+def test_score_files_pauses_the_cycle_collector_and_restores_it(small_dataset, tmp_path, monkeypatch):
+    """Reading and scoring run with the collector paused, which is on again afterwards, after an error too."""
+    import gc
+
+    import pytest
+
+    from synthgen.errors import InputFileError
+    from synthgen.evaluate import cocoeval
+
+    ds, _ = small_dataset
+    pred, preds = _predictions(ds, tmp_path)
+    seen = []
+    real_evaluate = cocoeval.evaluate
+    monkeypatch.setattr(cocoeval, "evaluate", lambda *a, **k: seen.append(gc.isenabled()) or real_evaluate(*a, **k))
+    assert gc.isenabled()
+    cocoeval.score_files(ds, pred)
+    assert seen == [False] and gc.isenabled()
+    preds[0]["score"] = "high"
+    pred.write_text(json.dumps(preds))
+    with pytest.raises(InputFileError):
+        cocoeval.score_files(ds, pred)
+    assert gc.isenabled()

@@ -19,9 +19,11 @@ from pathlib import Path
 PACKAGE = Path(__file__).resolve().parent.parent / "synthgen"
 
 #: layer -> the other layers it may import.  Leaves import nothing of synthgen but leaves;
-#: the main line is config -> scene -> run, with formats below run; jitter, evaluate, report
+#: the main line is config -> scene -> run, with formats below run; jitter, evaluate, report, stream
 #: and testing are side branches that may use formats, scene (its facts table, kinds) and the
-#: leaves, never the reverse (ARCHITECTURE.md); cli is on top.
+#: leaves, never the reverse (ARCHITECTURE.md); page (the HTML report) is a side branch above
+#: report; probe, a side branch too, may also make data (run), draw figures (report) and write
+#: the page; cli is on top.
 ALLOWED: dict[str, frozenset[str]] = {
     "leaf": frozenset(),
     "config": frozenset({"leaf"}),
@@ -31,8 +33,18 @@ ALLOWED: dict[str, frozenset[str]] = {
     "evaluate": frozenset({"leaf", "config", "scene", "formats"}),
     "jitter": frozenset({"leaf", "config", "scene", "formats", "evaluate"}),
     "report": frozenset({"leaf", "config", "scene", "formats", "evaluate", "jitter"}),
-    "testing": frozenset({"leaf", "config", "scene", "run", "formats", "jitter", "evaluate"}),
-    "cli": frozenset({"leaf", "config", "scene", "run", "formats", "jitter", "evaluate", "report", "testing"}),
+    "page": frozenset({"leaf", "config", "scene", "formats", "evaluate", "jitter", "report"}),
+    "testing": frozenset({"leaf", "config", "scene", "run", "formats", "jitter", "evaluate", "cases"}),
+    # a detector run over data it may make first (run), scored (evaluate), drawn (report, page)
+    "probe": frozenset({"leaf", "config", "scene", "run", "formats", "evaluate", "report", "page"}),
+    # known-answer cases for evaluators: plain COCO dicts, a reference evaluator of their own
+    "cases": frozenset({"leaf", "formats"}),
+    "stream": frozenset({"leaf", "config", "scene", "run", "formats", "jitter"}),
+    # the command line, on top of everything
+    "cli": frozenset(
+        {"leaf", "config", "scene", "run", "formats", "jitter", "evaluate", "report", "page", "probe", "cases",
+         "stream", "testing"}
+    ),
 }
 
 #: Module (or package prefix) -> layer.  The longest matching prefix wins.
@@ -51,7 +63,11 @@ LAYER_OF: dict[str, str] = {
     "synthgen.jitter": "jitter",
     "synthgen.evaluate": "evaluate",
     "synthgen.report": "report",
+    "synthgen.page": "page",
+    "synthgen.cases": "cases",
+    "synthgen.stream": "stream",
     "synthgen.testing": "testing",
+    "synthgen.probe": "probe",
     "synthgen.cli": "cli",
     "synthgen.__main__": "cli",
     # transitional: today's flat modules, by the layer they move to (delete each entry as it moves)

@@ -13,7 +13,7 @@ from typer.testing import CliRunner
 
 from synthgen import report
 from synthgen.cli import app
-from synthgen.errors import InputFileError
+from synthgen.errors import InputFileError, UserError
 
 GREY = (100, 100, 100)
 
@@ -64,7 +64,7 @@ def _pixels_of(tile, rgb):
 
 def test_sheet_draws_box_edges_on_the_pixels_just_inside_the_box(known_boxes):
     """Box [2, 3, 7, 9] at scale 1 colours cols 2..6 on rows 3 and 8 and rows 3..8 on cols 2 and 6, nothing else."""
-    sheet = report.contact_sheet(known_boxes, scale=1)
+    sheet = report.contact_sheet(known_boxes, scale=1, small_outline=0)
     t = sheet.tiles[0]
     tile = sheet.pixels[t.top : t.top + t.height, t.left : t.left + t.width]
     assert tile.shape == (16, 20, 3)
@@ -79,7 +79,7 @@ def test_sheet_draws_box_edges_on_the_pixels_just_inside_the_box(known_boxes):
 
 def test_sheet_edges_follow_the_convention_at_a_whole_scale(known_boxes):
     """At scale 3 box [2, 3, 7, 9] spans tile pixels 6..20 by 9..26, outlined on that rectangle's rim."""
-    sheet = report.contact_sheet(known_boxes, scale=3)
+    sheet = report.contact_sheet(known_boxes, scale=3, small_outline=0)
     t = sheet.tiles[0]
     tile = sheet.pixels[t.top : t.top + t.height, t.left : t.left + t.width]
     assert tile.shape == (48, 60, 3)
@@ -287,7 +287,7 @@ def test_sheet_draws_ignore_regions_in_grey_and_counts_them_apart(tmp_path):
         {"id": 2, "image_id": 1, "category_id": 1, "bbox": [11, 4, 3, 8], "area": 24.0, "iscrowd": 1},
     ]
     _write_dataset(tmp_path / "ds", images, anns, [{"id": 1, "name": "plate"}])
-    sheet = report.contact_sheet(report.open_dataset(tmp_path / "ds"), scale=1)
+    sheet = report.contact_sheet(report.open_dataset(tmp_path / "ds"), scale=1, small_outline=0)
     t = sheet.tiles[0]
     tile = sheet.pixels[t.top : t.top + t.height, t.left : t.left + t.width]
     assert _pixels_of(tile, report.sheet._MUTED) == _outline_set(11, 4, 13, 11)
@@ -499,7 +499,7 @@ def test_show_with_predictions_colours_them_by_kind(known_boxes, tmp_path):
     path.write_text(json.dumps(preds))
     p, _ = report.classify_predictions(known_boxes.coco, report.read_predictions(path))
     assert p.kind == ("true_positive", "background")
-    sheet = report.contact_sheet(known_boxes, scale=1, predictions=p)
+    sheet = report.contact_sheet(known_boxes, scale=1, predictions=p, small_outline=0)
     t = sheet.tiles[0]
     tile = sheet.pixels[t.top : t.top + t.height, t.left : t.left + t.width]
     bg = _pixels_of(tile, report.PREDICTION_COLOURS["background"])
@@ -550,7 +550,8 @@ def test_show_with_a_truth_sidecar_uses_its_kinds(known_boxes, tmp_path):
     t = report.contact_sheet(known_boxes, scale=1, predictions=p).tiles[0]  # same layout, for the tile's place
     assert np.array_equal(report.contact_sheet(known_boxes, scale=1, predictions=p).pixels, sheet)
     tile = sheet[t.top : t.top + t.height, t.left : t.left + t.width]
-    assert _pixels_of(tile, report.PREDICTION_COLOURS["duplicate"]) < _outline_set(2, 3, 6, 8)
+    # the box is under 12 tile px across, so it is outlined on the ring just outside it
+    assert _pixels_of(tile, report.PREDICTION_COLOURS["duplicate"]) < _outline_set(1, 2, 7, 9)
     assert not _pixels_of(tile, report.PREDICTION_COLOURS["true_positive"])
 
 
@@ -650,3 +651,78 @@ def test_show_finds_images_kept_apart_from_the_annotations(tmp_path):
     assert run("show", gt, "--out", tmp_path / "no.png").exit_code == 2  # not beside the file
     res = run("show", gt, "--out", tmp_path / "s.png", "--image-dir", tmp_path / "set" / "val")
     assert res.exit_code == 0, res.output
+
+
+def test_overview_tile_leaves_a_tiny_object_visible_under_its_box(tmp_path):
+    """A 3x3 px object keeps every one of its pixels: its outline goes on the ring just outside it."""
+    img = np.full((30, 40, 3), 90, dtype=np.uint8)
+    img[10:13, 10:13] = (250, 20, 20)
+    root = tmp_path / "ds"
+    _write_dataset(root, [{"id": 1, "file_name": "a.png", "width": 40, "height": 30}],
+                   [{"id": 1, "image_id": 1, "category_id": 1, "bbox": [10, 10, 3, 3], "area": 9.0, "iscrowd": 0}],
+                   [{"id": 1, "name": "pin"}])
+    Image.fromarray(img).save(root / "images" / "a.png")
+    ds = report.open_dataset(root)
+    for scale in (1, 2):
+        sheet = report.contact_sheet(ds, scale=scale)
+        t = sheet.tiles[0]
+        tile = sheet.pixels[t.top : t.top + t.height, t.left : t.left + t.width]
+        obj = tile[10 * scale : 13 * scale, 10 * scale : 13 * scale]
+        assert (obj == (250, 20, 20)).all()
+        ring = _outline_set(10 * scale - 1, 10 * scale - 1, 13 * scale, 13 * scale)
+        assert _pixels_of(tile, report.CATEGORY_COLOURS[0]) == ring
+    # the old rule (outline just inside) covers the object's border pixels
+    t = report.contact_sheet(ds, scale=1, small_outline=0)
+    tile = t.pixels[t.tiles[0].top :, t.tiles[0].left :]
+    assert not (tile[10:13, 10:13] == (250, 20, 20)).all()
+
+
+def _sized_dataset(tmp_path, sizes):
+    """One 200x60 image with square objects of the given sides in a row, each of its own colour."""
+    img = np.full((60, 200, 3), 60, dtype=np.uint8)
+    anns, x = [], 4
+    for i, s in enumerate(sizes):
+        img[10 : 10 + s, x : x + s] = (200, 200 - 10 * i, 40)
+        anns.append({"id": i + 1, "image_id": 1, "category_id": 1, "bbox": [x, 10, s, s], "area": float(s * s),
+                     "iscrowd": 0})
+        x += s + 6
+    root = tmp_path / "sized"
+    _write_dataset(root, [{"id": 1, "file_name": "a.png", "width": 200, "height": 60}], anns,
+                   [{"id": 1, "name": "pin"}])
+    Image.fromarray(img).save(root / "images" / "a.png")
+    return report.open_dataset(root)
+
+
+def test_zoom_strip_can_show_a_spread_of_sizes_or_the_missed(tmp_path):
+    """--zoom-pick: smallest takes the smallest, spread reaches the larger ones, missed only unfound objects."""
+    sizes = [2, 3, 4, 6, 8, 10, 12, 14]
+    ds = _sized_dataset(tmp_path, sizes)
+
+    def shown(**kw):
+        sheet = report.contact_sheet(ds, scale=1, zoom=True, zoom_count=3, **kw)
+        return [sizes[c.annotation] for c in sheet.crops]
+
+    assert shown() == [2, 3, 4]
+    assert shown(zoom_pick="spread") == [2, 8, 14]
+    anns = ds.coco["annotations"]
+    preds = [{"image_id": 1, "category_id": 1, "bbox": a["bbox"], "score": 1.0} for a in anns[:5]]
+    (tmp_path / "p.json").write_text(json.dumps(preds))
+    p, missed = report.classify_predictions(ds.coco, report.read_predictions(tmp_path / "p.json"))
+    assert shown(zoom_pick="missed", predictions=p, missed=missed) == [10, 12, 14]
+    with pytest.raises(UserError, match="needs predictions"):
+        shown(zoom_pick="missed")
+
+
+def test_show_caption_counts_only_the_predictions_drawn(small_dataset, tmp_path):
+    """With 2 of 6 images shown, the line printed counts the predictions on those 2 images only."""
+    ds, _ = small_dataset
+    coco = json.loads((ds / "annotations.json").read_text())
+    preds = [{"image_id": a["image_id"], "category_id": a["category_id"], "bbox": a["bbox"], "score": 1.0}
+             for a in coco["annotations"] if not a["iscrowd"]]
+    (tmp_path / "p.json").write_text(json.dumps(preds))
+    res = run("show", ds, "--out", tmp_path / "s.png", "--pred", tmp_path / "p.json", "--images", 2)
+    assert res.exit_code == 0, res.output
+    first = sorted(im["id"] for im in coco["images"])[:2]
+    drawn = sum(p["image_id"] in first for p in preds)
+    assert drawn < len(preds)
+    assert f"{drawn} of {len(preds)} predictions drawn" in res.stdout

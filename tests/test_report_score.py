@@ -29,9 +29,12 @@ def _plot_area_is_drawn(png, n_panels):
     img = np.asarray(Image.open(png).convert("RGB")).astype(int)
     w = img.shape[1] // min(n_panels, 3)
     panel = img[40:-60, 60:w - 20]  # inside the first panel's axes, away from labels
-    # matplotlib's first two default line colours, C0 #1f77b4 and C1 #ff7f0e (matplotlib docs: default cycler)
-    c0 = (np.abs(panel - [0x1F, 0x77, 0xB4]).sum(axis=2) < 40).sum()
-    c1 = (np.abs(panel - [0xFF, 0x7F, 0x0E]).sum(axis=2) < 40).sum()
+    # the first two series' colours (AP50 and AP), as the figure module defines them
+    from synthgen.report.charts import SERIES
+
+    rgb = [[int(c[1 + 2 * i : 3 + 2 * i], 16) for i in range(3)] for c in (SERIES[0][2], SERIES[1][2])]
+    c0 = (np.abs(panel - rgb[0]).sum(axis=2) < 40).sum()
+    c1 = (np.abs(panel - rgb[1]).sum(axis=2) < 40).sum()
     return c0 > 50 and c1 > 50
 
 

@@ -255,6 +255,44 @@ def test_confusion_counts_cross_class_hits():
     assert conf.confused == 1
 
 
+def test_confusion_without_any_object_counts_every_detection_as_none():
+    """No annotation at all: each detection is a false positive in the "none" row (Confusion's rule)."""
+    gt = {"images": [{"id": 1}], "categories": [{"id": 1, "name": "disc"}, {"id": 2, "name": "ring"}], "annotations": []}
+    preds = [_pred(1, 1, [0, 0, 10, 10], 0.9), _pred(1, 2, [5, 5, 10, 10], 0.8), _pred(1, 2, [50, 5, 10, 10], 0.7)]
+    assert evaluate(gt, preds).confusion.counts.tolist() == [[0, 0], [0, 0], [1, 2]]
+
+
+@pytest.mark.parametrize("seed", range(12))
+def test_confusion_best_other_class_agrees_with_a_plain_loop(seed):
+    """The padded-table and pair-list searches for a false positive's best other-class object agree with a
+    loop over pairs by synthgen.geometry.box_iou (IoU >= 0.5, highest, first in file order among equals)."""
+    from synthgen.evaluate import classify
+    from synthgen.formats.coco import xyxy_from_bbox
+    from synthgen.geometry import box_iou
+
+    gt, preds = random_case(np.random.default_rng(seed), grid=seed % 2 == 0, many=seed % 3 == 0)
+    ev = evaluate(gt, preds)
+    t, pb = ev._truth, ev._pb
+    fp = np.arange(len(pb.rec))  # every detection, to exercise many candidates
+    gxy, dxy = xyxy_from_bbox(t.box), xyxy_from_bbox(pb.box)
+    expected = np.full(len(fp), -1)
+    for i, d in enumerate(fp):
+        best = 0.5
+        for g in range(len(t.img)):
+            if t.img[g] != pb.img[d] or t.crowd[g] or t.cat[g] == pb.cat[d]:
+                continue
+            v = box_iou(dxy[d : d + 1], gxy[g : g + 1])[0]
+            if v > best or (v == best and expected[i] < 0):
+                best, expected[i] = v, g
+    table = classify._best_other_class(t, pb, fp, gxy, dxy)
+    keep = np.flatnonzero(~t.crowd)
+    g_order = keep[np.argsort(t.img[keep], kind="stable")]
+    per_img = np.bincount(t.img[g_order], minlength=len(t.image_ids))
+    pairs = classify._best_other_class_pairs(t, pb, fp, g_order, per_img, gxy, dxy)
+    assert table.tolist() == expected.tolist()
+    assert pairs.tolist() == expected.tolist()
+
+
 def test_per_category_counts():
     """Per-category results count non-crowd objects and that category's predictions."""
     gt = _gt([[10, 10, 50, 50], [100, 10, 50, 50], [200, 10, 50, 50]], cats=[1, 1, 2], crowd=[0, 1, 0])
@@ -504,3 +542,18 @@ def test_finding_every_visible_speck_loses_nothing(dense_coco):
     worse = coco_reference(unmarked, preds)
     assert worse.stats[0] < 0.99  # the specks found become false positives, ranked first
     np.testing.assert_allclose(evaluate(unmarked, preds).stats, worse.stats, rtol=0, atol=1e-9)
+
+
+@pytest.mark.parametrize("seed", range(6))
+def test_pairs_listed_in_small_slices_give_the_same_evaluation(seed, monkeypatch):
+    """Pairs are listed in slices of detections; slices of 2 give the stats, matches and confusion of one slice."""
+    from synthgen.evaluate import match as match_module
+
+    gt, preds = random_case(np.random.default_rng(100 + seed), grid=seed % 2 == 0, many=seed % 3 == 0)
+    whole = evaluate(gt, preds)
+    monkeypatch.setattr(match_module, "_CHUNK", 2)
+    sliced = evaluate(gt, preds)
+    assert sliced.stats == whole.stats
+    assert np.array_equal(sliced._matched, whole._matched)
+    assert np.array_equal(sliced.confusion.counts, whole.confusion.counts)
+    assert len(sliced._pb.p_iou) == 0 or sliced._pb.p_iou.min() >= 0.5  # pairs below every threshold left out

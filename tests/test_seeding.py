@@ -30,7 +30,7 @@ def test_stream_keys_are_distinct_and_named_once():
 
 def test_modules_use_the_table():
     """The modules that draw from a named stream take its key from synthgen.seeding."""
-    from synthgen import jitter, scene
+    from synthgen import jitter, scene, stream
     from synthgen.formats import splits, tokens
     from synthgen.jitter import coco as jitter_coco
 
@@ -39,3 +39,4 @@ def test_modules_use_the_table():
     assert jitter.NOISE_STREAM is seeding.NOISE_STREAM
     assert jitter_coco.JITTER_STREAM is seeding.JITTER_STREAM
     assert scene.image_rng is seeding.image_rng
+    assert stream.EPOCH_STREAM is seeding.EPOCH_STREAM

@@ -12,7 +12,7 @@ from typing import Annotated
 
 import typer
 
-from synthgen.cli import boxes, make, view
+from synthgen.cli import boxes, cases, make, page, probe, tokens, view
 from synthgen.cli._common import _Command, _Group
 
 __all__ = ["app", "main"]
@@ -51,15 +51,22 @@ COMMANDS = (
     make.make,
     boxes.jitter,
     boxes.score,
+    page.report,
     view.check,
     make.export,
     make.sweep,
     make.merge,
     view.show,
     view.stats,
+    probe.probe,
+    cases.cases,
+    cases.conform,
 )
 for _command in COMMANDS:
     app.command(cls=_Command)(_command)
+
+#: Command groups: ``synthgen NAME COMMAND``.
+app.add_typer(tokens.app, name="tokens")
 
 
 def main() -> None:

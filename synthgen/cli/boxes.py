@@ -187,7 +187,7 @@ def score(
             for fact, bins in p.slices.items():
                 console.print(rep.slice_table(f"{fact}, {p.label or p.subset}", bins))
         if plot is not None:  # the figure first: a figure that cannot be drawn leaves no JSON behind
-            rep.plot_sweep(points, plot)
+            rep.plot_sweep(points, plot, title=f"{pred_dir.name} on the sweep {dataset.name}")
         if json_out is not None:
             write_atomic(json_out, orjson.dumps({"sweep": [p.to_dict() for p in points]}, option=orjson.OPT_INDENT_2))
         return

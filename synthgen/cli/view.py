@@ -56,6 +56,14 @@ def show(
     zoom: Annotated[
         bool, typer.Option("--zoom", help="Add enlarged crops of the smallest objects (nearest neighbour).")
     ] = False,
+    zoom_pick: Annotated[
+        str,
+        typer.Option("--zoom-pick", help="Objects the zoom strip shows: smallest, spread (sizes from the smallest "
+                     "up) or missed (the smallest no prediction found; needs --pred)."),
+    ] = "smallest",
+    zoom_count: Annotated[
+        int | None, typer.Option("--zoom-count", help="Number of zoom crops (default: two rows).", min=1)
+    ] = None,
     image_dir: Annotated[
         Path | None,
         typer.Option("--image-dir", help="Directory holding the images, if not beside the annotation file."),
@@ -85,23 +93,17 @@ def show(
     ds = report.open_dataset(dataset, image_dir=image_dir)
     id_list = _parse_ids(ids) if ids is not None else None
     predictions = missed = None
-    how = ""
     if pred is not None:
-        predictions = report.read_predictions(pred)
-        if truth is not None:
-            side = report.read_truth_sidecar(truth, len(predictions))
-            predictions = predictions.with_kinds(side.kinds)
-            missed = side.missed
-            how = f", kinds from {truth}"
-        else:
-            predictions, missed = report.classify_predictions(ds.coco, predictions)
-            how = ", kinds by matching at IoU 0.5"
+        predictions, missed, how = report.overlay_predictions(ds, pred, truth)
     sheet = report.contact_sheet(
-        ds, n=images, ids=id_list, cols=cols, scale=scale, predictions=predictions, missed=missed, zoom=zoom
+        ds, n=images, ids=id_list, cols=cols, scale=scale, predictions=predictions, missed=missed, zoom=zoom,
+        zoom_count=zoom_count, zoom_pick=zoom_pick,
     )
     report.save_png(sheet.pixels, out)
     shown = len(id_list) if id_list is not None else min(images, len(ds.coco["images"]))
-    extra = f", {len(predictions)} predictions{how}" if predictions is not None else ""
+    extra = ""
+    if predictions is not None:  # count the predictions drawn, not every one in the file
+        extra = f", {report.predictions_on(sheet.tiles, predictions)} of {len(predictions)} predictions drawn, {how}"
     size = f"{sheet.pixels.shape[1]}x{sheet.pixels.shape[0]} px"
     typer.echo(f"wrote {out} ({size}, {shown} image{'s' if shown != 1 else ''}{extra})")
 

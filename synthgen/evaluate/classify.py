@@ -3,7 +3,8 @@
 :class:`Confusion` tables detections by predicted class and the class of the object they hit;
 :func:`confusion_counts` fills it from the matches :mod:`synthgen.evaluate.cocoeval` made.
 :func:`classify_predictions` names each prediction's kind (:data:`synthgen.formats.results.PREDICTION_KINDS`) from the
-same matcher, for the contact sheet of :mod:`synthgen.report`.
+same matcher, for the contact sheet of :mod:`synthgen.report`; :func:`classify_matches` adds the annotation each
+prediction took, for the error breakdown of the report page (:mod:`synthgen.page.errors`).
 """
 
 from __future__ import annotations
@@ -78,32 +79,73 @@ def confusion_counts(t, pb, hit: np.ndarray, tp: np.ndarray, det_out: np.ndarray
         Detections left out of the size range.
     """
     n_k = len(t.cat_ids)
-    counts = np.zeros((n_k + 1, n_k), dtype=np.int64)
-    np.add.at(counts, (pb.cat[tp], pb.cat[tp]), 1)
     fp = np.flatnonzero(~hit & ~det_out)
-    # Pairs of each false positive with every non-crowd object of its image.
-    g_order = np.argsort(t.img, kind="stable")
-    g_img = t.img[g_order]
-    lo = np.searchsorted(g_img, pb.img[fp], side="left")
-    cnt = np.searchsorted(g_img, pb.img[fp], side="right") - lo
-    q_det = np.repeat(fp, cnt)
-    q_gt = g_order[np.repeat(lo, cnt) + np.arange(len(q_det)) - np.repeat(np.cumsum(cnt) - cnt, cnt)]
-    keep = (t.cat[q_gt] != pb.cat[q_det]) & ~t.crowd[q_gt]
-    q_det, q_gt = q_det[keep], q_gt[keep]
-    iou = box_iou(xyxy_from_bbox(pb.box)[q_det], xyxy_from_bbox(t.box)[q_gt])
-    ok = iou >= 0.5
-    q_det, q_gt, iou = q_det[ok], q_gt[ok], iou[ok]
-    # Best IoU per detection (the first in file order among equals).
-    order = np.lexsort((q_gt, -iou, q_det))
-    q_det, q_gt = q_det[order], q_gt[order]
-    first = np.r_[True, q_det[1:] != q_det[:-1]] if len(q_det) else np.zeros(0, bool)
-    q_det, q_gt = q_det[first], q_gt[first]
-    np.add.at(counts, (t.cat[q_gt], pb.cat[q_det]), 1)
-    explained = np.zeros(len(pb.rec), dtype=bool)
-    explained[q_det] = True
-    rest = fp[~explained[fp]]
-    np.add.at(counts, (np.full(len(rest), n_k), pb.cat[rest]), 1)
+    best = _best_other_class(t, pb, fp, xyxy_from_bbox(t.box), xyxy_from_bbox(pb.box))  # (F,) object or -1
+    fp_row = np.full(len(fp), n_k, dtype=np.int64)  # "none" unless it hit an object of another class
+    fp_row[best >= 0] = t.cat[best[best >= 0]]
+    row = np.concatenate([pb.cat[tp], fp_row])
+    col = np.concatenate([pb.cat[tp], pb.cat[fp]])
+    counts = np.bincount(row * n_k + col, minlength=(n_k + 1) * n_k).reshape(n_k + 1, n_k)
     return Confusion(names=t.cat_names, counts=counts)
+
+
+def _best_other_class(t, pb, fp: np.ndarray, gt_xyxy: np.ndarray, det_xyxy: np.ndarray) -> np.ndarray:
+    """For each detection in ``fp``, the non-crowd object of another class in its image with the highest IoU
+    (xyxy IoU of :func:`synthgen.geometry.box_iou`) when it is at least 0.5, the first in file order among
+    equals; -1 where there is none.
+
+    The candidates are laid out as a table with one row per detection and one column per object of
+    its image (padded), so the IoUs are a few whole-table array operations; an image with far more
+    objects than the others would make the padding dominate, and then the pairs are listed one by one.
+    """
+    keep = np.flatnonzero(~t.crowd)
+    g_order = keep[np.argsort(t.img[keep], kind="stable")]  # non-crowd objects by image, file order within
+    n_img = int(max(t.img.max(initial=-1), pb.img.max(initial=-1))) + 1
+    per_img = np.bincount(t.img[g_order], minlength=n_img)
+    width = int(per_img.max(initial=0))
+    n_pairs = int(per_img[pb.img[fp]].sum())
+    if len(fp) == 0 or n_pairs == 0:
+        return np.full(len(fp), -1, dtype=np.int64)
+    if len(fp) * width > 4 * n_pairs + (1 << 20):
+        return _best_other_class_pairs(t, pb, fp, g_order, per_img, gt_xyxy, det_xyxy)
+    start = np.cumsum(per_img) - per_img
+    col = np.arange(len(g_order)) - start[t.img[g_order]]
+    table = np.full((n_img, width), -1, dtype=np.int64)
+    table[t.img[g_order], col] = g_order
+    best = np.empty(len(fp), dtype=np.int64)
+    step = max(1, (1 << 18) // max(width, 1))  # rows at once, so that the temporaries stay small
+    for r0 in range(0, len(fp), step):
+        f = fp[r0 : r0 + step]
+        cand = table[pb.img[f]]  # (F, W)
+        valid = cand >= 0
+        g = np.where(valid, cand, 0)
+        valid &= t.cat[g] != pb.cat[f][:, None]
+        iou = box_iou(np.repeat(det_xyxy[f], width, axis=0), gt_xyxy[g.ravel()]).reshape(g.shape)
+        iou[~(valid & (iou >= 0.5))] = -1.0  # (NaN, from absurd boxes, is below too)
+        j = np.argmax(iou, axis=1)  # the first column among equal IoUs: file order
+        rows = np.arange(len(f))
+        best[r0 : r0 + step] = np.where(iou[rows, j] >= 0.5, cand[rows, j], -1)
+    return best
+
+
+def _best_other_class_pairs(t, pb, fp, g_order, per_img, gt_xyxy, det_xyxy) -> np.ndarray:
+    """:func:`_best_other_class` by listing every (detection, object) pair, for very uneven images."""
+    start = np.cumsum(per_img) - per_img
+    lo = start[pb.img[fp]]
+    cnt = per_img[pb.img[fp]]
+    q = np.repeat(np.arange(len(fp)), cnt)
+    q_gt = g_order[np.repeat(lo, cnt) + np.arange(len(q)) - np.repeat(np.cumsum(cnt) - cnt, cnt)]
+    other = t.cat[q_gt] != pb.cat[fp[q]]
+    q, q_gt = q[other], q_gt[other]
+    iou = box_iou(det_xyxy[fp[q]], gt_xyxy[q_gt])
+    ok = iou >= 0.5
+    q, q_gt, iou = q[ok], q_gt[ok], iou[ok]
+    order = np.lexsort((q_gt, -iou, q))  # best IoU per detection, the first in file order among equals
+    q, q_gt = q[order], q_gt[order]
+    first = np.r_[True, q[1:] != q[:-1]] if len(q) else np.zeros(0, bool)
+    best = np.full(len(fp), -1, dtype=np.int64)
+    best[q[first]] = q_gt[first]
+    return best
 
 
 # --------------------------------------------------------------------------- error kinds
@@ -139,6 +181,18 @@ class Predictions:
             raise ValueError(f"'kinds' must have one entry per prediction ({len(self)}), got {len(kinds)}")
         return Predictions(self.boxes, self.image_id, self.category_id, self.score, tuple(kinds))
 
+    @classmethod
+    def from_records(cls, records: Sequence[Mapping]) -> Predictions:
+        """Unclassified predictions from COCO results records (already checked), in their order; score 1.0 if absent."""
+        n = len(records)
+        return cls(
+            boxes=xyxy_from_bbox([r["bbox"] for r in records]).reshape(-1, 4) if n else np.zeros((0, 4)),
+            image_id=np.array([r["image_id"] for r in records], dtype=np.int64),
+            category_id=np.array([r["category_id"] for r in records], dtype=np.int64),
+            score=np.array([float(r.get("score", 1.0)) for r in records], dtype=np.float64),
+            kind=("",) * n,
+        )
+
 
 def _finite(v) -> bool:
     return isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v)
@@ -167,14 +221,7 @@ def read_prediction_boxes(path) -> Predictions:
             raise InputFileError(path, f"record {i}: {rule} (got {b!r})")
         if "score" in r and not _finite(r["score"]):
             raise InputFileError(path, f"record {i}: 'score' must be a finite number (got {r['score']!r})")
-    n = len(data)
-    return Predictions(
-        boxes=xyxy_from_bbox([r["bbox"] for r in data]) if n else np.zeros((0, 4)),
-        image_id=np.array([r["image_id"] for r in data], dtype=np.int64),
-        category_id=np.array([r["category_id"] for r in data], dtype=np.int64),
-        score=np.array([float(r.get("score", 1.0)) for r in data], dtype=np.float64),
-        kind=("",) * n,
-    )
+    return Predictions.from_records(data)
 
 
 
@@ -220,6 +267,10 @@ def classify_predictions(coco: Mapping, preds: Predictions, *, iou: float = 0.5,
     missed : frozenset of int
         Ids of the non-crowd annotations no true positive matched.
 
+    See Also
+    --------
+    classify_matches : the same kinds, with the annotation each prediction took.
+
     Examples
     --------
     >>> gt = {"annotations": [{"image_id": 1, "category_id": 1, "bbox": [0, 0, 10, 10]}]}
@@ -227,6 +278,25 @@ def classify_predictions(coco: Mapping, preds: Predictions, *, iou: float = 0.5,
     ...                 np.array([1, 1, 1]), np.array([1, 1, 1]), np.array([.9, .8, .7]), ("",) * 3)
     >>> classify_predictions(gt, p)[0].kind
     ('true_positive', 'duplicate', 'background')
+    """
+    out, took = classify_matches(coco, preds, iou=iou, near=near)
+    *_, crowd, anns = truth_arrays(coco)
+    matched = np.zeros(len(anns), dtype=bool)
+    matched[took[np.array(out.kind, dtype=object) == "true_positive"]] = True
+    missed = frozenset(a.get("id") for a, m, c in zip(anns, matched, crowd) if not m and not c)
+    return out, missed
+
+
+def classify_matches(coco: Mapping, preds: Predictions, *, iou: float = 0.5, near: float = 0.1):
+    """Each prediction's kind (rules of :func:`classify_predictions`) and the annotation its match took.
+
+    Returns
+    -------
+    kinds : Predictions
+        ``preds`` with ``kind`` filled in.
+    took : ndarray of int64, shape (P,)
+        Index (file order) of the annotation each prediction matched at IoU
+        ``iou`` (a true positive's object, or an ignore region), -1 for none.
     """
     gt_boxes, gt_img, gt_cat, crowd, anns = truth_arrays(coco)
     took = _match_at(anns, gt_img, gt_cat, crowd, preds, iou)
@@ -245,11 +315,7 @@ def classify_predictions(coco: Mapping, preds: Predictions, *, iou: float = 0.5,
             ["duplicate", "wrong_class", "localization"],
             "background",
         )
-    out = preds.with_kinds([str(k) for k in kinds])
-    matched = np.zeros(len(anns), dtype=bool)
-    matched[took[hit & ~on_crowd]] = True
-    missed = frozenset(a.get("id") for a, m, c in zip(anns, matched, crowd) if not m and not c)
-    return out, missed
+    return preds.with_kinds([str(k) for k in kinds]), took
 
 
 def _match_at(anns: list, gt_img: np.ndarray, gt_cat: np.ndarray, crowd: np.ndarray, preds, iou: float) -> np.ndarray:

@@ -51,7 +51,8 @@ class Problem:
     Detections (D of them) are in *match order*: by rank within their image
     and category (rank 0 = highest score), then by image and category.  Pairs
     (P of them) join each detection to every ground truth of its image and
-    category, in detection order and then file order of the ground truth.
+    category (with an IoU of at least ``min_iou`` when :func:`build_problem`
+    was given one), in detection order and then file order of the ground truth.
     """
 
     rec: np.ndarray  # (D,) index of the record in the predictions list
@@ -63,13 +64,19 @@ class Problem:
     p_det: np.ndarray  # (P,) detection index
     p_gt: np.ndarray  # (P,) ground-truth index
     p_iou: np.ndarray  # (P,)
-    rank_start: np.ndarray  # (ranks + 1,) first pair of each rank
     acc_order: np.ndarray  # (D,) detections by category, -score, image, rank
     cat_start: np.ndarray  # (K + 1,) first position of each category in acc_order
 
 
-def build_problem(truth: Truth, preds: Preds, max_det: int | None) -> Problem:
-    """Detections in match order (at most ``max_det`` per image and category; None keeps all) and their pairs."""
+#: Detections handled at once when listing pairs (bounds the size of temporary arrays).
+_CHUNK = 1 << 15
+
+
+def build_problem(truth: Truth, preds: Preds, max_det: int | None, min_iou: float | None = None) -> Problem:
+    """Detections in match order (at most ``max_det`` per image and category; None keeps all) and their pairs.
+
+    With ``min_iou``, pairs whose IoU is below it are left out (they can match at no threshold >= ``min_iou``).
+    """
     k_cats = len(truth.cat_ids)
     idx = np.flatnonzero(preds.cat >= 0)
     group = preds.img[idx] * k_cats + preds.cat[idx]
@@ -93,21 +100,28 @@ def build_problem(truth: Truth, preds: Preds, max_det: int | None) -> Problem:
     g_sorted = g_group[g_order]
     lo = np.searchsorted(g_sorted, d_group, side="left")
     cnt = np.searchsorted(g_sorted, d_group, side="right") - lo
-    p_det = np.repeat(np.arange(d_count), cnt)
-    offsets = np.cumsum(cnt) - cnt
-    within = np.arange(len(p_det)) - np.repeat(offsets, cnt)
-    p_gt = g_order[np.repeat(lo, cnt) + within]
     box = preds.box[rec]
-    p_iou = coco_iou(box[p_det], truth.box[p_gt], truth.crowd[p_gt])
-    n_ranks = int(rank.max()) + 1 if d_count else 0
-    rank_start = np.searchsorted(rank[p_det], np.arange(n_ranks + 1), side="left")
+    chunks = []
+    for d0 in range(0, d_count, _CHUNK):  # in slices of detections, so that the temporaries stay small
+        d1 = min(d0 + _CHUNK, d_count)
+        c = cnt[d0:d1]
+        p_det = np.repeat(np.arange(d0, d1), c)
+        within = np.arange(len(p_det)) - np.repeat(np.cumsum(c) - c, c)
+        p_gt = g_order[np.repeat(lo[d0:d1], c) + within]
+        p_iou = coco_iou(box[p_det], truth.box[p_gt], truth.crowd[p_gt])
+        if min_iou is not None:
+            kept = p_iou >= min_iou
+            p_det, p_gt, p_iou = p_det[kept], p_gt[kept], p_iou[kept]
+        chunks.append((p_det, p_gt, p_iou))
+    p_det, p_gt, p_iou = (np.concatenate(c) for c in zip(*chunks)) if chunks else (
+        np.zeros(0, np.int64), np.zeros(0, np.int64), np.zeros(0))
 
     cat = preds.cat[rec]
     img = preds.img[rec]
     score = preds.score[rec]
     acc_order = np.lexsort((rank, img, -score, cat))
     cat_start = np.searchsorted(cat[acc_order], np.arange(k_cats + 1), side="left")
-    return Problem(rec, img, cat, rank, score, box, p_det, p_gt, p_iou, rank_start, acc_order, cat_start)
+    return Problem(rec, img, cat, rank, score, box, p_det, p_gt, p_iou, acc_order, cat_start)
 
 
 def match(pb: Problem, gt_ignore: np.ndarray, crowd: np.ndarray, thresholds: np.ndarray) -> np.ndarray:
@@ -140,31 +154,38 @@ def match(pb: Problem, gt_ignore: np.ndarray, crowd: np.ndarray, thresholds: np.
     n_t = len(thresholds)
     n_d = len(pb.rec)
     matched = np.full((n_a, n_t, n_d), -1, dtype=np.int64)
-    if len(pb.p_det) == 0:
+    thresholds = np.asarray(thresholds)
+    # A pair below the lowest threshold is never eligible: leave it out (the order of the rest is kept).
+    kept = np.flatnonzero(pb.p_iou >= thresholds.min()) if n_t else np.zeros(0, np.int64)
+    if len(kept) == 0:
         return matched
+    p_det, p_gt, p_iou = pb.p_det[kept], pb.p_gt[kept], pb.p_iou[kept]
+    # Pairs are in match order, so by rank: the pairs of each rank are one run.
+    rank_start = np.searchsorted(pb.rank[p_det], np.arange(int(pb.rank[p_det[-1]]) + 2), side="left")
     taken = np.zeros((n_a, n_t, n_g), dtype=bool)
-    thr = np.asarray(thresholds)[None, :, None]
-    new_seg = np.r_[True, pb.p_det[1:] != pb.p_det[:-1]]
+    thr = thresholds[None, :, None]
+    new_seg = np.r_[True, p_det[1:] != p_det[:-1]]
     seg_first = np.flatnonzero(new_seg)
-    position = np.arange(len(pb.p_det)) - np.repeat(seg_first, np.diff(np.r_[seg_first, len(pb.p_det)]))
+    position = np.arange(len(p_det)) - np.repeat(seg_first, np.diff(np.r_[seg_first, len(p_det)]))
     width = int(position.max()) + 1
-    iou_rank = np.unique(pb.p_iou, return_inverse=True)[1].reshape(-1)
+    iou_rank = np.unique(p_iou, return_inverse=True)[1].reshape(-1)
     big = (int(iou_rank.max()) + 1) * width
     key_base = iou_rank * width + position  # (P,)
-    for r in range(len(pb.rank_start) - 1):
-        p0, p1 = pb.rank_start[r], pb.rank_start[r + 1]
+    counted_key = np.where(gt_ignore, 0, big)  # (A, G)
+    for r in range(len(rank_start) - 1):
+        p0, p1 = rank_start[r], rank_start[r + 1]
         if p0 == p1:
             continue
         # Within one rank each image-category group has at most one detection,
         # so the detections of a rank are matched simultaneously.
-        pg = pb.p_gt[p0:p1]
+        pg = p_gt[p0:p1]
         starts = np.flatnonzero(new_seg[p0:p1])
-        eligible = (~taken[:, :, pg] | crowd[pg]) & (pb.p_iou[p0:p1] >= thr)  # (A, T, P)
-        key = key_base[p0:p1] + np.where(gt_ignore[:, pg], 0, big)[:, None, :]  # (A, 1, P)
+        eligible = (~taken[:, :, pg] | crowd[pg]) & (p_iou[p0:p1] >= thr)  # (A, T, P)
+        key = key_base[p0:p1] + counted_key[:, pg][:, None, :]  # (A, 1, P)
         best = np.maximum.reduceat(np.where(eligible, key, -1), starts, axis=2)  # (A, T, S)
         a_i, t_i, s_i = np.nonzero(best >= 0)
         pair = p0 + starts[s_i] + best[a_i, t_i, s_i] % width
-        g_i = pb.p_gt[pair]
+        g_i = p_gt[pair]
         taken[a_i, t_i, g_i] = True
-        matched[a_i, t_i, pb.p_det[pair]] = g_i
+        matched[a_i, t_i, p_det[pair]] = g_i
     return matched

@@ -86,8 +86,12 @@ def derive_fact(fact: str, truth: Truth) -> list:
     return [None if c else v for v, c in zip(values.tolist(), truth.crowd.tolist())]
 
 
-def _geometric_edges(values: np.ndarray, base: float) -> np.ndarray:
+def _geometric_edges(values: np.ndarray, base: float, refine: int = 2) -> np.ndarray:
     """Powers of ``base`` spanning the positive values, with 0 first when some value is below the first power.
+
+    When distinct values fall in fewer than three such bins (a narrow subset,
+    say sizes 9 to 14 px), the base is replaced by its square root, up to
+    ``refine`` times, so that a figure shows a trend rather than one point.
 
     Examples
     --------
@@ -95,7 +99,17 @@ def _geometric_edges(values: np.ndarray, base: float) -> np.ndarray:
     [1.0, 2.0, 4.0, 8.0]
     >>> _geometric_edges(np.array([0.0, 5.0]), 2.0).tolist()
     [0.0, 4.0, 8.0]
+    >>> [round(float(x), 2) for x in _geometric_edges(np.array([9.0, 11.0, 14.0]), 2.0)]
+    [8.0, 9.51, 11.31, 13.45, 16.0]
     """
+    e = _powers_spanning(values, base)
+    positive = values[values > 0]
+    if refine > 0 and len(e) < 4 and positive.size and positive.max() > positive.min():
+        return _geometric_edges(values, math.sqrt(base), refine - 1)
+    return e
+
+
+def _powers_spanning(values: np.ndarray, base: float) -> np.ndarray:
     positive = values[values > 0]
     if positive.size == 0:
         return np.array([0.0, 1.0])

@@ -14,8 +14,6 @@ from collections.abc import Callable, Iterator
 from dataclasses import dataclass
 from pathlib import Path
 
-from PIL import Image
-
 from synthgen.errors import InputFileError
 from synthgen.errors import is_int as _is_int
 from synthgen.errors import is_number as _is_num
@@ -134,6 +132,8 @@ class CheckContext:
 
     def image_size(self, path: Path) -> tuple[int, int] | None:
         """(W, H) of an image file, or None (with a problem) when it does not decode."""
+        from PIL import Image
+
         if path not in self._sizes:
             try:
                 with Image.open(path) as im:

@@ -34,7 +34,6 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 import orjson
-from PIL import Image, ImageDraw
 
 from synthgen._io import read_input
 from synthgen.errors import InputFileError
@@ -69,6 +68,8 @@ MAX_IDS = IGNORE_ID - 1
 
 def annotation_mask(ann: dict, height: int, width: int) -> np.ndarray:
     """Binary mask (bool (H, W)) of one COCO annotation's segmentation."""
+    from PIL import Image, ImageDraw
+
     seg = ann.get("segmentation")
     if isinstance(seg, dict):
         if list(seg.get("size", [])) != [height, width]:
@@ -167,6 +168,8 @@ def lost_annotations(annotations: list[dict], ids: np.ndarray) -> list[int]:
 
 def write_instance_pngs(coco: dict, out_dir) -> int:
     """Write ``<image stem>.png`` instance-id images into ``out_dir``; returns the count."""
+    from PIL import Image
+
     out_dir = Path(out_dir)
     by_image = annotations_by_image(coco)
     for im in coco["images"]:
@@ -197,6 +200,8 @@ def write_mask_rles(coco: dict, path) -> int:
 
 def read_instance_png(path) -> np.ndarray:
     """Read an instance-id PNG as uint16 (H, W); raises InputFileError when unusable."""
+    from PIL import Image
+
     path = Path(path)
     try:
         with Image.open(path) as im:

@@ -28,7 +28,6 @@ counts a difficult object nor charges a detection of it.  Files are
 
 from __future__ import annotations
 
-import xml.etree.ElementTree as ET
 from pathlib import Path
 from typing import TYPE_CHECKING
 
@@ -111,6 +110,8 @@ def voc_document(image: dict, annotations: list[dict], names: dict[int, str]) ->
     bytes
         UTF-8 XML document.
     """
+    import xml.etree.ElementTree as ET
+
     root = ET.Element("annotation")
     ET.SubElement(root, "folder").text = "images"
     ET.SubElement(root, "filename").text = Path(image["file_name"]).name
@@ -199,6 +200,8 @@ def read_voc(path) -> dict:
         When the file is missing, not XML, or a value is missing or not a
         number; the message names the file and the object.
     """
+    import xml.etree.ElementTree as ET
+
     path = Path(path)
     try:
         root = ET.parse(path).getroot()

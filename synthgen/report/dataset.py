@@ -110,3 +110,32 @@ def load_image(ds: Dataset, image: Mapping) -> np.ndarray:
     if arr is None:
         raise InputFileError(path, "is not an image file OpenCV can decode")
     return arr
+
+
+def overlay_predictions(ds: Dataset, pred, truth=None):
+    """Predictions to draw over a dataset, each with its kind, and the annotation ids none found.
+
+    The kinds come from a truth sidecar written by ``synthgen jitter`` when ``truth`` is given, else
+    from COCO's matcher at IoU 0.5 (:func:`synthgen.evaluate.classify.classify_predictions`).
+
+    Returns
+    -------
+    (Predictions, missed, how)
+        ``missed`` the ids of the annotations no prediction found, ``how`` a few words saying where the
+        kinds came from (for a caption).
+    """
+    from synthgen.evaluate.classify import classify_predictions, read_prediction_boxes
+    from synthgen.formats.results import read_truth_sidecar
+
+    predictions = read_prediction_boxes(pred)
+    if truth is not None:
+        side = read_truth_sidecar(truth, len(predictions))
+        return predictions.with_kinds(side.kinds), side.missed, f"kinds from {truth}"
+    predictions, missed = classify_predictions(ds.coco, predictions)
+    return predictions, missed, "kinds by matching at IoU 0.5"
+
+
+def predictions_on(tiles, predictions) -> int:
+    """How many of ``predictions`` fall on the images of ``tiles`` (what a sheet actually draws)."""
+    on_sheet = {t.image_id for t in tiles}
+    return sum(int(i) in on_sheet for i in predictions.image_id)

@@ -10,8 +10,10 @@ inside* the box: in a tile drawn at scale ``s`` the outline's columns are
 ``ceil(s * y1) - 1`` (:func:`outline_pixels`).  So box ``[2, 3, 7, 9]`` at scale
 1 colours columns 2..6 on rows 3 and 8 and rows 3..8 on columns 2 and 6, and
 nothing outside the box takes the box's colour.  Edges that fall outside a tile
-are not drawn (they would suggest an edge that is not there).  To keep a light
-outline visible on a light image, the ring of pixels just *outside* each
+are not drawn (they would suggest an edge that is not there).  On the
+overview tiles of a contact sheet a box under 12 tile pixels across is outlined
+on the ring just *outside* it instead (:func:`outline_outside_small`), so a tiny
+object stays visible.  To keep a light outline visible on a light image, the ring of pixels just *outside* each
 outline is darkened (a halo, :func:`draw_boxes`); predictions are dashed, 4
 pixels on and 3 off, with the halo beside the dashes only.
 
@@ -114,6 +116,34 @@ def outline_pixels(boxes, sx: float = 1.0, sy: float | None = None, ox: float = 
     x1 = np.maximum(np.ceil((b[:, 2] - ox) * sx - _EPS) - 1, x0)
     y1 = np.maximum(np.ceil((b[:, 3] - oy) * sy - _EPS) - 1, y0)
     return np.stack([x0, y0, x1, y1], axis=1).astype(np.int64)
+
+
+def outline_outside_small(boxes, sx: float, sy: float, limit: float = 12.0) -> np.ndarray:
+    """Boxes grown by one tile pixel on every side where they are small on the tile.
+
+    The outline of a box lies on the pixels just inside it; on a box a few
+    tile pixels across that ring covers most of the object.  Growing such a box
+    by one tile pixel (``1 / sx`` image pixels across, ``1 / sy`` down) puts its
+    outline on the ring just outside, and the object's own pixels stay visible.
+
+    Parameters
+    ----------
+    boxes : array_like of shape (N, 4)
+        xyxy in image pixels.
+    sx, sy : float
+        Tile pixels per image pixel.
+    limit : float
+        Boxes whose width or height on the tile is below this are grown.
+
+    Examples
+    --------
+    >>> outline_outside_small([[10, 10, 13, 13], [0, 0, 40, 40]], 1.0, 1.0).tolist()
+    [[9.0, 9.0, 14.0, 14.0], [0.0, 0.0, 40.0, 40.0]]
+    """
+    b = as_boxes(boxes).copy()
+    small = ((b[:, 2] - b[:, 0]) * sx < limit) | ((b[:, 3] - b[:, 1]) * sy < limit)
+    b[small] += np.array([-1 / sx, -1 / sy, 1 / sx, 1 / sy])
+    return b
 
 
 def _perimeter(c0: int, r0: int, c1: int, r1: int) -> tuple[np.ndarray, np.ndarray]:

@@ -1,19 +1,17 @@
-"""Scoring results for people: rich tables and a figure of metrics per slice.
+"""Scoring results for people: rich tables, and PNG figures of metrics per slice and across a sweep.
 
-The figure is drawn with matplotlib's Agg canvas directly (no pyplot, no global
-backend switch), so it works headless and inside other programs.
+The figures are drawn by :mod:`synthgen.report.charts` (which the HTML report
+page shares) on matplotlib's ``Figure`` directly: no pyplot, no global backend
+switch, so they work headless and inside other programs.
 """
 
 from __future__ import annotations
 
-import io
 import math
 from collections.abc import Mapping, Sequence
-from pathlib import Path
 
-from synthgen._io import write_atomic
-from synthgen.errors import InputFileError, UserError, require_extra
 from synthgen.evaluate import STAT_NAMES, BinResult, Evaluation, SweepPoint
+from synthgen.report import charts
 
 __all__ = [
     "PANEL_PX",
@@ -30,7 +28,6 @@ __all__ = [
 
 #: Size of one figure panel in pixels, (width, height).
 PANEL_PX = (480, 360)
-_DPI = 100
 _COLUMNS = 3
 
 _STAT_TEXT = {
@@ -64,41 +61,11 @@ def figure_size_px(n_panels: int) -> tuple[int, int]:
     return PANEL_PX[0] * cols, PANEL_PX[1] * rows
 
 
-def _new_figure(n_panels: int):
-    require_extra("matplotlib", "plots", "a figure")
-    from matplotlib.backends.backend_agg import FigureCanvasAgg
-    from matplotlib.figure import Figure
-
-    w, h = figure_size_px(n_panels)
-    fig = Figure(figsize=(w / _DPI, h / _DPI), dpi=_DPI, layout="constrained")
-    FigureCanvasAgg(fig)
-    cols = min(n_panels, _COLUMNS)
-    rows = math.ceil(n_panels / _COLUMNS)
-    axes = [fig.add_subplot(rows, cols, i + 1) for i in range(n_panels)]
-    return fig, axes
-
-
-def _save(fig, path) -> None:
-    """Write ``fig`` as a PNG, atomically; a path that cannot be written is the user's mistake."""
-    path = Path(path)
-    if path.is_dir():
-        raise InputFileError(path, "cannot be written: it is a directory")
-    if not path.parent.is_dir():  # a figure never creates folders
-        raise InputFileError(path, "cannot be written (No such file or directory)")
-    buf = io.BytesIO()
-    fig.savefig(buf, dpi=_DPI, format="png")
-    try:
-        write_atomic(path, buf.getvalue())
-    except OSError as e:
-        raise InputFileError(path, f"cannot be written ({e.strerror or e})") from None
-
-
-def _nan(v) -> float:
-    return math.nan if v is None else float(v)
-
-
 def plot_slices(slices: Mapping[str, Sequence[BinResult]], path, *, title: str | None = None) -> tuple[int, int]:
-    """Write a PNG of recall and AP per bin, one panel per fact.
+    """Write a PNG of AP50, AP and recall at .5 per bin, one panel per fact.
+
+    Drawn by :func:`synthgen.report.charts.slices_figure` (bars for categorical
+    facts, units on the axes, the legend outside the panels).
 
     Parameters
     ----------
@@ -114,38 +81,14 @@ def plot_slices(slices: Mapping[str, Sequence[BinResult]], path, *, title: str |
     (int, int)
         The image's ``(width, height)`` in pixels, :func:`figure_size_px`.
     """
-    facts = [f for f, bins in slices.items() if bins]
-    if not facts:
-        raise UserError("nothing to plot: the figure needs at least one slice with bins (give --by FACT)")
-    fig, axes = _new_figure(len(facts))
-    series = (
-        ("recall50", "recall @ IoU .5", "-", "o"),
-        ("recall75", "recall @ IoU .75", "--", "o"),
-        ("ap50", "AP @ IoU .5", "-", "s"),
-        ("ap", "AP @ IoU .5:.95", "--", "s"),
-    )
-    for ax, fact in zip(axes, facts):
-        bins = slices[fact]
-        x = list(range(len(bins)))
-        for attr, label, style, marker in series:
-            ax.plot(x, [_nan(getattr(b, attr)) for b in bins], linestyle=style, marker=marker, label=label)
-        ax.set_xticks(x)
-        ax.set_xticklabels([f"{b.label}\nn={b.n_gt}" for b in bins], fontsize=8, rotation=30 if len(bins) > 5 else 0)
-        ax.set_ylim(0.0, 1.05)
-        ax.set_xlim(-0.5, len(bins) - 0.5)
-        ax.set_xlabel(f"{fact} (bin, objects)")
-        ax.set_ylabel("recall / AP")
-        ax.set_title(f"by {fact}")
-        ax.grid(True, alpha=0.3)
-    axes[0].legend(fontsize=8, loc="best")
-    if title:
-        fig.suptitle(title)
-    _save(fig, path)
-    return figure_size_px(len(facts))
+    fig = charts.slices_figure(slices, panel_px=PANEL_PX, columns=_COLUMNS, title=title)
+    return charts.save_png(fig, path)
 
 
-def plot_sweep(points: Sequence[SweepPoint], path) -> tuple[int, int]:
-    """Write a PNG of AP, AP50, AP75 and AR100 across the subsets of a sweep.
+def plot_sweep(points: Sequence[SweepPoint], path, *, title: str = "across the sweep") -> tuple[int, int]:
+    """Write a PNG of AP50, AP and recall at .5 across the subsets of a sweep.
+
+    Drawn by :func:`synthgen.report.charts.sweep_figure`.
 
     Parameters
     ----------
@@ -154,36 +97,15 @@ def plot_sweep(points: Sequence[SweepPoint], path) -> tuple[int, int]:
         With one varied key of plain numbers the x-axis is that number;
         otherwise each subset is a tick labelled with its varied values.
     path : path-like
+    title : str
+        Should name the sweep and the predictions.
 
     Returns
     -------
     (int, int)
         Pixel size of the one-panel figure, :data:`PANEL_PX`.
     """
-    if not points:
-        raise UserError("nothing to plot: the sweep has no subsets")
-    fig, (ax,) = _new_figure(1)
-    keys = list(dict.fromkeys(k for p in points for k in p.values))
-    xs = [p.values.get(keys[0]) for p in points] if len(keys) == 1 else []
-    numeric = bool(xs) and all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in xs)
-    x = xs if numeric else list(range(len(points)))
-    for name, style in (("AP", "-o"), ("AP50", "-s"), ("AP75", "--s"), ("AR100", ":o")):
-        i = STAT_NAMES.index(name)
-        ax.plot(x, [p.evaluation.stats[i] if p.evaluation.stats[i] >= 0 else math.nan for p in points], style, label=name)
-    if not numeric:
-        ax.set_xticks(x)
-        labels = [p.label or p.subset for p in points]
-        if len(keys) == 1:
-            labels = [lab.partition("=")[2] for lab in labels]
-        ax.set_xticklabels(labels, fontsize=8, rotation=30 if len(points) > 4 else 0)
-    ax.set_ylim(0.0, 1.05)
-    ax.set_xlabel(", ".join(keys) if keys else "subset")
-    ax.set_ylabel("AP / AR")
-    ax.set_title("across the sweep")
-    ax.grid(True, alpha=0.3)
-    ax.legend(fontsize=8)
-    _save(fig, path)
-    return figure_size_px(1)
+    return charts.save_png(charts.sweep_figure(points, title=title, width_px=PANEL_PX[0], height_px=PANEL_PX[1]), path)
 
 
 def sweep_table(points: Sequence[SweepPoint]):

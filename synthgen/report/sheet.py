@@ -4,8 +4,8 @@ Contact sheets
 --------------
 :func:`contact_sheet` lays out images of a COCO dataset in a grid, each with its
 annotated boxes on top, the image id under each tile, a legend, optionally
-predictions (dashed, coloured by what each one is) and enlarged crops of the
-smallest objects.  It returns a :class:`Sheet`: the ``(H, W, 3)`` uint8 pixels
+predictions (dashed, coloured by what each one is) and enlarged crops of small
+objects (:data:`ZOOM_PICKS`: the smallest, a spread of sizes, or the smallest missed).  It returns a :class:`Sheet`: the ``(H, W, 3)`` uint8 pixels
 and where each tile sits; :func:`save_png` writes the pixels.  How boxes are drawn and coloured is told
 in :mod:`synthgen.report.draw`.
 
@@ -38,7 +38,14 @@ from synthgen.evaluate.classify import read_prediction_boxes as read_predictions
 from synthgen.formats.results import PREDICTION_KINDS, TruthSidecar, read_truth_sidecar
 from synthgen.geometry import box_area, box_longer_side
 from synthgen.report.dataset import Dataset, load_image
-from synthgen.report.draw import CATEGORY_COLOURS, DASH, PREDICTION_COLOURS, category_colour, draw_boxes
+from synthgen.report.draw import (
+    CATEGORY_COLOURS,
+    DASH,
+    PREDICTION_COLOURS,
+    category_colour,
+    draw_boxes,
+    outline_outside_small,
+)
 
 __all__ = [
     "PREDICTION_KINDS",
@@ -51,6 +58,7 @@ __all__ = [
     "Placement",
     "Sheet",
     "contact_sheet",
+    "ZOOM_PICKS",
     "save_png",
 ]
 
@@ -260,11 +268,13 @@ class _Tile:
     sy: float
 
 
-def _render_tile(ds: Dataset, image: Mapping, overlay: _Overlay, scale: float, show_factor: bool) -> _Tile:
-    """One image at ``scale`` with its boxes drawn, and its caption."""
+def _render_tile(ds: Dataset, image: Mapping, overlay: _Overlay, scale: float, show_factor: bool,
+                 small: float = 12.0) -> _Tile:
+    """One image at ``scale`` with its boxes drawn (outside where smaller than ``small`` tile px), and its caption."""
     pix, sx, sy = _scaled(load_image(ds, image), scale)
     image_id = int(image["id"])
     boxes, colours, dashed = overlay.for_image(image_id)
+    boxes = outline_outside_small(boxes, sx, sy, small)
     here = overlay.image_id == image_id
     n_obj = int(np.count_nonzero(here & ~overlay.crowd))
     caption = f"id {image_id} · {n_obj} object{'s' if n_obj != 1 else ''}"
@@ -320,8 +330,41 @@ def _enlarged_crop(img: np.ndarray, centre: tuple[float, float], z: int, side: i
     return big, X0 / z, Y0 / z
 
 
-def _zoom_crops(ds: Dataset, chosen, overlay: _Overlay, tile_scales: dict, count: int, side: int = _ZOOM_SIDE):
-    """Enlarged crops of the smallest objects of the chosen images: (pixels, line 1, line 2, Placement)."""
+#: How the zoom strip chooses its objects among those an enlargement helps.
+ZOOM_PICKS = ("smallest", "spread", "missed")
+
+#: What the zoom strip's label calls the objects of each pick.
+_ZOOM_PICK_TEXT = {"smallest": "smallest objects", "spread": "objects spread over sizes, smallest first",
+                   "missed": "smallest missed objects"}
+
+
+def _zoom_order(area: np.ndarray, helps: np.ndarray, missed, pick: str, count: int) -> np.ndarray:
+    """Indices (into the candidates) of the objects the zoom strip shows, in the order shown.
+
+    ``smallest``: by area, smallest first; ``spread``: ``count`` objects evenly
+    spaced in area rank from the smallest to the largest that still gets
+    enlarged; ``missed``: the smallest objects no prediction found.
+
+    Examples
+    --------
+    >>> _zoom_order(np.array([5., 1., 9., 3., 7.]), np.ones(5, bool), None, "spread", 3).tolist()
+    [1, 0, 2]
+    """
+    order = np.argsort(area, kind="stable")
+    order = order[helps[order]]
+    if pick == "missed":
+        order = order[np.asarray(missed, dtype=bool)[order]] if missed is not None else order[:0]
+    if pick == "spread" and len(order) > count > 0:
+        order = order[np.unique(np.round(np.linspace(0, len(order) - 1, count)).astype(int))]
+    return order[:count]
+
+
+def _zoom_crops(ds: Dataset, chosen, overlay: _Overlay, tile_scales: dict, count: int, side: int = _ZOOM_SIDE,
+                pick: str = "smallest"):
+    """Enlarged crops of chosen objects of the shown images (:func:`_zoom_order`).
+
+    Returns a list of (pixels, line 1, line 2, Placement).
+    """
     ids = [int(im["id"]) for im in chosen]
     sel = np.flatnonzero(np.isin(overlay.image_id, ids) & ~overlay.crowd)
     if sel.size == 0 or count <= 0:
@@ -331,8 +374,8 @@ def _zoom_crops(ds: Dataset, chosen, overlay: _Overlay, tile_scales: dict, count
     # only objects an enlargement helps: at least x2, and more than their tile already shows
     tile_scale = np.array([tile_scales.get(int(g), 1.0) for g in overlay.image_id[sel]])
     helps = (longer <= _zoom_limit(side)) & (_zoom_factor(longer, side) > tile_scale)
-    order = np.argsort(overlay.area[sel], kind="stable")
-    pick = sel[order[helps[order]][:count]]
+    missed = None if overlay.missed is None else overlay.missed[sel]
+    pick = sel[_zoom_order(overlay.area[sel], helps, missed, pick, count)]
     by_id = {int(im["id"]): im for im in chosen}
     cache: dict[int, np.ndarray] = {}
     out = []
@@ -422,8 +465,9 @@ def _legend_items(ds: Dataset, overlay: _Overlay, predictions: Predictions | Non
     return truth_label, cat_items, pred_label, pred_items
 
 
-def _draw_crops(sheet, draw, crops: list, one_image: bool, layout: tuple, sheet_w: int, fonts: _Fonts) -> list:
-    """Draw the zoom section's label and its crops; returns their placements.
+def _draw_crops(sheet, draw, crops: list, one_image: bool, layout: tuple, sheet_w: int, fonts: _Fonts,
+                pick: str = "smallest") -> list:
+    """Draw the zoom section's label (naming the objects ``pick`` chose) and its crops; returns their placements.
 
     ``layout`` is ``(pad, y0, gap, title_h, zoom_cap, zoom_cols)``: the sheet's margin, the section's top,
     the gap between crops, the label's height, a crop's caption height, and crops per row.
@@ -435,7 +479,7 @@ def _draw_crops(sheet, draw, crops: list, one_image: bool, layout: tuple, sheet_
     limit = f"{_zoom_limit(_ZOOM_SIDE):.0f}"
     if crops:
         these = "this image" if one_image else "these images"
-        label = (f"the {len(crops)} smallest objects (by area; longer side up to {limit} px) in {these}, "
+        label = (f"the {len(crops)} {_ZOOM_PICK_TEXT[pick]} (by area; longer side up to {limit} px) in {these}, "
                  "enlarged with nearest neighbour")
     else:
         these = "this image" if one_image else "these images"
@@ -504,14 +548,25 @@ def _legends(ds: Dataset, overlay, predictions, auto, fonts, pad: int, sheet_w: 
     return (truth_label, legend1, pred_label, legend2, h1), h2
 
 
-def _zoom_strip(ds: Dataset, chosen, overlay, tiles, zoom_count, layout, fonts):
+def _zoom_strip(ds: Dataset, chosen, overlay, tiles, zoom_count, layout, fonts, pick: str = "smallest"):
     """The zoom strip's crops, crops per row, caption height and total height, px."""
     pad, gap, title_h, sheet_w = layout
     zoom_cols = max(1, (sheet_w - 2 * pad + gap) // (_ZOOM_SIDE + gap))
     scales = {t.image_id: t.sx for t in tiles}
-    crops = _zoom_crops(ds, chosen, overlay, scales, zoom_count if zoom_count is not None else 2 * zoom_cols)
+    crops = _zoom_crops(ds, chosen, overlay, scales, zoom_count if zoom_count is not None else 2 * zoom_cols,
+                        pick=pick)
     zoom_cap = 2 * fonts.px + 6
     return crops, zoom_cols, zoom_cap, title_h + math.ceil(len(crops) / zoom_cols) * (_ZOOM_SIDE + zoom_cap + gap)
+
+
+def _check_zoom_pick(zoom: bool, pick: str, missed) -> None:
+    """Refuse a zoom pick before any image is drawn."""
+    if not zoom:
+        return
+    if pick not in ZOOM_PICKS:
+        raise UserError(f"zoom pick must be one of {', '.join(ZOOM_PICKS)} (got {pick!r})")
+    if pick == "missed" and missed is None:
+        raise UserError("zoom pick 'missed' needs predictions (--pred) to know which objects were missed")
 
 
 def contact_sheet(
@@ -525,32 +580,31 @@ def contact_sheet(
     missed=None,
     zoom: bool = False,
     zoom_count: int | None = None,
+    zoom_pick: str = "smallest",
+    small_outline: float = 12.0,
 ) -> Sheet:
     """A grid of a dataset's images with their boxes drawn on top.
 
     Parameters
     ----------
     ds : Dataset
-    n : int
-        Number of images, the first ``n`` by image id (ignored with ``ids``).
-    ids : sequence of int, optional
-        COCO image ids to show, in this order.
+    n, ids : int, sequence of int (optional)
+        The first ``n`` images by image id, or these COCO image ids in this order.
     cols : int, optional
         Tiles per row (default: about the square root of the number of images).
     scale : float, optional
-        Tile pixels per image pixel for every image (default: each image's
-        :func:`auto_scale`, given in the captions, shrunk further when the grid
-        would be wider than 4096 px); boxes drawn as :func:`outline_pixels` says.
+        Tile pixels per image pixel (default: each image's :func:`auto_scale`, in the captions, shrunk
+        when the grid would be wider than 4096 px); boxes drawn as :func:`outline_pixels` says.
     predictions : Predictions, optional
         Drawn dashed over the truth, coloured by ``kind`` (:data:`PREDICTION_COLOURS`).
     missed : collection of int, optional
         Annotation ids no prediction found; each caption then counts its image's.
-    zoom : bool
-        Add a strip of the smallest objects shown (longer side up to 21 px,
-        where the crop enlarges more than the tile), each enlarged by a whole
-        factor (2 to 32) to about a third of its 128-pixel crop.
-    zoom_count : int, optional
-        Number of crops (default: two rows' worth).
+    zoom, zoom_count, zoom_pick : bool, int (default two rows), str
+        Add a strip of ``zoom_count`` small objects (longer side up to 21 px), each enlarged by a
+        whole factor (2 to 32) to about a third of its 128-pixel crop; :data:`ZOOM_PICKS` says which.
+    small_outline : float
+        Boxes under this many tile pixels are outlined just outside (:func:`outline_outside_small`),
+        so a tiny object is not hidden under its own outline; 0 keeps every outline inside.
 
     Returns
     -------
@@ -567,10 +621,12 @@ def contact_sheet(
     chosen = _select_images(ds.coco, n, ids)
     if not chosen:
         raise InputFileError(ds.source, "has no images to show")
+    _check_zoom_pick(zoom, zoom_pick, missed)
     overlay = _Overlay.build(ds.coco, predictions, missed)
     cols = min(cols or max(1, math.ceil(math.sqrt(len(chosen)))), len(chosen))
     auto, mixed = _tile_scales(chosen, scale, cols)
-    tiles = [_render_tile(ds, im, overlay, auto[int(im["id"])] if scale is None else scale, mixed) for im in chosen]
+    tiles = [_render_tile(ds, im, overlay, auto[int(im["id"])] if scale is None else scale, mixed, small_outline)
+             for im in chosen]
     rows = math.ceil(len(tiles) / cols)
     tile_w = max(t.pixels.shape[1] for t in tiles)
     tile_h = max(t.pixels.shape[0] for t in tiles)
@@ -582,8 +638,8 @@ def contact_sheet(
     header_h = pad + title_h + legends[4] + h2 + 6
     crops, zoom_cols, zoom_cap, zoom_h = [], 1, 0, 0
     if zoom:
-        zoom_layout = (pad, gap, title_h, sheet_w)
-        crops, zoom_cols, zoom_cap, zoom_h = _zoom_strip(ds, chosen, overlay, tiles, zoom_count, zoom_layout, fonts)
+        crops, zoom_cols, zoom_cap, zoom_h = _zoom_strip(ds, chosen, overlay, tiles, zoom_count,
+                                                         (pad, gap, title_h, sheet_w), fonts, zoom_pick)
 
     grid_h = rows * (tile_h + cap_h) + (rows - 1) * gap
     sheet = Image.new("RGB", (sheet_w, header_h + grid_h + (gap + zoom_h if zoom else 0) + pad), _SHEET_BG)
@@ -591,7 +647,7 @@ def contact_sheet(
     _draw_header(draw, ds, tiles, mixed, legends, (pad, title_h, sheet_w), fonts)
     placed_tiles = _paste_tiles(sheet, draw, tiles, cols, (pad, gap, header_h, tile_w, tile_h, cap_h), fonts)
     crop_layout = (pad, header_h + grid_h + gap, gap, title_h, zoom_cap, zoom_cols)
-    placed_crops = _draw_crops(sheet, draw, crops, len(tiles) == 1, crop_layout, sheet_w, fonts) if zoom else []
+    placed_crops = _draw_crops(sheet, draw, crops, len(tiles) == 1, crop_layout, sheet_w, fonts, zoom_pick) if zoom else []
     return Sheet(np.asarray(sheet), tuple(placed_tiles), tuple(placed_crops))
 
 

@@ -13,7 +13,7 @@ imports :mod:`.pool` does not load the rest)::
     from synthgen.run import make_dataset, merge_shards, run_sweep
 """
 
-from importlib import import_module
+from synthgen._lazy import lazy_exports
 
 #: public name -> module that defines it
 _EXPORTS = {
@@ -28,11 +28,4 @@ _EXPORTS = {
 __all__ = list(_EXPORTS)
 
 
-def __getattr__(name: str):
-    if name in _EXPORTS:
-        return getattr(import_module(_EXPORTS[name]), name)
-    raise AttributeError(f"module 'synthgen.run' has no attribute {name!r}")
-
-
-def __dir__():
-    return sorted(__all__)
+__getattr__, __dir__ = lazy_exports(__name__, _EXPORTS)

@@ -63,9 +63,11 @@ def block_size(n: int, workers: int) -> int:
 
 #: A run starts ``min(workers, images // MIN_IMAGES_PER_WORKER)`` worker processes and renders in
 #: its own process when that is below 2.  A worker costs 0.4-0.6 s to start (a fresh interpreter
-#: importing numpy, OpenCV and synthgen); with two workers on two cores giving 1.2-1.8x, they pay off
-#: from roughly 45-130 default 640x480 images (benchmarks/bench_workers.py).
-MIN_IMAGES_PER_WORKER = 32
+#: importing numpy, OpenCV and synthgen).  benchmarks/bench_workers.py on 2 shared cores (wall time,
+#: two workers over one process, medians of 3): 64 images 1.13 (default 640x480), 0.95 (demo, 20-30
+#: objects), 2.35 (96x72); 128 images 0.87, 0.72, 0.93.  So two workers pay off from about 100
+#: images, and from 128 in every case measured.
+MIN_IMAGES_PER_WORKER = 64
 
 
 def local_processes(n_images: int, workers: int) -> int:
@@ -73,7 +75,7 @@ def local_processes(n_images: int, workers: int) -> int:
 
     Examples
     --------
-    >>> local_processes(16, 2), local_processes(64, 2), local_processes(1000, 2), local_processes(1000, 1)
+    >>> local_processes(16, 2), local_processes(128, 2), local_processes(1000, 2), local_processes(1000, 1)
     (1, 2, 2, 1)
     """
     n = min(workers, n_images // MIN_IMAGES_PER_WORKER)

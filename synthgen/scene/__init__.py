@@ -6,7 +6,7 @@ objects' exact boxes, categories, masks and facts.  The public names are importa
 the package itself and load on first use, so importing :mod:`synthgen.scene.facts` stays light.
 """
 
-from importlib import import_module
+from synthgen._lazy import lazy_exports
 
 #: public name -> module of this package that defines it
 _EXPORTS = {
@@ -25,11 +25,4 @@ _EXPORTS = {
 __all__ = sorted(_EXPORTS)
 
 
-def __getattr__(name: str):
-    if name in _EXPORTS:
-        return getattr(import_module(_EXPORTS[name]), name)
-    raise AttributeError(f"module 'synthgen.scene' has no attribute {name!r}")
-
-
-def __dir__():
-    return sorted(__all__)
+__getattr__, __dir__ = lazy_exports(__name__, _EXPORTS)

@@ -246,24 +246,42 @@ def coverage_many(
                     sampled[0].flags.writeable = False
                     insides[i] = sampled[0]
             continue
-        # grouped by patch height too, so that padding to the group's patch stays small
-        groups.setdefault((sig, h), []).append((i, row0, col0, h, w, region))
+        groups.setdefault(sig, []).append((i, row0, col0, h, w, region))
     offs = _offsets(s)
-    for (sig, h), items in groups.items():
-        _cover_group(sig, h, items, shapes, strokes, s, offs, out, insides)
+    for sig, items in groups.items():
+        _cover_group(sig, items, shapes, strokes, s, offs, out, insides)
     return out
 
 
-def _cover_group(sig, group_h: int, items, shapes, strokes, s: int, offs, out: list, insides) -> None:
-    """:func:`coverage_many` for one group of patches sharing a region signature and height.
+def _size_chunks(items, limit: int) -> list:
+    """``items`` ``(i, row0, col0, h, w, ...)`` sorted by patch size and cut into runs whose padded patches
+    (every patch padded to the run's largest height and width) hold at most ``limit`` pixels (one at least)."""
+    items = sorted(items, key=lambda it: (it[3], it[4]))
+    chunks: list = []
+    run: list = []
+    wm = 0
+    for it in items:
+        w2 = max(wm, it[4])
+        if run and (len(run) + 1) * it[3] * w2 > limit:
+            chunks.append(run)
+            run, w2 = [], it[4]
+        run.append(it)
+        wm = w2
+    if run:
+        chunks.append(run)
+    return chunks
+
+
+def _cover_group(sig, items, shapes, strokes, s: int, offs, out: list, insides) -> None:
+    """:func:`coverage_many` for one group of patches sharing a region signature.
 
     ``items`` are ``(i, row0, col0, h, w, region)``; each shape's :class:`Coverage`
-    goes to ``out[i]`` (and its sample mask to ``insides[i]`` when given).
+    goes to ``out[i]`` (and its sample mask to ``insides[i]`` when given).  Patches
+    of similar size are tested together, padded to the largest (the padding's
+    samples are computed and dropped).
     """
     # chunks of about _MANY_SAMPLES samples keep the temporaries in cache
-    per = max(1, _MANY_SAMPLES // (s * s * group_h * max(it[4] for it in items)))
-    for start in range(0, len(items), per):
-        chunk = items[start : start + per]
+    for chunk in _size_chunks(items, max(1, _MANY_SAMPLES // (s * s))):
         hm = max(it[3] for it in chunk)
         wm = max(it[4] for it in chunk)
         rows = np.array([it[1] for it in chunk])
@@ -335,8 +353,15 @@ def _piece_max_many(regions, xs, ys) -> np.ndarray:
     nx = np.stack([r.nx for r in regions])[..., None, None]  # (N, P, E, 1, 1)
     ny = np.stack([r.ny for r in regions])[..., None, None]
     c = np.stack([r.c for r in regions])[..., None, None]
-    v = (nx * xs[:, None, None] - c) + ny * ys[:, None, None]  # (N, P, E, Hs, Ws)
-    return v.max(axis=2)
+    a = nx * xs[:, None, None] - c  # (N, P, E, 1, Ws)
+    b = ny * ys[:, None, None]  # (N, P, E, Hs, 1)
+    # edge by edge into one running maximum: the same sums, without an (N, P, E, Hs, Ws) temporary
+    m = a[:, :, 0] + b[:, :, 0]
+    v = np.empty_like(m)
+    for e in range(1, a.shape[2]):
+        np.add(a[:, :, e], b[:, :, e], out=v)
+        np.maximum(m, v, out=m)
+    return m
 
 
 def _contains_many(sig, regions, xs: np.ndarray, ys: np.ndarray) -> np.ndarray:

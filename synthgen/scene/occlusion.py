@@ -34,6 +34,22 @@ _WORDS = {1: np.uint8, 2: np.uint16, 4: np.uint32, 8: np.uint64}
 
 #: Number of set bits of every byte value.
 _POPCOUNT = np.array([v.bit_count() for v in range(256)], dtype=np.uint8)
+#: Number of set bits of every 16-bit value: a packed pixel at 3 or 4 samples a side (64 KB).
+_POPCOUNT16 = _POPCOUNT[np.arange(1 << 16) & 0xFF] + _POPCOUNT[np.arange(1 << 16) >> 8]
+
+
+def _set_bits(packed: np.ndarray) -> np.ndarray:
+    """Set bits of each packed pixel (..., nb) -> (...): ``_POPCOUNT[packed].sum(axis=-1)``, the same counts.
+
+    One table look-up per pixel where a pixel is one or two bytes (a sum over a
+    trailing axis of 2 is several times slower than the look-up).
+    """
+    nb = packed.shape[-1]
+    if nb == 1:
+        return _POPCOUNT[packed[..., 0]]
+    if nb == 2 and packed.flags.c_contiguous:
+        return _POPCOUNT16[packed.view(np.uint16)[..., 0]]
+    return _POPCOUNT[packed].sum(axis=-1, dtype=np.int32)
 
 
 def _bytes_per_pixel(samples: int) -> int:
@@ -233,7 +249,7 @@ class SampleBuffer:
         if not hidden.any():
             return cov.values, None
         s = self.samples
-        lost = _POPCOUNT[hidden].sum(axis=2, dtype=np.int32)
+        lost = _set_bits(hidden)
         visible = cov.values - lost.astype(np.float32) / (s * s)
         np.clip(visible, 0.0, 1.0, out=visible)
         support = visible > 0
@@ -278,7 +294,7 @@ class SampleBuffer:
         taken = self.taken[rr, cc]  # (M, nb)
         hides = np.bincount(seg, weights=~self.full[rr, cc], minlength=k) == 0
         hidden = own & taken
-        lost = _POPCOUNT[hidden].sum(axis=1, dtype=np.int32)  # (M,)
+        lost = _set_bits(hidden)  # (M,)
         occluded = np.bincount(seg, weights=lost > 0, minlength=k) > 0
         values = np.concatenate([c.values.ravel() for c in covs])  # (M,) float32
         visible = values - lost.astype(np.float32) / (s * s)

@@ -39,7 +39,6 @@ from __future__ import annotations
 import math
 
 import numpy as np
-import shapely
 
 from synthgen.scene import shapes as shapes_mod
 from synthgen.scene.regions import ConvexBand, DifferenceRegion, EllipseRegion, EmptyRegion
@@ -80,6 +79,8 @@ def _ellipse_polygons(e, gap: float, focus=None):
     or within ``gap`` px on the steps whose arc may meet a box of ``focus``
     ((F, 4) array; everywhere when ``focus`` is None).
     """
+    import shapely  # on first use: ~15 ms, and a scene where nothing overlaps never needs it
+
     ax_, bx_ = e.a * e.cos, -e.b * e.sin  # x(t) = ex + ax_ cos t + bx_ sin t
     ay_, by_ = e.a * e.sin, e.b * e.cos
     tx, ty = math.atan2(bx_, ax_), math.atan2(by_, ay_)
@@ -124,6 +125,8 @@ def _ellipse_polygons(e, gap: float, focus=None):
 
 def _sandwich(region, gap: float, focus):
     """``(inner, outer)`` shapely geometries with inner <= region <= outer, for elliptic regions."""
+    import shapely
+
     if isinstance(region, EllipseRegion):
         return _ellipse_polygons(region, gap, focus)
     if isinstance(region, EmptyRegion):
@@ -146,6 +149,8 @@ def _convex_band(ring: np.ndarray, width: float):
     with mitred corners is exactly that (the tests hold it to 1e-9 px against
     a buffer of the outline).
     """
+    import shapely
+
     shape = shapely.Polygon(ring)
     return shape.difference(shape.buffer(-width, join_style="mitre", mitre_limit=1e9))
 
@@ -166,6 +171,8 @@ def _band(ring: np.ndarray, width: float, gap: float):
     inside the shape, so all of it then keeps ``width``); else ``x`` grows,
     and at worst the whole shape stands for the outer band.
     """
+    import shapely
+
     shape = shapely.Polygon(ring)
     # GEOS divides a corner's arc into steps of at most about pi / (2 q); the two erosions are
     # at most width (1/cos(x) - cos(x)) ~ width x^2 apart
@@ -212,6 +219,8 @@ def region_polygons(shape: Shape, stroke: float = 0.0, *, gap: float = _FIRST_GA
     >>> bool(inner.area < 100 * math.pi < outer.area)
     True
     """
+    import shapely
+
     stroke = float(stroke)
     key = (shape, stroke)
     first = focus is None and gap == _FIRST_GAP
@@ -297,6 +306,84 @@ def _sides_in_view(shape: Shape, above, height: int, width: int) -> np.ndarray:
     return out
 
 
+def _sides_in_view_many(items, height: int, width: int) -> np.ndarray:
+    """``[_sides_in_view(shape, above, height, width) for shape, above in items]`` as an (N, 4) array.
+
+    The same point tests, run for all objects together: the touch points of every
+    polygon kind are picked from all the rings at once, the points are matched to
+    the boxes of the shapes above their own object in one step, and each shape
+    above tests all the points it may hide in one call.  A point's verdict is the
+    same as one object at a time (each test is per point; a point is hidden when
+    it is off the canvas or inside any shape above), so the sides are the same.
+    """
+    n = len(items)
+    owner, side, px, py = _touch_points_many([shape for shape, _ in items])
+    hidden = (px < 0.0) | (px > width) | (py < 0.0) | (py > height)
+    # every (point, shape above its object) pair whose box holds the point
+    order = np.argsort(owner, kind="stable")
+    owner, side, px, py, hidden = owner[order], side[order], px[order], py[order], hidden[order]
+    first = np.searchsorted(owner, np.arange(n + 1))
+    uppers: dict = {}
+    pair_owner, pair_upper, pair_boxes = [], [], []
+    for i, (_, above) in enumerate(items):
+        for upper in above:
+            pair_owner.append(i)
+            pair_upper.append(uppers.setdefault(upper, len(uppers)))
+            pair_boxes.append(shapes_mod.shape_geometry(upper[0]).box)
+    if pair_owner:
+        pair_owner = np.array(pair_owner)
+        counts = first[pair_owner + 1] - first[pair_owner]
+        pair = np.repeat(np.arange(len(pair_owner)), counts)  # pair of each (pair, point) row
+        ends = np.cumsum(counts)
+        point = np.arange(ends[-1] if len(ends) else 0) - np.repeat(ends - counts, counts) + first[pair_owner][pair]
+        boxes = np.array(pair_boxes, dtype=np.float64)[pair]
+        x, y = px[point], py[point]
+        keep = (x >= boxes[:, 0]) & (x <= boxes[:, 2]) & (y >= boxes[:, 1]) & (y <= boxes[:, 3]) & ~hidden[point]
+        point, upper_of = point[keep], np.array(pair_upper)[pair[keep]]
+        by_upper = np.argsort(upper_of, kind="stable")
+        point, upper_of = point[by_upper], upper_of[by_upper]
+        cuts = np.flatnonzero(np.diff(upper_of)) + 1
+        keys = list(uppers)
+        for group in np.split(np.arange(len(point)), cuts) if len(point) else []:
+            pts = point[group]
+            hidden[pts[shapes_mod.shape_region(*keys[upper_of[group[0]]]).contains(px[pts], py[pts])]] = True
+    seen = np.bincount(owner[~hidden] * 4 + side[~hidden], minlength=4 * n)
+    return (seen > 0).reshape(n, 4)
+
+
+def _touch_points_many(shapes) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """The points of :func:`_touch_points` of every shape: owner index, side (0-3), x and y, one row each.
+
+    The vertices of all polygon rings are compared with their boxes in one
+    step (the same comparisons :func:`_touch_points` makes); ellipse kinds
+    take :func:`_touch_points` itself.
+    """
+    geoms = shapes_mod.shape_geometries(shapes)
+    rings, ring_owner, parts = [], [], []
+    for i, (shape, g) in enumerate(zip(shapes, geoms)):
+        ring = g.ring
+        if ring is not None:
+            rings.append(ring)
+            ring_owner.append(i)
+            continue
+        pts = np.concatenate(_touch_points(shape))
+        parts.append((np.full(4, i), np.arange(4), pts[:, 0], pts[:, 1]))
+    if rings:
+        lengths = np.array([r.shape[0] for r in rings])
+        own = np.repeat(np.array(ring_owner), lengths)
+        verts = np.concatenate(rings)
+        box = np.array([geoms[i].box for i in ring_owner], dtype=np.float64)  # (R, 4)
+        tol = 1e-9 * np.maximum(1.0, np.abs(box).max(axis=1))
+        per = np.repeat(np.arange(len(rings)), lengths)
+        for k, axis in enumerate((0, 1, 0, 1)):
+            on = np.abs(verts[:, axis] - box[per, k]) <= tol[per]
+            parts.append((own[on], np.full(int(on.sum()), k), verts[on, 0], verts[on, 1]))
+    if not parts:
+        empty = np.zeros(0)
+        return empty.astype(np.int64), empty.astype(np.int64), empty, empty
+    return tuple(np.concatenate(col) for col in zip(*parts))
+
+
 def _bounds(geom) -> np.ndarray | None:
     return None if geom.is_empty else np.array(geom.bounds)
 
@@ -362,9 +449,17 @@ def visible_boxes(objects, height: int, width: int) -> list:
         Canvas size in px.
     """
     out: list = [None] * len(objects)
-    jobs = []
-    for i, (shape, stroke, above, exact, inside) in enumerate(objects):
-        job = _Job.start(shape, float(stroke), above, height, width, exact, inside)
+    jobs, firsts = [], []
+    for i, (shape, _, above, exact, _) in enumerate(objects):
+        first = _Job.meeting(shape, above, height, width, exact)
+        if isinstance(first, tuple):
+            firsts.append((i, first))
+        else:
+            out[i] = first
+    in_view = _sides_in_view_many([(objects[i][0], first[2]) for i, first in firsts], height, width)
+    for (i, first), sides in zip(firsts, in_view):
+        shape, stroke, _, _, inside = objects[i]
+        job = _Job.begin(shape, float(stroke), first, sides, inside)
         if isinstance(job, _Job):
             job.index = i
             jobs.append(job)
@@ -433,7 +528,19 @@ class _Job:
 
     @classmethod
     def start(cls, shape: Shape, stroke: float, above, height: int, width: int, exact, inside):
-        """A job, or the answer itself (a box or None) when no polygon arithmetic is needed."""
+        """A job, or the answer itself (a box or None) when no polygon arithmetic is needed.
+
+        One object at a time; :func:`visible_boxes` runs the two halves,
+        :meth:`meeting` and :meth:`begin`, with the side tests of all objects together.
+        """
+        first = cls.meeting(shape, above, height, width, exact)
+        if not isinstance(first, tuple):
+            return first
+        return cls.begin(shape, stroke, first, _sides_in_view(shape, first[2], height, width), inside)
+
+    @staticmethod
+    def meeting(shape: Shape, above, height: int, width: int, exact):
+        """``(exact, unclipped box, shapes above that meet the exact box)``, or the answer itself."""
         gb = shapes_mod.shape_geometry(shape).box
         on_canvas = gb[0] >= 0.0 and gb[1] >= 0.0 and gb[2] <= width and gb[3] <= height
         if exact is None:
@@ -449,8 +556,14 @@ class _Job:
                 near.append((upper, float(up_stroke)))
         if not near:
             return exact
+        return exact, gb, near
+
+    @classmethod
+    def begin(cls, shape: Shape, stroke: float, first, in_view: np.ndarray, inside):
+        """The job after :meth:`meeting`, given :func:`_sides_in_view` of the object (or the answer itself)."""
+        exact, gb, near = first
         # a side of the exact box that the canvas does not cut is reached when a touch point is in view
-        settled = _sides_in_view(shape, near, height, width) & (exact == np.asarray(gb))
+        settled = in_view & (exact == np.asarray(gb))
         known = None  # the box `inside`, cut to the exact box
         if inside is not None:
             known = np.concatenate([np.maximum(inside[:2], exact[:2]), np.minimum(inside[2:], exact[2:])])
@@ -486,6 +599,8 @@ def _seen_many(tasks) -> list:
     whose polygons meet the region in the window are subtracted, in their
     order; the polygon arithmetic of all tasks runs a step at a time.
     """
+    import shapely
+
     n = len(tasks)
     if n == 0:
         return []
