@@ -38,7 +38,7 @@ def write_report(run, out, predictions=None, *, by: Sequence[str] | None = None,
     from synthgen.page.build import write_page
     from synthgen.page.load import load_run
 
-    require_extra("matplotlib", "plots", "the report's figures")
+    require_extra("matplotlib", "plots", "the report page")
     loaded = load_run(run, predictions, by=by)
     size = write_page(loaded, out, crops=crops)
     return {"bytes": size, "subsets": len(loaded.subsets), "title": loaded.title}
