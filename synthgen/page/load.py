@@ -128,8 +128,11 @@ def _slices(evaluation: Evaluation, by: Sequence[str], explicit: bool) -> dict:
     return out
 
 
-def _subset(name: str, ds: Dataset, preds: list, pred_name: str, varied: dict, by, explicit: bool) -> Subset:
-    ev = evaluate(ds.coco, preds, gt_name=str(ds.source), pred_name=pred_name)
+def _subset(name: str, ds: Dataset, preds: list, pred_name: str, varied: dict, by, explicit: bool,
+            ev: Evaluation | None = None) -> Subset:
+    """One scored subset; ``ev`` is its evaluation when the caller has scored it already (a sweep)."""
+    if ev is None:
+        ev = evaluate(ds.coco, preds, gt_name=str(ds.source), pred_name=pred_name)
     return Subset(name, ds, preds, pred_name, varied, ev, _slices(ev, by, explicit), breakdown(ds.coco, preds))
 
 
@@ -198,7 +201,8 @@ def _load_sweep(sweep: Path, pred_dir: Path, by, explicit: bool) -> Run:
         ds = open_dataset(sweep / point.subset)
         pred_path = pred_dir / (point.subset + ".json")
         preds = read_predictions(pred_path)
-        subsets.append(_subset(point.subset, ds, preds, point.subset + ".json", point.values, facts, explicit))
+        subsets.append(_subset(point.subset, ds, preds, point.subset + ".json", point.values, facts, explicit,
+                               point.evaluation))  # score_sweep scored it: no second evaluation
     digest = sha256_file(sweep / "sweep.json")  # the sweep's listing of its subsets
     source = {"path": sweep.name, "kind": "sweep", "manifest_digest": digest,
               "config": (subsets[0].dataset.manifest or {}).get("config") if subsets else None}
