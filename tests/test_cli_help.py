@@ -45,7 +45,7 @@ def test_flags_show_no_value_type(pages):
     for name, text in pages.items():
         assert "<bool>" not in text, name
     assert re.search(r"--overwrite\s+Replace", pages["make"])
-    assert re.search(r"--help\s+-h\s+Show this message", pages[""])
+    assert re.search(r"-h, --help\s+Show this message", pages[""])
 
 
 def test_short_help_flag_is_accepted():
@@ -71,3 +71,14 @@ def test_help_texts_say_what_they_mean(pages):
     assert "(default: all five)" in _flat(pages["jitter"])
     score = _flat(pages["score"])
     assert "objects.size=[4,8].json" in score and "[4, 8]" not in score  # sweep folders have no space
+
+
+@pytest.mark.parametrize("argv", [[], ["tokens"]])
+def test_a_bare_command_group_shows_its_whole_help(argv):
+    """`synthgen` (or `synthgen tokens`) alone prints the help as written, on stderr, and exits 2 (a usage
+    mistake, common practice for command-line tools), not the help squeezed into one error line."""
+    env = {**os.environ, "COLUMNS": "80"}
+    res = subprocess.run([sys.executable, "-m", "synthgen", *argv], capture_output=True, text=True, env=env, timeout=60)
+    assert res.returncode == 2
+    assert res.stderr.startswith("Usage: synthgen") and "\nCommands:\n" in res.stderr
+    assert "synthgen: error" not in res.stderr

@@ -3,6 +3,7 @@ benchmarks/run_all.py measures the seconds)."""
 
 from __future__ import annotations
 
+import os
 import subprocess
 import sys
 
@@ -44,3 +45,42 @@ def test_report_figures_and_format_writers_load_no_sheets_or_pillow():
     Pillow (it is imported where a PNG is drawn or opened)."""
     statement = "import synthgen.report.figures, synthgen.formats"
     assert _loaded_after(statement, ("synthgen.report.sheet", "PIL")) == []
+
+
+def _loaded_after_command(argv: list[str], modules: tuple[str, ...], cwd) -> list[str]:
+    """Modules loaded after the console script's main() ran ``argv`` in a fresh interpreter."""
+    code = (
+        "import sys, atexit\n"
+        f"atexit.register(lambda: print(' '.join(m for m in {modules!r} if m in sys.modules)))\n"
+        f"sys.argv = ['synthgen', *{argv!r}]\n"
+        "from synthgen.cli import main\nmain()\n"
+    )
+    res = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, cwd=cwd)
+    assert res.returncode == 0, res.stderr
+    return res.stdout.split("\n")[-2].split()
+
+
+def test_help_and_a_one_image_make_load_no_validation_model_or_rich_text(tmp_path):
+    """typer would build a pydantic model per option value and draw help with rich (together
+    ~0.25 s of a 0.35 s start): the command line converts values itself and writes plain help."""
+    heavy = ("pydantic", "rich")
+    assert _loaded_after_command(["--help"], heavy, tmp_path) == []
+    assert _loaded_after_command(["make", "--help"], heavy, tmp_path) == []
+    argv = ["make", "--count", "1", "--out", "d", "-q", "--set", "objects.count=[2,3]", "--workers", "1"]
+    assert _loaded_after_command(argv, heavy, tmp_path) == []
+    assert (tmp_path / "d" / "annotations.json").is_file()
+
+
+def test_blas_runs_on_one_thread_for_synthgen_s_own_commands(monkeypatch):
+    """OPENBLAS_NUM_THREADS=1 unless the user set it, and never for commands that run the user's code."""
+    from synthgen.cli import RUNS_YOUR_CODE, one_blas_thread
+
+    monkeypatch.delenv("OPENBLAS_NUM_THREADS", raising=False)
+    for command in sorted(RUNS_YOUR_CODE):
+        one_blas_thread([command, "x", "--detector", "builtin"])
+        assert "OPENBLAS_NUM_THREADS" not in os.environ
+    one_blas_thread(["make", "--count", "3"])
+    assert os.environ["OPENBLAS_NUM_THREADS"] == "1"
+    monkeypatch.setenv("OPENBLAS_NUM_THREADS", "4")
+    one_blas_thread(["make"])
+    assert os.environ["OPENBLAS_NUM_THREADS"] == "4"

@@ -6,25 +6,36 @@ import functools
 import os
 import sys
 import traceback
+import typing
 from pathlib import Path
 from typing import Annotated
 
 import typer
 
+from synthgen.cli._values import install, without_none
 from synthgen.errors import UserError
 
 
 class _Plain:
-    """Help as people read it: a flag shows no value type (no '<bool>'), and arguments are written
-    in upper case, an optional one in brackets, in the usage line and in the arguments panel."""
+    """Help as people read it, and values converted without a model per option.
+
+    A flag shows no value type (no '<bool>'), a repeatable option the type of one
+    value, and arguments are written in upper case, an optional one in brackets, in
+    the usage line and in the arguments list.  Help is plain text (no rich panels:
+    importing rich to draw them took longer than the command's work).  Each
+    parameter gets the direct conversion of :mod:`synthgen.cli._values`.
+    """
 
     def get_params(self, ctx):
         params = super().get_params(ctx)
         for p in params:
+            install(p)
             if p.metavar is None and getattr(p, "is_flag", False):
                 p.metavar = ""
             elif p.metavar is None and p.param_type_name == "argument":
                 p.metavar = p.name.upper()
+            elif p.metavar is None and getattr(p, "multiple", False):
+                p.metavar = _one_value(p)
         return params
 
     def collect_usage_pieces(self, ctx):
@@ -43,6 +54,33 @@ class _Command(_Plain, typer.core.TyperCommand):
 class _Group(_Plain, typer.core.TyperGroup):
     def collect_usage_pieces(self, ctx):
         return typer.core.TyperGroup.collect_usage_pieces(self, ctx)
+
+    def format_commands(self, ctx, formatter):
+        """Each command with the first sentence of its help, wrapped, never cut short."""
+        rows = []
+        for name in self.list_commands(ctx):
+            cmd = self.get_command(ctx, name)
+            if cmd is not None and not cmd.hidden:
+                rows.append((name, cmd.get_short_help_str(limit=10_000)))
+        if rows:
+            with formatter.section("Commands"):
+                formatter.write_dl(rows)
+
+
+def _one_value(param) -> str:
+    """The metavar of one value of a repeatable option: ``<str>`` for ``list[str]``."""
+    args = typing.get_args(without_none(param.type_descriptor.annotation))
+    return f"<{getattr(args[0], '__name__', 'value').lower()}>" if args else "<value>"
+
+
+#: Settings every typer app of the command line shares: plain help, -h, no completion scripts.
+APP_SETTINGS = {
+    "add_completion": False,
+    "no_args_is_help": True,
+    "pretty_exceptions_enable": False,
+    "rich_markup_mode": None,
+    "context_settings": {"help_option_names": ["-h", "--help"]},
+}
 
 
 def _fail(message: str, code: int) -> None:

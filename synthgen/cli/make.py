@@ -61,7 +61,7 @@ def make(
         str | None,
         typer.Option(
             "--cluster", metavar="ADDRESS|local",
-            help="Render on a Dask cluster (scheduler address, or 'local'); needs pip install 'synthgen-shapes\\[cluster]'.",
+            help="Render on a Dask cluster (scheduler address, or 'local'); needs the [cluster] extra.",
         ),
     ] = None,
     quiet: Annotated[bool, typer.Option("--quiet", "-q", help="No progress bar.")] = False,

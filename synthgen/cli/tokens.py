@@ -7,14 +7,13 @@ from typing import Annotated
 
 import typer
 
-from synthgen.cli._common import _check_output_file, _Command, _Group, reported
+from synthgen.cli._common import APP_SETTINGS, _check_output_file, _Command, _Group, reported
 from synthgen.errors import UserError
 
 app = typer.Typer(
     help="Token sequences for sequence-style detectors: what their bins cost.",
-    no_args_is_help=True,
     cls=_Group,
-    context_settings={"help_option_names": ["-h", "--help"]},
+    **APP_SETTINGS,
 )
 
 

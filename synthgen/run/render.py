@@ -8,8 +8,8 @@ a block of image indices into ``DIR/images`` and returns their journal lines
 from __future__ import annotations
 
 import ctypes
-import ctypes.util
 import hashlib
+import os
 import platform
 from collections.abc import Sequence
 from pathlib import Path
@@ -96,10 +96,14 @@ def keep_freed_memory() -> None:
     if _malloc_tuned:
         return
     _malloc_tuned = True
-    if platform.system() != "Linux" or platform.libc_ver()[0] != "glibc":
+    try:  # glibc names itself here (instantly; platform.libc_ver() reads the interpreter binary)
+        glibc = os.confstr("CS_GNU_LIBC_VERSION")
+    except (AttributeError, ValueError, OSError):
+        glibc = None
+    if not glibc:
         return
-    try:
-        libc = ctypes.CDLL(ctypes.util.find_library("c") or "libc.so.6")
+    try:  # the running program's own symbols include glibc's (no library search: it runs ldconfig)
+        libc = ctypes.CDLL(None)
         libc.mallopt(_M_MMAP_THRESHOLD, 32 << 20)  # the largest value glibc accepts on 64-bit
         libc.mallopt(_M_TRIM_THRESHOLD, 128 << 20)
     except (OSError, AttributeError):  # no usable libc: keep the defaults
@@ -118,10 +122,9 @@ def render_block(config: Config, indices: Sequence[int], out: str | Path) -> lis
 
 def versions() -> dict:
     """Versions of Python and of the libraries whose output ends up in the files."""
-    from importlib.metadata import version
-
     import cv2
     import PIL
+    import shapely
 
     return {
         "synthgen": __version__,
@@ -129,7 +132,7 @@ def versions() -> dict:
         "numpy": np.__version__,
         "pillow": PIL.__version__,
         "opencv": cv2.__version__,
-        # visible boxes (GEOS polygon arithmetic); read from the installed metadata, since importing
-        # shapely costs ~15 ms that a run without occlusion has no other use for
-        "shapely": version("shapely"),
+        # visible boxes (GEOS polygon arithmetic); importing it (~15 ms, when no occlusion did) costs
+        # no more than reading the installed metadata
+        "shapely": shapely.__version__,
     }
