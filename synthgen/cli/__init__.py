@@ -5,7 +5,6 @@ Results go to stdout, progress and errors to stderr.  Exit codes: 0 done,
 message naming the key or file, the rule and the value.
 """
 
-from __future__ import annotations
 
 import os
 import sys

@@ -1,6 +1,5 @@
 """Commands for evaluator authors: cases, conform."""
 
-from __future__ import annotations
 
 from pathlib import Path
 from typing import Annotated

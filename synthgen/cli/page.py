@@ -1,6 +1,5 @@
 """``synthgen report``: one self-contained HTML page of a scored run."""
 
-from __future__ import annotations
 
 from pathlib import Path
 from typing import Annotated
