@@ -44,6 +44,8 @@ def test_flags_show_no_value_type(pages):
     """A flag takes no value, so its help shows no '<bool>' (or any type) beside it."""
     for name, text in pages.items():
         assert "<bool>" not in text, name
+        assert " range>" not in text, name  # a value's type, not typer's wording
+        assert not re.search(r"--\S+ <list\[", text), name  # a repeatable option shows one value's type
     assert re.search(r"--overwrite\s+Replace", pages["make"])
     assert re.search(r"-h, --help\s+Show this message", pages[""])
 

@@ -20,7 +20,7 @@ class _Plain:
     """Help as people read it, and values converted without a model per option.
 
     A flag shows no value type (no '<bool>'), a repeatable option the type of one
-    value, and arguments are written in upper case, an optional one in brackets, in
+    value, a bounded number its type (its bounds follow the help), and arguments are written in upper case, an optional one in brackets, in
     the usage line and in the arguments list.  Help is plain text (no rich panels:
     importing rich to draw them took longer than the command's work).  Each
     parameter gets the direct conversion of :mod:`synthgen.cli._values`.
@@ -36,6 +36,8 @@ class _Plain:
                 p.metavar = p.name.upper()
             elif p.metavar is None and getattr(p, "multiple", False):
                 p.metavar = _one_value(p)
+            elif p.metavar is None and getattr(getattr(p, "type_descriptor", None), "is_ranged", False):
+                p.metavar = f"<{p.type_descriptor.ranged_type_name}>"  # not '<int range>': the range is in [...]
         return params
 
     def collect_usage_pieces(self, ctx):
