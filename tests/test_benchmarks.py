@@ -21,9 +21,10 @@ def test_run_all_quick_prints_one_row_per_target(monkeypatch, capsys):
     """The in-process measurements run for real; the timed whole processes are recorded, not started
     (they take seconds; `python benchmarks/run_all.py --quick` runs them)."""
     run_all = _load_run_all(monkeypatch)
-    started = []
-    monkeypatch.setattr(run_all, "run_quiet", started.append)
+    started, envs = [], []
+    monkeypatch.setattr(run_all, "run_quiet", lambda cmd, **env: (started.append(cmd), envs.append(env)))
     assert run_all.main(["--quick", "--skip-scripts"]) == 0
+    assert {"OPENBLAS_NUM_THREADS": "1"} in envs  # target 5 also times the script on one BLAS thread
     commands = [" ".join(Path(c[0]).name if i == 0 else c[i] for i in range(len(c))) for c in started]
     assert any(c.endswith("synthgen --help") or "synthgen --help" in c for c in commands)
     assert any(" make --count 1 " in c for c in commands)
