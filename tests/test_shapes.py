@@ -677,3 +677,16 @@ def test_paint_rejects_bad_input():
     with pytest.raises(ValueError, match="period must be a finite number > 0"):
         paint("stripes", COLORS, 2, 2, row0=0, col0=0, angle=0.0, period=0.0)
     assert FILLS == ("flat", "gradient", "stripes")
+
+
+def test_classified_sample_counts_equal_a_plain_sum():
+    """The sub-sample counts behind classified coverage equal a plain sum of the flags, for every supported s."""
+    from synthgen.scene.coverage import _sample_counts
+
+    rng = np.random.default_rng(2)
+    for s in (1, 2, 3, 4, 8, 15, 16):  # 16: 256 samples, past a byte
+        flags = rng.random((s, s, 50)) < 0.7
+        flags[:, :, 0] = True
+        got = _sample_counts(flags, s)
+        assert np.array_equal(got, flags.sum(axis=(0, 1)))
+        assert int(got[0]) == s * s
