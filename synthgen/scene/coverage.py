@@ -2,9 +2,10 @@
 
 A pixel's coverage is the fraction of its ``samples x samples`` sub-pixel centres
 (an even grid, see :mod:`synthgen.geometry` for the pixel convention) that the
-shape's region (:mod:`synthgen.scene.regions`) contains.  Pixels the region's
-distance bound puts wholly inside or outside are classified without sampling;
-the result equals the plain sample rule exactly (:attr:`Coverage.inside`).
+shape's region (:mod:`synthgen.scene.regions`) contains.  Pixels that a lower
+bound on the distance to the boundary (the region's own bound; for ellipses and
+rings, their gauge) puts wholly inside or outside are classified without
+sampling; the result equals the plain sample rule exactly (:attr:`Coverage.inside`).
 """
 
 from __future__ import annotations
