@@ -109,3 +109,22 @@ def test_patch_bounds_are_the_coverage_patch():
         else:
             h, w = cov.values.shape
             assert got == (cov.row0, cov.col0, cov.row0 + h, cov.col0 + w)
+
+
+@pytest.mark.parametrize("samples", [1, 2, 3, 4, 5, 6, 8, 11])
+def test_full_pixels_set_every_sample_bit_where_the_mask_is(samples):
+    """Packed full pixels: all s^2 sample bits set (numpy.packbits, little bit order) where the mask holds, 0 elsewhere;
+    the same bytes whatever width (1 to 16 bytes) a packed pixel takes."""
+    from synthgen.scene.occlusion import _full_pixels
+
+    rng = np.random.default_rng(samples)
+    mask = rng.random((7, 9)) < 0.5
+    got = _full_pixels(mask, samples)
+    nb = (samples * samples + 7) // 8
+    assert got.shape == (7, 9, nb) and got.dtype == np.uint8 and got.flags.writeable
+    full = np.packbits(np.ones(samples * samples, dtype=bool), bitorder="little")
+    want = np.where(mask[..., None], full, np.uint8(0))
+    assert np.array_equal(got, want)
+    # every set pixel unpacks to s^2 samples, every other to none
+    counts = np.unpackbits(got, axis=-1, bitorder="little").sum(axis=-1)
+    assert np.array_equal(counts, np.where(mask, samples * samples, 0))
