@@ -128,3 +128,20 @@ def test_full_pixels_set_every_sample_bit_where_the_mask_is(samples):
     # every set pixel unpacks to s^2 samples, every other to none
     counts = np.unpackbits(got, axis=-1, bitorder="little").sum(axis=-1)
     assert np.array_equal(counts, np.where(mask, samples * samples, 0))
+
+
+@pytest.mark.parametrize("samples", [1, 3, 4, 5, 6, 8, 16])
+def test_packed_pixel_gather_and_scatter_equal_fancy_indexing(samples):
+    """The buffer reads and writes packed pixels by flat index exactly as taken[rr, cc] does, for every pixel width
+    (1, 2, 4, 5, 8 and 32 bytes)."""
+    rng = np.random.default_rng(samples)
+    buf = SampleBuffer(20, 30, samples)
+    buf.taken[...] = rng.integers(0, 256, size=buf.taken.shape, dtype=np.uint8)
+    flat = rng.permutation(20 * 30)[:200]
+    rr, cc = flat // 30, flat % 30
+    assert np.array_equal(buf._take(flat), buf.taken[rr, cc])
+    values = rng.integers(0, 256, size=(200, buf.taken.shape[-1]), dtype=np.uint8)
+    want = buf.taken.copy()
+    want[rr, cc] = values
+    buf._put(flat, values)
+    assert np.array_equal(buf.taken, want)

@@ -47,3 +47,18 @@ def test_stripes_paint_bands_of_alternating_colours():
     """Stripes of period 3 along +x: columns 0-2 colour 0, 3-5 colour 1, 6-8 colour 0, from the pixel centres."""
     out = raster.paint("stripes", [[0, 0, 0], [255, 255, 255]], 1, 9, row0=0, col0=0, angle=0.0, period=3.0)
     assert out[0, :, 0].tolist() == [0.0] * 3 + [255.0] * 3 + [0.0] * 3
+
+
+def test_canvas_gather_and_scatter_by_flat_index_equal_fancy_indexing():
+    """Pixels read and written by flat index are those of canvas[rr, cc], on contiguous and strided canvases."""
+    rng = np.random.default_rng(8)
+    base = rng.integers(0, 256, size=(30, 40, 3), dtype=np.uint8)
+    for canvas in (base.copy(), np.asfortranarray(base), base.copy()[:, ::-1]):
+        flat = rng.permutation(30 * 40)[:500]  # no pixel twice, as within one painting level
+        rr, cc = flat // 40, flat % 40
+        assert np.array_equal(raster._canvas_take(canvas, flat), canvas[rr, cc])
+        values = rng.integers(0, 256, size=(500, 3), dtype=np.uint8)
+        want = np.array(canvas)
+        want[rr, cc] = values
+        raster._canvas_put(canvas, flat, values)
+        assert np.array_equal(canvas, want)

@@ -313,9 +313,10 @@ class SampleBuffer:
         local = np.arange(seg.size) - starts[seg]
         rr = np.array([c.row0 for c in covs])[seg] + local // ws[seg]
         cc = np.array([c.col0 for c in covs])[seg] + local % ws[seg]
+        flat = rr * self.full.shape[1] + cc  # canvas pixel of each, row-major
         own = np.concatenate([b.reshape(-1, b.shape[-1]) for b in bits])  # (M, nb)
-        taken = self.taken[rr, cc]  # (M, nb)
-        hides = np.bincount(seg, weights=~self.full[rr, cc], minlength=k) == 0
+        taken = self._take(flat)  # (M, nb)
+        hides = np.bincount(seg, weights=~self.full.reshape(-1).take(flat), minlength=k) == 0
         hidden = own & taken
         lost = _set_bits(hidden)  # (M,)
         occluded = np.bincount(seg, weights=lost > 0, minlength=k) > 0
@@ -335,15 +336,36 @@ class SampleBuffer:
                 seen = (own[a:b] & ~taken[a:b]).reshape(cov.values.shape + (own.shape[1],))
                 box = _seen_box(seen, support, s, cov.row0, cov.col0)
             results.append((vis, box))
-        return results, hides, _Pixels(rr, cc, seg, own, taken)
+        return results, hides, _Pixels(flat, seg, own, taken)
 
     def cover_many(self, pixels: _Pixels, which) -> None:
         """:meth:`cover` the shapes ``which`` (bool per shape) of a :meth:`visible_many` call."""
         sel = np.asarray(which, dtype=bool)[pixels.seg]
-        rr, cc = pixels.rr[sel], pixels.cc[sel]
+        flat = pixels.flat[sel]
         now = pixels.taken[sel] | pixels.own[sel]  # the patches share no pixel: no index repeats
-        self.taken[rr, cc] = now
-        self.full[rr, cc] = self._covered(now)
+        self._put(flat, now)
+        self.full.reshape(-1)[flat] = self._covered(now)
+
+    # Gathers and scatters of packed pixels by flat canvas index, one integer per pixel where a packed
+    # pixel is 1, 2, 4 or 8 bytes: the same bytes as ``taken[rr, cc]``, about ten times faster than
+    # fancy indexing rows of nb bytes.
+
+    def _take(self, flat: np.ndarray) -> np.ndarray:
+        """``taken[rr, cc]`` (M, nb) of the canvas pixels ``flat`` = ``rr * width + cc``."""
+        nb = self.taken.shape[-1]
+        word = _WORDS.get(nb)
+        if word is None:
+            return self.taken.reshape(-1, nb)[flat]
+        return self.taken.view(word).reshape(-1).take(flat).view(np.uint8).reshape(flat.size, nb)
+
+    def _put(self, flat: np.ndarray, values: np.ndarray) -> None:
+        """``taken[rr, cc] = values`` (M, nb) at the canvas pixels ``flat`` (no index repeated)."""
+        nb = self.taken.shape[-1]
+        word = _WORDS.get(nb)
+        if word is None:
+            self.taken.reshape(-1, nb)[flat] = values
+            return
+        self.taken.view(word).reshape(-1)[flat] = np.ascontiguousarray(values).view(word).reshape(-1)
 
     def cover(self, cov, bits: np.ndarray) -> None:
         """Mark the samples of a shape as covered, for the objects walked after it (drawn below it)."""
@@ -367,8 +389,7 @@ _SMALL_BOX_PIXELS = 256
 class _Pixels(NamedTuple):
     """Pixels of patches gathered by :meth:`SampleBuffer.visible_many`, each (M,) or (M, nb)."""
 
-    rr: np.ndarray
-    cc: np.ndarray
+    flat: np.ndarray  # canvas pixel, row * width + column
     seg: np.ndarray
     own: np.ndarray
     taken: np.ndarray
