@@ -119,6 +119,7 @@ def test_full_pixels_set_every_sample_bit_where_the_mask_is(samples):
 
     rng = np.random.default_rng(samples)
     mask = rng.random((7, 9)) < 0.5
+    assert np.array_equal(_full_pixels(np.asfortranarray(mask), samples), _full_pixels(mask, samples))  # any layout
     got = _full_pixels(mask, samples)
     nb = (samples * samples + 7) // 8
     assert got.shape == (7, 9, nb) and got.dtype == np.uint8 and got.flags.writeable

@@ -89,7 +89,7 @@ def _full_pixels(mask: np.ndarray, samples: int) -> np.ndarray:
     word = _WORDS.get(nb)
     if word is None:
         return np.multiply(mask[..., None], every, dtype=np.uint8)
-    return (mask.astype(word) * every.view(word)[0]).view(np.uint8).reshape(mask.shape + (nb,))
+    return (mask.astype(word, order="C") * every.view(word)[0]).view(np.uint8).reshape(mask.shape + (nb,))
 
 
 def _point_samples(cov, rr: np.ndarray, cc: np.ndarray) -> np.ndarray:
