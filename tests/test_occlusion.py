@@ -109,3 +109,40 @@ def test_patch_bounds_are_the_coverage_patch():
         else:
             h, w = cov.values.shape
             assert got == (cov.row0, cov.col0, cov.row0 + h, cov.col0 + w)
+
+
+@pytest.mark.parametrize("samples", [1, 2, 3, 4, 5, 6, 8, 11])
+def test_full_pixels_set_every_sample_bit_where_the_mask_is(samples):
+    """Packed full pixels: all s^2 sample bits set (numpy.packbits, little bit order) where the mask holds, 0 elsewhere;
+    the same bytes whatever width (1 to 16 bytes) a packed pixel takes."""
+    from synthgen.scene.occlusion import _full_pixels
+
+    rng = np.random.default_rng(samples)
+    mask = rng.random((7, 9)) < 0.5
+    assert np.array_equal(_full_pixels(np.asfortranarray(mask), samples), _full_pixels(mask, samples))  # any layout
+    got = _full_pixels(mask, samples)
+    nb = (samples * samples + 7) // 8
+    assert got.shape == (7, 9, nb) and got.dtype == np.uint8 and got.flags.writeable
+    full = np.packbits(np.ones(samples * samples, dtype=bool), bitorder="little")
+    want = np.where(mask[..., None], full, np.uint8(0))
+    assert np.array_equal(got, want)
+    # every set pixel unpacks to s^2 samples, every other to none
+    counts = np.unpackbits(got, axis=-1, bitorder="little").sum(axis=-1)
+    assert np.array_equal(counts, np.where(mask, samples * samples, 0))
+
+
+@pytest.mark.parametrize("samples", [1, 3, 4, 5, 6, 8, 16])
+def test_packed_pixel_gather_and_scatter_equal_fancy_indexing(samples):
+    """The buffer reads and writes packed pixels by flat index exactly as taken[rr, cc] does, for every pixel width
+    (1, 2, 4, 5, 8 and 32 bytes)."""
+    rng = np.random.default_rng(samples)
+    buf = SampleBuffer(20, 30, samples)
+    buf.taken[...] = rng.integers(0, 256, size=buf.taken.shape, dtype=np.uint8)
+    flat = rng.permutation(20 * 30)[:200]
+    rr, cc = flat // 30, flat % 30
+    assert np.array_equal(buf._take(flat), buf.taken[rr, cc])
+    values = rng.integers(0, 256, size=(200, buf.taken.shape[-1]), dtype=np.uint8)
+    want = buf.taken.copy()
+    want[rr, cc] = values
+    buf._put(flat, values)
+    assert np.array_equal(buf.taken, want)

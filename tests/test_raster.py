@@ -27,3 +27,38 @@ def test_blend_rounds_half_to_even_and_keeps_uncovered_pixels():
     under = np.array([[[0, 0, 0], [7, 8, 9]]], np.uint8)
     out = raster.blend(under, np.array([5.0, 5.0, 5.0], np.float32), np.array([[0.5, 0.0]]))
     assert out.tolist() == [[[2, 2, 2], [7, 8, 9]]]  # 2.5 -> 2
+
+
+def test_stripe_parity_equals_the_float_modulo_rule():
+    """The stripe band parity equals ``floor(q) % 2 == 1`` (numpy's float modulo) everywhere, signs and huge values too."""
+    rng = np.random.default_rng(5)
+    q = np.concatenate([
+        rng.uniform(-500.0, 500.0, 20000),
+        np.arange(-6.0, 6.0, 0.25),  # whole and half values, on both sides of zero
+        np.array([-0.0, 2.0**52 + 1.0, 2.0**53, -(2.0**52) - 1.0, 1e300, -1e300]),
+    ])
+    with np.errstate(invalid="ignore"):
+        want = (np.floor(q) % 2) == 1
+    assert np.array_equal(raster._odd_band(q), want)
+    assert raster._odd_band(q).any() and not raster._odd_band(q).all()
+
+
+def test_stripes_paint_bands_of_alternating_colours():
+    """Stripes of period 3 along +x: columns 0-2 colour 0, 3-5 colour 1, 6-8 colour 0, from the pixel centres."""
+    out = raster.paint("stripes", [[0, 0, 0], [255, 255, 255]], 1, 9, row0=0, col0=0, angle=0.0, period=3.0)
+    assert out[0, :, 0].tolist() == [0.0] * 3 + [255.0] * 3 + [0.0] * 3
+
+
+def test_canvas_gather_and_scatter_by_flat_index_equal_fancy_indexing():
+    """Pixels read and written by flat index are those of canvas[rr, cc], on contiguous and strided canvases."""
+    rng = np.random.default_rng(8)
+    base = rng.integers(0, 256, size=(30, 40, 3), dtype=np.uint8)
+    for canvas in (base.copy(), np.asfortranarray(base), base.copy()[:, ::-1]):
+        flat = rng.permutation(30 * 40)[:500]  # no pixel twice, as within one painting level
+        rr, cc = flat // 40, flat % 40
+        assert np.array_equal(raster._canvas_take(canvas, flat), canvas[rr, cc])
+        values = rng.integers(0, 256, size=(500, 3), dtype=np.uint8)
+        want = np.array(canvas)
+        want[rr, cc] = values
+        raster._canvas_put(canvas, flat, values)
+        assert np.array_equal(canvas, want)

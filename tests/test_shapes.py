@@ -677,3 +677,45 @@ def test_paint_rejects_bad_input():
     with pytest.raises(ValueError, match="period must be a finite number > 0"):
         paint("stripes", COLORS, 2, 2, row0=0, col0=0, angle=0.0, period=0.0)
     assert FILLS == ("flat", "gradient", "stripes")
+
+
+def test_classified_sample_counts_equal_a_plain_sum():
+    """The sub-sample counts behind classified coverage equal a plain sum of the flags, for every supported s."""
+    from synthgen.scene.coverage import _sample_counts
+
+    rng = np.random.default_rng(2)
+    for s in (1, 2, 3, 4, 8, 15, 16):  # 16: 256 samples, past a byte
+        flags = rng.random((s, s, 50)) < 0.7
+        flags[:, :, 0] = True
+        got = _sample_counts(flags, s)
+        assert np.array_equal(got, flags.sum(axis=(0, 1)))
+        assert int(got[0]) == s * s
+
+
+@pytest.mark.parametrize("samples", [2, 4, 5])
+def test_elliptic_gauge_classes_equal_plain_sampling(samples):
+    """Ellipses, rings and outlined ellipses settled by their gauge (thin, wide, tiny, holed, cut by the border)
+    give the coverage of the plain sample rule: every pixel the gauge settles is settled right."""
+    from synthgen.scene.coverage import _elliptic_classes
+    from synthgen.scene.shapes import shape_region
+
+    rng = np.random.default_rng(9)
+    checked = 0
+    for _ in range(40):
+        kind = ("ellipse", "ring")[int(rng.integers(2))]
+        shape = Shape(kind, float(rng.uniform(-5, 85)), float(rng.uniform(-5, 65)), float(rng.uniform(1.0, 100.0)),
+                      aspect=float(np.exp(rng.uniform(-2.5, 2.5))), angle=float(rng.uniform(0, 360)),
+                      inner=float(rng.uniform(0.05, 0.95)))
+        for stroke in (0.0, float(rng.uniform(0.3, 4.0))):
+            cov = coverage(shape, 60, 80, samples=samples, stroke=stroke)
+            if cov is None:
+                continue
+            h, w = cov.values.shape
+            xs = (np.arange(cov.col0, cov.col0 + w)[:, None] + (np.arange(samples) + 0.5) / samples).ravel()
+            ys = (np.arange(cov.row0, cov.row0 + h)[:, None] + (np.arange(samples) + 0.5) / samples).ravel()
+            plain = sample_inside(shape, xs[None, :], ys[:, None], stroke=stroke)
+            want = plain.reshape(h, samples, w, samples).mean(axis=(1, 3)).astype(np.float32)
+            np.testing.assert_array_equal(cov.values, want)
+            xc, yc = np.arange(cov.col0, cov.col0 + w) + 0.5, np.arange(cov.row0, cov.row0 + h) + 0.5
+            checked += _elliptic_classes(shape_region(shape, stroke), xc, yc, 0.5) is not None
+    assert checked > 40  # the gauge path was taken (filled and outlined ellipses, rings)

@@ -21,6 +21,7 @@ Bits are packed per pixel: ``ceil(s^2 / 8)`` bytes, sample ``(i, j)`` at bit
 from __future__ import annotations
 
 import math
+from functools import lru_cache
 from typing import NamedTuple
 
 import numpy as np
@@ -66,6 +67,29 @@ def _unpack(bits: np.ndarray, samples: int) -> np.ndarray:
     ss = samples * samples
     flat = np.unpackbits(bits, axis=-1, count=ss, bitorder="little")
     return flat.reshape(bits.shape[:-1] + (samples, samples)).view(bool)
+
+
+@lru_cache(maxsize=16)
+def _full_pixel(samples: int) -> np.ndarray:
+    """The packed bytes (nb,) of a pixel all of whose samples are set (read-only)."""
+    every = _pack(np.ones(samples * samples, dtype=bool))
+    every.flags.writeable = False
+    return every
+
+
+def _full_pixels(mask: np.ndarray, samples: int) -> np.ndarray:
+    """Packed pixels (h, w, nb) uint8: every sample set where ``mask`` (h, w) is, none elsewhere.
+
+    The bytes of ``np.multiply(mask[..., None], every, dtype=np.uint8)`` (``every``
+    the bytes of a full pixel), made as one integer per pixel where a packed pixel
+    is 1, 2, 4 or 8 bytes (a product over a trailing axis of 2 is several times slower).
+    """
+    every = _full_pixel(samples)
+    nb = every.size
+    word = _WORDS.get(nb)
+    if word is None:
+        return np.multiply(mask[..., None], every, dtype=np.uint8)
+    return (mask.astype(word, order="C") * every.view(word)[0]).view(np.uint8).reshape(mask.shape + (nb,))
 
 
 def _point_samples(cov, rr: np.ndarray, cc: np.ndarray) -> np.ndarray:
@@ -137,14 +161,13 @@ def sample_bits(cov, inside: np.ndarray | None = None, edges: tuple | None = Non
     if inside is not None:
         flags = inside.reshape(h, s, w, s).transpose(0, 2, 1, 3).reshape(h, w, ss)
         return _pack(flags)
-    every = _pack(np.ones(ss, dtype=bool))  # the bytes of a pixel all of whose samples are set
     if edges is not None:
         interior, rr, cc, flags = edges
-        bits = np.multiply(interior[..., None], every, dtype=np.uint8)  # (h, w, nb)
+        bits = _full_pixels(interior, s)  # (h, w, nb)
         if rr.size:
             bits[rr, cc] = _pack(flags.transpose(2, 0, 1).reshape(rr.size, ss))
         return bits
-    bits = np.multiply((v >= 1)[..., None], every, dtype=np.uint8)
+    bits = _full_pixels(v >= 1, s)
     rr, cc = np.nonzero((v > 0) & (v < 1))
     if rr.size:
         flags = _point_samples(cov, rr + cov.row0, cc + cov.col0).reshape(rr.size, ss)
@@ -290,9 +313,10 @@ class SampleBuffer:
         local = np.arange(seg.size) - starts[seg]
         rr = np.array([c.row0 for c in covs])[seg] + local // ws[seg]
         cc = np.array([c.col0 for c in covs])[seg] + local % ws[seg]
+        flat = rr * self.full.shape[1] + cc  # canvas pixel of each, row-major
         own = np.concatenate([b.reshape(-1, b.shape[-1]) for b in bits])  # (M, nb)
-        taken = self.taken[rr, cc]  # (M, nb)
-        hides = np.bincount(seg, weights=~self.full[rr, cc], minlength=k) == 0
+        taken = self._take(flat)  # (M, nb)
+        hides = np.bincount(seg, weights=~self.full.reshape(-1).take(flat), minlength=k) == 0
         hidden = own & taken
         lost = _set_bits(hidden)  # (M,)
         occluded = np.bincount(seg, weights=lost > 0, minlength=k) > 0
@@ -312,15 +336,36 @@ class SampleBuffer:
                 seen = (own[a:b] & ~taken[a:b]).reshape(cov.values.shape + (own.shape[1],))
                 box = _seen_box(seen, support, s, cov.row0, cov.col0)
             results.append((vis, box))
-        return results, hides, _Pixels(rr, cc, seg, own, taken)
+        return results, hides, _Pixels(flat, seg, own, taken)
 
     def cover_many(self, pixels: _Pixels, which) -> None:
         """:meth:`cover` the shapes ``which`` (bool per shape) of a :meth:`visible_many` call."""
         sel = np.asarray(which, dtype=bool)[pixels.seg]
-        rr, cc = pixels.rr[sel], pixels.cc[sel]
+        flat = pixels.flat[sel]
         now = pixels.taken[sel] | pixels.own[sel]  # the patches share no pixel: no index repeats
-        self.taken[rr, cc] = now
-        self.full[rr, cc] = self._covered(now)
+        self._put(flat, now)
+        self.full.reshape(-1)[flat] = self._covered(now)
+
+    # Gathers and scatters of packed pixels by flat canvas index, one integer per pixel where a packed
+    # pixel is 1, 2, 4 or 8 bytes: the same bytes as ``taken[rr, cc]``, about ten times faster than
+    # fancy indexing rows of nb bytes.
+
+    def _take(self, flat: np.ndarray) -> np.ndarray:
+        """``taken[rr, cc]`` (M, nb) of the canvas pixels ``flat`` = ``rr * width + cc``."""
+        nb = self.taken.shape[-1]
+        word = _WORDS.get(nb)
+        if word is None:
+            return self.taken.reshape(-1, nb)[flat]
+        return self.taken.view(word).reshape(-1).take(flat).view(np.uint8).reshape(flat.size, nb)
+
+    def _put(self, flat: np.ndarray, values: np.ndarray) -> None:
+        """``taken[rr, cc] = values`` (M, nb) at the canvas pixels ``flat`` (no index repeated)."""
+        nb = self.taken.shape[-1]
+        word = _WORDS.get(nb)
+        if word is None:
+            self.taken.reshape(-1, nb)[flat] = values
+            return
+        self.taken.view(word).reshape(-1)[flat] = np.ascontiguousarray(values).view(word).reshape(-1)
 
     def cover(self, cov, bits: np.ndarray) -> None:
         """Mark the samples of a shape as covered, for the objects walked after it (drawn below it)."""
@@ -344,8 +389,7 @@ _SMALL_BOX_PIXELS = 256
 class _Pixels(NamedTuple):
     """Pixels of patches gathered by :meth:`SampleBuffer.visible_many`, each (M,) or (M, nb)."""
 
-    rr: np.ndarray
-    cc: np.ndarray
+    flat: np.ndarray  # canvas pixel, row * width + column
     seg: np.ndarray
     own: np.ndarray
     taken: np.ndarray
