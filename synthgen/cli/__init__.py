@@ -5,7 +5,6 @@ Results go to stdout, progress and errors to stderr.  Exit codes: 0 done,
 message naming the key or file, the rule and the value.
 """
 
-
 import os
 import sys
 from typing import Annotated
@@ -74,9 +73,9 @@ def one_blas_thread(argv: list[str]) -> None:
     """Run numpy's BLAS on one thread for synthgen's own commands, unless the environment says otherwise.
 
     Starting OpenBLAS's thread pool costs about 0.1 s of CPU and of wall time at
-    every numpy import (the whole start-up of a one-image ``make`` is 0.35 s
-    without it), in this process and in every worker process; synthgen's matrix
-    products are 2x2 to 8x3, far below the size where a second thread helps.
+    every numpy import (a whole one-image ``make`` takes about 0.25 s without
+    it), in this process and in every worker process; synthgen's matrix products
+    are 2x2 to 8x3, far below the size where a second thread helps.
     Only the thread count of the BLAS changes, never a value.  Call it before
     numpy is imported; commands in :data:`RUNS_YOUR_CODE` are left alone.
     """

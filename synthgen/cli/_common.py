@@ -20,10 +20,11 @@ class _Plain:
     """Help as people read it, and values converted without a model per option.
 
     A flag shows no value type (no '<bool>'), a repeatable option the type of one
-    value, a bounded number its type (its bounds follow the help), and arguments are written in upper case, an optional one in brackets, in
-    the usage line and in the arguments list.  Help is plain text (no rich panels:
-    importing rich to draw them took longer than the command's work).  Each
-    parameter gets the direct conversion of :mod:`synthgen.cli._values`.
+    value, a bounded number its type (its bounds follow the help), and arguments
+    are written in upper case, an optional one in brackets, in the usage line and
+    in the arguments list.  Help is plain text (no rich panels: importing rich to
+    draw them took longer than the command's work).  Each parameter gets the
+    direct conversion of :mod:`synthgen.cli._values`.
     """
 
     def get_params(self, ctx):

@@ -1,6 +1,5 @@
 """Commands about predicted boxes: jitter (simulate a detector) and score (evaluate one)."""
 
-
 from pathlib import Path
 from typing import Annotated
 

@@ -1,6 +1,5 @@
 """Commands for evaluator authors: cases, conform."""
 
-
 from pathlib import Path
 from typing import Annotated
 

@@ -1,6 +1,5 @@
 """Commands that write datasets: make, export, sweep, merge."""
 
-
 from enum import StrEnum
 from pathlib import Path
 from typing import Annotated

@@ -1,6 +1,5 @@
 """``synthgen report``: one self-contained HTML page of a scored run."""
 
-
 from pathlib import Path
 from typing import Annotated
 

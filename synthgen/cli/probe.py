@@ -1,6 +1,5 @@
 """``synthgen probe``: run a detector over a dataset or sweep and score it factor by factor."""
 
-
 from pathlib import Path
 from typing import Annotated
 

@@ -1,6 +1,5 @@
 """``synthgen tokens``: token sequences for sequence-style detectors (what their bins cost)."""
 
-
 from pathlib import Path
 from typing import Annotated
 

@@ -1,6 +1,5 @@
 """Commands that read a dataset: check, show, stats."""
 
-
 from pathlib import Path
 from typing import Annotated
 
