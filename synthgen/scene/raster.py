@@ -124,7 +124,8 @@ def _odd_band(q: np.ndarray) -> np.ndarray:
     """Whether ``floor(q)`` is odd: ``(np.floor(q) % 2) == 1``, element for element, without the slow float modulo.
 
     ``q * 0.5`` is exact, so ``floor(q * 0.5) * 2`` equals ``floor(q)`` exactly when
-    ``floor(q)`` is even (also for huge or infinite ``q``, even by either rule).
+    ``floor(q)`` is even (also for huge or infinite ``q``, even by either rule).  A NaN
+    would count as odd here and even there; callers pass finite positions and periods.
 
     >>> _odd_band(np.array([-3.5, -2.0, -0.5, 0.0, 1.2, 2.9, 1e300])).tolist()
     [False, False, True, False, True, False, False]
