@@ -42,11 +42,12 @@ def test_luma_weights_are_written_once():
 
 
 def test_dataset_file_names_are_written_once():
-    """No module but formats/dataset_dir spells a dataset file's name as a string literal."""
+    """No module but formats/dataset_dir spells a dataset file's name, or a folder's in a path, as a string literal."""
     from synthgen.formats import dataset_dir
 
     names = {dataset_dir.ANNOTATIONS, dataset_dir.MANIFEST, dataset_dir.SPLITS, dataset_dir.TOKENS}
     names |= {dataset_dir.TOKENS_VOCAB, dataset_dir.MASKS_RLE, dataset_dir.STATE_DIR}
+    folders = {dataset_dir.IMAGES_DIR, dataset_dir.VOC_DIR, dataset_dir.YOLO_DIR, dataset_dir.MASKS_DIR}
     hits = []
     for path in PACKAGE.rglob("*.py"):
         if path.name == "dataset_dir.py":
@@ -54,4 +55,8 @@ def test_dataset_file_names_are_written_once():
         for node in ast.walk(ast.parse(path.read_text(encoding="utf-8"))):
             if isinstance(node, ast.Constant) and node.value in names:
                 hits.append(f"{path.relative_to(PACKAGE.parent)}:{node.lineno}: {node.value!r}")
+            # folder names are also COCO keys ("images") or words, so only a path made with them counts
+            if (isinstance(node, ast.BinOp) and isinstance(node.op, ast.Div) and isinstance(node.right, ast.Constant)
+                    and node.right.value in folders):
+                hits.append(f"{path.relative_to(PACKAGE.parent)}:{node.lineno}: / {node.right.value!r}")
     assert hits == []

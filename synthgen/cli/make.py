@@ -156,7 +156,9 @@ def export(
     linked = done.pop("images", None)
     written = ", ".join(f"{k} ({n} images)" for k, n in done.items()) or "nothing new"
     where = out if out is not None else dataset
-    took = "" if linked is None else f"; {linked} image{'s' if linked != 1 else ''} linked or copied into {where / 'images'}"
+    from synthgen.formats.dataset_dir import IMAGES_DIR
+
+    took = "" if linked is None else f"; {linked} image{'s' if linked != 1 else ''} linked or copied into {where / IMAGES_DIR}"
     typer.echo(f"wrote {written} to {where}{took}")
 
 

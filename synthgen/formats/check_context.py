@@ -17,6 +17,7 @@ from pathlib import Path
 from synthgen.errors import InputFileError
 from synthgen.errors import is_int as _is_int
 from synthgen.errors import is_number as _is_num
+from synthgen.formats.dataset_dir import IMAGES_DIR
 
 __all__ = ["Problem", "CheckContext", "listing", "name_at"]
 
@@ -95,7 +96,7 @@ class CheckContext:
         self.add(Path(err.path), record, rule, value)
 
     def image_dirs(self) -> list[Path]:
-        return [self.root / "images", self.root / "JPEGImages", self.root]
+        return [self.root / IMAGES_DIR, self.root / "JPEGImages", self.root]
 
     def find_image(self, file_name: str) -> Path | None:
         for d in self.image_dirs():

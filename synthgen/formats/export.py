@@ -35,6 +35,7 @@ from synthgen.formats._common import WriteJob, bad_record, inside_dataset, sidec
 from synthgen.formats.coco import read_coco, write_coco
 from synthgen.formats.dataset_dir import (
     ANNOTATIONS,
+    IMAGES_DIR,
     MANIFEST,
     SPLITS,
 )
@@ -113,7 +114,7 @@ def write_formats(
     formats = parse_formats(list(formats)) if formats else ()
     _check_options(coco, formats, n_bins, order, masks)
     out = _output_dir(out)
-    images_dir = Path(images_dir) if images_dir is not None else out / "images"
+    images_dir = Path(images_dir) if images_dir is not None else out / IMAGES_DIR
     labels = assign_splits(len(coco["images"]), dict(split), seed=seed) if split else None
     parts = split_coco(coco, labels, names=list(split)) if split else {}
     stems = {name: [sidecar_name(im["file_name"], "") for im in part["images"]] for name, part in parts.items()}
@@ -282,7 +283,7 @@ def export(
         coco,
         out,
         formats,
-        images_dir=dataset_dir / "images" if in_place else out / "images",
+        images_dir=dataset_dir / IMAGES_DIR if in_place else out / IMAGES_DIR,
         split=split,
         seed=seed,
         n_bins=n_bins,
@@ -303,10 +304,10 @@ def _image_links(coco: dict, dataset_dir: Path, out: Path) -> list[tuple[Path, P
     links = []
     for im in coco["images"]:
         name = im["file_name"]
-        src = next((p for p in (dataset_dir / "images" / name, dataset_dir / name) if p.is_file()), None)
+        src = next((p for p in (dataset_dir / IMAGES_DIR / name, dataset_dir / name) if p.is_file()), None)
         if src is None:
-            raise InputFileError(dataset_dir / "images" / name, "does not exist (export --out takes every image along)")
-        dst = out / "images" / name
+            raise InputFileError(dataset_dir / IMAGES_DIR / name, "does not exist (export --out takes every image along)")
+        dst = out / IMAGES_DIR / name
         if dst.exists():
             if dst.is_file() and (os.path.samefile(src, dst) or filecmp.cmp(src, dst, shallow=False)):
                 continue

@@ -9,7 +9,7 @@ from pathlib import Path
 import numpy as np
 
 from synthgen.errors import InputFileError
-from synthgen.formats.dataset_dir import ANNOTATIONS, MANIFEST
+from synthgen.formats.dataset_dir import ANNOTATIONS, IMAGES_DIR, MANIFEST
 
 
 @dataclass(frozen=True, slots=True)
@@ -50,7 +50,7 @@ class Dataset:
         """Path of an image record's file (the first candidate that exists)."""
         name = str(image.get("file_name", ""))
         first = (self.image_dir / name,) if self.image_dir is not None else ()
-        cands = (*first, self.root / "images" / name, self.root / name)
+        cands = (*first, self.root / IMAGES_DIR / name, self.root / name)
         for cand in cands:
             if cand.is_file():
                 return cand
